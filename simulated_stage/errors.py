@@ -1,0 +1,27 @@
+"""Errors of the simulated stage. The stage knows nothing of drivers; the simulated driver maps these."""
+
+from __future__ import annotations
+
+
+class StageError(Exception):
+    """Root of every error the simulated stage raises."""
+
+
+class ScenarioError(StageError, ValueError):
+    """A scenario file or table is invalid. The message names the key and, for values, the allowed range."""
+
+
+class StageLimitError(StageError, ValueError):
+    """A request exceeds a hard limit of the virtual instrument (quantity, value and limit in the message)."""
+
+    def __init__(self, quantity: str, value: float, low: float | None, high: float | None, unit: str) -> None:
+        self.quantity, self.value, self.low, self.high, self.unit = quantity, value, low, high, unit
+        super().__init__(f"{quantity} = {value:g} {unit} is outside [{low}, {high}] {unit}")
+
+
+class StageFault(StageError, RuntimeError):
+    """The virtual controller reports a fault (injected or physical, such as laser loss or a crash)."""
+
+    def __init__(self, code: int, message: str) -> None:
+        self.code = code
+        super().__init__(f"stage fault {code}: {message}")
