@@ -56,6 +56,7 @@ class Limits:
     bias_max_v: float = 10.0  # |bias| limit
     drive_max_v: float = 2.0  # drive amplitude limit
     coarse_travel_max_m: float = 2e-3  # total coarse travel towards the sample from the start position
+    coarse_step_m: float = 50e-9  # nominal size of one coarse step (not a limit: the approach plans with it)
     scan_size_max_m: float = 90e-6
     sample_rate_max_hz: float = 5e6
     frequency_max_hz: float = 2e6
@@ -243,6 +244,12 @@ class Controller(abc.ABC):
     @abc.abstractmethod
     def close(self) -> None:
         """Release the link. Does not change the instrument's state beyond what the link needs."""
+
+    def probe_hint(self) -> dict[str, float] | None:
+        """Nominal data of the mounted probe that the controller happens to know (e.g. from a chip ID):
+        any of ``length_m``, ``width_m``, ``resonance_hz``, ``spring_constant_n_per_m``. None if unknown.
+        Nominal means the maker's number, never a calibration."""
+        return None
 
     # ---- helpers --------------------------------------------------------------------------------------
     def make_safe(self) -> None:

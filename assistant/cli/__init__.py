@@ -1,0 +1,45 @@
+"""``mfma``: the command line. Thin: parse, call the procedures and analysis, print results.
+
+Every command has ``--help``; exit 0 on success, 2 on bad usage or input (one line, no traceback), 1 on a
+runtime failure, 130 after Ctrl-C (the stage is withdrawn first). ``--json`` prints exactly one JSON object on
+stdout; progress goes to stderr. Handlers live in ``assistant.cli.cmd_*`` and are imported only when run.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+
+from assistant import __version__
+from assistant.cli import _common as c
+from assistant.cli.parser import build_parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:  # argparse already printed its one-line error (or the help)
+        return int(exc.code or 0)
+    if not getattr(args, "handler", None):
+        parser.print_help()
+        return c.EXIT_USAGE
+    module_name, _, func_name = args.handler.partition(":")
+    try:
+        handler = getattr(importlib.import_module(f"assistant.cli.{module_name}"), func_name)
+        return int(handler(args) or 0)
+    except KeyboardInterrupt:
+        sys.stderr.write("mfma: interrupted; the stage was withdrawn, drive off, bias 0 V\n")
+        return c.EXIT_INTERRUPTED
+    except BrokenPipeError:
+        return c.EXIT_RUNTIME
+    except Exception as exc:  # one line, no traceback; the exit code tells usage from runtime failures
+        code = c.classify(exc)
+        sys.stderr.write(f"mfma: error: {c.one_line(exc)}\n")
+        if getattr(args, "debug", False):
+            raise
+        return code
+
+
+__all__ = ["main", "__version__", "argparse"]

@@ -1,0 +1,106 @@
+"""Stepped coarse approach: let the feedback extend Z at each coarse position until the amplitude reaches the
+setpoint; if Z runs out of range, retract and take coarse steps covering less than the Z range just searched,
+so the surface can never be skipped. When found, re-centre so the surface sits at mid-range Z.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+
+from assistant.procedures.events import CancelToken, Notice, Progress, Sink, null_sink
+from assistant.procedures.guard import SafetyLimits, safety_guard
+from drivers.base import Capability
+
+
+class NoSurfaceFound(RuntimeError):
+    """The allowed coarse travel was used up without the amplitude reaching the setpoint."""
+
+
+@dataclass(frozen=True)
+class ApproachSettings:
+    drive_frequency_hz: float
+    drive_amplitude_v: float
+    setpoint_v: float
+    free_amplitude_v: float
+    search_fraction: float = 0.8  # each coarse move covers this fraction of the Z range already searched
+    tolerance: float = 0.05  # amplitude within 5 % of the setpoint counts as engaged
+
+
+@dataclass
+class ApproachResult:
+    engaged: bool
+    z_m: float
+    coarse_position_m: float
+    coarse_travel_m: float
+    cycles: int
+    trace_coarse_m: list[float] = field(default_factory=list)
+    trace_z_m: list[float] = field(default_factory=list)
+    trace_amplitude_v: list[float] = field(default_factory=list)
+
+
+def _engaged_reading(controller, settings: ApproachSettings) -> tuple[bool, float, float]:
+    """Switch feedback on and report whether it holds the setpoint inside the Z range."""
+    controller.set_feedback(True, setpoint_v=settings.setpoint_v)
+    r = controller.read(["z_m", "amplitude_v"])
+    z, amp = r["z_m"], r["amplitude_v"]
+    z_max = controller.limits.z_range_m
+    holds = abs(amp - settings.setpoint_v) <= settings.tolerance * settings.setpoint_v and z < 0.995 * z_max
+    return holds, z, amp
+
+
+def approach(controller, settings: ApproachSettings, *, limits: SafetyLimits | None = None,
+             sink: Sink = null_sink, cancel: CancelToken | None = None) -> ApproachResult:
+    """Approach until engaged at the setpoint with Z near mid-range. Runs inside the safety guard."""
+    limits = limits or SafetyLimits()
+    cancel = cancel or CancelToken()
+    if not controller.has(Capability.COARSE_MOTOR):
+        raise NoSurfaceFound("controller has no coarse motor: approach by hand, then engage")
+    limits.check_drive(settings.drive_amplitude_v)
+    z_range = controller.limits.z_range_m
+    step_m = controller.limits.coarse_step_m
+    t0 = time.monotonic()
+    result = ApproachResult(False, 0.0, 0.0, 0.0, 0)
+    with safety_guard(controller, sink=sink):
+        controller.withdraw()
+        controller.set_drive(settings.drive_frequency_hz, settings.drive_amplitude_v)
+        start = controller.status().coarse_position_m
+        while True:
+            cancel.raise_if_set()
+            limits.check_sum(controller.read(["sum_v"])["sum_v"])
+            holds, z, amp = _engaged_reading(controller, settings)
+            pos = controller.status().coarse_position_m
+            result.cycles += 1
+            result.trace_coarse_m.append(pos)
+            result.trace_z_m.append(z)
+            result.trace_amplitude_v.append(amp)
+            travel = pos - start
+            sink(Progress("approach", travel, limits.coarse_travel_max_m, "m", time.monotonic() - t0,
+                          data={"z_m": z, "amplitude_v": amp, "coarse_m": pos}))
+            if holds:
+                break
+            controller.set_feedback(False)
+            controller.withdraw()
+            if travel + settings.search_fraction * z_range > limits.coarse_travel_max_m:
+                raise NoSurfaceFound(
+                    f"no surface within the allowed coarse travel of {limits.coarse_travel_max_m * 1e6:g} µm "
+                    f"(travelled {travel * 1e6:.1f} µm)")
+            controller.step_coarse(max(1, int(settings.search_fraction * z_range / step_m)))
+        # Re-centre: retract, move coarse by the distance between found Z and mid-range, re-engage.
+        mid = 0.5 * z_range
+        steps = int(round((z - mid) / step_m))
+        if steps != 0:
+            controller.set_feedback(False)
+            controller.withdraw()
+            controller.step_coarse(steps)
+            holds, z, amp = _engaged_reading(controller, settings)
+            if not holds:
+                raise NoSurfaceFound("lost the surface while re-centring Z; withdraw and approach again")
+        status = controller.status()
+        result.engaged = True
+        result.z_m = z
+        result.coarse_position_m = status.coarse_position_m
+        result.coarse_travel_m = status.coarse_position_m - start
+        sink(Notice("info", f"engaged: Z extension {z * 1e6:.2f} µm of {z_range * 1e6:.1f} µm, "
+                            f"amplitude {amp * 1e3:.1f} mV (setpoint {settings.setpoint_v * 1e3:.1f} mV)"))
+    return result
