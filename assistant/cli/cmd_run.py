@@ -1,0 +1,148 @@
+"""``mfma run``: the whole session headless — calibrate, approach, series, analysis, report."""
+
+from __future__ import annotations
+
+import json
+import os
+from datetime import datetime, timezone
+from pathlib import Path
+
+from assistant.cli._common import StderrProgress, UsageError, emit_json, emit_text, open_controller_from_args
+
+
+def _writable_dir(text: str) -> Path:
+    out = Path(text)
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise UsageError(f"output folder {out} cannot be created: {exc.strerror}") from None
+    if not out.is_dir() or not os.access(out, os.W_OK):
+        raise UsageError(f"output folder {out} is not writable")
+    return out
+
+
+def calibration_settings(args):
+    from assistant.procedures.calibrate import CalibrationSettings
+
+    return CalibrationSettings(
+        probe_name=args.probe, length_m=args.length_um * 1e-6 if args.length_um else None,
+        width_m=args.width_um * 1e-6 if args.width_um else None,
+        temperature_k=args.temperature_k or 295.15, pressure_pa=args.pressure_pa,
+        thermal_seconds=args.thermal_seconds, free_amplitude_m=args.free_amplitude_nm * 1e-9,
+        setpoint_ratio=args.setpoint_ratio, invols_m_per_v=args.invols * 1e-9 if args.invols else None,
+        contact_invols=args.contact_invols)
+
+
+def _series_settings(args):
+    from assistant.procedures.series import DEFAULT_HEIGHTS_M, SeriesSettings
+
+    heights = tuple(h * 1e-9 for h in args.heights) if args.heights else DEFAULT_HEIGHTS_M
+    biases = tuple(args.biases) if args.biases else None
+    if biases is not None and len(biases) < 3:
+        raise UsageError(f"--biases needs at least three biases for a bias grid, got {len(biases)}")
+    return SeriesSettings(heights_m=heights, biases_v=biases, lines=args.lines, pixels=args.pixels,
+                          scan_size_m=args.size_um * 1e-6, line_rate_hz=args.line_rate,
+                          repeat_first=not args.no_repeat)
+
+
+def _scenario_text(ctl) -> str | None:
+    return getattr(ctl, "scenario_text", None)
+
+
+def run(args) -> int:
+    from assistant.procedures.guard import load_limits
+    from assistant.procedures.workflow import Workflow
+    from drivers.registry import redact, scheme_of
+
+    limits = load_limits(args.limits)
+    progress = StderrProgress(quiet=False)
+    if args.resume:
+        return _resume(args, limits, progress)
+    out = _writable_dir(args.out)
+    series_settings = _series_settings(args)
+    series_settings.validate(limits)
+    cal_settings = calibration_settings(args)
+    cal_settings.validate()
+    stamp = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
+    session_path = out / f"session-{stamp}.h5"
+    extra = {"pace": args.pace, "line_rate": args.line_rate} if scheme_of(args.controller) == "sim" else {}
+    with open_controller_from_args(args, **extra) as ctl:
+        wf = Workflow(ctl, session_path, controller_url=redact(args.controller), scenario_text=_scenario_text(ctl),
+                      limits=limits, sink=progress, fsync=args.fsync)
+        try:
+            from assistant.storage.probe_record import ProbeRecord
+
+            wf.calibrate(cal_settings, probe_record=ProbeRecord() if args.probe else None)
+            wf.approach()
+            wf.series(series_settings)
+            analysis = wf.analyse()
+            wf.session.mark_complete()
+            report = wf.report(out / f"report-{stamp}")
+        finally:
+            wf.close()
+    return _finish(args, session_path, report, wf, analysis)
+
+
+def _resume(args, limits, progress) -> int:
+    from assistant.procedures.series import SeriesSettings
+    from assistant.procedures.workflow import Workflow, drive_from_json
+    from assistant.storage.session_file import SessionFile
+    from drivers.registry import redact, scheme_of
+
+    path = Path(args.resume)
+    if not path.is_file():
+        raise UsageError(f"resume file {path} does not exist")
+    with SessionFile.open(path, "r") as sf:  # raises a clear error for files that are not session files
+        names = sf.series_names()
+        if not names:
+            raise UsageError(f"{path} has no series to resume")
+        data = sf.read_series(names[-1])
+        if data.finished:
+            raise UsageError(f"series {names[-1]!r} in {path} is already complete; nothing to resume")
+        stored = json.loads(data.settings_json)
+    drive = drive_from_json(stored.pop("drive"))
+    k, q, t = stored.pop("spring_constant_n_per_m"), stored.pop("quality_factor"), stored.pop("temperature_k")
+    settings = SeriesSettings.from_json(json.dumps(stored))
+    extra = {"pace": args.pace, "line_rate": settings.line_rate_hz} if scheme_of(args.controller) == "sim" else {}
+    with open_controller_from_args(args, **extra) as ctl:
+        wf = Workflow(ctl, path, controller_url=redact(args.controller), limits=limits, sink=progress,
+                      fsync=args.fsync)
+        wf._session = SessionFile.open(path, "a")
+        try:
+            wf.restore_drive(drive, spring_constant_n_per_m=k, quality_factor=q, temperature_k=t)
+            progress.notices.append(("info", f"resuming {settings.name} at line {data.completed_lines}"))
+            wf.approach()
+            wf.series(settings, resume=True)
+            analysis = wf.analyse()
+            wf.session.mark_complete()
+            report = wf.report(path.parent / f"report-{path.stem}")
+        finally:
+            wf.close()
+    return _finish(args, path, report, wf, analysis)
+
+
+def _finish(args, session_path: Path, report, wf, analysis) -> int:
+    cal = wf.calibration
+    calib = ({"k_n_per_m": cal.k_n_per_m, "k_std_n_per_m": cal.k_std_n_per_m, "f0_hz": cal.thermal.f0_hz,
+              "q": cal.thermal.q, "invols_nm_per_v": cal.invols_m_per_v * 1e9} if cal is not None else
+             {"k_n_per_m": wf.spring_constant_n_per_m, "k_std_n_per_m": None, "f0_hz": wf.drive.frequency_hz,
+              "q": wf.quality_factor, "invols_nm_per_v": None})
+    s = wf.series_settings
+    summary = {
+        "session_file": str(session_path), "report_dir": str(report.out_dir),
+        "calibration": calib,
+        "series": {"heights_nm": [h * 1e9 for h in s.heights_m], "completed_lines": wf.series_result.completed_lines},
+        "analysis": analysis.to_dict() if analysis is not None else None,
+    }
+    if args.json:
+        emit_json(summary)
+    else:
+        a = summary["analysis"] or {}
+        emit_text([
+            f"session file: {session_path}",
+            f"report:       {report.out_dir}",
+            f"k = {calib['k_n_per_m']:.4g} N/m, f0 = {calib['f0_hz']:.1f} Hz, Q = {calib['q']:.1f}",
+            f"series: {len(s.heights_m)} heights x {wf.series_result.completed_lines} lines",
+            f"recommended lift height: {a.get('recommended_lift_nm')} nm; V_cpd: {a.get('cpd_v')} V",
+        ])
+    return 0

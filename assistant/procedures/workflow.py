@@ -1,0 +1,181 @@
+"""A whole session, step by step: calibrate, approach, series, analyse, report.
+
+The command line (``mfma run``) calls the steps in order; the terminal UI calls them one at a time from its
+views. Both go through this class, so there is one code path. Each step writes what it measured to the
+session file before returning.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass, field
+from datetime import datetime, timezone
+from pathlib import Path
+
+from assistant import __version__
+from assistant.procedures.approach import ApproachResult, ApproachSettings, approach
+from assistant.procedures.calibrate import CalibrationResult, CalibrationSettings, DriveSettings, calibrate
+from assistant.procedures.events import CancelToken, Notice, Sink, null_sink
+from assistant.procedures.guard import SafetyLimits, safety_guard
+from assistant.procedures.series import SeriesResult, SeriesSettings, run_series
+
+
+class WorkflowError(RuntimeError):
+    """A step was asked for before the step it needs (e.g. a series before the approach)."""
+
+
+@dataclass
+class Workflow:
+    controller: object
+    session_path: Path
+    controller_url: str = "sim://"
+    scenario_text: str | None = None
+    limits: SafetyLimits = field(default_factory=SafetyLimits)
+    sink: Sink = null_sink
+    cancel: CancelToken = field(default_factory=CancelToken)
+    fsync: bool = False
+    calibration: CalibrationResult | None = None
+    drive: DriveSettings | None = None
+    spring_constant_n_per_m: float | None = None
+    quality_factor: float | None = None
+    temperature_k: float = 295.15
+    approach_result: ApproachResult | None = None
+    series_settings: SeriesSettings | None = None
+    series_result: SeriesResult | None = None
+    analysis: object | None = None
+    probe_warnings: list[str] = field(default_factory=list)
+    _session: object | None = None
+
+    # ---- session file --------------------------------------------------------------------------------
+    @property
+    def session(self):
+        if self._session is None:
+            from assistant.storage.session_file import SessionFile
+
+            self.session_path.parent.mkdir(parents=True, exist_ok=True)
+            self._session = SessionFile.create(self.session_path, controller_url=self.controller_url,
+                                               scenario_text=self.scenario_text, software_version=__version__,
+                                               fsync=self.fsync)
+        return self._session
+
+    def close(self) -> None:
+        if self._session is not None:
+            self._session.close()
+            self._session = None
+
+    def withdraw(self) -> None:
+        """Make the stage safe now (withdraw, drive off, bias zero)."""
+        self.controller.make_safe()
+
+    # ---- steps ------------------------------------------------------------------------------------------
+    def calibrate(self, settings: CalibrationSettings, *, probe_record=None) -> CalibrationResult:
+        result = calibrate(self.controller, settings, limits=self.limits, sink=self.sink, cancel=self.cancel)
+        self.calibration = result
+        self.drive = result.drive
+        self.spring_constant_n_per_m = result.k_n_per_m
+        self.quality_factor = result.thermal.q
+        self.temperature_k = settings.temperature_k
+        summary = result.summary()
+        spec = result.thermal.fit
+        arrays = {"thermal_frequency_hz": spec.frequencies_hz, "thermal_psd_v2_per_hz": spec.psd_v2_per_hz,
+                  "thermal_model_v2_per_hz": spec.model(spec.frequencies_hz)}
+        scalars = {k: v for k, v in summary.items() if v is not None and not isinstance(v, bool)}
+        scalars["probe_name"] = settings.probe_name or "unnamed"
+        scalars["calibrated_utc"] = datetime.now(timezone.utc).isoformat(timespec="seconds")
+        if result.sader is not None:
+            scalars.update({f"sader_{k}": v for k, v in result.sader.to_dict().items() if v is not None})
+        self.session.write_calibration(scalars, arrays)
+        if result.sweep_data is not None:
+            sd = result.sweep_data
+            self.session.write_resonance({k: v for k, v in result.sweep.to_dict().items() if v is not None},
+                                         {"frequency_hz": sd.frequency_hz, "amplitude_v": sd.amplitude_v,
+                                          "phase_deg": sd.phase_deg})
+        if probe_record is not None and settings.probe_name:
+            self.probe_warnings = probe_record.add(settings.probe_name, {**scalars})
+            for w in self.probe_warnings:
+                self.sink(Notice("warning", f"probe record: {w}"))
+        return result
+
+    def restore_drive(self, drive: DriveSettings, *, spring_constant_n_per_m: float, quality_factor: float,
+                      temperature_k: float) -> None:
+        """Use a stored calibration (resume) instead of calibrating again."""
+        self.drive = drive
+        self.spring_constant_n_per_m = spring_constant_n_per_m
+        self.quality_factor = quality_factor
+        self.temperature_k = temperature_k
+
+    def approach(self) -> ApproachResult:
+        if self.drive is None:
+            raise WorkflowError("calibrate first: the approach needs the drive frequency, amplitude and setpoint")
+        d = self.drive
+        res = approach(self.controller, ApproachSettings(d.frequency_hz, d.amplitude_v, d.setpoint_v,
+                                                         d.free_amplitude_v),
+                       limits=self.limits, sink=self.sink, cancel=self.cancel)
+        self.approach_result = res
+        self.session.write_approach(
+            {"engaged": int(res.engaged), "z_m": res.z_m, "coarse_position_m": res.coarse_position_m,
+             "coarse_travel_m": res.coarse_travel_m, "cycles": res.cycles},
+            {"trace_coarse_m": res.trace_coarse_m, "trace_z_m": res.trace_z_m,
+             "trace_amplitude_v": res.trace_amplitude_v})
+        return res
+
+    def series(self, settings: SeriesSettings, *, resume: bool = False) -> SeriesResult:
+        if self.approach_result is None or not self.approach_result.engaged:
+            raise WorkflowError("approach first: the series needs an engaged tip")
+        if self.drive is not None and settings.phase_reference_deg == 0.0:
+            settings = _with(settings, phase_reference_deg=self.drive.phase_reference_deg)
+        settings.validate(self.limits, z_range_m=self.controller.limits.z_range_m,
+                          scan_size_max_m=self.controller.limits.scan_size_max_m)
+        self.series_settings = settings
+        if resume:
+            writer = self.session.open_series_for_resume(settings.name)
+        else:
+            writer = self.session.create_series(
+                settings.name, heights_m=settings.heights_m, biases_v=settings.biases_v, lines=settings.lines,
+                pixels=settings.pixels, scan_size_m=settings.scan_size_m, line_rate_hz=settings.line_rate_hz,
+                order=settings.order, repeat_first=settings.repeat_first, settings_json=self._settings_json(settings))
+        start = writer.completed_lines
+        res = run_series(self.controller, settings, writer, limits=self.limits, sink=self.sink, cancel=self.cancel,
+                         start_line=start)
+        self.series_result = res
+        return res
+
+    def _settings_json(self, settings: SeriesSettings) -> str:
+        d = json.loads(settings.to_json())
+        if self.drive is not None:
+            d["drive"] = self.drive.__dict__
+        d["spring_constant_n_per_m"] = self.spring_constant_n_per_m
+        d["quality_factor"] = self.quality_factor
+        d["temperature_k"] = self.temperature_k
+        return json.dumps(d)
+
+    def analyse(self, name: str | None = None):
+        """Decompose the series (from the session file, so a resumed or reopened session works the same)."""
+        from assistant.procedures.analyse import analyse_session_series
+
+        name = name or (self.series_settings.name if self.series_settings else None)
+        with safety_guard(self.controller, sink=self.sink):
+            self.controller.make_safe()  # the scan is over: nothing needs the tip near the surface now
+        self.analysis = analyse_session_series(self.session, name, sink=self.sink)
+        return self.analysis
+
+    def report(self, out_dir: Path):
+        from assistant.report.summary import build_report
+
+        self.session.flush()
+        return build_report(self.session_path, out_dir)
+
+
+def _with(settings: SeriesSettings, **changes) -> SeriesSettings:
+    import dataclasses
+
+    return dataclasses.replace(settings, **changes)
+
+
+def drive_from_json(d: dict) -> DriveSettings:
+    return DriveSettings(**{k: float(v) for k, v in d.items()})
+
+
+def finite(x) -> bool:
+    return x is not None and math.isfinite(x)
