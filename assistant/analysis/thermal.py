@@ -1,0 +1,533 @@
+"""Thermal-noise calibration: maximum-likelihood fit of the first flexural peak, k and InvOLS.
+
+Model of the one-sided deflection spectrum in V^2/Hz (simple harmonic oscillator in a heat bath plus a
+white and a 1/f detector background; e.g. Cook et al. 2006, Nanotechnology 17, 2135)::
+
+    S(f) = B + C / f + A0 / [ (1 - (f/f0)^2)^2 + (f / (f0 Q))^2 ]
+
+Its peak area is <V1^2> = A0 * pi * Q * f0 / 2. The fit maximises the likelihood of the averaged
+periodogram (Norrelykke & Flyvbjerg 2010, Rev. Sci. Instrum. 81, 075103): minimise
+``sum_k [P_k / S_k + ln S_k]``, by Fisher scoring (iteratively reweighted least squares with the weights
+frozen during each step, which converges to the maximum-likelihood point), and takes the covariance from the
+inverse Fisher matrix ``n * sum_k dS_k dS_k^T / S_k^2``, scaled for the correlations of a Welch estimate.
+
+The spring constant follows from equipartition (Hutter & Bechhoefer 1993, Rev. Sci. Instrum. 64, 1868) with
+the first-mode correction of Butt & Jaschke (1995, Nanotechnology 6, 1): k = beta * kB T / <z1^2> with
+beta = 0.817434 for an optical lever calibrated statically and 0.970688 for displacement detection. Given
+k instead, the sensitivity follows (non-contact InvOLS, Higgins et al. 2006, Rev. Sci. Instrum. 77, 013701).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.ndimage
+
+from .spectra import WelchAccumulator, WelchSpectrum
+
+__all__ = [
+    "BOLTZMANN_J_PER_K", "DETECTION_FACTORS", "ThermalFit", "ThermalFitError", "ThermalResult",
+    "analyse_thermal_record", "calibrate_thermal", "fit_thermal_spectrum", "invols_from_thermal",
+    "oscillator_psd", "spring_constant_from_thermal",
+]
+
+BOLTZMANN_J_PER_K = 1.380649e-23  # exact, SI 2019
+# Butt & Jaschke 1995: first-mode factors (optical lever with static InvOLS; displacement detection).
+DETECTION_FACTORS = {"optical-lever": 0.817434, "displacement": 0.970688}
+_MAX_F0_OVER_NYQUIST = 0.8  # common practice, no source: keep the peak clear of aliasing and filters
+_MIN_BINS_PER_FWHM = 10.0  # resolution condition (Sader et al. 2011, Rev. Sci. Instrum. 82, 095104)
+_MIN_SIGNIFICANCE = 5.0  # peak area / its standard error
+
+
+
+class ThermalFitError(ValueError):
+    """The thermal record or spectrum cannot be fitted (the message names the quantity and the limit)."""
+
+
+@dataclass(frozen=True)
+class _Peak:
+    f0_hz: float
+    fwhm_hz: float
+    height_v2_per_hz: float
+    background_v2_per_hz: float
+
+
+_PER_DECADE = 400  # log-spaced bins per decade for the peak search
+_MIN_Z = 10.0  # significance of a log bin above the running-median background
+_MIN_RATIO = 1.3  # and its ratio to it (common practice, no source)
+
+
+def _find_peak(f: np.ndarray, p: np.ndarray, *, averages: float, f0_guess_hz: float | None) -> _Peak:
+    """Locate the resonance as the log-frequency bin standing most above a running-median background."""
+    df = float(f[1] - f[0])
+    valid = f >= 5 * df
+    fv, pv = f[valid], p[valid]
+    if fv.size < 16:
+        raise ThermalFitError(f"spectrum has {fv.size} usable bins, need >= 16")
+    n_bins = max(int(np.ceil(np.log10(fv[-1] / fv[0]) * _PER_DECADE)), 1)
+    edges = np.geomspace(fv[0], fv[-1] * (1 + 1e-12), n_bins + 1)
+    idx = np.clip(np.searchsorted(edges, fv, side="right") - 1, 0, n_bins - 1)
+    counts = np.bincount(idx, minlength=n_bins)
+    sums = np.bincount(idx, pv, minlength=n_bins)
+    keep = counts > 0
+    mean, cnt = sums[keep] / counts[keep], counts[keep]
+    centres = np.sqrt(edges[:-1] * edges[1:])[keep]
+    bg = scipy.ndimage.median_filter(mean, size=_PER_DECADE // 2 + 1, mode="nearest")
+    bg = np.where(bg > 0, bg, np.max(mean) * 1e-300 + 1e-300)
+    ratio = mean / bg
+    if f0_guess_hz is None:
+        # Hann bins are correlated (about half the information per bin): hence the factor 2.
+        z = (ratio - 1.0) * np.sqrt(averages * cnt / 2.0)
+        cand = (centres >= fv[0] * 10**0.3) & (z >= _MIN_Z) & (ratio >= _MIN_RATIO)
+        if not np.any(cand):
+            raise ThermalFitError(
+                f"no resonance peak stands out of the background: largest excess {np.max(z):.3g} standard "
+                f"errors (need >= {_MIN_Z}) at ratio >= {_MIN_RATIO}")
+        i = int(np.argmax(np.where(cand, ratio, -np.inf)))
+        centre, reach = centres[i], 3 * np.log(10) / _PER_DECADE
+    else:
+        if not fv[0] < f0_guess_hz < fv[-1]:
+            raise ThermalFitError(
+                f"f0_guess_hz = {f0_guess_hz!r} outside the spectrum {fv[0]:.6g}..{fv[-1]:.6g} Hz")
+        centre, reach = float(f0_guess_hz), 0.05
+        i = int(np.argmin(np.abs(centres - centre)))
+    background = float(bg[i])
+    smooth = np.convolve(p, np.ones(5) / 5.0, mode="same")
+    near = np.flatnonzero((f >= centre * (1 - reach)) & (f <= centre * (1 + reach)) & (f >= 5 * df))
+    if near.size == 0:
+        near = np.array([int(np.argmin(np.abs(f - centre)))])
+    k = int(near[np.argmax(smooth[near])])
+    height = float(smooth[k])
+    half = background + 0.5 * (height - background)
+    left = k
+    while left > 0 and smooth[left] > half:
+        left -= 1
+    right = k
+    while right < f.size - 1 and smooth[right] > half:
+        right += 1
+    fwhm = max(float(f[right] - f[left]) - df, df)
+    return _Peak(float(f[k]), fwhm, height, background)
+
+
+def oscillator_psd(frequencies_hz: np.ndarray, *, f0_hz: float, q: float, a0_v2_per_hz: float,
+                   white_v2_per_hz: float = 0.0, one_over_f_v2: float = 0.0) -> np.ndarray:
+    """Oscillator plus background spectrum S(f) [V^2/Hz] (model of the module docstring).
+
+    Parameters
+    ----------
+    frequencies_hz : ndarray
+        Frequencies [Hz], > 0 where ``one_over_f_v2`` is non-zero.
+    f0_hz, q : float
+        Resonance frequency [Hz] and quality factor.
+    a0_v2_per_hz : float
+        Oscillator term at zero frequency [V^2/Hz].
+    white_v2_per_hz, one_over_f_v2 : float
+        White level B [V^2/Hz] and 1/f coefficient C [V^2].
+    """
+    f = np.asarray(frequencies_hz, dtype=float)
+    u = f / f0_hz
+    out = a0_v2_per_hz / ((1.0 - u * u) ** 2 + (u / q) ** 2) + white_v2_per_hz
+    if one_over_f_v2:
+        out = out + one_over_f_v2 / f
+    return out
+
+
+@dataclass(frozen=True, eq=False)
+class ThermalFit:
+    """Maximum-likelihood fit of the thermal peak. Parameters in SI; ``covariance`` in the order
+    ``parameter_names``; ``frequencies_hz``/``psd_v2_per_hz`` are the data inside the fit window."""
+
+    f0_hz: float
+    q: float
+    a0_v2_per_hz: float
+    white_v2_per_hz: float
+    one_over_f_v2: float
+    covariance: np.ndarray
+    parameter_names: tuple[str, ...]
+    fit_range_hz: tuple[float, float]
+    frequencies_hz: np.ndarray
+    psd_v2_per_hz: np.ndarray
+    averages: float
+    variance_inflation: float
+    iterations: int
+    warnings: tuple[str, ...]
+    spectrum: WelchSpectrum | None = None
+
+    def _std(self, name: str) -> float:
+        i = self.parameter_names.index(name)
+        return float(np.sqrt(self.covariance[i, i]))
+
+    @property
+    def f0_std_hz(self) -> float:
+        return self._std("f0_hz")
+
+    @property
+    def q_std(self) -> float:
+        return self._std("q")
+
+    @property
+    def peak_area_v2(self) -> float:
+        """<V1^2> = A0 pi Q f0 / 2 [V^2]."""
+        return float(np.pi * self.a0_v2_per_hz * self.q * self.f0_hz / 2.0)
+
+    @property
+    def peak_area_std_v2(self) -> float:
+        grad = np.zeros(len(self.parameter_names))
+        area = self.peak_area_v2
+        for name, value in (("f0_hz", self.f0_hz), ("q", self.q), ("a0_v2_per_hz", self.a0_v2_per_hz)):
+            grad[self.parameter_names.index(name)] = area / value
+        return float(np.sqrt(grad @ self.covariance @ grad))
+
+    def model(self, frequencies_hz: np.ndarray) -> np.ndarray:
+        """The fitted S(f) [V^2/Hz]."""
+        return oscillator_psd(frequencies_hz, f0_hz=self.f0_hz, q=self.q, a0_v2_per_hz=self.a0_v2_per_hz,
+                              white_v2_per_hz=self.white_v2_per_hz, one_over_f_v2=self.one_over_f_v2)
+
+    def normalised_residuals(self) -> np.ndarray:
+        """(P/S - 1) * sqrt(averages) in the fit window: unit variance if the model holds."""
+        return (self.psd_v2_per_hz / self.model(self.frequencies_hz) - 1.0) * np.sqrt(self.averages)
+
+
+def _design(f: np.ndarray, p: np.ndarray, with_c: bool) -> tuple[np.ndarray, np.ndarray]:
+    """Model and Jacobian in the physical parameters (f0, Q, A0, B[, C])."""
+    f0, q, a0, b = p[:4]
+    u = f / f0
+    one_m = 1.0 - u * u
+    lor = 1.0 / (one_m * one_m + (u / q) ** 2)
+    peak = a0 * lor
+    s = peak + b
+    cols = [
+        -peak * lor * (4.0 * u * u * one_m - 2.0 * u * u / q**2) / f0,  # dS/df0
+        2.0 * peak * lor * u * u / q**3,  # dS/dQ
+        lor,  # dS/dA0
+        np.ones_like(f),  # dS/dB
+    ]
+    if with_c:
+        s = s + p[4] / f
+        cols.append(1.0 / f)
+    return s, np.stack(cols, axis=1)
+
+
+def _neg_log_likelihood(psd: np.ndarray, s: np.ndarray) -> float:
+    if not np.all(s > 0):
+        return np.inf
+    return float(np.sum(psd / s + np.log(s)))
+
+
+def _maximise_likelihood(f, psd, p0, with_c, *, max_iter=300):
+    """Fisher scoring with Levenberg damping on scaled parameters; returns (p, H, iterations)."""
+    scale = np.abs(p0) + 0.0
+    scale[3] = max(scale[3], np.median(psd) * 1e-3)
+    if with_c:
+        scale[4] = max(scale[4], scale[3] * p0[0])
+    p = p0.copy()
+    s, jac = _design(f, p, with_c)
+    ell = _neg_log_likelihood(psd, s)
+    lam = 1e-3
+    for it in range(1, max_iter + 1):
+        js = jac * scale
+        w = 1.0 / (s * s)
+        h = js.T @ (js * w[:, None])
+        g = js.T @ ((s - psd) * w)
+        d = np.sqrt(np.diag(h))
+        d[d == 0] = 1.0
+        hn = h / np.outer(d, d)
+        gn = g / d
+        improved = False
+        for _ in range(30):
+            try:
+                step = -np.linalg.solve(hn + lam * np.eye(hn.shape[0]), gn) / d
+            except np.linalg.LinAlgError:
+                lam *= 10.0
+                continue
+            trial = p + step * scale
+            if trial[0] <= 0 or trial[1] <= 0:
+                lam *= 4.0
+                continue
+            s_t, jac_t = _design(f, trial, with_c)
+            ell_t = _neg_log_likelihood(psd, s_t)
+            if ell_t <= ell:
+                improved = True
+                break
+            lam *= 4.0
+        if not improved:
+            break
+        converged = abs(ell - ell_t) <= 1e-12 * max(1.0, abs(ell)) and np.max(np.abs(step * d)) < 1e-6
+        p, s, jac, ell = trial, s_t, jac_t, ell_t
+        lam = max(lam / 5.0, 1e-12)
+        if converged:
+            break
+    w = 1.0 / (s * s)
+    h_phys = jac.T @ (jac * w[:, None])
+    return p, h_phys, it
+
+
+def fit_thermal_spectrum(frequencies_hz: np.ndarray, psd_v2_per_hz: np.ndarray, *, averages: float,
+                         variance_inflation: float = 1.0, f0_guess_hz: float | None = None,
+                         fit_range_hz: tuple[float, float] | None = None, background: str = "white+1/f",
+                         window_fwhm: float = 10.0, spectrum: WelchSpectrum | None = None) -> ThermalFit:
+    """Fit the first thermal peak of an averaged one-sided spectrum by maximum likelihood.
+
+    Parameters
+    ----------
+    frequencies_hz : ndarray
+        Equally spaced bin frequencies from 0 (or above) [Hz].
+    psd_v2_per_hz : ndarray
+        Averaged periodogram [V^2/Hz]; each bin is S(f) times a Gamma(averages, 1/averages) variate.
+    averages : float, keyword-only
+        Number of averaged periodograms per bin (Welch segments).
+    variance_inflation : float
+        Factor applied to the Fisher covariance for correlated bins (1 for independent bins; see
+        :func:`assistant.analysis.spectra.welch_variance_inflation`).
+    f0_guess_hz : float, optional
+        Skip the automatic peak search and start here [Hz].
+    fit_range_hz : (float, float), optional
+        Fit window [Hz]; default: the peak +- ``window_fwhm`` full widths at half maximum.
+    background : {"white+1/f", "white"}
+        Background terms fitted besides the oscillator.
+    window_fwhm : float
+        Half-width of the automatic fit window in full widths at half maximum.
+    spectrum : WelchSpectrum, optional
+        Kept in the result for plotting.
+
+    Returns
+    -------
+    ThermalFit
+
+    Raises
+    ------
+    ThermalFitError
+        Empty, non-finite or zero spectrum; no peak standing out of the background; peak too close to the
+        Nyquist frequency; fit not converged.
+    """
+    f = np.asarray(frequencies_hz, dtype=float)
+    p = np.asarray(psd_v2_per_hz, dtype=float)
+    if background not in ("white+1/f", "white"):
+        raise ThermalFitError(f"background = {background!r}; allowed: 'white+1/f', 'white'")
+    if f.ndim != 1 or f.shape != p.shape or f.size < 16:
+        raise ThermalFitError(f"spectrum needs matching 1-D arrays of >= 16 bins, got {f.shape} and {p.shape}")
+    if not (np.all(np.isfinite(p)) and np.all(np.isfinite(f))):
+        raise ThermalFitError("spectrum contains non-finite values (NaN or infinity)")
+    if not np.max(p) > 0:
+        raise ThermalFitError("spectrum is identically zero: the record is constant")
+    if averages < 1:
+        raise ThermalFitError(f"averages = {averages!r} must be >= 1")
+    with_c = background == "white+1/f"
+    df = float(f[1] - f[0])
+    nyquist = float(f[-1])
+    peak = _find_peak(f, p, averages=averages, f0_guess_hz=f0_guess_hz)
+    if peak.f0_hz > _MAX_F0_OVER_NYQUIST * nyquist:
+        raise ThermalFitError(
+            f"resonance near {peak.f0_hz:.6g} Hz is too close to the Nyquist frequency {nyquist:.6g} Hz "
+            f"(limit {_MAX_F0_OVER_NYQUIST} of it): sample faster")
+    f0, fwhm, q = peak.f0_hz, peak.fwhm_hz, peak.f0_hz / peak.fwhm_hz
+    p0 = np.array([f0, q, max(peak.height_v2_per_hz - peak.background_v2_per_hz, 0) / q**2,
+                   peak.background_v2_per_hz, 0.0])
+    if not with_c:
+        p0 = p0[:4]
+    for _pass in range(2):  # second pass re-centres the window on the fitted peak
+        if fit_range_hz is not None:
+            lo, hi = fit_range_hz
+        else:
+            half = max(window_fwhm * fwhm, 20 * df)
+            lo, hi = max(f0 - half, 3 * df), min(f0 + half, nyquist - df)
+        sel = (f >= lo) & (f <= hi) & (f > 0)
+        if np.count_nonzero(sel) < 3 * p0.size:
+            raise ThermalFitError(
+                f"fit window {lo:.6g}..{hi:.6g} Hz holds {np.count_nonzero(sel)} bins, need >= {3 * p0.size}")
+        fw, pw = f[sel], p[sel]
+        est, h, iterations = _maximise_likelihood(fw, pw, p0, with_c)
+        if fit_range_hz is not None:
+            break
+        f0_new, fwhm_new = est[0], est[0] / est[1]
+        if abs(f0_new - f0) < 0.1 * fwhm and abs(fwhm_new / fwhm - 1) < 0.2:
+            break
+        f0, fwhm, p0 = f0_new, fwhm_new, est
+    try:
+        cov = np.linalg.inv(h) * (variance_inflation / averages)
+    except np.linalg.LinAlgError as exc:
+        raise ThermalFitError("Fisher matrix is singular: the fit window does not determine the peak") from exc
+    names = ("f0_hz", "q", "a0_v2_per_hz", "white_v2_per_hz") + (("one_over_f_v2",) if with_c else ())
+    fit = ThermalFit(
+        f0_hz=float(est[0]), q=float(est[1]), a0_v2_per_hz=float(est[2]), white_v2_per_hz=float(est[3]),
+        one_over_f_v2=float(est[4]) if with_c else 0.0, covariance=cov, parameter_names=names,
+        fit_range_hz=(float(fw[0]), float(fw[-1])), frequencies_hz=fw, psd_v2_per_hz=pw,
+        averages=float(averages), variance_inflation=float(variance_inflation), iterations=iterations,
+        warnings=(), spectrum=spectrum)
+    return _checked(fit, df)
+
+
+def _checked(fit: ThermalFit, df: float) -> ThermalFit:
+    lo, hi = fit.fit_range_hz
+    if not (lo < fit.f0_hz < hi) or not np.all(np.isfinite(np.diag(fit.covariance))):
+        raise ThermalFitError(
+            f"no resonance peak stands out of the background: fitted f0 = {fit.f0_hz:.6g} Hz outside the "
+            f"fit window {lo:.6g}..{hi:.6g} Hz or undetermined")
+    significance = fit.peak_area_v2 / fit.peak_area_std_v2 if fit.peak_area_std_v2 > 0 else 0.0
+    if not significance >= _MIN_SIGNIFICANCE:
+        raise ThermalFitError(
+            f"no resonance peak stands out of the background: peak area {fit.peak_area_v2:.4g} V^2 is "
+            f"{significance:.3g} standard errors from zero (need >= {_MIN_SIGNIFICANCE})")
+    notes = []
+    bins = fit.f0_hz / fit.q / df
+    if bins < _MIN_BINS_PER_FWHM:
+        notes.append(f"peak resolved by only {bins:.3g} bins per FWHM (want >= {_MIN_BINS_PER_FWHM}): "
+                     "Q and k may be biased; use longer segments")
+    if fit.q < 2:
+        notes.append(f"Q = {fit.q:.3g} is low: the oscillator model and the window may not hold")
+    return ThermalFit(**{**fit.__dict__, "warnings": tuple(notes)})
+
+
+def spring_constant_from_thermal(peak_area_v2: float, *, invols_m_per_v: float, temperature_k: float,
+                                 correction_factor: float = DETECTION_FACTORS["optical-lever"]) -> float:
+    """k = beta kB T / (InvOLS^2 <V1^2>) [N/m] (Hutter & Bechhoefer 1993; Butt & Jaschke 1995)."""
+    return correction_factor * BOLTZMANN_J_PER_K * temperature_k / (invols_m_per_v**2 * peak_area_v2)
+
+
+def invols_from_thermal(peak_area_v2: float, *, k_n_per_m: float, temperature_k: float,
+                        correction_factor: float = DETECTION_FACTORS["optical-lever"]) -> float:
+    """InvOLS = sqrt(beta kB T / (k <V1^2>)) [m/V] (Higgins et al. 2006, with the Butt-Jaschke factor).
+
+    With beta = 0.817434 it is comparable to a force-curve (static) InvOLS; with 0.970688 it converts volts
+    to true first-mode displacement.
+    """
+    return float(np.sqrt(correction_factor * BOLTZMANN_J_PER_K * temperature_k / (k_n_per_m * peak_area_v2)))
+
+
+@dataclass(frozen=True, eq=False)
+class ThermalResult:
+    """Thermal calibration in SI (``invols_m_per_v`` in m/V); ``to_dict`` gives the command-line keys."""
+
+    f0_hz: float
+    f0_std_hz: float
+    q: float
+    q_std: float
+    peak_area_v2: float
+    peak_area_std_v2: float
+    k_n_per_m: float | None
+    k_std_n_per_m: float | None
+    invols_m_per_v: float | None
+    invols_std_m_per_v: float | None
+    temperature_k: float
+    correction_factor: float
+    detection: str
+    fit: ThermalFit
+    warnings: tuple[str, ...]
+
+    def to_dict(self) -> dict[str, float | None]:
+        def opt(x, factor=1.0):
+            return None if x is None else float(x) * factor
+        return {
+            "f0_hz": float(self.f0_hz), "f0_std_hz": float(self.f0_std_hz), "q": float(self.q),
+            "q_std": float(self.q_std), "peak_area_v2": float(self.peak_area_v2),
+            "k_n_per_m": opt(self.k_n_per_m), "k_std_n_per_m": opt(self.k_std_n_per_m),
+            "invols_nm_per_v": opt(self.invols_m_per_v, 1e9), "temperature_k": float(self.temperature_k),
+            "correction_factor": float(self.correction_factor),
+        }
+
+
+def calibrate_thermal(fit: ThermalFit, *, temperature_k: float = 298.15, invols_m_per_v: float | None = None,
+                      k_n_per_m: float | None = None, detection: str = "optical-lever",
+                      invols_std_m_per_v: float = 0.0, k_std_n_per_m: float = 0.0,
+                      temperature_std_k: float = 0.0) -> ThermalResult:
+    """Turn a peak fit into k (given InvOLS) or InvOLS (given k); neither: k and InvOLS are None.
+
+    Uncertainties combine the fit's peak-area error with the given errors of InvOLS, k and T in quadrature
+    (first-order propagation).
+
+    Raises
+    ------
+    ValueError
+        Unknown detection, both InvOLS and k given, or a non-positive input.
+    """
+    if detection not in DETECTION_FACTORS:
+        raise ValueError(f"detection = {detection!r}; allowed: {sorted(DETECTION_FACTORS)}")
+    if invols_m_per_v is not None and k_n_per_m is not None:
+        raise ValueError("give either invols_m_per_v (to get k) or k_n_per_m (to get InvOLS), not both")
+    for name, value in (("temperature_k", temperature_k), ("invols_m_per_v", invols_m_per_v),
+                        ("k_n_per_m", k_n_per_m)):
+        if value is not None and not (np.isfinite(value) and value > 0):
+            raise ValueError(f"{name} = {value!r} must be positive and finite")
+    beta = DETECTION_FACTORS[detection]
+    area, rel_area = fit.peak_area_v2, fit.peak_area_std_v2 / fit.peak_area_v2
+    rel_t = temperature_std_k / temperature_k
+    k = k_std = inv = inv_std = None
+    if invols_m_per_v is not None:
+        inv = invols_m_per_v
+        k = spring_constant_from_thermal(area, invols_m_per_v=inv, temperature_k=temperature_k,
+                                         correction_factor=beta)
+        k_std = k * float(np.sqrt(rel_area**2 + (2 * invols_std_m_per_v / inv) ** 2 + rel_t**2))
+    elif k_n_per_m is not None:
+        k = k_n_per_m
+        k_std = k_std_n_per_m
+        inv = invols_from_thermal(area, k_n_per_m=k, temperature_k=temperature_k, correction_factor=beta)
+        inv_std = 0.5 * inv * float(np.sqrt(rel_area**2 + (k_std_n_per_m / k) ** 2 + rel_t**2))
+    return ThermalResult(
+        f0_hz=fit.f0_hz, f0_std_hz=fit.f0_std_hz, q=fit.q, q_std=fit.q_std, peak_area_v2=area,
+        peak_area_std_v2=fit.peak_area_std_v2, k_n_per_m=k, k_std_n_per_m=k_std, invols_m_per_v=inv,
+        invols_std_m_per_v=inv_std if inv_std is not None else (invols_std_m_per_v if inv else None),
+        temperature_k=float(temperature_k), correction_factor=beta, detection=detection, fit=fit,
+        warnings=fit.warnings)
+
+
+def default_segment_length(n_samples: int) -> int:
+    """Largest power of two <= n_samples / 8, capped at 2**18 (at least 15 averaged segments)."""
+    if n_samples < 2048:
+        raise ThermalFitError(f"record too short: {n_samples} samples, need at least 2048")
+    return int(min(2**18, 2 ** int(np.floor(np.log2(n_samples / 8)))))
+
+
+def analyse_thermal_record(volts: np.ndarray, rate_hz: float, *, temperature_k: float = 298.15,
+                           invols_m_per_v: float | None = None, k_n_per_m: float | None = None,
+                           detection: str = "optical-lever", segment_length: int | None = None,
+                           f0_guess_hz: float | None = None, fit_range_hz: tuple[float, float] | None = None,
+                           background: str = "white+1/f", chunk_samples: int = 2**20) -> ThermalResult:
+    """Streaming Welch spectrum of a deflection record, peak fit, and k or InvOLS.
+
+    Parameters
+    ----------
+    volts : ndarray
+        1-D deflection record [V] (float32 is fine; it is converted chunk by chunk).
+    rate_hz : float
+        Sampling rate [Hz].
+    temperature_k : float, keyword-only
+        Temperature [K] (default 298.15 K).
+    invols_m_per_v, k_n_per_m : float, optional
+        Static InvOLS [m/V] (gives k) or k [N/m] (gives the non-contact InvOLS).
+    detection : {"optical-lever", "displacement"}
+        Selects the Butt-Jaschke factor 0.817434 or 0.970688.
+    segment_length : int, optional
+        Welch segment length; default :func:`default_segment_length`.
+    f0_guess_hz, fit_range_hz, background
+        Passed to :func:`fit_thermal_spectrum`.
+    chunk_samples : int
+        Samples fed to the accumulator at a time (bounds the memory).
+
+    Returns
+    -------
+    ThermalResult
+
+    Raises
+    ------
+    ThermalFitError
+        Empty, too short, non-finite or constant record; no peak; peak too close to Nyquist.
+    """
+    x = np.asarray(volts)
+    if x.ndim != 1:
+        raise ThermalFitError(f"record must be 1-D, got shape {x.shape}")
+    if x.size == 0:
+        raise ThermalFitError("record is empty")
+    n = default_segment_length(x.size) if segment_length is None else int(segment_length)
+    acc = WelchAccumulator(rate_hz, n)
+    try:
+        for start in range(0, x.size, chunk_samples):
+            acc.add(x[start:start + chunk_samples])
+        spec = acc.result()
+    except ValueError as exc:
+        raise ThermalFitError(f"deflection record rejected: {exc}") from exc
+    fit = fit_thermal_spectrum(spec.frequencies_hz, spec.psd_v2_per_hz, averages=spec.n_segments,
+                               variance_inflation=spec.variance_inflation, f0_guess_hz=f0_guess_hz,
+                               fit_range_hz=fit_range_hz, background=background, spectrum=spec)
+    return calibrate_thermal(fit, temperature_k=temperature_k, invols_m_per_v=invols_m_per_v,
+                             k_n_per_m=k_n_per_m, detection=detection)
