@@ -1,1 +1,25 @@
-"""storage."""
+"""Storage: the crash-safe HDF5 session file and the per-probe calibration record."""
+
+from assistant.storage.probe_record import ProbeRecord, ProbeRecordError, default_data_dir
+from assistant.storage.session_file import (
+    FORMAT_NAME,
+    FORMAT_VERSION,
+    FinishedSeriesError,
+    FormatVersionError,
+    NotASessionFileError,
+    Record,
+    SeriesData,
+    SeriesWriter,
+    SessionFile,
+    SessionFileError,
+    SessionInfo,
+    UnwritablePathError,
+    redact_controller_url,
+    unit_for_name,
+)
+
+__all__ = [
+    "FORMAT_NAME", "FORMAT_VERSION", "FinishedSeriesError", "FormatVersionError", "NotASessionFileError",
+    "ProbeRecord", "ProbeRecordError", "Record", "SeriesData", "SeriesWriter", "SessionFile", "SessionFileError",
+    "SessionInfo", "UnwritablePathError", "default_data_dir", "redact_controller_url", "unit_for_name",
+]

@@ -1,0 +1,140 @@
+"""SIGKILL a real writer process at random moments: the file must open plainly with every completed line.
+
+After each kill the file is opened with a plain ``h5py.File(path, "r")``; every line counted in
+``completed_lines`` must equal what the writer wrote, at least every line the writer had acknowledged must be
+counted, and lines beyond the one in progress must still be the NaN fill. A resume then writes the rest, and the
+result must be byte-identical to a series written without interruption.
+"""
+
+from __future__ import annotations
+
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import h5py
+import numpy as np
+import pytest
+
+import assistant
+
+pytestmark = pytest.mark.skipif(not hasattr(signal, "SIGKILL"), reason="needs POSIX SIGKILL")
+
+LINES, PIXELS, HEIGHTS = 40, 256, 7
+REPO = str(Path(assistant.__file__).resolve().parents[1])
+
+# The writer: creates or resumes series "s", writes the remaining lines as fast as it can and acknowledges
+# each one on stdout after write_line returned (that is, after the flush).
+WRITER = r"""
+import sys, numpy as np
+from assistant.storage import SessionFile
+path, mode, lines, pixels, heights = sys.argv[1], sys.argv[2], *map(int, sys.argv[3:6])
+def line(i):
+    rng = np.random.default_rng([2024, i])
+    return dict(topography_m=rng.normal(0, 2e-9, pixels), phase_deg=rng.normal(0, 1, (heights, pixels)),
+                amplitude_v=rng.normal(1, 0.01, (heights, pixels)), repeat_phase_deg=rng.normal(0, 1, pixels))
+if mode == "create":
+    s = SessionFile.create(path, controller_url="sim://", software_version="test")
+    w = s.create_series("s", heights_m=np.arange(1, heights + 1) * 10e-9, biases_v=None, lines=lines,
+                        pixels=pixels, scan_size_m=5e-6, line_rate_hz=1.0, order="topography,heights",
+                        repeat_first=True, settings_json='{"seed": 2024}')
+else:
+    s = SessionFile.open(path, "a")
+    w = s.open_series_for_resume("s")
+print("start", w.completed_lines, flush=True)
+for i in range(w.completed_lines, lines):
+    w.write_line(i, **line(i))
+    print("done", i, flush=True)
+s.mark_complete()
+s.close()
+print("finished", flush=True)
+"""
+
+
+def _expected_line(i: int) -> dict[str, np.ndarray]:
+    rng = np.random.default_rng([2024, i])  # the same stream as the writer's
+    return dict(topography_m=rng.normal(0, 2e-9, PIXELS), phase_deg=rng.normal(0, 1, (HEIGHTS, PIXELS)),
+                amplitude_v=rng.normal(1, 0.01, (HEIGHTS, PIXELS)), repeat_phase_deg=rng.normal(0, 1, PIXELS))
+
+
+def _start(path: Path, mode: str) -> subprocess.Popen[str]:
+    env = dict(os.environ, PYTHONPATH=REPO + os.pathsep + os.environ.get("PYTHONPATH", ""))
+    return subprocess.Popen([sys.executable, "-c", WRITER, str(path), mode, str(LINES), str(PIXELS), str(HEIGHTS)],
+                            stdout=subprocess.PIPE, text=True, env=env)
+
+
+def _run_and_kill(path: Path, mode: str, kill_after: int, delay_s: float) -> int:
+    """Start a writer, SIGKILL it ``delay_s`` after its ``kill_after``-th acknowledged line; return the acks."""
+    proc = _start(path, mode)
+    assert proc.stdout is not None
+    acked = 0
+    try:
+        first = proc.stdout.readline()
+        assert first.startswith("start"), first
+        while acked < kill_after:
+            text = proc.stdout.readline()
+            if not text.startswith("done"):
+                break
+            acked += 1
+        time.sleep(delay_s)  # a real process racing a real signal: the point of this test
+        proc.send_signal(signal.SIGKILL)
+    finally:
+        proc.wait(timeout=30)
+        proc.stdout.close()
+    return acked
+
+
+def _check_plain_open(path: Path, acked_total: int) -> int:
+    with h5py.File(path, "r") as f:
+        g = f["series/s"]
+        done = int(g.attrs["completed_lines"])
+        assert acked_total <= done <= LINES
+        for i in range(done):
+            ref = _expected_line(i)
+            assert g["topography_m"][i].tobytes() == ref["topography_m"].tobytes()
+            assert g["phase_deg"][:, i, :].tobytes() == ref["phase_deg"].tobytes()
+            assert g["amplitude_v"][:, i, :].tobytes() == ref["amplitude_v"].tobytes()
+            assert g["repeat_phase_deg"][i].tobytes() == ref["repeat_phase_deg"].tobytes()
+        # the line in progress at the kill may be partly written; every later one is untouched
+        assert np.isnan(g["phase_deg"][:, done + 1:, :]).all()
+        assert np.isnan(g["topography_m"][done + 1:]).all()
+    return done
+
+
+def _datasets(path: Path) -> dict[str, bytes]:
+    with h5py.File(path, "r") as f:
+        g = f["series/s"]
+        return {name: g[name][()].tobytes() for name in ("topography_m", "phase_deg", "amplitude_v",
+                                                         "repeat_phase_deg")}
+
+
+@pytest.fixture(scope="module")
+def reference(tmp_path_factory) -> dict[str, bytes]:
+    path = tmp_path_factory.mktemp("ref") / "ref.h5"
+    proc = _start(path, "create")
+    out, _ = proc.communicate(timeout=60)
+    assert proc.returncode == 0 and out.strip().endswith("finished")
+    return _datasets(path)
+
+
+@pytest.mark.parametrize("seed", [11, 12])
+def test_random_sigkills_then_resume_is_byte_identical(tmp_path, reference, seed):
+    rng = np.random.default_rng(seed)
+    path = tmp_path / "killed.h5"
+    done, mode, kills = 0, "create", 0
+    while kills < 4 and done < LINES - 4:
+        kill_after = int(rng.integers(1, max(2, (LINES - done) // 2)))
+        acked = _run_and_kill(path, mode, kill_after, float(rng.uniform(0.0, 2e-3)))
+        done = _check_plain_open(path, done + acked)
+        mode, kills = "resume", kills + 1
+    assert kills >= 3
+    proc = _start(path, "resume")
+    out, _ = proc.communicate(timeout=60)
+    assert proc.returncode == 0 and out.strip().endswith("finished"), out
+    assert _check_plain_open(path, LINES) == LINES
+    assert _datasets(path) == reference
+    with h5py.File(path, "r") as f:
+        assert bool(f.attrs["complete"])
