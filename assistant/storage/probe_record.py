@@ -89,13 +89,14 @@ class ProbeRecord:
         """Append a calibration of ``probe_name``; return warnings on k or f0 changes since the last one.
 
         ``calibration`` holds JSON-compatible values, at least ``k_n_per_m`` or ``f0_hz``; uncertainties as
-        ``k_std_n_per_m`` and ``f0_std_hz``. A ``recorded_utc`` time stamp is added.
+        ``k_std_n_per_m`` and ``f0_std_hz``. Non-finite numbers are stored as null. A ``recorded_utc`` time
+        stamp is added.
         """
         if not isinstance(probe_name, str) or not probe_name.strip():
             raise ProbeRecordError(f"probe name must be a non-empty string, got {probe_name!r}")
         if _number(calibration, "k_n_per_m") is None and _number(calibration, "f0_hz") is None:
             raise ProbeRecordError(f"calibration of {probe_name!r} holds neither a finite k_n_per_m nor f0_hz")
-        entry = {key: (float(v) if hasattr(v, "dtype") else v) for key, v in calibration.items()}
+        entry = {key: _plain(v) for key, v in calibration.items()}
         stamp = (now or datetime.now(timezone.utc)).astimezone(timezone.utc)
         entry["recorded_utc"] = stamp.isoformat(timespec="seconds").replace("+00:00", "Z")
         try:
@@ -146,6 +147,15 @@ class ProbeRecord:
         except BaseException:
             Path(tmp).unlink(missing_ok=True)
             raise
+
+
+def _plain(value: Any) -> Any:
+    """numpy scalars to Python ones; NaN and infinities (no JSON spelling) to None."""
+    if hasattr(value, "dtype") and hasattr(value, "item"):
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    return value
 
 
 def _likely_cause(label: str, change: float) -> str:

@@ -234,12 +234,18 @@ class SeriesWriter:
         topo = self._check("topography_m", topography_m, (self.pixels,))
         phase = self._check("phase_deg", phase_deg, self._pass_shape)
         amp = self._check("amplitude_v", amplitude_v, self._pass_shape)
-        fshift = self._optional("frequency_shift_hz", frequency_shift_hz, self._has_fshift, self._pass_shape)
+        # a controller may report frequency shift without the series having declared it: keep it, do not fail
+        fshift = self._optional("frequency_shift_hz", frequency_shift_hz, self._has_fshift or
+                                frequency_shift_hz is not None, self._pass_shape)
         repeat = self._optional("repeat_phase_deg", repeat_phase_deg, self._has_repeat, (self.pixels,))
         if self._before_write is not None:
             self._before_write(index)
         g = self._group
         try:
+            if fshift is not None and not self._has_fshift:
+                _line_dataset(g, "frequency_shift_hz", g["phase_deg"].shape)
+                g.attrs["auxiliary_signals"] = ["amplitude_v", "frequency_shift_hz"]
+                self._has_fshift = True
             g["topography_m"][index, :] = topo
             g["phase_deg"][..., index, :] = phase
             g["amplitude_v"][..., index, :] = amp
@@ -418,8 +424,10 @@ class SessionFile:
                       before_write: BeforeWrite | None = None) -> SeriesWriter:
         """Create ``series/<name>`` with every dataset allocated and NaN-filled; returns its writer.
 
-        ``biases_v=None`` gives phase of shape (heights, lines, pixels); a sequence gives
+        ``biases_v=None`` (or empty) gives phase of shape (heights, lines, pixels); a sequence gives
         (heights, biases, lines, pixels). The frame is square, ``scan_size_m`` on a side.
+        ``frequency_shift=True`` allocates ``frequency_shift_hz`` now; otherwise it is added at the first line
+        that carries it.
         """
         _check_name(name)
         heights = np.asarray(heights_m, dtype=np.float64)
@@ -439,9 +447,9 @@ class SessionFile:
         if name in series_root:
             raise SessionFileError(f"series {name!r} already exists in {str(self.path)!r}; resume it instead")
         g = series_root.create_group(name)
-        biases = None if biases_v is None else np.asarray(biases_v, dtype=np.float64)
-        if biases is not None and (biases.ndim != 1 or biases.size == 0):
-            raise SessionFileError(f"biases_v must be a non-empty 1-D sequence or None, got {biases_v!r}")
+        biases = None if biases_v is None or len(biases_v) == 0 else np.asarray(biases_v, dtype=np.float64)
+        if biases is not None and (biases.ndim != 1 or not np.all(np.isfinite(biases))):
+            raise SessionFileError(f"biases_v must be a 1-D sequence of finite values or None, got {biases_v!r}")
         lead = (heights.size,) if biases is None else (heights.size, biases.size)
         pass_names = ["phase_deg", "amplitude_v"] + (["frequency_shift_hz"] if frequency_shift else [])
         for ds_name in pass_names:

@@ -107,3 +107,13 @@ def test_bad_input_and_corrupt_file(tmp_path):
     (tmp_path / "probe_record.json").write_text('{"format": "other"}')
     with pytest.raises(ProbeRecordError, match="not a probe record"):
         record.history("p")
+
+
+def test_numpy_scalars_and_nan_are_stored_as_plain_json(tmp_path):
+    import numpy as np
+
+    record = ProbeRecord(tmp_path)
+    record.add("p", {"k_n_per_m": np.float64(2.5), "segments": np.int64(10), "invols_std_nm_per_v": float("nan")},
+               now=T1)
+    entry = record.history("p")[0]
+    assert entry["k_n_per_m"] == 2.5 and entry["segments"] == 10 and entry["invols_std_nm_per_v"] is None

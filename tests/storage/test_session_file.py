@@ -252,3 +252,17 @@ def test_controller_url_redaction(url, expected):
 ])
 def test_unit_from_name_suffix(name, unit):
     assert unit_for_name(name) == unit
+
+
+def test_frequency_shift_added_at_first_line_that_carries_it(session):
+    w = _series(session, biases=[], repeat=True)  # an empty bias list means no bias grid
+    w.write_line(0, **_line(0), frequency_shift_hz=np.full((3, PIXELS), -1.5))
+    with pytest.raises(SessionFileError, match="frequency_shift_hz was declared"):
+        w.write_line(1, **_line(1))
+    data = session.read_series("s1")
+    assert data.biases_v is None and data.frequency_shift_hz.shape == (3, 1, PIXELS)
+    np.testing.assert_array_equal(data.frequency_shift_hz, -1.5)
+    session.flush()
+    with h5py.File(session.path, "r") as f:
+        assert f["series/s1/frequency_shift_hz"].attrs["units"] == "Hz"
+        assert list(f["series/s1"].attrs["auxiliary_signals"]) == ["amplitude_v", "frequency_shift_hz"]
