@@ -147,7 +147,7 @@ def _sweep(controller, settings: CalibrationSettings, f0_hz: float, q: float, *,
     half_width = 6.0 * f0_hz / q
     freqs = np.linspace(f0_hz - half_width, f0_hz + half_width, settings.sweep_points)
     data = drive_sweep(controller, freqs, settings.sweep_drive_v, sink=sink, cancel=cancel)
-    fit = sw.fit_sweep(data.frequency_hz, data.amplitude_v, data.phase_deg)
+    fit = sw.fit_drive_sweep(data.frequency_hz, data.amplitude_v, data.phase_deg)
     sink(Progress("sweep fit", 1, 1, "fit", 0.0, data={"frequency_hz": data.frequency_hz,
                                                        "amplitude_v": data.amplitude_v, "phase_deg": data.phase_deg,
                                                        "f0_hz": fit.f0_hz, "q": fit.q}))
@@ -167,6 +167,7 @@ def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits
               sink: Sink = null_sink, cancel: CancelToken | None = None) -> CalibrationResult:
     """Run the whole calibration on a withdrawn stage. Runs inside the safety guard."""
     from assistant.analysis import sader as sd
+    from assistant.analysis import sweep as sw
 
     settings.validate()
     limits = limits or SafetyLimits()
@@ -184,14 +185,13 @@ def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits
             note("warning", f"thermal fit: {w}")
         cancel.raise_if_set()
         sweep_data, sweep_fit = _sweep(controller, settings, fit.f0_hz, fit.q, sink=sink, cancel=cancel)
-        q_diff = abs(sweep_fit.q - fit.q)
-        q_sigma = math.hypot(sweep_fit.q_std, fit.q_std)
-        if q_diff > 3 * q_sigma:
+        qc = sw.compare_q(sweep_fit, fit)
+        if not qc.consistent:
             note("warning", f"Q from the sweep ({sweep_fit.q:.1f} ± {sweep_fit.q_std:.1f}) and from the thermal "
-                            f"spectrum ({fit.q:.1f} ± {fit.q_std:.1f}) differ by {q_diff / q_sigma:.1f} sigma")
+                            f"spectrum ({fit.q:.1f} ± {fit.q_std:.1f}) differ by {abs(qc.z_score):.1f} sigma")
         else:
             note("info", f"Q: sweep {sweep_fit.q:.1f} ± {sweep_fit.q_std:.1f}, thermal {fit.q:.1f} ± "
-                         f"{fit.q_std:.1f} (consistent)")
+                         f"{fit.q_std:.1f} (consistent, {abs(qc.z_score):.1f} sigma)")
 
         length, width, dim_source = _dimensions(controller, settings)
         sader = None
@@ -263,19 +263,23 @@ def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits
 def _drive_setup(controller, settings: CalibrationSettings, sweep_fit, invols_m_per_v: float, *,
                  limits: SafetyLimits) -> DriveSettings:
     """Drive amplitude for the requested free amplitude, through the sweep's response and InvOLS."""
+    from assistant.analysis import sweep as sw
+
     invols_dynamic = invols_m_per_v * CHI_OPTICAL_LEVER  # volts -> true first-mode displacement
-    volts_per_drive_volt = sweep_fit.amplitude_at_resonance_v / settings.sweep_drive_v
-    free_v = settings.free_amplitude_m / invols_dynamic
-    drive_v = free_v / volts_per_drive_volt
-    limits.check_drive(drive_v)
-    if drive_v > controller.limits.drive_max_v:
-        raise CalibrationError(f"free amplitude {settings.free_amplitude_m * 1e9:g} nm needs {drive_v:g} V of drive, "
-                               f"above the controller's {controller.limits.drive_max_v:g} V")
-    controller.set_drive(sweep_fit.f0_hz, drive_v)
+    frequency = sw.drive_frequency(sweep_fit)
+    response = sw.sweep_response_v_per_v(sweep_fit, frequency, drive_amplitude_v=settings.sweep_drive_v)
+    max_drive = min(limits.drive_amplitude_max_v, controller.limits.drive_max_v)
+    try:
+        drive_v = sw.drive_amplitude_for_free_amplitude(settings.free_amplitude_m, invols_m_per_v=invols_dynamic,
+                                                        response_v_per_v=response, max_drive_v=max_drive)
+    except ValueError as exc:
+        raise CalibrationError(str(exc)) from None
+    controller.set_drive(frequency, drive_v)
     r = controller.read(["amplitude_v", "phase_deg"])
-    return DriveSettings(frequency_hz=sweep_fit.f0_hz, amplitude_v=drive_v, free_amplitude_v=r["amplitude_v"],
+    return DriveSettings(frequency_hz=frequency, amplitude_v=drive_v, free_amplitude_v=r["amplitude_v"],
                          free_amplitude_m=r["amplitude_v"] * invols_dynamic,
-                         setpoint_v=settings.setpoint_ratio * r["amplitude_v"], setpoint_ratio=settings.setpoint_ratio,
+                         setpoint_v=sw.setpoint_from_ratio(r["amplitude_v"], settings.setpoint_ratio),
+                         setpoint_ratio=settings.setpoint_ratio,
                          phase_reference_deg=r["phase_deg"])
 
 

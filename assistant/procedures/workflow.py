@@ -77,10 +77,16 @@ class Workflow:
         self.quality_factor = result.thermal.q
         self.temperature_k = settings.temperature_k
         summary = result.summary()
-        spec = result.thermal.fit
-        arrays = {"thermal_frequency_hz": spec.frequencies_hz, "thermal_psd_v2_per_hz": spec.psd_v2_per_hz,
-                  "thermal_model_v2_per_hz": spec.model(spec.frequencies_hz)}
+        fit = result.thermal.fit
+        arrays = {"fit_frequency_hz": fit.frequencies_hz, "fit_psd_v2_per_hz": fit.psd_v2_per_hz,
+                  "fit_model_v2_per_hz": fit.model(fit.frequencies_hz)}
         scalars = {k: v for k, v in summary.items() if v is not None and not isinstance(v, bool)}
+        if fit.spectrum is not None:  # the whole averaged spectrum, so it can be refitted offline
+            arrays["spectrum_frequency_hz"] = fit.spectrum.frequencies_hz
+            arrays["spectrum_psd_v2_per_hz"] = fit.spectrum.psd_v2_per_hz
+            scalars.update(spectrum_rate_hz=fit.spectrum.rate_hz, spectrum_segments=fit.spectrum.n_segments,
+                           spectrum_segment_length=fit.spectrum.segment_length,
+                           spectrum_variance_inflation=fit.spectrum.variance_inflation)
         scalars["probe_name"] = settings.probe_name or "unnamed"
         scalars["calibrated_utc"] = datetime.now(timezone.utc).isoformat(timespec="seconds")
         if result.sader is not None:
