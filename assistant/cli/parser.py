@@ -137,7 +137,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--allow", metavar="DIR", help="directory of allowed client public keys (CURVE)")
     p.add_argument("--watchdog", type=positive(), default=5.0, metavar="S",
                    help="withdraw when an engaged client is silent this long (default 5 s)")
-    p.add_argument("--faults", metavar="SPEC", help="fault injection, e.g. 'link_drop@200,nan_reading~0.01'")
+    p.add_argument("--faults", metavar="SPEC", help="fault injection: comma-separated KIND:KEY=VALUE specs, "
+                   "e.g. 'timeout:after=5,nan_reading:probability=0.01'")
     p.set_defaults(handler="cmd_serve:run")
     keys = sub.add_parser("keys", help="CURVE key pairs for the network link").add_subparsers(
         title="action", metavar="ACTION", parser_class=_Parser)
