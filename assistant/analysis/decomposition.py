@@ -1,0 +1,378 @@
+"""Joint decomposition of a lift-height series: magnetic continuation and the image-mean parts.
+
+Magnetic part: above the film every spatial Fourier component of the stray field, and so of the force
+gradient on a point-probe tip (monopole or dipole, any finite oscillation amplitude), decays as
+``exp(-|q| z)`` (Laplace's equation; Hug et al. 1998, J. Appl. Phys. 83, 5609; Wallace 1951, Bell Syst.
+Tech. J. 30, 1145; from memory). One complex amplitude ``A(q)`` per spatial frequency is fitted jointly
+across all heights, weighted by each height's noise: ``M_h(q) = A(q) exp(-|q| (h - h_0))``.
+
+Image mean: a magnetic film large compared with the scan has no magnetic mean, so the mean of each image
+is electrostatic plus short-range. Heights only: a weighted linear fit of two shapes (amplitude-weighted
+``1/2 C''(z)`` and the Hamaker sphere gradient). Bias grid: a parabola in V per height with a common
+vertex V_cpd.
+
+All functions work in a *signal* unit chosen by the caller: the force gradient [N/m] when k and Q are
+known (the exact ``-arctan`` phase relation is inverted per pixel, so parts add linearly) or the phase
+itself [deg] (small-angle approximation).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import optimize
+
+__all__ = [
+    "ContinuationFit",
+    "fit_continuation",
+    "leave_one_out_prediction",
+    "resolution_period_m",
+    "MeanFit",
+    "fit_mean_heights",
+    "fit_mean_bias_grid",
+]
+
+
+def _wavenumbers(shape: tuple[int, int], pixel_m: float):
+    rows, cols = shape
+    fr = np.fft.fftfreq(rows)[:, None] / pixel_m
+    fc = np.fft.rfftfreq(cols)[None, :] / pixel_m
+    f = np.sqrt(fr**2 + fc**2)  # cycles per metre
+    cw = np.full((1, cols // 2 + 1), 2.0)  # each half-plane cell stands for itself and its conjugate
+    cw[0, 0] = 1.0
+    if cols % 2 == 0:
+        cw[0, -1] = 1.0
+    return 2.0 * np.pi * f, f, np.broadcast_to(cw, f.shape)
+
+
+@dataclass(frozen=True)
+class ContinuationFit:
+    """Result of :func:`fit_continuation` (signal units s of the caller; N = rows * cols).
+
+    Attributes
+    ----------
+    amplitude : ndarray, complex (rows, cols//2+1)
+        Fitted rfft2 coefficients A(q) at the first height.
+    model : ndarray (H, rows, cols)
+        Fitted (denoised) magnetic image at every height [s].
+    residual : ndarray (H, rows, cols)
+        Data minus model; NaN where the data were masked [s].
+    noise_std : ndarray (H,)
+        Per-pixel white-noise std of each height from the leverage-corrected residual [s].
+    magnetic_rms, magnetic_rms_std : ndarray (H,)
+        Noise-debiased rms of the magnetic image at each height and its standard error [s].
+    residual_rms : ndarray (H,)
+        Rms of the residual over valid pixels [s].
+    expected_residual_rms : ndarray (H,)
+        Rms the residual would have if it were pure noise of ``noise_std`` [s].
+    inverse_weight_sum : ndarray (rows, cols//2+1)
+        ``1 / sum_h w_h e_h^2``: Var(A(q)) = N * this.
+    decay : ndarray (H, rows, cols//2+1)
+        ``exp(-|q| (h - h_0))``.
+    noise_power : ndarray (H,)
+        Mean-square the fit noise adds to ``model`` at each height [s^2] (subtract it from the map's
+        mean square to debias).
+    heights_m : ndarray (H,)
+    pixel_m : float
+    """
+
+    amplitude: np.ndarray
+    model: np.ndarray
+    residual: np.ndarray
+    noise_std: np.ndarray
+    magnetic_rms: np.ndarray
+    magnetic_rms_std: np.ndarray
+    residual_rms: np.ndarray
+    expected_residual_rms: np.ndarray
+    inverse_weight_sum: np.ndarray
+    decay: np.ndarray
+    noise_power: np.ndarray
+    heights_m: np.ndarray
+    pixel_m: float
+
+
+def fit_continuation(stack: np.ndarray, *, heights_m, pixel_m: float, valid: np.ndarray | None = None,
+                     stats_mask: np.ndarray | None = None, n_iter: int = 4) -> ContinuationFit:
+    """Fit one complex amplitude per spatial frequency jointly across heights (Laplace continuation).
+
+    Weighted least squares per frequency with closed form
+    ``A = sum_h w_h e_h M_h / sum_h w_h e_h^2``, ``w_h = 1/sigma_h^2``, ``e_h = exp(-|q|(h - h_0))``.
+    The per-height noise sigma_h is re-estimated from the residual with the leverage correction
+    ``E|r_h|^2 = N sigma_h^2 (1 - w_h e_h^2 / sum w e^2)`` (iterated ``n_iter`` times). Masked pixels are
+    filled with the current model (expectation-maximisation style) between iterations.
+
+    Parameters
+    ----------
+    stack : ndarray (H, rows, cols)
+        Images at each height in signal units; their means are removed here (the q = 0 term is not fitted).
+    heights_m : array_like (H,)
+        Lift heights [m], increasing.
+    pixel_m : float
+        Pixel spacing [m] (square pixels).
+    valid : ndarray of bool (H, rows, cols), optional
+        False where data are missing (NaN pixels are always treated as missing).
+    stats_mask : ndarray of bool (rows, cols), optional
+        Pixels used for the residual statistics (e.g. excluding borders wrapped by the alignment).
+    n_iter : int
+        Re-weighting iterations.
+    """
+    data = np.array(stack, dtype=float)
+    h = np.asarray(heights_m, dtype=float)
+    nh, rows, cols = data.shape
+    n = rows * cols
+    ok = np.isfinite(data) if valid is None else (np.asarray(valid, bool) & np.isfinite(data))
+    frac = ok.reshape(nh, -1).mean(axis=1)
+    means = np.array([data[i][ok[i]].mean() for i in range(nh)])  # one per image
+    data = data - means[:, None, None]
+    data[~ok] = 0.0
+    q, _, cw = _wavenumbers((rows, cols), pixel_m)
+    e = np.exp(-q[None] * (h - h[0])[:, None, None])
+    sigma2 = np.ones(nh)
+    for it in range(max(int(n_iter), 1) + 1):
+        f = np.fft.rfft2(data, axes=(-2, -1))
+        w = 1.0 / sigma2
+        s = np.einsum("h,hij->ij", w, e * e)
+        inv_s = 1.0 / s
+        amp = np.einsum("h,hij->ij", w, e * f) * inv_s
+        amp[0, 0] = 0.0
+        pred = amp[None] * e
+        if it == max(int(n_iter), 1):
+            break
+        lev = (w[:, None, None] * e * e) * inv_s[None]
+        r2 = (cw * np.abs(f - pred) ** 2).reshape(nh, -1).sum(axis=1)
+        # the DC cell is not fitted and carries no residual: take its share out of the degrees of freedom
+        dof = (cw * (1.0 - lev)).reshape(nh, -1).sum(axis=1) - (1.0 - lev[:, 0, 0])
+        sigma2 = r2 / (n * np.maximum(dof, 1.0) * np.maximum(frac, 1e-3))
+        sigma2 = np.maximum(sigma2, 1e-30 * max(sigma2.max(), 1e-300))
+        if not np.all(ok):
+            model_now = np.fft.irfft2(pred, s=(rows, cols), axes=(-2, -1))
+            data = np.where(ok, data, model_now)
+    model = np.fft.irfft2(pred, s=(rows, cols), axes=(-2, -1))
+    resid = np.where(ok, data - model, np.nan)
+    sm = ok if stats_mask is None else ok & np.asarray(stats_mask, bool)[None]
+    residual_rms = np.sqrt(np.array([np.mean(resid[i][sm[i]] ** 2) for i in range(nh)]))
+    mean_lev = ((cw * lev).reshape(nh, -1).sum(axis=1)) / n
+    expected = np.sqrt(sigma2 * np.clip(1.0 - mean_lev, 0.0, 1.0))
+
+    # noise-debiased power of the fitted map at each height; Var(A e_h) = N e_h^2 / S per cell
+    v = n * e * e * inv_s[None]
+    p2 = np.abs(pred) ** 2
+    valid_cells = np.ones((rows, cols // 2 + 1), bool)
+    valid_cells[0, 0] = False
+    mu2 = np.clip(p2 - v, 0.0, None)
+    power = (cw * (p2 - v) * valid_cells).reshape(nh, -1).sum(axis=1) / n**2
+    var_power = (2.0 * cw * (2.0 * mu2 * v + v * v) * valid_cells).reshape(nh, -1).sum(axis=1) / n**4
+    rms = np.sqrt(np.clip(power, 0.0, None))
+    rms_std = np.where(rms > 0, np.sqrt(var_power) / (2.0 * np.where(rms > 0, rms, 1.0)),
+                       var_power**0.25)
+    return ContinuationFit(amplitude=amp, model=model, residual=resid, noise_std=np.sqrt(sigma2),
+                           magnetic_rms=rms, magnetic_rms_std=rms_std, residual_rms=residual_rms,
+                           expected_residual_rms=expected, inverse_weight_sum=inv_s, decay=e,
+                           noise_power=(cw * v * valid_cells).reshape(nh, -1).sum(axis=1) / n**2, heights_m=h, pixel_m=float(pixel_m))
+
+
+def leave_one_out_prediction(stack: np.ndarray, fit: ContinuationFit) -> np.ndarray:
+    """Magnetic image predicted at each height from all *other* heights (H, rows, cols) [s].
+
+    Used to refine the registration against a template that is nearly free of the height's own noise.
+    """
+    data = np.array(stack, dtype=float)
+    data = data - np.nanmean(data, axis=(-2, -1), keepdims=True)
+    data[~np.isfinite(data)] = 0.0
+    rows, cols = data.shape[-2:]
+    f = np.fft.rfft2(data, axes=(-2, -1))
+    w = 1.0 / fit.noise_std**2
+    e = fit.decay
+    num = np.einsum("h,hij->ij", w, e * f)
+    den = np.einsum("h,hij->ij", w, e * e)
+    num_o = num[None] - w[:, None, None] * e * f
+    den_o = den[None] - w[:, None, None] * e * e
+    amp = np.where(den_o > 1e-300, num_o / np.where(den_o > 1e-300, den_o, 1.0), 0.0)
+    amp[:, 0, 0] = 0.0
+    return np.fft.irfft2(amp * e, s=(rows, cols), axes=(-2, -1))
+
+
+def resolution_period_m(fit: ContinuationFit, *, snr: float = 1.0, significance: float = 3.0) -> np.ndarray:
+    """Shortest spatial period whose fitted magnetic contrast is still above the noise, per height [m].
+
+    Radial bins of width 1/(max(rows, cols) * pixel); a bin passes at height h if its noise-debiased fitted
+    power exceeds ``snr`` times the measurement-noise power of that height in the same bin and is
+    ``significance`` standard errors above zero. The period is 1 / (highest passing frequency); inf where
+    no bin passes. Common practice (signal-to-noise of one), no source.
+    """
+    nh = fit.model.shape[0]
+    rows, cols = fit.model.shape[-2:]
+    n = rows * cols
+    _, fmag, cw = _wavenumbers((rows, cols), fit.pixel_m)
+    df = 1.0 / (max(rows, cols) * fit.pixel_m)
+    b = np.rint(fmag / df).astype(int).ravel()
+    nb = b.max() + 1
+    pred = fit.amplitude[None] * fit.decay
+    v = n * fit.decay**2 * fit.inverse_weight_sum[None]
+    p2 = np.abs(pred) ** 2
+    mu2 = np.clip(p2 - v, 0.0, None)
+    out = np.full(nh, np.inf)
+    cwf = cw.ravel()
+    for i in range(nh):  # over heights; bins are vectorised
+        sig = np.bincount(b, weights=cwf * (p2[i] - v[i]).ravel(), minlength=nb)
+        var = np.bincount(b, weights=2.0 * cwf * (2.0 * mu2[i] * v[i] + v[i] ** 2).ravel(), minlength=nb)
+        noise = np.bincount(b, weights=cwf * n * fit.noise_std[i] ** 2, minlength=nb)
+        ok = (sig >= snr * noise) & (sig > significance * np.sqrt(var))
+        ok[0] = False
+        idx = np.nonzero(ok)[0]
+        if idx.size:
+            out[i] = 1.0 / (idx.max() * df)
+    return out
+
+
+@dataclass(frozen=True)
+class MeanFit:
+    """Electrostatic and short-range parts of the image mean (signal units s).
+
+    Attributes
+    ----------
+    electrostatic, electrostatic_std : ndarray (H,) or (H, B)
+    short_range, short_range_std : ndarray (H,)
+    correlation : ndarray (H,)
+        Correlation coefficient of the two parts at each height (bias grid: at the first bias).
+    parameters, covariance : ndarray
+        Heights only: (amplitude of the electrostatic shape, amplitude of the short-range shape).
+        Bias grid: (V_cpd, a_1..a_H, c_1..c_H).
+    separable : bool
+        Whether the data separate the two parts (see the fitting functions).
+    sentence : str
+    cpd_v, cpd_std_v : float or None
+        Bias grid only.
+    reduced_chi2 : float
+    """
+
+    electrostatic: np.ndarray
+    electrostatic_std: np.ndarray
+    short_range: np.ndarray
+    short_range_std: np.ndarray
+    correlation: np.ndarray
+    parameters: np.ndarray
+    covariance: np.ndarray
+    separable: bool
+    sentence: str
+    cpd_v: float | None
+    cpd_std_v: float | None
+    reduced_chi2: float
+
+
+def fit_mean_heights(mean, mean_std, *, electrostatic_shape, short_range_shape, heights_m,
+                     separation_tolerance: float = 0.2) -> MeanFit:
+    """Fit the image mean per height as ``alpha * e(h) + beta * s(h)`` (weighted linear least squares).
+
+    ``e`` is the amplitude-weighted ``1/2 C''`` of the tip (electrostatic, times (V - V_cpd)^2 = alpha) and
+    ``s`` the amplitude-weighted Hamaker sphere gradient per unit Hamaker constant (beta = H), both in
+    signal units per unit parameter. The covariance is scaled by the reduced chi-square when it exceeds 1
+    (Birge ratio). The parts count as separable when each part's standard error at the lowest height is at
+    most ``separation_tolerance`` times the total mean there.
+    """
+    y = np.asarray(mean, float)
+    sd = np.asarray(mean_std, float)
+    e = np.asarray(electrostatic_shape, float)
+    s = np.asarray(short_range_shape, float)
+    # scale columns to unit first value for conditioning
+    se, ss = e[0], s[0]
+    x = np.stack([e / se, s / ss], axis=1) / sd[:, None]
+    coef, *_ = np.linalg.lstsq(x, y / sd, rcond=None)
+    xtx_inv = np.linalg.inv(x.T @ x)
+    chi2 = float(np.sum((x @ coef - y / sd) ** 2))
+    dof = max(len(y) - 2, 1)
+    red = chi2 / dof
+    cov = xtx_inv * max(red, 1.0)
+    scale = np.array([1.0 / se, 1.0 / ss])
+    params = coef * scale
+    pcov = cov * np.outer(scale, scale)
+    es = params[0] * e
+    sr = params[1] * s
+    es_sd = np.sqrt(pcov[0, 0]) * np.abs(e)
+    sr_sd = np.sqrt(pcov[1, 1]) * np.abs(s)
+    corr_p = pcov[0, 1] / np.sqrt(pcov[0, 0] * pcov[1, 1])
+    corr = np.full(len(y), corr_p * np.sign(e * s))
+    total = abs(es[0] + sr[0])
+    worst = max(es_sd[0], sr_sd[0])
+    separable = bool(worst <= separation_tolerance * total)
+    h_nm = float(np.asarray(heights_m)[0]) * 1e9
+    if separable:
+        sentence = (f"The heights separate the electrostatic and short-range parts (correlation {corr_p:+.2f}; "
+                    f"at {h_nm:.4g} nm each part is known to within {worst / max(total, 1e-300):.0%} of the mean).")
+    else:
+        sentence = (f"The heights alone cannot separate the electrostatic and short-range parts: their "
+                    f"correlation is {corr_p:+.2f} and at {h_nm:.4g} nm the split is uncertain by "
+                    f"{worst / max(total, 1e-300):.0%} of the mean; only their sum is reliable. Measure at three "
+                    "or more tip biases to separate them.")
+    return MeanFit(es, es_sd, sr, sr_sd, corr, params, pcov, separable, sentence, None, None, red)
+
+
+def _vertex_chi2(v0, volts, y, w):
+    d = (volts - v0) ** 2  # (B,)
+    # per height closed-form 2x2 weighted least squares for (a_h, c_h)
+    s00 = (w * d * d).sum(axis=1)
+    s01 = (w * d).sum(axis=1)
+    s11 = w.sum(axis=1)
+    t0 = (w * d * y).sum(axis=1)
+    t1 = (w * y).sum(axis=1)
+    det = s00 * s11 - s01**2
+    a = (s11 * t0 - s01 * t1) / det
+    c = (s00 * t1 - s01 * t0) / det
+    r = y - a[:, None] * d[None] - c[:, None]
+    return float((w * r * r).sum()), a, c
+
+
+def fit_mean_bias_grid(mean, mean_std, *, bias_v) -> MeanFit:
+    """Fit the image mean at each height as ``a_h (V - V_cpd)^2 + c_h`` with one common vertex V_cpd.
+
+    The electrostatic force gradient is ``1/2 C''(z) (V - V_cpd)^2`` (quadratic in bias, minimal at the
+    contact potential; Hudlet et al. 1998, Eur. Phys. J. B 2, 5): the parabola separates it exactly, and the
+    remainder ``c_h`` at V_cpd is the short-range (bias-independent) part. V_cpd is found by profiling the
+    chi-square; the covariance of all parameters comes from the Jacobian, scaled by the reduced chi-square
+    when above 1.
+
+    Parameters
+    ----------
+    mean, mean_std : ndarray (H, B)
+        Image mean and its standard error per height and bias [s].
+    bias_v : array_like (B,)
+        Tip biases [V], at least three distinct values.
+    """
+    y = np.asarray(mean, float)
+    sd = np.asarray(mean_std, float)
+    volts = np.asarray(bias_v, float)
+    w = 1.0 / sd**2
+    nh, nb = y.shape
+    span = volts.max() - volts.min()
+    grid = np.linspace(volts.min() - span, volts.max() + span, 401)
+    chis = np.array([_vertex_chi2(g, volts, y, w)[0] for g in grid])  # 1-D scan of the single nonlinear parameter
+    k = int(np.argmin(chis))
+    lo, hi = grid[max(k - 1, 0)], grid[min(k + 1, len(grid) - 1)]
+    res = optimize.minimize_scalar(lambda v: _vertex_chi2(v, volts, y, w)[0], bounds=(lo, hi), method="bounded",
+                                   options={"xatol": 1e-10 * max(span, 1e-12)})
+    v0 = float(res.x)
+    chi2, a, c = _vertex_chi2(v0, volts, y, w)
+    d = (volts - v0) ** 2
+    jac = np.zeros((nh, nb, 2 * nh + 1))
+    jac[:, :, 0] = -2.0 * a[:, None] * (volts - v0)[None]
+    idx = np.arange(nh)
+    jac[idx, :, 1 + idx] = d[None]
+    jac[idx, :, 1 + nh + idx] = 1.0
+    jw = (jac * np.sqrt(w)[..., None]).reshape(nh * nb, -1)
+    dof = max(nh * nb - (2 * nh + 1), 1)
+    red = chi2 / dof
+    cov = np.linalg.pinv(jw.T @ jw) * max(red, 1.0)
+    es = a[:, None] * d[None]
+    g_v0 = -2.0 * a[:, None] * (volts - v0)[None]
+    var_es = (g_v0**2 * cov[0, 0] + d[None] ** 2 * cov[1 + idx, 1 + idx][:, None]
+              + 2.0 * g_v0 * d[None] * cov[0, 1 + idx][:, None])
+    es_sd = np.sqrt(np.clip(var_es, 0.0, None))
+    sr_sd = np.sqrt(cov[1 + nh + idx, 1 + nh + idx])
+    cov_ec = g_v0[:, 0] * cov[0, 1 + nh + idx] + d[0] * cov[1 + idx, 1 + nh + idx]
+    corr = cov_ec / np.where(es_sd[:, 0] * sr_sd > 0, es_sd[:, 0] * sr_sd, 1.0)
+    params = np.concatenate([[v0], a, c])
+    cpd_sd = float(np.sqrt(cov[0, 0]))
+    sentence = (f"The bias grid ({nb} biases) separates the electrostatic part: V_cpd = {v0:.4g} +- {cpd_sd:.2g} V; "
+                "the remainder at V_cpd is short-range.")
+    return MeanFit(es, es_sd, c, sr_sd, corr, params, cov, True, sentence, v0, cpd_sd, red)

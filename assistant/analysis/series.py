@@ -1,0 +1,336 @@
+"""One entry point for a lift-height series: :func:`analyse_series`.
+
+Conventions (see :mod:`assistant.analysis.lift_models`): phase = -arctan(Q F'/k), attractive -> negative;
+during a second pass the oscillation centre sits ``gap_offset_m + lift height`` above the surface
+(``gap_offset_m`` defaults to ``amplitude_m``, the peak amplitude, so the closest approach equals the lift
+height). With k and Q the phase is turned into the force gradient per pixel (exact), otherwise the analysis
+works on the phase itself (small-angle approximation); reported parts are the phase each alone would give.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from . import decomposition as dec
+from . import lift_models as lm
+from .noise_floor import NoiseVerdict, noise_verdict, white_noise_std
+from .recommend import Recommendation, recommend_lift
+from .registration import align_stack, estimate_shift_px
+from .tip_change import TipChange, detect_tip_change
+
+__all__ = ["SeriesInputError", "TooFewHeightsError", "HeightsMismatchError", "HeightsNotIncreasingError",
+           "ImageShapeError", "TooFewBiasesError", "TooManyInvalidPixelsError", "SeriesAnalysis", "analyse_series"]
+
+
+class SeriesInputError(ValueError):
+    """Root of the input errors of :func:`analyse_series`."""
+
+
+class TooFewHeightsError(SeriesInputError):
+    """Fewer than three lift heights."""
+
+
+class HeightsMismatchError(SeriesInputError):
+    """The number of heights differs from the stack."""
+
+
+class HeightsNotIncreasingError(SeriesInputError):
+    """Heights not strictly increasing."""
+
+
+class ImageShapeError(SeriesInputError):
+    """Images of different shapes, or a stack of the wrong dimensionality."""
+
+
+class TooFewBiasesError(SeriesInputError):
+    """A bias grid with fewer than three biases, or biases not matching the stack."""
+
+
+class TooManyInvalidPixelsError(SeriesInputError):
+    """More NaN pixels than the limit."""
+
+
+@dataclass(frozen=True)
+class SeriesAnalysis:
+    """Decomposition of a lift-height series. Arrays for figures; :meth:`to_dict` for JSON."""
+
+    heights_m: np.ndarray
+    pixel_m: float
+    bias_v: np.ndarray | None
+    magnetic_rms_deg: np.ndarray
+    magnetic_rms_std_deg: np.ndarray
+    electrostatic_mean_deg: np.ndarray
+    electrostatic_mean_std_deg: np.ndarray
+    short_range_mean_deg: np.ndarray
+    short_range_mean_std_deg: np.ndarray
+    part_correlation: np.ndarray
+    mean_phase_deg: np.ndarray          # measured image mean (H,) or (H, B)
+    mean_phase_std_deg: np.ndarray
+    residual_rms_deg: np.ndarray
+    expected_residual_rms_deg: np.ndarray
+    noise_deg: np.ndarray               # per-height noise of the fitted (bias-averaged) images
+    reference_noise_deg: float          # independent noise estimate of one image
+    residual_at_noise: np.ndarray
+    drift_px: np.ndarray                # (H, 2) or (H, B, 2)
+    cpd_v: float | None
+    cpd_std_v: float | None
+    separable: bool
+    separability_sentence: str
+    resolution_period_m: np.ndarray
+    recommendation: Recommendation
+    noise: NoiseVerdict
+    tip_change: TipChange | None
+    magnetic_deg: np.ndarray            # (H, rows, cols) denoised magnetic image per height
+    residual_deg: np.ndarray            # (H, rows, cols)
+    nan_pixels: int
+    signal_space: str                   # "gradient" (k and Q given) or "phase"
+    fitted_parameters: dict
+
+    @property
+    def heights_nm(self) -> np.ndarray:
+        return self.heights_m * 1e9
+
+    def to_dict(self) -> dict:
+        """JSON-ready summary (lists and floats; None for missing)."""
+        def lst(a):
+            return np.asarray(a, float).tolist()
+
+        drift = self.drift_px if self.drift_px.ndim == 2 else self.drift_px.mean(axis=1)
+        rec = self.recommendation
+        out = {
+            "heights_nm": lst(self.heights_nm),
+            "magnetic_rms_deg": lst(self.magnetic_rms_deg),
+            "magnetic_rms_std_deg": lst(self.magnetic_rms_std_deg),
+            "electrostatic_mean_deg": lst(self.electrostatic_mean_deg),
+            "electrostatic_mean_std_deg": lst(self.electrostatic_mean_std_deg),
+            "short_range_mean_deg": lst(self.short_range_mean_deg),
+            "short_range_mean_std_deg": lst(self.short_range_mean_std_deg),
+            "residual_rms_deg": lst(self.residual_rms_deg),
+            "drift_px": lst(drift),
+            "cpd_v": self.cpd_v,
+            "cpd_std_v": self.cpd_std_v,
+            "recommended_lift_nm": None if rec.lift_height_m is None else rec.lift_height_m * 1e9,
+            "recommended_bias_v": rec.bias_v,
+            "recommendation": rec.sentence,
+            "separable": self.separable,
+            "separability": self.separability_sentence,
+            "part_correlation": lst(self.part_correlation),
+            "expected_residual_rms_deg": lst(self.expected_residual_rms_deg),
+            "residual_at_noise": [bool(x) for x in self.residual_at_noise],
+            "noise_deg": lst(self.noise_deg),
+            "phase_noise_deg": self.noise.measured_phase_noise_deg,
+            "thermal_phase_noise_deg": self.noise.thermal_phase_noise_deg,
+            "noise_verdict": self.noise.verdict,
+            "noise_sentence": self.noise.sentence,
+            "resolution_period_nm": [None if not np.isfinite(x) else x * 1e9 for x in self.resolution_period_m],
+            "nan_pixels": int(self.nan_pixels),
+            "signal_space": self.signal_space,
+            "tip_changed_sample": None if self.tip_change is None else self.tip_change.irreversible,
+            "tip_changed_fraction": None if self.tip_change is None else self.tip_change.changed_fraction,
+        }
+        if self.drift_px.ndim == 3:
+            out["drift_px_per_bias"] = lst(self.drift_px)
+        return out
+
+
+def _validate(phase_deg, heights_m, bias_v):
+    if isinstance(phase_deg, (list, tuple)):
+        shapes = {np.shape(p) for p in phase_deg}
+        if len(shapes) > 1:
+            raise ImageShapeError(f"images of different shapes: {sorted(shapes)}; all must be the same")
+    stack = np.asarray(phase_deg, dtype=float)
+    if stack.ndim not in (3, 4):
+        raise ImageShapeError(f"phase_deg must be (heights, rows, cols) or (heights, biases, rows, cols), "
+                              f"got shape {stack.shape}")
+    h = np.atleast_1d(np.asarray(heights_m, dtype=float))
+    if h.ndim != 1 or h.size < 3:
+        raise TooFewHeightsError(f"need at least 3 lift heights, got {h.size}")
+    if h.size != stack.shape[0]:
+        raise HeightsMismatchError(f"{h.size} heights given but the stack has {stack.shape[0]}")
+    if not np.all(np.isfinite(h)) or np.any(np.diff(h) <= 0):
+        raise HeightsNotIncreasingError(f"heights must be finite and strictly increasing, got {h.tolist()} m")
+    if min(stack.shape[-2:]) < 8:
+        raise ImageShapeError(f"images must be at least 8 x 8 pixels, got {stack.shape[-2:]}")
+    volts = None
+    if stack.ndim == 4:
+        if bias_v is None:
+            raise TooFewBiasesError("a (heights, biases, rows, cols) stack needs bias_v")
+        volts = np.atleast_1d(np.asarray(bias_v, dtype=float))
+        if volts.size != stack.shape[1]:
+            raise TooFewBiasesError(f"{volts.size} biases given but the stack has {stack.shape[1]}")
+        if np.unique(volts).size < 3:
+            raise TooFewBiasesError(f"a bias grid needs at least 3 distinct biases, got {np.unique(volts).size}")
+    return stack, h, volts
+
+
+def _per_height(a, v, nh, nb):
+    """Average the aligned images over biases at each height, ignoring missing pixels."""
+    rows, cols = a.shape[-2:]
+    w = v.reshape(nh, nb, rows, cols)
+    num = np.where(w, a.reshape(nh, nb, rows, cols), 0.0).sum(axis=1)
+    cnt = w.sum(axis=1)
+    return np.where(cnt > 0, num / np.maximum(cnt, 1), np.nan), cnt > 0
+
+
+def analyse_series(phase_deg, *, heights_m, pixel_m: float, bias_v=None, repeat_phase_deg=None,
+                   spring_constant_n_per_m: float | None = None, quality_factor: float | None = None,
+                   resonance_hz: float | None = None, tip_radius_m: float = 30e-9,
+                   cone_half_angle_deg: float | None = 15.0, cone_height_m: float = 10e-6,
+                   amplitude_m: float = 10e-9, gap_offset_m: float | None = None, bandwidth_hz: float | None = None,
+                   temperature_k: float = 298.15, short_range_fraction: float = 0.1, max_nan_fraction: float = 0.05,
+                   residual_tolerance: float = 1.25, register: bool = True, n_refine: int = 2) -> SeriesAnalysis:
+    """Decompose a lift-height series into magnetic, electrostatic and short-range parts.
+
+    Parameters
+    ----------
+    phase_deg : array_like
+        Second-pass phase [deg], (heights, rows, cols) or (heights, biases, rows, cols); NaN = missing.
+    heights_m : array_like
+        Lift heights [m], at least 3, strictly increasing.
+    pixel_m : float
+        Pixel spacing [m].
+    bias_v : array_like, optional
+        Tip biases [V] of a bias grid (at least 3); a scalar is accepted and ignored for a 3-D stack.
+    repeat_phase_deg : ndarray (rows, cols), optional
+        The first height (first bias) repeated at the end of every line.
+    spring_constant_n_per_m, quality_factor : float, optional
+        k [N/m] and Q: with both the phase is inverted exactly to the force gradient.
+    resonance_hz, bandwidth_hz, temperature_k : float
+        For the thermal noise limit (Albrecht et al. 1991).
+    tip_radius_m, cone_half_angle_deg, cone_height_m : float
+        Tip geometry for the electrostatic shape (exact sphere + Hudlet cone; None = no cone) and vdW.
+    amplitude_m : float
+        Peak oscillation amplitude [m] (finite-amplitude weighting, Giessibl 2001).
+    gap_offset_m : float, optional
+        Oscillation centre above the surface at zero lift [m]; defaults to ``amplitude_m``.
+    short_range_fraction : float
+        Largest acceptable short-range / magnetic-contrast ratio for the recommended height.
+    max_nan_fraction : float
+        Largest acceptable fraction of NaN pixels in any image.
+    residual_tolerance : float
+        A height's fitted noise within this factor of the independent noise estimate counts as "at noise".
+    register : bool
+        Estimate and undo drift.
+    n_refine : int
+        Rounds of refining the drift against the leave-one-out continuation.
+    """
+    stack, h, volts = _validate(phase_deg, heights_m, bias_v)
+    grid = stack.ndim == 4
+    s4 = stack if grid else stack[:, None]
+    nh, nb, rows, cols = s4.shape
+    bad = ~np.isfinite(s4)
+    nan_frac = bad.reshape(nh * nb, -1).mean(axis=1)
+    if nan_frac.max() > max_nan_fraction:
+        raise TooManyInvalidPixelsError(f"NaN fraction {nan_frac.max():.3g} in an image exceeds the limit "
+                                        f"max_nan_fraction={max_nan_fraction:g}")
+    exact = spring_constant_n_per_m is not None and quality_factor is not None
+    if exact:
+        k, qf = float(spring_constant_n_per_m), float(quality_factor)
+        sig = lm.gradient_from_phase_deg(s4, spring_constant_n_per_m=k, quality_factor=qf)
+        lin = qf / k * 180.0 / np.pi  # d|phase|/d signal at zero
+
+        def to_deg(x):
+            return lm.phase_deg_from_gradient(x, spring_constant_n_per_m=k, quality_factor=qf)
+
+        def slope(x):
+            return lin / (1.0 + (qf * np.asarray(x) / k) ** 2)
+    else:
+        sig = s4
+        lin = 1.0
+
+        def to_deg(x):
+            return np.asarray(x, float)
+
+        def slope(x):
+            return np.ones_like(np.asarray(x, float))
+
+    ok = ~bad
+    n_ok = ok.sum(axis=(-2, -1))
+    means = np.where(ok, sig, 0.0).sum(axis=(-2, -1)) / n_ok
+    centred = np.where(ok, sig - means[..., None, None], 0.0)
+
+    # registration: every (height, bias) image against the first, then refined against the continuation
+    flat = centred.reshape(nh * nb, rows, cols)
+    okf = ok.reshape(nh * nb, rows, cols)
+    drift = np.zeros((nh * nb, 2))
+    if register:
+        for i in range(1, nh * nb):  # loop over images, vectorised inside
+            drift[i] = estimate_shift_px(flat[0], flat[i])
+    for round_ in range(n_refine + 1 if register else 1):
+        aligned = align_stack(flat, drift)
+        valid = align_stack(okf.astype(float), np.rint(drift)) > 0.5
+        hstack, hvalid = _per_height(aligned, valid, nh, nb)
+        border = int(np.ceil(np.abs(drift).max()))
+        stats_mask = np.zeros((rows, cols), bool)
+        stats_mask[border:rows - border, border:cols - border] = True
+        fit = dec.fit_continuation(hstack, heights_m=h, pixel_m=pixel_m, valid=hvalid, stats_mask=stats_mask)
+        if not register or round_ == n_refine:
+            break
+        # template for each image: the continuation predicted from the *other* heights (nearly noise-free)
+        pred = dec.leave_one_out_prediction(hstack, fit)
+        for i in range(1, nh * nb):
+            drift[i] = drift[i] + estimate_shift_px(pred[i // nb], np.where(valid[i], aligned[i], 0.0))
+
+    # independent noise estimate of one image (signal units)
+    tip = None
+    if repeat_phase_deg is not None:
+        tip = detect_tip_change(stack[0] if not grid else stack[0, 0], np.asarray(repeat_phase_deg, float))
+        ref_noise_deg = tip.noise_deg
+        ref_noise = ref_noise_deg / lin
+    else:
+        top = np.where(valid[-1], aligned[-1], 0.0)  # top height, last bias: least magnetic high-q content
+        ref_noise = white_noise_std(top)
+        ref_noise_deg = ref_noise * lin
+    fitted_ref = ref_noise / np.sqrt(nb)  # noise of a bias-averaged image
+    residual_ok = fit.noise_std <= residual_tolerance * fitted_ref
+
+    # image mean: electrostatic + short range
+    mean_sd = (fit.noise_std[:, None] * np.sqrt(nb)) / np.sqrt(n_ok)
+    if grid:
+        mf = dec.fit_mean_bias_grid(means, mean_sd, bias_v=volts)
+    else:
+        dc = lm.centre_gap_m(h, amplitude_m=amplitude_m, gap_offset_m=gap_offset_m)
+        e_shape = lm.amplitude_weighted(
+            lambda z: 0.5 * lm.tip_capacitance_second_derivative_f_per_m2(
+                z, radius_m=tip_radius_m, cone_half_angle_deg=cone_half_angle_deg, cone_height_m=cone_height_m),
+            dc, amplitude_m=amplitude_m)
+        s_shape = lm.amplitude_weighted(
+            lambda z: lm.vdw_sphere_gradient_n_per_m(z, hamaker_j=1.0, radius_m=tip_radius_m), dc,
+            amplitude_m=amplitude_m)
+        mf = dec.fit_mean_heights(means[:, 0], mean_sd[:, 0], electrostatic_shape=e_shape,
+                                  short_range_shape=s_shape, heights_m=h)
+    es_deg = to_deg(mf.electrostatic)
+    es_sd_deg = slope(mf.electrostatic) * mf.electrostatic_std
+    sr_deg = to_deg(mf.short_range)
+    sr_sd_deg = slope(mf.short_range) * mf.short_range_std
+
+    # magnetic outputs in degrees: rms of the arctan-mapped denoised map, debiased by the fit noise
+    mag_deg = to_deg(fit.model)
+    ms = np.mean(mag_deg**2, axis=(-2, -1)) - fit.noise_power * lin**2
+    mag_rms = np.sqrt(np.clip(ms, 0.0, None))
+    mag_rms_sd = fit.magnetic_rms_std * lin
+    resolution = dec.resolution_period_m(fit)
+    rec = recommend_lift(heights_m=h, magnetic_rms=mag_rms, magnetic_rms_std=mag_rms_sd, short_range=sr_deg,
+                         residual_ok=residual_ok, resolution_period_m=resolution,
+                         short_range_fraction=short_range_fraction, cpd_v=mf.cpd_v)
+    verdict = noise_verdict(ref_noise_deg, spring_constant_n_per_m=spring_constant_n_per_m,
+                            resonance_hz=resonance_hz, quality_factor=quality_factor, temperature_k=temperature_k,
+                            bandwidth_hz=bandwidth_hz, amplitude_m=amplitude_m)
+    params = {"reduced_chi2_mean": mf.reduced_chi2}
+    if not grid and exact:
+        params.update(effective_voltage_v=float(np.sqrt(max(mf.parameters[0], 0.0))),
+                      hamaker_j=float(mf.parameters[1]))
+    return SeriesAnalysis(
+        heights_m=h, pixel_m=float(pixel_m), bias_v=volts, magnetic_rms_deg=mag_rms, magnetic_rms_std_deg=mag_rms_sd,
+        electrostatic_mean_deg=es_deg, electrostatic_mean_std_deg=es_sd_deg, short_range_mean_deg=sr_deg,
+        short_range_mean_std_deg=sr_sd_deg, part_correlation=mf.correlation,
+        mean_phase_deg=to_deg(means if grid else means[:, 0]),
+        mean_phase_std_deg=(slope(means) * mean_sd) if grid else (slope(means) * mean_sd)[:, 0],
+        residual_rms_deg=fit.residual_rms * lin, expected_residual_rms_deg=fit.expected_residual_rms * lin,
+        noise_deg=fit.noise_std * lin, reference_noise_deg=float(ref_noise_deg), residual_at_noise=residual_ok,
+        drift_px=drift.reshape(nh, nb, 2) if grid else drift.reshape(nh, 2), cpd_v=mf.cpd_v, cpd_std_v=mf.cpd_std_v,
+        separable=mf.separable, separability_sentence=mf.sentence, resolution_period_m=resolution,
+        recommendation=rec, noise=verdict, tip_change=tip, magnetic_deg=mag_deg, residual_deg=fit.residual * lin,
+        nan_pixels=int(bad.sum()), signal_space="gradient" if exact else "phase", fitted_parameters=params)
