@@ -266,7 +266,8 @@ def _maximise_likelihood(f, psd, p0, with_c, *, max_iter=300):
 def fit_thermal_spectrum(frequencies_hz: np.ndarray, psd_v2_per_hz: np.ndarray, *, averages: float,
                          variance_inflation: float = 1.0, f0_guess_hz: float | None = None,
                          fit_range_hz: tuple[float, float] | None = None, background: str = "white+1/f",
-                         window_fwhm: float = 10.0, spectrum: WelchSpectrum | None = None) -> ThermalFit:
+                         window_fwhm: float = 10.0, nyquist_hz: float | None = None,
+                         spectrum: WelchSpectrum | None = None) -> ThermalFit:
     """Fit the first thermal peak of an averaged one-sided spectrum by maximum likelihood.
 
     Parameters
@@ -288,6 +289,9 @@ def fit_thermal_spectrum(frequencies_hz: np.ndarray, psd_v2_per_hz: np.ndarray, 
         Background terms fitted besides the oscillator.
     window_fwhm : float
         Half-width of the automatic fit window in full widths at half maximum.
+    nyquist_hz : float, optional
+        Nyquist frequency [Hz] for the check that the peak lies well below it; default from ``spectrum``,
+        no check without either.
     spectrum : WelchSpectrum, optional
         Kept in the result for plotting.
 
@@ -315,11 +319,12 @@ def fit_thermal_spectrum(frequencies_hz: np.ndarray, psd_v2_per_hz: np.ndarray, 
         raise ThermalFitError(f"averages = {averages!r} must be >= 1")
     with_c = background == "white+1/f"
     df = float(f[1] - f[0])
-    nyquist = float(f[-1])
+    if nyquist_hz is None and spectrum is not None:
+        nyquist_hz = spectrum.rate_hz / 2.0
     peak = _find_peak(f, p, averages=averages, f0_guess_hz=f0_guess_hz)
-    if peak.f0_hz > _MAX_F0_OVER_NYQUIST * nyquist:
+    if nyquist_hz is not None and peak.f0_hz > _MAX_F0_OVER_NYQUIST * nyquist_hz:
         raise ThermalFitError(
-            f"resonance near {peak.f0_hz:.6g} Hz is too close to the Nyquist frequency {nyquist:.6g} Hz "
+            f"resonance near {peak.f0_hz:.6g} Hz is too close to the Nyquist frequency {nyquist_hz:.6g} Hz "
             f"(limit {_MAX_F0_OVER_NYQUIST} of it): sample faster")
     f0, fwhm, q = peak.f0_hz, peak.fwhm_hz, peak.f0_hz / peak.fwhm_hz
     p0 = np.array([f0, q, max(peak.height_v2_per_hz - peak.background_v2_per_hz, 0) / q**2,
@@ -331,7 +336,7 @@ def fit_thermal_spectrum(frequencies_hz: np.ndarray, psd_v2_per_hz: np.ndarray, 
             lo, hi = fit_range_hz
         else:
             half = max(window_fwhm * fwhm, 20 * df)
-            lo, hi = max(f0 - half, 3 * df), min(f0 + half, nyquist - df)
+            lo, hi = max(f0 - half, 3 * df), min(f0 + half, f[-1] - df)
         sel = (f >= lo) & (f <= hi) & (f > 0)
         if np.count_nonzero(sel) < 3 * p0.size:
             raise ThermalFitError(
