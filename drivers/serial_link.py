@@ -1,0 +1,290 @@
+"""Client driver for a controller behind a byte stream: serial ports, pseudo-terminals, pyserial ``socket://``.
+
+URL forms: ``serial:///dev/ttyUSB0?baud=115200&timeout=2&retries=1`` and
+``socket://127.0.0.1:5025?timeout=2``. Each request is one line ``*CLS;<command>;SYSTem:ERRor?`` so that
+every command, query or not, gets exactly one reply, ending with its error status. Every read has a deadline
+and checks for a complete reply (``read_until`` alone returns silently on a timeout); after a timeout or a
+garbled reply the link is resynchronised with an echo token before it is used again. Only commands marked
+safe to repeat are retried.
+
+:class:`LinkController` here holds the part shared with the network driver: every Controller method as one
+command of ``drivers.wire.commands``.
+"""
+
+from __future__ import annotations
+
+import abc
+import itertools
+import time
+from collections.abc import Iterator, Sequence
+from urllib.parse import parse_qs, urlsplit, urlunsplit
+
+import numpy as np
+
+from drivers.base import Controller, ControllerInfo, LineData, LineSpec, Limits, Status, SweepData
+from drivers.errors import BadURL, LinkLost, LinkTimeout, ProtocolError
+from drivers.wire.commands import MAX_SWEEP_POINTS, Command, command, exception_for, line_args
+from drivers.wire.scpi import (
+    WireError, decode_answer, encode_params, format_command, format_line, parse_reply, reply_end,
+)
+
+
+class LinkController(Controller):
+    """A Controller whose every method is one command over some link; subclasses move the bytes."""
+
+    timeout_s: float = 2.0
+    #: Deflection samples asked for per request; links with little bandwidth lower it.
+    chunk_limit: int = 1 << 18
+
+    @abc.abstractmethod
+    def _transact(self, cmd: Command, args: tuple, timeout_s: float) -> tuple:
+        """Send one command, return its typed reply fields or raise the error the server reported."""
+
+    def _transfer_s(self, cmd: Command, args: tuple) -> float:
+        """Extra time the link itself needs for this command's data (none for fast links)."""
+        return 0.0
+
+    def _call(self, spelling: str, *args: object) -> object:
+        cmd = command(spelling)
+        limits = getattr(self, "limits", Limits())
+        extra = cmd.expected_s(args, limits) if cmd.expected_s is not None else 0.0
+        fields = self._transact(cmd, args, self.timeout_s + extra + self._transfer_s(cmd, args))
+        return cmd.unpack(args, fields) if cmd.unpack is not None else None
+
+    def _identify(self) -> None:
+        self.info = self._call("*IDN?")  # type: ignore[assignment]
+        self.capabilities = self._call("SYSTem:CAPabilities?")  # type: ignore[assignment]
+        self.limits = self._call("SYSTem:LIMits?")  # type: ignore[assignment]
+
+    # ---- the Controller interface -----------------------------------------------------------------------
+    def read(self, channels: Sequence[str]) -> dict[str, float]:
+        return self._call("MEASure:READ?", tuple(channels))  # type: ignore[return-value]
+
+    def record_deflection(self, samples: int, rate_hz: float, *, chunk: int = 1 << 18) -> Iterator[np.ndarray]:
+        chunk = max(1, min(int(chunk), self.chunk_limit))
+        self._call("ACQuire:DEFLection:STARt", int(samples), float(rate_hz), chunk)
+        got = 0
+        cmd = command("ACQuire:DEFLection:NEXT?")
+        while got < samples:
+            wait = self.timeout_s + chunk / rate_hz + self._transfer_s(cmd, (chunk,))
+            part = cmd.unpack((), self._transact(cmd, (), wait))  # type: ignore[misc]
+            if not len(part):
+                return
+            got += len(part)
+            yield part
+
+    def set_drive(self, frequency_hz: float, amplitude_v: float) -> None:
+        self._call("DRIVe:SET", float(frequency_hz), float(amplitude_v))
+
+    def drive_off(self) -> None:
+        self._call("DRIVe:OFF")
+
+    def set_lockin_time_constant(self, seconds: float) -> None:
+        self._call("DRIVe:LOCKin:TCONstant", float(seconds))
+
+    def sweep(self, frequencies_hz: np.ndarray, amplitude_v: float, *, settle_s: float | None = None) -> SweepData:
+        f = np.asarray(frequencies_hz, float).ravel()
+        parts = [self._call("DRIVe:SWEep?", float(amplitude_v), None if settle_s is None else float(settle_s),
+                            tuple(float(x) for x in f[i:i + MAX_SWEEP_POINTS]))
+                 for i in range(0, max(len(f), 1), MAX_SWEEP_POINTS)]
+        return SweepData(*(np.concatenate([getattr(p, k) for p in parts])  # type: ignore[arg-type]
+                           for k in ("frequency_hz", "amplitude_v", "phase_deg")))
+
+    def move_z(self, z_m: float) -> None:
+        self._call("MOTion:Z", float(z_m))
+
+    def step_coarse(self, steps: int) -> None:
+        self._call("MOTion:COARse", int(steps))
+
+    def move_xy(self, x_m: float, y_m: float) -> None:
+        self._call("MOTion:XY", float(x_m), float(y_m))
+
+    def withdraw(self) -> None:
+        self._call("MOTion:WITHdraw")
+
+    def set_feedback(self, enabled: bool, *, setpoint_v: float | None = None,
+                     p_gain: float | None = None, i_gain: float | None = None) -> None:
+        opt = lambda v: None if v is None else float(v)  # noqa: E731
+        self._call("FEEDback:SET", bool(enabled), opt(setpoint_v), opt(p_gain), opt(i_gain))
+
+    def scan_line(self, spec: LineSpec) -> LineData:
+        return self._call("SCAN:LINE?", *line_args(spec))  # type: ignore[return-value]
+
+    def force_curve(self, z_stop_m: float, points: int):
+        return self._call("FORCe:CURVe?", float(z_stop_m), int(points))
+
+    def set_bias(self, bias_v: float) -> None:
+        self._call("BIAS:VOLTage", float(bias_v))
+
+    def status(self) -> Status:
+        return self._call("STATus?")  # type: ignore[return-value]
+
+    def probe_hint(self) -> dict[str, float] | None:
+        return self._call("SYSTem:PROBe?")  # type: ignore[return-value]
+
+    def make_safe(self) -> None:
+        """Withdraw, drive off, bias zero in one command; the server attempts each step even if one fails."""
+        self._call("SYSTem:SAFE")
+
+
+def _options(query: str, allowed: dict[str, type]) -> dict[str, object]:
+    out: dict[str, object] = {}
+    for key, values in parse_qs(query, keep_blank_values=True).items():
+        if key not in allowed:
+            raise BadURL(f"unknown controller URL option {key!r} (allowed: {', '.join(allowed)})")
+        try:
+            out[key] = allowed[key](values[-1])
+        except ValueError:
+            raise BadURL(f"controller URL option {key}={values[-1]!r} is not a {allowed[key].__name__}") from None
+    if "timeout" in out and not 0 < out["timeout"] <= 3600:  # type: ignore[operator]
+        raise BadURL(f"timeout={out['timeout']} s is outside (0, 3600] s")
+    if "retries" in out and not 0 <= out["retries"] <= 10:  # type: ignore[operator]
+        raise BadURL(f"retries={out['retries']} is outside [0, 10]")
+    return out
+
+
+class SerialController(LinkController):
+    """A controller at the far end of a serial line (or anything pyserial opens), speaking our SCPI tree."""
+
+    schemes = ("serial", "socket")
+
+    def __init__(self, port: str, *, baud: int = 115200, timeout_s: float = 2.0, retries: int = 1) -> None:
+        import serial
+
+        self.timeout_s, self.retries, self.baud = timeout_s, retries, baud
+        self.chunk_limit = 4096  # 16 kB per request: about 1.4 s at 115200 baud
+        self._tokens = itertools.count(1)
+        self._pending = bytearray()
+        try:
+            self._port = serial.serial_for_url(port, baudrate=baud, timeout=0.05, write_timeout=timeout_s)
+        except (serial.SerialException, OSError, ValueError) as exc:
+            raise LinkLost(f"cannot open serial port {port}: {exc}") from None
+        self.port_name = port
+        try:
+            self._resync(required=True)
+            self._identify()
+        except Exception:
+            self._port.close()
+            raise
+
+    @classmethod
+    def from_url(cls, url: str, **options: object) -> "SerialController":
+        parts = urlsplit(url)
+        opts = _options(parts.query, {"baud": int, "timeout": float, "retries": int})
+        if parts.scheme == "serial":
+            if not parts.path:
+                raise BadURL(f"serial URL {url!r} names no device (serial:///dev/ttyUSB0)")
+            port = parts.path
+        else:
+            port = urlunsplit((parts.scheme, parts.netloc, parts.path, "", ""))
+        return cls(port, baud=int(opts.get("baud", 115200)), timeout_s=float(opts.get("timeout", 2.0)),
+                   retries=int(opts.get("retries", 1)), **options)  # type: ignore[arg-type]
+
+    def close(self) -> None:
+        self._port.close()
+
+    # ---- bytes ---------------------------------------------------------------------------------------
+    def _transfer_s(self, cmd: Command, args: tuple) -> float:
+        # Worst-case bytes each way at 10 bit times per byte (start, 8 data, stop).
+        n = 4 * self.chunk_limit if cmd.header == "ACQuire:DEFLection:NEXT" else 0
+        if cmd.header == "SCAN:LINE":
+            n = 8 * args[3] * (2 + len(args[5]))
+        elif cmd.header == "DRIVe:SWEep":
+            n = 49 * len(args[2])  # 24 bytes back, up to 25 characters out, per point
+        elif cmd.header == "FORCe:CURVe":
+            n = 32 * args[1]
+        return 10.0 * n / self.baud
+
+    def _write(self, data: bytes) -> None:
+        import serial
+
+        try:
+            self._port.write(data)
+            self._port.flush()
+        except (serial.SerialException, OSError) as exc:
+            raise LinkLost(f"write to {self.port_name} failed: {exc}") from None
+
+    def _read_some(self, timeout_s: float) -> bytes:
+        import serial
+
+        try:
+            self._port.timeout = max(0.001, min(timeout_s, 0.05))
+            waiting = self._port.in_waiting
+            return self._port.read(waiting or 1)
+        except (serial.SerialException, OSError) as exc:
+            raise LinkLost(f"read from {self.port_name} failed: {exc}") from None
+
+    def _read_reply(self, timeout_s: float, what: str) -> bytes:
+        deadline = time.monotonic() + timeout_s
+        buf = self._pending
+        while True:
+            end = reply_end(bytes(buf))
+            if end is not None:
+                message = bytes(buf[:end])
+                self._pending = bytearray(buf[end:])
+                return message
+            left = deadline - time.monotonic()
+            if left <= 0:
+                self._pending = bytearray()
+                raise LinkTimeout(f"no complete reply to {what} from {self.port_name} within {timeout_s:.2f} s")
+            buf += self._read_some(left)
+
+    def _resync(self, *, required: bool = False) -> None:
+        """Throw away whatever is in flight and make sure the next reply belongs to the next request."""
+        token = f"sync{next(self._tokens)}"
+        self._pending = bytearray()
+        try:
+            self._port.reset_input_buffer()
+        except Exception:
+            pass
+        self._write(b"\n" + format_line([b"*CLS", format_command("SYSTem:ECHO?", (f'"{token}"',))]))
+        marker = f'"{token}"\n'.encode()
+        deadline = time.monotonic() + self.timeout_s
+        seen = bytearray()
+        while time.monotonic() < deadline:
+            seen += self._read_some(deadline - time.monotonic())
+            at = seen.find(marker)
+            if at >= 0:
+                self._pending = bytearray(seen[at + len(marker):])
+                self._dirty = False
+                return
+        self._dirty = True
+        if required:
+            raise LinkTimeout(f"no answer from {self.port_name} within {self.timeout_s:.2f} s "
+                              f"(is a controller server at the other end?)")
+
+    _dirty = False
+
+    def _transact(self, cmd: Command, args: tuple, timeout_s: float) -> tuple:
+        kinds = tuple(p.kind for p in cmd.params)
+        line = format_line([b"*CLS", format_command(cmd.spelling, encode_params(kinds, args)), b"SYST:ERR?"])
+        attempts = 1 + (self.retries if cmd.safe_to_repeat else 0)
+        last: Exception | None = None
+        for _ in range(attempts):
+            if self._dirty:
+                self._resync()
+                if self._dirty:
+                    last = LinkTimeout(f"{self.port_name} does not answer (resynchronisation failed)")
+                    continue
+            self._write(line)
+            try:
+                answers = parse_reply(self._read_reply(timeout_s, cmd.spelling))
+                if not answers:
+                    raise WireError(-102, "empty reply")
+                code, message = decode_answer(("int", "str"), answers[-1])
+            except (LinkTimeout, ProtocolError) as exc:
+                last = exc
+                self._dirty = True
+                continue
+            if code != 0:
+                raise exception_for(code, message)  # type: ignore[arg-type]
+            if len(answers) != (2 if cmd.query else 1):
+                raise ProtocolError(f"{cmd.spelling}: expected {2 if cmd.query else 1} answers, "
+                                    f"got {len(answers)}")
+            try:
+                return decode_answer(cmd.reply, answers[0]) if cmd.query else ()
+            except WireError as exc:
+                last = exc
+                self._dirty = True
+        assert last is not None
+        raise last

@@ -1,0 +1,445 @@
+"""Our command set: every Controller method as a command of an SCPI-style tree, with typed arguments and
+replies, hard-limit checks, and whether a command is safe to repeat after a lost reply.
+
+Both codecs (``scpi`` for byte streams, ``messages`` for the network) carry these commands; the client
+drivers build them and the server runs them. Argument tuples hold one value per :class:`Param`; a trailing
+"rest" parameter (kind ending in ``*``) holds a tuple of the remaining values.
+
+Kinds: ``float``, ``int``, ``bool``, ``opt_float`` (None = keep the present value; ``DEF`` on the line),
+``name`` (a channel or capability name), ``str`` (quoted), ``text`` (an unquoted ``*IDN?`` field),
+``floats*``, ``names*``, ``strs*``, and in replies ``f64[]`` / ``f32[]`` arrays.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import re
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from drivers.base import (
+    Capability, Controller, ControllerInfo, ForceCurve, LineData, LineSpec, Limits, PassData, SecondPass,
+    Status, SweepData,
+)
+from drivers.errors import LimitExceeded
+from drivers.wire.scpi import WireError
+
+Bounds = Callable[[Limits], tuple[float | None, float | None]]
+
+#: Sanity bounds the instrument's Limits do not cover (protocol bounds, common practice, no source).
+MAX_PIXELS = 65536
+MAX_PASSES = 64
+MAX_LINE_RATE_HZ = 1000.0
+MAX_TIME_CONSTANT_S = 100.0
+MAX_SETTLE_S = 60.0
+MAX_COARSE_STEPS = 100_000
+MAX_SAMPLES = 1 << 34
+MAX_CHUNK = 1 << 20
+MAX_SWEEP_POINTS = 2048  # per request; the client drivers split longer sweeps
+MAX_LIST = 4096  # values in any list argument
+
+
+@dataclass(frozen=True)
+class Param:
+    name: str
+    kind: str
+    bounds: Bounds | None = None  # inclusive (low, high); None on a side = unbounded
+    unit: str = ""
+
+
+@dataclass(frozen=True)
+class Command:
+    """One command of the tree. ``method`` None means the server answers it itself (error queue, echo)."""
+
+    header: str  # canonical spelling: upper-case letters form the short mnemonic
+    query: bool
+    params: tuple[Param, ...]
+    reply: tuple[str, ...]
+    safe_to_repeat: bool  # a repeat after a lost reply leaves the instrument as one run would
+    method: str | None = None
+    capability: Capability | None = None
+    invoke: Callable[[Controller, tuple], tuple] | None = None  # server side: run, return reply fields
+    unpack: Callable[[tuple, tuple], Any] | None = None  # client side: (args, fields) -> return value
+    check: Callable[[Limits, tuple], None] | None = None  # extra limit checks beyond Param.bounds
+    expected_s: Callable[[tuple, Limits], float] | None = None  # how long the instrument may need
+
+    @property
+    def spelling(self) -> str:
+        """The full spelling as sent on the line, ``?`` included for queries."""
+        return self.header + ("?" if self.query else "")
+
+
+def _range(lo: Callable[[Limits], float | None], hi: Callable[[Limits], float | None]) -> Bounds:
+    return lambda lim: (lo(lim), hi(lim))
+
+
+_Z = _range(lambda l: 0.0, lambda l: l.z_range_m)
+_BIAS = _range(lambda l: -l.bias_max_v, lambda l: l.bias_max_v)
+_XY = _range(lambda l: -l.scan_size_max_m, lambda l: l.scan_size_max_m)
+_FREQ = _range(lambda l: 0.0, lambda l: l.frequency_max_hz)
+
+
+def _fixed(lo: float | None, hi: float | None) -> Bounds:
+    return lambda lim: (lo, hi)
+
+
+def _none(c: Controller, a: tuple) -> tuple:
+    return ()
+
+
+def _check_passes(lim: Limits, args: tuple) -> None:
+    flat = args[-1]
+    if len(flat) % 2:
+        raise WireError(-109, "second passes come as lift height, bias pairs; one value is missing")
+    if len(flat) // 2 > MAX_PASSES:
+        raise LimitExceeded("second passes", len(flat) // 2, 0, MAX_PASSES, "")
+    for lift, bias in zip(flat[0::2], flat[1::2]):
+        _within("lift_height_m", lift, 0.0, lim.z_range_m, "m")
+        _within("bias_v", bias, -lim.bias_max_v, lim.bias_max_v, "V")
+
+
+def _check_sweep(lim: Limits, args: tuple) -> None:
+    freqs = args[-1]
+    if not 1 <= len(freqs) <= MAX_SWEEP_POINTS:
+        raise LimitExceeded("sweep points", len(freqs), 1, MAX_SWEEP_POINTS, "")
+    for f in freqs:
+        _within("frequency_hz", f, 0.0, lim.frequency_max_hz, "Hz")
+
+
+def _line_spec(args: tuple) -> LineSpec:
+    y, x0, length, pixels, rate, flat = args
+    passes = tuple(SecondPass(float(h), float(b)) for h, b in zip(flat[0::2], flat[1::2]))
+    return LineSpec(y_m=y, x_start_m=x0, length_m=length, pixels=pixels, line_rate_hz=rate, passes=passes)
+
+
+def line_args(spec: LineSpec) -> tuple:
+    flat = tuple(v for p in spec.passes for v in (float(p.lift_height_m), float(p.bias_v)))
+    return (float(spec.y_m), float(spec.x_start_m), float(spec.length_m), int(spec.pixels),
+            float(spec.line_rate_hz), flat)
+
+
+def _scan_invoke(c: Controller, args: tuple) -> tuple:
+    data = c.scan_line(_line_spec(args))
+    n = len(data.passes)
+    if n != len(args[-1]) // 2:
+        raise WireError(-200, f"controller returned {n} second passes, {len(args[-1]) // 2} were asked for")
+    cat = (lambda key: np.concatenate([np.asarray(getattr(p, key), float) for p in data.passes])
+           if n else np.zeros(0))
+    has_df = n > 0 and all(p.frequency_shift_hz is not None for p in data.passes)
+    return (np.asarray(data.topography_m, float), np.asarray(data.amplitude_error_v, float),
+            cat("phase_deg"), cat("amplitude_v"), cat("frequency_shift_hz") if has_df else np.zeros(0))
+
+
+def _scan_unpack(args: tuple, fields: tuple) -> LineData:
+    spec = _line_spec(args)
+    topo, err, phase, amp, df = fields
+    n, px = len(spec.passes), len(topo)
+    if len(err) != px or len(phase) != n * px or len(amp) != n * px or len(df) not in (0, n * px):
+        raise WireError(-104, f"scan line reply sizes do not match {n} passes of {px} pixels")
+    passes = []
+    for k, p in enumerate(spec.passes):
+        sl = slice(k * px, (k + 1) * px)
+        passes.append(PassData(p.lift_height_m, p.bias_v, phase[sl].copy(), amp[sl].copy(),
+                               df[sl].copy() if len(df) else None))
+    return LineData(topography_m=topo, amplitude_error_v=err, passes=passes)
+
+
+def _status_invoke(c: Controller, args: tuple) -> tuple:
+    s = c.status()
+    return (bool(s.engaged), float(s.z_m), float(s.coarse_position_m), float(s.bias_v), bool(s.drive_on),
+            float(s.drive_frequency_hz), float(s.drive_amplitude_v), bool(s.feedback_on),
+            tuple(_printable(f) for f in s.faults))
+
+
+def _printable(text: str) -> str:
+    return "".join(ch if 32 <= ord(ch) < 127 else "?" for ch in str(text))[:200]
+
+
+def _status_unpack(args: tuple, f: tuple) -> Status:
+    return Status(engaged=f[0], z_m=f[1], coarse_position_m=f[2], bias_v=f[3], drive_on=f[4],
+                  drive_frequency_hz=f[5], drive_amplitude_v=f[6], feedback_on=f[7], faults=tuple(f[8]))
+
+
+_IDN_SAFE = re.compile(r"[,;\"\n\r]")
+
+
+def _idn_invoke(c: Controller, args: tuple) -> tuple:
+    i = c.info
+    return tuple(_IDN_SAFE.sub("_", _printable(v)).strip() or "0" for v in (i.maker, i.model, i.serial, i.firmware))
+
+
+_LIMIT_FIELDS = tuple(f.name for f in dataclasses.fields(Limits))  # both ends run the same table
+_HINT_FIELDS = ("length_m", "width_m", "resonance_hz", "spring_constant_n_per_m")
+
+
+def _hint_invoke(c: Controller, args: tuple) -> tuple:
+    hint = c.probe_hint() or {}
+    return tuple(None if hint.get(k) is None else float(hint[k]) for k in _HINT_FIELDS)
+
+
+def _hint_unpack(args: tuple, f: tuple) -> dict[str, float] | None:
+    hint = {k: v for k, v in zip(_HINT_FIELDS, f) if v is not None}
+    return hint or None
+
+
+def _read_invoke(c: Controller, args: tuple) -> tuple:
+    values = c.read(list(args[0]))
+    return (tuple(float(values[n]) for n in args[0]),)
+
+
+_P = Param
+COMMANDS: tuple[Command, ...] = (
+    # IEEE 488.2 common commands
+    Command("*IDN", True, (), ("text",) * 4, True, "info", invoke=_idn_invoke,
+            unpack=lambda a, f: ControllerInfo(*f)),
+    Command("*RST", False, (), (), True, "make_safe", invoke=lambda c, a: (c.make_safe(), ())[1]),
+    Command("*CLS", False, (), (), True),
+    Command("*OPC", True, (), ("int",), True, unpack=lambda a, f: f[0]),
+    # answered by the server itself
+    Command("SYSTem:ERRor", True, (), ("int", "str"), False, unpack=lambda a, f: f),
+    Command("SYSTem:ECHO", True, (_P("token", "str"),), ("str",), True, unpack=lambda a, f: f[0]),
+    # identity and limits
+    Command("SYSTem:CAPabilities", True, (), ("names*",), True, "capabilities",
+            invoke=lambda c, a: (tuple(sorted(x.value for x in c.capabilities)),),
+            unpack=lambda a, f: frozenset(Capability(x) for x in f[0] if x in Capability._value2member_map_)),
+    Command("SYSTem:LIMits", True, (), ("float",) * len(_LIMIT_FIELDS), True, "limits",
+            invoke=lambda c, a: tuple(float(getattr(c.limits, k)) for k in _LIMIT_FIELDS),
+            unpack=lambda a, f: Limits(**dict(zip(_LIMIT_FIELDS, f)))),
+    Command("SYSTem:PROBe", True, (), ("opt_float",) * len(_HINT_FIELDS), True, "probe_hint",
+            invoke=_hint_invoke, unpack=_hint_unpack),
+    Command("SYSTem:SAFE", False, (), (), True, "make_safe", invoke=lambda c, a: (c.make_safe(), ())[1]),
+    # signals
+    Command("MEASure:READ", True, (_P("channels", "names*"),), ("floats*",), True, "read",
+            invoke=_read_invoke, unpack=lambda a, f: dict(zip(a[0], f[0]))),
+    Command("ACQuire:DEFLection:STARt", False,
+            (_P("samples", "int", _fixed(1, MAX_SAMPLES)),
+             _P("rate_hz", "float", _range(lambda l: 0.0, lambda l: l.sample_rate_max_hz), "Hz"),
+             _P("chunk", "int", _fixed(1, MAX_CHUNK))),
+            (), False, "record_deflection", Capability.THERMAL_RECORD),
+    Command("ACQuire:DEFLection:NEXT", True, (), ("f32[]",), False, "record_deflection",
+            Capability.THERMAL_RECORD, unpack=lambda a, f: f[0].astype(np.float32),
+            expected_s=lambda a, l: 0.0),
+    # drive and lock-in
+    Command("DRIVe:SET", False, (_P("frequency_hz", "float", _FREQ, "Hz"),
+                                 _P("amplitude_v", "float", _range(lambda l: 0.0, lambda l: l.drive_max_v), "V")),
+            (), True, "set_drive", invoke=lambda c, a: (c.set_drive(a[0], a[1]), ())[1]),
+    Command("DRIVe:OFF", False, (), (), True, "drive_off", invoke=lambda c, a: (c.drive_off(), ())[1]),
+    Command("DRIVe:LOCKin:TCONstant", False, (_P("seconds", "float", _fixed(1e-9, MAX_TIME_CONSTANT_S), "s"),),
+            (), True, "set_lockin_time_constant",
+            invoke=lambda c, a: (c.set_lockin_time_constant(a[0]), ())[1]),
+    Command("DRIVe:SWEep", True,
+            (_P("amplitude_v", "float", _range(lambda l: 0.0, lambda l: l.drive_max_v), "V"),
+             _P("settle_s", "opt_float", _fixed(0.0, MAX_SETTLE_S), "s"), _P("frequencies_hz", "floats*")),
+            ("f64[]", "f64[]", "f64[]"), True, "sweep", Capability.DRIVE_SWEEP,
+            invoke=lambda c, a: _sweep_invoke(c, a), unpack=lambda a, f: SweepData(*f), check=_check_sweep,
+            expected_s=lambda a, l: len(a[2]) * (a[1] if a[1] is not None else 0.05)),
+    # motion
+    Command("MOTion:Z", False, (_P("z_m", "float", _Z, "m"),), (), True, "move_z",
+            invoke=lambda c, a: (c.move_z(a[0]), ())[1], expected_s=lambda a, l: l.z_range_m / l.z_speed_max_m_per_s),
+    Command("MOTion:COARse", False, (_P("steps", "int", _fixed(-MAX_COARSE_STEPS, MAX_COARSE_STEPS)),), (),
+            False, "step_coarse", Capability.COARSE_MOTOR, invoke=lambda c, a: (c.step_coarse(a[0]), ())[1],
+            expected_s=lambda a, l: abs(a[0]) * 1e-3),
+    Command("MOTion:XY", False, (_P("x_m", "float", _XY, "m"), _P("y_m", "float", _XY, "m")), (), True,
+            "move_xy", invoke=lambda c, a: (c.move_xy(a[0], a[1]), ())[1]),
+    Command("MOTion:WITHdraw", False, (), (), True, "withdraw", invoke=lambda c, a: (c.withdraw(), ())[1],
+            expected_s=lambda a, l: l.z_range_m / l.z_speed_max_m_per_s),
+    # feedback
+    Command("FEEDback:SET", False, (_P("enabled", "bool"), _P("setpoint_v", "opt_float"),
+                                    _P("p_gain", "opt_float", _fixed(0.0, None)),
+                                    _P("i_gain", "opt_float", _fixed(0.0, None))),
+            (), True, "set_feedback",
+            invoke=lambda c, a: (c.set_feedback(a[0], setpoint_v=a[1], p_gain=a[2], i_gain=a[3]), ())[1]),
+    # imaging
+    Command("SCAN:LINE", True,
+            (_P("y_m", "float", _XY, "m"), _P("x_start_m", "float", _XY, "m"),
+             _P("length_m", "float", _range(lambda l: 0.0, lambda l: l.scan_size_max_m), "m"),
+             _P("pixels", "int", _fixed(1, MAX_PIXELS)),
+             _P("line_rate_hz", "float", _fixed(1e-6, MAX_LINE_RATE_HZ), "Hz"), _P("passes", "floats*")),
+            ("f64[]", "f32[]", "f32[]", "f32[]", "f32[]"), False, "scan_line", Capability.TWO_PASS_LINE,
+            invoke=_scan_invoke, unpack=_scan_unpack, check=_check_passes,
+            expected_s=lambda a, l: 2.0 * (1 + len(a[5]) // 2) / a[4]),
+    Command("FORCe:CURVe", True, (_P("z_stop_m", "float", _Z, "m"), _P("points", "int", _fixed(2, MAX_PIXELS))),
+            ("f64[]",) * 4, False, "force_curve", Capability.FORCE_CURVE,
+            invoke=lambda c, a: _force_invoke(c, a), unpack=lambda a, f: ForceCurve(*f),
+            expected_s=lambda a, l: 2.0 * l.z_range_m / l.z_speed_max_m_per_s),
+    # bias, state
+    Command("BIAS:VOLTage", False, (_P("bias_v", "float", _BIAS, "V"),), (), True, "set_bias",
+            invoke=lambda c, a: (c.set_bias(a[0]), ())[1]),
+    Command("STATus", True, (), ("bool", "float", "float", "float", "bool", "float", "float", "bool", "strs*"),
+            True, "status", invoke=_status_invoke, unpack=_status_unpack),
+)
+
+
+def _sweep_invoke(c: Controller, a: tuple) -> tuple:
+    data = c.sweep(np.asarray(a[2], float), a[0], settle_s=a[1])
+    return (np.asarray(data.frequency_hz, float), np.asarray(data.amplitude_v, float),
+            np.asarray(data.phase_deg, float))
+
+
+def _force_invoke(c: Controller, a: tuple) -> tuple:
+    fc = c.force_curve(a[0], a[1])
+    return tuple(np.asarray(getattr(fc, k), float) for k in ("z_m", "deflection_v", "retract_z_m",
+                                                              "retract_deflection_v"))
+
+
+def _spellings(header: str) -> list[str]:
+    if header.startswith("*"):
+        return [header.upper()]
+    forms: list[list[str]] = []
+    for node in header.split(":"):
+        short = "".join(ch for ch in node if not ch.islower())
+        forms.append(sorted({short.upper(), node.upper()}))
+    out = [""]
+    for options in forms:
+        out = [f"{p}:{o}" if p else o for p in out for o in options]
+    return out
+
+
+_BY_SPELLING: dict[tuple[str, bool], Command] = {
+    (s, cmd.query): cmd for cmd in COMMANDS for s in _spellings(cmd.header)
+}
+BY_HEADER: dict[str, Command] = {cmd.spelling: cmd for cmd in COMMANDS}
+
+
+def resolve(header: str, query: bool) -> Command:
+    """The command a header names (short or long form, any case); -113 for anything else."""
+    cmd = _BY_SPELLING.get((header.upper(), query))
+    if cmd is None:
+        known = _BY_SPELLING.get((header.upper(), not query))
+        if known is not None:
+            form = "a query" if known.query else "not a query"
+            raise WireError(-113, f"{header} is {form}")
+        raise WireError(-113, f"unknown header {header[:40]!r}")
+    return cmd
+
+
+def command(spelling: str) -> Command:
+    """Look a command up by its canonical spelling, e.g. ``"MOTion:Z"`` or ``"STATus?"``."""
+    return BY_HEADER[spelling]
+
+
+# ---- argument checks (both codecs deliver Python values; these are the server's gate) --------------------
+
+_NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]{0,63}$")
+
+
+def check_types(cmd: Command, args: tuple) -> tuple:
+    """Validate decoded argument values against the command's kinds; returns them normalised.
+
+    Raises :class:`WireError`: -109 missing, -108 too many, -104 wrong type.
+    """
+    if not isinstance(args, tuple):
+        raise WireError(-104, "arguments must be a sequence")
+    if len(args) < len(cmd.params):
+        raise WireError(-109, f"{cmd.spelling} needs {', '.join(p.name for p in cmd.params)}")
+    if len(args) > len(cmd.params):
+        raise WireError(-108, f"{cmd.spelling} takes {len(cmd.params)} parameters, got {len(args)}")
+    return tuple(check_value(p.kind, v, p.name) for p, v in zip(cmd.params, args))
+
+
+def check_value(kind: str, v: Any, name: str) -> Any:
+    if kind.endswith("*"):
+        if not isinstance(v, (tuple, list)):
+            raise WireError(-104, f"{name} must be a list")
+        if len(v) > MAX_LIST:
+            raise WireError(-223, f"{name} has {len(v)} values, more than {MAX_LIST}")
+        return tuple(check_value(kind[:-2], x, name) for x in v)
+    if kind == "float":
+        if isinstance(v, bool) or not isinstance(v, (int, float)):
+            raise WireError(-104, f"{name} must be a number")
+        return float(v)
+    if kind == "opt_float":
+        return None if v is None else check_value("float", v, name)
+    if kind == "int":
+        if isinstance(v, bool) or not isinstance(v, int):
+            raise WireError(-104, f"{name} must be an integer")
+        return int(v)
+    if kind == "bool":
+        if not isinstance(v, bool):
+            raise WireError(-104, f"{name} must be a boolean")
+        return v
+    if kind == "name":
+        if not isinstance(v, str) or not _NAME.match(v):
+            raise WireError(-104, f"{name} must be a name of letters, digits and _")
+        return v
+    if kind in ("str", "text"):
+        if not isinstance(v, str) or len(v) > 1024 or any(not 32 <= ord(c) < 127 for c in v):
+            raise WireError(-104, f"{name} must be printable ASCII text of at most 1024 characters")
+        return v
+    raise WireError(-104, f"{name}: unknown kind {kind}")
+
+
+def check_limits(cmd: Command, args: tuple, limits: Limits) -> None:
+    """Refuse anything outside the hard limits (NaN and infinities included): raises LimitExceeded."""
+    for p, v in zip(cmd.params, args):
+        if p.bounds is not None and v is not None:
+            low, high = p.bounds(limits)
+            _within(p.name, v, low, high, p.unit)
+        elif p.kind in ("float", "opt_float") and v is not None and not math.isfinite(v):
+            raise LimitExceeded(p.name, v, None, None, p.unit)
+    if cmd.check is not None:
+        cmd.check(limits, args)
+
+
+def _within(name: str, v: float, low: float | None, high: float | None, unit: str) -> None:
+    ok = math.isfinite(v) and (low is None or v >= low) and (high is None or v <= high)
+    if not ok:
+        raise LimitExceeded(name, v, low, high, unit)
+
+
+# ---- errors across the wire -----------------------------------------------------------------------------
+
+_LIMIT_TEXT = re.compile(r"^(.+?) = (\S+) (\S*) ?is outside the allowed range \[(\S+), (\S+)\] ?(\S*)$")
+
+
+def error_for(exc: BaseException) -> tuple[int, str]:
+    """The SCPI code and message that report ``exc`` to a client. Never includes anything but the error."""
+    from drivers import errors as e
+
+    if isinstance(exc, WireError):
+        return exc.code, str(exc)
+    if isinstance(exc, e.LimitExceeded):
+        return -222, f"Data out of range;{exc}"
+    if isinstance(exc, e.CapabilityMissing):
+        return -241, f"Hardware missing;{exc}"
+    if isinstance(exc, e.LaserLost):
+        return -231, f"Data questionable;{exc}"
+    if isinstance(exc, e.ControllerFault):
+        code = exc.code if isinstance(exc.code, int) and exc.code != 0 and -999 <= exc.code <= 32767 else -300
+        return code, f"Device-specific error;{exc}"
+    if isinstance(exc, (e.LinkTimeout, e.LinkLost)):
+        return -240, f"Hardware error;{type(exc).__name__}: {exc}"
+    if isinstance(exc, e.ControllerError):
+        return -200, f"Execution error;{type(exc).__name__}: {exc}"
+    if isinstance(exc, (ValueError, TypeError)):
+        return -224, f"Illegal parameter value;{type(exc).__name__}: {str(exc)[:200]}"
+    return -200, f"Execution error;{type(exc).__name__}: {str(exc)[:200]}"
+
+
+def exception_for(code: int, message: str) -> Exception:
+    """The client-side exception for an error reported by the server (inverse of :func:`error_for`)."""
+    from drivers import errors as e
+
+    _, _, info = message.partition(";")
+    info = info or message
+    if code == -222:
+        m = _LIMIT_TEXT.match(info)
+        if m:
+            q, v, unit, lo, hi, _ = m.groups()
+            to_f = lambda t: None if t in ("-inf", "inf") else float(t)  # noqa: E731
+            try:
+                return e.LimitExceeded(q, float(v), to_f(lo), to_f(hi), unit)
+            except ValueError:
+                pass
+        return e.ControllerFault(code, info)
+    if code == -241:
+        return e.CapabilityMissing(info)
+    if code == -231:
+        return e.LaserLost(code, info)
+    if -199 <= code <= -100:
+        return WireError(code, info)
+    return e.ControllerFault(code, info)
