@@ -1,0 +1,120 @@
+"""Session report: figures written, every stored number in summary.md with unit and uncertainty."""
+
+from __future__ import annotations
+
+import json
+import sys
+import types
+
+import numpy as np
+import pytest
+
+from assistant.report.summary import build_report, format_value
+from assistant.storage import SessionFile
+
+PNG = b"\x89PNG\r\n\x1a\n"
+CAL = {"k_n_per_m": 2.8012, "k_std_n_per_m": 0.0834, "f0_hz": 75012.31, "f0_std_hz": 2.13, "q": 201.3,
+       "q_std": 4.2, "invols_nm_per_v": 54.31, "invols_std_nm_per_v": 1.17, "temperature_k": 295.15,
+       "k_source": "thermal"}
+
+
+@pytest.mark.parametrize("value, std, text", [
+    (2.8012, 0.0834, "2.801 ± 0.083"), (75012.31, 2.13, "75012.3 ± 2.1"), (201.3, 4.2, "201.3 ± 4.2"),
+    (1234.5, 560.0, "1230 ± 560"), (3.0e-9, 1.04e-10, "(3.00 ± 0.10)e-9"), (0.31, 0.02, "0.310 ± 0.020"),
+    (295.15, None, "295.15"), (1.0, float("nan"), "1"), (-0.4, 0.0, "-0.4"),
+])
+def test_format_value(value, std, text):
+    assert format_value(value, std) == text
+
+
+@pytest.fixture
+def no_colleague_modules(monkeypatch):
+    # whether or not colleagues' figure modules are installed, these tests see them absent
+    monkeypatch.setitem(sys.modules, "assistant.report.calibration_figures", None)
+    monkeypatch.setitem(sys.modules, "assistant.report.series_figures", None)
+
+
+def _session(path, *, biases=None, lines_done=24):
+    heights = [10e-9, 20e-9, 40e-9]
+    with SessionFile.create(path, controller_url="sim://", scenario_text="[probe]\nquality_factor = 200\n",
+                            software_version="0.1.0") as s:
+        s.write_calibration(CAL)
+        s.write_approach({"engaged": 1, "z_m": 4.2e-6}, {"trace_z_m": np.linspace(0, 4.2e-6, 5)})
+        w = s.create_series("lift", heights_m=heights, biases_v=biases, lines=32, pixels=32, scan_size_m=3e-6,
+                            line_rate_hz=1.0, order="topography,heights", repeat_first=biases is None,
+                            settings_json=json.dumps({"name": "lift", "lines": 32}))
+        x = np.linspace(0, 1, 32)
+        lead = (3,) if biases is None else (3, len(biases))
+        for i in range(lines_done):
+            ph = np.ones(lead + (32,)) * np.sign(np.sin(2 * np.pi * 2 * x))
+            ph = ph * np.exp(-np.asarray(heights) / 30e-9).reshape((3,) + (1,) * (len(lead)))
+            w.write_line(i, topography_m=1e-9 * np.sin(6 * x), phase_deg=ph, amplitude_v=np.ones_like(ph),
+                         repeat_phase_deg=ph[0] if biases is None else None)
+        s.write_analysis("lift", {"recommended_lift_nm": 25.0, "cpd_v": 0.31, "cpd_std_v": 0.02},
+                         {"magnetic_rms_deg": np.array([1.5, 1.0, 0.5]),
+                          "magnetic_rms_std_deg": np.array([0.05, 0.04, 0.03])})
+
+
+def test_report_figures_and_every_number(tmp_path, no_colleague_modules):
+    _session(tmp_path / "s.h5")
+    result = build_report(tmp_path / "s.h5", tmp_path / "out")
+    names = sorted(p.name for p in result.paths)
+    assert names == ["lift_phase.png", "lift_topography.png", "summary.md"]
+    for p in result.paths:
+        assert p.is_file()
+        if p.suffix == ".png":
+            assert p.read_bytes()[:8] == PNG
+    text = (tmp_path / "out" / "summary.md").read_text(encoding="utf-8")
+    assert text == result.summary_text
+    for line in ("| k_n_per_m | 2.801 ± 0.083 | N/m |", "| f0_hz | 75012.3 ± 2.1 | Hz |", "| q | 201.3 ± 4.2 | 1 |",
+                 "| invols_nm_per_v | 54.3 ± 1.2 | nm/V |", "| temperature_k | 295.15 | K |",
+                 "| k_source | thermal | |", "| cpd_v | 0.310 ± 0.020 | V |", "| recommended_lift_nm | 25 | nm |",
+                 "- magnetic_rms_deg [deg]: 1.500 ± 0.050, 1.000 ± 0.040, 0.500 ± 0.030",
+                 "- trace_z_m [m]: 0, 1.05e-06, 2.1e-06, 3.15e-06, 4.2e-06",
+                 "- completed lines: 24 of 32 (partial)", "- lift heights (nm): 10, 20, 40",
+                 "quality_factor = 200", '"lines": 32'):
+        assert line in text, line
+    assert "k_std_n_per_m" not in text  # folded into the ± of k
+    assert "| 10 (repeat) | - |" in text and "session complete: no" in text
+    assert len(result.notes) == 2 and all("skipped" in n for n in result.notes)
+    assert "calibration_figures is not installed" in text
+
+
+def test_bias_grid_gives_one_phase_figure_per_bias(tmp_path, no_colleague_modules):
+    _session(tmp_path / "b.h5", biases=[-1.0, 1.0], lines_done=5)
+    result = build_report(tmp_path / "b.h5", tmp_path / "out")
+    names = sorted(p.name for p in result.paths)
+    assert names == ["lift_phase_bias0.png", "lift_phase_bias1.png", "lift_topography.png", "summary.md"]
+    assert "| 20 | -1 |" in result.summary_text and "- tip biases (V): -1, 1" in result.summary_text
+
+
+def test_colleague_module_used_through_its_session_hook_and_failures_become_notes(tmp_path, monkeypatch):
+    _session(tmp_path / "s.h5", lines_done=4)
+    calls = []
+
+    def figures_from_session(session, out_dir):
+        calls.append(session.series_names())
+        (out_dir / "thermal_fit.png").write_bytes(PNG)
+        return [out_dir / "thermal_fit.png"]
+
+    def broken(session, out_dir):
+        raise RuntimeError("no decomposition stored")
+
+    monkeypatch.setitem(sys.modules, "assistant.report.calibration_figures",
+                        types.SimpleNamespace(figures_from_session=figures_from_session))
+    monkeypatch.setitem(sys.modules, "assistant.report.series_figures",
+                        types.SimpleNamespace(figures_from_session=broken))
+    result = build_report(tmp_path / "s.h5", tmp_path / "out")
+    assert calls == [["lift"]]
+    assert "thermal_fit.png" in [p.name for p in result.paths]
+    assert result.notes == ("series figures failed: RuntimeError: no decomposition stored",)
+    assert "- thermal_fit.png" in result.summary_text
+
+
+def test_session_without_series_still_gets_a_summary(tmp_path, no_colleague_modules):
+    with SessionFile.create(tmp_path / "e.h5", controller_url="sim://", software_version="0.1.0") as s:
+        s.write_calibration({"f0_hz": 13000.0})
+        s.mark_complete()
+    result = build_report(tmp_path / "e.h5", tmp_path / "deep" / "out")
+    assert [p.name for p in result.paths] == ["summary.md"]
+    assert "| f0_hz | 13000 | Hz |" in result.summary_text and "session complete: yes" in result.summary_text
