@@ -214,6 +214,9 @@ class SeriesWriter:
         self._pass_shape: tuple[int, ...] = group["phase_deg"].shape[:-2] + (self.pixels,)
         self._has_fshift = "frequency_shift_hz" in group
         self._has_repeat = "repeat_phase_deg" in group
+        # opened once: looking a dataset up by name costs about as much as writing one line of it
+        self._datasets = {name: group[name] for name in ("topography_m", "phase_deg", "amplitude_v",
+                                                         "frequency_shift_hz", "repeat_phase_deg") if name in group}
 
     @property
     def completed_lines(self) -> int:
@@ -240,19 +243,20 @@ class SeriesWriter:
         repeat = self._optional("repeat_phase_deg", repeat_phase_deg, self._has_repeat, (self.pixels,))
         if self._before_write is not None:
             self._before_write(index)
-        g = self._group
+        g, ds = self._group, self._datasets
         try:
             if fshift is not None and not self._has_fshift:
-                _line_dataset(g, "frequency_shift_hz", g["phase_deg"].shape)
+                _line_dataset(g, "frequency_shift_hz", ds["phase_deg"].shape)
                 g.attrs["auxiliary_signals"] = ["amplitude_v", "frequency_shift_hz"]
+                ds["frequency_shift_hz"] = g["frequency_shift_hz"]
                 self._has_fshift = True
-            g["topography_m"][index, :] = topo
-            g["phase_deg"][..., index, :] = phase
-            g["amplitude_v"][..., index, :] = amp
+            ds["topography_m"][index, :] = topo
+            ds["phase_deg"][..., index, :] = phase
+            ds["amplitude_v"][..., index, :] = amp
             if fshift is not None:
-                g["frequency_shift_hz"][..., index, :] = fshift
+                ds["frequency_shift_hz"][..., index, :] = fshift
             if repeat is not None:
-                g["repeat_phase_deg"][index, :] = repeat
+                ds["repeat_phase_deg"][index, :] = repeat
             # the counter goes last: a kill before the flush below leaves the old count, the new line ignored
             g.attrs.modify("completed_lines", np.int64(index + 1))
             self._session.flush()
