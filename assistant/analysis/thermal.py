@@ -74,12 +74,15 @@ def _find_peak(f: np.ndarray, p: np.ndarray, *, averages: float, f0_guess_hz: fl
     mean, cnt = sums[keep] / counts[keep], counts[keep]
     centres = np.sqrt(edges[:-1] * edges[1:])[keep]
     bg = scipy.ndimage.median_filter(mean, size=_PER_DECADE // 2 + 1, mode="nearest")
-    bg = np.where(bg > 0, bg, np.max(mean) * 1e-300 + 1e-300)
+    bg = np.maximum(bg, np.finfo(float).tiny)
     ratio = mean / bg
     if f0_guess_hz is None:
         # Hann bins are correlated (about half the information per bin): hence the factor 2.
         z = (ratio - 1.0) * np.sqrt(averages * cnt / 2.0)
-        cand = (centres >= fv[0] * 10**0.3) & (z >= _MIN_Z) & (ratio >= _MIN_RATIO)
+        # Skip the lowest 0.3 decade of a wide spectrum: there the running median of a steep 1/f rise is
+        # one-sided and would fake an excess.
+        low = fv[0] * 10**0.3 if fv[-1] / fv[0] > 10**1.5 else fv[0]
+        cand = (centres >= low) & (z >= _MIN_Z) & (ratio >= _MIN_RATIO)
         if not np.any(cand):
             raise ThermalFitError(
                 f"no resonance peak stands out of the background: largest excess {np.max(z):.3g} standard "
