@@ -4,8 +4,9 @@ Tip at d_c + A cos(wt) (d_c = gap at the centre of the oscillation, A = peak amp
 gradient that sets the frequency shift and the lift-mode phase is the gradient form of Giessibl:
 
     <F'> = 2/(pi A^2) * integral_{-A}^{A} F'(d_c + q) sqrt(A^2 - q^2) dq
-         = -(2/A^2) * <F(d_c + q) q>_cycle            (Giessibl 1997 Phys. Rev. B 56, 16010; the gradient
-                                                       form Giessibl 2001 Appl. Phys. Lett. 78, 123)
+         = (2/A^2) * <F(d_c + q) q>_cycle   (integration by parts)
+
+(force form: Giessibl 1997, Phys. Rev. B 56, 16010; gradient form: Giessibl 2001, Appl. Phys. Lett. 78, 123)
 
 and Delta f = -f0/(2k) <F'>. The plain time average of the force is (1/pi) integral F / sqrt(A^2 - q^2) dq.
 Both integrals are done with Gauss-Chebyshev rules (second / first kind), which absorb the square-root
@@ -65,11 +66,12 @@ def averaged_force(force_fn: ArrayFn, centre_gap_m: np.ndarray, amplitude_m: flo
 
 def giessibl_force_form(force_fn: ArrayFn, centre_gap_m: np.ndarray, amplitude_m: float, *,
                         nodes: int = 64) -> np.ndarray:
-    """<F'> from the force form -(2/A^2) <F(d_c + q) q>_cycle (Giessibl 1997); equals the gradient form."""
+    """<F'> from the force form (2/A^2) <F(d_c + q) q>_cycle, i.e. Delta f = -(f0/(k A^2)) <F q>
+    (Giessibl 1997); equal to the gradient form by integration by parts."""
     d = np.asarray(centre_gap_m, float)
     x, w = chebyshev_nodes(nodes, 1)
     q = amplitude_m * x
-    return -2.0 / amplitude_m**2 * np.tensordot(force_fn(d[..., None] + q) * q, w, axes=([-1], [0]))
+    return 2.0 / amplitude_m**2 * np.tensordot(force_fn(d[..., None] + q) * q, w, axes=([-1], [0]))
 
 
 def exponential_gradient_weight(k_per_m: np.ndarray, amplitude_m: float) -> np.ndarray:
