@@ -3,8 +3,9 @@
 Figures of the calibration and of the decomposition come from ``assistant.report.calibration_figures`` and
 ``assistant.report.series_figures``. Each is used through ``figures_from_session(session, out_dir) ->
 list[Path]`` when it offers that; otherwise through the figure functions it is known to offer
-(``thermal_figure``, ``sweep_figure``, ``write_series_figures``). A missing module or a failing figure is
-written down as a note in the summary instead of stopping the report.
+(``write_thermal_figure`` or ``thermal_figure``, ``write_sweep_figure`` or ``sweep_figure``,
+``write_series_figures``). A missing module or a failing figure is written down as a note in the summary
+instead of stopping the report.
 """
 
 from __future__ import annotations
@@ -181,12 +182,24 @@ def _import_figures(module: str, notes: list[str]):
 
 def _new_files(directory: Path, action: Callable[[], object], what: str, notes: list[str]) -> list[Path]:
     """Run a figure writer; the files it added under ``directory`` (whatever it returns), or a note on failure."""
-    before = set(directory.rglob("*"))
+    def stamps() -> dict[Path, int]:
+        return {p: p.stat().st_mtime_ns for p in directory.rglob("*") if p.is_file()}
+
+    before = stamps()
     try:
         action()
     except Exception as exc:  # one figure must not cost the whole report; the note says what went wrong
         notes.append(f"{what} failed: {type(exc).__name__}: {exc}")
-    return sorted(p for p in set(directory.rglob("*")) - before if p.is_file())
+    return sorted(p for p, stamp in stamps().items() if before.get(p) != stamp)  # new or rewritten
+
+
+def _figure_writer(mod, base: str) -> Callable[[object, Path], object] | None:
+    """``write_<base>(result, path)`` if the module has it, else ``<base>(result) -> Figure`` saved as PNG."""
+    if hasattr(mod, f"write_{base}"):
+        return getattr(mod, f"write_{base}")
+    if hasattr(mod, base):
+        return lambda result, path: save_png(getattr(mod, base)(result), path)
+    return None
 
 
 def _calibration_figures(session: SessionFile, out_dir: Path, notes: list[str]) -> list[Path]:
@@ -197,18 +210,19 @@ def _calibration_figures(session: SessionFile, out_dir: Path, notes: list[str]) 
         return _new_files(out_dir, lambda: mod.figures_from_session(session, out_dir), "calibration figures", notes)
     paths: list[Path] = []
     cals = session.read_calibrations()
-    if cals and hasattr(mod, "thermal_figure") and "spectrum_psd_v2_per_hz" in cals[-1].arrays:
-        paths += _new_files(out_dir, lambda: mod.thermal_figure(_thermal_result(cals[-1]), out_dir / "thermal.png"),
+    thermal = _figure_writer(mod, "thermal_figure")
+    if cals and thermal is not None and "spectrum_psd_v2_per_hz" in cals[-1].arrays:
+        paths += _new_files(out_dir, lambda: thermal(_thermal_result(cals[-1]), out_dir / "thermal.png"),
                             "thermal spectrum figure", notes)
     resonance = session.read_resonance()
-    if resonance is not None and hasattr(mod, "sweep_figure") and "frequency_hz" in resonance.arrays:
-        def sweep() -> None:
+    sweep = _figure_writer(mod, "sweep_figure")
+    if resonance is not None and sweep is not None and "frequency_hz" in resonance.arrays:
+        def write_sweep() -> None:
             from assistant.analysis.sweep import fit_drive_sweep
 
             a = resonance.arrays
-            mod.sweep_figure(fit_drive_sweep(a["frequency_hz"], a["amplitude_v"], a["phase_deg"]),
-                             out_dir / "sweep.png")
-        paths += _new_files(out_dir, sweep, "resonance sweep figure", notes)
+            sweep(fit_drive_sweep(a["frequency_hz"], a["amplitude_v"], a["phase_deg"]), out_dir / "sweep.png")
+        paths += _new_files(out_dir, write_sweep, "resonance sweep figure", notes)
     return paths
 
 

@@ -118,3 +118,51 @@ def test_session_without_series_still_gets_a_summary(tmp_path, no_colleague_modu
     result = build_report(tmp_path / "e.h5", tmp_path / "deep" / "out")
     assert [p.name for p in result.paths] == ["summary.md"]
     assert "| f0_hz | 13000 | Hz |" in result.summary_text and "session complete: yes" in result.summary_text
+
+
+def test_calibration_figures_fallback_refits_the_stored_sweep_and_spectrum(tmp_path, monkeypatch):
+    from assistant.analysis.sweep import oscillator_response
+    from assistant.analysis.thermal import oscillator_psd
+
+    f = np.linspace(74e3, 76e3, 201)
+    amp, phase = oscillator_response(f, f0_hz=75e3, q=200.0, amplitude_at_resonance_v=0.02, phase_offset_deg=-5.0)
+    fs = np.linspace(0, 1e6, 2**15 + 1)
+    # a noiseless expected spectrum with 20 averages: the refit must come back to f0 = 75 kHz, Q = 200
+    psd = oscillator_psd(fs, f0_hz=75e3, q=200.0, a0_v2_per_hz=2e-14, white_v2_per_hz=1e-16)
+    with SessionFile.create(tmp_path / "c.h5", controller_url="sim://", software_version="0.1.0") as s:
+        s.write_calibration({"spectrum_segments": 20, "temperature_k": 295.0, "invols_nm_per_v": 50.0},
+                            {"spectrum_frequency_hz": fs, "spectrum_psd_v2_per_hz": psd})
+        s.write_resonance({"f0_hz": 75e3}, {"frequency_hz": f, "amplitude_v": amp, "phase_deg": phase})
+    seen = {}
+
+    def write_thermal_figure(result, path):
+        seen["thermal"] = result
+        path.write_bytes(PNG)
+
+    def write_sweep_figure(result, path):
+        seen["sweep"] = result
+        path.write_bytes(PNG)
+
+    monkeypatch.setitem(sys.modules, "assistant.report.calibration_figures", types.SimpleNamespace(
+        write_thermal_figure=write_thermal_figure, write_sweep_figure=write_sweep_figure))
+    monkeypatch.setitem(sys.modules, "assistant.report.series_figures", None)
+    result = build_report(tmp_path / "c.h5", tmp_path / "out")
+    assert sorted(p.name for p in result.paths) == ["summary.md", "sweep.png", "thermal.png"]
+    assert seen["sweep"].f0_hz == pytest.approx(75e3, rel=1e-6) and seen["sweep"].q == pytest.approx(200, rel=1e-4)
+    assert seen["thermal"].fit.f0_hz == pytest.approx(75e3, rel=1e-4)
+    assert seen["thermal"].fit.q == pytest.approx(200, rel=0.02)
+
+
+def test_second_report_into_the_same_folder_lists_the_same_files(tmp_path, monkeypatch):
+    _session(tmp_path / "s.h5", lines_done=4)
+
+    def figures_from_session(session, out_dir):
+        (out_dir / "extra.png").write_bytes(PNG)
+
+    monkeypatch.setitem(sys.modules, "assistant.report.calibration_figures",
+                        types.SimpleNamespace(figures_from_session=figures_from_session))
+    monkeypatch.setitem(sys.modules, "assistant.report.series_figures", None)
+    first = build_report(tmp_path / "s.h5", tmp_path / "out")
+    second = build_report(tmp_path / "s.h5", tmp_path / "out")
+    assert [p.name for p in first.paths] == [p.name for p in second.paths]
+    assert "extra.png" in [p.name for p in second.paths]
