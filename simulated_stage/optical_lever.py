@@ -97,7 +97,7 @@ class FlickerNoise:
 
     def _low_rate(self, count: int) -> np.ndarray:
         out = np.zeros(count)
-        u = self._rng.standard_normal((self._decay.size, count))
+        u = self._rng.standard_normal((count, self._decay.size)).T  # sample-major: chunking-independent
         for i, a in enumerate(self._decay):
             y, zf = lfilter([math.sqrt(self._var * (1 - a * a))], [1.0, -a], u[i],
                             zi=[a * self._state[i]])

@@ -3,8 +3,9 @@
 The continuous model m x'' + gamma x' + k_m x = F_th(t), with white thermal force of one-sided PSD
 4 kB T gamma, is a linear stochastic system whose state (x, v) obeys an exact discrete-time recursion for any
 time step (Norrelykke & Flyvbjerg 2011, Phys. Rev. E 83, 041103): X[n+1] = M X[n] + xi[n], M = exp(A dt),
-xi Gaussian with covariance C - M C M^T (C the equipartition covariance), computed here by Van Loan's matrix
-exponential (Van Loan 1978, IEEE Trans. Autom. Control 23, 395; from memory) for accuracy at fine steps.
+xi Gaussian with covariance C - M C M^T (C the equipartition covariance); at very fine steps it is computed
+by Van Loan's matrix exponential instead (Van Loan 1978, IEEE Trans. Autom. Control 23, 395; from memory),
+which keeps its digits.
 The displacement alone is then an ARMA(2, 1) process; white measurement noise added to every sample keeps it
 ARMA(2, 2). Both are factorised into a single scalar filter driven by one unit normal per sample, so a
 record is one ``scipy.signal.lfilter`` call per chunk with the filter state carried between chunks. The
@@ -25,15 +26,21 @@ KB = 1.380649e-23  # J/K, exact (SI 2019)
 
 def _state_noise(q: float, h: float) -> tuple[np.ndarray, np.ndarray]:
     """Transition matrix and noise covariance over a step h (time in units of 1/omega0, x in units of sigma)."""
-    a = np.array([[0.0, 1.0], [-1.0, -1.0 / q]])
-    qc = np.array([[0.0, 0.0], [0.0, 2.0 / q]])  # makes the stationary covariance the identity
-    block = np.zeros((4, 4))
-    block[:2, :2] = -a
-    block[:2, 2:] = qc
-    block[2:, 2:] = a.T
-    g = expm(block * h)
-    m = g[2:, 2:].T
-    sigma = m @ g[:2, 2:]
+    beta = 0.5 / q
+    w1 = math.sqrt(1.0 - beta * beta)
+    c, s, e = math.cos(w1 * h), math.sin(w1 * h), math.exp(-beta * h)
+    # exp(A h) of the underdamped oscillator in closed form
+    m = e * np.array([[c + s * beta / w1, s / w1], [-s / w1, c - s * beta / w1]])
+    if h > 0.02:
+        sigma = np.eye(2) - m @ m.T  # stationary covariance is the identity in these units
+    else:  # fine steps: I - M M^T loses digits; Van Loan's block exponential keeps them
+        a = np.array([[0.0, 1.0], [-1.0, -2.0 * beta]])
+        block = np.zeros((4, 4))
+        block[:2, :2] = -a
+        block[1, 3] = 2.0 / q  # white force noise that makes the stationary covariance the identity
+        block[2:, 2:] = a.T
+        g = expm(block * h)
+        sigma = g[2:, 2:].T @ g[:2, 2:]
     return m, 0.5 * (sigma + sigma.T)
 
 
