@@ -13,6 +13,7 @@ from assistant.storage.session_file import (
     SessionFile,
     SessionFileError,
     SessionInfo,
+    SessionWriteError,
     UnwritablePathError,
     redact_controller_url,
     unit_for_name,
@@ -21,5 +22,5 @@ from assistant.storage.session_file import (
 __all__ = [
     "FORMAT_NAME", "FORMAT_VERSION", "FinishedSeriesError", "FormatVersionError", "NotASessionFileError",
     "ProbeRecord", "ProbeRecordError", "Record", "SeriesData", "SeriesWriter", "SessionFile", "SessionFileError",
-    "SessionInfo", "UnwritablePathError", "default_data_dir", "redact_controller_url", "unit_for_name",
+    "SessionInfo", "SessionWriteError", "UnwritablePathError", "default_data_dir", "redact_controller_url", "unit_for_name",
 ]

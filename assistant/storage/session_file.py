@@ -23,7 +23,8 @@ from __future__ import annotations
 
 import json
 import os
-from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
+from contextlib import contextmanager
 from dataclasses import dataclass
 from datetime import datetime, timezone
 from pathlib import Path
@@ -56,6 +57,11 @@ class FinishedSeriesError(SessionFileError):
 
 class UnwritablePathError(SessionFileError):
     """The file cannot be created or opened for writing."""
+
+
+class SessionWriteError(OSError):
+    """Writing to the file failed (typically a full disk). Every line counted in ``completed_lines`` before
+    the failure stays readable; close the file (further writes are refused) and reopen it to resume."""
 
 
 # ---- results of reading ----------------------------------------------------------------------------------
@@ -152,32 +158,36 @@ Scalar = float | int | str | bool
 _MAX_ATTR_TEXT = 48_000  # attributes in the default format live in the object header (64 KiB limit)
 
 
-def _write_attr_scalars(group: h5py.Group, scalars: Mapping[str, Scalar]) -> None:
-    units: dict[str, str] = {}
+_RESERVED = frozenset({"NX_class", "scalar_units", "signal", "axes", "default", "auxiliary_signals"})
+
+
+def _plain_scalars(scalars: Mapping[str, Scalar]) -> dict[str, Scalar]:
+    out: dict[str, Scalar] = {}
     for name, value in scalars.items():
+        if not isinstance(name, str) or not name or name in _RESERVED:
+            raise SessionFileError(f"scalar name {name!r} is empty, not a string or reserved ({sorted(_RESERVED)})")
         if isinstance(value, (bool, np.bool_)):
-            group.attrs[name] = bool(value)
+            out[name] = bool(value)
         elif isinstance(value, str):
-            group.attrs[name] = value
+            out[name] = value
         elif isinstance(value, (int, np.integer)):
-            group.attrs[name] = int(value)
-            units[name] = unit_for_name(name)
+            out[name] = int(value)
         elif isinstance(value, (float, np.floating)):
-            group.attrs[name] = float(value)
-            units[name] = unit_for_name(name)
+            out[name] = float(value)
         else:
             raise SessionFileError(f"scalar {name!r} must be a float, int, str or bool, got {type(value).__name__}")
-    group.attrs["scalar_units"] = json.dumps(units, sort_keys=True)
+    return out
 
 
-def _write_arrays(group: h5py.Group, arrays: Mapping[str, np.ndarray]) -> None:
+def _plain_arrays(arrays: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:
+    out = {}
     for name, values in arrays.items():
+        _check_name(name)
         data = np.asarray(values)
         if data.dtype.kind not in "fiub":
             raise SessionFileError(f"array {name!r} must be numeric, got dtype {data.dtype}")
-        dtype = np.float64 if data.dtype.kind == "f" else data.dtype
-        ds = group.create_dataset(name, data=data.astype(dtype, copy=False), dtype=dtype)
-        ds.attrs["units"] = unit_for_name(name)
+        out[name] = data.astype(np.float64, copy=False) if data.dtype.kind == "f" else data
+    return out
 
 
 def _read_record(group: h5py.Group) -> Record:
@@ -241,6 +251,7 @@ class SeriesWriter:
         fshift = self._optional("frequency_shift_hz", frequency_shift_hz, self._has_fshift or
                                 frequency_shift_hz is not None, self._pass_shape)
         repeat = self._optional("repeat_phase_deg", repeat_phase_deg, self._has_repeat, (self.pixels,))
+        self._session._check_usable()
         if self._before_write is not None:
             self._before_write(index)
         g, ds = self._group, self._datasets
@@ -260,9 +271,8 @@ class SeriesWriter:
             # the counter goes last: a kill before the flush below leaves the old count, the new line ignored
             g.attrs.modify("completed_lines", np.int64(index + 1))
             self._session.flush()
-        except OSError as exc:
-            exc.add_note(f"while writing line {index} of series {self.name!r}; lines 0..{index - 1} are intact")
-            raise
+        except (OSError, ValueError, RuntimeError) as exc:  # h5py reports a full disk as any of these
+            raise self._session._failed(f"line {index} of series {self.name!r}", exc) from exc
 
     def _check(self, name: str, values: np.ndarray, shape: tuple[int, ...]) -> np.ndarray:
         data = np.asarray(values, dtype=np.float64)
@@ -285,6 +295,7 @@ class SessionFile:
     def __init__(self, h5: h5py.File, *, fsync: bool) -> None:
         self._h5 = h5
         self._fsync = fsync
+        self._broken: str | None = None  # set by a failed write: the HDF5 state is no longer trustworthy
         self.path = Path(h5.filename)
 
     # ---- opening -------------------------------------------------------------------------------------
@@ -352,14 +363,44 @@ class SessionFile:
         self.close()
 
     def close(self) -> None:
-        if self._h5.id.valid:
+        """Close the file. After a failed write, closing cannot fail: what reached the disk stays as it is."""
+        if not self._h5.id.valid:
+            return
+        if self._broken is None:
             self._h5.close()
+            return
+        try:
+            self._h5.close()
+        except (OSError, ValueError, RuntimeError):
+            pass  # the failure was already reported; HDF5 cannot write its caches out either
 
     def flush(self) -> None:
         """Hand everything to the operating system; with ``fsync`` also to the disk."""
         self._h5.flush()
         if self._fsync:
             os.fsync(self._h5.id.get_vfd_handle())
+
+    def _check_usable(self) -> None:
+        if self._broken is not None:
+            raise SessionWriteError(f"an earlier write to {str(self.path)!r} failed ({self._broken}); "
+                                    "close the file and reopen it with mode 'a' to resume")
+
+    def _failed(self, what: str, exc: BaseException) -> SessionWriteError:
+        self._broken = f"{what}: {exc}".splitlines()[0]
+        errno = exc.errno if isinstance(exc, OSError) else None
+        return SessionWriteError(errno, f"writing {what} to {str(self.path)!r} failed: {self._broken}; "
+                                        "every line counted in completed_lines before it is intact")
+
+    @contextmanager
+    def _writing(self, what: str) -> Iterator[None]:
+        self._check_usable()
+        try:
+            yield
+            self.flush()
+        except SessionFileError:
+            raise
+        except (OSError, ValueError, RuntimeError) as exc:  # h5py reports a full disk as any of these
+            raise self._failed(what, exc) from exc
 
     # ---- writing records -----------------------------------------------------------------------------
     def write_calibration(self, scalars: Mapping[str, Scalar], arrays: Mapping[str, np.ndarray] | None = None, *,
@@ -369,57 +410,72 @@ class SessionFile:
         Scalar and array names carry their unit as a suffix (``k_n_per_m``, ``psd_v2_per_hz``).
         ``plot=(signal, axis)`` names the array to show first in a viewer and its axis array.
         """
-        parent = self._h5.require_group("probe")
-        parent.attrs["NX_class"] = "NXcollection"
-        index = len(parent)
-        group = parent.create_group(str(index))
-        self._fill(group, scalars, arrays or {}, plot)
+        record = self._checked(scalars, arrays, plot)
+        with self._writing("a calibration"):
+            parent = self._h5.require_group("probe")
+            parent.attrs["NX_class"] = "NXcollection"
+            group = parent.create_group(str(len(parent)))
+            self._fill(group, *record)
         return group.name.lstrip("/")
 
     def write_resonance(self, scalars: Mapping[str, Scalar], arrays: Mapping[str, np.ndarray] | None = None, *,
                         plot: tuple[str, str] | None = None) -> None:
         """Store the resonance sweep and its fit as ``resonance/`` (replacing an earlier one)."""
-        self._fill(self._fresh_group("resonance"), scalars, arrays or {}, plot)
+        record = self._checked(scalars, arrays, plot)
+        with self._writing("the resonance"):
+            self._fill(self._fresh_group("resonance"), *record)
 
     def write_approach(self, scalars: Mapping[str, Scalar], arrays: Mapping[str, np.ndarray] | None = None, *,
                        plot: tuple[str, str] | None = None) -> None:
         """Store the approach trace and result as ``approach/`` (replacing an earlier one)."""
-        self._fill(self._fresh_group("approach"), scalars, arrays or {}, plot)
+        record = self._checked(scalars, arrays, plot)
+        with self._writing("the approach"):
+            self._fill(self._fresh_group("approach"), *record)
 
     def write_analysis(self, name: str, scalars: Mapping[str, Scalar],
                        arrays: Mapping[str, np.ndarray] | None = None) -> None:
         """Store decomposition results as ``analysis/<name>/`` (replacing earlier results of that name)."""
         _check_name(name)
-        parent = self._h5.require_group("analysis")
-        parent.attrs["NX_class"] = "NXcollection"
-        if name in parent:
-            del parent[name]
-        self._fill(parent.create_group(name), scalars, arrays or {}, None)
+        record = self._checked(scalars, arrays, None)
+        with self._writing(f"analysis {name!r}"):
+            parent = self._h5.require_group("analysis")
+            parent.attrs["NX_class"] = "NXcollection"
+            if name in parent:
+                del parent[name]
+            self._fill(parent.create_group(name), *record)
 
     def mark_complete(self) -> None:
         """Mark the session as finished normally."""
-        self._h5.attrs["complete"] = True
-        self.flush()
+        with self._writing("the complete flag"):
+            self._h5.attrs["complete"] = True
 
     def _fresh_group(self, name: str) -> h5py.Group:
         if name in self._h5:
             del self._h5[name]
         return self._h5.create_group(name)
 
-    def _fill(self, group: h5py.Group, scalars: Mapping[str, Scalar], arrays: Mapping[str, np.ndarray],
+    @staticmethod
+    def _checked(scalars: Mapping[str, Scalar], arrays: Mapping[str, np.ndarray] | None,
+                 plot: tuple[str, str] | None) -> tuple[dict[str, Scalar], dict[str, np.ndarray], tuple | None]:
+        """Validate everything before the file is touched, so a bad argument leaves no half-written group."""
+        plain_scalars, plain_arrays = _plain_scalars(scalars), _plain_arrays(arrays or {})
+        for part in plot or ():
+            if part not in plain_arrays:
+                raise SessionFileError(f"plot names {part!r}, which is not among the arrays {sorted(plain_arrays)}")
+        return plain_scalars, plain_arrays, plot
+
+    @staticmethod
+    def _fill(group: h5py.Group, scalars: dict[str, Scalar], arrays: dict[str, np.ndarray],
               plot: tuple[str, str] | None) -> None:
-        _write_attr_scalars(group, scalars)
-        _write_arrays(group, arrays)
-        group.attrs["NX_class"] = "NXcollection"
+        group.attrs.update(scalars)
+        units = {k: unit_for_name(k) for k, v in scalars.items() if not isinstance(v, (str, bool))}
+        group.attrs["scalar_units"] = json.dumps(units, sort_keys=True)
+        for name, data in arrays.items():
+            group.create_dataset(name, data=data, dtype=data.dtype).attrs["units"] = unit_for_name(name)
+        group.attrs["NX_class"] = "NXcollection" if plot is None else "NXdata"
         if plot is not None:
-            signal, axis = plot
-            for part in plot:
-                if part not in arrays:
-                    raise SessionFileError(f"plot names {part!r}, which is not among the arrays {sorted(arrays)}")
-            group.attrs["NX_class"] = "NXdata"
-            group.attrs["signal"] = signal
-            group.attrs["axes"] = [axis]
-        self.flush()
+            group.attrs["signal"] = plot[0]
+            group.attrs["axes"] = [plot[1]]
 
     # ---- series --------------------------------------------------------------------------------------
     def create_series(self, name: str, *, heights_m: Sequence[float], biases_v: Sequence[float] | None, lines: int,
@@ -447,13 +503,23 @@ class SessionFile:
             json.loads(settings_json)
         except (TypeError, ValueError) as exc:
             raise SessionFileError(f"settings_json is not valid JSON: {exc}") from exc
-        series_root = self._h5.require_group("series")
-        if name in series_root:
-            raise SessionFileError(f"series {name!r} already exists in {str(self.path)!r}; resume it instead")
-        g = series_root.create_group(name)
         biases = None if biases_v is None or len(biases_v) == 0 else np.asarray(biases_v, dtype=np.float64)
         if biases is not None and (biases.ndim != 1 or not np.all(np.isfinite(biases))):
             raise SessionFileError(f"biases_v must be a 1-D sequence of finite values or None, got {biases_v!r}")
+        if name in self.series_names():
+            raise SessionFileError(f"series {name!r} already exists in {str(self.path)!r}; resume it instead")
+        with self._writing(f"series {name!r}"):
+            g = self._new_series_group(name, heights, biases, lines=int(lines), pixels=int(pixels),
+                                       scan_size_m=float(scan_size_m), line_rate_hz=float(line_rate_hz),
+                                       order=order, repeat_first=repeat_first, settings_json=settings_json,
+                                       frequency_shift=frequency_shift)
+        return SeriesWriter(self, g, before_write=before_write)
+
+    def _new_series_group(self, name: str, heights: np.ndarray, biases: np.ndarray | None, *, lines: int,
+                          pixels: int, scan_size_m: float, line_rate_hz: float, order: str, repeat_first: bool,
+                          settings_json: str, frequency_shift: bool) -> h5py.Group:
+        series_root = self._h5.require_group("series")
+        g = series_root.create_group(name)
         lead = (heights.size,) if biases is None else (heights.size, biases.size)
         pass_names = ["phase_deg", "amplitude_v"] + (["frequency_shift_hz"] if frequency_shift else [])
         for ds_name in pass_names:
@@ -484,8 +550,7 @@ class SessionFile:
         series_root.attrs["NX_class"] = "NXentry"
         series_root.attrs["default"] = name
         self._h5.attrs["default"] = "series"
-        self.flush()
-        return SeriesWriter(self, g, before_write=before_write)
+        return g
 
     def open_series_for_resume(self, name: str, *, before_write: BeforeWrite | None = None) -> SeriesWriter:
         """A writer that continues ``series/<name>`` at its next line; refuses a finished series."""
@@ -494,8 +559,8 @@ class SessionFile:
         if done >= lines:
             raise FinishedSeriesError(f"series {name!r} is finished ({done} of {lines} lines); nothing to resume")
         if bool(self._h5.attrs.get("complete", False)):
-            self._h5.attrs["complete"] = False
-            self.flush()
+            with self._writing("the complete flag"):
+                self._h5.attrs["complete"] = False
         return SeriesWriter(self, g, before_write=before_write)
 
     # ---- reading -------------------------------------------------------------------------------------

@@ -266,3 +266,18 @@ def test_frequency_shift_added_at_first_line_that_carries_it(session):
     with h5py.File(session.path, "r") as f:
         assert f["series/s1/frequency_shift_hz"].attrs["units"] == "Hz"
         assert list(f["series/s1"].attrs["auxiliary_signals"]) == ["amplitude_v", "frequency_shift_hz"]
+
+
+def test_bad_arguments_leave_no_half_written_group(session):
+    with pytest.raises(SessionFileError, match="plot names 'psd_v2_per_hz'"):
+        session.write_calibration({"k_n_per_m": 1.0}, {"frequency_hz": np.arange(3.0)},
+                                  plot=("psd_v2_per_hz", "frequency_hz"))
+    with pytest.raises(SessionFileError, match="reserved"):
+        session.write_resonance({"NX_class": "x"})
+    with pytest.raises(SessionFileError, match="must be a float, int, str or bool"):
+        session.write_approach({"trace": [1, 2]})
+    with pytest.raises(SessionFileError, match="biases_v"):
+        session.create_series("x", heights_m=[1e-8], biases_v=[np.nan], lines=2, pixels=2, scan_size_m=1e-6,
+                              line_rate_hz=1.0, order="o", repeat_first=False, settings_json="{}")
+    assert session.read_calibrations() == [] and session.read_resonance() is None
+    assert session.read_approach() is None and session.series_names() == []

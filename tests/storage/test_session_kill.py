@@ -138,3 +138,55 @@ def test_random_sigkills_then_resume_is_byte_identical(tmp_path, reference, seed
     assert _datasets(path) == reference
     with h5py.File(path, "r") as f:
         assert bool(f.attrs["complete"])
+
+
+# A real full disk: the writer's file-size limit (RLIMIT_FSIZE) is set to the file's present size, so the
+# next write that would grow the file fails inside HDF5 exactly as on a full disk.
+FULL_DISK = r"""
+import os, resource, signal, sys, numpy as np
+from assistant.storage import SessionFile, SessionWriteError
+signal.signal(signal.SIGXFSZ, signal.SIG_IGN)  # get EFBIG from write() instead of being killed
+path = sys.argv[1]
+s = SessionFile.create(path, controller_url="sim://", software_version="test")
+w = s.create_series("s", heights_m=[1e-8, 2e-8], biases_v=None, lines=12, pixels=64, scan_size_m=1e-6,
+                    line_rate_hz=1.0, order="o", repeat_first=False, settings_json="{}")
+line = lambda i: dict(topography_m=np.full(64, float(i)), phase_deg=np.full((2, 64), float(i)),
+                      amplitude_v=np.ones((2, 64)))
+for i in range(5):
+    w.write_line(i, **line(i))
+size = os.path.getsize(path)
+resource.setrlimit(resource.RLIMIT_FSIZE, (size, size))
+outcome = []
+try:
+    s.write_calibration({"k_n_per_m": 1.0}, {"psd_v2_per_hz": np.zeros(200_000)})
+except SessionWriteError as exc:
+    outcome.append(isinstance(exc, OSError) and "failed" in str(exc))
+try:
+    w.write_line(5, **line(5))
+except SessionWriteError as exc:
+    outcome.append("earlier write" in str(exc))
+s.close()
+print(outcome)
+"""
+
+
+def test_full_disk_refuses_further_writes_and_keeps_every_line(tmp_path):
+    path = tmp_path / "full.h5"
+    env = dict(os.environ, PYTHONPATH=REPO + os.pathsep + os.environ.get("PYTHONPATH", ""))
+    done = subprocess.run([sys.executable, "-c", FULL_DISK, str(path)], capture_output=True, text=True, env=env,
+                          timeout=60)
+    assert done.returncode == 0, done.stderr[-2000:]
+    assert done.stdout.strip() == "[True, True]"
+    with h5py.File(path, "r") as f:
+        g = f["series/s"]
+        assert g.attrs["completed_lines"] == 5
+        np.testing.assert_array_equal(g["phase_deg"][0, :5, 0], [0, 1, 2, 3, 4])
+    from assistant.storage import SessionFile
+
+    with SessionFile.open(path, "a") as s:  # space is back: the resume carries on
+        w = s.open_series_for_resume("s")
+        for i in range(5, 12):
+            w.write_line(i, topography_m=np.full(64, float(i)), phase_deg=np.full((2, 64), float(i)),
+                         amplitude_v=np.ones((2, 64)))
+        assert s.read_series("s").finished
+        np.testing.assert_array_equal(s.read_series("s").phase_deg[1, :, 3], np.arange(12.0))
