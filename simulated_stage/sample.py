@@ -9,7 +9,7 @@ Sign convention: F > 0 repulsive, F' = dF/dz (attractive and strengthening on ap
 Caches (all invalidated when ``expose`` switches pixels):
 * the FFT spectrum of the film's stray field (one forward transform per magnetisation state);
 * per (amplitude, probe height node) five float32 cubic-spline coefficient maps of the magnetic point-probe
-  interaction: <F'>, d<F'>/dz, d2<F'>/dz2, <F>, d<F>/dz. A call maps every point to a node within 10 % of
+  interaction: <F'>, d<F'>/dz, d2<F'>/dz2, <F>, d<F>/dz. A call maps every point to a node within 5 % of
   its probe height (creating nodes at the median of uncovered points, on a 0.5 % log grid so that later
   lines reuse them) and expands to second order in the height offset (first order for the force). Nodes are
   kept in an LRU cache with a byte budget;
@@ -34,7 +34,7 @@ from simulated_stage.electrostatics import TipCapacitance
 from simulated_stage.errors import ScenarioError
 from simulated_stage.tip import TipSpec, check_range, field_reach_m, point_probe_field, spec_from_table
 
-_NODE_TOLERANCE = 0.1      # |ln(z / z_node)| covered by one node (second-order expansion)
+_NODE_TOLERANCE = 0.05     # |ln(z / z_node)| covered by one node (second-order expansion)
 _NODE_GRID = 0.005         # log-spacing of the grid on which new nodes are placed
 _MAX_PIXELS = 8192
 
