@@ -347,8 +347,8 @@ def _serve_stream(d: Dispatcher, lf: _LinkFaults, bind: str | None, announce: Ca
 
 
 def _stream_line(d: Dispatcher, lf: _LinkFaults, session: _Session, line: bytes, fd: int) -> None:
-    if lf.dead():
-        return
+    if lf.dead() or not line.strip():
+        return  # blank lines (a client's resynchronisation) do not count as requests
     faults = lf.draw()
     if any(f.kind == "link_drop" for f in faults):
         return

@@ -299,7 +299,7 @@ def parse_reply(message: bytes) -> list[list[Token]]:
     answers: list[list[Token]] = [[]]
     i, n = 0, len(message)
     if n == 0:
-        return []
+        return answers
     while True:
         if i < n and message[i] == 0x23:
             extent = _block_extent(message, i)
@@ -329,20 +329,26 @@ def parse_reply(message: bytes) -> list[list[Token]]:
             while j < n and message[j] not in (0x2C, 0x3B):
                 j += 1
             raw = message[i:j].strip()
-            if not raw or any(not (32 <= b < 127) for b in raw):
+            if not raw and not answers[-1] and (j >= n or message[j] == 0x3B):
+                pass  # an empty answer (a list with no entries)
+            elif not raw or any(not (32 <= b < 127) for b in raw):
                 raise WireError(-102, "empty or non-printable reply field")
-            answers[-1].append(Token("text", raw.decode("ascii")))
+            else:
+                answers[-1].append(Token("text", raw.decode("ascii")))
             i = j
         if i >= n:
             return answers
         sep = message[i]
+        i += 1
         if sep == 0x3B:
             answers.append([])
-        elif sep != 0x2C:
+            if i >= n:
+                return answers
+        elif sep == 0x2C:
+            if i >= n:
+                raise WireError(-102, "reply ends with a separator")
+        else:
             raise WireError(-102, f"unexpected byte 0x{sep:02x} after a reply field")
-        i += 1
-        if i >= n:
-            raise WireError(-102, "reply ends with a separator")
 
 
 def decode_block(payload: bytes, dtype: str) -> np.ndarray:

@@ -235,3 +235,17 @@ def spawn_server(transport: str, watchdog_s: float | None = 5.0) -> tuple[subpro
         proc.kill()
         raise RuntimeError(f"server failed to start: {proc.stderr.read()[-2000:]}")
     return proc, json.loads(line)
+
+
+#: Requests a client makes while opening (resync line for serial, then *IDN?, capabilities, limits).
+OPEN_REQUESTS = {"serial": 4, "zmq": 3}
+
+
+def connect(announcement: dict, **kwargs):
+    """A client driver for whatever a server announced."""
+    from drivers.network_link import NetworkController
+    from drivers.serial_link import SerialController
+
+    if "endpoint" in announcement:
+        return NetworkController(announcement["endpoint"], **kwargs)
+    return SerialController(announcement["port"], **kwargs)
