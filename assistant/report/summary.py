@@ -131,7 +131,8 @@ def _series_section(data: SeriesData) -> list[str]:
         out += [f"Topography after plane removal: rms {np.std(finite):.4g} nm, "
                 f"range {finite.min():.4g} .. {finite.max():.4g} nm.", ""]
     out += ["Phase over the completed lines (deg):", "",
-            "| lift (nm) | bias (V) | mean | rms about mean | min | max | NaN pixels |", "|---|---|---|---|---|---|---|"]
+            "| lift (nm) | bias (V) | mean | rms about mean | min | max | NaN pixels |",
+            "|---|---|---|---|---|---|---|"]
     phase = data.phase_deg if data.biases_v is not None else data.phase_deg[:, None]
     bias_labels = ["-"] if data.biases_v is None else [f"{b:.4g}" for b in data.biases_v]
     for i, h in enumerate(data.heights_m):

@@ -8,6 +8,7 @@ from assistant.storage.session_file import (
     FormatVersionError,
     NotASessionFileError,
     Record,
+    SessionBusyError,
     SeriesData,
     SeriesWriter,
     SessionFile,
@@ -21,6 +22,7 @@ from assistant.storage.session_file import (
 
 __all__ = [
     "FORMAT_NAME", "FORMAT_VERSION", "FinishedSeriesError", "FormatVersionError", "NotASessionFileError",
-    "ProbeRecord", "ProbeRecordError", "Record", "SeriesData", "SeriesWriter", "SessionFile", "SessionFileError",
-    "SessionInfo", "SessionWriteError", "UnwritablePathError", "default_data_dir", "redact_controller_url", "unit_for_name",
+    "ProbeRecord", "ProbeRecordError", "Record", "SeriesData", "SeriesWriter", "SessionBusyError", "SessionFile",
+    "SessionFileError", "SessionInfo", "SessionWriteError", "UnwritablePathError", "default_data_dir",
+    "redact_controller_url", "unit_for_name",
 ]

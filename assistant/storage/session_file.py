@@ -59,6 +59,10 @@ class UnwritablePathError(SessionFileError):
     """The file cannot be created or opened for writing."""
 
 
+class SessionBusyError(SessionFileError):
+    """Another process has the file open for writing (HDF5 file locking refused to open it)."""
+
+
 class SessionWriteError(OSError):
     """Writing to the file failed (typically a full disk). Every line counted in ``completed_lines`` before
     the failure stays readable; close the file (further writes are refused) and reopen it to resume."""
@@ -339,6 +343,9 @@ class SessionFile:
         try:
             h5 = h5py.File(path, "r+" if mode == "a" else "r")
         except OSError as exc:
+            if "unable to lock file" in str(exc):
+                raise SessionBusyError(f"session file {str(path)!r} is open for writing by another process "
+                                       "(a run in progress?); wait for it to finish") from exc
             if mode == "a" and not os.access(path, os.W_OK):
                 raise UnwritablePathError(f"session file {str(path)!r} is not writable") from exc
             raise NotASessionFileError(f"{str(path)!r} is not an HDF5 session file ({exc})") from exc

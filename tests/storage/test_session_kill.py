@@ -190,3 +190,16 @@ def test_full_disk_refuses_further_writes_and_keeps_every_line(tmp_path):
                          amplitude_v=np.ones((2, 64)))
         assert s.read_series("s").finished
         np.testing.assert_array_equal(s.read_series("s").phase_deg[1, :, 3], np.arange(12.0))
+
+
+def test_file_held_by_a_writer_process_gives_a_clear_busy_error(tmp_path):
+    from assistant.storage import SessionBusyError, SessionFile
+
+    path = tmp_path / "busy.h5"
+    with SessionFile.create(path, controller_url="sim://", software_version="test"):
+        code = ("from assistant.storage import SessionFile, SessionBusyError\n"
+                f"try:\n    SessionFile.open({str(path)!r})\nexcept SessionBusyError as e:\n    print('busy:', e)\n")
+        env = dict(os.environ, PYTHONPATH=REPO + os.pathsep + os.environ.get("PYTHONPATH", ""))
+        done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=env, timeout=60)
+        assert done.stdout.startswith("busy:") and "open for writing by another process" in done.stdout, done.stderr
+    assert issubclass(SessionBusyError, ValueError)
