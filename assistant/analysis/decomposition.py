@@ -98,8 +98,9 @@ def fit_continuation(stack: np.ndarray, *, heights_m, pixel_m: float, valid: np.
 
     Weighted least squares per frequency with closed form
     ``A = sum_h w_h e_h M_h / sum_h w_h e_h^2``, ``w_h = 1/sigma_h^2``, ``e_h = exp(-|q|(h - h_0))``.
-    The per-height noise sigma_h is re-estimated from the residual with the leverage correction
-    ``E|r_h|^2 = N sigma_h^2 (1 - w_h e_h^2 / sum w e^2)`` (iterated ``n_iter`` times). Masked pixels are
+    The per-height noise sigma_h is re-estimated from the residuals by the method of moments (the expected
+    residual power of every height is linear in all sigma_j^2 for the weights in use; for w = 1/sigma^2
+    it reduces to ``E|r_h|^2 = N sigma_h^2 (1 - w_h e_h^2 / sum w e^2)``), iterated ``n_iter`` times. Masked pixels are
     filled with the current model (expectation-maximisation style) between iterations.
 
     Parameters
@@ -128,7 +129,10 @@ def fit_continuation(stack: np.ndarray, *, heights_m, pixel_m: float, valid: np.
     data[~ok] = 0.0
     q, _, cw = _wavenumbers((rows, cols), pixel_m)
     e = np.exp(-q[None] * (h - h[0])[:, None, None])
+    valid_cells = np.ones((rows, cols // 2 + 1), bool)
+    valid_cells[0, 0] = False
     sigma2 = np.ones(nh)
+    m = np.eye(nh) * n
     for it in range(max(int(n_iter), 1) + 1):
         f = np.fft.rfft2(data, axes=(-2, -1))
         w = 1.0 / sigma2
@@ -140,11 +144,18 @@ def fit_continuation(stack: np.ndarray, *, heights_m, pixel_m: float, valid: np.
         if it == max(int(n_iter), 1):
             break
         lev = (w[:, None, None] * e * e) * inv_s[None]
-        r2 = (cw * np.abs(f - pred) ** 2).reshape(nh, -1).sum(axis=1)
-        # the DC cell is not fitted and carries no residual: take its share out of the degrees of freedom
-        dof = (cw * (1.0 - lev)).reshape(nh, -1).sum(axis=1) - (1.0 - lev[:, 0, 0])
-        sigma2 = r2 / (n * np.maximum(dof, 1.0) * np.maximum(frac, 1e-3))
-        sigma2 = np.maximum(sigma2, 1e-30 * max(sigma2.max(), 1e-300))
+        # method of moments, unbiased for any weights: E R_h = sum_j M_hj sigma_j^2 with
+        # M_hj = sum_q cw [delta_hj (1 - 2 l_h) + e_h^2 e_j^2 w_j^2 / S^2]  (DC cell excluded)
+        r2 = (cw * np.abs(f - pred) ** 2 * valid_cells).reshape(nh, -1).sum(axis=1) / n
+        e2 = (e * e).reshape(nh, -1)
+        g = (cw * inv_s**2 * valid_cells).ravel()
+        m = np.einsum("hq,jq,q->hj", e2, e2, g) * (w**2)[None, :]
+        m[np.diag_indices(nh)] += (cw * (1.0 - 2.0 * lev) * valid_cells).reshape(nh, -1).sum(axis=1)
+        try:
+            sol = np.linalg.solve(m, r2)
+        except np.linalg.LinAlgError:
+            sol = r2 / np.maximum(np.diag(m), 1.0)
+        sigma2 = np.clip(sol, 1e-12 * max(r2.max(), 1e-300), None) / np.maximum(frac, 1e-3)
         if not np.all(ok):
             model_now = np.fft.irfft2(pred, s=(rows, cols), axes=(-2, -1))
             data = np.where(ok, data, model_now)
@@ -152,14 +163,11 @@ def fit_continuation(stack: np.ndarray, *, heights_m, pixel_m: float, valid: np.
     resid = np.where(ok, data - model, np.nan)
     sm = ok if stats_mask is None else ok & np.asarray(stats_mask, bool)[None]
     residual_rms = np.sqrt(np.array([np.mean(resid[i][sm[i]] ** 2) for i in range(nh)]))
-    mean_lev = ((cw * lev).reshape(nh, -1).sum(axis=1)) / n
-    expected = np.sqrt(sigma2 * np.clip(1.0 - mean_lev, 0.0, 1.0))
+    expected = np.sqrt(np.clip(m @ sigma2, 0.0, None) / n)  # residual rms that pure noise would leave
 
     # noise-debiased power of the fitted map at each height; Var(A e_h) = N e_h^2 / S per cell
     v = n * e * e * inv_s[None]
     p2 = np.abs(pred) ** 2
-    valid_cells = np.ones((rows, cols // 2 + 1), bool)
-    valid_cells[0, 0] = False
     mu2 = np.clip(p2 - v, 0.0, None)
     power = (cw * (p2 - v) * valid_cells).reshape(nh, -1).sum(axis=1) / n**2
     var_power = (2.0 * cw * (2.0 * mu2 * v + v * v) * valid_cells).reshape(nh, -1).sum(axis=1) / n**4

@@ -96,16 +96,19 @@ def estimate_drift_px(stack: np.ndarray, *, upsample: int = 100, whitening: floa
 
 
 def _shift_phase(shape: tuple[int, int], shift_px) -> np.ndarray:
+    """rfft2-domain factor that displaces content by shift_px; shift_px (..., 2) broadcasts over images."""
     rows, cols = shape
-    qr = np.fft.fftfreq(rows)[:, None]
-    qc = np.fft.rfftfreq(cols)[None, :]
-    ph = np.exp(-2j * np.pi * (qr * shift_px[0] + qc * shift_px[1]))
-    # the Nyquist rows/columns must stay real for a real result: keep only the cosine part there
+    d = np.asarray(shift_px, dtype=float)
+    dr = d[..., 0, None, None]
+    dc = d[..., 1, None, None]
+    phr = np.exp(-2j * np.pi * np.fft.fftfreq(rows)[:, None] * dr)
+    phc = np.exp(-2j * np.pi * np.fft.rfftfreq(cols)[None, :] * dc)
+    # at a Nyquist frequency only the cosine part keeps the image real (exactly +-1 for whole pixels)
     if rows % 2 == 0:
-        ph[rows // 2, :] = ph[rows // 2, :].real
+        phr[..., rows // 2, :] = np.cos(np.pi * dr[..., 0, :])
     if cols % 2 == 0:
-        ph[:, -1] = ph[:, -1].real
-    return ph
+        phc[..., :, -1] = np.cos(np.pi * dc[..., :, 0])
+    return phr * phc
 
 
 def fourier_shift(image: np.ndarray, shift_px) -> np.ndarray:
@@ -120,14 +123,6 @@ def fourier_shift(image: np.ndarray, shift_px) -> np.ndarray:
 def align_stack(stack: np.ndarray, drift_px: np.ndarray) -> np.ndarray:
     """Undo ``drift_px`` (n, 2) for every image of ``stack`` (n, rows, cols), bringing all to the first frame."""
     stack = np.asarray(stack, dtype=float)
-    f = np.fft.rfft2(stack, axes=(-2, -1))
     rows, cols = stack.shape[-2:]
-    qr = np.fft.fftfreq(rows)[None, :, None]
-    qc = np.fft.rfftfreq(cols)[None, None, :]
-    d = -np.asarray(drift_px, dtype=float)
-    ph = np.exp(-2j * np.pi * (qr * d[:, 0, None, None] + qc * d[:, 1, None, None]))
-    if rows % 2 == 0:
-        ph[:, rows // 2, :] = ph[:, rows // 2, :].real
-    if cols % 2 == 0:
-        ph[:, :, -1] = ph[:, :, -1].real
-    return np.fft.irfft2(f * ph, s=(rows, cols), axes=(-2, -1))
+    ph = _shift_phase((rows, cols), -np.asarray(drift_px, dtype=float))
+    return np.fft.irfft2(np.fft.rfft2(stack, axes=(-2, -1)) * ph, s=(rows, cols), axes=(-2, -1))

@@ -262,10 +262,9 @@ def analyse_series(phase_deg, *, heights_m, pixel_m: float, bias_v=None, repeat_
         aligned = align_stack(flat, drift)
         valid = align_stack(okf.astype(float), np.rint(drift)) > 0.5
         hstack, hvalid = _per_height(aligned, valid, nh, nb)
-        border = int(np.ceil(np.abs(drift).max()))
-        stats_mask = np.zeros((rows, cols), bool)
-        stats_mask[border:rows - border, border:cols - border] = True
-        fit = dec.fit_continuation(hstack, heights_m=h, pixel_m=pixel_m, valid=hvalid, stats_mask=stats_mask)
+        # all pixels count in the statistics: the FFT model treats the images as periodic anyway, and a
+        # border that depended on the drift would make the results depend on whole-pixel shifts
+        fit = dec.fit_continuation(hstack, heights_m=h, pixel_m=pixel_m, valid=hvalid)
         if not register or round_ == n_refine:
             break
         # template for each image: the continuation predicted from the *other* heights (nearly noise-free)

@@ -66,7 +66,6 @@ def detect_tip_change(first_deg: np.ndarray, repeat_deg: np.ndarray, *, threshol
         raise ValueError("repeat and first pass share no valid pixel")
     offset = float(np.median(d[ok]))
     d = d - offset
-    raw_noise = _MAD_TO_STD * float(np.median(np.abs(d[ok])))
     filled = np.where(ok, d, 0.0)
     if smooth_px > 1:
         num = ndimage.uniform_filter(filled, size=smooth_px, mode="wrap")
@@ -74,16 +73,23 @@ def detect_tip_change(first_deg: np.ndarray, repeat_deg: np.ndarray, *, threshol
         sm = np.where(den > 0, num / np.where(den > 0, den, 1.0), 0.0)
     else:
         sm = filled
-    sm_noise = _MAD_TO_STD * float(np.median(np.abs(sm[ok])))
-    hot = ok & (np.abs(sm) > threshold * max(sm_noise, 1e-300))
-    labels, n = ndimage.label(hot)
-    if n:
-        sizes = np.bincount(labels.ravel())
-        keep = sizes >= min_region_px
-        keep[0] = False
-        changed = keep[labels]
-    else:
-        changed = hot
+    quiet = ok
+    for _ in range(3):  # re-estimate the noise away from what was flagged: a large change inflates the MAD
+        raw_noise = _MAD_TO_STD * float(np.median(np.abs(d[quiet])))
+        sm_noise = _MAD_TO_STD * float(np.median(np.abs(sm[quiet])))
+        hot = ok & (np.abs(sm) > threshold * max(sm_noise, 1e-300))
+        labels, n = ndimage.label(hot)
+        if n:
+            sizes = np.bincount(labels.ravel())
+            keep = sizes >= min_region_px
+            keep[0] = False
+            changed = keep[labels]
+        else:
+            changed = hot
+        grown = ndimage.binary_dilation(changed, iterations=max(smooth_px, 1)) if changed.any() else changed
+        if not changed.any() or (ok & ~grown).sum() < 0.25 * ok.sum():
+            break
+        quiet = ok & ~grown
     frac = float(changed.sum() / ok.sum())
     noise = raw_noise / np.sqrt(2.0)
     irreversible = bool(changed.any())

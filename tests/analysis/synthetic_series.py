@@ -188,6 +188,7 @@ def build_series(*, rows=128, cols=128, pixel_m=10e-9, heights_m=(20e-9, 30e-9, 
         images[bad] = np.nan
     repeat_img = None
     changed = None
+    clean_change = None
     if repeat:
         mz2 = mz.copy()
         if flip_disk is not None:
@@ -198,7 +199,8 @@ def build_series(*, rows=128, cols=128, pixel_m=10e-9, heights_m=(20e-9, 30e-9, 
         g2 = magnetic_gradient(mz2)[0] + g_es[0, 0] + vdw_grad[0]
         clean2 = to_phase(g2)
         clean1 = to_phase(g_mag[0] + g_es[0, 0] + vdw_grad[0])
-        changed = np.abs(clean2 - clean1) > 5 * noise_deg
+        clean_change = clean2 - clean1
+        changed = np.abs(clean_change) > 5 * noise_deg
         if np.any(drift[0, 0] != 0):
             clean2 = shift_image(clean2, *drift[0, 0])
         repeat_img = clean2 + rng.normal(scale=noise_deg, size=(rows, cols))
@@ -214,4 +216,4 @@ def build_series(*, rows=128, cols=128, pixel_m=10e-9, heights_m=(20e-9, 30e-9, 
         magnetic_rms_deg=np.sqrt(np.mean(mag_phase**2, axis=(1, 2))), electrostatic_deg=es_deg,
         short_range_deg=to_phase(vdw_grad), drift_px=drift if bias_v is not None else drift[:, 0],
         cpd_v=cpd_v, noise_deg=noise_deg, changed_map=changed,
-        extras={"es_gradient": g_es, "vdw_gradient": vdw_grad, "magnetic_gradient": g_mag})
+        extras={"clean_change_deg": clean_change, "es_gradient": g_es, "vdw_gradient": vdw_grad, "magnetic_gradient": g_mag})
