@@ -46,7 +46,7 @@ class ProbeSpec:
     quality_factor: float | None = _field(None, 1.0, 1e5)
     invols_nm_per_v: float = _field(50.0, 1.0, 1000.0)
     length_um: float = _field(225.0, 10.0, 2000.0)
-    width_um: float | None = _field(None, 2.0, 500.0)
+    width_um: float | None = _field(None, 2.0, 500.0)  # derived from k, f0, Q if all given, else 28 um
     thickness_um: float | None = _field(None, 0.1, 50.0)  # 3 um when the geometry has to give k, f0 or Q
     material: str = _field("silicon", choices=tuple(sorted(MATERIALS)))
     drive_nm_per_v: float = _field(100.0, 0.1, 1e4)  # free peak amplitude at resonance per drive volt
@@ -170,12 +170,15 @@ class Scenario:
     def lever(self) -> Lever:
         """The lever of this scenario in its air (warnings in ``Lever.warnings``)."""
         p, env = self.probe, self.environment
+        overridden = None not in (p.spring_constant_n_per_m, p.resonance_hz, p.quality_factor)
+        # without all of k, f0 and Q the geometry decides; missing parts default to a 28 x 3 um silicon beam
+        width_um = p.width_um if (p.width_um is not None or overridden) else 28.0
+        thickness_um = p.thickness_um if (p.thickness_um is not None or overridden) else 3.0
         try:
             return build_lever(
                 length_m=p.length_um / 1e6, fluid=air(env.temperature_k, env.pressure_pa),
-                width_m=None if p.width_um is None else p.width_um / 1e6,
-                thickness_m=(3.0 if p.thickness_um is None else p.thickness_um) / 1e6 if None in (
-                    p.spring_constant_n_per_m, p.resonance_hz, p.quality_factor) or p.thickness_um else None,
+                width_m=None if width_um is None else width_um / 1e6,
+                thickness_m=None if thickness_um is None else thickness_um / 1e6,
                 material=p.material, spring_constant_n_per_m=p.spring_constant_n_per_m,
                 resonance_hz=p.resonance_hz, quality_factor=p.quality_factor)
         except ValueError as exc:
