@@ -20,6 +20,7 @@ __all__ = ["SpectrumError", "WelchAccumulator", "WelchSpectrum", "welch_variance
 
 # Segments transformed together: bounds the working memory to about this many segment lengths.
 _BATCH_SEGMENTS = 16
+_BATCH_SAMPLES = 2**20  # and at most about this many samples per batch
 
 
 class SpectrumError(ValueError):
@@ -115,32 +116,40 @@ class WelchAccumulator:
         Samples per segment (even, >= 16); segments overlap by half of it.
     detrend : bool, keyword-only
         Remove each segment's mean before windowing (scipy's ``detrend="constant"``, the default there).
+    workers : int
+        Threads for the FFT (``scipy.fft`` ``workers``).
 
     Notes
     -----
     Equal to ``scipy.signal.welch(x, rate_hz, window="hann", nperseg=segment_length, noverlap=
     segment_length // 2, detrend="constant", scaling="density")`` of the concatenated chunks (computed in
-    double precision whatever the input type).
+    double precision whatever the input type). Working memory is a few times
+    ``max(segment_length, 2**20)`` samples, independent of the record length.
     """
 
-    def __init__(self, rate_hz: float, segment_length: int, *, detrend: bool = True) -> None:
+    def __init__(self, rate_hz: float, segment_length: int, *, detrend: bool = True, workers: int = 1) -> None:
         if not np.isfinite(rate_hz) or rate_hz <= 0:
             raise SpectrumError(f"sampling rate rate_hz = {rate_hz!r} must be a positive finite number")
         if int(segment_length) != segment_length or segment_length < 16 or segment_length % 2:
             raise SpectrumError(f"segment_length = {segment_length!r} must be an even integer >= 16")
         self.rate_hz = float(rate_hz)
-        self.segment_length = int(segment_length)
-        self._step = self.segment_length // 2
+        self.segment_length = n = int(segment_length)
+        self._step = n // 2
         self._detrend = detrend
-        self._window = scipy.signal.get_window("hann", self.segment_length)  # periodic (fftbins=True)
-        self._sum = np.zeros(self.segment_length // 2 + 1)
-        self._tail = np.zeros(0)
+        self._workers = int(workers)
+        self._window = scipy.signal.get_window("hann", n)  # periodic (fftbins=True), as scipy.signal.welch
+        self._batch = max(1, min(_BATCH_SEGMENTS, _BATCH_SAMPLES // n))
+        # Input buffer: the unprocessed tail plus new samples, exactly ``batch`` segments when full.
+        self._buf = np.empty(n + (self._batch - 1) * self._step)
+        self._fill = 0
+        self._work = np.empty((self._batch, n))
+        self._sum = np.zeros(n // 2 + 1)
         self._n_segments = 0
         self._n_samples = 0
 
     @property
     def n_segments(self) -> int:
-        """Segments accumulated so far."""
+        """Segments accumulated so far (complete segments still in the buffer not counted)."""
         return self._n_segments
 
     @property
@@ -149,44 +158,56 @@ class WelchAccumulator:
         return self._n_samples
 
     def add(self, chunk: np.ndarray) -> None:
-        """Feed the next samples of the record (1-D, finite; any length, may be empty)."""
+        """Feed the next samples of the record (1-D, finite, real; any length, may be empty)."""
         x = np.asarray(chunk)
         if x.ndim != 1:
             raise SpectrumError(f"chunk must be 1-D, got shape {x.shape}")
-        if x.size and not np.issubdtype(x.dtype, np.number) or np.iscomplexobj(x):
+        if np.iscomplexobj(x) or (x.size and not np.issubdtype(x.dtype, np.number)):
             raise SpectrumError(f"chunk must hold real numbers, got dtype {x.dtype}")
-        piece = _BATCH_SEGMENTS * self._step
-        for start in range(0, x.size, piece):
-            part = x[start:start + piece]
-            if not np.all(np.isfinite(part)):
-                bad = start + int(np.flatnonzero(~np.isfinite(part))[0])
+        pos = 0
+        while pos < x.size:
+            take = min(x.size - pos, self._buf.size - self._fill)
+            part = x[pos:pos + take]
+            finite = np.isfinite(part)
+            if not finite.all():
+                bad = int(np.flatnonzero(~finite)[0])
                 raise SpectrumError(
-                    f"sample {self._n_samples + bad - start} is {part[bad - start]!r}; samples must be finite")
-            self._consume(np.concatenate((self._tail, part.astype(np.float64, copy=False))))
-            self._n_samples += part.size
+                    f"sample {self._n_samples + bad} is {part[bad]!r}; samples must be finite")
+            self._buf[self._fill:self._fill + take] = part
+            self._fill += take
+            self._n_samples += take
+            pos += take
+            if self._fill == self._buf.size:
+                self._process()
 
-    def _consume(self, buf: np.ndarray) -> None:
+    def _process(self) -> None:
         n, step = self.segment_length, self._step
-        if buf.size < n:
-            self._tail = buf
+        if self._fill < n:
             return
-        m = (buf.size - n) // step + 1
-        segs = np.lib.stride_tricks.sliding_window_view(buf, n)[: (m - 1) * step + 1: step]
+        m = (self._fill - n) // step + 1
+        segs = np.lib.stride_tricks.sliding_window_view(self._buf[:self._fill], n)[: (m - 1) * step + 1: step]
+        work = self._work[:m]
         if self._detrend:
-            segs = segs - segs.mean(axis=1, keepdims=True)
-        spec = scipy.fft.rfft(segs * self._window, axis=1)
-        self._sum += (spec.real**2 + spec.imag**2).sum(axis=0)
+            np.subtract(segs, segs.mean(axis=1, keepdims=True), out=work)
+            work *= self._window
+        else:
+            np.multiply(segs, self._window, out=work)
+        spec = scipy.fft.rfft(work, axis=1, workers=self._workers)
+        self._sum += np.einsum("ij,ij->j", spec.real, spec.real) + np.einsum("ij,ij->j", spec.imag, spec.imag)
         self._n_segments += m
-        self._tail = buf[m * step:].copy()
+        rest = self._fill - m * step
+        self._buf[:rest] = self._buf[m * step:self._fill]  # numpy handles the overlap
+        self._fill = rest
 
     def result(self) -> WelchSpectrum:
-        """The averaged spectrum so far.
+        """The averaged spectrum of all complete segments so far (accumulation may go on afterwards).
 
         Raises
         ------
         SpectrumError
             If not one complete segment has arrived.
         """
+        self._process()
         if self._n_segments == 0:
             raise SpectrumError(
                 f"record too short: {self._n_samples} samples, need at least segment_length = "

@@ -96,20 +96,26 @@ def _find_peak(f: np.ndarray, p: np.ndarray, *, averages: float, f0_guess_hz: fl
         centre, reach = float(f0_guess_hz), 0.05
         i = int(np.argmin(np.abs(centres - centre)))
     background = float(bg[i])
-    smooth = np.convolve(p, np.ones(5) / 5.0, mode="same")
     near = np.flatnonzero((f >= centre * (1 - reach)) & (f <= centre * (1 + reach)) & (f >= 5 * df))
     if near.size == 0:
         near = np.array([int(np.argmin(np.abs(f - centre)))])
-    k = int(near[np.argmax(smooth[near])])
-    height = float(smooth[k])
-    half = background + 0.5 * (height - background)
-    left = k
-    while left > 0 and smooth[left] > half:
-        left -= 1
-    right = k
-    while right < f.size - 1 and smooth[right] > half:
-        right += 1
-    fwhm = max(float(f[right] - f[left]) - df, df)
+    width = 5
+    for _ in range(4):  # smooth over about a quarter of the width found so far: robust height and FWHM
+        smooth = np.convolve(p, np.ones(width) / width, mode="same")
+        k = int(near[np.argmax(smooth[near])])
+        height = float(smooth[k])
+        half = background + 0.5 * (height - background)
+        left = k
+        while left > 0 and smooth[left] > half:
+            left -= 1
+        right = k
+        while right < f.size - 1 and smooth[right] > half:
+            right += 1
+        fwhm = max(float(f[right] - f[left]) - df, df)
+        new_width = int(min(max(5, fwhm / df / 4), max(5, f.size // 20))) | 1
+        if new_width <= width:
+            break
+        width = new_width
     return _Peak(float(f[k]), fwhm, height, background)
 
 

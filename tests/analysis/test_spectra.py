@@ -111,7 +111,7 @@ def test_constant_memory():
     _, peak = tracemalloc.get_traced_memory()
     tracemalloc.stop()
     assert peak < 12 * 2**20, f"peak {peak / 2**20:.1f} MiB"
-    assert acc._tail.size < 2**14
+    assert acc._buf.size < 2**21
 
 
 @pytest.mark.parametrize("bad", [np.array([0.0, np.nan, 1.0] * 20), np.array([np.inf] * 40)])
