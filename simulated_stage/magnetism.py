@@ -146,7 +146,8 @@ class StrayField:
 
     Parameters
     ----------
-    mx_a_per_m, mz_a_per_m : magnetisation maps [A/m], shape (n, n) (rows = y).
+    mx_a_per_m, mz_a_per_m : magnetisation maps [A/m], shape (ny, nx) (rows = y); square for a film,
+        any rectangle for a local patch (the incremental update after switching).
     pixel_m : pixel side [m]; thickness_m : film thickness t [m].
     pad_m : minimum zero padding between the film and its periodic images [m].
     halo_px : extra pixels kept around the film in every returned map (for spline coefficients).
@@ -154,13 +155,16 @@ class StrayField:
 
     def __init__(self, mx_a_per_m: np.ndarray, mz_a_per_m: np.ndarray, *, pixel_m: float,
                  thickness_m: float, pad_m: float = 0.4e-6, halo_px: int = 3, workers: int = 2) -> None:
-        n = mz_a_per_m.shape[0]
-        self.n, self.pixel_m, self.thickness_m, self.halo_px, self.workers = n, pixel_m, thickness_m, halo_px, workers
+        self.ny, self.nx = mz_a_per_m.shape
+        self.n = self.ny  # side of a square film map
+        self.pixel_m, self.thickness_m, self.halo_px, self.workers = pixel_m, thickness_m, halo_px, workers
         pad = max(4 * halo_px, 32, math.ceil(pad_m / pixel_m))
-        self.size = sfft.next_fast_len(n + pad, real=True)
-        self.offset = (self.size - n) // 2  # film placed in the middle of the padded grid
-        fy = sfft.fftfreq(self.size, d=pixel_m)[:, None]
-        fx = sfft.rfftfreq(self.size, d=pixel_m)[None, :]
+        self.shape = (sfft.next_fast_len(self.ny + pad, real=True), sfft.next_fast_len(self.nx + pad, real=True))
+        self.size = self.shape[0]
+        # film placed in the middle of the padded grid
+        self.offsets = ((self.shape[0] - self.ny) // 2, (self.shape[1] - self.nx) // 2)
+        fy = sfft.fftfreq(self.shape[0], d=pixel_m)[:, None]
+        fx = sfft.rfftfreq(self.shape[1], d=pixel_m)[None, :]
         kx, ky = 2.0 * np.pi * fx, 2.0 * np.pi * fy
         self.k = np.hypot(kx, ky)
         k_safe = np.where(self.k == 0.0, 1.0, self.k)
@@ -179,18 +183,18 @@ class StrayField:
         self._weights: dict[float, tuple[np.ndarray, np.ndarray]] = {}
 
     def _rfft(self, m: np.ndarray) -> np.ndarray:
-        padded = np.zeros((self.size, self.size))
-        o = self.offset
-        padded[o:o + self.n, o:o + self.n] = m
+        padded = np.zeros(self.shape)
+        oy, ox = self.offsets
+        padded[oy:oy + self.ny, ox:ox + self.nx] = m
         return sfft.rfft2(padded, workers=self.workers)
 
     def to_map(self, spectrum: np.ndarray, *, spline: bool = False, dtype: type = np.float64) -> np.ndarray:
         """Inverse transform cropped to the film plus ``halo_px``; optionally as cubic-spline coefficients."""
         if spline:
             spectrum = spectrum * self.spline_prefilter
-        full = sfft.irfft2(spectrum, s=(self.size, self.size), workers=self.workers)
-        lo, hi = self.offset - self.halo_px, self.offset + self.n + self.halo_px
-        return np.ascontiguousarray(full[lo:hi, lo:hi], dtype=dtype)
+        full = sfft.irfft2(spectrum, s=self.shape, workers=self.workers)
+        (oy, ox), h = self.offsets, self.halo_px
+        return np.ascontiguousarray(full[oy - h:oy + self.ny + h, ox - h:ox + self.nx + h], dtype=dtype)
 
     def hz(self, height_m: float, order: int = 0) -> np.ndarray:
         """d^order H_z / dz^order [A/m^(1+order)] at height z above the film top (map incl. halo)."""

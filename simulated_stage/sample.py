@@ -215,17 +215,46 @@ class Sample:
         if key in self._nodes:
             self._nodes.move_to_end(key)
             return self._nodes[key]
-        stray = self._stray_field()
-        force, grad = stray.probe_spectra(z_node, amp, moment_a_m2=self.tip.moment_a_m2,
-                                          monopole_a_m=self.tip.monopole_a_m)
-        k = stray.k
-        maps = tuple(stray.to_map(s, spline=True, dtype=np.float32)
-                     for s in (grad, -k * grad, k * k * grad, force, -k * force))
+        maps = self._node_maps(self._stray_field(), amp, z_node)
         self._nodes[key] = maps
         per_node = sum(m.nbytes for m in maps)
         while len(self._nodes) > 1 and per_node * len(self._nodes) > self._cache_bytes:
             self._nodes.popitem(last=False)
         return maps
+
+    def _node_maps(self, stray: magnetism.StrayField, amp: float, z_node: float) -> tuple[np.ndarray, ...]:
+        """Spline coefficients of <F'>, d<F'>/dz, d2<F'>/dz2, <F>, d<F>/dz at one probe height (float32)."""
+        force, grad = stray.probe_spectra(z_node, amp, moment_a_m2=self.tip.moment_a_m2,
+                                          monopole_a_m=self.tip.monopole_a_m)
+        k = stray.k
+        return tuple(stray.to_map(s, spline=True, dtype=np.float32)
+                     for s in (grad, -k * grad, k * k * grad, force, -k * force))
+
+    def _update_nodes(self, pixels: np.ndarray, old_values: np.ndarray, in_plane: bool) -> None:
+        """Add the field of the switched pixels (Delta M = -2 M_old) to every cached node map.
+
+        Computed on a local window around the switched pixels, with a margin of ten times the highest cached
+        probe height: the field of a switched patch falls off at least as (z/r)^3 laterally, so what lies
+        beyond the margin is below 1e-3 of the change itself. Much cheaper than rebuilding every node.
+        """
+        self._stray = None  # the full spectrum is rebuilt only if a new node is needed
+        if not self._nodes:
+            return
+        rows, cols = np.divmod(pixels, self.n)
+        z_top = max(z for (_, z) in self._nodes)
+        margin = max(16, math.ceil(10.0 * z_top / self.pixel_m))
+        r0, r1 = max(rows.min() - margin, 0), min(rows.max() + margin + 1, self.n)
+        c0, c1 = max(cols.min() - margin, 0), min(cols.max() + margin + 1, self.n)
+        delta = np.zeros((r1 - r0, c1 - c0))
+        delta[rows - r0, cols - c0] = -2.0 * old_values
+        zeros = np.zeros_like(delta)
+        local = magnetism.StrayField(delta if in_plane else zeros, zeros if in_plane else delta,
+                                     pixel_m=self.pixel_m, thickness_m=self.spec.thickness_nm * 1e-9,
+                                     pad_m=2 * margin * self.pixel_m)
+        h = local.halo_px
+        for (amp, z_node), maps in self._nodes.items():
+            for target, change in zip(maps, self._node_maps(local, amp, z_node)):
+                target[r0:r1 + 2 * h, c0:c1 + 2 * h] += change
 
     def _magnetic(self, x: np.ndarray, y: np.ndarray, zp: np.ndarray, amp: float
                   ) -> tuple[np.ndarray, np.ndarray]:
@@ -307,8 +336,7 @@ class Sample:
         if count:
             target[pix[flip]] = -current[flip]
             self._version += 1
-            self._stray = None
-            self._nodes.clear()
+            self._update_nodes(pix[flip], current[flip], bool(in_plane))
         return count
 
 
