@@ -1,0 +1,125 @@
+"""The controller-side watchdog: an engaged client that falls silent gets the tip withdrawn, the drive off and
+the bias at zero within the set time; a client process killed with SIGKILL included."""
+
+from __future__ import annotations
+
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+
+sys.path.insert(0, str(Path(__file__).parent))
+from link_fakes import ROOT, FakeController, ThreadServer, connect  # noqa: E402
+
+from drivers.server import Dispatcher  # noqa: E402
+
+pytestmark = pytest.mark.timeout(60)
+
+
+class ManualClock:
+    def __init__(self) -> None:
+        self.t = 0.0
+
+    def __call__(self) -> float:
+        return self.t
+
+
+def _engaged_fake():
+    fake = FakeController()
+    fake.stage.set_feedback(True)
+    fake.stage.set_drive(7e4, 0.1)
+    fake.stage.set_bias(2.0)
+    return fake
+
+
+def test_silence_while_engaged_trips_on_the_virtual_clock():
+    clock, fake = ManualClock(), _engaged_fake()
+    d = Dispatcher(fake, watchdog_s=2.0, clock=clock)
+    clock.t = 1.5
+    assert not d.watchdog() and fake.status().engaged
+    clock.t = 2.0
+    d.activity()  # the client spoke: the silence starts again
+    clock.t = 3.5
+    assert not d.watchdog()
+    clock.t = 4.0
+    assert not d.watchdog()  # exactly the limit is still allowed
+    clock.t = 4.01
+    assert d.watchdog() and fake.status().safe and d.watchdog_trips == 1
+    fake.stage.set_feedback(True)
+    clock.t = 10.0
+    assert not d.watchdog()  # once per silence: the client may be gone for good, the stage is safe already
+    d.activity()
+    clock.t = 12.5
+    assert d.watchdog() and d.watchdog_trips == 2
+
+
+def test_silence_while_withdrawn_does_nothing():
+    clock, fake = ManualClock(), FakeController()
+    d = Dispatcher(fake, watchdog_s=1.0, clock=clock)
+    clock.t = 100.0
+    assert not d.watchdog() and sum(fake.calls.values()) == 0
+
+
+def test_disabled_watchdog():
+    clock, fake = ManualClock(), _engaged_fake()
+    d = Dispatcher(fake, watchdog_s=None, clock=clock)
+    clock.t = 1e6
+    assert not d.watchdog() and fake.status().engaged
+
+
+def _wait_safe(fake, limit_s):
+    t0 = time.monotonic()
+    while time.monotonic() - t0 < limit_s:
+        if fake.status().safe:
+            return time.monotonic() - t0
+        time.sleep(0.01)
+    raise AssertionError(f"stage not safe after {limit_s} s: {fake.status()}")
+
+
+@pytest.mark.parametrize("transport", ["serial", "zmq"])
+def test_silent_client_over_a_real_link(transport):
+    fake = FakeController()
+    with ThreadServer(fake, transport=transport, watchdog_s=0.3) as srv:
+        c = connect(srv.announcement)
+        c.set_drive(7e4, 0.1)
+        c.set_feedback(True, setpoint_v=0.2)
+        c.set_bias(1.5)
+        assert c.status().engaged
+        elapsed = _wait_safe(fake, 2.0)  # the client is still connected, just silent
+        assert elapsed <= 0.3 + 0.25
+        c.close()
+
+
+CLIENT = """
+import sys, time
+sys.path[:0] = {paths!r}
+from drivers.network_link import NetworkController
+c = NetworkController({endpoint!r})
+c.set_drive(7e4, 0.1); c.set_feedback(True, setpoint_v=0.2); c.set_bias(2.0)
+sys.stdout.write("engaged\\n"); sys.stdout.flush()
+time.sleep(60)
+"""
+
+
+def test_sigkilled_client_process_gets_the_tip_withdrawn():
+    fake = FakeController()
+    with ThreadServer(fake, transport="zmq", watchdog_s=0.5) as srv:
+        code = CLIENT.format(paths=[str(ROOT)], endpoint=srv.announcement["endpoint"])
+        proc = subprocess.Popen([sys.executable, "-c", code], stdout=subprocess.PIPE, text=True, cwd=ROOT)
+        try:
+            assert proc.stdout.readline().strip() == "engaged"
+            assert fake.status().engaged
+            os.kill(proc.pid, signal.SIGKILL)
+            killed = time.monotonic()
+            proc.wait(5)
+            _wait_safe(fake, 3.0)
+            assert time.monotonic() - killed <= 0.5 + 0.3
+            assert srv.thread.is_alive()  # and the server is still serving
+        finally:
+            if proc.poll() is None:
+                proc.kill()
+                proc.wait(5)
