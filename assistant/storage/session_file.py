@@ -196,10 +196,9 @@ def _plain_arrays(arrays: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:
 
 def _read_record(group: h5py.Group) -> Record:
     units = json.loads(group.attrs.get("scalar_units", "{}"))
-    skip = {"NX_class", "scalar_units", "signal", "axes", "default"}
     scalars: dict[str, Scalar] = {}
     for name, value in group.attrs.items():
-        if name in skip or name.endswith("_indices"):
+        if name in _RESERVED or name.endswith("_indices"):
             continue
         if isinstance(value, bytes):
             value = value.decode()
