@@ -355,29 +355,34 @@ class VirtualMicroscope:
         return self._record(int(samples), float(rate_hz), int(chunk))
 
     def _record(self, samples: int, rate_hz: float, chunk: int) -> Iterator[np.ndarray]:
+        scale = self.volts_per_m
         if rate_hz not in self._thermal:
-            white_m = self.detector.white_std_v(rate_hz) / self.volts_per_m
+            white_m = self.detector.white_std_v(rate_hz) / scale
+            # a fast bit generator for the bulk noise, seeded from the injected one (reproducible)
+            fast = np.random.Generator(np.random.SFC64(int(self._rng.integers(2**63))))
             mode = ThermalMode(stiffness_n_per_m=self.k / 0.970688, resonance_hz=self.f0, quality_factor=self.q,
-                               temperature_k=self.temperature_k, rate_hz=rate_hz, rng=self._rng,
-                               white_noise_std_m=white_m)
-            flicker = FlickerNoise(self.detector.flicker_v_per_rthz_at_1hz, rate_hz, self._rng)
+                               temperature_k=self.temperature_k, rate_hz=rate_hz, rng=fast,
+                               white_noise_std_m=white_m, output_gain=scale)
+            flicker = FlickerNoise(self.detector.flicker_v_per_rthz_at_1hz, rate_hz, fast)
             self._thermal = {rate_hz: (mode, flicker)}
         mode, flicker = self._thermal[rate_hz]
-        scale = self.volts_per_m
+        sat = self.detector.saturation_v
         done = 0
         while done < samples:
             self._require_laser()
             n = min(chunk, samples - done)
             v = mode.next_chunk(n)
-            v *= scale * self.laser_fraction
-            v += flicker.next_chunk(n)
+            if self.laser_fraction != 1.0:
+                v *= self.laser_fraction
+            flicker.add_to(v)
             if self.drive_on and self.drive_amplitude_v > 0:
                 a = float(self.free_amplitude_m()) * scale
                 _, lag = driven_response(self.drive_frequency_hz, spring_constant_n_per_m=self.k,
                                          resonance_hz=self.f0, quality_factor=self.q)
                 t = self.clock.now_s + np.arange(n) / rate_hz
                 v += a * np.cos(2 * np.pi * self.drive_frequency_hz * t - float(lag))
-            self.detector.clip(v)
+            if v.max() > sat or v.min() < -sat:
+                self.detector.clip(v)
             self.clock.advance(n / rate_hz)
             done += n
             yield v

@@ -106,18 +106,31 @@ class FlickerNoise:
         return out
 
     def next_chunk(self, samples: int) -> np.ndarray:
-        if self._h == 0.0 or self._decay.size == 0:
-            return np.zeros(samples)
-        first = min(self._hold - self._used, samples)
+        """The next ``samples`` values."""
+        return self.add_to(np.zeros(samples))
+
+    def add_to(self, out: np.ndarray) -> np.ndarray:
+        """Add the next ``out.size`` values to ``out`` in place (cheap: one broadcast add) and return it."""
+        samples = out.size
+        if self._h == 0.0 or self._decay.size == 0 or samples == 0:
+            return out
+        hold = self._hold
+        first = min(hold - self._used, samples)
+        out[:first] += self._current
+        self._used += first
         rest = samples - first
-        new = -(-rest // self._hold)
-        values = np.concatenate(([self._current], self._low_rate(new))) if new else np.array([self._current])
-        counts = np.full(values.size, self._hold)
-        counts[0] = first
-        if new:
-            counts[-1] = rest - (new - 1) * self._hold
-            self._used = int(counts[-1])
-            self._current = float(values[-1])
+        if rest == 0:
+            return out
+        new = -(-rest // hold)
+        values = self._low_rate(new)
+        full = rest // hold
+        body = out[first:first + full * hold]
+        body.reshape(full, hold)[...] += values[:full, None]
+        tail = rest - full * hold
+        if tail:
+            out[first + full * hold:] += values[-1]
+            self._used = tail
         else:
-            self._used += first
-        return np.repeat(values, counts)
+            self._used = hold
+        self._current = float(values[-1])
+        return out

@@ -74,11 +74,13 @@ class ThermalMode:
     white_noise_std_m : float, keyword-only
         Standard deviation of white measurement noise added to every sample [m], folded into the same
         filter (exactly, by spectral factorisation).
+    output_gain : float, keyword-only
+        Factor applied to every output sample (e.g. detector volts per metre), folded into the filter.
     """
 
     def __init__(self, *, stiffness_n_per_m: float, resonance_hz: float, quality_factor: float,
                  temperature_k: float, rate_hz: float, rng: np.random.Generator,
-                 white_noise_std_m: float = 0.0) -> None:
+                 white_noise_std_m: float = 0.0, output_gain: float = 1.0) -> None:
         for name, value in (("stiffness_n_per_m", stiffness_n_per_m), ("resonance_hz", resonance_hz),
                             ("quality_factor", quality_factor), ("temperature_k", temperature_k),
                             ("rate_hz", rate_hz)):
@@ -105,7 +107,8 @@ class ThermalMode:
         r1 = g1 - s2 * t * (1 + d)
         r2 = s2 * d
         self._a = np.array([1.0, -t, d])
-        self._b = self.sigma_m * _ma_factor(r0, r1, r2)
+        self._b = output_gain * self.sigma_m * _ma_factor(r0, r1, r2)
+        self._u = np.empty(0)
         # stationary start: covariance of the direct-form-II-transposed filter state
         a_s = np.array([[t, 1.0], [-d, 0.0]])
         b_s = np.array([self._b[1] + t * self._b[0], self._b[2] - d * self._b[0]])
@@ -118,8 +121,10 @@ class ThermalMode:
         return self.sigma_m**2
 
     def next_chunk(self, samples: int) -> np.ndarray:
-        """The next ``samples`` values of the record [m], continuing the previous chunk exactly."""
-        u = self._rng.standard_normal(samples)
+        """The next ``samples`` values of the record [m] (times ``output_gain``), continuing exactly."""
+        if self._u.size != samples:
+            self._u = np.empty(samples)
+        u = self._rng.standard_normal(out=self._u)
         y, self._zi = lfilter(self._b, self._a, u, zi=self._zi)
         return y
 
