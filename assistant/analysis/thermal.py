@@ -19,7 +19,7 @@ k instead, the sensitivity follows (non-contact InvOLS, Higgins et al. 2006, Rev
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 import scipy.ndimage
@@ -28,7 +28,7 @@ from .spectra import WelchAccumulator, WelchSpectrum
 
 __all__ = [
     "BOLTZMANN_J_PER_K", "DETECTION_FACTORS", "ThermalFit", "ThermalFitError", "ThermalResult",
-    "analyse_thermal_record", "calibrate_thermal", "fit_thermal_spectrum", "invols_from_thermal",
+    "analyse_thermal_record", "calibrate_thermal", "default_segment_length", "fit_thermal_spectrum", "invols_from_thermal",
     "oscillator_psd", "spring_constant_from_thermal",
 ]
 
@@ -224,8 +224,8 @@ def _neg_log_likelihood(psd: np.ndarray, s: np.ndarray) -> float:
     return float(np.sum(psd / s + np.log(s)))
 
 
-def _maximise_likelihood(f, psd, p0, with_c, *, max_iter=300):
-    """Fisher scoring with Levenberg damping on scaled parameters; returns (p, H, iterations)."""
+def _maximise_likelihood(f, psd, p0, with_c, *, averages, max_iter=300):
+    """Fisher scoring with Levenberg damping on scaled parameters; returns (p, H, iterations, converged)."""
     scale = np.abs(p0) + 0.0
     scale[3] = max(scale[3], np.median(psd) * 1e-3)
     if with_c:
@@ -234,6 +234,7 @@ def _maximise_likelihood(f, psd, p0, with_c, *, max_iter=300):
     s, jac = _design(f, p, with_c)
     ell = _neg_log_likelihood(psd, s)
     lam = 1e-3
+    converged = False
     for it in range(1, max_iter + 1):
         js = jac * scale
         w = 1.0 / (s * s)
@@ -261,6 +262,9 @@ def _maximise_likelihood(f, psd, p0, with_c, *, max_iter=300):
                 break
             lam *= 4.0
         if not improved:
+            # No step lowers the objective any more: converged if the remaining Newton step is below
+            # 1e-3 standard errors (gradient over sqrt(curvature), times sqrt(averages)).
+            converged = bool(np.max(np.abs(gn)) * np.sqrt(averages) < 1e-3)
             break
         converged = abs(ell - ell_t) <= 1e-12 * max(1.0, abs(ell)) and np.max(np.abs(step * d)) < 1e-6
         p, s, jac, ell = trial, s_t, jac_t, ell_t
@@ -269,7 +273,7 @@ def _maximise_likelihood(f, psd, p0, with_c, *, max_iter=300):
             break
     w = 1.0 / (s * s)
     h_phys = jac.T @ (jac * w[:, None])
-    return p, h_phys, it
+    return p, h_phys, it, converged
 
 
 def fit_thermal_spectrum(frequencies_hz: np.ndarray, psd_v2_per_hz: np.ndarray, *, averages: float,
@@ -351,13 +355,15 @@ def fit_thermal_spectrum(frequencies_hz: np.ndarray, psd_v2_per_hz: np.ndarray, 
             raise ThermalFitError(
                 f"fit window {lo:.6g}..{hi:.6g} Hz holds {np.count_nonzero(sel)} bins, need >= {3 * p0.size}")
         fw, pw = f[sel], p[sel]
-        est, h, iterations = _maximise_likelihood(fw, pw, p0, with_c)
+        est, h, iterations, converged = _maximise_likelihood(fw, pw, p0, with_c, averages=averages)
         if fit_range_hz is not None:
             break
         f0_new, fwhm_new = est[0], est[0] / est[1]
         if abs(f0_new - f0) < 0.1 * fwhm and abs(fwhm_new / fwhm - 1) < 0.2:
             break
         f0, fwhm, p0 = f0_new, fwhm_new, est
+    if not converged:
+        raise ThermalFitError(f"maximum-likelihood fit did not converge in {iterations} iterations")
     try:
         cov = np.linalg.inv(h) * (variance_inflation / averages)
     except np.linalg.LinAlgError as exc:
@@ -390,7 +396,7 @@ def _checked(fit: ThermalFit, df: float) -> ThermalFit:
                      "Q and k may be biased; use longer segments")
     if fit.q < 2:
         notes.append(f"Q = {fit.q:.3g} is low: the oscillator model and the window may not hold")
-    return ThermalFit(**{**fit.__dict__, "warnings": tuple(notes)})
+    return replace(fit, warnings=tuple(notes))
 
 
 def spring_constant_from_thermal(peak_area_v2: float, *, invols_m_per_v: float, temperature_k: float,
@@ -534,12 +540,17 @@ def analyse_thermal_record(volts: np.ndarray, rate_hz: float, *, temperature_k: 
         raise ThermalFitError("record is empty")
     n = default_segment_length(x.size) if segment_length is None else int(segment_length)
     acc = WelchAccumulator(rate_hz, n)
+    lo, hi = np.inf, -np.inf
     try:
         for start in range(0, x.size, chunk_samples):
-            acc.add(x[start:start + chunk_samples])
+            chunk = x[start:start + chunk_samples]
+            acc.add(chunk)
+            lo, hi = min(lo, float(np.min(chunk))), max(hi, float(np.max(chunk)))
         spec = acc.result()
     except ValueError as exc:
         raise ThermalFitError(f"deflection record rejected: {exc}") from exc
+    if lo == hi:
+        raise ThermalFitError(f"record is constant (every sample = {lo!r} V): no thermal motion recorded")
     fit = fit_thermal_spectrum(spec.frequencies_hz, spec.psd_v2_per_hz, averages=spec.n_segments,
                                variance_inflation=spec.variance_inflation, f0_guess_hz=f0_guess_hz,
                                fit_range_hz=fit_range_hz, background=background, spectrum=spec)
