@@ -154,7 +154,8 @@ def test_calibration_figures_fallback_refits_the_stored_sweep_and_spectrum(tmp_p
 
 
 def test_second_report_into_the_same_folder_lists_the_same_files(tmp_path, monkeypatch):
-    _session(tmp_path / "s.h5", lines_done=4)
+    with SessionFile.create(tmp_path / "s.h5", controller_url="sim://", software_version="0.1.0") as s:
+        s.write_calibration(CAL)
 
     def figures_from_session(session, out_dir):
         (out_dir / "extra.png").write_bytes(PNG)
