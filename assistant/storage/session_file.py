@@ -328,6 +328,12 @@ class SessionFile:
         attrs["NX_class"] = "NXroot"
         session = cls(h5, fsync=fsync)
         session.flush()
+        if fsync and hasattr(os, "O_DIRECTORY"):  # a power cut must not lose the new file's directory entry
+            folder = os.open(path.resolve().parent, os.O_RDONLY | os.O_DIRECTORY)
+            try:
+                os.fsync(folder)
+            finally:
+                os.close(folder)
         return session
 
     @classmethod
