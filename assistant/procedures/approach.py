@@ -40,13 +40,16 @@ class ApproachResult:
 
 
 def _engaged_reading(controller, settings: ApproachSettings) -> tuple[bool, float, float]:
-    """Switch feedback on and report whether it holds the setpoint inside the Z range."""
+    """Switch feedback on; the surface is within reach when the feedback stopped Z short of full extension.
+
+    The Z position alone decides: stepping the coarse motor forward after the feedback has found the surface
+    would crash the tip, whatever the amplitude reading says.
+    """
     controller.set_feedback(True, setpoint_v=settings.setpoint_v)
     r = controller.read(["z_m", "amplitude_v"])
     z, amp = r["z_m"], r["amplitude_v"]
-    z_max = controller.limits.z_range_m
-    holds = abs(amp - settings.setpoint_v) <= settings.tolerance * settings.setpoint_v and z < 0.995 * z_max
-    return holds, z, amp
+    found = z < 0.995 * controller.limits.z_range_m
+    return found, z, amp
 
 
 def approach(controller, settings: ApproachSettings, *, limits: SafetyLimits | None = None,
@@ -96,6 +99,10 @@ def approach(controller, settings: ApproachSettings, *, limits: SafetyLimits | N
             holds, z, amp = _engaged_reading(controller, settings)
             if not holds:
                 raise NoSurfaceFound("lost the surface while re-centring Z; withdraw and approach again")
+        if abs(amp - settings.setpoint_v) > settings.tolerance * settings.setpoint_v:
+            sink(Notice("warning", f"engaged, but the amplitude {amp * 1e3:.1f} mV is more than "
+                                   f"{settings.tolerance:.0%} from the setpoint {settings.setpoint_v * 1e3:.1f} mV: "
+                                   "check the feedback gains"))
         status = controller.status()
         result.engaged = True
         result.z_m = z
