@@ -334,7 +334,14 @@ def fit_thermal_spectrum(frequencies_hz: np.ndarray, psd_v2_per_hz: np.ndarray, 
     df = float(f[1] - f[0])
     if nyquist_hz is None and spectrum is not None:
         nyquist_hz = spectrum.rate_hz / 2.0
-    peak = _find_peak(f, p, averages=averages, f0_guess_hz=f0_guess_hz)
+    if fit_range_hz is not None:
+        lo, hi = fit_range_hz
+        if not lo < hi:
+            raise ThermalFitError(f"fit_range_hz = {fit_range_hz!r} must be (low, high) with low < high")
+        inside = (f >= lo) & (f <= hi)
+        peak = _find_peak(f[inside], p[inside], averages=averages, f0_guess_hz=f0_guess_hz)
+    else:
+        peak = _find_peak(f, p, averages=averages, f0_guess_hz=f0_guess_hz)
     if nyquist_hz is not None and peak.f0_hz > _MAX_F0_OVER_NYQUIST * nyquist_hz:
         raise ThermalFitError(
             f"resonance near {peak.f0_hz:.6g} Hz is too close to the Nyquist frequency {nyquist_hz:.6g} Hz "

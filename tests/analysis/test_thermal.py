@@ -257,3 +257,14 @@ def test_bias_and_spread_over_seeds():
     assert abs(ks.mean() - 1) < 0.005
     assert ks.std(ddof=1) < 1.2 * limit
     assert np.mean(stds) == pytest.approx(ks.std(ddof=1), rel=0.3)  # reported errors are honest
+
+
+def test_explicit_window_and_start_value():
+    fit_auto, _ = _fit_gamma(6, n=20)
+    fit_range, _ = _fit_gamma(6, n=20, fit_range_hz=(72e3, 78e3))
+    fit_guess, _ = _fit_gamma(6, n=20, f0_guess_hz=74.9e3)
+    assert fit_range.fit_range_hz[0] >= 72e3 and fit_range.fit_range_hz[1] <= 78e3
+    assert abs(fit_range.f0_hz - F0) < 4 * fit_range.f0_std_hz
+    assert fit_guess.f0_hz == pytest.approx(fit_auto.f0_hz, rel=1e-9)
+    with pytest.raises(ThermalFitError, match="fit_range_hz"):
+        _fit_gamma(6, fit_range_hz=(78e3, 72e3))
