@@ -157,3 +157,39 @@ def test_killed_server_is_reported_within_the_client_timeout(transport):
         if proc.poll() is None:
             proc.kill()
             proc.wait(5)
+
+
+@pytest.mark.parametrize("transport", ["serial", "zmq"])
+def test_simulated_controller_over_the_link(transport):
+    """The real simulated stage behind the server, with an injected laser loss arriving as LaserLost."""
+    from link_fakes import connect
+
+    from drivers.errors import LaserLost
+    from drivers.simulated import SimulatedController
+    from simulated_stage.faults import STAGE_KINDS, FaultyStage
+    from simulated_stage.scenario import build_microscope, load_scenario
+
+    scenario = load_scenario("default")
+    plan = FaultPlan.from_specs(["laser_loss:after=1:methods=read"])
+    sim = SimulatedController(FaultyStage(build_microscope(scenario, seed=2), plan.schedule(STAGE_KINDS)),
+                              scenario=scenario, seed=2)
+    with ThreadServer(sim, transport=transport, watchdog_s=None) as srv:
+        with connect(srv.announcement, timeout_s=5.0) as c:
+            assert c.info == sim.info and c.limits == sim.limits and c.capabilities == sim.capabilities
+            assert c.probe_hint() == sim.probe_hint()
+            f0 = sim.stage.f0  # the stage's true resonance (default scenario: 75 kHz)
+            sweep = c.sweep(np.linspace(f0 - 2e3, f0 + 2e3, 81), 0.05)
+            assert np.all(np.isfinite(sweep.amplitude_v)) and len(sweep.phase_deg) == 81
+            f_peak = float(sweep.frequency_hz[np.argmax(sweep.amplitude_v)])
+            assert abs(f_peak - f0) <= 50.0  # one frequency step: the peak came through the link in order
+            c.set_drive(f_peak, 0.05)
+            record = np.concatenate(list(c.record_deflection(4096, 1e6, chunk=1024)))
+            assert record.shape == (4096,) and record.dtype == np.float32 and np.std(record) > 0
+            with pytest.raises(LimitExceeded):
+                c.set_bias(sim.limits.bias_max_v * 2)
+            c.read(["sum_v"])
+            with pytest.raises(LaserLost):
+                c.read(["sum_v", "amplitude_v"])  # the second reading: the laser goes
+            c.make_safe()
+            status = c.status()
+            assert status.safe and "laser lost" in status.faults

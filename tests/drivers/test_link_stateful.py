@@ -1,0 +1,156 @@
+"""Stateful property test: random command sequences with random link and stage faults through a real link
+(pseudo-terminal or ZeroMQ on loopback) to a served controller that checks nothing itself.
+
+Invariants: Z never leaves its range and the bias never leaves its limits (the server's checks are all that
+stand in the way); every error is a typed ControllerError with a message; after every fault, the guard's
+response (make the stage safe over the link) leaves it withdrawn, with the drive off and the bias at zero;
+a refused command changes nothing.
+"""
+
+from __future__ import annotations
+
+import math
+import sys
+from pathlib import Path
+
+import pytest
+from hypothesis import HealthCheck, settings
+from hypothesis import strategies as st
+from hypothesis.stateful import RuleBasedStateMachine, initialize, invariant, precondition, rule
+
+sys.path.insert(0, str(Path(__file__).parent))
+from link_fakes import FakeController, ThreadServer, ToyStage, connect  # noqa: E402
+
+from drivers.base import LineSpec, SecondPass  # noqa: E402
+from drivers.errors import CapabilityMissing, ControllerError, LimitExceeded  # noqa: E402
+from simulated_stage.faults import STAGE_KINDS, Fault, FaultPlan, FaultyStage  # noqa: E402
+
+LINK_FAULTS = (
+    Fault("timeout", probability=0.01), Fault("delay", probability=0.02, delay_s=0.005),
+    Fault("corrupt_reply", probability=0.02, flip_bytes=2), Fault("truncated_reply", probability=0.01),
+    Fault("link_drop", probability=0.005, duration_s=0.05),
+)
+STAGE_FAULTS = (
+    Fault("error_code", probability=0.03), Fault("laser_loss", probability=0.01),
+    Fault("z_jump", probability=0.02, z_jump_m=30e-9), Fault("nan_reading", probability=0.03),
+)
+ANY_FLOAT = st.floats(allow_nan=True, allow_infinity=True) | st.floats(-20e-6, 20e-6) | st.floats(-12.0, 12.0)
+
+
+class LinkMachine(RuleBasedStateMachine):
+    def __init__(self) -> None:
+        super().__init__()
+        self.server = self.client = None
+        self.errors = 0
+
+    @initialize(transport=st.sampled_from(["serial", "zmq"]), seed=st.integers(0, 2**32 - 1))
+    def start(self, transport, seed):
+        plan = FaultPlan(LINK_FAULTS + STAGE_FAULTS, seed=seed)
+        self.stage = ToyStage(seed)
+        self.fake = FakeController(FaultyStage(self.stage, plan.schedule(STAGE_KINDS)))
+        self.limits = self.fake.limits
+        self.server = ThreadServer(self.fake, transport=transport, watchdog_s=None, faults=plan, poll_s=0.005)
+        announcement = self.server.start()
+        for _ in range(20):  # opening itself meets the random link faults
+            try:
+                self.client = connect(announcement, timeout_s=0.1, retries=1)
+                break
+            except ControllerError:
+                continue
+        assert self.client is not None, "could not open the link in 20 attempts"
+
+    def teardown(self):
+        if self.client is not None:
+            self.client.close()
+        if self.server is not None:
+            self.server.close()
+
+    def _snapshot(self):
+        s = self.stage
+        return (s.z_m, s.bias_v, s.drive, s.feedback, s.coarse_m)
+
+    def _do(self, fn):
+        before = self._snapshot()
+        try:
+            fn()
+        except (LimitExceeded, CapabilityMissing) as exc:
+            assert str(exc)
+            assert self._snapshot() == before, "a refused command changed the stage"
+        except ControllerError as exc:
+            assert str(exc), f"{type(exc).__name__} without a message"
+            self.errors += 1
+            self._guard()
+        # anything else propagates and fails the test: only typed errors may come out of a driver
+
+    def _guard(self):
+        """What the procedures' safety guard does after any error: make the stage safe, then check it."""
+        for _ in range(10):
+            try:
+                self.client.make_safe()
+                break
+            except ControllerError:
+                continue
+        else:
+            raise AssertionError("make_safe did not get through in 10 attempts")
+        status = self.fake.status()
+        assert status.safe, f"after a fault the stage is not safe: {status}"
+
+    @rule(z=ANY_FLOAT)
+    def move_z(self, z):
+        self._do(lambda: self.client.move_z(z))
+
+    @rule(v=ANY_FLOAT)
+    def set_bias(self, v):
+        self._do(lambda: self.client.set_bias(v))
+
+    @rule(f=st.floats(1e3, 3e6) | ANY_FLOAT, a=st.floats(0, 3) | ANY_FLOAT)
+    def set_drive(self, f, a):
+        self._do(lambda: self.client.set_drive(f, a))
+
+    @rule(on=st.booleans())
+    def feedback(self, on):
+        self._do(lambda: self.client.set_feedback(on, setpoint_v=0.2))
+
+    @rule(steps=st.integers(-200_000, 200_000))
+    def coarse(self, steps):
+        self._do(lambda: self.client.step_coarse(steps))
+
+    @rule(pixels=st.integers(1, 16), passes=st.lists(st.tuples(ANY_FLOAT, ANY_FLOAT), max_size=3))
+    def scan(self, pixels, passes):
+        spec = LineSpec(0.0, 0.0, 1e-6, pixels, 100.0, tuple(SecondPass(h, b) for h, b in passes))
+        self._do(lambda: self.client.scan_line(spec))
+
+    @rule(channels=st.lists(st.sampled_from(["sum_v", "z_m", "phase_deg", "amplitude_v"]), min_size=1, max_size=4))
+    def read(self, channels):
+        self._do(lambda: self.client.read(channels))
+
+    @rule()
+    def status(self):
+        self._do(self.client.status)
+
+    @precondition(lambda self: self.client is not None)
+    @rule()
+    def make_safe(self):
+        self._do(self.client.make_safe)
+
+    @invariant()
+    def within_hard_limits(self):
+        if self.server is None:
+            return
+        s, lim = self.stage, self.limits
+        assert 0.0 <= s.z_m <= lim.z_range_m and not math.isnan(s.z_m), f"Z = {s.z_m} m"
+        assert abs(s.bias_v) <= lim.bias_max_v, f"bias = {s.bias_v} V"
+        assert 0.0 <= s.drive[1] <= lim.drive_max_v, f"drive = {s.drive[1]} V"
+
+
+SHARED = dict(deadline=None, suppress_health_check=list(HealthCheck), stateful_step_count=8)
+TestLinkFast = LinkMachine.TestCase
+TestLinkFast.settings = settings(max_examples=200, **SHARED)
+
+
+class LinkMachineLong(LinkMachine):
+    pass
+
+
+TestLinkLong = pytest.mark.slow(LinkMachineLong.TestCase)
+TestLinkLong.settings = settings(max_examples=2000, **{**SHARED, "stateful_step_count": 25})
