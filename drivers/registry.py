@@ -68,6 +68,7 @@ def open_controller(url: str = "sim://", **options: object):
 def redact(url: str) -> str:
     """The URL without anything secret: query values naming key files are replaced by their file names only."""
     parts = urlsplit(url)
+    original = parts
     if parts.password:
         netloc = parts.netloc.replace(f":{parts.password}@", ":***@")
         parts = parts._replace(netloc=netloc)
@@ -79,4 +80,5 @@ def redact(url: str) -> str:
                 value = "***"
             kept.append(f"{key}={value}" if value else key)
         parts = parts._replace(query="&".join(kept))
-    return parts.geturl()
+    # geturl() drops an empty authority ("sim://" -> "sim:"), so rebuild only when something was hidden
+    return url if parts == original else parts.geturl()

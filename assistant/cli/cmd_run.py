@@ -51,6 +51,7 @@ def _scenario_text(ctl) -> str | None:
 
 def run(args) -> int:
     from assistant.procedures.guard import load_limits
+    from assistant.report.summary import build_report
     from assistant.procedures.workflow import Workflow
     from drivers.registry import redact, scheme_of
 
@@ -77,7 +78,9 @@ def run(args) -> int:
             wf.series(series_settings)
             analysis = wf.analyse()
             wf.session.mark_complete()
-            report = wf.report(out / f"report-{stamp}")
+            wf.session.flush()
+            report = build_report(session_path, out / f"report-{stamp}",
+                                  analyses={wf.series_settings.name: analysis})
         finally:
             wf.close()
     return _finish(args, session_path, report, wf, analysis)
@@ -85,6 +88,7 @@ def run(args) -> int:
 
 def _resume(args, limits, progress) -> int:
     from assistant.procedures.series import SeriesSettings
+    from assistant.report.summary import build_report
     from assistant.procedures.workflow import Workflow, drive_from_json
     from assistant.storage.session_file import SessionFile
     from drivers.registry import redact, scheme_of
@@ -115,7 +119,9 @@ def _resume(args, limits, progress) -> int:
             wf.series(settings, resume=True)
             analysis = wf.analyse()
             wf.session.mark_complete()
-            report = wf.report(path.parent / f"report-{path.stem}")
+            wf.session.flush()
+            report = build_report(path, path.parent / f"report-{path.stem}",
+                                  analyses={wf.series_settings.name: analysis})
         finally:
             wf.close()
     return _finish(args, path, report, wf, analysis)

@@ -1,4 +1,5 @@
-"""A whole session, step by step: calibrate, approach, series, analyse, report.
+"""A whole session, step by step: calibrate, approach, series, analyse (the report is built by the caller
+from the session file, with ``assistant.report.summary.build_report``).
 
 The command line (``mfma run``) calls the steps in order; the terminal UI calls them one at a time from its
 views. Both go through this class, so there is one code path. Each step writes what it measured to the
@@ -165,12 +166,6 @@ class Workflow:
             self.controller.make_safe()  # the scan is over: nothing needs the tip near the surface now
         self.analysis = analyse_session_series(self.session, name, sink=self.sink)
         return self.analysis
-
-    def report(self, out_dir: Path):
-        from assistant.report.summary import build_report
-
-        self.session.flush()
-        return build_report(self.session_path, out_dir)
 
 
 def _with(settings: SeriesSettings, **changes) -> SeriesSettings:

@@ -240,7 +240,8 @@ def _thermal_result(record: Record):
                                 invols_m_per_v=None if invols is None else float(invols) * 1e-9)
 
 
-def _decomposition_figures(session: SessionFile, out_dir: Path, notes: list[str]) -> list[Path]:
+def _decomposition_figures(session: SessionFile, out_dir: Path, notes: list[str],
+                           analyses: Mapping[str, object] | None = None) -> list[Path]:
     mod = _import_figures("series_figures", notes)
     if mod is None:
         return []
@@ -257,16 +258,23 @@ def _decomposition_figures(session: SessionFile, out_dir: Path, notes: list[str]
         target.mkdir(exist_ok=True)
 
         def write(name: str = name, target: Path = target) -> None:
-            from assistant.procedures.analyse import analyse_session_series
+            result = (analyses or {}).get(name)
+            if result is None:  # not handed in by the caller: decompose the stored series again
+                from assistant.procedures.analyse import analyse_session_series
 
-            mod.write_series_figures(analyse_session_series(session, name, write=False), target)
+                result = analyse_session_series(session, name, write=False)
+            mod.write_series_figures(result, target)
         paths += _new_files(target, write, f"decomposition figures of {name!r}", notes)
     return paths
 
 
 # ---- the report -----------------------------------------------------------------------------------------------
-def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLike[str]) -> ReportResult:
-    """Write the figures a session file supports and ``summary.md`` into ``out_dir`` (created if needed)."""
+def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLike[str], *,
+                 analyses: Mapping[str, object] | None = None) -> ReportResult:
+    """Write the figures a session file supports and ``summary.md`` into ``out_dir`` (created if needed).
+
+    ``analyses`` maps series names to decompositions the caller already has, so they are not computed again.
+    """
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     notes: list[str] = []
@@ -295,14 +303,14 @@ def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLik
             data = session.read_series(name)
             text += _series_section(data)
             paths += _series_images(data, out)
-        analyses = session.analysis_names()
-        if analyses:
+        stored = session.analysis_names()
+        if stored:
             text += ["## Analysis", ""]
-            for name in analyses:
+            for name in stored:
                 text += _record_section(f"analysis/{name}", session.read_analysis(name))
         paths += _calibration_figures(session, out, notes)
         if names:
-            paths += _decomposition_figures(session, out, notes)
+            paths += _decomposition_figures(session, out, notes, analyses)
     text += ["## Figures", ""] + [f"- {p.relative_to(out)}" for p in paths] + [""]
     if notes:
         text += ["## Notes", ""] + [f"- {n}" for n in notes] + [""]
