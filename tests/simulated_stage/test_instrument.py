@@ -323,3 +323,38 @@ def test_builtin_scenarios_scan(name):
         assert np.all(np.isfinite(p.phase_deg)) and np.all(np.isfinite(p.amplitude_v))
     # the magnetic and electrostatic signal decays with lift height
     assert np.std(line.passes[0].phase_deg) > np.std(line.passes[1].phase_deg) * 0.9
+
+
+def test_drift_moves_the_image_between_lines():
+    vm = make(FlatSample(stripe_n_per_m=2e-3, period_m=1e-6), "drift_x_nm_per_s = 10.0\n")
+    engage(vm)
+
+    def profile():
+        line = vm.scan_line(y_m=0.0, x_start_m=-2e-6, length_m=4e-6, pixels=1000, line_rate_hz=1.0,
+                            passes=[(30e-9, 0.0), (60e-9, 0.0)])
+        return line.passes[0].phase_deg - line.passes[0].phase_deg.mean()
+
+    first = profile()
+    for _ in range(9):
+        profile()
+    last = profile()
+    lags = np.arange(-150, 151)
+    corr = [np.dot(first[150:-150], np.roll(last, -lag)[150:-150]) for lag in lags]
+    # 10 lines later, 3 s each (first pass + 2 second passes at 1 Hz): 10 nm/s * 30 s = 300 nm = 75 px;
+    # a feature at sample x appears at commanded x - v t, so the pattern moves towards -x
+    assert lags[int(np.argmax(corr))] == pytest.approx(-75, abs=2)
+
+
+def test_realtime_pace_streams_at_the_signal_rate():
+    from simulated_stage.clock import VirtualClock
+
+    wall = {"t": 0.0, "slept": 0.0}
+
+    def sleep(s):
+        wall["t"] += s
+        wall["slept"] += s
+
+    clock = VirtualClock("realtime", monotonic=lambda: wall["t"], sleep=sleep)
+    vm = build_microscope(Scenario.from_text(BASE), seed=1, sample=FlatSample(), clock=clock)
+    n = sum(c.size for c in vm.record_deflection(250_000, 500e3, chunk=50_000))
+    assert n == 250_000 and wall["slept"] == pytest.approx(0.5)
