@@ -483,6 +483,8 @@ class VirtualMicroscope:
             if not 0 < i_gain <= 1e7:
                 raise StageLimitError("integral gain", i_gain, 0.0, 1e7, "1/s")
             self.i_gain_per_s = float(i_gain)
+        if enabled and self.setpoint_v <= 0.0:
+            raise StageFault(BAD_REQUEST, "amplitude feedback needs a setpoint: pass setpoint_v > 0 first")
         self.feedback_on = bool(enabled)
         self._settle()
         self._check_crash()

@@ -358,3 +358,11 @@ def test_realtime_pace_streams_at_the_signal_rate():
     vm = build_microscope(Scenario.from_text(BASE), seed=1, sample=FlatSample(), clock=clock)
     n = sum(c.size for c in vm.record_deflection(250_000, 500e3, chunk=50_000))
     assert n == 250_000 and wall["slept"] == pytest.approx(0.5)
+
+
+def test_feedback_without_setpoint_refused():
+    vm = make()
+    vm.set_drive(F0, 0.2)
+    with pytest.raises(StageFault, match="setpoint"):
+        vm.set_feedback(True)
+    assert not vm.feedback_on and vm.z.position_m == 0.0
