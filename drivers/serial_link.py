@@ -208,7 +208,7 @@ class SerialController(LinkController):
         import serial
 
         try:
-            self._port.timeout = max(0.001, min(timeout_s, 0.05))
+            # The port's own timeout (50 ms, set once: changing it reconfigures a real port) bounds each wait.
             waiting = self._port.in_waiting
             return self._port.read(waiting or 1)
         except (serial.SerialException, OSError) as exc:

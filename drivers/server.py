@@ -336,6 +336,7 @@ def _serve_stream(d: Dispatcher, lf: _LinkFaults, bind: str | None, announce: Ca
                             discarding = False
                             continue
                         _stream_line(d, lf, session, line, conn_fd)
+                        d.activity()  # a client waiting for a long command was not silent meanwhile
             d.watchdog()
     finally:
         for fd in keep:
@@ -434,6 +435,7 @@ def _serve_zmq(d: Dispatcher, lf: _LinkFaults, bind: str | None, server_key: str
                 msg = sock.recv_multipart()
                 d.activity()
                 _zmq_message(d, lf, sock, msg)
+                d.activity()  # a client waiting for a long command was not silent meanwhile
             d.watchdog()
     finally:
         if sock is not None:

@@ -106,8 +106,6 @@ def peek_ids(frames: list[bytes]) -> tuple[str, int] | None:
 
 def decode_request(frames: list[bytes]) -> Request:
     """A typed request; raises WireError (-102 syntax, -113 unknown command, -104/-108/-109 arguments)."""
-    if not 1 <= len(frames) <= MAX_FRAMES:
-        raise WireError(-102, f"a request has 1 frame, got {len(frames)}")
     if len(frames) != 1:
         raise WireError(-102, f"a request has 1 frame, got {len(frames)}")
     obj = _loads(frames[0])

@@ -123,3 +123,20 @@ def test_sigkilled_client_process_gets_the_tip_withdrawn():
             if proc.poll() is None:
                 proc.kill()
                 proc.wait(5)
+
+
+def test_a_command_longer_than_the_watchdog_time_is_not_silence():
+    class SlowScan(FakeController):
+        def scan_line(self, spec):
+            time.sleep(0.6)  # the instrument is busy; the client is waiting, not gone
+            return super().scan_line(spec)
+
+    from drivers.base import LineSpec
+
+    fake = SlowScan()
+    with ThreadServer(fake, transport="zmq", watchdog_s=0.3) as srv:
+        with connect(srv.announcement, timeout_s=3.0) as c:
+            c.set_feedback(True, setpoint_v=0.2)
+            c.scan_line(LineSpec(0.0, 0.0, 1e-6, 8, 100.0))
+            assert fake.status().engaged  # not withdrawn right after the long line
+            c.status()
