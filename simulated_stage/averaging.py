@@ -111,17 +111,11 @@ class AveragedTable:
                             for c in np.array_split(centre, 8)])
         g = np.concatenate([weighted_gradient(gradient_fn, c, self.amplitude_m, nodes=nodes)
                             for c in np.array_split(centre, 8)])
-        self._force = CubicSpline(self._dmin, f, extrapolate=False)
-        self._gradient = CubicSpline(self._dmin, g, extrapolate=False)
-        self._f_low, self._g_low = f[0], g[0]
+        self._spline = CubicSpline(self._dmin, np.stack([f, g], axis=-1), extrapolate=False)
 
     def __call__(self, centre_gap_m: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """(<F> [N], <F'> [N/m]) at centre gaps [m]."""
         dmin = np.asarray(centre_gap_m, float) - self.amplitude_m
-        clipped = np.clip(dmin, self._dmin[0], self._dmin[-1])
-        f = self._force(clipped)
-        g = self._gradient(clipped)
+        both = self._spline(np.clip(dmin, self._dmin[0], self._dmin[-1]))
         far = dmin > self._dmin[-1]
-        f = np.where(far, 0.0, f)
-        g = np.where(far, 0.0, g)
-        return f, g
+        return np.where(far, 0.0, both[..., 0]), np.where(far, 0.0, both[..., 1])

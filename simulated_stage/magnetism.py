@@ -236,6 +236,43 @@ def map_coordinates_px(x_m: np.ndarray, y_m: np.ndarray, *, pixel_m: float, n: i
     return np.stack([row, col])
 
 
+def cubic_bspline_at(coefficients: np.ndarray, coords: np.ndarray) -> np.ndarray:
+    """Evaluate cubic B-spline coefficient maps (..., H, W) at (2, N) (row, column) positions -> (..., N).
+
+    The same interpolant as scipy.ndimage.map_coordinates(order=3, prefilter=False) away from the edges,
+    but the 4 x 4 weights are computed once for a whole stack of maps (the five maps of a height node).
+    Positions are clamped to [1, H - 2] x [1, W - 2] (the halo keeps every film point inside that range).
+    """
+    h, w = coefficients.shape[-2:]
+    out = []
+    for size, pos in ((h, coords[0]), (w, coords[1])):
+        t = np.clip(pos, 1.0, size - 2.0 - 1e-9)
+        i = np.floor(t).astype(np.intp)
+        u = t - i
+        u2, u3 = u * u, u * u * u
+        weights = np.stack([(1.0 - u) ** 3, 3.0 * u3 - 6.0 * u2 + 4.0, -3.0 * u3 + 3.0 * u2 + 3.0 * u + 1.0, u3]) / 6.0
+        out.append((i[None, :] + np.arange(-1, 3)[:, None], weights))  # (4, N) indices and weights
+    (ri, rw), (ci, cw) = out
+    flat_index = (ri[:, None, :] * w + ci[None, :, :]).reshape(16, -1)     # (16, N)
+    weight = (rw[:, None, :] * cw[None, :, :]).reshape(16, -1)
+    stack = coefficients.reshape(coefficients.shape[:-2] + (h * w,))
+    patch = np.take(stack, flat_index, axis=-1)                            # (..., 16, N)
+    return (patch * weight).sum(axis=-2)
+
+
+def bilinear_at(values: np.ndarray, coords: np.ndarray) -> np.ndarray:
+    """Bilinear interpolation of a (H, W) map at (2, N) positions, clamped to the map."""
+    h, w = values.shape
+    r = np.clip(coords[0], 0.0, h - 1.0)
+    c = np.clip(coords[1], 0.0, w - 1.0)
+    r0 = np.minimum(np.floor(r).astype(np.intp), h - 2)
+    c0 = np.minimum(np.floor(c).astype(np.intp), w - 2)
+    fr, fc = r - r0, c - c0
+    top = values[r0, c0] * (1.0 - fc) + values[r0, c0 + 1] * fc
+    bottom = values[r0 + 1, c0] * (1.0 - fc) + values[r0 + 1, c0 + 1] * fc
+    return top * (1.0 - fr) + bottom * fr
+
+
 def sample_map(values: np.ndarray, x_m: np.ndarray, y_m: np.ndarray, *, pixel_m: float, n: int,
                halo_px: int, order: int) -> np.ndarray:
     """Interpolate a (n + 2 halo)^2 map at points (x, y) [m]; order 3 expects spline coefficients."""

@@ -26,7 +26,6 @@ from dataclasses import dataclass
 from typing import Any, Mapping
 
 import numpy as np
-from scipy import ndimage
 
 from simulated_stage import magnetism
 from simulated_stage.averaging import AveragedTable
@@ -40,6 +39,7 @@ _NODE_GRID = 0.005         # log-spacing of the grid on which new nodes are plac
 _STRAGGLER_FRACTION = 0.05  # up to this fraction of a call's points may use ...
 _WIDE_TOLERANCE = 0.15      # ... a node up to 15 % away (error up to ~1.5e-2 instead of ~3e-4, see the tests)
 _MAX_PIXELS = 8192
+_HALO_PX = 3               # pixels kept around the film in the spline maps
 
 
 @dataclass(frozen=True)
@@ -127,7 +127,7 @@ class Sample:
         self._patch_sigma_m = min(1e-6, spec.extent_um * 1e-6 / 8.0)
         self._version = 0
         self._stray: magnetism.StrayField | None = None
-        self._nodes: OrderedDict[tuple[float, float], tuple[np.ndarray, ...]] = OrderedDict()
+        self._nodes: OrderedDict[tuple[float, float], np.ndarray] = OrderedDict()
         self._cache_bytes = cache_bytes
         self._tables: dict[float, tuple[AveragedTable, AveragedTable, AveragedTable | None]] = {}
         self._capacitance = TipCapacitance(radius_m=tip.radius_m, half_angle_rad=tip.cone_half_angle_rad,
@@ -148,7 +148,8 @@ class Sample:
     def topography_m(self, x_m: np.ndarray, y_m: np.ndarray) -> np.ndarray:
         """Surface height [m] at points (bilinear interpolation of the topography map)."""
         x, y = np.broadcast_arrays(np.asarray(x_m, float), np.asarray(y_m, float))
-        return magnetism.sample_map(self._topography, x, y, pixel_m=self.pixel_m, n=self.n, halo_px=0, order=1)
+        coords = magnetism.map_coordinates_px(x, y, pixel_m=self.pixel_m, n=self.n, halo_px=0)
+        return magnetism.bilinear_at(self._topography, coords).reshape(x.shape)
 
     def cpd_v(self, x_m: np.ndarray, y_m: np.ndarray) -> np.ndarray:
         """Local contact potential difference [V]: mean plus a Gaussian charged patch at the centre."""
@@ -210,28 +211,29 @@ class Sample:
     def _stray_field(self) -> magnetism.StrayField:
         if self._stray is None:
             self._stray = magnetism.StrayField(self._mx, self._mz, pixel_m=self.pixel_m,
-                                               thickness_m=self.spec.thickness_nm * 1e-9)
+                                               thickness_m=self.spec.thickness_nm * 1e-9, halo_px=_HALO_PX)
         return self._stray
 
-    def _node(self, amp: float, z_node: float) -> tuple[np.ndarray, ...]:
+    def _node(self, amp: float, z_node: float) -> np.ndarray:
         key = (amp, z_node)
         if key in self._nodes:
             self._nodes.move_to_end(key)
             return self._nodes[key]
         maps = self._node_maps(self._stray_field(), amp, z_node)
         self._nodes[key] = maps
-        per_node = sum(m.nbytes for m in maps)
+        per_node = maps.nbytes
         while len(self._nodes) > 1 and per_node * len(self._nodes) > self._cache_bytes:
             self._nodes.popitem(last=False)
         return maps
 
-    def _node_maps(self, stray: magnetism.StrayField, amp: float, z_node: float) -> tuple[np.ndarray, ...]:
-        """Spline coefficients of <F'>, d<F'>/dz, d2<F'>/dz2, <F>, d<F>/dz at one probe height (float32)."""
+    def _node_maps(self, stray: magnetism.StrayField, amp: float, z_node: float) -> np.ndarray:
+        """Spline coefficients of <F'>, d<F'>/dz, d2<F'>/dz2, <F>, d<F>/dz at one probe height, stacked
+        as one (5, rows, columns) float32 array."""
         force, grad = stray.probe_spectra(z_node, amp, moment_a_m2=self.tip.moment_a_m2,
                                           monopole_a_m=self.tip.monopole_a_m)
         k = stray.k
-        return tuple(stray.to_map(s, spline=True, dtype=np.float32)
-                     for s in (grad, -k * grad, k * k * grad, force, -k * force))
+        return np.stack([stray.to_map(s, spline=True, dtype=np.float32)
+                         for s in (grad, -k * grad, k * k * grad, force, -k * force)])
 
     def _update_nodes(self, pixels: np.ndarray, old_values: np.ndarray, in_plane: bool) -> None:
         """Add the field of the switched pixels (Delta M = -2 M_old) to every cached node map.
@@ -257,11 +259,10 @@ class Sample:
             zeros = np.zeros_like(delta)
             local = magnetism.StrayField(delta if in_plane else zeros, zeros if in_plane else delta,
                                          pixel_m=self.pixel_m, thickness_m=self.spec.thickness_nm * 1e-9,
-                                         pad_m=margin * self.pixel_m)
+                                         pad_m=margin * self.pixel_m, halo_px=_HALO_PX)
             h = local.halo_px
             for key in keys:
-                for target, change in zip(self._nodes[key], self._node_maps(local, *key)):
-                    target[r0:r1 + 2 * h, c0:c1 + 2 * h] += change
+                self._nodes[key][:, r0:r1 + 2 * h, c0:c1 + 2 * h] += self._node_maps(local, *key)
 
     def _magnetic(self, x: np.ndarray, y: np.ndarray, zp: np.ndarray, amp: float
                   ) -> tuple[np.ndarray, np.ndarray]:
@@ -290,16 +291,13 @@ class Sample:
             heights.append(max(z_new, amp * 1.02 + 0.5e-9))
         f = np.empty(zp.shape)
         g = np.empty(zp.shape)
-        stray = self._stray_field()
         for index in np.unique(node_of):
             sel = node_of == index
             z0 = heights[index]
-            g0, g1, g2, f0, f1 = self._node(amp, z0)
             d = zp[sel] - z0
             coords = magnetism.map_coordinates_px(x[sel], y[sel], pixel_m=self.pixel_m, n=self.n,
-                                                  halo_px=stray.halo_px)
-            val = [ndimage.map_coordinates(m, coords, order=3, prefilter=False, mode="nearest")
-                   for m in (g0, g1, g2, f0, f1)]
+                                                  halo_px=_HALO_PX)
+            val = magnetism.cubic_bspline_at(self._node(amp, z0), coords)
             g[sel] = val[0] + d * (val[1] + 0.5 * d * val[2])
             f[sel] = val[3] + d * val[4]
         return f.reshape(shape), g.reshape(shape)

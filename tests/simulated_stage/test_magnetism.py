@@ -223,3 +223,15 @@ def test_inplane_transition_profile_is_arctan():
     np.testing.assert_allclose(smooth[core], 2 / np.pi * np.arctan(x[core] / a), atol=0.02)
     smooth = mg._smooth_transitions_x(step, pixel, a, "tanh")[0]
     np.testing.assert_allclose(smooth[core], np.tanh(x[core] / a), atol=5e-3)
+
+
+def test_stacked_spline_evaluation_matches_scipy():
+    from scipy import ndimage
+    rng = np.random.default_rng(0)
+    coef = rng.standard_normal((5, 70, 90)).astype(np.float32)
+    coords = np.stack([rng.uniform(3, 66, 300), rng.uniform(3, 86, 300)])
+    ref = np.array([ndimage.map_coordinates(m, coords, order=3, prefilter=False, mode="nearest") for m in coef])
+    np.testing.assert_allclose(mg.cubic_bspline_at(coef, coords), ref, rtol=0, atol=1e-6)
+    values = rng.standard_normal((70, 90))
+    np.testing.assert_allclose(mg.bilinear_at(values, coords), ndimage.map_coordinates(values, coords, order=1),
+                               rtol=0, atol=1e-12)
