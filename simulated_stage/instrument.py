@@ -28,7 +28,7 @@ import numpy as np
 from scipy.signal import lfilter
 
 from simulated_stage.clock import VirtualClock
-from simulated_stage.errors import StageError, StageFault, StageLimitError
+from simulated_stage.errors import StageFault, StageLimitError
 from simulated_stage.lever import Lever
 from simulated_stage.optical_lever import CHI, FlickerNoise, OpticalLever
 from simulated_stage.scanner import CoarseMotor, XYScanner, ZPiezo
