@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import functools
 from collections.abc import Iterator, Sequence
-from dataclasses import asdict
+from dataclasses import asdict, fields
 from typing import Any
 from urllib.parse import parse_qs, urlsplit
 
@@ -59,7 +59,8 @@ class SimulatedController(Controller):
         self.scenario = scenario
         self.seed = seed
         self.default_line_rate_hz = default_line_rate_hz
-        self.limits = Limits(**asdict(stage.limits))
+        known = {f.name for f in fields(Limits)}  # the stage may know more limits than the interface
+        self.limits = Limits(**{k: v for k, v in asdict(stage.limits).items() if k in known})
         name = scenario.name if scenario is not None else "custom"
         self.info = ControllerInfo("mfm-assistant", "virtual microscope", f"sim-{name}-{seed}", "1.0")
         self._closed = False
