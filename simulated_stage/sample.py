@@ -119,6 +119,7 @@ class Sample:
             transition_m=spec.transition_width_nm * 1e-9,
             ms_a_per_m=spec.saturation_magnetisation_ka_per_m * 1e3, rng=np.random.default_rng(pattern_seed))
         self._mx, self._mz = mx, mz
+        self._in_plane = bool(np.any(mx))  # in-plane films switch along x, the others along z
         rough = magnetism.roughness_map(self.n, self.pixel_m, spec.roughness_nm * 1e-9,
                                         np.random.default_rng(rough_seed))
         self._topography = rough + spec.feature_height_nm * 1e-9 * features
@@ -330,7 +331,7 @@ class Sample:
         yc = (ii + 0.5) * self.pixel_m - half
         hx, _, hz = point_probe_field(xc - x[:, None], yc - y[:, None], np.broadcast_to(zp[:, None], xc.shape),
                                       moment_a_m2=self.tip.moment_a_m2, monopole_a_m=self.tip.monopole_a_m)
-        in_plane = np.any(self._mx)
+        in_plane = self._in_plane
         h_axis = hx if in_plane else hz
         strong = inside & (np.abs(h_axis) > hc)
         if not strong.any():
@@ -347,7 +348,7 @@ class Sample:
         if count:
             target[pix[flip]] = -current[flip]
             self._version += 1
-            self._update_nodes(pix[flip], current[flip], bool(in_plane))
+            self._update_nodes(pix[flip], current[flip], in_plane)
         return count
 
 
