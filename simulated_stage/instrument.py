@@ -13,19 +13,21 @@ Physics in brief (sources beside each piece):
 * Tapping: near the surface the amplitude is limited by the gap, A = d A_f / (d^p + A_f^p)^(1/p) (a smooth
   minimum of the free amplitude and the centre gap; a model, no source), so the feedback holds the centre gap
   where A equals the setpoint.
-* Feedback: PI on the amplitude, run at ``servo_oversample`` samples per pixel, with the amplitude's own
-  response time 2Q/w0 and the lock-in time constant as first-order lags, linearised about the setpoint and
-  solved for the whole line with one ``lfilter`` call (tracking error, finite bandwidth).
+* Feedback: PI on the amplitude, sampled ``servo_oversample`` times per pixel, with the amplitude's own
+  response time 2Q/w0 and the lock-in time constant as first-order lags, linearised about the setpoint,
+  discretised exactly (zero-order hold) and solved for the whole line with one ``lfilter`` call (tracking
+  error, finite bandwidth). Linearised: the error does not saturate when the tip leaves the surface.
 """
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy.signal import lfilter
+from scipy.signal import cont2discrete, lfilter
 
 from simulated_stage.clock import VirtualClock
 from simulated_stage.errors import StageFault, StageLimitError
@@ -139,6 +141,17 @@ def driven_response(frequency_hz: np.ndarray | float, *, spring_constant_n_per_m
     real = k - np.asarray(force_gradient_n_per_m) - k * (w / w0) ** 2
     imag = k * w / (w0 * quality_factor)
     return drive_force_n / np.hypot(real, imag), np.arctan2(imag, real)
+
+
+@functools.lru_cache(maxsize=64)
+def _closed_loop(dt_s: float, slope: float, kp: float, ki: float, tau_a: float, tau_l: float
+                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    # open loop L = slope (kp s + ki) / (s (1 + s tau_a)(1 + s tau_l)); Z/W = L / (1 + L),
+    # E/W = slope s / (s (1 + s tau_a)(1 + s tau_l) + slope (kp s + ki))
+    den = np.array([tau_a * tau_l, tau_a + tau_l, 1.0 + slope * kp, slope * ki])
+    num_z, den_d, _ = cont2discrete((np.array([slope * kp, slope * ki]), den), dt_s, method="zoh")
+    num_e, _, _ = cont2discrete((np.array([slope, 0.0]), den), dt_s, method="zoh")
+    return np.ravel(num_z), np.ravel(num_e), np.ravel(den_d)
 
 
 class VirtualMicroscope:
@@ -510,17 +523,17 @@ class VirtualMicroscope:
         self._faults.clear()
 
     # ---- imaging -------------------------------------------------------------------------------------
-    def _loop(self, dt_s: float, slope: float) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-        """Closed-loop filter (Z from the surface) and the lag filter of the amplitude measurement."""
-        kp, ki = self.p_gain, self.i_gain_per_s * dt_s
-        tau_a = 2 * self.q / (2 * math.pi * self.f0)  # amplitude response time of the lever
-        a1, a2 = math.exp(-dt_s / tau_a), math.exp(-dt_s / self.lockin_time_constant_s)
-        pn, pd = np.array([(1 - a1) * (1 - a2)]), np.convolve([1.0, -a1], [1.0, -a2])
-        cn, cd = np.array([kp + ki, -kp]), np.array([1.0, -1.0])
-        num = slope * np.convolve(cn, pn)
-        den = np.convolve(cd, pd)
-        den = den + slope * np.concatenate(([0.0], num / slope, np.zeros(den.size - num.size - 1)))
-        return num, den, pn, pd
+    def _loop(self, dt_s: float, slope: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Discrete closed loop of the amplitude feedback: Z from the surface, and the amplitude error.
+
+        Continuous model: the amplitude follows the gap with slope ``slope`` through two first-order lags
+        (the lever's amplitude response time 2Q/w0 and the lock-in), the PI controller Kp + Ki/s drives Z.
+        Discretised exactly for a surface held over each servo sample (zero-order hold), so a loop that is
+        stable in continuous time stays stable at any sample interval.
+        """
+        tau_a = 2 * self.q / (2 * math.pi * self.f0)
+        return _closed_loop(round(dt_s, 15), round(slope, 12), self.p_gain, self.i_gain_per_s, tau_a,
+                            self.lockin_time_constant_s)
 
     def scan_line(self, *, y_m: float, x_start_m: float, length_m: float, pixels: int, line_rate_hz: float,
                   passes: Sequence[tuple[float, float]] = ()) -> LineResult:
@@ -558,13 +571,13 @@ class VirtualMicroscope:
         xs = x_start_m + (idx + 0.5) * length_m / (n * s)
         xf, yf = self.xy.sample_frame(xs, y_m, t0 + (idx + 0.5) * dt)
         w = (gap0 - d_sp) - self.sample.topography_m(xf, np.broadcast_to(yf, xf.shape))
-        num, den, pn, pd = self._loop(dt, slope)
+        num_z, num_e, den = self._loop(dt, slope)
         if np.max(np.abs(np.roots(den))) >= 1.0 and "feedback unstable" not in self._faults:
             self._faults.append("feedback unstable")
-        u = w[0] + lfilter(num, den, w - w[0])
+        u = w[0] + lfilter(num_z, den, w - w[0])
         u = np.clip(np.nan_to_num(u, nan=0.0, posinf=self.z.range_m, neginf=0.0), 0.0, self.z.range_m)
-        gap_err = w - np.concatenate(([w[0]], u[:-1]))  # the amplitude sees the Z of the previous sample
-        err_m = slope * lfilter(pn, pd, gap_err)
+        gap_err = w - u  # centre gap minus the setpoint gap
+        err_m = lfilter(num_e, den, w - w[0])  # the amplitude error as the lags let the controller see it
         u_px = u.reshape(n, s).mean(axis=1) + cfg.z_sensor_noise_m * rng.standard_normal(n)
         bw = 1.0 / (4 * self.lockin_time_constant_s + 2 * dwell)  # lock-in then pixel average (rule of thumb)
         sigma = math.sqrt(2 * self._thermal_psd_m2_per_hz(self.drive_frequency_hz) * bw)

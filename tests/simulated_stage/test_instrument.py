@@ -366,3 +366,57 @@ def test_feedback_without_setpoint_refused():
     with pytest.raises(StageFault, match="setpoint"):
         vm.set_feedback(True)
     assert not vm.feedback_on and vm.z.position_m == 0.0
+
+
+def test_coarse_step_into_the_surface_is_a_crash():
+    from simulated_stage.instrument import TIP_CRASH
+
+    vm = make()
+    engage(vm)
+    vm.set_feedback(False)
+    with pytest.raises(StageFault) as info:
+        vm.step_coarse(10)  # 500 nm towards the sample with Z held: the tip is driven into the surface
+    assert info.value.code == TIP_CRASH and "centre gap" in str(info.value)
+    assert any("crash" in f for f in vm.status().faults)
+    vm.withdraw()  # still allowed
+    assert vm.z.position_m == 0.0
+
+
+def test_excessive_gain_is_reported_as_unstable_feedback():
+    vm = make()
+    engage(vm)
+    vm.set_feedback(True, p_gain=5.0, i_gain=1e7)
+    line = vm.scan_line(y_m=0.0, x_start_m=0.0, length_m=1e-6, pixels=64, line_rate_hz=1.0)
+    assert "feedback unstable" in vm.status().faults
+    assert np.all(np.isfinite(line.topography_m))
+
+
+@pytest.mark.parametrize("rate_hz", [0.05, 1.0, 10.0, 100.0])
+@pytest.mark.parametrize("pixels", [64, 512, 4096])
+def test_default_feedback_is_stable(rate_hz, pixels):
+    vm = make()
+    engage(vm)
+    free = float(vm.free_amplitude_m())
+    sp = vm.setpoint_v / vm.volts_per_m
+    d_sp = vm._setpoint_gap_m(free, sp)
+    p = vm.config.tapping_sharpness
+    slope = free ** (p + 1) / (d_sp**p + free**p) ** (1 + 1 / p)
+    dt = 0.5 / (rate_hz * pixels * vm.config.servo_oversample)
+    _, _, den = vm._loop(dt, slope)
+    assert np.max(np.abs(np.roots(den))) < 1.0
+
+
+@pytest.mark.parametrize("i_gain", [1e3, 1e4, 3e4, 1e5])
+def test_discrete_loop_stability_agrees_with_routh_hurwitz(i_gain):
+    # The continuous loop has the characteristic polynomial a3 s^3 + a2 s^2 + a1 s + a0 with
+    # a3 = tau_a tau_l, a2 = tau_a + tau_l, a1 = 1 + g kp, a0 = g ki; it is stable iff a2 a1 > a3 a0
+    # (Routh-Hurwitz, textbook). The zero-order-hold discretisation must agree at any sample interval.
+    vm = make()
+    engage(vm)
+    vm.set_feedback(True, i_gain=i_gain)
+    g, kp = 0.5, vm.p_gain
+    tau_a, tau_l = 2 * Q / (2 * math.pi * F0), vm.lockin_time_constant_s
+    stable = (tau_a + tau_l) * (1 + g * kp) > tau_a * tau_l * g * i_gain
+    for dt in (1e-6, 1e-4, 1e-2):
+        _, _, den = vm._loop(dt, g)
+        assert (np.max(np.abs(np.roots(den))) < 1.0) == stable
