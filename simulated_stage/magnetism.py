@@ -181,6 +181,7 @@ class StrayField:
         wx, wy = 2.0 * np.pi * fx * pixel_m, 2.0 * np.pi * fy * pixel_m
         self.spline_prefilter = 9.0 / ((2.0 + np.cos(wx)) * (2.0 + np.cos(wy)))
         self._weights: dict[float, tuple[np.ndarray, np.ndarray]] = {}
+        self._point_spectra: dict[float, tuple[np.ndarray, np.ndarray]] = {}
 
     def _rfft(self, m: np.ndarray) -> np.ndarray:
         padded = np.zeros(self.shape)
@@ -215,13 +216,61 @@ class StrayField:
         """
         if probe_height_m <= amplitude_m:
             raise ValueError(f"probe height {probe_height_m:g} m must exceed the amplitude {amplitude_m:g} m")
+        decay = np.exp(-self.k * (probe_height_m - amplitude_m))  # scaled Bessel weights carry exp(-kA)
+        force, gradient = self._undecayed(amplitude_m, moment_a_m2, monopole_a_m)
+        return force * decay, gradient * decay
+
+    def _undecayed(self, amplitude_m: float, moment_a_m2: float, monopole_a_m: float
+                   ) -> tuple[np.ndarray, np.ndarray]:
         if amplitude_m not in self._weights:
             self._weights[amplitude_m] = (exponential_force_weight(self.k, amplitude_m),
                                           -self.k * exponential_gradient_weight(self.k, amplitude_m))
         w_force, w_gradient = self._weights[amplitude_m]
-        decay = np.exp(-self.k * (probe_height_m - amplitude_m))  # scaled Bessel weights carry exp(-kA)
-        f_k = MU_0 * (monopole_a_m - moment_a_m2 * self.k) * self.base * decay
+        f_k = MU_0 * (monopole_a_m - moment_a_m2 * self.k) * self.base
         return f_k * w_force, f_k * w_gradient
+
+    def probe_at_points(self, x_m: np.ndarray, y_m: np.ndarray, probe_height_m: np.ndarray, amplitude_m: float,
+                        *, moment_a_m2: float, monopole_a_m: float) -> tuple[np.ndarray, np.ndarray]:
+        """<F> [N] and <F'> [N/m] of the point probe at a few points, by direct Fourier summation.
+
+        The band-limited (trigonometric) interpolant of the same spectra that the maps sample; about 20 ms
+        per point on the default grid, against ~0.4 s for a full map, so used for calls of a handful of
+        points at heights with no cached map (single-point reads during an approach). Points are given in
+        the film frame (map centred on 0).
+        """
+        if amplitude_m not in self._point_spectra:
+            force, grad = self._undecayed(amplitude_m, moment_a_m2, monopole_a_m)
+            weight = np.full(self.k.shape[1], 2.0)  # rfft half plane: columns 1 .. N/2-1 stand for two
+            weight[0] = 1.0
+            if self.shape[1] % 2 == 0:
+                weight[-1] = 1.0
+            self._point_spectra = {amplitude_m: (force * weight, grad * weight)}  # one amplitude at a time
+        force_w, grad_w = self._point_spectra[amplitude_m]
+        ny, nx = self.shape
+        fy = np.fft.fftfreq(ny)
+        fx = np.fft.rfftfreq(nx)
+        oy, ox = self.offsets
+        out_f, out_g = [], []
+        k_y = np.abs(2.0 * np.pi * fy / self.pixel_m)
+        k_x = 2.0 * np.pi * fx / self.pixel_m
+        for x, y, z in zip(np.ravel(x_m), np.ravel(y_m), np.ravel(probe_height_m)):
+            row = oy + (y + 0.5 * self.ny * self.pixel_m) / self.pixel_m - 0.5  # padded-grid position
+            col = ox + (x + 0.5 * self.nx * self.pixel_m) / self.pixel_m - 0.5
+            # components with k (z - A) > 36 are below 1e-15 of the rest: far from the film few remain
+            k_cut = 36.0 / (z - amplitude_m)
+            rows, cols = np.nonzero(k_y <= k_cut)[0], np.nonzero(k_x <= k_cut)[0]
+            if rows.size == ny and cols.size == fx.size:
+                k, fw, gw, ry, cx = self.k, force_w, grad_w, fy, fx
+            else:
+                block = np.ix_(rows, cols)
+                k, fw, gw, ry, cx = self.k[block], force_w[block], grad_w[block], fy[rows], fx[cols]
+            decay = np.exp(-k * (z - amplitude_m))
+            a = np.exp(2j * np.pi * ry * row)
+            b = np.exp(2j * np.pi * cx * col)
+            out_f.append((a @ (fw * decay) @ b).real / (ny * nx))
+            out_g.append((a @ (gw * decay) @ b).real / (ny * nx))
+        shape = np.shape(x_m)
+        return np.asarray(out_f).reshape(shape), np.asarray(out_g).reshape(shape)
 
 
 def map_coordinates_px(x_m: np.ndarray, y_m: np.ndarray, *, pixel_m: float, n: int, halo_px: int) -> np.ndarray:
