@@ -17,7 +17,7 @@ from . import decomposition as dec
 from . import lift_models as lm
 from .noise_floor import NoiseVerdict, noise_verdict, white_noise_std
 from .recommend import Recommendation, recommend_lift
-from .registration import align_stack, estimate_shift_px
+from .registration import align_stack, shift_from_spectra
 from .tip_change import TipChange, detect_tip_change
 
 __all__ = ["SeriesInputError", "TooFewHeightsError", "HeightsMismatchError", "HeightsNotIncreasingError",
@@ -91,6 +91,14 @@ class SeriesAnalysis:
     @property
     def heights_nm(self) -> np.ndarray:
         return self.heights_m * 1e9
+
+    @property
+    def messages(self) -> tuple[str, ...]:
+        """Plain-language statements: recommendation, separability, noise, tip change."""
+        out = [self.recommendation.sentence, self.separability_sentence, self.noise.sentence]
+        if self.tip_change is not None:
+            out.append(self.tip_change.sentence)
+        return tuple(out)
 
     def to_dict(self) -> dict:
         """JSON-ready summary (lists and floats; None for missing)."""
@@ -255,9 +263,11 @@ def analyse_series(phase_deg, *, heights_m, pixel_m: float, bias_v=None, repeat_
     flat = centred.reshape(nh * nb, rows, cols)
     okf = ok.reshape(nh * nb, rows, cols)
     drift = np.zeros((nh * nb, 2))
+    shape = (rows, cols)
     if register:
+        spectra = np.fft.rfft2(flat, axes=(-2, -1))
         for i in range(1, nh * nb):  # loop over images, vectorised inside
-            drift[i] = estimate_shift_px(flat[0], flat[i])
+            drift[i] = shift_from_spectra(spectra[0], spectra[i], shape)
     for round_ in range(n_refine + 1 if register else 1):
         aligned = align_stack(flat, drift)
         valid = align_stack(okf.astype(float), np.rint(drift)) > 0.5
@@ -268,9 +278,10 @@ def analyse_series(phase_deg, *, heights_m, pixel_m: float, bias_v=None, repeat_
         if not register or round_ == n_refine:
             break
         # template for each image: the continuation predicted from the *other* heights (nearly noise-free)
-        pred = dec.leave_one_out_prediction(hstack, fit)
+        pred_f = np.fft.rfft2(dec.leave_one_out_prediction(hstack, fit), axes=(-2, -1))
+        moving_f = np.fft.rfft2(np.where(valid, aligned, 0.0), axes=(-2, -1))
         for i in range(1, nh * nb):
-            drift[i] = drift[i] + estimate_shift_px(pred[i // nb], np.where(valid[i], aligned[i], 0.0))
+            drift[i] = drift[i] + shift_from_spectra(pred_f[i // nb], moving_f[i], shape)
 
     # independent noise estimate of one image (signal units)
     tip = None
@@ -290,7 +301,10 @@ def analyse_series(phase_deg, *, heights_m, pixel_m: float, bias_v=None, repeat_
     if grid:
         mf = dec.fit_mean_bias_grid(means, mean_sd, bias_v=volts)
     else:
-        dc = lm.centre_gap_m(h, amplitude_m=amplitude_m, gap_offset_m=gap_offset_m)
+        try:
+            dc = lm.centre_gap_m(h, amplitude_m=amplitude_m, gap_offset_m=gap_offset_m)
+        except ValueError as exc:
+            raise SeriesInputError(str(exc)) from None
         e_shape = lm.amplitude_weighted(
             lambda z: 0.5 * lm.tip_capacitance_second_derivative_f_per_m2(
                 z, radius_m=tip_radius_m, cone_half_angle_deg=cone_half_angle_deg, cone_height_m=cone_height_m),

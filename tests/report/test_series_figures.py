@@ -1,0 +1,107 @@
+"""Decomposition figures: object API on the Agg canvas, labelled axes with units, phase maps on a diverging
+map centred on zero with dark = negative, and the recommendation shown."""
+
+import re
+
+import numpy as np
+import pytest
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.image import AxesImage
+
+from assistant.analysis.series import analyse_series
+from assistant.report import series_figures as sf
+from tests.analysis.synthetic_series import build_series
+
+HEIGHTS = np.array([10, 14, 18, 24, 30, 40]) * 1e-9
+UNIT = re.compile(r"\((deg|nm|µm|V)\)")
+
+
+@pytest.fixture(scope="module")
+def with_repeat():
+    s = build_series(rows=64, cols=64, heights_m=HEIGHTS, noise_deg=0.05, magnetic_scale=0.3, repeat=True,
+                     flip_disk=(20, 30, 6), hamaker_j=2e-19, seed=51)
+    return analyse_series(s.phase_deg, heights_m=s.heights_m, pixel_m=s.pixel_m, repeat_phase_deg=s.repeat_phase_deg,
+                          **s.analysis_kwargs)
+
+
+@pytest.fixture(scope="module")
+def with_bias():
+    s = build_series(rows=64, cols=64, heights_m=HEIGHTS, noise_deg=0.05, magnetic_scale=0.3, hamaker_j=2e-19,
+                     bias_v=np.array([-1.0, 0.0, 1.0]), seed=52)
+    return analyse_series(s.phase_deg, heights_m=s.heights_m, pixel_m=s.pixel_m, bias_v=s.bias_v, **s.analysis_kwargs)
+
+
+def _srgb_to_lightness(rgb):
+    # IEC 61966-2-1:1999 sRGB decoding and CIE 15:2004 lightness L* from the relative luminance Y
+    rgb = np.asarray(rgb, float)[..., :3]
+    lin = np.where(rgb <= 0.04045, rgb / 12.92, ((rgb + 0.055) / 1.055) ** 2.4)
+    y = lin @ np.array([0.2126, 0.7152, 0.0722])
+    f = np.where(y > (6 / 29) ** 3, np.cbrt(y), y / (3 * (6 / 29) ** 2) + 4 / 29)
+    return 116 * f - 16
+
+
+@pytest.mark.parametrize("which", ["with_repeat", "with_bias"])
+def test_every_axis_labelled_with_units(which, request):
+    a = request.getfixturevalue(which)
+    figs = sf.series_figures(a)
+    assert set(figs) == {"decomposition_mean", "decomposition_magnetic", "decomposition_maps"}
+    for name, fig in figs.items():
+        assert isinstance(fig.canvas, FigureCanvasAgg), name
+        title = fig._suptitle.get_text()
+        assert title.startswith("Recommended:"), title
+        for ax in fig.axes:
+            if not ax.axison:
+                continue
+            labels = [ax.get_xlabel(), ax.get_ylabel()]
+            labels = [t for t in labels if t]
+            assert labels, (name, ax.get_title())
+            for t in labels:
+                assert UNIT.search(t), (name, t)
+
+
+def test_recommendation_shown(with_repeat):
+    a = with_repeat
+    fig = sf.mean_figure(a)
+    texts = " ".join(t.get_text() for ax in fig.axes for t in ax.texts)
+    assert a.recommendation.sentence in texts.replace("\n", " ")
+    if a.recommendation.lift_height_m is not None:
+        assert f"{a.recommendation.lift_height_m * 1e9:.4g} nm" in fig._suptitle.get_text()
+
+
+def test_phase_maps_centred_on_zero_dark_negative(with_repeat):
+    fig = sf.maps_figure(with_repeat)
+    images = [im for ax in fig.axes for im in ax.get_images() if isinstance(im, AxesImage)]
+    phase_images = [im for im in images if im.cmap.N >= 64]
+    assert len(phase_images) >= 5  # three magnetic maps, residual, repeat difference
+    for im in phase_images:
+        lo, hi = im.norm.vmin, im.norm.vmax
+        assert lo == pytest.approx(-hi) and hi > 0
+        colours = im.cmap(np.linspace(0, 1, 33))
+        light = _srgb_to_lightness(colours)
+        assert np.all(np.diff(light) > 0)  # lightness rises monotonically: the negative end is dark
+        assert light[0] < 35 and light[-1] > 80
+        steps = np.diff(light)
+        assert steps.std() < 0.1 * steps.mean()  # perceptually even in lightness
+        mid = colours[16, :3]
+        assert np.ptp(mid) < 0.03  # zero is a neutral grey
+
+
+def test_change_map_present_only_with_repeat(with_repeat, with_bias):
+    titles = [ax.get_title() for ax in sf.maps_figure(with_repeat).axes]
+    assert any("changed beyond noise" in t for t in titles)
+    titles = [ax.get_title() for ax in sf.maps_figure(with_bias).axes]
+    assert not any("changed" in t for t in titles)
+
+
+def test_write_png_files(with_bias, tmp_path):
+    paths = sf.write_series_figures(with_bias, tmp_path, dpi=40)
+    assert len(paths) == 3
+    for p in paths:
+        assert p.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_module_uses_no_pyplot():
+    import inspect
+
+    src = inspect.getsource(sf)
+    assert "pyplot" not in src.replace("no pyplot state", "")
