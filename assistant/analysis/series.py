@@ -108,7 +108,7 @@ class SeriesAnalysis:
         drift = self.drift_px if self.drift_px.ndim == 2 else self.drift_px.mean(axis=1)
         rec = self.recommendation
         out = {
-            "heights_nm": lst(self.heights_nm),
+            "heights_nm": lst(np.round(self.heights_nm, 9)),  # no 30.000000000000004 from the m -> nm round trip
             "magnetic_rms_deg": lst(self.magnetic_rms_deg),
             "magnetic_rms_std_deg": lst(self.magnetic_rms_std_deg),
             "electrostatic_mean_deg": lst(self.electrostatic_mean_deg),
@@ -202,7 +202,8 @@ def analyse_series(phase_deg, *, heights_m, pixel_m: float, bias_v=None, repeat_
     bias_v : array_like, optional
         Tip biases [V] of a bias grid (at least 3); a scalar is accepted and ignored for a 3-D stack.
     repeat_phase_deg : ndarray (rows, cols), optional
-        The first height (first bias) repeated at the end of every line.
+        The first height (first bias) repeated at the end of every line; (biases, rows, cols) is accepted
+        and its first bias used.
     spring_constant_n_per_m, quality_factor : float, optional
         k [N/m] and Q: with both the phase is inverted exactly to the force gradient.
     resonance_hz, bandwidth_hz, temperature_k : float
@@ -286,7 +287,9 @@ def analyse_series(phase_deg, *, heights_m, pixel_m: float, bias_v=None, repeat_
     # independent noise estimate of one image (signal units)
     tip = None
     if repeat_phase_deg is not None:
-        tip = detect_tip_change(stack[0] if not grid else stack[0, 0], np.asarray(repeat_phase_deg, float))
+        rep = np.asarray(repeat_phase_deg, float)
+        rep = rep[0] if rep.ndim == 3 else rep  # (biases, rows, cols): the repeat at the first bias
+        tip = detect_tip_change(stack[0] if not grid else stack[0, 0], rep)
         ref_noise_deg = tip.noise_deg
         ref_noise = ref_noise_deg / lin
     else:

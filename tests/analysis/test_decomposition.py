@@ -72,9 +72,7 @@ def test_bias_grid_separates_electrostatic_and_short_range():
     a = _run(s)
     assert a.cpd_v == pytest.approx(0.35, abs=0.02)
     es_err = np.abs(a.electrostatic_mean_deg / s.electrostatic_deg - 1)
-    # the electrostatic part vanishes near V_cpd: compare where it is not essentially zero
-    assert np.abs(a.electrostatic_mean_deg - s.electrostatic_deg).max() < 0.05 * np.abs(s.electrostatic_deg).max()
-    assert es_err[:, [0, 1, 3, 4]].max() < 0.05, es_err
+    assert es_err.max() < 0.05, es_err  # every height and bias, also 0.15 V from V_cpd
     sr_err = np.abs(a.short_range_mean_deg / s.short_range_deg - 1)
     assert sr_err.max() < 0.10, sr_err
     assert a.separable
