@@ -183,7 +183,9 @@ def test_single_point_reads_are_summed_directly_and_agree_with_the_maps():
     np.testing.assert_allclose(single, line, rtol=0, atol=5e-4 * np.abs(line).max())
     # on the pixel centres both are exact: measured 1.8e-8
     centres = x - 3.3e-9
+    sample = build_sample(SampleSpec(pattern="oop_tracks", roughness_nm=0.0, **SMALL), TipSpec())
     single = np.array([sample.interaction(np.array([xi]), 5e-9, np.array([40e-9]), bias_v=0.3,
                                           amplitude_m=10e-9).magnetic_gradient_n_per_m[0] for xi in centres])
+    assert len(sample._nodes) == 0
     line = sample.interaction(centres, 5e-9, 40e-9, bias_v=0.3, amplitude_m=10e-9).magnetic_gradient_n_per_m
     np.testing.assert_allclose(single, line, rtol=0, atol=1e-6 * np.abs(line).max())
