@@ -406,11 +406,12 @@ def error_for(exc: BaseException) -> tuple[int, str]:
         return -222, f"Data out of range;{exc}"
     if isinstance(exc, e.CapabilityMissing):
         return -241, f"Hardware missing;{exc}"
-    if isinstance(exc, e.LaserLost):
-        return -231, f"Data questionable;{exc}"
     if isinstance(exc, e.ControllerFault):
+        plain = re.sub(r"^controller fault -?\d+: ", "", str(exc))  # the receiving end adds it again
+        if isinstance(exc, e.LaserLost):
+            return -231, f"Data questionable;{exc.code};{plain}"
         code = exc.code if isinstance(exc.code, int) and exc.code != 0 and -999 <= exc.code <= 32767 else -300
-        return code, f"Device-specific error;{exc}"
+        return code, f"Device-specific error;{plain}"
     if isinstance(exc, (e.LinkTimeout, e.LinkLost)):
         return -240, f"Hardware error;{type(exc).__name__}: {exc}"
     if isinstance(exc, e.ControllerError):
@@ -439,7 +440,8 @@ def exception_for(code: int, message: str) -> Exception:
     if code == -241:
         return e.CapabilityMissing(info)
     if code == -231:
-        return e.LaserLost(code, info)
+        m = re.match(r"^(-?\d{1,6});(.*)$", info, re.S)
+        return e.LaserLost(int(m.group(1)), m.group(2)) if m else e.LaserLost(code, info)
     if -199 <= code <= -100:
         return WireError(code, info)
     return e.ControllerFault(code, info)

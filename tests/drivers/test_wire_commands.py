@@ -84,5 +84,5 @@ def test_errors_survive_the_wire(exc, cls):
     if isinstance(exc, LimitExceeded):
         assert (back.quantity, back.low, back.high, back.unit) == (exc.quantity, exc.low, exc.high, exc.unit)
         assert back.value == pytest.approx(exc.value, rel=1e-5)
-    if type(exc) is ControllerFault:
-        assert back.code == 320
+    if isinstance(exc, ControllerFault):
+        assert back.code == exc.code and str(back) == str(exc)
