@@ -12,7 +12,7 @@ Caches:
 * per (amplitude, probe-height node) a stack of five float32 cubic-spline coefficient maps of the magnetic
   point-probe interaction: <F'>, d<F'>/dz, d2<F'>/dz2, <F>, d<F>/dz. Each point uses a node within 5 % of
   its probe height and a second-order expansion in the offset (first order for the force). New nodes go
-  at the median of the uncovered points, on a 0.5 % log grid so that later lines reuse them. Up to 5 % of
+  at the middle uncovered point, on a 0.5 % log grid so that later lines reuse them. Up to 5 % of
   a call's points (tracking-noise outliers) may borrow a node up to 15 % away. Calls with at most 8
   uncovered points (single reads during an approach) are summed directly from the spectrum (~20 ms per
   point, nothing cached). Nodes live in an LRU cache with a byte budget; after switching they are
@@ -293,8 +293,11 @@ class Sample:
                 break
             if uncovered.sum() <= _DIRECT_POINTS:
                 break  # a handful of points (single reads on an approach): no map for them, see below
-            median = float(np.median(lz[uncovered]))
-            z_new = math.exp(round(median / _NODE_GRID) * _NODE_GRID)
+            # the middle uncovered point itself (np.median would average two points and may fall between
+            # two lift heights, covering neither)
+            pending = lz[uncovered]
+            middle = float(np.partition(pending, pending.size // 2)[pending.size // 2])
+            z_new = math.exp(round(middle / _NODE_GRID) * _NODE_GRID)
             heights.append(max(z_new, amp * 1.02 + 0.5e-9))
         f = np.empty(zp.shape)
         g = np.empty(zp.shape)

@@ -189,3 +189,14 @@ def test_single_point_reads_are_summed_directly_and_agree_with_the_maps():
     assert len(sample._nodes) == 0
     line = sample.interaction(centres, 5e-9, 40e-9, bias_v=0.3, amplitude_m=10e-9).magnetic_gradient_n_per_m
     np.testing.assert_allclose(single, line, rtol=0, atol=1e-6 * np.abs(line).max())
+
+
+def test_two_lift_heights_in_one_call_get_one_node_each():
+    # an even number of points in two groups: the node goes to an actual point, not between the groups
+    sample = build_sample(SampleSpec(**SMALL), TipSpec())
+    x = np.linspace(-1e-6, 1e-6, 256)
+    gaps = np.stack([np.full(256, 20e-9), np.full(256, 60e-9)])
+    sample.interaction(np.stack([x, x]), np.zeros((2, 256)), gaps, bias_v=0.0, amplitude_m=20e-9)
+    heights = sorted(z for _, z in sample._nodes)
+    assert len(heights) == 2  # probe heights 50 and 90 nm, up to roughness (0.5 nm rms) and the 0.5 % grid
+    assert heights[0] == pytest.approx(50e-9, rel=0.02) and heights[1] == pytest.approx(90e-9, rel=0.02)
