@@ -80,6 +80,8 @@ class NetworkController(LinkController):
     def _connect(self) -> zmq.Socket:
         sock = self._ctx.socket(zmq.REQ)
         sock.setsockopt(zmq.LINGER, 0)
+        if self.endpoint.startswith("tcp://["):
+            sock.setsockopt(zmq.IPV6, 1)
         if self._curve is not None:
             sock.curve_serverkey, sock.curve_publickey, sock.curve_secretkey = self._curve
         self._monitor = sock.get_monitor_socket(zmq.EVENT_DISCONNECTED | _mask(_FAILED))
@@ -151,8 +153,9 @@ class NetworkController(LinkController):
                 if event == zmq.EVENT_DISCONNECTED:
                     return None, "the controller server closed the connection"
                 if event in _FAILED:
-                    return None, ("the controller server refused the encrypted handshake (wrong server key, "
-                                  "or this client's public key is not in its allow directory)")
+                    return None, ("the controller server refused the handshake (it may need CURVE keys: "
+                                  "server= and client=; or the server key is wrong; or this client's public "
+                                  "key is not in its allow directory)")
         return None, None
 
 

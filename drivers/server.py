@@ -420,6 +420,8 @@ def _serve_zmq(d: Dispatcher, lf: _LinkFaults, bind: str | None, server_key: str
         sock = ctx.socket(zmq.ROUTER)
         sock.setsockopt(zmq.LINGER, 0)
         sock.setsockopt(zmq.MAXMSGSIZE, MAX_MESSAGE)
+        if ":" in host:
+            sock.setsockopt(zmq.IPV6, 1)
         if curve:
             sock.curve_secretkey = secret
             sock.curve_publickey = public
