@@ -244,8 +244,17 @@ def serve(controller: Controller, *, transport: str, bind: str | None = None, se
     ``{"port": "socket://127.0.0.1:PORT"}`` (loopback only: a raw stream has no encryption).
     transport "zmq": ``bind`` defaults to ``tcp://127.0.0.1:0``; announces ``{"endpoint": ...}``. Any
     non-loopback address needs ``server_key`` (a ``.key_secret`` file) and ``allow_dir`` (clients' ``.key``).
+    ``watchdog_s`` None disables the watchdog; ``faults`` injects its link-level faults; ``clock`` times the
+    watchdog and link drops; ``poll_s`` is how often the loop looks at the watchdog and ``stop``.
+    Raises :class:`InsecureBind` (before listening) for a refused address, ``drivers.keys.KeyFileError``
+    for unusable key files.
     """
     stop = stop or threading.Event()
+    if faults is not None:
+        others = sorted({f.kind for f in faults.faults} - LINK_KINDS)
+        if others:
+            log.warning("the server injects link faults only; %s must be injected by the stage "
+                        "(simulated_stage.faults.FaultyStage)", ", ".join(others))
     dispatcher = Dispatcher(controller, watchdog_s=watchdog_s, clock=clock)
     link_faults = _LinkFaults(faults, clock)
     try:

@@ -29,7 +29,7 @@ A scenario's table looks like::
     probability = 0.01
     delay_s = 0.2
 
-and a server option like ``"delay:probability=0.01:delay_s=0.2"``.
+and a server option like ``"delay:probability=0.01:delay_s=0.2"`` or ``"error_code:after=3:methods=read+move_z"``.
 """
 
 from __future__ import annotations
@@ -160,8 +160,8 @@ class FaultPlan:
 def _parse_value(key: str, raw: str) -> Any:
     if key in ("kind", "message"):
         return raw
-    if key == "methods":
-        return tuple(m for m in raw.split(",") if m)
+    if key == "methods":  # "+" separates names (a command line may already split its list at commas)
+        return tuple(m for m in raw.replace(",", "+").split("+") if m)
     try:
         return int(raw) if raw.lstrip("+-").isdigit() else float(raw)
     except ValueError as exc:

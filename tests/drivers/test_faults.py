@@ -59,6 +59,11 @@ def test_invalid_plans_name_the_key(table, key):
         FaultPlan.from_table(table)
 
 
+def test_method_lists_in_option_strings():
+    (fault,) = FaultPlan.from_specs(["error_code:after=3:methods=read+move_z"]).faults
+    assert fault.methods == ("read", "move_z")
+
+
 def test_bad_option_strings():
     with pytest.raises(ScenarioError, match="key=value"):
         FaultPlan.from_specs(["timeout:after"])

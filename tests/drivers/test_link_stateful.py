@@ -53,8 +53,7 @@ class LinkMachine(RuleBasedStateMachine):
     @initialize(transport=st.sampled_from(["serial", "zmq"]), seed=st.integers(0, 2**32 - 1))
     def start(self, transport, seed):
         plan = FaultPlan(link_faults(self.link_scale) + STAGE_FAULTS, seed=seed)
-        self.stage = ToyStage(seed)
-        self.fake = FakeController(FaultyStage(self.stage, plan.schedule(STAGE_KINDS)))
+        self.fake = self._build(seed, plan)
         self.limits = self.fake.limits
         self.server = ThreadServer(self.fake, transport=transport, watchdog_s=None, faults=plan, poll_s=0.005)
         announcement = self.server.start()
@@ -71,6 +70,15 @@ class LinkMachine(RuleBasedStateMachine):
             self.client.close()
         if self.server is not None:
             self.server.close()
+
+    def _build(self, seed, plan):
+        self.stage = ToyStage(seed)
+        return FakeController(FaultyStage(self.stage, plan.schedule(STAGE_KINDS)))
+
+    def _truth(self) -> tuple[float, float, float]:
+        """The stage's own Z, bias and drive amplitude (not what the link reports)."""
+        s = self.stage
+        return s.z_m, s.bias_v, s.drive[1]
 
     def _snapshot(self):
         s = self.stage
@@ -145,10 +153,10 @@ class LinkMachine(RuleBasedStateMachine):
     def within_hard_limits(self):
         if self.server is None:
             return
-        s, lim = self.stage, self.limits
-        assert 0.0 <= s.z_m <= lim.z_range_m and not math.isnan(s.z_m), f"Z = {s.z_m} m"
-        assert abs(s.bias_v) <= lim.bias_max_v, f"bias = {s.bias_v} V"
-        assert 0.0 <= s.drive[1] <= lim.drive_max_v, f"drive = {s.drive[1]} V"
+        (z, bias, drive), lim = self._truth(), self.limits
+        assert 0.0 <= z <= lim.z_range_m and not math.isnan(z), f"Z = {z} m"
+        assert abs(bias) <= lim.bias_max_v, f"bias = {bias} V"
+        assert 0.0 <= drive <= lim.drive_max_v, f"drive = {drive} V"
 
 
 SHARED = dict(deadline=None, suppress_health_check=list(HealthCheck), stateful_step_count=8)
@@ -162,3 +170,42 @@ class LinkMachineLong(LinkMachine):
 
 TestLinkLong = pytest.mark.slow(LinkMachineLong.TestCase)
 TestLinkLong.settings = settings(max_examples=2000, **{**SHARED, "stateful_step_count": 25})
+
+
+class SimLinkMachine(LinkMachine):
+    """The same sequences against the simulated stage itself (the sample is shared between examples to keep
+    them fast; the link invariants do not depend on it)."""
+
+    _shared: dict = {}
+
+    def _build(self, seed, plan):
+        from drivers.simulated import SimulatedController
+        from simulated_stage.scenario import build_microscope, load_scenario
+
+        if not self._shared:
+            scenario = load_scenario("default")
+            self._shared.update(scenario=scenario, sample=build_microscope(scenario, seed=0).sample)
+        sc = self._shared["scenario"]
+        self.stage = build_microscope(sc, seed=seed % 1000, sample=self._shared["sample"])
+        return SimulatedController(FaultyStage(self.stage, plan.schedule(STAGE_KINDS)), scenario=sc, seed=seed)
+
+    def _truth(self):
+        s = self.stage
+        return s.z.position_m, s.bias_v, s.drive_amplitude_v if s.drive_on else 0.0
+
+    def _snapshot(self):
+        s = self.stage
+        return (s.z.position_m, s.bias_v, s.drive_on, s.drive_frequency_hz, s.drive_amplitude_v, s.feedback_on,
+                s.coarse.position_m)
+
+
+TestSimLink = SimLinkMachine.TestCase
+TestSimLink.settings = settings(max_examples=25, **SHARED)
+
+
+class SimLinkMachineLong(SimLinkMachine):
+    link_scale = 5.0
+
+
+TestSimLinkLong = pytest.mark.slow(SimLinkMachineLong.TestCase)
+TestSimLinkLong.settings = settings(max_examples=300, **{**SHARED, "stateful_step_count": 20})
