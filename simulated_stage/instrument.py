@@ -326,7 +326,10 @@ class VirtualMicroscope:
             driven, lag = driven_response(self.drive_frequency_hz, spring_constant_n_per_m=self.k,
                                           resonance_hz=self.f0, quality_factor=self.q,
                                           force_gradient_n_per_m=fprime, drive_force_n=self._drive_force_n())
-            amp = float(self._tapping(gap, float(driven)))
+            if self.engaged:  # the loop holds the amplitude at the setpoint, whatever shifts the resonance
+                amp = self.setpoint_v / self.volts_per_m
+            else:
+                amp = float(self._tapping(gap, float(driven)))
             bw = 1.0 / (4.0 * self.lockin_time_constant_s)  # first-order low-pass, noise-equivalent bandwidth
             sigma = math.sqrt(2 * self._thermal_psd_m2_per_hz(self.drive_frequency_hz) * bw)
             amp_meas = math.hypot(amp + sigma * rng.standard_normal(), sigma * rng.standard_normal())
@@ -608,15 +611,27 @@ class VirtualMicroscope:
         y2 = np.broadcast_to(y2, x2.shape)
         gap = gap0 - z2 - self.sample.topography_m(x2, y2)
         fprime = np.zeros_like(gap)
-        for b in np.unique(biases):
-            rows = biases == b
-            inter = self.sample.interaction(x2[rows], y2[rows], gap[rows], bias_v=float(b), amplitude_m=free)
-            fprime[rows] = inter.force_gradient_n_per_m
-        amp, lag = driven_response(self.drive_frequency_hz, spring_constant_n_per_m=self.k, resonance_hz=self.f0,
-                                   quality_factor=self.q, force_gradient_n_per_m=fprime,
-                                   drive_force_n=self._drive_force_n())
-        amp = self._tapping(gap, amp)  # a lift too low for the amplitude ends in tapping
-        self.sample.expose(x2, y2, np.maximum(gap - amp, 0.0))
+
+        def evaluate(first: int) -> None:  # passes first.. in one call per distinct bias
+            for b in np.unique(biases[first:]):
+                rows = np.flatnonzero(biases == b)
+                rows = rows[rows >= first]
+                inter = self.sample.interaction(x2[rows], y2[rows], gap[rows], bias_v=float(b), amplitude_m=free)
+                fprime[rows] = inter.force_gradient_n_per_m
+
+        def response() -> tuple[np.ndarray, np.ndarray]:
+            a, lg = driven_response(self.drive_frequency_hz, spring_constant_n_per_m=self.k, resonance_hz=self.f0,
+                                    quality_factor=self.q, force_gradient_n_per_m=fprime,
+                                    drive_force_n=self._drive_force_n())
+            return self._tapping(gap, a), lg  # a lift too low for the amplitude ends in tapping
+
+        evaluate(0)
+        amp, lag = response()
+        # the tip's field acts pass by pass: what one pass switches, the later passes of the line see
+        for i in range(npass):
+            if self.sample.expose(x2[i], y2[i], np.maximum(gap[i] - amp[i], 0.0)) and i + 1 < npass:
+                evaluate(i + 1)
+                amp, lag = response()
         shift = self.f0 * (np.sqrt(np.maximum(1 - fprime / self.k, 0.0)) - 1.0)
         # the amplitude's response time and the lock-in smooth the signals along the line
         for tau in (2 * self.q / (2 * math.pi * self.f0), self.lockin_time_constant_s):

@@ -33,6 +33,7 @@ class FlatSample:
         self.contact, self.adhesion = contact_n_per_m, adhesion_n
         self.exposures = 0
         self.last_exposure = None
+        self.exposure_log: list[np.ndarray] = []
 
     @property
     def magnetisation_version(self) -> int:
@@ -58,4 +59,5 @@ class FlatSample:
     def expose(self, x_m, y_m, gap_m):
         self.exposures += 1
         self.last_exposure = np.asarray(gap_m)
+        self.exposure_log.append(self.last_exposure)
         return 0
