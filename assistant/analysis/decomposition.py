@@ -248,14 +248,17 @@ def leave_one_out_prediction(stack: np.ndarray, fit: ContinuationFit) -> np.ndar
     return np.fft.irfft2(amp * e, s=(rows, cols), axes=(-2, -1))
 
 
-def resolution_period_m(fit: ContinuationFit, *, snr: float = 1.0, significance: float = 3.0) -> np.ndarray:
+def resolution_period_m(fit: ContinuationFit, *, snr: float = 1.0, significance: float = 3.0,
+                        noise_std: np.ndarray | None = None) -> np.ndarray:
     """Shortest spatial period whose fitted magnetic contrast is still above the noise, per height [m].
 
     Radial bins of width 1/(max(rows, cols) * pixel); a bin passes at height h if its noise-debiased fitted
     power exceeds ``snr`` times the measurement-noise power of that height in the same bin and is
     ``significance`` standard errors above zero. The period is 1 / (highest passing frequency); inf where
-    no bin passes. Common practice (signal-to-noise of one), no source.
+    no bin passes. ``noise_std`` (H,) overrides the per-pixel noise of one image at each height (default: the
+    fitted ``fit.noise_std``). Common practice (signal-to-noise of one), no source.
     """
+    sig_n = fit.noise_std if noise_std is None else np.asarray(noise_std, float)
     nh = fit.model.shape[0]
     rows, cols = fit.model.shape[-2:]
     n = rows * cols
@@ -272,7 +275,7 @@ def resolution_period_m(fit: ContinuationFit, *, snr: float = 1.0, significance:
     for i in range(nh):  # over heights; bins are vectorised
         sig = np.bincount(b, weights=cwf * (p2[i] - v[i]).ravel(), minlength=nb)
         var = np.bincount(b, weights=2.0 * cwf * (2.0 * mu2[i] * v[i] + v[i] ** 2).ravel(), minlength=nb)
-        noise = np.bincount(b, weights=cwf * n * fit.noise_std[i] ** 2, minlength=nb)
+        noise = np.bincount(b, weights=cwf * n * sig_n[i] ** 2, minlength=nb)
         ok = (sig >= snr * noise) & (sig > significance * np.sqrt(var))
         ok[0] = False
         idx = np.nonzero(ok)[0]

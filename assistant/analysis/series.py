@@ -54,7 +54,20 @@ class TooManyInvalidPixelsError(SeriesInputError):
 
 @dataclass(frozen=True)
 class SeriesAnalysis:
-    """Decomposition of a lift-height series. Arrays for figures; :meth:`to_dict` for JSON."""
+    """Decomposition of a lift-height series. Arrays for figures; :meth:`to_dict` for JSON.
+
+    Every ``*_deg`` part is the phase that part alone would give (``-arctan(Q F'/k)`` of its gradient when k
+    and Q are known; otherwise the small-angle phase itself). ``magnetic_rms_deg`` is the rms over the scan of
+    the denoised magnetic image at each height with the fit noise subtracted in quadrature;
+    ``magnetic_deg`` are those images (H, rows, cols) in the first height's frame. ``electrostatic_mean_deg``
+    is (H,) or, with a bias grid, (H, B); ``short_range_mean_deg`` (H,) is the bias-independent remainder.
+    ``*_std_*`` are standard errors (covariances scaled by the reduced chi-square when above one);
+    ``part_correlation`` is the correlation of the two mean parts at each height. ``noise_deg`` is the
+    per-pixel noise of each height's (bias-averaged) image from the fit, ``reference_noise_deg`` an
+    independent estimate for one image (repeat pass, else the highest frequencies of the top height), and
+    ``residual_at_noise`` compares the two (within ``residual_tolerance``). ``drift_px`` is (H, 2) or
+    (H, B, 2), ``[drow, dcol]`` displacement of the content relative to the first image.
+    """
 
     heights_m: np.ndarray
     pixel_m: float
@@ -327,7 +340,8 @@ def analyse_series(phase_deg, *, heights_m, pixel_m: float, bias_v=None, repeat_
     ms = np.mean(mag_deg**2, axis=(-2, -1)) - fit.noise_power * lin**2
     mag_rms = np.sqrt(np.clip(ms, 0.0, None))
     mag_rms_sd = fit.magnetic_rms_std * lin
-    resolution = dec.resolution_period_m(fit)
+    # resolution as one image at that height would show it (a bias grid averages nb images per height)
+    resolution = dec.resolution_period_m(fit, noise_std=fit.noise_std * np.sqrt(nb))
     rec = recommend_lift(heights_m=h, magnetic_rms=mag_rms, magnetic_rms_std=mag_rms_sd, short_range=sr_deg,
                          residual_ok=residual_ok, resolution_period_m=resolution,
                          short_range_fraction=short_range_fraction, cpd_v=mf.cpd_v)
