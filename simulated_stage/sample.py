@@ -14,9 +14,10 @@ Caches:
   its probe height and a second-order expansion in the offset (first order for the force). New nodes go
   at the middle uncovered point, on a 0.5 % log grid so that later lines reuse them. Up to 5 % of
   a call's points (tracking-noise outliers) may borrow a node up to 15 % away. Calls with at most 8
-  uncovered points (single reads during an approach) are summed directly from the spectrum (~20 ms per
-  point, nothing cached). Nodes live in an LRU cache with a byte budget; after switching they are
-  updated in place from the field of the switched pixels;
+  uncovered points (single reads during an approach) are summed directly from the spectrum (30-100 ms
+  per point, nothing cached) until the same 5 % height bin has been read 20 times (a parked tip).
+  Nodes live in an LRU cache with a byte budget; after switching they are updated in place from the
+  field of the switched pixels;
 * per amplitude (rounded to 4 significant digits), spline tables of the oscillation-averaged
   electrostatic (per V^2), short-range and induced (susceptibility) forces and gradients versus gap.
 """
@@ -43,6 +44,7 @@ _STRAGGLER_FRACTION = 0.05  # up to this fraction of a call's points may use ...
 _WIDE_TOLERANCE = 0.15      # ... a node up to 15 % away (error up to ~1.5e-2 instead of ~3e-4, see the tests)
 _MAX_PIXELS = 8192
 _DIRECT_POINTS = 8         # calls with at most this many points off every cached height are summed directly
+_DIRECT_REPEATS = 20       # ... until the same height has been read that often (a parked tip)
 _HALO_PX = 3               # pixels kept around the film in the spline maps
 
 
@@ -134,6 +136,7 @@ class Sample:
         self._stray: magnetism.StrayField | None = None
         self._nodes: OrderedDict[tuple[float, float], np.ndarray] = OrderedDict()
         self._cache_bytes = cache_bytes
+        self._direct_reads: dict[tuple[float, int], int] = {}
         self._tables: dict[float, tuple[AveragedTable, AveragedTable, AveragedTable | None]] = {}
         self._capacitance = TipCapacitance(radius_m=tip.radius_m, half_angle_rad=tip.cone_half_angle_rad,
                                            cone_height_m=tip.cone_height_m)
@@ -231,6 +234,16 @@ class Sample:
             self._nodes.popitem(last=False)
         return maps
 
+    def _read_often(self, amp: float, lz: np.ndarray) -> bool:
+        """Count direct reads per 5 % height bin; a bin read more than _DIRECT_REPEATS times gets a map."""
+        bins = np.round(lz / _NODE_TOLERANCE).astype(int)
+        often = False
+        for b in np.unique(bins):
+            key = (amp, int(b))
+            self._direct_reads[key] = self._direct_reads.get(key, 0) + int(np.count_nonzero(bins == b))
+            often |= self._direct_reads[key] > _DIRECT_REPEATS
+        return often
+
     def _node_maps(self, stray: magnetism.StrayField, amp: float, z_node: float) -> np.ndarray:
         """Spline coefficients of <F'>, d<F'>/dz, d2<F'>/dz2, <F>, d<F>/dz at one probe height, stacked
         as one (5, rows, columns) float32 array."""
@@ -291,7 +304,7 @@ class Sample:
             uncovered = node_of < 0
             if not uncovered.any():
                 break
-            if uncovered.sum() <= _DIRECT_POINTS:
+            if uncovered.sum() <= _DIRECT_POINTS and not self._read_often(amp, lz[uncovered]):
                 break  # a handful of points (single reads on an approach): no map for them, see below
             # the middle uncovered point itself (np.median would average two points and may fall between
             # two lift heights, covering neither)

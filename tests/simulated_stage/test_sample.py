@@ -200,3 +200,12 @@ def test_two_lift_heights_in_one_call_get_one_node_each():
     heights = sorted(z for _, z in sample._nodes)
     assert len(heights) == 2  # probe heights 50 and 90 nm, up to roughness (0.5 nm rms) and the 0.5 % grid
     assert heights[0] == pytest.approx(50e-9, rel=0.02) and heights[1] == pytest.approx(90e-9, rel=0.02)
+
+
+def test_a_parked_tip_gets_a_map_after_repeated_reads():
+    sample = build_sample(SampleSpec(**SMALL), TipSpec())
+    for _ in range(20):
+        sample.interaction(np.array([0.0]), 0.0, np.array([30e-9]), bias_v=0.0, amplitude_m=10e-9)
+    assert len(sample._nodes) == 0
+    sample.interaction(np.array([0.0]), 0.0, np.array([30e-9]), bias_v=0.0, amplitude_m=10e-9)
+    assert len(sample._nodes) == 1
