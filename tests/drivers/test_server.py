@@ -131,3 +131,33 @@ def test_error_queue_is_per_stream_session_and_bounded():
     assert len(s.errors) == 32
     codes = [s.errors.pop()[0] for _ in range(33)]
     assert codes[-2:] == [-350, 0] and scpi.STANDARD_ERRORS[-350] == "Queue overflow"
+
+
+from hypothesis import given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+LINE_JUNK = st.binary(max_size=200) | st.lists(st.sampled_from(
+    ["MOT:Z ", "BIAS:VOLT ", "SCAN:LINE? ", "*IDN?", "SYST:ERR?", ";", ",", "1e-6", "NAN", "DEF", '"x"', "#", "\x00",
+     "MEAS:READ? ", "sum_v", "ACQ:DEFL:STAR ", "100", "FEED:SET ", "ON", "*RST", "DRIV:SWE? "]), max_size=12).map(
+    lambda parts: "".join(parts).encode("latin-1"))
+
+
+@settings(max_examples=500, deadline=None)
+@given(st.lists(LINE_JUNK, min_size=1, max_size=5))
+def test_dispatcher_survives_any_lines(lines):
+    fake = FakeController()
+    d, s = Dispatcher(fake, watchdog_s=None), _Session()
+    for line in lines:
+        reply = d.handle_line(line.replace(b"\n", b" "), s)
+        assert reply is None or reply.endswith(b"\n")
+    lim = fake.limits
+    assert 0.0 <= fake.stage.z_m <= lim.z_range_m and abs(fake.stage.bias_v) <= lim.bias_max_v
+    assert d.handle_line(b"*CLS;*IDN?", s) == b"Toy Works,T-1,0001,0.1\n"
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.lists(st.binary(max_size=80) | LINE_JUNK, max_size=4))
+def test_dispatcher_survives_any_frames(frames):
+    d = Dispatcher(FakeController(), watchdog_s=None)
+    reply = d.handle_frames(frames)
+    assert isinstance(reply, list) and reply and reply[0].startswith(b'{"v":1')
