@@ -173,7 +173,9 @@ class Dispatcher:
         self._watchdog_armed = False  # once per silence
         try:
             s = self.controller.status()
-            at_risk = s.engaged or s.feedback_on or s.z_m > 0.0 or s.drive_on or s.bias_v != 0.0
+            # Near the surface: engaged, or the feedback or the Z piezo could bring the tip down. A withdrawn
+            # stage with the drive on (a client thinking between sweeps) is left alone.
+            at_risk = s.engaged or s.feedback_on or s.z_m > 0.0
         except Exception:
             at_risk = True
         if not at_risk:

@@ -64,6 +64,14 @@ def test_silence_while_withdrawn_does_nothing():
     assert not d.watchdog() and sum(fake.calls.values()) == 0
 
 
+def test_silence_with_the_drive_on_but_withdrawn_does_nothing():
+    clock, fake = ManualClock(), FakeController()
+    fake.stage.set_drive(7e4, 0.1)
+    d = Dispatcher(fake, watchdog_s=1.0, clock=clock)
+    clock.t = 100.0
+    assert not d.watchdog() and fake.status().drive_on
+
+
 def test_disabled_watchdog():
     clock, fake = ManualClock(), _engaged_fake()
     d = Dispatcher(fake, watchdog_s=None, clock=clock)
