@@ -16,8 +16,8 @@ Caches:
   a call's points (tracking-noise outliers) may borrow a node up to 15 % away. Calls with at most 8
   uncovered points (single reads during an approach) are summed directly from the spectrum (30-100 ms
   per point, nothing cached) until the same 5 % height bin has been read 20 times (a parked tip).
-  Nodes live in an LRU cache with a byte budget; after switching they are updated in place from the
-  field of the switched pixels;
+  Nodes live in a cache with a byte budget that drops the least used node; after switching they are
+  updated in place from the field of the switched pixels;
 * per amplitude (rounded to 4 significant digits), spline tables of the oscillation-averaged
   electrostatic (per V^2), short-range and induced (susceptibility) forces and gradients versus gap.
 """
@@ -25,7 +25,6 @@ Caches:
 from __future__ import annotations
 
 import math
-from collections import OrderedDict
 from dataclasses import dataclass
 from typing import Any, Mapping
 
@@ -134,9 +133,10 @@ class Sample:
         self._patch_sigma_m = min(1e-6, spec.extent_um * 1e-6 / 8.0)
         self._version = 0
         self._stray: magnetism.StrayField | None = None
-        self._nodes: OrderedDict[tuple[float, float], np.ndarray] = OrderedDict()
+        self._nodes: dict[tuple[float, float], np.ndarray] = {}  # insertion order = age
         self._cache_bytes = cache_bytes
         self._direct_reads: dict[tuple[float, int], int] = {}
+        self._node_uses: dict[tuple[float, float], int] = {}
         self._tables: dict[float, tuple[AveragedTable, AveragedTable, AveragedTable | None]] = {}
         self._capacitance = TipCapacitance(radius_m=tip.radius_m, half_angle_rad=tip.cone_half_angle_rad,
                                            cone_height_m=tip.cone_height_m)
@@ -224,14 +224,19 @@ class Sample:
 
     def _node(self, amp: float, z_node: float) -> np.ndarray:
         key = (amp, z_node)
+        self._node_uses[key] = self._node_uses.get(key, 0) + 1
         if key in self._nodes:
-            self._nodes.move_to_end(key)
             return self._nodes[key]
         maps = self._node_maps(self._stray_field(), amp, z_node)
         self._nodes[key] = maps
-        per_node = maps.nbytes
-        while len(self._nodes) > 1 and per_node * len(self._nodes) > self._cache_bytes:
-            self._nodes.popitem(last=False)
+        # Over budget, drop the least used node (oldest first among equals). Plain LRU would thrash on the
+        # cyclic order of a lift series (every height once per line) as soon as the heights exceed the budget.
+        # Default budget 1 GiB: 13 nodes of a 2000^2 film (80 MB each).
+        while len(self._nodes) > 1 and maps.nbytes * len(self._nodes) > self._cache_bytes:
+            victim = min((k for k in self._nodes if k != key), key=lambda k: self._node_uses.get(k, 0))
+            del self._nodes[victim]
+            # age the counts so that a new set of heights can take over from an old one
+            self._node_uses = {k: n // 2 for k, n in self._node_uses.items() if n > 1}
         return maps
 
     def _read_often(self, amp: float, lz: np.ndarray) -> bool:

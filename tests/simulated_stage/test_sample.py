@@ -209,3 +209,16 @@ def test_a_parked_tip_gets_a_map_after_repeated_reads():
     assert len(sample._nodes) == 0
     sample.interaction(np.array([0.0]), 0.0, np.array([30e-9]), bias_v=0.0, amplitude_m=10e-9)
     assert len(sample._nodes) == 1
+
+
+def test_cache_budget_keeps_the_heights_in_use():
+    # room for two nodes; a third height used once must not push out the two used every line
+    sample = build_sample(SampleSpec(**SMALL), TipSpec(), cache_bytes=2 * 5 * 262**2 * 4)
+    x = np.linspace(-1e-6, 1e-6, 64)
+    for _ in range(3):
+        for gap in (20e-9, 60e-9):
+            sample.interaction(x, 0.0, gap, bias_v=0.0, amplitude_m=10e-9)
+    sample.interaction(x, 0.0, 150e-9, bias_v=0.0, amplitude_m=10e-9)
+    sample.interaction(x, 0.0, 20e-9, bias_v=0.0, amplitude_m=10e-9)
+    heights = sorted(round(z * 1e9) for _, z in sample._nodes)
+    assert len(heights) == 2 and heights[0] == 50 and heights[1] in (89, 90, 91)
