@@ -169,7 +169,7 @@ class LinkMachineLong(LinkMachine):
 
 
 TestLinkLong = pytest.mark.slow(LinkMachineLong.TestCase)
-TestLinkLong.settings = settings(max_examples=2000, **{**SHARED, "stateful_step_count": 25})
+TestLinkLong.settings = settings(max_examples=1000, **{**SHARED, "stateful_step_count": 20})
 
 
 class SimLinkMachine(LinkMachine):
@@ -208,4 +208,4 @@ class SimLinkMachineLong(SimLinkMachine):
 
 
 TestSimLinkLong = pytest.mark.slow(SimLinkMachineLong.TestCase)
-TestSimLinkLong.settings = settings(max_examples=300, **{**SHARED, "stateful_step_count": 20})
+TestSimLinkLong.settings = settings(max_examples=200, **{**SHARED, "stateful_step_count": 15})
