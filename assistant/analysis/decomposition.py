@@ -24,6 +24,7 @@ import numpy as np
 from scipy import optimize
 
 __all__ = [
+    "pixel_pair_m",
     "ContinuationFit",
     "fit_continuation",
     "leave_one_out_prediction",
@@ -34,10 +35,21 @@ __all__ = [
 ]
 
 
-def _wavenumbers(shape: tuple[int, int], pixel_m: float):
+def pixel_pair_m(pixel_m) -> tuple[float, float]:
+    """``(row spacing, column spacing)`` [m] from a scalar (square pixels) or a pair; both must be > 0."""
+    p = np.atleast_1d(np.asarray(pixel_m, dtype=float))
+    if p.size == 1:
+        p = np.array([p[0], p[0]])
+    if p.size != 2 or not np.all(np.isfinite(p)) or np.any(p <= 0):
+        raise ValueError(f"pixel_m must be a spacing > 0 m or a (row, column) pair of them, got {pixel_m!r}")
+    return float(p[0]), float(p[1])
+
+
+def _wavenumbers(shape: tuple[int, int], pixel_m):
     rows, cols = shape
-    fr = np.fft.fftfreq(rows)[:, None] / pixel_m
-    fc = np.fft.rfftfreq(cols)[None, :] / pixel_m
+    pr, pc = pixel_pair_m(pixel_m)
+    fr = np.fft.fftfreq(rows)[:, None] / pr
+    fc = np.fft.rfftfreq(cols)[None, :] / pc
     f = np.sqrt(fr**2 + fc**2)  # cycles per metre
     cw = np.full((1, cols // 2 + 1), 2.0)  # each half-plane cell stands for itself and its conjugate
     cw[0, 0] = 1.0
@@ -74,7 +86,8 @@ class ContinuationFit:
         Mean-square the fit noise adds to ``model`` at each height [s^2] (subtract it from the map's
         mean square to debias).
     heights_m : ndarray (H,)
-    pixel_m : float
+    pixel_m : (float, float)
+        Row and column spacing [m].
     """
 
     amplitude: np.ndarray
@@ -89,12 +102,12 @@ class ContinuationFit:
     decay: np.ndarray
     noise_power: np.ndarray
     heights_m: np.ndarray
-    pixel_m: float
+    pixel_m: tuple[float, float]
 
 
-def fit_continuation(stack: np.ndarray, *, heights_m, pixel_m: float, valid: np.ndarray | None = None,
+def fit_continuation(stack: np.ndarray, *, heights_m, pixel_m, valid: np.ndarray | None = None,
                      stats_mask: np.ndarray | None = None, n_iter: int | None = None, tol: float = 1e-3,
-                     subset_stride: int = 1) -> ContinuationFit:
+                     subset_stride: int = 1, max_weight_ratio: float = 10.0) -> ContinuationFit:
     """Fit one complex amplitude per spatial frequency jointly across heights (Laplace continuation).
 
     Weighted least squares per frequency with closed form
@@ -110,8 +123,8 @@ def fit_continuation(stack: np.ndarray, *, heights_m, pixel_m: float, valid: np.
         Images at each height in signal units; their means are removed here (the q = 0 term is not fitted).
     heights_m : array_like (H,)
         Lift heights [m], increasing.
-    pixel_m : float
-        Pixel spacing [m] (square pixels).
+    pixel_m : float or (float, float)
+        Pixel spacing [m]: one value for square pixels, else (row spacing, column spacing).
     valid : ndarray of bool (H, rows, cols), optional
         False where data are missing (NaN pixels are always treated as missing).
     stats_mask : ndarray of bool (rows, cols), optional
@@ -124,6 +137,8 @@ def fit_continuation(stack: np.ndarray, *, heights_m, pixel_m: float, valid: np.
         Stop re-weighting once every sigma_h^2 changed by less than this fraction.
     subset_stride : int
         With complete data, the weights are iterated on every ``subset_stride``-th frequency cell.
+    max_weight_ratio : float
+        Largest weight of one height relative to the median weight (floor on sigma_h^2).
     """
     data = np.asarray(stack, dtype=float)
     h = np.asarray(heights_m, dtype=float)
@@ -182,7 +197,12 @@ def fit_continuation(stack: np.ndarray, *, heights_m, pixel_m: float, valid: np.
             sol = np.linalg.solve(m, r2)
         except np.linalg.LinAlgError:
             sol = r2 / np.maximum(np.diag(m), 1.0)
-        new = np.clip(sol, 1e-12 * max(r2.max(), 1e-300), None) / np.maximum(frac, 1e-3)
+        # floor: no height may weigh more than max_weight_ratio times the median. A model misfit can drive
+        # one height's moment estimate to zero (or below), and its weight would then take over the fit; the
+        # detector noise of one series is alike at all heights, so a bounded spread costs nothing real.
+        pos = sol[sol > 0]
+        floor = np.median(pos) / max_weight_ratio if pos.size else 1e-12 * max(r2.max(), 1e-300)
+        new = np.maximum(sol, floor) / np.maximum(frac, 1e-3)
         settled = bool(np.all(np.abs(new - sigma2) <= tol * new))
         sigma2 = new
         if not complete:
@@ -224,7 +244,7 @@ def fit_continuation(stack: np.ndarray, *, heights_m, pixel_m: float, valid: np.
     return ContinuationFit(amplitude=amp, model=model, residual=resid, noise_std=np.sqrt(sigma2),
                            magnetic_rms=rms, magnetic_rms_std=rms_std, residual_rms=residual_rms,
                            expected_residual_rms=expected, inverse_weight_sum=inv_s, decay=e,
-                           noise_power=noise_power, heights_m=h, pixel_m=float(pixel_m))
+                           noise_power=noise_power, heights_m=h, pixel_m=pixel_pair_m(pixel_m))
 
 
 def leave_one_out_prediction(stack: np.ndarray, fit: ContinuationFit) -> np.ndarray:
@@ -252,7 +272,7 @@ def resolution_period_m(fit: ContinuationFit, *, snr: float = 1.0, significance:
                         noise_std: np.ndarray | None = None) -> np.ndarray:
     """Shortest spatial period whose fitted magnetic contrast is still above the noise, per height [m].
 
-    Radial bins of width 1/(max(rows, cols) * pixel); a bin passes at height h if its noise-debiased fitted
+    Radial bins of width 1 / (the longer side of the scan); a bin passes at height h if its noise-debiased fitted
     power exceeds ``snr`` times the measurement-noise power of that height in the same bin and is
     ``significance`` standard errors above zero. The period is 1 / (highest passing frequency); inf where
     no bin passes. ``noise_std`` (H,) overrides the per-pixel noise of one image at each height (default: the
@@ -263,7 +283,7 @@ def resolution_period_m(fit: ContinuationFit, *, snr: float = 1.0, significance:
     rows, cols = fit.model.shape[-2:]
     n = rows * cols
     _, fmag, cw = _wavenumbers((rows, cols), fit.pixel_m)
-    df = 1.0 / (max(rows, cols) * fit.pixel_m)
+    df = 1.0 / max(rows * fit.pixel_m[0], cols * fit.pixel_m[1])
     b = np.rint(fmag / df).astype(int).ravel()
     nb = b.max() + 1
     pred = fit.amplitude[None] * fit.decay
@@ -320,37 +340,47 @@ class MeanFit:
 
 
 def fit_mean_heights(mean, mean_std, *, electrostatic_shape, short_range_shape, heights_m,
-                     separation_tolerance: float = 0.2) -> MeanFit:
+                     separation_tolerance: float = 0.2, attractive_sign: float = 1.0) -> MeanFit:
     """Fit the image mean per height as ``alpha * e(h) + beta * s(h)`` (weighted linear least squares).
 
     ``e`` is the amplitude-weighted ``1/2 C''`` of the tip (electrostatic, times (V - V_cpd)^2 = alpha) and
     ``s`` the amplitude-weighted Hamaker sphere gradient per unit Hamaker constant (beta = H), both in
-    signal units per unit parameter. The covariance is scaled by the reduced chi-square when it exceeds 1
-    (Birge ratio). The parts count as separable when each part's standard error at the lowest height is at
-    most ``separation_tolerance`` times the total mean there.
+    signal units per unit parameter. Both forces attract (Hudlet et al. 1998; Hamaker 1937), so
+    ``alpha`` and ``beta`` are held to the sign ``attractive_sign`` (+1 for force gradients, -1 for phase):
+    a part that would come out repulsive is held at zero (non-negative least squares) and the sentence says
+    so. The covariance is scaled by the reduced chi-square when it exceeds 1 (Birge ratio); a part held at
+    zero keeps the standard error of the free fit. The parts count as separable when each part's standard
+    error at the lowest height is at most ``separation_tolerance`` times the total mean there.
     """
     y = np.asarray(mean, float)
     sd = np.asarray(mean_std, float)
     e = np.asarray(electrostatic_shape, float)
     s = np.asarray(short_range_shape, float)
-    # scale columns to unit first value for conditioning
-    se, ss = e[0], s[0]
-    x = np.stack([e / se, s / ss], axis=1) / sd[:, None]
-    coef, *_ = np.linalg.lstsq(x, y / sd, rcond=None)
-    xtx_inv = np.linalg.inv(x.T @ x)
-    chi2 = float(np.sum((x @ coef - y / sd) ** 2))
+    sign = 1.0 if attractive_sign >= 0 else -1.0
+    # columns scaled to unit first value (conditioning) and to the attractive sign (non-negativity)
+    scale = sign * np.array([1.0 / e[0], 1.0 / s[0]])
+    x = np.stack([e, s], axis=1) * scale[None] / sd[:, None]
+    yw = y / sd
+    coef_free = np.linalg.lstsq(x, yw, rcond=None)[0]
+    coef, _ = optimize.nnls(x, yw)
+    held = coef <= 0.0
     dof = max(len(y) - 2, 1)
-    red = chi2 / dof
-    cov = xtx_inv * max(red, 1.0)
-    scale = np.array([1.0 / se, 1.0 / ss])
+    red = float(np.sum((x @ coef - yw) ** 2)) / dof
+    cov = np.linalg.inv(x.T @ x) * max(red, 1.0)
+    if held.any() and not held.all():
+        j = int(np.nonzero(~held)[0][0])  # the free part alone
+        cov_j = max(red, 1.0) / float(x[:, j] @ x[:, j])
+        cov = np.diag(np.diag(cov))
+        cov[j, j] = cov_j
     params = coef * scale
     pcov = cov * np.outer(scale, scale)
     es = params[0] * e
     sr = params[1] * s
     es_sd = np.sqrt(pcov[0, 0]) * np.abs(e)
     sr_sd = np.sqrt(pcov[1, 1]) * np.abs(s)
-    corr_p = pcov[0, 1] / np.sqrt(pcov[0, 0] * pcov[1, 1])
-    corr = np.full(len(y), corr_p * np.sign(e * s))
+    free_cov = np.linalg.inv(x.T @ x)
+    corr_p = float(free_cov[0, 1] / np.sqrt(free_cov[0, 0] * free_cov[1, 1]))
+    corr = np.full(len(y), corr_p)
     total = abs(es[0] + sr[0])
     worst = max(es_sd[0], sr_sd[0])
     separable = bool(worst <= separation_tolerance * total)
@@ -363,6 +393,9 @@ def fit_mean_heights(mean, mean_std, *, electrostatic_shape, short_range_shape, 
                     f"correlation is {corr_p:+.2f} and at {h_nm:.4g} nm the split is uncertain by "
                     f"{worst / max(total, 1e-300):.0%} of the mean; only their sum is reliable. Measure at three "
                     "or more tip biases to separate them.")
+    names = ("electrostatic", "short-range")
+    for k in np.nonzero(held & (coef_free < 0))[0]:
+        sentence += f" The free fit made the {names[k]} part repulsive, which it cannot be: it is held at zero."
     return MeanFit(es, es_sd, sr, sr_sd, corr, params, pcov, separable, sentence, None, None, red)
 
 

@@ -70,7 +70,7 @@ class SeriesAnalysis:
     """
 
     heights_m: np.ndarray
-    pixel_m: float
+    pixel_m: tuple[float, float]        # (row spacing, column spacing)
     bias_v: np.ndarray | None
     magnetic_rms_deg: np.ndarray
     magnetic_rms_std_deg: np.ndarray
@@ -195,7 +195,7 @@ def _per_height(a, v, nh, nb):
     return np.where(cnt > 0, num / np.maximum(cnt, 1), np.nan), cnt > 0
 
 
-def analyse_series(phase_deg, *, heights_m, pixel_m: float, bias_v=None, repeat_phase_deg=None,
+def analyse_series(phase_deg, *, heights_m, pixel_m, bias_v=None, repeat_phase_deg=None,
                    spring_constant_n_per_m: float | None = None, quality_factor: float | None = None,
                    resonance_hz: float | None = None, tip_radius_m: float = 30e-9,
                    cone_half_angle_deg: float | None = 15.0, cone_height_m: float = 10e-6,
@@ -210,8 +210,8 @@ def analyse_series(phase_deg, *, heights_m, pixel_m: float, bias_v=None, repeat_
         Second-pass phase [deg], (heights, rows, cols) or (heights, biases, rows, cols); NaN = missing.
     heights_m : array_like
         Lift heights [m], at least 3, strictly increasing.
-    pixel_m : float
-        Pixel spacing [m].
+    pixel_m : float or (float, float)
+        Pixel spacing [m]: one value for square pixels, else (spacing between lines, spacing along a line).
     bias_v : array_like, optional
         Tip biases [V] of a bias grid (at least 3); a scalar is accepted and ignored for a 3-D stack.
     repeat_phase_deg : ndarray (rows, cols), optional
@@ -239,6 +239,10 @@ def analyse_series(phase_deg, *, heights_m, pixel_m: float, bias_v=None, repeat_
         Rounds of refining the drift against the leave-one-out continuation.
     """
     stack, h, volts = _validate(phase_deg, heights_m, bias_v)
+    try:
+        pixel_m = dec.pixel_pair_m(pixel_m)
+    except ValueError as exc:
+        raise SeriesInputError(str(exc)) from None
     grid = stack.ndim == 4
     s4 = stack if grid else stack[:, None]
     nh, nb, rows, cols = s4.shape
@@ -329,7 +333,7 @@ def analyse_series(phase_deg, *, heights_m, pixel_m: float, bias_v=None, repeat_
             lambda z: lm.vdw_sphere_gradient_n_per_m(z, hamaker_j=1.0, radius_m=tip_radius_m), dc,
             amplitude_m=amplitude_m)
         mf = dec.fit_mean_heights(means[:, 0], mean_sd[:, 0], electrostatic_shape=e_shape,
-                                  short_range_shape=s_shape, heights_m=h)
+                                  short_range_shape=s_shape, heights_m=h, attractive_sign=1.0 if exact else -1.0)
     es_deg = to_deg(mf.electrostatic)
     es_sd_deg = slope(mf.electrostatic) * mf.electrostatic_std
     sr_deg = to_deg(mf.short_range)
@@ -353,7 +357,7 @@ def analyse_series(phase_deg, *, heights_m, pixel_m: float, bias_v=None, repeat_
         params.update(effective_voltage_v=float(np.sqrt(max(mf.parameters[0], 0.0))),
                       hamaker_j=float(mf.parameters[1]))
     return SeriesAnalysis(
-        heights_m=h, pixel_m=float(pixel_m), bias_v=volts, magnetic_rms_deg=mag_rms, magnetic_rms_std_deg=mag_rms_sd,
+        heights_m=h, pixel_m=pixel_m, bias_v=volts, magnetic_rms_deg=mag_rms, magnetic_rms_std_deg=mag_rms_sd,
         electrostatic_mean_deg=es_deg, electrostatic_mean_std_deg=es_sd_deg, short_range_mean_deg=sr_deg,
         short_range_mean_std_deg=sr_sd_deg, part_correlation=mf.correlation,
         mean_phase_deg=to_deg(means if grid else means[:, 0]),

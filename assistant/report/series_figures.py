@@ -133,7 +133,7 @@ def maps_figure(a: SeriesAnalysis) -> Figure:
     fig = _new_figure((4.0 * cols, 3.4 * rows + 0.5))
     axes = fig.subplots(rows, cols, squeeze=False).ravel()
     r, c = a.magnetic_deg.shape[-2:]
-    size_um = (r * a.pixel_m * 1e6, c * a.pixel_m * 1e6)
+    size_um = (r * a.pixel_m[0] * 1e6, c * a.pixel_m[1] * 1e6)
     cmap = phase_colormap()
     mag_limit = max(_limit(p[0]) for p in panels[:len(picks)])
     for k, (img, title, label) in enumerate(panels):
