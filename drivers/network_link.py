@@ -21,7 +21,7 @@ from zmq.utils.monitor import recv_monitor_message
 
 from drivers import keys
 from drivers.errors import BadURL, LinkLost, LinkTimeout, ProtocolError
-from drivers.serial_link import LinkController, _options
+from drivers.serial_link import LinkController, _no_extra, _options
 from drivers.wire import messages
 from drivers.wire.commands import Command, exception_for
 
@@ -64,6 +64,7 @@ class NetworkController(LinkController):
     @classmethod
     def from_url(cls, url: str, **options: object) -> "NetworkController":
         parts = urlsplit(url)
+        _no_extra(options, "network")
         opts = _options(parts.query, {"server": str, "client": str, "timeout": float, "retries": int})
         try:
             host, port = parts.hostname, parts.port
@@ -74,7 +75,7 @@ class NetworkController(LinkController):
         netloc = f"[{host}]" if ":" in host else host
         return cls(f"tcp://{netloc}:{port}", server_key=opts.get("server"),  # type: ignore[arg-type]
                    client_key=opts.get("client"), timeout_s=float(opts.get("timeout", 2.0)),  # type: ignore[arg-type]
-                   retries=int(opts.get("retries", 2)), **options)  # type: ignore[arg-type]
+                   retries=int(opts.get("retries", 2)))
 
     # ---- sockets -------------------------------------------------------------------------------------
     def _connect(self) -> zmq.Socket:

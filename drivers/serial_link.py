@@ -127,6 +127,13 @@ class LinkController(Controller):
         self._call("SYSTem:SAFE")
 
 
+def _no_extra(options: dict[str, object], scheme: str) -> None:
+    unknown = sorted(k for k, v in options.items() if v is not None)
+    if unknown:
+        raise BadURL(f"option {unknown[0]!r} does not apply to {scheme} controllers (URL options: timeout, "
+                     f"retries{', baud' if scheme == 'serial' else ', server, client'})")
+
+
 def _options(query: str, allowed: dict[str, type]) -> dict[str, object]:
     out: dict[str, object] = {}
     for key, values in parse_qs(query, keep_blank_values=True).items():
@@ -170,6 +177,7 @@ class SerialController(LinkController):
     @classmethod
     def from_url(cls, url: str, **options: object) -> "SerialController":
         parts = urlsplit(url)
+        _no_extra(options, "serial")
         opts = _options(parts.query, {"baud": int, "timeout": float, "retries": int})
         if parts.scheme == "serial":
             if not parts.path:
@@ -178,7 +186,7 @@ class SerialController(LinkController):
         else:
             port = urlunsplit((parts.scheme, parts.netloc, parts.path, "", ""))
         return cls(port, baud=int(opts.get("baud", 115200)), timeout_s=float(opts.get("timeout", 2.0)),
-                   retries=int(opts.get("retries", 1)), **options)  # type: ignore[arg-type]
+                   retries=int(opts.get("retries", 1)))
 
     def close(self) -> None:
         self._port.close()

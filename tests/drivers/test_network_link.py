@@ -57,6 +57,8 @@ def test_registry_opens_zmq_urls_and_refuses_plain_remote_hosts():
         NetworkController.from_url("zmq+tcp://192.0.2.1:5555")  # documentation address, never contacted
     with pytest.raises(BadURL):
         NetworkController.from_url("zmq+tcp://127.0.0.1")
+    with pytest.raises(BadURL, match="scenario"):
+        open_controller("zmq+tcp://127.0.0.1:1", scenario="default")
 
 
 def test_retried_motion_runs_once(caplog):
