@@ -31,22 +31,32 @@ def test_interaction_cost_per_line_and_height_with_a_warm_cache():
             sample.interaction(x, y, h + rng.normal(0.0, 1e-9, x.size), bias_v=0.5, amplitude_m=10e-9)
 
     start = time.perf_counter()
-    for y in ys[:4]:
+    for y in ys[:8]:
         one_line(y)
     warm_up_s = time.perf_counter() - start
-    start = time.perf_counter()
-    for y in ys:
-        one_line(y)
-    per_call_s = (time.perf_counter() - start) / (lines * len(HEIGHTS))
+
+    def cost_per_call(run, calls: int) -> float:
+        # CPU time of this process, best of four batches: the machine is shared with other test runs
+        best = np.inf
+        for batch in np.array_split(ys, 4):
+            start = time.process_time()
+            for y in batch:
+                run(y)
+            best = min(best, (time.process_time() - start) / (len(batch) * calls))
+        return best
+
+    per_call_s = cost_per_call(one_line, len(HEIGHTS))
     # all heights of a line in one call, as the instrument sends them
     xs = np.broadcast_to(x, (len(HEIGHTS), x.size))
-    start = time.perf_counter()
-    for y in ys:
+
+    def joint(y: float) -> None:
         sample.interaction(xs, np.full(xs.shape, y), HEIGHTS[:, None] + rng.normal(0.0, 1e-9, xs.shape),
                            bias_v=0.5, amplitude_m=10e-9)
-    per_height_joint_s = (time.perf_counter() - start) / (lines * len(HEIGHTS))
-    # measured on two busy cores: warm-up ~3.4 s (spectrum, 8 nodes, tables); ~0.27 ms per (line, height)
-    # with separate calls, ~0.24 ms when the seven heights come in one call
+
+    per_height_joint_s = cost_per_call(joint, len(HEIGHTS))
+    # measured (CPU time, two cores shared with other runs, load ~4): 0.53-0.68 ms per (line, height) with
+    # separate calls, 0.30 ms when the seven heights come in one call (the instrument's way); wall-clock
+    # 0.35 ms and 0.24 ms on a quiet machine. Warm-up 3.4 s quiet, 13 s under load (spectrum, 7-8 nodes).
     assert per_call_s < 1e-3
     assert per_height_joint_s < 1e-3
     assert warm_up_s < 20.0
