@@ -21,6 +21,7 @@ from drivers.base import (Capability, Controller, ControllerInfo, ForceCurve, Li
 from drivers.errors import BadURL, ControllerFault, LaserLost, LimitExceeded
 from simulated_stage.clock import PACES, VirtualClock
 from simulated_stage.errors import ScenarioError, StageError, StageFault, StageLimitError
+from simulated_stage.faults import STAGE_KINDS, FaultPlan, FaultyStage, gate_for
 from simulated_stage.instrument import LASER_LOST
 from simulated_stage.scenario import Scenario, build_microscope, load_scenario
 
@@ -64,6 +65,22 @@ class SimulatedController(Controller):
         name = scenario.name if scenario is not None else "custom"
         self.info = ControllerInfo("mfm-assistant", "virtual microscope", f"sim-{name}-{seed}", "1.0")
         self._closed = False
+        #: the scenario's fault plan (link and writing-side faults are applied by the server and the session
+        #: writer; the stage-level ones are already wrapped around ``stage``)
+        self.fault_plan: FaultPlan | None = None
+
+    def writer_fault_hook(self):
+        """For the session writer: a callable(line_index) that raises ``OSError(ENOSPC)`` when the scenario's
+        ``disk_full`` fault fires, or None when the scenario injects no such fault."""
+        if self.fault_plan is None or not self.fault_plan.only({"disk_full"}).faults:
+            return None
+        gate = gate_for(self.fault_plan)
+        return lambda line_index: gate.check()
+
+    @property
+    def scenario_text(self) -> str | None:
+        """The scenario's TOML, kept in the session file so a simulated session can be reproduced."""
+        return getattr(self.scenario, "text", None)
 
     @classmethod
     def from_url(cls, url: str = "sim://", **options: object) -> "SimulatedController":
@@ -98,9 +115,14 @@ class SimulatedController(Controller):
                 scenario = load_scenario(str(scenario))
             clock = merged.get("clock") or VirtualClock(pace)
             stage = build_microscope(scenario, seed=seed, clock=clock, sample=merged.get("sample"))
+            plan = FaultPlan.from_table(scenario.faults) if scenario.faults else None
         except ScenarioError as exc:
             raise BadURL(f"scenario: {exc}") from exc
-        return cls(stage, scenario=scenario, seed=seed, default_line_rate_hz=line_rate)
+        if plan is not None and plan.only(STAGE_KINDS).faults:
+            stage = FaultyStage(stage, plan.schedule(STAGE_KINDS))
+        ctl = cls(stage, scenario=scenario, seed=seed, default_line_rate_hz=line_rate)
+        ctl.fault_plan = plan
+        return ctl
 
     # ---- signals -------------------------------------------------------------------------------------
     @_mapped

@@ -9,7 +9,7 @@ from assistant.cli._common import StderrProgress, emit_json, emit_text, open_con
 
 
 def run(args) -> int:
-    from assistant.cli.cmd_run import _writable_dir, calibration_settings
+    from assistant.cli.cmd_run import _scenario_text, _writable_dir, calibration_settings
     from assistant.procedures.workflow import Workflow
     from assistant.storage.probe_record import ProbeRecord
     from drivers.registry import redact
@@ -25,7 +25,7 @@ def run(args) -> int:
     progress = StderrProgress(quiet=False)
     with open_controller_from_args(args) as ctl:
         wf = Workflow(ctl, path, controller_url=redact(args.controller),
-                      scenario_text=getattr(ctl, "scenario_text", None), sink=progress)
+                      scenario_text=_scenario_text(ctl), sink=progress)
         try:
             result = wf.calibrate(settings, probe_record=ProbeRecord() if args.probe else None)
             wf.session.mark_complete()

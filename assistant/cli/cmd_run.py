@@ -46,7 +46,16 @@ def _series_settings(args):
 
 
 def _scenario_text(ctl) -> str | None:
-    return getattr(ctl, "scenario_text", None)
+    from drivers.simulated import SimulatedController
+
+    return ctl.scenario_text if isinstance(ctl, SimulatedController) else None
+
+
+def _writer_hook(ctl):
+    """The simulated stage's full-disk fault, if its scenario injects one; nothing for real controllers."""
+    from drivers.simulated import SimulatedController
+
+    return ctl.writer_fault_hook() if isinstance(ctl, SimulatedController) else None
 
 
 def run(args) -> int:
@@ -69,7 +78,7 @@ def run(args) -> int:
     extra = {"pace": args.pace, "line_rate": args.line_rate} if scheme_of(args.controller) == "sim" else {}
     with open_controller_from_args(args, **extra) as ctl:
         wf = Workflow(ctl, session_path, controller_url=redact(args.controller), scenario_text=_scenario_text(ctl),
-                      limits=limits, sink=progress, fsync=args.fsync)
+                      limits=limits, sink=progress, fsync=args.fsync, before_write=_writer_hook(ctl))
         try:
             from assistant.storage.probe_record import ProbeRecord
 
@@ -110,7 +119,7 @@ def _resume(args, limits, progress) -> int:
     extra = {"pace": args.pace, "line_rate": settings.line_rate_hz} if scheme_of(args.controller) == "sim" else {}
     with open_controller_from_args(args, **extra) as ctl:
         wf = Workflow(ctl, path, controller_url=redact(args.controller), limits=limits, sink=progress,
-                      fsync=args.fsync)
+                      fsync=args.fsync, before_write=_writer_hook(ctl))
         wf._session = SessionFile.open(path, "a")
         try:
             wf.restore_drive(drive, spring_constant_n_per_m=k, quality_factor=q, temperature_k=t)

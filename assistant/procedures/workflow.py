@@ -36,6 +36,7 @@ class Workflow:
     sink: Sink = null_sink
     cancel: CancelToken = field(default_factory=CancelToken)
     fsync: bool = False
+    before_write: object | None = None  # hook called before each line is written (fault injection)
     calibration: CalibrationResult | None = None
     drive: DriveSettings | None = None
     spring_constant_n_per_m: float | None = None
@@ -136,12 +137,13 @@ class Workflow:
                           scan_size_max_m=self.controller.limits.scan_size_max_m)
         self.series_settings = settings
         if resume:
-            writer = self.session.open_series_for_resume(settings.name)
+            writer = self.session.open_series_for_resume(settings.name, before_write=self.before_write)
         else:
             writer = self.session.create_series(
                 settings.name, heights_m=settings.heights_m, biases_v=settings.biases_v, lines=settings.lines,
                 pixels=settings.pixels, scan_size_m=settings.scan_size_m, line_rate_hz=settings.line_rate_hz,
-                order=settings.order, repeat_first=settings.repeat_first, settings_json=self._settings_json(settings))
+                order=settings.order, repeat_first=settings.repeat_first, settings_json=self._settings_json(settings),
+                before_write=self.before_write)
         start = writer.completed_lines
         res = run_series(self.controller, settings, writer, limits=self.limits, sink=self.sink, cancel=self.cancel,
                          start_line=start)
