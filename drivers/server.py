@@ -296,9 +296,10 @@ def _serve_stream(d: Dispatcher, lf: _LinkFaults, bind: str | None, announce: Ca
         host, port = parts.hostname or "127.0.0.1", parts.port or 0
         if parts.scheme != "tcp" or not is_loopback(host):
             raise InsecureBind(f"a serial-style stream listens on loopback only (tcp://127.0.0.1:PORT), not {bind}")
-        listener = socket.create_server((host, port))
+        listener = socket.create_server((host, port), family=socket.AF_INET6 if ":" in host else socket.AF_INET)
         listener.setblocking(False)
-        announce({"port": f"socket://{host}:{listener.getsockname()[1]}"})
+        shown = f"[{host}]" if ":" in host else host
+        announce({"port": f"socket://{shown}:{listener.getsockname()[1]}"})
         conn_fd, keep = None, []
         conn: socket.socket | None = None
     session = _Session()
