@@ -107,7 +107,7 @@ class ContinuationFit:
 
 def fit_continuation(stack: np.ndarray, *, heights_m, pixel_m, valid: np.ndarray | None = None,
                      stats_mask: np.ndarray | None = None, n_iter: int | None = None, tol: float = 1e-3,
-                     subset_stride: int = 1, max_weight_ratio: float = 10.0) -> ContinuationFit:
+                     max_weight_ratio: float = 10.0) -> ContinuationFit:
     """Fit one complex amplitude per spatial frequency jointly across heights (Laplace continuation).
 
     Weighted least squares per frequency with closed form
@@ -135,8 +135,6 @@ def fit_continuation(stack: np.ndarray, *, heights_m, pixel_m, valid: np.ndarray
         and 8 with missing pixels (their fill converges by iteration).
     tol : float
         Stop re-weighting once every sigma_h^2 changed by less than this fraction.
-    subset_stride : int
-        With complete data, the weights are iterated on every ``subset_stride``-th frequency cell.
     max_weight_ratio : float
         Largest weight of one height relative to the median weight (floor on sigma_h^2).
     """
@@ -163,18 +161,14 @@ def fit_continuation(stack: np.ndarray, *, heights_m, pixel_m, valid: np.ndarray
     m = np.eye(nh) * n
     # einsum, not BLAS, throughout: the BLAS thread pool busy-waits and slowed the whole analysis about 2x
     # on a loaded two-core machine.
-    # The noise moments hold cell by cell, so with complete data the weights are iterated on every
-    # `stride`-th frequency cell only (unbiased, a little noisier, several times cheaper); the final solve
-    # uses all cells. With missing pixels every iteration refills them from the full model.
-    stride = subset_stride if complete else 1
-    sub = np.s_[:, ::stride]
-    e_s = np.ascontiguousarray(e.reshape(nh, -1)[sub])
-    e2_s = np.ascontiguousarray(e2.reshape(nh, -1)[sub])
-    cwv_s = cwv.ravel()[::stride] * stride  # each sampled cell stands for `stride` cells
+    # flattened cells (the DC cell carries weight 0)
+    e_s = e.reshape(nh, -1)
+    e2_s = e2.reshape(nh, -1)
+    cwv_s = cwv.ravel()
 
     def split(f_now):
         # real arithmetic on contiguous parts: no complex temporaries in the loop
-        fs = f_now.reshape(nh, -1)[sub]
+        fs = f_now.reshape(nh, -1)
         fr, fi = np.ascontiguousarray(fs.real), np.ascontiguousarray(fs.imag)
         return fr, fi, np.einsum("q,hq,hq->h", cwv_s, fr, fr) + np.einsum("q,hq,hq->h", cwv_s, fi, fi)
 
