@@ -32,8 +32,8 @@ def _probe_inputs(settings: dict) -> dict:
     return out
 
 
-def analyse_arrays(phase_deg: np.ndarray, *, heights_m, pixel_m: float, bias_v=None, repeat_phase_deg=None,
-                   line_rate_hz: float | None = None, pixels: int | None = None, short_range_fraction: float = 0.1,
+def analyse_arrays(phase_deg: np.ndarray, *, heights_m, pixel_m: float | tuple[float, float], bias_v=None,
+                   repeat_phase_deg=None, line_rate_hz: float | None = None, pixels: int | None = None, short_range_fraction: float = 0.1,
                    **probe):
     from assistant.analysis.series import analyse_series
 
@@ -43,7 +43,8 @@ def analyse_arrays(phase_deg: np.ndarray, *, heights_m, pixel_m: float, bias_v=N
     kwargs = {k: v for k, v in probe.items() if v is not None}
     kwargs.setdefault("tip_radius_m", DEFAULT_TIP_RADIUS_M)
     return analyse_series(np.asarray(phase_deg, dtype=float), heights_m=np.asarray(heights_m, dtype=float),
-                          pixel_m=pixel_m, bias_v=None if bias_v is None else np.asarray(bias_v, dtype=float),
+                          pixel_m=pixel_m,  # a (row, column) pair: lines and pixels may differ
+                          bias_v=None if bias_v is None else np.asarray(bias_v, dtype=float),
                           repeat_phase_deg=repeat_phase_deg, bandwidth_hz=bandwidth,
                           short_range_fraction=short_range_fraction, **kwargs)
 
@@ -61,7 +62,8 @@ def analyse_session_series(session, name: str | None, *, sink: Sink = null_sink,
     if data.completed_lines < 4:
         raise SeriesInputError(f"series {name!r} has {data.completed_lines} completed lines; need at least 4")
     settings = json.loads(data.settings_json or "{}")
-    result = analyse_arrays(data.phase_deg, heights_m=data.heights_m, pixel_m=data.scan_size_m / data.pixels,
+    result = analyse_arrays(data.phase_deg, heights_m=data.heights_m,
+                            pixel_m=(data.scan_size_m / data.lines, data.scan_size_m / data.pixels),
                             bias_v=data.biases_v, repeat_phase_deg=data.repeat_phase_deg,
                             line_rate_hz=data.line_rate_hz, pixels=data.pixels,
                             short_range_fraction=short_range_fraction, **_probe_inputs(settings))

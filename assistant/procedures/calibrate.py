@@ -28,6 +28,9 @@ from assistant.procedures.guard import SafetyLimits, safety_guard
 #: chi = sqrt(0.970688 / 0.817434) = 1.0897.
 CHI_OPTICAL_LEVER = math.sqrt(th.DETECTION_FACTORS["displacement"] / th.DETECTION_FACTORS["optical-lever"])
 
+#: Lock-in readings averaged for the free amplitude and the phase reference.
+REFERENCE_READS = 200
+
 DISAGREEMENT_CAUSES = ("plan-view dimensions (length, width) off their nominal values", "air temperature or "
                        "pressure", "laser spot not at the free end", "a damaged or contaminated lever")
 
@@ -275,12 +278,16 @@ def _drive_setup(controller, settings: CalibrationSettings, sweep_fit, invols_m_
     except ValueError as exc:
         raise CalibrationError(str(exc)) from None
     controller.set_drive(frequency, drive_v)
-    r = controller.read(["amplitude_v", "phase_deg"])
-    return DriveSettings(frequency_hz=frequency, amplitude_v=drive_v, free_amplitude_v=r["amplitude_v"],
-                         free_amplitude_m=r["amplitude_v"] * invols_dynamic,
-                         setpoint_v=sw.setpoint_from_ratio(r["amplitude_v"], settings.setpoint_ratio),
+    # The phase reference is subtracted from every second pass, so its own noise would show up as a fake
+    # short-range or electrostatic offset: average many lock-in readings (each one time constant long).
+    reads = [controller.read(["amplitude_v", "phase_deg"]) for _ in range(REFERENCE_READS)]
+    free_v = float(np.mean([r["amplitude_v"] for r in reads]))
+    phase_ref = float(np.mean([r["phase_deg"] for r in reads]))
+    return DriveSettings(frequency_hz=frequency, amplitude_v=drive_v, free_amplitude_v=free_v,
+                         free_amplitude_m=free_v * invols_dynamic,
+                         setpoint_v=sw.setpoint_from_ratio(free_v, settings.setpoint_ratio),
                          setpoint_ratio=settings.setpoint_ratio,
-                         phase_reference_deg=r["phase_deg"])
+                         phase_reference_deg=phase_ref)
 
 
 def _contact_invols(controller, settings: CalibrationSettings, sweep_fit, *, limits: SafetyLimits, sink: Sink,
