@@ -37,10 +37,12 @@ def _series_settings(args):
     from assistant.procedures.series import DEFAULT_HEIGHTS_M, SeriesSettings
 
     heights = tuple(h * 1e-9 for h in args.heights) if args.heights else DEFAULT_HEIGHTS_M
-    biases = tuple(args.biases) if args.biases else None
-    if biases is not None and len(biases) < 3:
-        raise UsageError(f"--biases needs at least three biases for a bias grid, got {len(biases)}")
-    return SeriesSettings(heights_m=heights, biases_v=biases, lines=args.lines, pixels=args.pixels,
+    biases = tuple(args.biases)
+    if len(biases) == 2:
+        raise UsageError("--biases: give one bias (no grid) or at least three biases for a bias grid, got two")
+    grid = biases if len(biases) >= 3 else None
+    return SeriesSettings(heights_m=heights, biases_v=grid, bias_v=biases[0] if grid is None else 0.0,
+                          lines=args.lines, pixels=args.pixels,
                           scan_size_m=args.size_um * 1e-6, line_rate_hz=args.line_rate,
                           repeat_first=not args.no_repeat)
 

@@ -108,7 +108,10 @@ def build_parser() -> argparse.ArgumentParser:
     _calibration_options(p)
     p.add_argument("--heights", type=number_list, metavar="NM,...", help="lift heights in nm "
                    "(default 10,15,20,30,50,75,100)")
-    p.add_argument("--biases", type=number_list, metavar="V,...", help="tip biases in V (a bias grid, >= 3)")
+    p.add_argument("--biases", type=number_list, metavar="V,...", default=[-0.5, 0.0, 0.5, 1.0],
+                   help="tip biases in V: three or more make a bias grid at every height, which separates the "
+                        "electrostatic part and finds V_cpd (default -0.5,0,0.5,1); one value: every second pass "
+                        "at that bias, no grid")
     p.add_argument("--lines", type=positive(int), default=32, help="scan lines (default 32)")
     p.add_argument("--pixels", type=positive(int), default=128, help="pixels per line (default 128)")
     p.add_argument("--size-um", type=positive(), default=4.0, help="scan size in µm (default 4)")

@@ -31,7 +31,8 @@ class SeriesSettings:
 
     name: str = "series1"
     heights_m: tuple[float, ...] = DEFAULT_HEIGHTS_M
-    biases_v: tuple[float, ...] | None = None
+    biases_v: tuple[float, ...] | None = None  # a bias grid (>= 3 biases) at every height, or None
+    bias_v: float = 0.0  # the tip bias of every second pass when there is no grid
     lines: int = 32
     pixels: int = 128
     scan_size_m: float = 4e-6
@@ -49,7 +50,7 @@ class SeriesSettings:
 
     @property
     def passes(self) -> tuple[SecondPass, ...]:
-        biases = self.biases_v if self.biases_v else (0.0,)
+        biases = self.biases_v if self.biases_v else (self.bias_v,)
         passes = [SecondPass(h, b) for h in self.heights_m for b in biases]
         if self.repeat_first:
             passes.append(SecondPass(self.heights_m[0], biases[0]))
@@ -73,10 +74,13 @@ class SeriesSettings:
         top = min(limits.lift_height_max_m, z_range_m / 2 if z_range_m else math.inf)
         if h[-1] > top:
             raise SeriesSettingsError(f"lift height {h[-1] * 1e9:g} nm exceeds the allowed {top * 1e9:g} nm")
-        for b in self.biases_v or ():
+        for b in self.biases_v or (self.bias_v,):
             limits.check_bias(b)
-        if self.biases_v is not None and len(set(self.biases_v)) != len(self.biases_v):
-            raise SeriesSettingsError("biases must be distinct")
+        if self.biases_v is not None:
+            if len(self.biases_v) < 3:
+                raise SeriesSettingsError(f"a bias grid needs at least three biases, got {len(self.biases_v)}")
+            if len(set(self.biases_v)) != len(self.biases_v):
+                raise SeriesSettingsError("biases must be distinct")
         if self.pixels < 8:
             raise SeriesSettingsError(f"pixels = {self.pixels} is below the minimum of 8")
         if self.lines < 1:

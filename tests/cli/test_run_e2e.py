@@ -46,7 +46,7 @@ def test_session_file_opens_plainly_and_is_complete(finished_run):
     with h5py.File(cwd / d["session_file"], "r") as f:
         assert bool(f.attrs["complete"])
         s = f["series/series1"]
-        assert s["phase_deg"].shape == (4, 12, 64)
+        assert s["phase_deg"].shape == (4, 4, 12, 64)  # heights, biases (the default grid), lines, pixels
         assert int(s.attrs["completed_lines"]) == 12
         assert np.all(np.isfinite(s["phase_deg"][...]))
         assert s["phase_deg"].attrs["units"] == "deg"
@@ -91,7 +91,7 @@ def test_sigkill_at_random_moments_then_resume_keeps_every_line(tmp_path):
         with h5py.File(session, "r") as f:  # opens plainly after the kill
             s = f["series/series1"]
             done = int(s.attrs["completed_lines"])
-            before = s["phase_deg"][:, :done, :].copy()
+            before = s["phase_deg"][..., :done, :].copy()
             topo = s["topography/topography_m"][:done, :].copy() if "topography" in s else None
             assert np.all(np.isfinite(before))
         if done == 12:
@@ -101,7 +101,7 @@ def test_sigkill_at_random_moments_then_resume_keeps_every_line(tmp_path):
         with h5py.File(session, "r") as f:
             s = f["series/series1"]
             assert int(s.attrs["completed_lines"]) == 12 and bool(f.attrs["complete"])
-            assert s["phase_deg"][:, :done, :].tobytes() == before.tobytes()
+            assert s["phase_deg"][..., :done, :].tobytes() == before.tobytes()
             if topo is not None:
                 assert s["topography/topography_m"][:done, :].tobytes() == topo.tobytes()
             assert np.all(np.isfinite(s["phase_deg"][...]))
@@ -124,6 +124,7 @@ def test_ctrl_c_withdraws_and_exits_130(tmp_path):
     (["--heights", "10,20,90000"], "exceeds"),
     (["--pixels", "4"], "pixels"),
     (["--biases", "0,1"], "three biases"),
+    (["--biases", "0,0,1"], "distinct"),
     (["--resume", "nothing.h5"], "does not exist"),
     (["--scenario", "no-such-scenario"], "no-such-scenario"),
 ])

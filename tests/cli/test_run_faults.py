@@ -33,7 +33,7 @@ def completed_lines(tmp_path: Path) -> tuple[int, np.ndarray]:
     with h5py.File(session, "r") as f:
         s = f["series/series1"]
         n = int(s.attrs["completed_lines"])
-        return n, s["phase_deg"][:, :n, :]
+        return n, s["phase_deg"][..., :n, :]
 
 
 def test_controller_error_mid_series(tmp_path):
