@@ -165,11 +165,11 @@ TestLinkFast.settings = settings(max_examples=200, **SHARED)
 
 
 class LinkMachineLong(LinkMachine):
-    link_scale = 5.0
+    link_scale = 3.0
 
 
-TestLinkLong = pytest.mark.slow(LinkMachineLong.TestCase)
-TestLinkLong.settings = settings(max_examples=1000, **{**SHARED, "stateful_step_count": 20})
+TestLinkLong = pytest.mark.timeout(1500)(pytest.mark.slow(LinkMachineLong.TestCase))
+TestLinkLong.settings = settings(max_examples=600, **{**SHARED, "stateful_step_count": 20})
 
 
 class SimLinkMachine(LinkMachine):
@@ -207,5 +207,5 @@ class SimLinkMachineLong(SimLinkMachine):
     link_scale = 5.0
 
 
-TestSimLinkLong = pytest.mark.slow(SimLinkMachineLong.TestCase)
+TestSimLinkLong = pytest.mark.timeout(1500)(pytest.mark.slow(SimLinkMachineLong.TestCase))
 TestSimLinkLong.settings = settings(max_examples=200, **{**SHARED, "stateful_step_count": 15})
