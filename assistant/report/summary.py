@@ -228,16 +228,29 @@ def _calibration_figures(session: SessionFile, out_dir: Path, notes: list[str]) 
 
 
 def _thermal_result(record: Record):
-    """Refit the stored thermal spectrum so the calibration figure shows the fit the numbers came from."""
+    """Refit the stored thermal spectrum so the calibration figure shows the fit the numbers came from.
+
+    The route of the stored calibration is kept: on the non-contact path k came from Sader and InvOLS from this
+    spectrum, so the figure converts with that k (showing a thermal k there would be circular).
+    """
     from assistant.analysis import thermal as th
+    from assistant.analysis.spectra import WelchSpectrum
 
     s, a = record.scalars, record.arrays
-    fit = th.fit_thermal_spectrum(a["spectrum_frequency_hz"], a["spectrum_psd_v2_per_hz"],
-                                  averages=float(s["spectrum_segments"]),
-                                  variance_inflation=float(s.get("spectrum_variance_inflation", 1.0)))
+    spectrum = WelchSpectrum(a["spectrum_frequency_hz"], a["spectrum_psd_v2_per_hz"],
+                             rate_hz=float(s["spectrum_rate_hz"]), segment_length=int(s["spectrum_segment_length"]),
+                             n_segments=int(s["spectrum_segments"]),
+                             variance_inflation=float(s.get("spectrum_variance_inflation", 1.0)))
+    fit = th.fit_thermal_spectrum(spectrum.frequencies_hz, spectrum.psd_v2_per_hz, averages=spectrum.n_segments,
+                                  variance_inflation=spectrum.variance_inflation, spectrum=spectrum)
+    temperature = float(s.get("temperature_k", 298.15))
+    if str(s.get("invols_source", "")).startswith("non-contact") and "k_n_per_m" in s:
+        return th.calibrate_thermal(fit, temperature_k=temperature, k_n_per_m=float(s["k_n_per_m"]),
+                                    k_std_n_per_m=float(s.get("k_std_n_per_m", 0.0)))
     invols = s.get("invols_nm_per_v")
-    return th.calibrate_thermal(fit, temperature_k=float(s.get("temperature_k", 298.15)),
-                                invols_m_per_v=None if invols is None else float(invols) * 1e-9)
+    return th.calibrate_thermal(fit, temperature_k=temperature,
+                                invols_m_per_v=None if invols is None else float(invols) * 1e-9,
+                                invols_std_m_per_v=float(s.get("invols_std_nm_per_v", 0.0)) * 1e-9)
 
 
 def _decomposition_figures(session: SessionFile, out_dir: Path, notes: list[str],
