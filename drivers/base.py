@@ -247,7 +247,8 @@ class Controller(abc.ABC):
 
     def probe_hint(self) -> dict[str, float] | None:
         """Nominal data of the mounted probe that the controller happens to know (e.g. from a chip ID):
-        any of ``length_m``, ``width_m``, ``resonance_hz``, ``spring_constant_n_per_m``. None if unknown.
+        any of ``length_m``, ``width_m``, ``resonance_hz``, ``spring_constant_n_per_m``, and ``temperature_k``
+        if the instrument has a sensor for the air around the lever. None if unknown.
         Nominal means the maker's number, never a calibration."""
         return None
 

@@ -218,7 +218,8 @@ class SimulatedController(Controller):
         lever = self.stage.lever
         return {"length_m": lever.length_m, "width_m": lever.width_m,
                 "resonance_hz": float(f"{lever.resonance_hz:.2g}"),
-                "spring_constant_n_per_m": float(f"{lever.spring_constant_n_per_m:.1g}")}
+                "spring_constant_n_per_m": float(f"{lever.spring_constant_n_per_m:.1g}"),
+                "temperature_k": float(self.stage.temperature_k)}  # the enclosure's thermometer
 
     def close(self) -> None:
         self._closed = True

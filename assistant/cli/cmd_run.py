@@ -27,7 +27,7 @@ def calibration_settings(args):
     return CalibrationSettings(
         probe_name=args.probe, length_m=args.length_um * 1e-6 if args.length_um else None,
         width_m=args.width_um * 1e-6 if args.width_um else None,
-        temperature_k=args.temperature_k or 295.15, pressure_pa=args.pressure_pa,
+        temperature_k=args.temperature_k, pressure_pa=args.pressure_pa,
         thermal_seconds=args.thermal_seconds, free_amplitude_m=args.free_amplitude_nm * 1e-9,
         setpoint_ratio=args.setpoint_ratio, invols_m_per_v=args.invols * 1e-9 if args.invols else None,
         contact_invols=args.contact_invols)

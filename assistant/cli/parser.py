@@ -162,7 +162,7 @@ def _calibration_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--probe", metavar="NAME", help="probe name for the probe record")
     p.add_argument("--length-um", type=positive(), help="lever length in µm (nominal, for the Sader method)")
     p.add_argument("--width-um", type=positive(), help="lever width in µm (nominal, for the Sader method)")
-    p.add_argument("--temperature-k", type=positive(), help="air temperature in K (default: 295.15)")
+    p.add_argument("--temperature-k", type=positive(), help="air temperature in K (default: the instrument's sensor, else 295.15)")
     p.add_argument("--pressure-pa", type=positive(), default=101325.0, help="air pressure in Pa")
     p.add_argument("--thermal-seconds", type=positive(), default=2.0, help="thermal record length in s")
     p.add_argument("--free-amplitude-nm", type=positive(), default=20.0, help="free amplitude in nm")

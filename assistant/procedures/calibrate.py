@@ -12,6 +12,7 @@ sensitivity. Which number came from where is kept with every number:
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import time
 from dataclasses import dataclass, field
@@ -27,6 +28,8 @@ from assistant.procedures.guard import SafetyLimits, safety_guard
 #: Ratio of true first-mode end displacement to the static-InvOLS reading (Butt & Jaschke 1995):
 #: chi = sqrt(0.970688 / 0.817434) = 1.0897.
 CHI_OPTICAL_LEVER = math.sqrt(th.DETECTION_FACTORS["displacement"] / th.DETECTION_FACTORS["optical-lever"])
+
+DEFAULT_TEMPERATURE_K = 295.15  # a typical lab (22 C) when nothing better is known
 
 #: Lock-in readings averaged for the free amplitude and the phase reference.
 REFERENCE_READS = 200
@@ -44,7 +47,7 @@ class CalibrationSettings:
     probe_name: str | None = None
     length_m: float | None = None
     width_m: float | None = None
-    temperature_k: float = 295.15
+    temperature_k: float | None = None  # None: the controller's room sensor if it has one, else 295.15 K
     pressure_pa: float = 101325.0
     thermal_seconds: float = 2.0
     thermal_rate_hz: float | None = None  # default: 2 MS/s, or less if the controller cannot
@@ -57,11 +60,11 @@ class CalibrationSettings:
     contact_invols: bool = False
 
     def validate(self) -> None:
-        for name in ("temperature_k", "pressure_pa", "thermal_seconds", "free_amplitude_m", "sweep_drive_v"):
+        for name in ("pressure_pa", "thermal_seconds", "free_amplitude_m", "sweep_drive_v"):
             v = getattr(self, name)
             if not (isinstance(v, (int, float)) and math.isfinite(v) and v > 0):
                 raise CalibrationError(f"{name} = {v!r} must be positive")
-        for name in ("length_m", "width_m", "invols_m_per_v", "thermal_rate_hz"):
+        for name in ("temperature_k", "length_m", "width_m", "invols_m_per_v", "thermal_rate_hz"):
             v = getattr(self, name)
             if v is not None and not (math.isfinite(v) and v > 0):
                 raise CalibrationError(f"{name} = {v!r} must be positive")
@@ -180,6 +183,13 @@ def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits
     def note(level: str, text: str) -> None:
         notes.append(text)
         sink(Notice(level, text))
+
+    if settings.temperature_k is None:
+        sensed = (controller.probe_hint() or {}).get("temperature_k")
+        settings = dataclasses.replace(settings, temperature_k=float(sensed) if sensed else DEFAULT_TEMPERATURE_K)
+        note("info" if sensed else "warning",
+             f"air temperature {settings.temperature_k:.2f} K "
+             + ("from the instrument's sensor" if sensed else "assumed; give the measured value (--temperature-k)"))
 
     with safety_guard(controller, sink=sink):
         controller.make_safe()

@@ -77,7 +77,7 @@ class Workflow:
         self.drive = result.drive
         self.spring_constant_n_per_m = result.k_n_per_m
         self.quality_factor = result.thermal.q
-        self.temperature_k = settings.temperature_k
+        self.temperature_k = result.thermal.temperature_k
         summary = result.summary()
         fit = result.thermal.fit
         arrays = {"fit_frequency_hz": fit.frequencies_hz, "fit_psd_v2_per_hz": fit.psd_v2_per_hz,
