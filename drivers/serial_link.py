@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import abc
 import itertools
+import select
 import time
 from collections.abc import Iterator, Sequence
 from urllib.parse import parse_qs, urlsplit, urlunsplit
@@ -163,7 +164,9 @@ class SerialController(LinkController):
         self._tokens = itertools.count(1)
         self._pending = bytearray()
         try:
-            self._port = serial.serial_for_url(port, baudrate=baud, timeout=0.05, write_timeout=timeout_s)
+            # Reads never block inside pyserial (timeout 0, set once: changing it reconfigures a real port);
+            # _read_some waits on the descriptor itself, so bulk replies come in as large reads.
+            self._port = serial.serial_for_url(port, baudrate=baud, timeout=0, write_timeout=timeout_s)
         except (serial.SerialException, OSError, ValueError) as exc:
             raise LinkLost(f"cannot open serial port {port}: {exc}") from None
         self.port_name = port
@@ -216,9 +219,17 @@ class SerialController(LinkController):
         import serial
 
         try:
-            # The port's own timeout (50 ms, set once: changing it reconfigures a real port) bounds each wait.
-            waiting = self._port.in_waiting
-            return self._port.read(waiting or 1)
+            try:
+                fd = self._port.fileno()
+            except (AttributeError, NotImplementedError, OSError, serial.SerialException):
+                fd = None
+            if fd is not None:
+                ready, _, _ = select.select([fd], [], [], max(0.0, min(timeout_s, 0.05)))
+                return self._port.read(1 << 16) if ready else b""
+            data = self._port.read(1 << 16)  # a URL handler without a descriptor: poll
+            if not data:
+                time.sleep(min(timeout_s, 0.002))
+            return data
         except (serial.SerialException, OSError) as exc:
             raise LinkLost(f"read from {self.port_name} failed: {exc}") from None
 

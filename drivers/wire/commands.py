@@ -173,16 +173,21 @@ def _idn_invoke(c: Controller, args: tuple) -> tuple:
 
 
 _LIMIT_FIELDS = tuple(f.name for f in dataclasses.fields(Limits))  # both ends run the same table
-_HINT_FIELDS = ("length_m", "width_m", "resonance_hz", "spring_constant_n_per_m")
-
-
 def _hint_invoke(c: Controller, args: tuple) -> tuple:
+    # "name=value" items: the interface lets a controller name any quantity it knows about the probe
     hint = c.probe_hint() or {}
-    return tuple(None if hint.get(k) is None else float(hint[k]) for k in _HINT_FIELDS)
+    return (tuple(f"{k}={float(v)!r}" for k, v in sorted(hint.items())
+                  if _NAME.match(str(k)) and v is not None),)
 
 
 def _hint_unpack(args: tuple, f: tuple) -> dict[str, float] | None:
-    hint = {k: v for k, v in zip(_HINT_FIELDS, f) if v is not None}
+    hint = {}
+    for item in f[0]:
+        key, sep, value = item.partition("=")
+        try:
+            hint[key] = float(value)
+        except ValueError:
+            raise WireError(-104, f"probe hint item {item[:40]!r} is not name=number") from None
     return hint or None
 
 
@@ -209,7 +214,7 @@ COMMANDS: tuple[Command, ...] = (
     Command("SYSTem:LIMits", True, (), ("float",) * len(_LIMIT_FIELDS), True, "limits",
             invoke=lambda c, a: tuple(float(getattr(c.limits, k)) for k in _LIMIT_FIELDS),
             unpack=lambda a, f: Limits(**dict(zip(_LIMIT_FIELDS, f)))),
-    Command("SYSTem:PROBe", True, (), ("opt_float",) * len(_HINT_FIELDS), True, "probe_hint",
+    Command("SYSTem:PROBe", True, (), ("strs*",), True, "probe_hint",
             invoke=_hint_invoke, unpack=_hint_unpack),
     Command("SYSTem:SAFE", False, (), (), True, "make_safe", invoke=lambda c, a: (c.make_safe(), ())[1]),
     # signals
