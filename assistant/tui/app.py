@@ -1,0 +1,408 @@
+"""The terminal UI: watch calibration, approach and the lift-height series as they run, with one key that
+always pulls the tip back.
+
+Thin by design: every step is a :class:`assistant.procedures.workflow.Workflow` method (the same code path as
+``mfma run``), run in a thread worker; its events reach the UI thread as messages. The controller is shared by
+the running step, the status poller and the withdraw key through :class:`SerialisedController`.
+"""
+
+from __future__ import annotations
+
+import threading
+from pathlib import Path
+
+from textual import work
+from textual.app import App
+from textual.binding import Binding
+from textual.widgets import Footer, Static, TabbedContent, TabPane
+
+from assistant.procedures.events import Cancelled, CancelToken, Notice
+from assistant.tui.bridge import (MessageSink, ProcedureEvent, SerialisedController, StatusChanged, StepFinished,
+                                  WithdrawDone)
+from assistant.tui.screens import ConfirmQuit, HelpScreen
+from assistant.tui.session_view import calibration_entry, load_session
+from assistant.tui.view_analysis import AnalysisView
+from assistant.tui.view_approach import ApproachView
+from assistant.tui.view_base import FieldError
+from assistant.tui.view_log import LogView
+from assistant.tui.view_probe import ProbeView
+from assistant.tui.view_resonance import ResonanceView
+from assistant.tui.view_series import SeriesView
+
+VIEWS = (("probe", "Probe", ProbeView), ("resonance", "Resonance", ResonanceView),
+         ("approach", "Approach", ApproachView), ("series", "Series", SeriesView),
+         ("analysis", "Analysis", AnalysisView), ("log", "Log", LogView))
+
+
+class MfmApp(App[int]):
+    """``MfmApp(controller, session_path=...)`` for a live session; ``MfmApp(None, open_path=...)`` to view a
+    session file. ``probe_record`` is a :class:`ProbeRecord` (default: the user's)."""
+
+    TITLE = "mfm-assistant"
+    CSS = """
+    #status { height: 2; padding: 0 1; background: $boost; }
+    TabbedContent { height: 1fr; }
+    TabPane { padding: 0 1; }
+    .buttons { height: 1; margin: 0 0 1 0; }
+    .buttons Button { height: 1; min-width: 10; border: none; margin: 0 1 0 0; }
+    """
+    BINDINGS = [
+        Binding("ctrl+w", "withdraw", "WITHDRAW", priority=True),
+        Binding("w", "withdraw", "withdraw", show=False),
+        Binding("ctrl+x", "cancel", "cancel", priority=True),
+        Binding("x", "cancel", "cancel", show=False),
+        *[Binding(str(i + 1), f"view('{key}')", title, show=False) for i, (key, title, _) in enumerate(VIEWS)],
+        Binding("question_mark", "help", "help"),
+        Binding("q", "quit", "quit"),
+        Binding("ctrl+q", "quit", "quit", priority=True, show=False),
+        Binding("escape", "leave_field", "leave field", show=False),
+    ]
+
+    def __init__(self, controller=None, *, controller_url: str = "sim://", session_path: Path | None = None,
+                 open_path: Path | None = None, limits=None, probe_record=None, scenario_text: str | None = None,
+                 poll_interval_s: float = 0.25) -> None:
+        super().__init__()
+        from assistant.procedures.guard import SafetyLimits
+        from drivers.registry import redact
+
+        self.controller = SerialisedController(controller) if controller is not None else None
+        self.controller_url = redact(controller_url)
+        self.limits = limits or SafetyLimits()
+        self.open_path = Path(open_path) if open_path else None
+        self.session_path = Path(session_path) if session_path else None
+        self._probe_record = probe_record
+        self.poll_interval_s = poll_interval_s
+        self.workflow = None
+        if self.controller is not None:
+            from assistant.procedures.workflow import Workflow
+
+            if self.session_path is None:
+                raise ValueError("a live session needs session_path")
+            self.workflow = Workflow(self.controller, self.session_path, controller_url=self.controller_url,
+                                     scenario_text=scenario_text, limits=self.limits, sink=MessageSink(self))
+        self.busy: str | None = None
+        self.last_status = None
+        self.status_error: str | None = None
+        self.probe_name: str | None = None
+        self._stop_poll = threading.Event()
+        self._quit_pending = False
+        self._withdraw_confirmed = False
+
+    # ---- layout ------------------------------------------------------------------------------------------
+    def compose(self):
+        yield Static("", id="status")
+        with TabbedContent(initial="probe"):
+            for i, (key, title, cls) in enumerate(VIEWS):
+                with TabPane(f"{i + 1} {title}", id=key):
+                    yield cls(id=f"view-{key}")
+        yield Footer()
+
+    def view(self, key: str):
+        return self.query_one(f"#view-{key}")
+
+    @property
+    def views(self):
+        return [self.view(key) for key, _, _ in VIEWS]
+
+    def on_mount(self) -> None:
+        if self.controller is not None:
+            self.view("approach").configure(travel_max_m=self.limits.coarse_travel_max_m,
+                                            z_range_m=self.controller.limits.z_range_m)
+            self._poll_worker()
+        if self.open_path is not None:
+            self._show_session_file(self.open_path)
+        self._update_status_line()
+
+    def on_unmount(self) -> None:
+        self._stop_poll.set()
+        if self.workflow is not None and self.busy is None:
+            self.workflow.close()
+
+    # ---- messages from workers -----------------------------------------------------------------------
+    def on_procedure_event(self, message: ProcedureEvent) -> None:
+        ev = message.event
+        if isinstance(ev, Notice):
+            self.say(ev.level, ev.text)
+            return
+        for view in self.views:
+            if ev.what in view.EVENTS:
+                view.progress(ev)
+
+    def on_step_finished(self, message: StepFinished) -> None:
+        self.busy = None
+        step, err = message.step, message.error
+        if err is None:
+            self.say("info", f"{step}: done")
+        elif isinstance(err, Cancelled):
+            self.say("warning", f"{step}: cancelled")
+        else:
+            self.say("error", f"{step} failed: {type(err).__name__}: {err}")
+        for view in self.views:
+            view.step_finished(step, message.result, err)
+        self._update_status_line()
+        self._maybe_finish_quit()
+
+    def on_status_changed(self, message: StatusChanged) -> None:
+        if message.status is not None:
+            self.last_status = message.status
+        self.status_error = message.error
+        self._update_status_line()
+
+    def on_withdraw_done(self, message: WithdrawDone) -> None:
+        if message.error:
+            self.say("error", f"withdraw: {message.error}; check the instrument by hand")
+        elif message.safe:
+            self.say("info", "withdrawn: tip retracted, drive off, bias 0 V (confirmed by status)")
+        else:
+            self.say("error", "withdraw sent but status does not report a safe stage; check the instrument")
+        self._withdraw_confirmed = bool(message.safe)
+        if self._quit_pending and not message.safe:
+            self._quit_pending = False
+        self._maybe_finish_quit()
+
+    # ---- status line ---------------------------------------------------------------------------------------
+    def _update_status_line(self) -> None:
+        st = self.last_status
+        if self.controller is None:
+            state, z, bias = "[b]no controller[/b]", "", ""
+        elif st is None:
+            state, z, bias = "state ?", "", ""
+        else:
+            if st.engaged:
+                state = "[b reverse] ENGAGED [/]"
+            elif st.safe:
+                state = "[b]withdrawn[/b]"
+            else:
+                state = "[b reverse] NOT SAFE [/]"
+            z, bias = f"Z {st.z_m * 1e6:.3f} µm", f"bias {st.bias_v:+.2f} V"
+        probe = self.probe_name or "—"
+        first = " │ ".join(p for p in (self.controller_url if self.controller else "", f"probe {probe}", state, z,
+                                      bias) if p)
+        path = self.open_path or self.session_path
+        run = f"[b]running: {self.busy}[/b] (ctrl+x cancel) │ " if self.busy else ""
+        err = f"status: {self.status_error} │ " if self.status_error else ""
+        second = f"{run}{err}session {path.name if path else '—'}"
+        self.query_one("#status", Static).update(f"{first}\n{second}")
+
+    def say(self, level: str, text: str) -> None:
+        self.view("log").add(level, text)
+        if level in ("warning", "error"):
+            self.notify(text, severity="error" if level == "error" else "warning", timeout=4)
+
+    # ---- actions --------------------------------------------------------------------------------------------
+    def action_view(self, key: str) -> None:
+        self.query_one(TabbedContent).active = key
+
+    def action_help(self) -> None:
+        if not isinstance(self.screen, HelpScreen):
+            self.push_screen(HelpScreen())
+
+    def action_leave_field(self) -> None:
+        self.set_focus(None)
+
+    def action_cancel(self) -> None:
+        if self.workflow is not None and self.busy:
+            self.workflow.cancel.set()
+            self.say("warning", f"cancel requested: {self.busy} stops at its next check and withdraws")
+
+    def action_withdraw(self) -> None:
+        if self.controller is None:
+            self.say("warning", "no controller: nothing to withdraw")
+            return
+        self.workflow.cancel.set()  # a running step stops at its next check; its guard withdraws too
+        self._withdraw_worker()
+
+    async def action_quit(self) -> None:
+        reason = self._engaged_reason()
+        if reason is None:
+            self._stop_poll.set()
+            self.exit(0)
+            return
+        if not isinstance(self.screen, ConfirmQuit):
+            self.push_screen(ConfirmQuit(reason), self._quit_answer)
+
+    def _engaged_reason(self) -> str | None:
+        if self.controller is None:
+            return None
+        if self.busy:
+            return f"{self.busy} is running."
+        st = self.last_status
+        if st is None or not st.safe:
+            return "The tip is engaged." if st is not None and st.engaged else "The stage is not known to be safe."
+        return None
+
+    def _quit_answer(self, yes: bool | None) -> None:
+        if yes:
+            self._quit_pending = True
+            self._withdraw_confirmed = False
+            self.action_withdraw()
+
+    def _maybe_finish_quit(self) -> None:
+        if self._quit_pending and self._withdraw_confirmed and self.busy is None:
+            self._stop_poll.set()
+            self.exit(0)
+
+    # ---- intents from the views --------------------------------------------------------------------------
+    def _run(self, step: str, fn) -> bool:
+        if self.workflow is None:
+            self.say("error", f"{step}: no controller (viewing a session file)")
+            return False
+        if self.busy:
+            self.say("warning", f"{step}: {self.busy} is still running; cancel it first (ctrl+x)")
+            return False
+        self.busy = step
+        self.workflow.cancel = CancelToken()  # a fresh token: the last cancel must not stop this step
+        self._step_worker(step, fn)
+        self._update_status_line()
+        return True
+
+    def start_calibration(self) -> None:
+        from assistant.procedures.calibrate import CalibrationError
+
+        res = self.view("resonance")
+        try:
+            settings = self.view("probe").calibration_settings(free_amplitude_m=res.free_amplitude_m(),
+                                                               setpoint_ratio=res.setpoint_ratio())
+            settings.validate()
+        except (FieldError, CalibrationError) as exc:
+            self.say("error", f"calibration: {exc}")
+            return
+        wf = self.workflow
+        if self._run("calibrate", lambda: wf.calibrate(settings)):
+            self._calibration_settings = settings
+            self.probe_name = settings.probe_name
+            self._update_status_line()
+
+    def accept_calibration(self) -> None:
+        wf = self.workflow
+        settings = getattr(self, "_calibration_settings", None)
+        if wf is None or wf.calibration is None or settings is None:
+            self.say("error", "accept: no calibration of this session to record")
+            return
+        if not settings.probe_name:
+            self.say("error", "accept: give the probe a name (Probe view) and calibrate again")
+            return
+        self._record_worker(settings.probe_name, calibration_entry(wf.calibration, settings))
+
+    def start_approach(self) -> None:
+        wf = self.workflow
+        self._run("approach", lambda: wf.approach())
+
+    def validate_series(self, settings) -> None:
+        lim = self.controller.limits if self.controller is not None else None
+        settings.validate(self.limits, z_range_m=lim.z_range_m if lim else None,
+                          scan_size_max_m=lim.scan_size_max_m if lim else None)
+
+    def start_series(self, settings) -> None:
+        wf = self.workflow
+        if self._run("series", lambda: wf.series(settings)):
+            self.view("series").begin(heights_m=settings.heights_m, biases_v=settings.biases_v,
+                                      lines=settings.lines, pixels=settings.pixels)
+
+    def start_analysis(self) -> None:
+        if self.workflow is None and self.open_path is not None:
+            self._offline_worker("analyse", self.open_path)
+            return
+        wf = self.workflow
+        self._run("analyse", lambda: wf.analyse())
+
+    def start_report(self) -> None:
+        if self.workflow is None and self.open_path is not None:
+            self._offline_worker("report", self.open_path)
+            return
+        wf = self.workflow
+        out = self.session_path.parent / f"report-{self.session_path.stem}"
+
+        def report():
+            from assistant.report.summary import build_report
+
+            wf.session.flush()  # the report reads the session file; the workflow keeps it open for writing
+            analyses = {wf.series_settings.name: wf.analysis} if wf.analysis is not None and wf.series_settings else None
+            return build_report(wf.session_path, out, analyses=analyses)
+
+        self._run("report", report)
+
+    # ---- workers --------------------------------------------------------------------------------------------
+    @work(thread=True, group="procedure", exit_on_error=False)
+    def _step_worker(self, step: str, fn) -> None:
+        try:
+            result = fn()
+        except BaseException as exc:  # the step's guard already made the stage safe; report and carry on
+            self.post_message(StepFinished(step, None, exc))
+            return
+        self.post_message(StepFinished(step, result))
+
+    @work(thread=True, group="safety", exit_on_error=False)
+    def _withdraw_worker(self) -> None:
+        try:
+            self.workflow.withdraw()
+            status = self.controller.status()
+        except Exception as exc:
+            self.post_message(WithdrawDone(None, f"{type(exc).__name__}: {exc}"))
+            return
+        self.post_message(StatusChanged(status))
+        self.post_message(WithdrawDone(status.safe))
+
+    @work(thread=True, group="poll", exit_on_error=False)
+    def _poll_worker(self) -> None:
+        while not self._stop_poll.wait(self.poll_interval_s):
+            try:
+                status = self.controller.try_status(0.05)
+            except Exception as exc:
+                self.post_message(StatusChanged(None, f"{type(exc).__name__}: {exc}"))
+                continue
+            if status is not None:
+                self.post_message(StatusChanged(status))
+
+    @work(thread=True, group="record", exit_on_error=False)
+    def _record_worker(self, name: str, entry: dict) -> None:
+        try:
+            record = self._probe_record
+            if record is None:
+                from assistant.storage.probe_record import ProbeRecord
+
+                record = ProbeRecord()
+            warnings = record.add(name, entry)
+        except Exception as exc:
+            self.post_message(ProcedureEvent(Notice("error", f"probe record: {exc}")))
+            return
+        for w in warnings:
+            self.post_message(ProcedureEvent(Notice("warning", f"probe record: {w}")))
+        self.post_message(ProcedureEvent(Notice("info", f"probe record: calibration of {name!r} stored")))
+        self.call_from_thread(self.view("probe").set_accepted, f"Stored in the probe record as {name!r}.")
+
+    @work(thread=True, group="procedure", exit_on_error=False)
+    def _offline_worker(self, step: str, path: Path) -> None:
+        try:
+            if step == "analyse":
+                from assistant.procedures.analyse import analyse_session_file
+
+                result = analyse_session_file(path, None)
+            else:
+                from assistant.report.summary import build_report
+
+                result = build_report(path, path.parent / f"report-{path.stem}")
+        except Exception as exc:
+            self.post_message(StepFinished(step, None, exc))
+            return
+        self.post_message(StepFinished(step, result))
+
+    # ---- viewing a session file ---------------------------------------------------------------------------
+    def _show_session_file(self, path: Path) -> None:
+        try:
+            shown = load_session(path)
+        except Exception as exc:
+            self.say("error", f"cannot open {path}: {exc}")
+            return
+        if shown.probe_name:
+            self.probe_name = shown.probe_name
+        if shown.calibration is not None:
+            self.view("probe").show_summary(shown.calibration, live=False)
+            self.view("resonance").show_drive(shown.calibration)
+        if shown.series is not None:
+            self.view("series").load(shown.series)
+        if shown.analysis is not None:
+            self.view("analysis").show(shown.analysis, mean_phase_deg=shown.mean_phase_deg)
+        for text in shown.notes:
+            self.say("info", text)
+        self.action_view("series" if shown.series is not None else "probe")

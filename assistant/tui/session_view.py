@@ -1,0 +1,75 @@
+"""Adapters between stored data and the views: what a session file holds, and a probe-record entry."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from datetime import datetime, timezone
+from pathlib import Path
+
+import numpy as np
+
+
+def calibration_entry(result, settings, *, now: datetime | None = None) -> dict:
+    """The probe-record entry for a calibration: the same scalars ``Workflow.calibrate`` stores in the session
+    file (headline numbers, their sources, the Sader inputs and outputs)."""
+    summary = result.summary()
+    entry = {k: v for k, v in summary.items() if v is not None and not isinstance(v, bool)}
+    entry = {k: (float(v) if hasattr(v, "dtype") else v) for k, v in entry.items()}
+    entry["probe_name"] = settings.probe_name or "unnamed"
+    entry["calibrated_utc"] = (now or datetime.now(timezone.utc)).isoformat(timespec="seconds")
+    if result.sader is not None:
+        entry.update({f"sader_{k}": (float(v) if hasattr(v, "dtype") else v)
+                      for k, v in result.sader.to_dict().items() if v is not None})
+    return entry
+
+
+@dataclass
+class StoredSession:
+    """What the views show of a session file."""
+
+    calibration: dict | None = None
+    probe_name: str | None = None
+    series: object | None = None  # SeriesData of the last series
+    analysis: dict | None = None  # stored analysis of that series: scalars and arrays together
+    mean_phase_deg: np.ndarray | None = None
+    notes: list[str] = field(default_factory=list)
+
+
+def image_means(phase_deg: np.ndarray) -> np.ndarray | None:
+    """Mean phase of each height's image (bias-averaged for a bias grid), NaN pixels ignored."""
+    phase = np.asarray(phase_deg, dtype=float)
+    if phase.ndim < 3 or phase.shape[-2] == 0:
+        return None
+    axes = tuple(range(1, phase.ndim))
+    with np.errstate(invalid="ignore"):
+        finite = np.isfinite(phase).sum(axis=axes)
+        total = np.where(np.isfinite(phase), phase, 0.0).sum(axis=axes)
+        return np.where(finite > 0, total / np.maximum(finite, 1), np.nan)
+
+
+def load_session(path: str | Path) -> StoredSession:
+    """Read a session file (read-only) into a :class:`StoredSession`."""
+    from assistant.storage.session_file import SessionFile
+
+    out = StoredSession()
+    with SessionFile.open(Path(path), "r") as sf:
+        info = sf.info()
+        out.notes.append(f"opened {path}: created {info.created_utc}, controller {info.controller_url}, "
+                         f"{'complete' if info.complete else 'incomplete'}")
+        cals = sf.read_calibrations()
+        if cals:
+            out.calibration = dict(cals[-1].scalars)
+            name = out.calibration.get("probe_name")
+            out.probe_name = str(name) if name else None
+        names = sf.series_names()
+        if names:
+            out.series = sf.read_series(names[-1])
+            out.mean_phase_deg = image_means(out.series.phase_deg)
+            out.notes.append(f"series {names[-1]}: {out.series.completed_lines} of {out.series.lines} lines, "
+                             f"{len(out.series.heights_m)} heights")
+            if names[-1] in sf.analysis_names():
+                rec = sf.read_analysis(names[-1])
+                out.analysis = {**rec.scalars, **rec.arrays}
+        if out.series is None:
+            out.notes.append("the file holds no series")
+    return out

@@ -1,0 +1,145 @@
+"""Analysis view: mean phase against lift height with the fitted parts, magnetic RMS against height, the
+recommended lift height and V_cpd, and where the report was written."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from textual.containers import Horizontal, Vertical
+from textual.widgets import Button, Static
+from textual_plotext import PlotextPlot
+
+from assistant.tui.plots import DATA, FIT, PART_A, PART_B, redraw
+from assistant.tui.view_base import View
+
+
+def _arr(d: dict, key: str) -> np.ndarray | None:
+    v = d.get(key)
+    if v is None:
+        return None
+    a = np.asarray(v, dtype=float)
+    return a if a.size else None
+
+
+def _num(d: dict, key: str) -> float | None:
+    v = d.get(key)
+    try:
+        v = float(v)
+    except (TypeError, ValueError):
+        return None
+    return v if math.isfinite(v) else None
+
+
+class AnalysisView(View):
+    DEFAULT_CSS = """
+    AnalysisView #an-side { width: 34; }
+    AnalysisView #an-plots { width: 1fr; }
+    AnalysisView PlotextPlot { height: 1fr; min-height: 5; }
+    AnalysisView #an-text { height: 1fr; }
+    """
+
+    def __init__(self, **kw) -> None:
+        super().__init__(**kw)
+        self.result: dict | None = None
+        self.mean_phase: np.ndarray | None = None
+        self.report_dir: str | None = None
+
+    def compose(self):
+        with Horizontal():
+            with Vertical(id="an-side"):
+                with Horizontal(classes="buttons"):
+                    yield Button("Analyse", id="analyse", variant="primary")
+                    yield Button("Report", id="report")
+                yield Static("Run a series (4), then Analyse.", id="an-text")
+            with Vertical(id="an-plots"):
+                yield PlotextPlot(id="an-mean")
+                yield PlotextPlot(id="an-rms")
+
+    def on_button_pressed(self, event: Button.Pressed) -> None:
+        if event.button.id == "analyse":
+            event.stop()
+            self.app.start_analysis()
+        elif event.button.id == "report":
+            event.stop()
+            self.app.start_report()
+
+    def show(self, result: dict, *, mean_phase_deg=None) -> None:
+        """``result``: ``SeriesAnalysis.to_dict()`` or a stored analysis record's scalars and arrays."""
+        self.result = dict(result)
+        mp = _arr(self.result, "mean_phase_deg") if mean_phase_deg is None else np.asarray(mean_phase_deg, float)
+        if mp is not None and mp.ndim == 2:  # bias grid: the bias-averaged mean against height
+            mp = mp.mean(axis=1)
+        self.mean_phase = mp
+        self.query_one("#an-text", Static).update(self._text())
+        self.mark_dirty()
+
+    def set_report(self, out_dir: str) -> None:
+        self.report_dir = out_dir
+        if self.result is not None:
+            self.query_one("#an-text", Static).update(self._text())
+        else:
+            self.query_one("#an-text", Static).update(f"report written to\n{out_dir}")
+
+    def step_finished(self, step: str, result, error) -> None:
+        if error is not None:
+            return
+        if step == "analyse":
+            self.show(result.to_dict(), mean_phase_deg=getattr(result, "mean_phase_deg", None))
+        elif step == "report":
+            self.set_report(str(getattr(result, "out_dir", result)))
+
+    def _text(self) -> str:
+        d = self.result or {}
+        rec = _num(d, "recommended_lift_nm")
+        cpd, cpd_std = _num(d, "cpd_v"), _num(d, "cpd_std_v")
+        lines = [f"recommended lift  {'—' if rec is None else f'{rec:.3g} nm'}",
+                 "V_cpd             " + ("— (no bias grid)" if cpd is None else
+                                          f"{cpd:.3f} ± {cpd_std:.2g} V" if cpd_std else f"{cpd:.3f} V")]
+        for key, label in (("recommendation", ""), ("separability", ""), ("noise_sentence", "")):
+            if isinstance(d.get(key), str) and d[key]:
+                lines.append(f"{label}{d[key]}")
+        res = _arr(d, "residual_rms_deg")
+        if res is not None:
+            lines.append("residual rms deg  " + ", ".join(f"{v:.2g}" for v in res.ravel()[:8]))
+        if d.get("tip_changed_sample") is not None:
+            lines.append(f"tip changed the sample: {'YES' if d['tip_changed_sample'] else 'no'}")
+        lines.append(f"report: {self.report_dir}" if self.report_dir else "report: not written yet (Report)")
+        return "\n".join(lines)
+
+    def redraw(self) -> None:
+        d = self.result
+        if d is None:
+            return
+        h = _arr(d, "heights_nm")
+        if h is None:
+            return
+        es, sr, mp = _arr(d, "electrostatic_mean_deg"), _arr(d, "short_range_mean_deg"), self.mean_phase
+        if es is not None and es.ndim == 2:
+            es = es.mean(axis=1)
+        rms, rms_std = _arr(d, "magnetic_rms_deg"), _arr(d, "magnetic_rms_std_deg")
+
+        def mean(plt):
+            if mp is not None and mp.shape == h.shape:
+                plt.scatter(h, mp, color=DATA, marker="o", label="measured mean")
+            if es is not None and es.shape == h.shape:
+                plt.plot(h, es, color=PART_A, label="electrostatic")
+            if sr is not None and sr.shape == h.shape:
+                plt.plot(h, sr, color=PART_B, label="short-range")
+            if es is not None and sr is not None and es.shape == sr.shape == h.shape:
+                plt.plot(h, es + sr, color=FIT, label="sum")
+            plt.title("mean phase deg vs lift nm")
+
+        def rms_plot(plt):
+            if rms is not None and rms.shape == h.shape:
+                plt.plot(h, rms, color=PART_A, marker="o", label="magnetic rms")
+                if rms_std is not None and rms_std.shape == h.shape:
+                    plt.plot(h, rms + rms_std, color=DATA)
+                    plt.plot(h, np.maximum(rms - rms_std, 0), color=DATA)
+            rec = _num(d, "recommended_lift_nm")
+            if rec is not None:
+                plt.vline(rec, color=FIT)
+            plt.title("magnetic rms deg vs lift nm" + (f"; lift {rec:.3g} nm" if rec else ""))
+
+        redraw(self.query_one("#an-mean", PlotextPlot), mean)
+        redraw(self.query_one("#an-rms", PlotextPlot), rms_plot)

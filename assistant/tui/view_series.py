@@ -1,0 +1,207 @@
+"""Series view: the lift-height series settings (validated by the procedure's own rules), progress with time
+remaining, the latest phase line, and one preview per height on one shared scale centred on zero."""
+
+from __future__ import annotations
+
+import numpy as np
+from textual.containers import Horizontal, HorizontalScroll, Vertical
+from textual.widgets import Button, Checkbox, Label, ProgressBar, Static
+from textual_plotext import PlotextPlot
+
+from assistant.tui.colours import symmetric_limit
+from assistant.tui.plots import redraw
+from assistant.tui.view_base import FieldError, View
+from assistant.tui.widgets import Field, HalfBlockImage, ScaleKey
+
+_LINE_COLOURS = ("blue", "cyan", "green", "orange", "red", "magenta", "yellow")
+
+
+class Preview(Vertical):
+    DEFAULT_CSS = """
+    Preview { width: 11; height: 7; }
+    Preview > Label { height: 1; }
+    Preview > HalfBlockImage { width: 10; height: 5; }
+    """
+
+    def __init__(self, title: str, index: int) -> None:
+        super().__init__(id=f"preview-{index}")
+        self.title = title
+
+    def compose(self):
+        yield Label(self.title)
+        yield HalfBlockImage()
+
+
+class SeriesView(View):
+    EVENTS = ("series",)
+    DEFAULT_CSS = """
+    SeriesView #series-top { height: 1fr; }
+    SeriesView #series-form { width: 36; }
+    SeriesView #series-live { width: 1fr; }
+    SeriesView #series-line { height: 1fr; min-height: 4; }
+    SeriesView #series-previews { height: 7; }
+    SeriesView #series-bar { height: 1; }
+    SeriesView #series-message { height: auto; max-height: 3; }
+    SeriesView Checkbox { height: 1; border: none; padding: 0; }
+    """
+
+    def __init__(self, **kw) -> None:
+        super().__init__(**kw)
+        self.heights_m: tuple[float, ...] = ()
+        self.biases_v: tuple[float, ...] | None = None
+        self.phase: np.ndarray | None = None  # (heights, lines, pixels), the first bias of a bias grid
+        self.lines_done = 0
+        self.latest_row: int | None = None
+        self.remaining_s: float | None = None
+        self.instrument_s: float | None = None
+        self._previews_built_for: tuple | None = None
+
+    def compose(self):
+        with Horizontal(id="series-top"):
+            with Vertical(id="series-form"):
+                yield Field("heights nm", "10,15,20,30,50,75,100", id="s-heights")
+                yield Field("biases V", "", id="s-biases", placeholder="none, or >= 3")
+                yield Field("scan size µm", "4", id="s-size")
+                yield Field("pixels", "128", id="s-pixels")
+                yield Field("lines", "32", id="s-lines")
+                yield Field("line rate Hz", "1", id="s-rate")
+                yield Checkbox("repeat 1st height per line", True, id="s-repeat")
+                with Horizontal(classes="buttons"):
+                    yield Button("Check", id="series-check")
+                    yield Button("Start", id="series-start", variant="primary")
+                yield Static("", id="series-message")
+            with Vertical(id="series-live"):
+                yield ProgressBar(total=1, show_eta=False, id="series-bar")
+                yield Static("no series running", id="series-status")
+                yield PlotextPlot(id="series-line")
+        yield HorizontalScroll(id="series-previews")
+        yield ScaleKey(id="series-scale")
+
+    # settings ----------------------------------------------------------------------------------------
+    def settings(self):
+        from assistant.procedures.series import SeriesSettings
+
+        heights = self.numbers("s-heights", "heights")
+        biases = self.numbers("s-biases", "biases", optional=True)
+        return SeriesSettings(
+            heights_m=tuple(h * 1e-9 for h in heights), biases_v=biases,
+            lines=int(self.number("s-lines", "lines", integer=True)),
+            pixels=int(self.number("s-pixels", "pixels", integer=True)),
+            scan_size_m=self.number("s-size", "scan size") * 1e-6,
+            line_rate_hz=self.number("s-rate", "line rate"),
+            repeat_first=self.query_one("#s-repeat", Checkbox).value)
+
+    def checked_settings(self):
+        """Settings from the form, validated as the procedure will validate them; raises with the reason."""
+        s = self.settings()
+        self.app.validate_series(s)
+        if s.biases_v is not None and len(s.biases_v) < 3:
+            raise FieldError(f"biases: a bias grid needs at least three biases, got {len(s.biases_v)}")
+        return s
+
+    def on_button_pressed(self, event: Button.Pressed) -> None:
+        if event.button.id not in ("series-check", "series-start"):
+            return
+        event.stop()
+        msg = self.query_one("#series-message", Static)
+        try:
+            s = self.checked_settings()
+        except ValueError as exc:  # FieldError and SeriesSettingsError both are ValueErrors
+            msg.update(f"[b]not valid:[/b] {exc}")
+            return
+        msg.update(f"ok: {len(s.passes)} second passes per line; {s.order}")
+        if event.button.id == "series-start":
+            self.app.start_series(s)
+
+    # data ----------------------------------------------------------------------------------------------
+    def begin(self, *, heights_m, biases_v, lines: int, pixels: int) -> None:
+        self.heights_m = tuple(float(h) for h in heights_m)
+        self.biases_v = None if biases_v is None else tuple(float(b) for b in biases_v)
+        self.phase = np.full((len(self.heights_m), lines, pixels), np.nan)
+        self.lines_done, self.latest_row = 0, None
+        self.remaining_s = self.instrument_s = None
+        self._build_previews()
+        bar = self.query_one("#series-bar", ProgressBar)
+        bar.update(total=lines, progress=0)
+        self.mark_dirty()
+
+    def load(self, data) -> None:
+        """Show a stored series (``SessionFile.read_series``)."""
+        phase = np.asarray(data.phase_deg, dtype=float)
+        if data.biases_v is not None and phase.ndim == 4:
+            phase = phase[:, 0]
+        self.begin(heights_m=data.heights_m, biases_v=data.biases_v, lines=data.lines, pixels=data.pixels)
+        self.phase[:, : phase.shape[1]] = phase
+        self.lines_done = data.completed_lines
+        self.latest_row = data.completed_lines - 1 if data.completed_lines else None
+        self.query_one("#series-bar", ProgressBar).update(progress=data.completed_lines)
+        self.mark_dirty()
+
+    def progress(self, event) -> None:
+        d = event.data
+        if self.phase is None or len(d.get("heights_m", ())) != self.phase.shape[0]:
+            return
+        row = int(d["row"])
+        phase = np.asarray(d["phase_deg"], dtype=float)
+        if phase.ndim == 3:  # (heights, biases, pixels): preview the first bias
+            phase = phase[:, 0, :]
+        self.phase[:, row, :] = phase
+        self.lines_done = int(event.done)
+        self.latest_row = row
+        self.remaining_s = event.remaining_s
+        self.instrument_s = d.get("instrument_remaining_s")
+        self.mark_dirty()
+
+    def step_finished(self, step: str, result, error) -> None:
+        if step != "series":
+            return
+        status = self.query_one("#series-status", Static)
+        if error is None:
+            status.update(f"series {result.name} done: {result.completed_lines} of {result.lines} lines "
+                          f"in {result.elapsed_s:.1f} s")
+        else:
+            status.update(f"series stopped after {self.lines_done} lines: {error}")
+
+    def _build_previews(self) -> None:
+        key = (self.heights_m, self.biases_v)
+        if key == self._previews_built_for:
+            return
+        self._previews_built_for = key
+        self.run_worker(self._rebuild_previews(key), group="previews", exclusive=True)
+
+    async def _rebuild_previews(self, key) -> None:
+        # Removing and mounting must be awaited in turn: left pending together they can stall the app's queue.
+        box = self.query_one("#series-previews", HorizontalScroll)
+        await box.remove_children()
+        await box.mount_all([Preview(f"{h * 1e9:g} nm", i) for i, h in enumerate(key[0])])
+        self.mark_dirty()
+
+    def redraw(self) -> None:
+        if self.phase is None:
+            return
+        lines = self.phase.shape[1]
+        limit = symmetric_limit(self.phase)
+        for i, preview in enumerate(self.query(Preview)):
+            if i < self.phase.shape[0]:
+                preview.query_one(HalfBlockImage).set_image(self.phase[i], limit)
+                preview.query_one(Label).update(f"{self.heights_m[i] * 1e9:g} nm {self.lines_done}/{lines}")
+        self.query_one("#series-scale", ScaleKey).set_limit(limit)
+        self.query_one("#series-bar", ProgressBar).update(total=lines, progress=self.lines_done)
+        rem = f", about {self.remaining_s:.0f} s left" if self.remaining_s is not None else ""
+        inst = f" (instrument time {self.instrument_s:.0f} s)" if self.instrument_s is not None else ""
+        bias = f"; previews at bias {self.biases_v[0]:g} V" if self.biases_v else ""
+        self.query_one("#series-status", Static).update(
+            f"line {self.lines_done} of {lines} at every height{rem}{inst}{bias}")
+        if self.latest_row is None:
+            return
+        row, heights = self.latest_row, self.heights_m
+        phase = self.phase[:, row, :]
+
+        def draw(plt):
+            x = np.arange(phase.shape[1])
+            for i in range(phase.shape[0]):
+                plt.plot(x, phase[i], color=_LINE_COLOURS[i % len(_LINE_COLOURS)],
+                         label=f"{heights[i] * 1e9:g}" if phase.shape[0] <= 4 else None)
+            plt.title(f"phase deg, line {row + 1}, all heights")
+
+        redraw(self.query_one("#series-line", PlotextPlot), draw)
