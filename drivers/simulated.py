@@ -91,7 +91,7 @@ class SimulatedController(Controller):
         for key in query:
             if key not in _URL_KEYS:
                 raise BadURL(f"unknown option {key!r} in {url!r}; allowed: {', '.join(_URL_KEYS)}")
-        allowed = set(_URL_KEYS) | {"clock", "sample"}
+        allowed = set(_URL_KEYS) | {"clock", "sample", "faults"}
         for key in options:
             if key not in allowed:
                 raise BadURL(f"unknown option {key!r} for sim://; allowed: {', '.join(sorted(allowed))}")
@@ -116,6 +116,9 @@ class SimulatedController(Controller):
             clock = merged.get("clock") or VirtualClock(pace)
             stage = build_microscope(scenario, seed=seed, clock=clock, sample=merged.get("sample"))
             plan = FaultPlan.from_table(scenario.faults) if scenario.faults else None
+            extra = merged.get("faults")  # a FaultPlan handed in by a caller (e.g. ``mfma serve --faults``)
+            if extra is not None:
+                plan = extra if plan is None else FaultPlan(plan.faults + extra.faults, plan.seed)
         except ScenarioError as exc:
             raise BadURL(f"scenario: {exc}") from exc
         if plan is not None and plan.only(STAGE_KINDS).faults:

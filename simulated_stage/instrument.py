@@ -374,12 +374,14 @@ class VirtualMicroscope:
         scale = self.volts_per_m
         if rate_hz not in self._thermal:
             white_m = self.detector.white_std_v(rate_hz) / scale
-            # a fast bit generator for the bulk noise, seeded from the injected one (reproducible)
-            fast = np.random.Generator(np.random.SFC64(int(self._rng.integers(2**63))))
+            # fast bit generators for the bulk noise, seeded from the injected one (reproducible); one stream
+            # each, so the record does not depend on how it is chunked (a link may ask for smaller chunks)
+            seeds = np.random.SeedSequence(int(self._rng.integers(2**63))).spawn(2)
+            mode_rng, flicker_rng = (np.random.Generator(np.random.SFC64(s)) for s in seeds)
             mode = ThermalMode(stiffness_n_per_m=self.k / 0.970688, resonance_hz=self.f0, quality_factor=self.q,
-                               temperature_k=self.temperature_k, rate_hz=rate_hz, rng=fast,
+                               temperature_k=self.temperature_k, rate_hz=rate_hz, rng=mode_rng,
                                white_noise_std_m=white_m, output_gain=scale)
-            flicker = FlickerNoise(self.detector.flicker_v_per_rthz_at_1hz, rate_hz, fast)
+            flicker = FlickerNoise(self.detector.flicker_v_per_rthz_at_1hz, rate_hz, flicker_rng)
             self._thermal = {rate_hz: (mode, flicker)}
         mode, flicker = self._thermal[rate_hz]
         sat = self.detector.saturation_v

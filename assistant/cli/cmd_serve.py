@@ -18,7 +18,8 @@ def run(args) -> int:
         options["scenario"] = args.scenario
     if args.seed is not None:
         options["seed"] = args.seed
-    faults = FaultPlan.from_specs([s for s in args.faults.split(",") if s.strip()]) if args.faults else None
+    if args.faults:
+        options["faults"] = FaultPlan.from_specs([s for s in args.faults.split(",") if s.strip()])
     stop = threading.Event()
 
     def announce(info: dict) -> None:
@@ -31,8 +32,10 @@ def run(args) -> int:
     signal.signal(signal.SIGTERM, on_term)
     with open_controller("sim://", **options) as ctl:
         try:
+            # the plan holds the scenario's faults and --faults; stage kinds already wrap the stage,
+            # the link kinds are the server's to apply
             serve(ctl, transport=args.transport, bind=args.bind, server_key=args.server_key, allow_dir=args.allow,
-                  watchdog_s=args.watchdog, faults=faults, announce=announce, stop=stop)
+                  watchdog_s=args.watchdog, faults=ctl.fault_plan, announce=announce, stop=stop)
         except KeyboardInterrupt:
             pass
     return 0

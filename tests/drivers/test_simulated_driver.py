@@ -168,3 +168,15 @@ def test_any_sequence_ends_safe_and_within_limits(sample, actions):
         assert 0.0 <= s.drive_amplitude_v <= ctl.limits.drive_max_v
     ctl.make_safe()
     assert ctl.status().safe
+
+
+def test_thermal_record_does_not_depend_on_chunking():
+    # A serial link asks for small chunks, a network link for large ones: the same stage and seed must give the
+    # same record either way, or runs over different links could not be compared.
+    from drivers.registry import open_controller
+
+    records = []
+    for chunk in (1 << 18, 4096, 1000):
+        with open_controller("sim://", seed=7) as ctl:
+            records.append(np.concatenate(list(ctl.record_deflection(200_000, 2e6, chunk=chunk))))
+    assert np.array_equal(records[0], records[1]) and np.array_equal(records[0], records[2])

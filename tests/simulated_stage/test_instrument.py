@@ -432,3 +432,4 @@ def test_discrete_loop_stability_agrees_with_routh_hurwitz(i_gain):
     for dt in (1e-6, 1e-4, 1e-2):
         _, _, den = vm._loop(dt, g)
         assert (np.max(np.abs(np.roots(den))) < 1.0) == stable
+
