@@ -83,8 +83,8 @@ class SeriesSettings:
                 raise SeriesSettingsError("biases must be distinct")
         if self.pixels < 8:
             raise SeriesSettingsError(f"pixels = {self.pixels} is below the minimum of 8")
-        if self.lines < 1:
-            raise SeriesSettingsError(f"lines = {self.lines} must be at least 1")
+        if self.lines < 8:  # the decomposition needs images of at least 8 x 8
+            raise SeriesSettingsError(f"lines = {self.lines} is below the minimum of 8")
         if not self.scan_size_m > 0:
             raise SeriesSettingsError(f"scan size {self.scan_size_m * 1e6:g} µm must be positive")
         if scan_size_max_m is not None and self.scan_size_m > scan_size_max_m:

@@ -123,6 +123,7 @@ def test_ctrl_c_withdraws_and_exits_130(tmp_path):
     (["--heights=-5,10"], "positive"),
     (["--heights", "10,20,90000"], "exceeds"),
     (["--pixels", "4"], "pixels"),
+    (["--lines", "5"], "lines"),
     (["--biases", "0,1"], "three biases"),
     (["--biases", "0,0,1"], "distinct"),
     (["--resume", "nothing.h5"], "does not exist"),

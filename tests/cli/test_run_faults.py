@@ -80,9 +80,9 @@ def test_stage_is_safe_after_a_fault_in_process(tmp_path):
         ctl.set_drive(75e3, 0.2)
         free = ctl.read(["amplitude_v"])["amplitude_v"]
         approach(ctl, ApproachSettings(75e3, 0.2, 0.7 * free, free))
-        settings = SeriesSettings(heights_m=(20e-9, 40e-9), lines=4, pixels=16)
+        settings = SeriesSettings(heights_m=(20e-9, 40e-9), lines=8, pixels=16)
         with SessionFile.create(tmp_path / "s.h5", controller_url="sim://", software_version="test") as sf:
-            w = sf.create_series("series1", heights_m=settings.heights_m, biases_v=None, lines=4, pixels=16,
+            w = sf.create_series("series1", heights_m=settings.heights_m, biases_v=None, lines=8, pixels=16,
                                  scan_size_m=settings.scan_size_m, line_rate_hz=1.0, order=settings.order,
                                  repeat_first=True, settings_json=settings.to_json())
             with pytest.raises(ControllerFault, match="injected"):
