@@ -46,15 +46,18 @@ class TipChange:
     sentence: str
 
 
-def detect_tip_change(first_deg: np.ndarray, repeat_deg: np.ndarray, *, threshold: float = 5.0,
-                      smooth_px: int = 3, min_region_px: int = 4) -> TipChange:
+def detect_tip_change(first_deg: np.ndarray, repeat_deg: np.ndarray, *, noise_deg: float | None = None,
+                      threshold: float = 5.0, smooth_px: int = 3, min_region_px: int = 4) -> TipChange:
     """Flag irreversible changes between a first pass and its repeat.
 
     The difference is box-smoothed over ``smooth_px`` pixels (extended changes stand out better than single
-    noisy pixels); its noise is the median absolute deviation scaled to a Gaussian std, robust to the changed
-    pixels themselves while they are fewer than half. Pixels beyond ``threshold`` noise std that form
-    connected regions of at least ``min_region_px`` pixels are flagged. Thresholds: common practice, no
-    source.
+    noisy pixels). Its noise: with ``noise_deg`` (per-pixel noise of one pass, known independently, e.g.
+    from the lift-series fit) that of the difference of two passes, ``sqrt(2) noise_deg``, averaged over
+    the box; otherwise the median absolute deviation scaled to a Gaussian std, which is robust to the
+    changed pixels only while they are fewer than half: a tip that rewrites most of the scan inflates it to
+    the size of the change itself and hides it, so pass ``noise_deg`` whenever it is known. Pixels beyond
+    ``threshold`` noise std that form connected regions of at least ``min_region_px`` pixels are flagged.
+    Thresholds: common practice, no source.
     """
     a = np.asarray(first_deg, float)
     b = np.asarray(repeat_deg, float)
@@ -75,8 +78,12 @@ def detect_tip_change(first_deg: np.ndarray, repeat_deg: np.ndarray, *, threshol
         sm = filled
     quiet = ok
     for _ in range(3):  # re-estimate the noise away from what was flagged: a large change inflates the MAD
-        raw_noise = _MAD_TO_STD * float(np.median(np.abs(d[quiet])))
-        sm_noise = _MAD_TO_STD * float(np.median(np.abs(sm[quiet])))
+        if noise_deg is None:
+            raw_noise = _MAD_TO_STD * float(np.median(np.abs(d[quiet])))
+            sm_noise = _MAD_TO_STD * float(np.median(np.abs(sm[quiet])))
+        else:
+            raw_noise = np.sqrt(2.0) * float(noise_deg)
+            sm_noise = raw_noise / max(int(smooth_px), 1)  # mean of smooth_px^2 independent pixels
         hot = ok & (np.abs(sm) > threshold * max(sm_noise, 1e-300))
         labels, n = ndimage.label(hot)
         if n:
@@ -87,7 +94,7 @@ def detect_tip_change(first_deg: np.ndarray, repeat_deg: np.ndarray, *, threshol
         else:
             changed = hot
         grown = ndimage.binary_dilation(changed, iterations=max(smooth_px, 1)) if changed.any() else changed
-        if not changed.any() or (ok & ~grown).sum() < 0.25 * ok.sum():
+        if noise_deg is not None or not changed.any() or (ok & ~grown).sum() < 0.25 * ok.sum():
             break
         quiet = ok & ~grown
     frac = float(changed.sum() / ok.sum())

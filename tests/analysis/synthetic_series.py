@@ -117,8 +117,19 @@ def build_series(*, rows=128, cols=128, pixel_m=10e-9, heights_m=(20e-9, 30e-9, 
                  applied_bias_v=0.0, cpd_v=0.35, hamaker_j=1e-19, tip_radius_m=30e-9, cone_half_angle_deg=15.0,
                  cone_height_m=10e-6, amplitude_m=10e-9, gap_offset_m=None, spring_constant_n_per_m=2.8,
                  quality_factor=200.0, resonance_hz=75e3, repeat=False, flip_disk=None, nan_fraction=0.0,
-                 seed=0):
-    """Build a synthetic series; ``drift_px`` (H, 2) or (H, B, 2) in the analysis convention."""
+                 margin_px=0, seed=0):
+    """Build a synthetic series; ``drift_px`` (H, 2) or (H, B, 2) in the analysis convention.
+
+    ``margin_px`` > 0 makes the scan a non-periodic window: the film, its field and the drift are computed
+    on a periodic grid ``margin_px`` larger on every side and only the central ``rows x cols`` are kept
+    (a real scan is a crop of an unbounded field). Every returned map and truth refers to that window.
+    """
+    m = int(margin_px)
+    if m:
+        win = (slice(m, m + rows), slice(m, m + cols))
+        rows, cols = rows + 2 * m, cols + 2 * m
+        if flip_disk is not None:
+            flip_disk = (flip_disk[0] + m, flip_disk[1] + m, flip_disk[2])
     rng = np.random.default_rng(seed)
     h = np.asarray(heights_m, float)
     nh = h.size
@@ -204,6 +215,11 @@ def build_series(*, rows=128, cols=128, pixel_m=10e-9, heights_m=(20e-9, 30e-9, 
         if np.any(drift[0, 0] != 0):
             clean2 = shift_image(clean2, *drift[0, 0])
         repeat_img = clean2 + rng.normal(scale=noise_deg, size=(rows, cols))
+    if m:
+        images = images[..., win[0], win[1]]
+        g_mag = g_mag[:, win[0], win[1]]
+        if repeat:
+            repeat_img, changed, clean_change = (a[win] for a in (repeat_img, changed, clean_change))
     mag_phase = to_phase(g_mag)
     kwargs = dict(spring_constant_n_per_m=k, quality_factor=q_f, resonance_hz=resonance_hz, tip_radius_m=tip_radius_m,
                   amplitude_m=amplitude_m, gap_offset_m=gap_offset_m, cone_half_angle_deg=cone_half_angle_deg,
