@@ -237,8 +237,11 @@ def _thermal_result(record: Record):
     from assistant.analysis.spectra import WelchSpectrum
 
     s, a = record.scalars, record.arrays
-    spectrum = WelchSpectrum(a["spectrum_frequency_hz"], a["spectrum_psd_v2_per_hz"],
-                             rate_hz=float(s["spectrum_rate_hz"]), segment_length=int(s["spectrum_segment_length"]),
+    f = a["spectrum_frequency_hz"]
+    # a one-sided spectrum runs from 0 to Nyquist in segment_length / 2 + 1 bins
+    spectrum = WelchSpectrum(f, a["spectrum_psd_v2_per_hz"],
+                             rate_hz=float(s.get("spectrum_rate_hz", 2.0 * f[-1])),
+                             segment_length=int(s.get("spectrum_segment_length", 2 * (f.size - 1))),
                              n_segments=int(s["spectrum_segments"]),
                              variance_inflation=float(s.get("spectrum_variance_inflation", 1.0)))
     fit = th.fit_thermal_spectrum(spectrum.frequencies_hz, spectrum.psd_v2_per_hz, averages=spectrum.n_segments,
