@@ -346,6 +346,8 @@ class MfmApp(App[int]):
     @work(thread=True, group="poll", exit_on_error=False)
     def _poll_worker(self) -> None:
         while not self._stop_poll.wait(self.poll_interval_s):
+            if not self.is_running or self._closed:  # the app ended without unmounting cleanly (a crash)
+                return
             try:
                 status = self.controller.try_status(0.05)
             except Exception as exc:
