@@ -217,7 +217,7 @@ def analyse_series(phase_deg, *, heights_m, pixel_m, bias_v=None, repeat_phase_d
                    amplitude_m: float = 10e-9, gap_offset_m: float | None = None, bandwidth_hz: float | None = None,
                    temperature_k: float = 298.15, short_range_fraction: float = 0.1, max_nan_fraction: float = 0.05,
                    residual_tolerance: float = 1.25, register: bool = True, n_refine: int = 2,
-                   edge: str = "window") -> SeriesAnalysis:
+                   edge: str = "window", max_phase_deg: float = 45.0) -> SeriesAnalysis:
     """Decompose a lift-height series into magnetic, electrostatic and short-range parts.
 
     Parameters
@@ -254,6 +254,10 @@ def analyse_series(phase_deg, *, heights_m, pixel_m, bias_v=None, repeat_phase_d
         Estimate and undo drift.
     n_refine : int
         Rounds of refining the drift against the leave-one-out continuation.
+    max_phase_deg : float
+        Pixels whose phase shift exceeds this magnitude are left out of the fit: there the tip touches the
+        surface or feels a gradient far beyond the small-perturbation picture of a second pass (the
+        inversion ``-arctan`` diverges at 90 deg). Rule of thumb, no source.
     edge : {"window", "periodic"}
         "window": the scan is a window onto a larger field (the field outside is fitted as missing data;
         residual judged on every pixel). "periodic": the scan is one period of the field (plain FFT fit;
@@ -295,7 +299,7 @@ def analyse_series(phase_deg, *, heights_m, pixel_m, bias_v=None, repeat_phase_d
         def slope(x):
             return np.ones_like(np.asarray(x, float))
 
-    ok = ~bad
+    ok = ~bad & ~(np.abs(np.where(bad, 0.0, s4)) > max_phase_deg)
     n_ok = ok.sum(axis=(-2, -1))
     means = np.where(ok, sig, 0.0).sum(axis=(-2, -1)) / n_ok
     centred = np.where(ok, sig - means[..., None, None], 0.0)

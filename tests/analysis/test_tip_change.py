@@ -49,3 +49,25 @@ def test_uniform_offset_is_not_a_change():
 def test_shape_mismatch():
     with pytest.raises(ValueError, match="shape"):
         detect_tip_change(np.zeros((8, 8)), np.zeros((8, 9)))
+
+
+def test_change_over_most_of_the_scan_is_found():
+    # a tip that rewrites most of a soft film: the spread of the difference is then the change itself, and
+    # a noise taken from it (median absolute deviation) hides the change; the analysis judges the
+    # difference against the top image's own noise instead
+    s = build_series(rows=128, cols=128, heights_m=HEIGHTS, noise_deg=0.05, magnetic_scale=0.3, repeat=True,
+                     flip_disk=(64, 64, 56), seed=34)
+    assert s.changed_map.mean() > 0.5  # the scenario: more than half of the pixels really changed
+    blind = detect_tip_change(s.phase_deg[0], s.repeat_phase_deg)
+    assert blind.noise_deg > 3 * 0.05  # the self-referenced noise is inflated by the change
+    assert not blind.irreversible  # ... and the change goes unseen (the defect this guards against)
+    a = analyse_series(s.phase_deg, heights_m=s.heights_m, pixel_m=s.pixel_m, repeat_phase_deg=s.repeat_phase_deg,
+                       **s.analysis_kwargs)
+    t = a.tip_change
+    assert t.irreversible and a.to_dict()["tip_changed_sample"] is True
+    found = (t.changed & s.changed_map).sum() / s.changed_map.sum()
+    assert found > 0.5, found
+    true_sm = ndimage.uniform_filter(s.extras["clean_change_deg"], size=3, mode="wrap")
+    assert np.all(np.abs(true_sm[t.changed]) > 0.05 / 3)
+    # the reference noise then comes from the top image, not from the changed repeat
+    assert a.reference_noise_deg == pytest.approx(0.05, rel=0.15)

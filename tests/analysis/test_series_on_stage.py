@@ -1,0 +1,89 @@
+"""A small lift-height series on the simulated stage, decomposed end to end (calibrate, approach, series,
+analysis; all in-process through the procedures).
+
+Outside checks, not the simulator's code:
+
+* the contact potential is the scenario's ``[sample] cpd_v`` (the electrostatic force is quadratic in
+  V - V_cpd: Hudlet et al. 1998, Eur. Phys. J. B 2, 5); the default scenario has no charged patch;
+* above the film every spatial Fourier component decays as exp(-|q| z) (Laplace's equation; Hug et al.
+  1998, J. Appl. Phys. 83, 5609; Wallace 1951, Bell Syst. Tech. J. 30, 1145): the film's fundamental
+  period p = ``[sample] period_nm`` must fall by exp(-2 pi dh / p) between two heights of the fitted
+  magnetic image, whatever the tip;
+* at 20 nm and above the short-range part is below 10 % of the magnetic contrast and at 10 nm it is not
+  (common practice of the trade, no source); a lift height is recommended.
+"""
+
+from __future__ import annotations
+
+import tomllib
+from importlib import resources
+
+import numpy as np
+import pytest
+
+from assistant.procedures.calibrate import CalibrationSettings
+from assistant.procedures.series import SeriesSettings
+from assistant.procedures.workflow import Workflow
+from drivers.registry import open_controller
+
+SCENARIO = tomllib.loads(resources.files("simulated_stage").joinpath("scenarios/default.toml").read_text())
+HEIGHTS_M = (10e-9, 20e-9, 30e-9, 50e-9)
+BIASES_V = (-0.5, 0.0, 0.5, 1.0)
+
+
+@pytest.fixture(scope="module")
+def run(tmp_path_factory):
+    path = tmp_path_factory.mktemp("stage") / "session.h5"
+    with open_controller("sim://", seed=5) as ctl:
+        wf = Workflow(ctl, path)
+        try:
+            wf.calibrate(CalibrationSettings(temperature_k=SCENARIO["environment"]["temperature_k"],
+                                             thermal_seconds=1.0))
+            wf.approach()
+            # 2.4 um = three track pitches of the default film (tracks 2 p apart), so that the film's
+            # harmonics fall on FFT cells and do not leak into the one at 1 / p
+            settings = SeriesSettings(heights_m=HEIGHTS_M, biases_v=BIASES_V, lines=32, pixels=96,
+                                      scan_size_m=2.4e-6)
+            wf.series(settings)
+            analysis = wf.analyse()
+        finally:
+            wf.close()
+    return analysis, settings
+
+
+def test_contact_potential_is_the_scenarios(run):
+    a, _ = run
+    assert a.cpd_v == pytest.approx(SCENARIO["sample"]["cpd_v"], abs=0.02)
+
+
+def test_fundamental_decays_as_laplace_says(run):
+    a, s = run
+    period_m = SCENARIO["sample"]["period_nm"] * 1e-9
+    rows, cols = a.magnetic_deg.shape[-2:]
+    pr, pc = a.pixel_m
+    fr = np.fft.fftfreq(rows)[:, None] / pr
+    fc = np.fft.rfftfreq(cols)[None, :] / pc
+    spec = np.abs(np.fft.rfft2(a.magnetic_deg[:, :, :], axes=(-2, -1))) ** 2
+    # the cells nearest the fundamental frequency, in whatever direction the pattern runs
+    near = np.abs(np.hypot(fr, fc) * period_m - 1.0) < 0.15
+    power = spec[:, near].sum(axis=1)
+    assert power[0] > 0
+    # between 20 and 50 nm (away from the lowest height, where the short-range part and the film's
+    # finest content are strongest): amplitude ratio against exp(-2 pi dh / p)
+    i, j = 1, 3
+    dh = s.heights_m[j] - s.heights_m[i]
+    measured = np.sqrt(power[j] / power[i])
+    expected = np.exp(-2 * np.pi * dh / period_m)
+    assert measured == pytest.approx(expected, rel=0.05), (measured, expected)
+
+
+def test_short_range_rule_and_recommendation(run):
+    a, s = run
+    h = np.asarray(s.heights_m)
+    ratio = np.abs(a.short_range_mean_deg) / a.magnetic_rms_deg
+    assert ratio[0] > 0.1, ratio
+    assert np.all(ratio[h >= 20e-9] < 0.1), ratio
+    assert a.recommendation.lift_height_m is not None
+    assert a.recommendation.lift_height_m <= 20e-9 + 1e-12
+    assert np.all(a.residual_at_noise[h >= 20e-9]), a.residual_rms_interior_deg / a.expected_residual_rms_deg
+
