@@ -296,3 +296,19 @@ def test_cli_tui_open_missing_file_is_a_usage_error(tmp_path, capsys):
 
     assert main(["tui", "--open", str(tmp_path / "missing.h5")]) == 2
     assert "does not exist" in capsys.readouterr().err
+
+
+@run_async
+async def test_bias_grid_lines_preview_the_first_bias():
+    app = MfmApp(None)
+    async with app.run_test(size=SIZE) as pilot:
+        sv = app.view("series")
+        sv.begin(heights_m=(10e-9, 20e-9), biases_v=(-0.5, 0.0, 0.5), lines=8, pixels=16)
+        await pilot.press("4")
+        await pilot.pause(0.2)
+        phase = np.arange(2 * 3 * 16, dtype=float).reshape(2, 3, 16)
+        app.post_message(ProcedureEvent(Progress("series", 1, 8, "lines", 0.5, 3.5, data={
+            "row": 0, "phase_deg": phase, "topography_m": np.zeros(16), "heights_m": (10e-9, 20e-9)})))
+        await pilot.pause(0.3)
+        np.testing.assert_array_equal(sv.phase[:, 0, :], phase[:, 0, :])
+        assert "previews at bias -0.5 V" in screen_text(app)
