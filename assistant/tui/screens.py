@@ -8,19 +8,20 @@ from textual.screen import ModalScreen
 from textual.widgets import Button, Static
 
 HELP = """\
-[b]Keys[/b] (also in every view, while a procedure runs)
-  ctrl+w  or  w    WITHDRAW the tip now: cancel, retract, drive off, bias 0 V
-  ctrl+x  or  x    cancel the running procedure (its guard withdraws)
-  1 … 6            views: 1 Probe  2 Resonance  3 Approach  4 Series
-                   5 Analysis  6 Log   (or click the tab)
-  tab / shift+tab  move between fields and buttons;  enter presses a button
-  esc              leave a field (then the number keys switch views)
-  ?                this help;   q  or  ctrl+q  quit (asks first if engaged)
+[b]Keys[/b]  (ctrl+ keys work in every view, also while a procedure runs)
+  ctrl+w  WITHDRAW now: cancel, retract Z, drive off, bias 0 V  (or w)
+  ctrl+x  cancel the running procedure; its guard withdraws     (or x)
+  1 … 6   views: 1 Probe 2 Resonance 3 Approach 4 Series 5 Analysis 6 Log
+          (or click a tab)
+  tab     next field or button (shift+tab back); enter presses a button
+  esc     leave a field, so that the number keys switch views again
+  ?       this help;  q or ctrl+q quit (asks first if the tip is engaged)
 
-[b]Images[/b]  one shared scale centred on zero: dark blue = negative phase =
-attractive, grey = zero, light amber = positive. Empty cells: lines not yet
-scanned.
-Press esc or ? to close."""
+[b]Images[/b]  one shared scale centred on zero for every height:
+  dark blue = negative phase = attractive, grey = zero,
+  light amber = positive. Empty cells: lines not yet scanned.
+
+esc or ? closes this help."""
 
 
 class HelpScreen(ModalScreen[None]):
