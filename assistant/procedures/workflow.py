@@ -82,17 +82,13 @@ class Workflow:
         fit = result.thermal.fit
         arrays = {"fit_frequency_hz": fit.frequencies_hz, "fit_psd_v2_per_hz": fit.psd_v2_per_hz,
                   "fit_model_v2_per_hz": fit.model(fit.frequencies_hz)}
-        scalars = {k: v for k, v in summary.items() if v is not None and not isinstance(v, bool)}
+        scalars = calibration_scalars(result, settings.probe_name)
         if fit.spectrum is not None:  # the whole averaged spectrum, so it can be refitted offline
             arrays["spectrum_frequency_hz"] = fit.spectrum.frequencies_hz
             arrays["spectrum_psd_v2_per_hz"] = fit.spectrum.psd_v2_per_hz
             scalars.update(spectrum_rate_hz=fit.spectrum.rate_hz, spectrum_segments=fit.spectrum.n_segments,
                            spectrum_segment_length=fit.spectrum.segment_length,
                            spectrum_variance_inflation=fit.spectrum.variance_inflation)
-        scalars["probe_name"] = settings.probe_name or "unnamed"
-        scalars["calibrated_utc"] = datetime.now(timezone.utc).isoformat(timespec="seconds")
-        if result.sader is not None:
-            scalars.update({f"sader_{k}": v for k, v in result.sader.to_dict().items() if v is not None})
         self.session.write_calibration(scalars, arrays)
         if result.sweep_data is not None:
             sd = result.sweep_data
@@ -100,7 +96,7 @@ class Workflow:
                                          {"frequency_hz": sd.frequency_hz, "amplitude_v": sd.amplitude_v,
                                           "phase_deg": sd.phase_deg})
         if probe_record is not None and settings.probe_name:
-            self.probe_warnings = probe_record.add(settings.probe_name, {**scalars})
+            self.probe_warnings = probe_record.add(settings.probe_name, calibration_scalars(result, settings.probe_name))
             for w in self.probe_warnings:
                 self.sink(Notice("warning", f"probe record: {w}"))
         return result
@@ -168,6 +164,18 @@ class Workflow:
             self.controller.make_safe()  # the scan is over: nothing needs the tip near the surface now
         self.analysis = analyse_session_series(self.session, name, sink=self.sink)
         return self.analysis
+
+
+def calibration_scalars(result: CalibrationResult, probe_name: str | None, *, now: datetime | None = None) -> dict:
+    """The headline numbers of a calibration, their sources and the Sader inputs and outputs, as plain scalars:
+    what the session file and the probe record keep."""
+    d = {k: v for k, v in result.summary().items() if v is not None and not isinstance(v, bool)}
+    if result.sader is not None:
+        d.update({f"sader_{k}": v for k, v in result.sader.to_dict().items() if v is not None})
+    d = {k: (float(v) if hasattr(v, "dtype") else v) for k, v in d.items()}
+    d["probe_name"] = probe_name or "unnamed"
+    d["calibrated_utc"] = (now or datetime.now(timezone.utc)).isoformat(timespec="seconds")
+    return d
 
 
 def _with(settings: SeriesSettings, **changes) -> SeriesSettings:

@@ -17,10 +17,11 @@ from textual.binding import Binding
 from textual.widgets import Footer, Static, TabbedContent, TabPane
 
 from assistant.procedures.events import Cancelled, CancelToken, Notice
+from assistant.procedures.workflow import calibration_scalars
 from assistant.tui.bridge import (MessageSink, ProcedureEvent, SerialisedController, StatusChanged, StepFinished,
                                   WithdrawDone)
 from assistant.tui.screens import ConfirmQuit, HelpScreen
-from assistant.tui.session_view import calibration_entry, load_session
+from assistant.tui.session_view import load_session
 from assistant.tui.view_analysis import AnalysisView
 from assistant.tui.view_approach import ApproachView
 from assistant.tui.view_base import FieldError
@@ -282,7 +283,7 @@ class MfmApp(App[int]):
         if not settings.probe_name:
             self.say("error", "accept: give the probe a name (Probe view) and calibrate again")
             return
-        self._record_worker(settings.probe_name, calibration_entry(wf.calibration, settings))
+        self._record_worker(settings.probe_name, calibration_scalars(wf.calibration, settings.probe_name))
 
     def start_approach(self) -> None:
         wf = self.workflow

@@ -1,26 +1,11 @@
-"""Adapters between stored data and the views: what a session file holds, and a probe-record entry."""
+"""Adapters between stored data and the views: what a session file holds."""
 
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from datetime import datetime, timezone
 from pathlib import Path
 
 import numpy as np
-
-
-def calibration_entry(result, settings, *, now: datetime | None = None) -> dict:
-    """The probe-record entry for a calibration: the same scalars ``Workflow.calibrate`` stores in the session
-    file (headline numbers, their sources, the Sader inputs and outputs)."""
-    summary = result.summary()
-    entry = {k: v for k, v in summary.items() if v is not None and not isinstance(v, bool)}
-    entry = {k: (float(v) if hasattr(v, "dtype") else v) for k, v in entry.items()}
-    entry["probe_name"] = settings.probe_name or "unnamed"
-    entry["calibrated_utc"] = (now or datetime.now(timezone.utc)).isoformat(timespec="seconds")
-    if result.sader is not None:
-        entry.update({f"sader_{k}": (float(v) if hasattr(v, "dtype") else v)
-                      for k, v in result.sader.to_dict().items() if v is not None})
-    return entry
 
 
 @dataclass
