@@ -296,7 +296,7 @@ def _window_statistics(e, cwv, w_h, n, ridge_k=None):
 
 def fit_continuation_windowed(images: np.ndarray, *, heights_m, pixel_m, height_index=None, drift_px=None,
                               valid: np.ndarray | None = None, pad_px=None, ridge: float = 1e-4,
-                              tol: float = 3e-5, max_iter: int = 200, n_reweight: int = 10,
+                              tol: float = 1e-4, max_iter: int = 200, n_reweight: int = 10,
                               max_weight_ratio: float = 10.0, refine_drift: bool = True,
                               alias_axes="auto", alias_ridge: float = 1e-3) -> ContinuationFit:
     """Laplace continuation of a scan that is a window onto a larger field (no periodicity assumed).
@@ -317,10 +317,10 @@ def fit_continuation_windowed(images: np.ndarray, *, heights_m, pixel_m, height_
     content above its Nyquist frequency, which lands on a lower frequency but keeps decaying with its own
     ``|q|``. There two further fields (the nearer and the farther alias partner of every frequency, see
     :func:`_alias_frequencies`) join ``U``, each with its own decay, held by ``alias_ridge`` everywhere.
-    ``alias_axes="auto"`` aliases an axis whose spacing exceeds 1.5 h_0: the tip sits at least h_0 above
-    the film, and with the tip's own distance (tens of nm) the alias partners then still carry a few
-    per cent of the contrast at the lowest height (a rule of thumb, no source; a simulated scan with
-    62.5 nm lines at 10 nm lift left a 1 deg misfit without them).
+    ``alias_axes="auto"`` aliases an axis whose spacing exceeds 4 h_0 (a rule of thumb, no source: a
+    simulated scan with 62.5 nm lines at 10 nm lift left a 1 deg misfit without row aliases; alias fields
+    give the lowest heights freedom that also absorbs some real non-Laplace contrast there, so they are not
+    used where the sampling does not call for them).
 
     Noise per height: ``sigma_h^2 = R_h / (1 - l_h)`` (residual power over the valid pixels, leverage
     ``l_h`` of the window grid in the periodic approximation), re-estimated up to ``n_reweight`` times with
@@ -375,7 +375,7 @@ def fit_continuation_windowed(images: np.ndarray, *, heights_m, pixel_m, height_
     if isinstance(alias_axes, str):
         if alias_axes != "auto":
             raise ValueError(f"alias_axes must be 'auto' or a sequence of 0 and 1, got {alias_axes!r}")
-        axes = tuple(a for a, p in ((0, pr), (1, pc)) if p > 1.5 * h[0])
+        axes = tuple(a for a, p in ((0, pr), (1, pc)) if p > 4.0 * h[0])
     else:
         axes = tuple(int(a) for a in alias_axes)
     d = (np.zeros((nj, 2)) if drift_px is None else np.asarray(drift_px, dtype=float).reshape(nj, 2)).copy()
