@@ -36,15 +36,20 @@ def _mapped(method):
     def call(self, *args, **kwargs):
         try:
             return method(self, *args, **kwargs)
-        except StageLimitError as exc:
-            raise LimitExceeded(exc.quantity, exc.value, exc.low, exc.high, exc.unit) from exc
-        except StageFault as exc:
-            cls = LaserLost if exc.code == LASER_LOST else ControllerFault
-            raise cls(exc.code, str(exc).split(": ", 1)[-1]) from exc
         except StageError as exc:
-            raise ControllerFault(STAGE_ERROR_CODE, str(exc)) from exc
+            raise _translated(exc) from exc
 
     return call
+
+
+def _translated(exc: StageError) -> Exception:
+    """The driver-level error for a stage error."""
+    if isinstance(exc, StageLimitError):
+        return LimitExceeded(exc.quantity, exc.value, exc.low, exc.high, exc.unit)
+    if isinstance(exc, StageFault):
+        cls = LaserLost if exc.code == LASER_LOST else ControllerFault
+        return cls(exc.code, str(exc).split(": ", 1)[-1])
+    return ControllerFault(STAGE_ERROR_CODE, str(exc))
 
 
 class SimulatedController(Controller):
@@ -143,11 +148,8 @@ class SimulatedController(Controller):
                 chunk = next(it)
             except StopIteration:
                 return
-            except StageFault as exc:
-                cls = LaserLost if exc.code == LASER_LOST else ControllerFault
-                raise cls(exc.code, str(exc).split(": ", 1)[-1]) from exc
             except StageError as exc:
-                raise ControllerFault(STAGE_ERROR_CODE, str(exc)) from exc
+                raise _translated(exc) from exc
             yield chunk
 
     # ---- drive and lock-in ---------------------------------------------------------------------------
