@@ -55,7 +55,7 @@ class ProbeView(View):
                 yield Field("probe name", id="probe-name", placeholder="e.g. lever-A3")
                 yield Field("length µm", id="probe-length", placeholder="plan view, Sader")
                 yield Field("width µm", id="probe-width", placeholder="plan view, Sader")
-                yield Field("temperature K", "295.15", id="probe-temperature")
+                yield Field("temperature K", id="probe-temperature", placeholder="instrument sensor")
                 yield Field("thermal s", "2", id="probe-seconds")
                 with Horizontal(classes="buttons"):
                     yield Button("Calibrate", id="calibrate", variant="primary")
@@ -76,7 +76,7 @@ class ProbeView(View):
         return CalibrationSettings(
             probe_name=self.text("probe-name") or None,
             length_m=length * 1e-6 if length else None, width_m=width * 1e-6 if width else None,
-            temperature_k=self.number("probe-temperature", "temperature"),
+            temperature_k=self.number("probe-temperature", "temperature", optional=True),
             thermal_seconds=self.number("probe-seconds", "thermal record length"),
             free_amplitude_m=free_amplitude_m, setpoint_ratio=setpoint_ratio)
 
