@@ -3,6 +3,8 @@ remaining, the latest phase line, and one preview per height on one shared scale
 
 from __future__ import annotations
 
+import time
+
 import numpy as np
 from textual.containers import Horizontal, HorizontalScroll, Vertical
 from textual.widgets import Button, Checkbox, Label, ProgressBar, Static
@@ -13,6 +15,7 @@ from assistant.tui.plots import redraw
 from assistant.tui.view_base import FieldError, View
 from assistant.tui.widgets import Field, HalfBlockImage, ScaleKey
 
+LINE_PLOT_INTERVAL_S = 1.0
 _LINE_COLOURS = ("blue", "cyan", "green", "orange", "red", "magenta", "yellow")
 
 
@@ -51,6 +54,7 @@ class SeriesView(View):
         self.biases_v: tuple[float, ...] | None = None
         self.phase: np.ndarray | None = None  # (heights, lines, pixels), the first bias of a bias grid
         self.lines_done = 0
+        self._line_drawn_at = -1e9  # monotonic time the latest-line plot was last drawn
         self.latest_row: int | None = None
         self.remaining_s: float | None = None
         self.instrument_s: float | None = None
@@ -194,6 +198,13 @@ class SeriesView(View):
             f"line {self.lines_done} of {lines} at every height{rem}{inst}{bias}")
         if self.latest_row is None:
             return
+        # plotext builds its whole canvas in Python on the UI thread: draw the latest line at most once a second
+        # (and at the end), so the UI never stalls behind it while the series streams in
+        now = time.monotonic()
+        if now - self._line_drawn_at < LINE_PLOT_INTERVAL_S and self.lines_done < lines:
+            self.mark_dirty()
+            return
+        self._line_drawn_at = now
         row, heights = self.latest_row, self.heights_m
         phase = self.phase[:, row, :]
 
