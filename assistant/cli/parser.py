@@ -82,7 +82,9 @@ def build_parser() -> argparse.ArgumentParser:
     _json(p)
     p.set_defaults(handler="cmd_analyze:sweep")
     p = ana.add_parser("series", help="decompose a lift-height series into magnetic, electrostatic, short-range")
-    p.add_argument("file", help=".npz (phase_deg, heights_nm, pixel_nm, ...) or a session file (.h5)")
+    p.add_argument("file", help=".npz (phase_deg, heights_nm, pixel_nm as one spacing or [row, col], optional "
+                                "bias_v, spring_constant_n_per_m, quality_factor, tip_radius_nm, amplitude_nm, "
+                                "gap_offset_nm, repeat_phase_deg) or a session file (.h5)")
     p.add_argument("--series", help="series name inside a session file (default: the first)")
     p.add_argument("--short-range-fraction", type=positive(), default=0.1,
                    help="short-range part allowed at the recommended lift, as a fraction of magnetic (0.1)")

@@ -109,6 +109,15 @@ NPZ_OPTIONAL = ("bias_v", "spring_constant_n_per_m", "quality_factor", "tip_radi
                 "gap_offset_nm", "repeat_phase_deg", "temperature_k", "resonance_hz", "bandwidth_hz")
 
 
+def _pixel_m(value, path: Path) -> float | tuple[float, float]:
+    """``pixel_nm``: one spacing for square pixels, or [between lines, along a line] in nm."""
+    v = np.atleast_1d(np.asarray(value, dtype=float))
+    if v.size not in (1, 2) or not np.all(np.isfinite(v)) or np.any(v <= 0):
+        raise SeriesInputError(f"{path}: pixel_nm must be one positive spacing or [row, column] spacings in nm, "
+                               f"got {v.tolist()}")
+    return float(v[0]) * 1e-9 if v.size == 1 else (float(v[0]) * 1e-9, float(v[1]) * 1e-9)
+
+
 def analyse_npz(path: Path, *, short_range_fraction: float = 0.1):
     """Analyse a stack stored as .npz (keys: see :data:`NPZ_REQUIRED` and :data:`NPZ_OPTIONAL`)."""
     try:
@@ -140,7 +149,7 @@ def analyse_npz(path: Path, *, short_range_fraction: float = 0.1):
     kwargs = {k: v for k, v in kwargs.items() if v is not None}
     return analyse_series(np.asarray(get["phase_deg"], dtype=float),
                           heights_m=np.asarray(get["heights_nm"], dtype=float) * 1e-9,
-                          pixel_m=float(get["pixel_nm"]) * 1e-9,
+                          pixel_m=_pixel_m(get["pixel_nm"], path),
                           bias_v=np.asarray(get["bias_v"], dtype=float) if "bias_v" in get else None,
                           repeat_phase_deg=get.get("repeat_phase_deg"),
                           short_range_fraction=short_range_fraction, **kwargs)
