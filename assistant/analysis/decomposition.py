@@ -400,12 +400,12 @@ def fit_continuation_windowed(images: np.ndarray, *, heights_m, pixel_m, height_
     in_window[:rows, :cols] = True
     frac = rows * cols / (big_r * big_c)
     rr, cc = np.arange(rows)[:, None], np.arange(cols)[None, :]
-    g = gc = ok = n_ok = None
+    g = gc = ok = okf = n_ok = None
 
     def set_drift(dd):
         # operators for drift dd; the band a periodic shift would wrap in is left out, so data that were
         # shifted periodically (synthetic) and real scans are treated alike
-        nonlocal g, gc, ok, n_ok
+        nonlocal g, gc, ok, okf, n_ok
         ph = [np.exp(-2j * np.pi * (a[None] * pr * dd[:, 0, None, None] + b[None] * pc * dd[:, 1, None, None]))
               for a, b in freqs]
         g = _self_conjugate_real(np.array([e_big[k][hi] * ph[k] for k in range(nk)]), shape)  # (K, J, R, Cq)
@@ -415,23 +415,25 @@ def fit_continuation_windowed(images: np.ndarray, *, heights_m, pixel_m, height_
         inside = ((rr[None] >= lo[:, 0, None, None]) & (rr[None] < rows - up[:, 0, None, None])
                   & (cc[None] >= lo[:, 1, None, None]) & (cc[None] < cols - up[:, 1, None, None]))
         ok = ok_data & inside
+        okf = ok.astype(float)
         n_ok = np.maximum(ok.sum(axis=(1, 2)), 1)
 
     set_drift(d)
 
     def centred(m):
-        m = np.where(ok, m, 0.0)
-        return np.where(ok, m - (m.sum(axis=(1, 2)) / n_ok)[:, None, None], 0.0)
+        m = m * okf
+        return (m - (np.einsum("jab->j", m) / n_ok)[:, None, None]) * okf
 
     def forward(x):
         spec = np.einsum("kab,kjab->jab", sp_fft.rfft2(x, axes=(-2, -1)), g)
-        return centred(sp_fft.irfft2(spec, s=shape, axes=(-2, -1))[:, :rows, :cols])
+        # only the window's rows and columns are needed: inverse along rows, crop, then along columns
+        half = sp_fft.ifft(spec, axis=-2, overwrite_x=True)[:, :rows]
+        return centred(sp_fft.irfft(half, n=big_c, axis=-1)[:, :, :cols])
 
     def adjoint(r_w):
-        big = np.zeros((nj,) + shape)
-        big[:, :rows, :cols] = r_w
-        return sp_fft.irfft2(np.einsum("kjab,jab->kab", gc, sp_fft.rfft2(big, axes=(-2, -1))), s=shape,
-                             axes=(-2, -1))
+        # the image is zero outside the window: transform its rows zero-padded, then its columns
+        spec = sp_fft.fft(sp_fft.rfft(r_w, n=big_c, axis=-1), n=big_r, axis=-2, overwrite_x=True)
+        return sp_fft.irfft2(np.einsum("kjab,jab->kab", gc, spec), s=shape, axes=(-2, -1))
 
     sigma2 = np.ones(nh)
     x = np.zeros((nk,) + shape)
