@@ -13,7 +13,7 @@ def run(args) -> int:
     from drivers.server import serve
     from simulated_stage.faults import FaultPlan
 
-    options = {}
+    options = {"pace": args.pace}
     if args.scenario:
         options["scenario"] = args.scenario
     if args.seed is not None:

@@ -138,6 +138,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--bind", metavar="URL", help="zmq: tcp://127.0.0.1:PORT (default: a free loopback port)")
     p.add_argument("--scenario", metavar="FILE_OR_NAME", help="simulated-stage scenario")
     p.add_argument("--seed", type=int, default=None, help="random seed of the simulated stage")
+    p.add_argument("--pace", choices=("fast", "realtime"), default="fast", help="simulated stage pacing")
     p.add_argument("--server-key", metavar="FILE", help="server secret key file (CURVE)")
     p.add_argument("--allow", metavar="DIR", help="directory of allowed client public keys (CURVE)")
     p.add_argument("--watchdog", type=positive(), default=5.0, metavar="S",

@@ -15,6 +15,8 @@ import numpy as np
 import pytest
 
 SMALL = ["--lines", "12", "--pixels", "64", "--heights", "10,20,40,80", "--thermal-seconds", "0.5"]
+# a lighter run for the repeated kill test: one bias, three heights
+KILL = ["--lines", "12", "--pixels", "32", "--heights", "10,20,40", "--biases", "0", "--thermal-seconds", "0.5"]
 
 
 def mfma(*argv: str, cwd: Path, timeout: float = 240) -> subprocess.CompletedProcess:
@@ -81,8 +83,8 @@ def test_sigkill_at_random_moments_then_resume_keeps_every_line(tmp_path):
     for attempt in range(3):
         cwd = tmp_path / f"kill{attempt}"
         cwd.mkdir()
-        # realtime pace so the series takes a few seconds: 12 lines x 5 passes at 40 lines/s per pass
-        proc = _start(cwd, "run", *SMALL, "--seed", "3", "--pace", "realtime", "--line-rate", "40")
+        # realtime pace so the series takes a few seconds: 12 lines x 5 passes at 20 lines/s per pass
+        proc = _start(cwd, "run", *KILL, "--seed", "3", "--pace", "realtime", "--line-rate", "20")
         _wait_for_series(proc)
         time.sleep(float(rng.uniform(0.0, 1.2)))
         os.kill(proc.pid, signal.SIGKILL)
@@ -110,7 +112,7 @@ def test_sigkill_at_random_moments_then_resume_keeps_every_line(tmp_path):
 
 
 def test_ctrl_c_withdraws_and_exits_130(tmp_path):
-    proc = _start(tmp_path, "run", *SMALL, "--pace", "realtime", "--line-rate", "40")
+    proc = _start(tmp_path, "run", *KILL, "--pace", "realtime", "--line-rate", "20")
     _wait_for_series(proc)
     proc.send_signal(signal.SIGINT)
     _, err = proc.communicate(timeout=60)

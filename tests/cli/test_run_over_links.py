@@ -24,9 +24,9 @@ def mfma(*argv: str, cwd: Path, timeout: float = 240) -> subprocess.CompletedPro
                           timeout=timeout)
 
 
-def serve(transport: str, cwd: Path, seed: int = 7) -> tuple[subprocess.Popen, str]:
+def serve(transport: str, cwd: Path, seed: int = 7, pace: str = "fast") -> tuple[subprocess.Popen, str]:
     proc = subprocess.Popen([sys.executable, "-m", "assistant", "serve", "--transport", transport, "--seed", str(seed),
-                             "--watchdog", "30"], cwd=cwd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+                             "--watchdog", "30", "--pace", pace], cwd=cwd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     ready, _, _ = select.select([proc.stdout], [], [], 60)
     assert ready, "server did not announce itself"
     info = json.loads(proc.stdout.readline())
@@ -72,9 +72,12 @@ def test_same_series_over_the_link(tmp_path, in_process, transport):
 
 
 def test_killed_server_ends_the_run_and_resume_finishes(tmp_path):
-    server, url = serve("zmq", tmp_path)
-    client = subprocess.Popen([sys.executable, "-m", "assistant", "run", "--lines", "40", "--pixels", "64",
-                               "--heights", "10,20,40", "--thermal-seconds", "0.5", "--controller", url],
+    # realistic pace on the server's stage, so the series is still running when the server dies:
+    # 16 lines x 5 passes at 20 lines/s per pass take 4 s
+    server, url = serve("zmq", tmp_path, pace="realtime")
+    client = subprocess.Popen([sys.executable, "-m", "assistant", "run", "--lines", "16", "--pixels", "32",
+                               "--heights", "10,20,40", "--biases", "0", "--line-rate", "20",
+                               "--thermal-seconds", "0.5", "--controller", url],
                               cwd=tmp_path, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     for line in client.stderr:
         if line.startswith("series:"):
@@ -92,7 +95,7 @@ def test_killed_server_ends_the_run_and_resume_finishes(tmp_path):
     with h5py.File(session, "r") as f:
         done = int(f["series/series1"].attrs["completed_lines"])
         before = f["series/series1/phase_deg"][..., :done, :].copy()
-    assert 0 < done < 40
+    assert 0 < done < 16
     server2, url2 = serve("zmq", tmp_path)
     try:
         res = mfma("run", "--resume", str(session), "--controller", url2, cwd=tmp_path)
@@ -101,5 +104,5 @@ def test_killed_server_ends_the_run_and_resume_finishes(tmp_path):
     assert res.returncode == 0, res.stderr
     with h5py.File(session, "r") as f:
         s = f["series/series1"]
-        assert int(s.attrs["completed_lines"]) == 40 and bool(f.attrs["complete"])
+        assert int(s.attrs["completed_lines"]) == 16 and bool(f.attrs["complete"])
         assert s["phase_deg"][..., :done, :].tobytes() == before.tobytes()
