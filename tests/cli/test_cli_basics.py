@@ -99,3 +99,24 @@ def test_analyze_thermal_rejects_bad_records(tmp_path, record):
 
 def test_analyze_thermal_missing_file():
     assert_one_line_error(mfma("analyze", "thermal", "/nonexistent/x.npy", "--rate", "1e6"), 2, "not found")
+
+
+@pytest.mark.parametrize("scenario_text, needle", [
+    (None, "missing.toml"),
+    ("[probe\nbroken", "scenario"),
+    ("[probe]\nspring_constant_n_per_m = 2.8\nwarp_factor = 9\n", "warp_factor"),
+    ("[probe]\nquality_factor = -4\n", "quality_factor"),
+])
+def test_acquire_rejects_bad_scenarios(tmp_path, scenario_text, needle):
+    path = tmp_path / "missing.toml"
+    if scenario_text is not None:
+        path = tmp_path / "bad.toml"
+        path.write_text(scenario_text)
+    assert_one_line_error(mfma("acquire", "thermal", "--scenario", str(path), "--seconds", "0.1", "--rate", "1e6",
+                               "--out", str(tmp_path / "x.npy")), 2, needle)
+
+
+def test_acquire_rejects_a_rate_below_twice_the_resonance(tmp_path):
+    # the default lever resonates near 75 kHz: 100 kS/s puts the peak past Nyquist
+    assert_one_line_error(mfma("acquire", "thermal", "--seconds", "1", "--rate", "1e5",
+                               "--out", str(tmp_path / "x.npy")), 2, "nyquist")
