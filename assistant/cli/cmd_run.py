@@ -148,7 +148,8 @@ def _finish(args, session_path: Path, report, wf, analysis) -> int:
     summary = {
         "session_file": str(session_path), "report_dir": str(report.out_dir),
         "calibration": calib,
-        "series": {"heights_nm": [h * 1e9 for h in s.heights_m], "completed_lines": wf.series_result.completed_lines},
+        "series": {"heights_nm": [round(h * 1e9, 6) for h in s.heights_m],  # no 14.999999999999998
+                   "completed_lines": wf.series_result.completed_lines},
         "analysis": analysis.to_dict() if analysis is not None else None,
     }
     if args.json:
@@ -160,6 +161,9 @@ def _finish(args, session_path: Path, report, wf, analysis) -> int:
             f"report:       {report.out_dir}",
             f"k = {calib['k_n_per_m']:.4g} N/m, f0 = {calib['f0_hz']:.1f} Hz, Q = {calib['q']:.1f}",
             f"series: {len(s.heights_m)} heights x {wf.series_result.completed_lines} lines",
-            f"recommended lift height: {a.get('recommended_lift_nm')} nm; V_cpd: {a.get('cpd_v')} V",
+            "recommended lift height: " + (f"{a['recommended_lift_nm']:.4g} nm" if a.get("recommended_lift_nm")
+                                           else "none (see the report)"),
+            "V_cpd: " + (f"{a['cpd_v']:.3f} ± {a.get('cpd_std_v') or 0:.1g} V" if a.get("cpd_v") is not None
+                         else "not measured (needs a bias grid, --biases)"),
         ])
     return 0
