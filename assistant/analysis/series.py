@@ -145,7 +145,7 @@ class SeriesAnalysis:
             "drift_px": lst(drift),
             "cpd_v": self.cpd_v,
             "cpd_std_v": self.cpd_std_v,
-            "recommended_lift_nm": None if rec.lift_height_m is None else rec.lift_height_m * 1e9,
+            "recommended_lift_nm": None if rec.lift_height_m is None else round(rec.lift_height_m * 1e9, 9),
             "recommended_bias_v": rec.bias_v,
             "recommendation": rec.sentence,
             "separable": self.separable,
