@@ -7,7 +7,6 @@ stdout; progress goes to stderr. Handlers live in ``assistant.cli.cmd_*`` and ar
 
 from __future__ import annotations
 
-import argparse
 import importlib
 import sys
 
@@ -42,4 +41,4 @@ def main(argv: list[str] | None = None) -> int:
         return code
 
 
-__all__ = ["main", "__version__", "argparse"]
+__all__ = ["main", "__version__"]
