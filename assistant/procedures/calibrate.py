@@ -230,8 +230,9 @@ def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits
         check = None
         if user_invols:
             source_inv = "force curve (contact)" if contact is not None else "entered by the user"
-            thermal_k = th.calibrate_thermal(fit, temperature_k=settings.temperature_k, invols_m_per_v=user_invols,
-                                             invols_std_m_per_v=user_invols_std)
+            thermal_k = thermal_result = th.calibrate_thermal(fit, temperature_k=settings.temperature_k,
+                                                              invols_m_per_v=user_invols,
+                                                              invols_std_m_per_v=user_invols_std)
             invols, invols_std, invols_source = user_invols, user_invols_std, source_inv
             if sader is not None:
                 k, k_std, k_source = sader.k_n_per_m, sader.k_std_n_per_m, "Sader method"
@@ -251,8 +252,9 @@ def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits
                 k, k_std, k_source = thermal_k.k_n_per_m, thermal_k.k_std_n_per_m, "thermal (with that InvOLS)"
         elif sader is not None:
             k, k_std, k_source = sader.k_n_per_m, sader.k_std_n_per_m, "Sader method"
-            nc = th.calibrate_thermal(fit, temperature_k=settings.temperature_k, k_n_per_m=k, k_std_n_per_m=k_std)
-            invols, invols_std = nc.invols_m_per_v, nc.invols_std_m_per_v
+            thermal_result = th.calibrate_thermal(fit, temperature_k=settings.temperature_k, k_n_per_m=k,
+                                                  k_std_n_per_m=k_std)
+            invols, invols_std = thermal_result.invols_m_per_v, thermal_result.invols_std_m_per_v
             invols_source = "non-contact: thermal peak area with the Sader k (Higgins et al. 2006)"
             note("info", "non-contact path: k from Sader, InvOLS from the thermal spectrum — one k, no "
                          "independent second value")
@@ -264,9 +266,6 @@ def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits
         note("info", f"drive {drive.frequency_hz:.1f} Hz at {drive.amplitude_v * 1e3:.2f} mV for "
                      f"{drive.free_amplitude_m * 1e9:.1f} nm free amplitude; setpoint {drive.setpoint_v * 1e3:.1f} mV")
         controller.drive_off()
-    thermal_result = th.calibrate_thermal(fit, temperature_k=settings.temperature_k, k_n_per_m=k, k_std_n_per_m=k_std) \
-        if not user_invols else th.calibrate_thermal(fit, temperature_k=settings.temperature_k,
-                                                     invols_m_per_v=invols, invols_std_m_per_v=invols_std)
     return CalibrationResult(thermal=thermal_result, sweep=sweep_fit, sader=sader, k_n_per_m=k, k_std_n_per_m=k_std,
                              k_source=k_source, invols_m_per_v=invols, invols_std_m_per_v=invols_std,
                              invols_source=invols_source, drive=drive, thermal_k_check=check, contact=contact,

@@ -8,8 +8,8 @@ session file before returning.
 
 from __future__ import annotations
 
+import dataclasses
 import json
-import math
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
@@ -78,11 +78,11 @@ class Workflow:
         self.spring_constant_n_per_m = result.k_n_per_m
         self.quality_factor = result.thermal.q
         self.temperature_k = result.thermal.temperature_k
-        summary = result.summary()
         fit = result.thermal.fit
         arrays = {"fit_frequency_hz": fit.frequencies_hz, "fit_psd_v2_per_hz": fit.psd_v2_per_hz,
                   "fit_model_v2_per_hz": fit.model(fit.frequencies_hz)}
-        scalars = calibration_scalars(result, settings.probe_name)
+        record = calibration_scalars(result, settings.probe_name)
+        scalars = dict(record)
         if fit.spectrum is not None:  # the whole averaged spectrum, so it can be refitted offline
             arrays["spectrum_frequency_hz"] = fit.spectrum.frequencies_hz
             arrays["spectrum_psd_v2_per_hz"] = fit.spectrum.psd_v2_per_hz
@@ -96,7 +96,7 @@ class Workflow:
                                          {"frequency_hz": sd.frequency_hz, "amplitude_v": sd.amplitude_v,
                                           "phase_deg": sd.phase_deg})
         if probe_record is not None and settings.probe_name:
-            self.probe_warnings = probe_record.add(settings.probe_name, calibration_scalars(result, settings.probe_name))
+            self.probe_warnings = probe_record.add(settings.probe_name, record)
             for w in self.probe_warnings:
                 self.sink(Notice("warning", f"probe record: {w}"))
         return result
@@ -128,7 +128,7 @@ class Workflow:
         if self.approach_result is None or not self.approach_result.engaged:
             raise WorkflowError("approach first: the series needs an engaged tip")
         if self.drive is not None and settings.phase_reference_deg == 0.0:
-            settings = _with(settings, phase_reference_deg=self.drive.phase_reference_deg)
+            settings = dataclasses.replace(settings, phase_reference_deg=self.drive.phase_reference_deg)
         settings.validate(self.limits, z_range_m=self.controller.limits.z_range_m,
                           scan_size_max_m=self.controller.limits.scan_size_max_m)
         self.series_settings = settings
@@ -178,15 +178,5 @@ def calibration_scalars(result: CalibrationResult, probe_name: str | None, *, no
     return d
 
 
-def _with(settings: SeriesSettings, **changes) -> SeriesSettings:
-    import dataclasses
-
-    return dataclasses.replace(settings, **changes)
-
-
 def drive_from_json(d: dict) -> DriveSettings:
     return DriveSettings(**{k: float(v) for k, v in d.items()})
-
-
-def finite(x) -> bool:
-    return x is not None and math.isfinite(x)
