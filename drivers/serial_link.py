@@ -22,7 +22,7 @@ from urllib.parse import parse_qs, urlsplit, urlunsplit
 
 import numpy as np
 
-from drivers.base import Controller, ControllerInfo, LineData, LineSpec, Limits, Status, SweepData
+from drivers.base import Controller, LineData, LineSpec, Limits, Status, SweepData
 from drivers.errors import BadURL, LinkLost, LinkTimeout, ProtocolError
 from drivers.wire.commands import MAX_SWEEP_POINTS, Command, command, exception_for, line_args
 from drivers.wire.scpi import (

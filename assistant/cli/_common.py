@@ -158,7 +158,7 @@ class StderrProgress:
             text = f"{event.what}: {event.done:g}{total} {event.unit} ({event.elapsed_s:.1f} s{rem})"
             if self._tty:
                 sys.stderr.write("\r\033[K" + text + ("\n" if final else ""))
-            elif final or now - self._last >= 0:
+            else:
                 sys.stderr.write(text + "\n")
             sys.stderr.flush()
 

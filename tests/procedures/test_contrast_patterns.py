@@ -5,7 +5,6 @@ bits show contrast over the bits themselves, and an attractive interaction reads
 from __future__ import annotations
 
 import numpy as np
-import pytest
 
 from assistant.procedures.approach import ApproachSettings, approach
 from drivers.base import LineSpec, SecondPass

@@ -1,7 +1,6 @@
 """Scenario files: validation names the key and range; built-ins resolve by name; faults kept raw."""
 
 import math
-import warnings
 
 import pytest
 
