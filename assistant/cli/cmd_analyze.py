@@ -19,6 +19,17 @@ def _is_hdf5(p: Path) -> bool:
         return fh.read(8) == b"\x89HDF\r\n\x1a\n"
 
 
+def _read_csv(p: Path):
+    """A CSV with a header row, as a structured array and its column names."""
+    import numpy as np
+
+    try:
+        table = np.genfromtxt(p, delimiter=",", names=True)
+    except ValueError as exc:
+        raise UsageError(f"{p}: not a readable CSV ({exc})") from None
+    return table, table.dtype.names or ()
+
+
 # ---- thermal ------------------------------------------------------------------------------------------------
 def _load_record(p: Path, rate_hz: float | None):
     """A deflection record in volts and its rate from .npy or .csv (volts, or time_s,volts)."""
@@ -32,11 +43,7 @@ def _load_record(p: Path, rate_hz: float | None):
             raise UsageError(f"{p}: a .npy record needs --rate HZ")
         return x, rate_hz
     if p.suffix.lower() == ".csv":
-        try:
-            table = np.genfromtxt(p, delimiter=",", names=True)
-        except ValueError as exc:
-            raise UsageError(f"{p}: not a readable CSV ({exc})") from None
-        names = table.dtype.names or ()
+        table, names = _read_csv(p)
         if "volts" not in names:
             raise UsageError(f"{p}: CSV needs a 'volts' column (and optionally 'time_s'), found {list(names)}")
         v = np.atleast_1d(table["volts"]).astype(float)
@@ -123,12 +130,8 @@ def sader(args) -> int:
 def _load_sweep(p: Path):
     import numpy as np
 
-    try:
-        table = np.genfromtxt(p, delimiter=",", names=True)
-    except ValueError as exc:
-        raise UsageError(f"{p}: not a readable CSV ({exc})") from None
+    table, names = _read_csv(p)
     need = ("frequency_hz", "amplitude_v", "phase_deg")
-    names = table.dtype.names or ()
     missing = [n for n in need if n not in names]
     if missing:
         raise UsageError(f"{p}: CSV lacks the column(s) {', '.join(missing)} (header must be "
