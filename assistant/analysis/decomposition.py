@@ -27,6 +27,7 @@ from scipy import optimize
 
 __all__ = [
     "pixel_pair_m",
+    "dct_frequencies",
     "ContinuationFit",
     "fit_continuation",
     "fit_continuation_windowed",
@@ -61,6 +62,16 @@ def _wavenumbers(shape: tuple[int, int], pixel_m):
     return 2.0 * np.pi * f, f, np.broadcast_to(cw, f.shape)
 
 
+def dct_frequencies(shape: tuple[int, int], pixel_m) -> tuple[np.ndarray, np.ndarray]:
+    """Row and column frequencies [cycles/m] of the cells of a type-II DCT, shapes (rows, 1) and (1, cols).
+
+    Cell k of an axis of N samples spaced p holds ``cos(pi k (i + 1/2) / N)``, frequency ``k / (2 N p)``.
+    """
+    rows, cols = shape
+    pr, pc = pixel_pair_m(pixel_m)
+    return (np.arange(rows) / (2.0 * rows * pr))[:, None], (np.arange(cols) / (2.0 * cols * pc))[None, :]
+
+
 @dataclass(frozen=True)
 class ContinuationFit:
     """Result of :func:`fit_continuation` (signal units s of the caller; N = rows * cols).
@@ -82,7 +93,7 @@ class ContinuationFit:
     expected_residual_rms : ndarray (H,)
         Rms the residual would have if it were pure noise of ``noise_std`` [s].
     inverse_weight_sum : ndarray (rows, cols//2+1)
-        ``1 / sum_h w_h e_h^2``: Var(A(q)) = N * this.
+        ``1 / sum_h w_h e_h^2``: Var(A(q)) = N * this (``grid="dct"``: Var(A(q)) itself, cells (rows, cols)).
     decay : ndarray (H, rows, cols//2+1)
         ``exp(-|q| (h - h_0))``.
     noise_power : ndarray (H,)
@@ -109,6 +120,9 @@ class ContinuationFit:
     window_mean: np.ndarray | None = None   # (H,) window mean of ``model`` (windowed fit only) [s]
     iterations: int = 0                     # conjugate-gradient iterations (windowed fit only)
     drift_px: np.ndarray | None = None      # (J, 2) drift refined with the field (windowed fit only) [px]
+    grid: str = "rfft"                      # cells of amplitude/decay: "rfft" half plane or "dct" (orthonormal)
+    unit_residual_rms: np.ndarray | None = None  # (H,) residual rms that white noise of unit variance at
+    #                                              every height would leave with the fit's weights (dct fit)
 
 
 def fit_continuation(stack: np.ndarray, *, heights_m, pixel_m, valid: np.ndarray | None = None,
@@ -596,12 +610,17 @@ def resolution_period_m(fit: ContinuationFit, *, snr: float = 1.0, significance:
     nh = fit.model.shape[0]
     rows, cols = fit.model.shape[-2:]
     n = rows * cols
-    _, fmag, cw = _wavenumbers((rows, cols), fit.pixel_m)
+    if fit.grid == "dct":  # orthonormal cells: white noise of variance s^2 has s^2 in every cell
+        fr, fc = dct_frequencies((rows, cols), fit.pixel_m)
+        fmag, cw, nu = np.hypot(fr, fc), np.ones((rows, cols)), 1.0
+    else:
+        _, fmag, cw = _wavenumbers((rows, cols), fit.pixel_m)
+        nu = float(n)
     df = 1.0 / max(rows * fit.pixel_m[0], cols * fit.pixel_m[1])
     b = np.rint(fmag / df).astype(int).ravel()
     nb = b.max() + 1
     pred = fit.amplitude[None] * fit.decay
-    v = n * fit.decay**2 * fit.inverse_weight_sum[None]
+    v = nu * fit.decay**2 * fit.inverse_weight_sum[None]
     p2 = np.abs(pred) ** 2
     mu2 = np.clip(p2 - v, 0.0, None)
     out = np.full(nh, np.inf)
@@ -609,7 +628,7 @@ def resolution_period_m(fit: ContinuationFit, *, snr: float = 1.0, significance:
     for i in range(nh):  # over heights; bins are vectorised
         sig = np.bincount(b, weights=cwf * (p2[i] - v[i]).ravel(), minlength=nb)
         var = np.bincount(b, weights=2.0 * cwf * (2.0 * mu2[i] * v[i] + v[i] ** 2).ravel(), minlength=nb)
-        noise = np.bincount(b, weights=cwf * n * sig_n[i] ** 2, minlength=nb)
+        noise = np.bincount(b, weights=cwf * nu * sig_n[i] ** 2, minlength=nb)
         ok = (sig >= snr * noise) & (sig > significance * np.sqrt(var))
         ok[0] = False
         idx = np.nonzero(ok)[0]
