@@ -6,13 +6,22 @@ during a second pass the oscillation centre sits ``gap_offset_m + lift height`` 
 height). With k and Q the phase is turned into the force gradient per pixel (exact), otherwise the analysis
 works on the phase itself (small-angle approximation); reported parts are the phase each alone would give.
 
-Edges: a real scan is a window onto an unbounded field, not a period of it. By default (``edge="window"``)
-the continuation is fitted with the field outside the window as missing data
-(:func:`~assistant.analysis.decomposition.fit_continuation_windowed`); drift enters the model, so the
-images are never interpolated. ``edge="periodic"`` keeps the plain per-frequency fit, exact only for scans
-periodic in the window (a non-periodic synthetic crop: magnetic rms +9 % at the lowest height and a
-residual ten times the noise). The magnetic image is reported about its window mean: the magnetic mean over
-the window cannot be told apart from the image-mean parts and stays with them.
+Edges: a real scan is a window onto an unbounded field, not a period of it. Three estimators:
+
+* ``edge="reflect"`` (default): the per-frequency fit in the cosine basis of the scan reflected at its edges
+  (:func:`~assistant.analysis.continuation_reflect.fit_continuation_reflect`), on images aligned by a
+  band-limited shift of their reflected extension, the drift refined jointly with the fit
+  (:mod:`~assistant.analysis.align_reflect`). As fast as the periodic fit; the reflection misfits within a
+  few continuation lengths of the edges, so the noise, the residual and the magnetic rms are taken over the
+  interior, away from an edge band of ``edge_band_px`` pixels.
+* ``edge="window"``: the field outside the window is fitted as missing data
+  (:func:`~assistant.analysis.decomposition.fit_continuation_windowed`); drift enters the model, so the
+  images are never interpolated. Right up to the edges, but one to two hundred times slower.
+* ``edge="periodic"``: the plain FFT fit, exact only for scans periodic in the window (a non-periodic
+  synthetic crop: magnetic rms +9 % at the lowest height and a residual ten times the noise).
+
+The magnetic image is reported about its mean: the magnetic mean over the window cannot be told apart from
+the image-mean parts and stays with them.
 """
 
 from __future__ import annotations
@@ -24,7 +33,8 @@ import numpy as np
 
 from . import decomposition as dec
 from . import lift_models as lm
-from .noise_floor import NoiseVerdict, noise_verdict, white_noise_std
+from .align_reflect import average_biases, fit_with_drift_reflect
+from .noise_floor import NoiseVerdict, noise_verdict, periodic_component_of, white_noise_std
 from .recommend import Recommendation, recommend_lift
 from .registration import align_stack, shift_from_spectra
 from .tip_change import TipChange, detect_tip_change
@@ -76,7 +86,8 @@ class SeriesAnalysis:
     independent estimate for one image (repeat pass, else the highest frequencies of the top height).
     ``residual_at_noise`` compares the residual rms away from an edge band of ``edge_band_px`` pixels
     (``residual_rms_interior_deg``) with what that reference noise alone would leave
-    (``expected_residual_rms_deg``), within ``residual_tolerance``. ``drift_px`` is (H, 2) or
+    (``expected_residual_rms_deg``), within ``residual_tolerance``. With ``edge="reflect"`` the magnetic
+    rms is taken over that interior too. ``drift_px`` is (H, 2) or
     (H, B, 2), ``[drow, dcol]`` displacement of the content relative to the first image.
     """
 
@@ -96,6 +107,7 @@ class SeriesAnalysis:
     expected_residual_rms_deg: np.ndarray   # what pure noise (reference noise) would leave
     residual_rms_interior_deg: np.ndarray   # away from the edge band
     edge_band_px: int
+    edge: str                               # estimator: "reflect", "window" or "periodic"
     noise_deg: np.ndarray               # per-height noise of the fitted (bias-averaged) images
     reference_noise_deg: float          # independent noise estimate of one image
     residual_at_noise: np.ndarray
@@ -154,6 +166,7 @@ class SeriesAnalysis:
             "expected_residual_rms_deg": lst(self.expected_residual_rms_deg),
             "residual_rms_interior_deg": lst(self.residual_rms_interior_deg),
             "edge_band_px": int(self.edge_band_px),
+            "edge": self.edge,
             "residual_at_noise": [bool(x) for x in self.residual_at_noise],
             "noise_deg": lst(self.noise_deg),
             "phase_noise_deg": self.noise.measured_phase_noise_deg,
@@ -201,15 +214,6 @@ def _validate(phase_deg, heights_m, bias_v):
     return stack, h, volts
 
 
-def _per_height(a, v, nh, nb):
-    """Average the aligned images over biases at each height, ignoring missing pixels."""
-    rows, cols = a.shape[-2:]
-    w = v.reshape(nh, nb, rows, cols)
-    num = np.where(w, a.reshape(nh, nb, rows, cols), 0.0).sum(axis=1)
-    cnt = w.sum(axis=1)
-    return np.where(cnt > 0, num / np.maximum(cnt, 1), np.nan), cnt > 0
-
-
 def analyse_series(phase_deg, *, heights_m, pixel_m, bias_v=None, repeat_phase_deg=None,
                    spring_constant_n_per_m: float | None = None, quality_factor: float | None = None,
                    resonance_hz: float | None = None, tip_radius_m: float = 30e-9,
@@ -217,7 +221,7 @@ def analyse_series(phase_deg, *, heights_m, pixel_m, bias_v=None, repeat_phase_d
                    amplitude_m: float = 10e-9, gap_offset_m: float | None = None, bandwidth_hz: float | None = None,
                    temperature_k: float = 298.15, short_range_fraction: float = 0.1, max_nan_fraction: float = 0.05,
                    residual_tolerance: float = 1.25, register: bool = True, n_refine: int = 2,
-                   edge: str = "window", max_phase_deg: float = 45.0) -> SeriesAnalysis:
+                   edge: str = "reflect", max_phase_deg: float = 45.0) -> SeriesAnalysis:
     """Decompose a lift-height series into magnetic, electrostatic and short-range parts.
 
     Parameters
@@ -258,13 +262,15 @@ def analyse_series(phase_deg, *, heights_m, pixel_m, bias_v=None, repeat_phase_d
         Pixels whose phase shift exceeds this magnitude are left out of the fit: there the tip touches the
         surface or feels a gradient far beyond the small-perturbation picture of a second pass (the
         inversion ``-arctan`` diverges at 90 deg). Rule of thumb, no source.
-    edge : {"window", "periodic"}
-        "window": the scan is a window onto a larger field (the field outside is fitted as missing data;
-        residual judged on every pixel). "periodic": the scan is one period of the field (plain FFT fit;
-        residual judged away from an edge band, where the seam of a non-periodic scan misfits).
+    edge : {"reflect", "window", "periodic"}
+        "reflect": the scan reflected at its edges (cosine-basis fit; noise, residual and magnetic rms
+        judged away from an edge band). "window": the scan is a window onto a larger field (the field
+        outside is fitted as missing data; everything judged on every pixel; slow). "periodic": the scan is
+        one period of the field (plain FFT fit; residual judged away from an edge band, where the seam of a
+        non-periodic scan misfits).
     """
-    if edge not in ("window", "periodic"):
-        raise SeriesInputError(f"edge must be 'window' or 'periodic', got {edge!r}")
+    if edge not in ("reflect", "window", "periodic"):
+        raise SeriesInputError(f"edge must be 'reflect', 'window' or 'periodic', got {edge!r}")
     stack, h, volts = _validate(phase_deg, heights_m, bias_v)
     try:
         pixel_m = dec.pixel_pair_m(pixel_m)
@@ -309,24 +315,35 @@ def analyse_series(phase_deg, *, heights_m, pixel_m, bias_v=None, repeat_phase_d
     okf = ok.reshape(nh * nb, rows, cols)
     drift = np.zeros((nh * nb, 2))
     shape = (rows, cols)
+    # the first estimate correlates periodic spectra: on a non-periodic scan the seam where opposite edges
+    # meet stays put while the content drifts, so the seam is taken out first (periodic-plus-smooth
+    # decomposition)
+    reg = flat if edge == "periodic" else np.array([periodic_component_of(img) for img in flat])
     if register:
-        spectra = np.fft.rfft2(flat, axes=(-2, -1))
+        spectra = np.fft.rfft2(reg, axes=(-2, -1))
         for i in range(1, nh * nb):  # loop over images, vectorised inside
             drift[i] = shift_from_spectra(spectra[0], spectra[i], shape)
-    for round_ in range(n_refine + 1 if register else 1):
-        aligned = align_stack(flat, drift)
-        valid = align_stack(okf.astype(float), np.rint(drift)) > 0.5
-        hstack, hvalid = _per_height(aligned, valid, nh, nb)
-        # drift rounds with the periodic model (cheap; its leave-one-out template is closed form)
-        fit = dec.fit_continuation(hstack, heights_m=h, pixel_m=pixel_m, valid=hvalid)
-        if not register or round_ == n_refine:
-            break
-        # template for each image: the continuation predicted from the *other* heights (nearly noise-free)
-        pred_f = np.fft.rfft2(dec.leave_one_out_prediction(hstack, fit), axes=(-2, -1))
-        moving_f = np.fft.rfft2(np.where(valid, aligned, 0.0), axes=(-2, -1))
-        for i in range(1, nh * nb):
-            drift[i] = drift[i] + shift_from_spectra(pred_f[i // nb], moving_f[i], shape)
-
+    # edge band: the seam of a periodic fit and the reflection misfit fell to the interior level within
+    # about (h_max - h_0) / pixel + 4 px on simulated and synthetic scans
+    band = int(min(np.ceil((h[-1] - h[0]) / min(pixel_m)) + 4, min(rows, cols) // 4)) if edge != "window" else 0
+    if edge == "reflect":
+        # spline realignment (nothing wraps round) alternating with the fit and Gauss-Newton drift steps
+        fit, drift, aligned, valid = fit_with_drift_reflect(flat, okf, drift, heights_m=h, pixel_m=pixel_m, nb=nb,
+                                                            interior_px=band, refine=register)
+    else:
+        for round_ in range(n_refine + 1 if register else 1):
+            aligned = align_stack(reg, drift)
+            valid = align_stack(okf.astype(float), np.rint(drift)) > 0.5
+            hstack, hvalid = average_biases(aligned, valid, nh, nb)
+            # drift rounds with the periodic model (cheap; its leave-one-out template is closed form)
+            fit = dec.fit_continuation(hstack, heights_m=h, pixel_m=pixel_m, valid=hvalid)
+            if not register or round_ == n_refine:
+                break
+            # template for each image: the continuation predicted from the *other* heights (nearly noise-free)
+            pred_f = np.fft.rfft2(dec.leave_one_out_prediction(hstack, fit), axes=(-2, -1))
+            moving_f = np.fft.rfft2(np.where(valid, aligned, 0.0), axes=(-2, -1))
+            for i in range(1, nh * nb):
+                drift[i] = drift[i] + shift_from_spectra(pred_f[i // nb], moving_f[i], shape)
     if edge == "window":
         # final fit on the raw images: drift in the model, the seam and wrapped borders never fitted
         fit = dec.fit_continuation_windowed(centred.reshape(nh * nb, rows, cols), heights_m=h, pixel_m=pixel_m,
@@ -341,7 +358,7 @@ def analyse_series(phase_deg, *, heights_m, pixel_m, bias_v=None, repeat_phase_d
     # independent noise estimates of one image (signal units). The top height, last bias, has the least
     # magnetic high-q content (window mode: its raw image, which a Fourier shift of a non-periodic scan
     # would ring)
-    top = np.where(okf[-1], flat[-1], 0.0) if edge == "window" else np.where(valid[-1], aligned[-1], 0.0)
+    top = np.where(okf[-1], flat[-1], 0.0) if edge != "periodic" else np.where(valid[-1], aligned[-1], 0.0)
     top_noise = white_noise_std(top)
     tip = None
     ref_noise = top_noise
@@ -357,13 +374,14 @@ def analyse_series(phase_deg, *, heights_m, pixel_m, bias_v=None, repeat_phase_d
             ref_noise = detect_tip_change(first, rep).noise_deg / lin
     ref_noise_deg = ref_noise * lin
     fitted_ref = ref_noise / np.sqrt(nb)  # noise of a bias-averaged image
-    # Residual against noise in the interior: the FFT model treats the scan as periodic, and the seam of a
-    # real, non-periodic scan leaves a misfit along the edges that says nothing about the continuation
-    # (seen on simulated scans: it fell to the interior level within about (h_max - h_0) / pixel + 4 px).
-    band = int(min(np.ceil((h[-1] - h[0]) / min(pixel_m)) + 4, min(rows, cols) // 4)) if edge == "periodic" else 0
+    # Residual against noise in the interior: the periodic seam and the reflection leave a misfit along the
+    # edges that says nothing about the continuation
     inner = fit.residual[:, band:rows - band, band:cols - band]
     interior_rms = np.sqrt(np.nanmean(inner**2, axis=(1, 2)))
-    pure_noise = fitted_ref * fit.expected_residual_rms / np.maximum(fit.noise_std, 1e-300)
+    if fit.unit_residual_rms is not None:  # equal weights: the reference noise at every height
+        pure_noise = fitted_ref * fit.unit_residual_rms
+    else:  # weights 1 / sigma_h^2: the leverage factor of each height
+        pure_noise = fitted_ref * fit.expected_residual_rms / np.maximum(fit.noise_std, 1e-300)
     residual_ok = interior_rms <= residual_tolerance * pure_noise
 
     # image mean: electrostatic + short range
@@ -391,9 +409,16 @@ def analyse_series(phase_deg, *, heights_m, pixel_m, bias_v=None, repeat_phase_d
 
     # magnetic outputs in degrees: rms of the arctan-mapped denoised map, debiased by the fit noise
     mag_deg = to_deg(fit.model)
-    ms = np.mean(mag_deg**2, axis=(-2, -1)) - fit.noise_power * lin**2
-    mag_rms = np.sqrt(np.clip(ms, 0.0, None))
     mag_rms_sd = fit.magnetic_rms_std * lin
+    if edge == "reflect":
+        # over the interior, about its mean; the standard error grows as fewer pixels enter (white-noise
+        # scaling of the whole-scan one, an approximation)
+        core = mag_deg[:, band:rows - band, band:cols - band]
+        ms = np.var(core, axis=(-2, -1)) - fit.noise_power * lin**2
+        mag_rms_sd = mag_rms_sd * np.sqrt(rows * cols / core[0].size)
+    else:
+        ms = np.mean(mag_deg**2, axis=(-2, -1)) - fit.noise_power * lin**2
+    mag_rms = np.sqrt(np.clip(ms, 0.0, None))
     # resolution as one image at that height would show it (a bias grid averages nb images per height)
     resolution = dec.resolution_period_m(fit, noise_std=fit.noise_std * np.sqrt(nb))
     rec = recommend_lift(heights_m=h, magnetic_rms=mag_rms, magnetic_rms_std=mag_rms_sd, short_range=sr_deg,
@@ -413,7 +438,7 @@ def analyse_series(phase_deg, *, heights_m, pixel_m, bias_v=None, repeat_phase_d
         mean_phase_deg=to_deg(means if grid else means[:, 0]),
         mean_phase_std_deg=(slope(means) * mean_sd) if grid else (slope(means) * mean_sd)[:, 0],
         residual_rms_deg=fit.residual_rms * lin, expected_residual_rms_deg=pure_noise * lin,
-        residual_rms_interior_deg=interior_rms * lin, edge_band_px=band,
+        residual_rms_interior_deg=interior_rms * lin, edge_band_px=band, edge=edge,
         noise_deg=fit.noise_std * lin, reference_noise_deg=float(ref_noise_deg), residual_at_noise=residual_ok,
         drift_px=drift.reshape(nh, nb, 2) if grid else drift.reshape(nh, 2), cpd_v=mf.cpd_v, cpd_std_v=mf.cpd_std_v,
         separable=mf.separable, separability_sentence=mf.sentence, resolution_period_m=resolution,
