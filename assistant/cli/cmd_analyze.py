@@ -164,9 +164,9 @@ def series(args) -> int:
 
     p = _existing(args.file)
     if _is_hdf5(p):
-        result = analyse_session_file(p, args.series, short_range_fraction=args.short_range_fraction)
+        result = analyse_session_file(p, args.series, short_range_fraction=args.short_range_fraction, edge=args.edge)
     elif p.suffix.lower() == ".npz":
-        result = analyse_npz(p, short_range_fraction=args.short_range_fraction)
+        result = analyse_npz(p, short_range_fraction=args.short_range_fraction, edge=args.edge)
     else:
         raise UsageError(f"{p}: expected a .npz stack or a session .h5 file")
     if args.plots:
@@ -188,6 +188,8 @@ def _series_text(d: dict) -> list[str]:
     for i, h in enumerate(d["heights_nm"]):
         e = es[i] if not isinstance(es[i], list) else es[i][0]
         lines.append(f"{h:9.1f}  {d['magnetic_rms_deg'][i]:16.4f}  {e:22.4f}  {d['short_range_mean_deg'][i]:20.4f}")
+    if d.get("edge") == "reflect" and d.get("edge_band_px"):
+        lines.append(f"magnetic rms over the interior: an edge band of {d['edge_band_px']} px left out")
     lines.append(f"residual rms: {d['residual_rms_deg']} deg")
     lines.append(f"recommended lift height: {d['recommended_lift_nm']} nm")
     if d.get("cpd_v") is not None:

@@ -33,8 +33,8 @@ def _probe_inputs(settings: dict) -> dict:
 
 
 def analyse_arrays(phase_deg: np.ndarray, *, heights_m, pixel_m: float | tuple[float, float], bias_v=None,
-                   repeat_phase_deg=None, line_rate_hz: float | None = None, pixels: int | None = None, short_range_fraction: float = 0.1,
-                   **probe):
+                   repeat_phase_deg=None, line_rate_hz: float | None = None, pixels: int | None = None,
+                   short_range_fraction: float = 0.1, edge: str = "reflect", **probe):
     from assistant.analysis.series import analyse_series
 
     bandwidth = None
@@ -46,11 +46,11 @@ def analyse_arrays(phase_deg: np.ndarray, *, heights_m, pixel_m: float | tuple[f
                           pixel_m=pixel_m,  # a (row, column) pair: lines and pixels may differ
                           bias_v=None if bias_v is None else np.asarray(bias_v, dtype=float),
                           repeat_phase_deg=repeat_phase_deg, bandwidth_hz=bandwidth,
-                          short_range_fraction=short_range_fraction, **kwargs)
+                          short_range_fraction=short_range_fraction, edge=edge, **kwargs)
 
 
 def analyse_session_series(session, name: str | None, *, sink: Sink = null_sink, short_range_fraction: float = 0.1,
-                           write: bool = True):
+                           write: bool = True, edge: str = "reflect"):
     """Analyse series ``name`` (default: the last) of an open session file and store the result in it."""
     names = session.series_names()
     if not names:
@@ -66,7 +66,7 @@ def analyse_session_series(session, name: str | None, *, sink: Sink = null_sink,
                             pixel_m=(data.scan_size_m / data.lines, data.scan_size_m / data.pixels),
                             bias_v=data.biases_v, repeat_phase_deg=data.repeat_phase_deg,
                             line_rate_hz=data.line_rate_hz, pixels=data.pixels,
-                            short_range_fraction=short_range_fraction, **_probe_inputs(settings))
+                            short_range_fraction=short_range_fraction, edge=edge, **_probe_inputs(settings))
     if write:
         scalars, arrays = storage_form(result.to_dict())
         session.write_analysis(name, scalars, arrays)
@@ -97,11 +97,11 @@ def _is_text(value) -> bool:
     return any(isinstance(v, str) or v is None for v in flat)
 
 
-def analyse_session_file(path: Path, name: str | None, *, short_range_fraction: float = 0.1):
+def analyse_session_file(path: Path, name: str | None, *, short_range_fraction: float = 0.1, edge: str = "reflect"):
     from assistant.storage.session_file import SessionFile
 
     with SessionFile.open(path, "r") as sf:
-        return analyse_session_series(sf, name, short_range_fraction=short_range_fraction, write=False)
+        return analyse_session_series(sf, name, short_range_fraction=short_range_fraction, write=False, edge=edge)
 
 
 NPZ_REQUIRED = ("phase_deg", "heights_nm", "pixel_nm")
@@ -118,7 +118,7 @@ def _pixel_m(value, path: Path) -> float | tuple[float, float]:
     return float(v[0]) * 1e-9 if v.size == 1 else (float(v[0]) * 1e-9, float(v[1]) * 1e-9)
 
 
-def analyse_npz(path: Path, *, short_range_fraction: float = 0.1):
+def analyse_npz(path: Path, *, short_range_fraction: float = 0.1, edge: str = "reflect"):
     """Analyse a stack stored as .npz (keys: see :data:`NPZ_REQUIRED` and :data:`NPZ_OPTIONAL`)."""
     try:
         z = np.load(path, allow_pickle=False)
@@ -152,4 +152,4 @@ def analyse_npz(path: Path, *, short_range_fraction: float = 0.1):
                           pixel_m=_pixel_m(get["pixel_nm"], path),
                           bias_v=np.asarray(get["bias_v"], dtype=float) if "bias_v" in get else None,
                           repeat_phase_deg=get.get("repeat_phase_deg"),
-                          short_range_fraction=short_range_fraction, **kwargs)
+                          short_range_fraction=short_range_fraction, edge=edge, **kwargs)

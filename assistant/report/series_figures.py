@@ -20,6 +20,7 @@ import numpy as np
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.colors import ListedColormap, Normalize
 from matplotlib.figure import Figure
+from matplotlib.patches import Rectangle
 
 from assistant.analysis.series import SeriesAnalysis
 from assistant.report.images import phase_colormap, save_png
@@ -83,7 +84,7 @@ def magnetic_figure(a: SeriesAnalysis) -> Figure:
     ax, ax2 = fig.subplots(2, 1, sharex=True)
     h = a.heights_nm
     ax.errorbar(h, a.magnetic_rms_deg, yerr=a.magnetic_rms_std_deg, fmt="o-", color="k", ms=4, capsize=2,
-                label="magnetic rms (joint fit)")
+                label="magnetic rms (joint fit" + (", interior)" if a.edge == "reflect" else ")"))
     ax.plot(h, a.noise_deg, "s:", color="tab:gray", ms=3, label="noise per pixel")
     ax.plot(h, a.residual_rms_deg, "^:", color="tab:orange", ms=3, label="continuation residual rms")
     bad = ~np.asarray(a.residual_at_noise, bool)
@@ -120,7 +121,8 @@ def _limit(img) -> float:
 
 
 def maps_figure(a: SeriesAnalysis) -> Figure:
-    """Magnetic maps (deg) at three heights, the residual at the lowest height and the change map if any."""
+    """Magnetic maps (deg) at three heights, the residual at the lowest height and the change map if any; a
+    dashed frame marks the interior that the residual (and, reflected-edge fit, the magnetic rms) is judged on."""
     n = len(a.heights_m)
     picks = sorted({0, n // 2, n - 1})
     panels = [(a.magnetic_deg[i], f"magnetic, lift {a.heights_nm[i]:.4g} nm", "magnetic phase (deg)")
@@ -136,9 +138,14 @@ def maps_figure(a: SeriesAnalysis) -> Figure:
     size_um = (r * a.pixel_m[0] * 1e6, c * a.pixel_m[1] * 1e6)
     cmap = phase_colormap()
     mag_limit = max(_limit(p[0]) for p in panels[:len(picks)])
+    b = a.edge_band_px
     for k, (img, title, label) in enumerate(panels):
         lim = mag_limit if k < len(picks) else _limit(img)
         _map_panel(fig, axes[k], img, size_um=size_um, title=title, cmap=cmap, limit=lim, label=label)
+        if b and k <= len(picks):  # the interior over which the magnetic rms and the residual are judged
+            y0, x0 = b * a.pixel_m[0] * 1e6, b * a.pixel_m[1] * 1e6
+            axes[k].add_patch(Rectangle((x0, y0), size_um[1] - 2 * x0, size_um[0] - 2 * y0, fill=False,
+                                        edgecolor="0.35", linestyle="--", linewidth=0.8))
     used = len(panels)
     if a.tip_change is not None:
         ax = axes[used]
