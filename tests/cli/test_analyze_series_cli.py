@@ -30,8 +30,8 @@ def save(path: Path, s, **override) -> Path:
     return path
 
 
-def analyze(path: Path) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-m", "assistant", "analyze", "series", str(path), "--json"],
+def analyze(path: Path, *extra: str) -> subprocess.CompletedProcess:
+    return subprocess.run([sys.executable, "-m", "assistant", "analyze", "series", str(path), "--json", *extra],
                           capture_output=True, text=True, timeout=240)
 
 
@@ -59,6 +59,21 @@ def test_json_contract_and_recovered_parts(tmp_path, bias_series):
     assert abs(d["cpd_v"] - s.cpd_v) < 0.020
     assert np.asarray(d["drift_px"]).shape == (len(s.heights_m), 2)
     assert "magnetic_rms_std_deg" in d and "cpd_std_v" in d
+
+
+def test_edge_estimators_agree_where_each_reports(tmp_path, bias_series):
+    # the windowed fit reports the magnetic rms over the whole scan, the reflected-edge one over its interior:
+    # each within 5 % of the truth over its region
+    s = bias_series
+    p = save(tmp_path / "s.npz", s)
+    out = analyze(p, "--edge", "window")
+    assert out.returncode == 0, out.stderr
+    d = json.loads(out.stdout)
+    assert d["edge"] == "window" and d["edge_band_px"] == 0
+    np.testing.assert_allclose(d["magnetic_rms_deg"], np.std(s.magnetic_phase_deg, axis=(1, 2)), rtol=0.05)
+    assert abs(d["cpd_v"] - s.cpd_v) < 0.020
+    out = analyze(p, "--edge", "sideways")
+    assert out.returncode == 2 and "edge" in out.stderr
 
 
 @pytest.mark.parametrize("case, needle", [
