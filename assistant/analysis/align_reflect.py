@@ -151,14 +151,13 @@ def fit_with_drift_reflect(images: np.ndarray, valid: np.ndarray, drift_px: np.n
                                        interior_px=interior_px, noise_std=noise)
         return fit, aligned, ok
 
-    # the drift rounds weigh the heights equally and their noise estimates set the last fit's weights
-    # (estimates from weighted fits would feed a height's misfit back into its own weight, round after round)
+    # the first fit weighs the heights equally, every later one by the noise the one before found
     fit, aligned, ok = align_and_fit()
     for _ in range(max(int(max_rounds), 1) if refine and nimg > 1 else 0):
         steps = _gauss_newton_steps(aligned, ok, fit.model, hi, interior_px)
         steps -= steps[0]  # the model follows the majority of images; the first image keeps the frame
         drift += steps
-        fit, aligned, ok = align_and_fit()
+        fit, aligned, ok = align_and_fit(fit.noise_std)
         if np.abs(steps).max() < tol_px:
             break
     fit, aligned, ok = align_and_fit(fit.noise_std)

@@ -80,17 +80,18 @@ def test_a_height_with_extra_noise_weighs_less():
     clean = _even_cosine_stack(64, 64, HEIGHTS, TERMS)
     sig = np.array([0.02, 0.2, 0.02, 0.02, 0.02])
     stack = clean + sig[:, None, None] * rng.standard_normal(clean.shape)
+    # as the drift rounds of analyse_series do: equal weights, then each fit weighted by the one before
     equal = fit_continuation_reflect(stack, heights_m=HEIGHTS, pixel_m=PIXEL)
-    weighted = fit_continuation_reflect(stack, heights_m=HEIGHTS, pixel_m=PIXEL, noise_std=equal.noise_std)
+    once = fit_continuation_reflect(stack, heights_m=HEIGHTS, pixel_m=PIXEL, noise_std=equal.noise_std)
+    twice = fit_continuation_reflect(stack, heights_m=HEIGHTS, pixel_m=PIXEL, noise_std=once.noise_std)
     truth = clean - clean.mean(axis=(1, 2), keepdims=True)
-    err_weighted = np.sqrt(np.mean((weighted.model - truth) ** 2))
-    err_equal = np.sqrt(np.mean((equal.model - truth) ** 2))
-    assert err_weighted < 0.8 * err_equal, (err_weighted, err_equal)
-    # the moment estimate holds for any weights; with equal weights the lowest height's residual is mostly
-    # the noisy height's noise continued down, and its own estimate (what is left after subtracting that)
-    # scatters widely, so it is checked on the weighted fit only
+    err = [np.sqrt(np.mean((f.model - truth) ** 2)) for f in (equal, once, twice)]
+    assert err[2] < 0.6 * err[0], err
+    # with equal weights the lowest height's residual is mostly the noisy height's noise continued down, so
+    # its first estimate is far too high (0.17 for 0.02 here); once that height weighs less, it is right
     np.testing.assert_allclose(equal.noise_std[1:], sig[1:], rtol=0.1)
-    np.testing.assert_allclose(weighted.noise_std, sig, rtol=0.1)
+    np.testing.assert_allclose(once.noise_std, sig, rtol=0.2)
+    np.testing.assert_allclose(twice.noise_std, sig, rtol=0.1)
 
 
 def test_masked_pixels_are_filled_and_reported_missing():
