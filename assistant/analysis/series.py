@@ -257,7 +257,8 @@ def analyse_series(phase_deg, *, heights_m, pixel_m, bias_v=None, repeat_phase_d
     register : bool
         Estimate and undo drift.
     n_refine : int
-        Rounds of refining the drift against the leave-one-out continuation.
+        Rounds of refining the drift against the leave-one-out continuation (periodic and windowed estimators;
+        the reflected-edge one refines it with its own fit until the steps fall below 0.005 px).
     max_phase_deg : float
         Pixels whose phase shift exceeds this magnitude are left out of the fit: there the tip touches the
         surface or feels a gradient far beyond the small-perturbation picture of a second pass (the
