@@ -2,8 +2,9 @@
 
 The roll and scaling invariants are properties of the periodic estimator (``edge="periodic"``: a scan
 that is one period of the field, so a whole-pixel roll is a symmetry and the fit is linear in the data);
-they are checked on it. The windowed estimator, the default, treats the scan as a crop, for which a roll
-is not a symmetry; it is checked on non-periodic crops in test_decomposition.py."""
+they are checked on it. The default (reflected-edge) and the windowed estimators treat the scan as a crop,
+for which a roll is not a symmetry; they are checked on non-periodic crops in test_decomposition.py, and the
+default one for the scaling invariant below too."""
 
 import numpy as np
 import pytest
