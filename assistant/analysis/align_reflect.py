@@ -2,9 +2,9 @@
 
 Images are realigned by a band-limited shift of their reflected extension (the extension the cosine basis of
 :func:`~assistant.analysis.continuation_reflect.fit_continuation_reflect` assumes), never by a periodic shift
-of the scan itself, so no content wraps round. The drift of
-every image is then refined by Gauss-Newton steps on the interior residual against the fitted continuation,
-alternating with the fit; the first image defines the frame.
+of the scan itself, so no content wraps round. The drift of every image is then refined by Gauss-Newton steps
+on the interior residual against the fitted continuation, alternating with the fit; the first image defines
+the frame.
 
 Convention as in :mod:`assistant.analysis.registration`: ``drift_px = [drow, dcol]`` is how far the content
 of an image is displaced relative to the first, ``moving(r, c) = reference(r - drow, c - dcol)``.
@@ -109,9 +109,9 @@ def fit_with_drift_reflect(images: np.ndarray, valid: np.ndarray, drift_px: np.n
                            tol_px: float = 0.005) -> tuple[ContinuationFit, np.ndarray, np.ndarray, np.ndarray]:
     """Align, fit the reflected-edge continuation, and refine the drift until it settles.
 
-    The drift rounds weigh the heights equally; the last fit weighs them by the noise the round before it
-    found (see :func:`~assistant.analysis.continuation_reflect.fit_continuation_reflect`), so that it is
-    robust to a height whose residual shows more than noise.
+    The first fit weighs the heights equally, every later one by the noise the fit before it found (see
+    :func:`~assistant.analysis.continuation_reflect.fit_continuation_reflect`), so that the last one is robust
+    to a height whose residual shows more than noise; it is always a weighted fit at the final drift.
 
     Parameters
     ----------

@@ -88,10 +88,11 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--series", help="series name inside a session file (default: the first)")
     p.add_argument("--short-range-fraction", type=positive(), default=0.1,
                    help="short-range part allowed at the recommended lift, as a fraction of magnetic (0.1)")
-    p.add_argument("--edge", choices=("reflect", "window", "periodic"), default="reflect",
-                   help="how the scan's edges are treated: reflect (default, fast), window (the field outside "
-                        "fitted as unknown; exact at the edges, slow, for small scans), periodic (scans that are "
-                        "one period of the pattern)")
+    p.add_argument("--edge", choices=("auto", "reflect", "window", "periodic"), default="auto",
+                   help="how the scan's edges are treated: reflect (the scan mirrored at its edges; fast), window "
+                        "(the field outside fitted as unknown; exact at the edges, slower), periodic (scans that are "
+                        "one period of the pattern), auto (default: reflect, and window where the reflected fit "
+                        "misfits at a height that meets the other criteria)")
     p.add_argument("--plots", metavar="DIR", help="also write the decomposition figures to DIR")
     _json(p)
     p.set_defaults(handler="cmd_analyze:series")

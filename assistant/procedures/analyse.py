@@ -34,7 +34,7 @@ def _probe_inputs(settings: dict) -> dict:
 
 def analyse_arrays(phase_deg: np.ndarray, *, heights_m, pixel_m: float | tuple[float, float], bias_v=None,
                    repeat_phase_deg=None, line_rate_hz: float | None = None, pixels: int | None = None,
-                   short_range_fraction: float = 0.1, edge: str = "reflect", **probe):
+                   short_range_fraction: float = 0.1, edge: str = "auto", **probe):
     from assistant.analysis.series import analyse_series
 
     bandwidth = None
@@ -50,7 +50,7 @@ def analyse_arrays(phase_deg: np.ndarray, *, heights_m, pixel_m: float | tuple[f
 
 
 def analyse_session_series(session, name: str | None, *, sink: Sink = null_sink, short_range_fraction: float = 0.1,
-                           write: bool = True, edge: str = "reflect"):
+                           write: bool = True, edge: str = "auto"):
     """Analyse series ``name`` (default: the last) of an open session file and store the result in it."""
     names = session.series_names()
     if not names:
@@ -97,7 +97,7 @@ def _is_text(value) -> bool:
     return any(isinstance(v, str) or v is None for v in flat)
 
 
-def analyse_session_file(path: Path, name: str | None, *, short_range_fraction: float = 0.1, edge: str = "reflect"):
+def analyse_session_file(path: Path, name: str | None, *, short_range_fraction: float = 0.1, edge: str = "auto"):
     from assistant.storage.session_file import SessionFile
 
     with SessionFile.open(path, "r") as sf:
@@ -118,7 +118,7 @@ def _pixel_m(value, path: Path) -> float | tuple[float, float]:
     return float(v[0]) * 1e-9 if v.size == 1 else (float(v[0]) * 1e-9, float(v[1]) * 1e-9)
 
 
-def analyse_npz(path: Path, *, short_range_fraction: float = 0.1, edge: str = "reflect"):
+def analyse_npz(path: Path, *, short_range_fraction: float = 0.1, edge: str = "auto"):
     """Analyse a stack stored as .npz (keys: see :data:`NPZ_REQUIRED` and :data:`NPZ_OPTIONAL`)."""
     try:
         z = np.load(path, allow_pickle=False)

@@ -67,8 +67,9 @@ def run() -> dict:
     fits = []
     ((windowed, windowed_med),) = _interleaved([
         lambda: fits.append(dec.fit_continuation_windowed(stack, heights_m=HEIGHTS, pixel_m=s.pixel_m))], repeats=3)
-    ((full, _),) = _interleaved([lambda: analyse_series(stack, heights_m=HEIGHTS, pixel_m=s.pixel_m,
-                                                         **s.analysis_kwargs)], repeats=3)
+    runs = []
+    ((full, _),) = _interleaved([lambda: runs.append(analyse_series(stack, heights_m=HEIGHTS, pixel_m=s.pixel_m,
+                                                                    **s.analysis_kwargs))], repeats=3)
 
     def model(hh, a, lam, c):
         return a * np.exp(-hh / lam) + c
@@ -106,6 +107,7 @@ def run() -> dict:
         "windowed_cg_iterations": int(fits[-1].iterations),
         "ratio_windowed_over_plain": windowed / plain,
         "full_analyse_series_s": full,  # registration, drift refinement with the fit, mean parts, noise, advice
+        "full_analysis_estimator": runs[-1].edge,  # edge="auto" kept the reflected fit or fell back to the window
         "curve_fit_per_pixel_s": per_pixel,
         "curve_fit_all_pixels_extrapolated_s": curve_fit_all,
         "speedup_vs_curve_fit": curve_fit_all / ours,
