@@ -122,8 +122,8 @@ def _noise_from_moments(m, r2):
     """Noise variance of every height from the interior residual powers ``r2`` and ``E r2 = M sigma^2``.
 
     Solving ``M sigma^2 = r2`` outright is ill-conditioned where the heights share most of their residual
-    (with alias fields on a simulated series of seven heights it alternated between heights 8x the noise
-    and zero). Instead: every height's noise as if all were alike, ``r2_h / sum_j M_hj``, then, where the
+    (with alias fields on a simulated series of seven heights it alternated between heights at 2-4x the
+    noise and heights at the floor). Instead: every height's noise as if all were alike, ``r2_h / sum_j M_hj``, then, where the
     height's own noise makes at least half of its expected residual, one step that takes the others' share
     out, ``(r2_h - sum_{j != h} M_hj s_j^2) / M_hh``. The lowest height, whose residual is mostly the other
     heights' noise continued down, keeps the first estimate.
