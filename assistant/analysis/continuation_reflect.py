@@ -25,7 +25,7 @@ from __future__ import annotations
 import numpy as np
 from scipy import fft as sp_fft
 
-from .decomposition import ContinuationFit, dct_frequencies, pixel_pair_m
+from .decomposition import ContinuationFit, alias_axes_for, dct_frequencies, pixel_pair_m
 
 __all__ = ["fit_continuation_reflect"]
 
@@ -174,8 +174,7 @@ def fit_continuation_reflect(stack: np.ndarray, *, heights_m, pixel_m, valid: np
     interior_px : int
         Width of the edge band left out of the noise estimate and of ``residual_rms`` [px].
     alias_axes : "auto" or sequence of {0, 1}
-        Axes with alias fields; "auto": an axis whose spacing exceeds 4 h_0 (rule of thumb, no source; see
-        :func:`~assistant.analysis.decomposition.fit_continuation_windowed`).
+        Axes with alias fields (see :func:`~assistant.analysis.decomposition.alias_axes_for`).
     alias_ridge : float
         Penalty on the alias fields relative to the mean weight. On two simulated series with 75 and 125 nm
         between lines at 10 nm lowest lift, 1e-3 held the alias fields too tightly (residuals 1.2-1.6x what
@@ -200,12 +199,7 @@ def fit_continuation_reflect(stack: np.ndarray, *, heights_m, pixel_m, valid: np
     nh, rows, cols = data.shape
     n = rows * cols
     pr, pc = pixel_pair_m(pixel_m)
-    if isinstance(alias_axes, str):
-        if alias_axes != "auto":
-            raise ValueError(f"alias_axes must be 'auto' or a sequence of 0 and 1, got {alias_axes!r}")
-        axes = tuple(a for a, p in ((0, pr), (1, pc)) if p > 4.0 * h[0])
-    else:
-        axes = tuple(int(a) for a in alias_axes)
+    axes = alias_axes_for(alias_axes, (pr, pc), h[0])
     ok = np.isfinite(data) if valid is None else (np.asarray(valid, bool) & np.isfinite(data))
     complete = bool(ok.all())
     b = int(max(min(interior_px, min(rows, cols) // 4), 0))

@@ -28,6 +28,7 @@ from scipy import optimize
 __all__ = [
     "pixel_pair_m",
     "dct_frequencies",
+    "alias_axes_for",
     "ContinuationFit",
     "fit_continuation",
     "fit_continuation_windowed",
@@ -261,6 +262,16 @@ def fit_continuation(stack: np.ndarray, *, heights_m, pixel_m, valid: np.ndarray
                            noise_power=noise_power, heights_m=h, pixel_m=pixel_pair_m(pixel_m))
 
 
+def alias_axes_for(alias_axes, pixel_m, lowest_height_m: float) -> tuple[int, ...]:
+    """Axes (0 = rows, 1 = columns) that get alias fields: ``"auto"`` picks those whose spacing exceeds 4 times
+    the lowest height (rule of thumb, no source; see :func:`fit_continuation_windowed`); else the axes given."""
+    if isinstance(alias_axes, str):
+        if alias_axes != "auto":
+            raise ValueError(f"alias_axes must be 'auto' or a sequence of 0 and 1, got {alias_axes!r}")
+        return tuple(a for a, p in enumerate(pixel_pair_m(pixel_m)) if p > 4.0 * lowest_height_m)
+    return tuple(int(a) for a in alias_axes)
+
+
 def _alias_frequencies(fr, fc, pr, pc, axes):
     """True (row, column) frequencies [cycles/m] of the fundamental and of the aliases kept.
 
@@ -386,12 +397,7 @@ def fit_continuation_windowed(images: np.ndarray, *, heights_m, pixel_m, height_
     per_h = np.bincount(hi, minlength=nh).astype(float)
     ok = np.isfinite(y) if valid is None else (np.asarray(valid, bool) & np.isfinite(y))
     pr, pc = pixel_pair_m(pixel_m)
-    if isinstance(alias_axes, str):
-        if alias_axes != "auto":
-            raise ValueError(f"alias_axes must be 'auto' or a sequence of 0 and 1, got {alias_axes!r}")
-        axes = tuple(a for a, p in ((0, pr), (1, pc)) if p > 4.0 * h[0])
-    else:
-        axes = tuple(int(a) for a in alias_axes)
+    axes = alias_axes_for(alias_axes, (pr, pc), h[0])
     d = (np.zeros((nj, 2)) if drift_px is None else np.asarray(drift_px, dtype=float).reshape(nj, 2)).copy()
     dh = h[-1] - h[0]
     if pad_px is None:
