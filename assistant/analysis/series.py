@@ -281,7 +281,7 @@ def analyse_series(phase_deg, *, heights_m, pixel_m, bias_v=None, repeat_phase_d
     """
     if edge not in ("auto", "reflect", "window", "periodic"):
         raise SeriesInputError(f"edge must be 'auto', 'reflect', 'window' or 'periodic', got {edge!r}")
-    params = {k: v for k, v in locals().items() if k not in ("phase_deg", "edge")}
+    params = {k: v for k, v in locals().items() if k not in ("phase_deg", "edge")}  # every other keyword, as given
     if edge != "auto":
         return _decompose(phase_deg, edge=edge, **params)
     fast = _decompose(phase_deg, edge="reflect", **params)
