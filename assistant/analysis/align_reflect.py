@@ -106,7 +106,8 @@ def _gauss_newton_steps(aligned, valid, model, height_index, band):
 
 def fit_with_drift_reflect(images: np.ndarray, valid: np.ndarray, drift_px: np.ndarray, *, heights_m, pixel_m,
                            nb: int = 1, interior_px: int = 0, refine: bool = True, max_rounds: int = 8,
-                           tol_px: float = 0.005) -> tuple[ContinuationFit, np.ndarray, np.ndarray, np.ndarray]:
+                           tol_px: float = 0.005, noise_std: np.ndarray | None = None, noise_dof=None
+                           ) -> tuple[ContinuationFit, np.ndarray, np.ndarray, np.ndarray]:
     """Align, fit the reflected-edge continuation, and refine the drift until it settles.
 
     The first fit weighs the heights equally, every later one by the noise the fit before it found (see
@@ -133,6 +134,13 @@ def fit_with_drift_reflect(images: np.ndarray, valid: np.ndarray, drift_px: np.n
         Largest number of drift steps (each followed by a fit).
     tol_px : float
         Stop once no image's step exceeds this [px].
+    noise_std : ndarray (H,), optional
+        Noise of every height's (bias-averaged) image, measured independently of the fit: every fit is weighted
+        by it and uses it for its statistics (``noise_known``), so the weights do not change from round to
+        round and the result does not depend on how many rounds ran once the drift has settled.
+    noise_dof : float or ndarray (H,), optional
+        Degrees of freedom of that noise estimate (see
+        :func:`~assistant.analysis.continuation_reflect.fit_continuation_reflect`).
 
     Returns
     -------
@@ -144,21 +152,28 @@ def fit_with_drift_reflect(images: np.ndarray, valid: np.ndarray, drift_px: np.n
     drift = np.array(drift_px, dtype=float, copy=True)
     drift[0] = 0.0
 
-    def align_and_fit(noise=None):
+    known = noise_std is not None
+
+    def align_and_fit(noise=None, final=True):
         aligned, ok = reflect_align(images, valid, drift)
         hstack, hvalid = average_biases(aligned, ok, nh, nb)
         fit = fit_continuation_reflect(hstack, heights_m=heights_m, pixel_m=pixel_m, valid=hvalid,
-                                       interior_px=interior_px, noise_std=noise)
+                                       interior_px=interior_px, noise_std=noise_std if known else noise,
+                                       noise_known=known, noise_dof=noise_dof if known else None, rms_std=final)
         return fit, aligned, ok
 
-    # the first fit weighs the heights equally, every later one by the noise the one before found
-    fit, aligned, ok = align_and_fit()
-    for _ in range(max(int(max_rounds), 1) if refine and nimg > 1 else 0):
+    # without a measured noise: the first fit weighs the heights equally, every later one by the noise the one
+    # before found
+    rounds = max(int(max_rounds), 1) if refine and nimg > 1 else 0
+    fit, aligned, ok = align_and_fit(final=not (known and rounds))
+    for round_ in range(rounds):
         steps = _gauss_newton_steps(aligned, ok, fit.model, hi, interior_px)
         steps -= steps[0]  # the model follows the majority of images; the first image keeps the frame
         drift += steps
-        fit, aligned, ok = align_and_fit(fit.noise_std)
-        if np.abs(steps).max() < tol_px:
+        last = bool(np.abs(steps).max() < tol_px) or round_ == rounds - 1
+        fit, aligned, ok = align_and_fit(fit.noise_std, final=last or not known)
+        if last:
             break
-    fit, aligned, ok = align_and_fit(fit.noise_std)
+    if not known:
+        fit, aligned, ok = align_and_fit(fit.noise_std)
     return fit, drift, aligned, ok

@@ -39,6 +39,9 @@ from . import lift_models as lm
 from .align_reflect import average_biases, fit_with_drift_reflect
 from .noise_floor import NoiseVerdict, noise_verdict, periodic_component_of, white_noise_std
 from .recommend import Recommendation, recommend_lift
+from .series_errors import drift_covariance
+from .mean_parts import ASSUMED_AMPLITUDE_M, TIP_RADIUS_REL_STD, magnetic_window_mean_std, split_bias_grid, split_heights_only
+from .series_noise import band_noise_variance, fill_missing
 from .registration import align_stack, shift_from_spectra
 from .tip_change import TipChange, detect_tip_change
 
@@ -129,6 +132,15 @@ class SeriesAnalysis:
     signal_space: str                   # "gradient" (k and Q given) or "phase"
     fitted_parameters: dict
     edge_note: str = ""                 # why the estimator differs from the default's first choice
+    drift_std_px: np.ndarray | None = None       # standard error of drift_px, same shape
+    drift_mean_std_px: np.ndarray | None = None  # (H, 2) standard error of the drift averaged over biases
+    # the measured non-magnetic total (H,) or (H, B) and the model uncertainties (mean_parts)
+    nonmagnetic_mean_deg: np.ndarray | None = None
+    nonmagnetic_mean_std_deg: np.ndarray | None = None
+    nonmagnetic_mean_model_std_deg: np.ndarray | None = None
+    electrostatic_mean_model_std_deg: np.ndarray | None = None
+    short_range_mean_model_std_deg: np.ndarray | None = None
+    cpd_model_std_v: float | None = None
 
     @property
     def heights_nm(self) -> np.ndarray:
@@ -161,8 +173,24 @@ class SeriesAnalysis:
             "short_range_mean_std_deg": lst(self.short_range_mean_std_deg),
             "residual_rms_deg": lst(self.residual_rms_deg),
             "drift_px": lst(drift),
+            "drift_std_px": None if self.drift_mean_std_px is None else lst(self.drift_mean_std_px),
             "cpd_v": self.cpd_v,
             "cpd_std_v": self.cpd_std_v,
+            "cpd_model_std_v": self.cpd_model_std_v,
+            "nonmagnetic_mean_deg": None if self.nonmagnetic_mean_deg is None else lst(self.nonmagnetic_mean_deg),
+            "nonmagnetic_mean_std_deg": None if self.nonmagnetic_mean_std_deg is None
+            else lst(self.nonmagnetic_mean_std_deg),
+            "nonmagnetic_mean_model_std_deg": None if self.nonmagnetic_mean_model_std_deg is None
+            else lst(self.nonmagnetic_mean_model_std_deg),
+            "electrostatic_mean_model_std_deg": None if self.electrostatic_mean_model_std_deg is None
+            else lst(self.electrostatic_mean_model_std_deg),
+            "short_range_mean_model_std_deg": None if self.short_range_mean_model_std_deg is None
+            else lst(self.short_range_mean_model_std_deg),
+            "mean_model_reduced_chi2": self.fitted_parameters.get("reduced_chi2_mean"),
+            "mean_model_birge_ratio": self.fitted_parameters.get("birge_ratio_mean"),
+            "tip_models": self.fitted_parameters.get("tip_models"),
+            "assumed": self.fitted_parameters.get("assumed"),
+            "split_vs_amplitude": self.fitted_parameters.get("split_vs_amplitude"),
             "recommended_lift_nm": None if rec.lift_height_m is None else round(rec.lift_height_m * 1e9, 9),
             "recommended_bias_v": rec.bias_v,
             "recommendation": rec.sentence,
@@ -224,8 +252,10 @@ def _validate(phase_deg, heights_m, bias_v):
 def analyse_series(phase_deg, *, heights_m, pixel_m, bias_v=None, repeat_phase_deg=None,
                    spring_constant_n_per_m: float | None = None, quality_factor: float | None = None,
                    resonance_hz: float | None = None, tip_radius_m: float = 30e-9,
+                   tip_radius_rel_std: float = TIP_RADIUS_REL_STD,
                    cone_half_angle_deg: float | None = 15.0, cone_height_m: float = 10e-6,
-                   amplitude_m: float = 10e-9, gap_offset_m: float | None = None, bandwidth_hz: float | None = None,
+                   amplitude_m: float | None = None, gap_offset_m: float | None = None,
+                   bandwidth_hz: float | None = None,
                    temperature_k: float = 298.15, short_range_fraction: float = 0.1, max_nan_fraction: float = 0.05,
                    residual_tolerance: float = 1.25, register: bool = True, n_refine: int = 2,
                    edge: str = "auto", max_phase_deg: float = 45.0) -> SeriesAnalysis:
@@ -249,11 +279,18 @@ def analyse_series(phase_deg, *, heights_m, pixel_m, bias_v=None, repeat_phase_d
     resonance_hz, bandwidth_hz, temperature_k : float
         For the thermal noise limit (Albrecht et al. 1991).
     tip_radius_m, cone_half_angle_deg, cone_height_m : float
-        Tip geometry for the electrostatic shape (exact sphere + Hudlet cone; None = no cone) and vdW.
-    amplitude_m : float
-        Peak oscillation amplitude [m] (finite-amplitude weighting, Giessibl 2001).
+        Nominal tip geometry for the electrostatic shape (exact sphere + Hudlet cone; None = no cone) and vdW.
+        The split of the image means is averaged over tips with a cone and without, and radii one
+        ``tip_radius_rel_std`` either side (see :mod:`~assistant.analysis.mean_parts`).
+    tip_radius_rel_std : float
+        Relative uncertainty of ``tip_radius_m``.
+    amplitude_m : float, optional
+        Peak oscillation amplitude [m] (finite-amplitude weighting, Giessibl 2001). None: not known; 10 nm
+        is assumed, the split of the image means is taken over 5-20 nm and the sentence says so.
     gap_offset_m : float, optional
-        Oscillation centre above the surface at zero lift [m]; defaults to ``amplitude_m``.
+        Oscillation centre above the surface at zero lift [m]. None: not known; the amplitude (closest
+        approach = lift height) is assumed and offsets down to half the amplitude enter the split's
+        uncertainty.
     short_range_fraction : float
         Largest acceptable short-range / magnetic-contrast ratio for the recommended height.
     max_nan_fraction : float
@@ -308,7 +345,8 @@ def _reflection_mattered(a: SeriesAnalysis) -> list[float]:
 
 
 def _decompose(phase_deg, *, heights_m, pixel_m, bias_v, repeat_phase_deg, spring_constant_n_per_m,
-               quality_factor, resonance_hz, tip_radius_m, cone_half_angle_deg, cone_height_m, amplitude_m,
+               quality_factor, resonance_hz, tip_radius_m, tip_radius_rel_std, cone_half_angle_deg, cone_height_m,
+               amplitude_m,
                gap_offset_m, bandwidth_hz, temperature_k, short_range_fraction, max_nan_fraction,
                residual_tolerance, register, n_refine, edge, max_phase_deg) -> SeriesAnalysis:
     stack, h, volts = _validate(phase_deg, heights_m, bias_v)
@@ -358,11 +396,17 @@ def _decompose(phase_deg, *, heights_m, pixel_m, bias_v, repeat_phase_deg, sprin
     # the first estimate correlates periodic spectra: on a non-periodic scan the seam where opposite edges
     # meet stays put while the content drifts, so the seam is taken out first (periodic-plus-smooth
     # decomposition)
-    reg = flat if edge == "periodic" else np.array([periodic_component_of(img) for img in flat])
+    src = flat if okf.all() else fill_missing(flat, okf)  # holes filled smoothly: no broadband spikes
+    reg = src if edge == "periodic" else np.array([periodic_component_of(img) for img in src])
+    spectra = np.fft.rfft2(reg, axes=(-2, -1))
     if register:
-        spectra = np.fft.rfft2(reg, axes=(-2, -1))
         for i in range(1, nh * nb):  # loop over images, vectorised inside
             drift[i] = shift_from_spectra(spectra[0], spectra[i], shape)
+    # the noise of every image from its highest frequencies, independent of any fit (see series_noise)
+    alias_axes = dec.alias_axes_for("auto", pixel_m, h[0])
+    image_var, band_cells = band_noise_variance(spectra, shape, aliased_axes=alias_axes,
+                                                valid_fraction=okf.mean(axis=(1, 2)))
+    height_noise = np.sqrt(image_var.reshape(nh, nb).mean(axis=1) / nb)  # of the bias-averaged image
     # edge band: the seam of a periodic fit and the reflection misfit fell to the interior level within
     # about (h_max - h_0) / pixel + 4 px on simulated and synthetic scans
     band = int(min(np.ceil((h[-1] - h[0]) / min(pixel_m)) + 4, min(rows, cols) // 4)) if edge != "window" else 0
@@ -370,7 +414,9 @@ def _decompose(phase_deg, *, heights_m, pixel_m, bias_v, repeat_phase_deg, sprin
         # band-limited realignment of the reflected images (nothing wraps round), alternating with the fit and
         # Gauss-Newton drift steps
         fit, drift, aligned, valid = fit_with_drift_reflect(flat, okf, drift, heights_m=h, pixel_m=pixel_m, nb=nb,
-                                                            interior_px=band, refine=register)
+                                                            interior_px=band, refine=register,
+                                                            noise_std=height_noise, noise_dof=nb * band_cells,
+                                                            tol_px=5e-4, max_rounds=16)
     else:
         for round_ in range(n_refine + 1 if register else 1):
             aligned = align_stack(reg, drift)
@@ -385,6 +431,9 @@ def _decompose(phase_deg, *, heights_m, pixel_m, bias_v, repeat_phase_deg, sprin
             moving_f = np.fft.rfft2(np.where(valid, aligned, 0.0), axes=(-2, -1))
             for i in range(1, nh * nb):
                 drift[i] = drift[i] + shift_from_spectra(pred_f[i // nb], moving_f[i], shape)
+    drift_cov = None
+    if edge == "reflect" and register:
+        drift_cov = drift_covariance(fit.model, fit.decay, 1.0 / image_var, np.repeat(np.arange(nh), nb), band)
     if edge == "window":
         # final fit on the raw images: drift in the model, the seam and wrapped borders never fitted
         fit = dec.fit_continuation_windowed(centred.reshape(nh * nb, rows, cols), heights_m=h, pixel_m=pixel_m,
@@ -425,38 +474,41 @@ def _decompose(phase_deg, *, heights_m, pixel_m, bias_v, repeat_phase_deg, sprin
         pure_noise = fitted_ref * fit.expected_residual_rms / np.maximum(fit.noise_std, 1e-300)
     residual_ok = interior_rms <= residual_tolerance * pure_noise
 
-    # image mean: electrostatic + short range
-    mean_sd = (fit.noise_std[:, None] * np.sqrt(nb)) / np.sqrt(n_ok)
+    # image means: the non-magnetic total is measured; only its split depends on the tip (mean_parts)
+    mean_sd = np.sqrt(image_var.reshape(nh, nb)) / np.sqrt(n_ok)
+    # the magnetic mean over the window stays in the total, with its typical size as model uncertainty: the
+    # windowed fit's own estimate of it (its model's window mean) missed the true one by 0.03-0.24 deg on
+    # 64 x 64 synthetic crops, more than that typical size, so it is not taken off
+    total = means
+    # (a periodic scan is one period of the film, whose mean is zero)
+    mm_sd = (np.zeros(nh) if edge == "periodic" else magnetic_window_mean_std(fit.amplitude, fit.decay, grid=fit.grid))
     if grid:
-        mf = dec.fit_mean_bias_grid(means, mean_sd, bias_v=volts)
+        mf = split_bias_grid(total, mean_sd, mm_sd, bias_v=volts)
     else:
         try:
-            dc = lm.centre_gap_m(h, amplitude_m=amplitude_m, gap_offset_m=gap_offset_m)
+            mf = split_heights_only(total[:, 0], mean_sd[:, 0], mm_sd, heights_m=h, tip_radius_m=tip_radius_m,
+                                    tip_radius_rel_std=tip_radius_rel_std, cone_half_angle_deg=cone_half_angle_deg,
+                                    cone_height_m=cone_height_m, amplitude_m=amplitude_m, gap_offset_m=gap_offset_m,
+                                    attractive_sign=1.0 if exact else -1.0, to_deg=to_deg)
         except ValueError as exc:
             raise SeriesInputError(str(exc)) from None
-        e_shape = lm.amplitude_weighted(
-            lambda z: 0.5 * lm.tip_capacitance_second_derivative_f_per_m2(
-                z, radius_m=tip_radius_m, cone_half_angle_deg=cone_half_angle_deg, cone_height_m=cone_height_m),
-            dc, amplitude_m=amplitude_m)
-        s_shape = lm.amplitude_weighted(
-            lambda z: lm.vdw_sphere_gradient_n_per_m(z, hamaker_j=1.0, radius_m=tip_radius_m), dc,
-            amplitude_m=amplitude_m)
-        mf = dec.fit_mean_heights(means[:, 0], mean_sd[:, 0], electrostatic_shape=e_shape,
-                                  short_range_shape=s_shape, heights_m=h, attractive_sign=1.0 if exact else -1.0)
     es_deg = to_deg(mf.electrostatic)
     es_sd_deg = slope(mf.electrostatic) * mf.electrostatic_std
     sr_deg = to_deg(mf.short_range)
     sr_sd_deg = slope(mf.short_range) * mf.short_range_std
+    parts_deg = {"nonmagnetic_mean_deg": to_deg(mf.total),
+                 "nonmagnetic_mean_std_deg": slope(mf.total) * mf.total_std,
+                 "nonmagnetic_mean_model_std_deg": slope(mf.total) * mf.total_model_std,
+                 "electrostatic_mean_model_std_deg": slope(mf.electrostatic) * mf.electrostatic_model_std,
+                 "short_range_mean_model_std_deg": slope(mf.short_range) * mf.short_range_model_std}
 
     # magnetic outputs in degrees: rms of the arctan-mapped denoised map, debiased by the fit noise
     mag_deg = to_deg(fit.model)
     mag_rms_sd = fit.magnetic_rms_std * lin
     if edge == "reflect":
-        # over the interior, about its mean; the standard error grows as fewer pixels enter (white-noise
-        # scaling of the whole-scan one, an approximation)
+        # over the interior, about its mean, as the fit's standard error is
         core = mag_deg[:, band:rows - band, band:cols - band]
         ms = np.var(core, axis=(-2, -1)) - fit.noise_power * lin**2
-        mag_rms_sd = mag_rms_sd * np.sqrt(rows * cols / core[0].size)
     else:
         ms = np.mean(mag_deg**2, axis=(-2, -1)) - fit.noise_power * lin**2
     mag_rms = np.sqrt(np.clip(ms, 0.0, None))
@@ -467,11 +519,17 @@ def _decompose(phase_deg, *, heights_m, pixel_m, bias_v, repeat_phase_deg, sprin
                          short_range_fraction=short_range_fraction, cpd_v=mf.cpd_v)
     verdict = noise_verdict(ref_noise_deg, spring_constant_n_per_m=spring_constant_n_per_m,
                             resonance_hz=resonance_hz, quality_factor=quality_factor, temperature_k=temperature_k,
-                            bandwidth_hz=bandwidth_hz, amplitude_m=amplitude_m)
-    params = {"reduced_chi2_mean": mf.reduced_chi2}
-    if not grid and exact:
-        params.update(effective_voltage_v=float(np.sqrt(max(mf.parameters[0], 0.0))),
-                      hamaker_j=float(mf.parameters[1]))
+                            bandwidth_hz=bandwidth_hz,
+                            amplitude_m=ASSUMED_AMPLITUDE_M if amplitude_m is None else amplitude_m)
+    drift_sd = drift_mean_sd = None
+    if drift_cov is not None:
+        drift_sd = np.sqrt(np.clip(np.diagonal(drift_cov, axis1=1, axis2=2).T, 0.0, None))  # (J, 2)
+        blocks = drift_cov.reshape(2, nh, nb, nh, nb)[:, np.arange(nh), :, np.arange(nh), :]  # (H, 2, nb, nb)
+        drift_mean_sd = np.sqrt(np.clip(blocks.sum(axis=(-2, -1)) / nb**2, 0.0, None))
+        drift_sd = drift_sd.reshape(nh, nb, 2) if grid else drift_sd
+    params = {"reduced_chi2_mean": mf.reduced_chi2, "birge_ratio_mean": mf.birge_ratio,
+              "tip_models": [c.to_dict() for c in mf.candidates], "assumed": dict(mf.assumed),
+              "split_vs_amplitude": mf.amplitude_range}
     return SeriesAnalysis(
         heights_m=h, pixel_m=pixel_m, bias_v=volts, magnetic_rms_deg=mag_rms, magnetic_rms_std_deg=mag_rms_sd,
         electrostatic_mean_deg=es_deg, electrostatic_mean_std_deg=es_sd_deg, short_range_mean_deg=sr_deg,
@@ -484,4 +542,6 @@ def _decompose(phase_deg, *, heights_m, pixel_m, bias_v, repeat_phase_deg, sprin
         drift_px=drift.reshape(nh, nb, 2) if grid else drift.reshape(nh, 2), cpd_v=mf.cpd_v, cpd_std_v=mf.cpd_std_v,
         separable=mf.separable, separability_sentence=mf.sentence, resolution_period_m=resolution,
         recommendation=rec, noise=verdict, tip_change=tip, magnetic_deg=mag_deg, residual_deg=fit.residual * lin,
-        nan_pixels=int(bad.sum()), signal_space="gradient" if exact else "phase", fitted_parameters=params)
+        nan_pixels=int(bad.sum()), signal_space="gradient" if exact else "phase", fitted_parameters=params,
+        drift_std_px=drift_sd, drift_mean_std_px=drift_mean_sd,
+        cpd_model_std_v=mf.cpd_model_std_v, **parts_deg)

@@ -222,7 +222,7 @@ def build_series(*, rows=128, cols=128, pixel_m=10e-9, heights_m=(20e-9, 30e-9, 
             repeat_img, changed, clean_change = (a[win] for a in (repeat_img, changed, clean_change))
     mag_phase = to_phase(g_mag)
     kwargs = dict(spring_constant_n_per_m=k, quality_factor=q_f, resonance_hz=resonance_hz, tip_radius_m=tip_radius_m,
-                  amplitude_m=amplitude_m, gap_offset_m=gap_offset_m, cone_half_angle_deg=cone_half_angle_deg,
+                  amplitude_m=amplitude_m, gap_offset_m=gap_off, cone_half_angle_deg=cone_half_angle_deg,
                   cone_height_m=cone_height_m)
     phase = images if bias_v is not None else images[:, 0]
     es_deg = to_phase(g_es) if bias_v is not None else to_phase(g_es[:, 0])
