@@ -106,8 +106,8 @@ def _gauss_newton_steps(aligned, valid, model, height_index, band):
 
 def fit_with_drift_reflect(images: np.ndarray, valid: np.ndarray, drift_px: np.ndarray, *, heights_m, pixel_m,
                            nb: int = 1, interior_px: int = 0, refine: bool = True, max_rounds: int = 8,
-                           tol_px: float = 0.005, noise_std: np.ndarray | None = None, noise_dof=None
-                           ) -> tuple[ContinuationFit, np.ndarray, np.ndarray, np.ndarray]:
+                           tol_px: float = 0.005, noise_std: np.ndarray | None = None, noise_dof=None,
+                           weight_std=None) -> tuple[ContinuationFit, np.ndarray, np.ndarray, np.ndarray]:
     """Align, fit the reflected-edge continuation, and refine the drift until it settles.
 
     The first fit weighs the heights equally, every later one by the noise the fit before it found (see
@@ -141,6 +141,8 @@ def fit_with_drift_reflect(images: np.ndarray, valid: np.ndarray, drift_px: np.n
     noise_dof : float or ndarray (H,), optional
         Degrees of freedom of that noise estimate (see
         :func:`~assistant.analysis.continuation_reflect.fit_continuation_reflect`).
+    weight_std : ndarray (H,), optional
+        With ``noise_std``: the noise the heights are weighted by, if not that one.
 
     Returns
     -------
@@ -159,7 +161,8 @@ def fit_with_drift_reflect(images: np.ndarray, valid: np.ndarray, drift_px: np.n
         hstack, hvalid = average_biases(aligned, ok, nh, nb)
         fit = fit_continuation_reflect(hstack, heights_m=heights_m, pixel_m=pixel_m, valid=hvalid,
                                        interior_px=interior_px, noise_std=noise_std if known else noise,
-                                       noise_known=known, noise_dof=noise_dof if known else None, rms_std=final)
+                                       noise_known=known, noise_dof=noise_dof if known else None, rms_std=final,
+                                       weight_std=weight_std if known else None)
         return fit, aligned, ok
 
     # without a measured noise: the first fit weighs the heights equally, every later one by the noise the one

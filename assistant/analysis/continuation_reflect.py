@@ -167,7 +167,7 @@ def fit_continuation_reflect(stack: np.ndarray, *, heights_m, pixel_m, valid: np
                              interior_px: int = 0, alias_axes="auto", alias_ridge: float = 1e-4,
                              max_weight_ratio: float = 10.0, n_fill: int = 8,
                              noise_std: np.ndarray | None = None, noise_known: bool = False,
-                             noise_dof=None, rms_std: bool = True) -> ContinuationFit:
+                             noise_dof=None, rms_std: bool = True, weight_std=None) -> ContinuationFit:
     """Joint Laplace continuation of an aligned stack in the cosine basis of its reflected scan.
 
     One closed-form pass per spatial frequency, and the noise of every height estimated from the interior
@@ -212,6 +212,9 @@ def fit_continuation_reflect(stack: np.ndarray, *, heights_m, pixel_m, valid: np
     noise_dof : float or ndarray (H,), optional
         Degrees of freedom behind each height's noise variance (``Var(sigma^2) = sigma^4 / noise_dof``):
         the uncertainty of the debiasing then enters ``magnetic_rms_std``.
+    weight_std : ndarray (H,), optional
+        With ``noise_known``: weigh the heights by ``1 / weight_std^2`` instead of ``1 / noise_std^2`` (for
+        example a noise estimate shrunk towards the series' common level); the statistics keep ``noise_std``.
     rms_std : bool
         Compute ``magnetic_rms_std`` (one more transform of the stack); NaN otherwise, for fits whose
         statistics are not reported (the drift rounds before the last).
@@ -280,7 +283,7 @@ def fit_continuation_reflect(stack: np.ndarray, *, heights_m, pixel_m, valid: np
         s2 = np.asarray(noise_std, dtype=float) ** 2
         if s2.shape != (nh,) or not np.all(s2 > 0):
             raise ValueError(f"noise_std must be {nh} values > 0, got {noise_std!r}")
-        w = 1.0 / s2
+        w = 1.0 / s2 if weight_std is None else 1.0 / np.asarray(weight_std, dtype=float) ** 2
     rounds = 1 if complete else max(int(n_fill), 1)
     sigma2 = np.ones(nh)
     for round_ in range(rounds):

@@ -197,7 +197,10 @@ def test_non_periodic_crop_heights_only():
     a = _run(s)
     mag_err = np.abs(a.magnetic_rms_deg / _window_truth_rms(s, a) - 1)
     assert mag_err.max() < 0.05, mag_err
-    assert np.all(a.residual_at_noise), a.residual_rms_interior_deg / a.expected_residual_rms_deg
+    # at noise above the lowest height; the lowest one measures its finest detail alone, so its residual keeps
+    # about a quarter of the noise, and the reflection's slowly decaying misfit shows against it (1.26 here)
+    ratio = a.residual_rms_interior_deg / a.expected_residual_rms_deg
+    assert np.all(a.residual_at_noise[1:]) and ratio[0] < 1.4, ratio
     assert a.recommendation.lift_height_m is not None
     total = a.electrostatic_mean_deg + a.short_range_mean_deg
     assert np.abs(total / truth_mean - 1).max() < 0.05
@@ -249,15 +252,18 @@ def test_auto_keeps_the_reflected_fit_where_it_explains_every_height():
     assert np.abs(a.magnetic_rms_deg / _window_truth_rms(s, a) - 1).max() < 0.05
 
 
-def test_auto_falls_back_to_the_windowed_fit_where_the_reflection_misfits():
-    # a small crop at high signal-to-noise: the reflection's edge misfit shows above the noise at heights that
-    # meet the other criteria (and biases the magnetic rms by about 5 %); the windowed fit is used instead
+def test_auto_is_decided_by_the_geometry_and_says_so_on_a_small_scan():
+    # a small crop at high signal-to-noise (continuation range 12 px of 64): the default stays the reflected fit
+    # (a switch on its residual flipped with the noise draw) and says that the scan is small; the reflection's
+    # misfit reaching the interior costs at most 0.5 % below the two top heights, 2 % and 5 % at them (measured
+    # 0.49 %, 1.5 % and 4.1 % here). The windowed fit, on request, is exact up to the edges.
     s = build_series(rows=64, cols=64, heights_m=HEIGHTS, noise_deg=0.01, magnetic_scale=0.3, seed=1,
                      margin_px=64, drift_px=np.c_[np.linspace(0, 1.5, 8), np.linspace(0, -1.0, 8)])
-    fast = _run(s, edge="reflect")
-    assert not np.all(fast.residual_at_noise[fast.recommendation.criteria["short_range_ok"]])
     a = _run(s)
-    assert a.edge == "window" and "windowed fit" in a.edge_note and a.edge_note in a.messages
-    assert np.abs(a.magnetic_rms_deg / _window_truth_rms(s, a) - 1).max() < 0.01
-    assert np.abs(a.drift_px - s.drift_px).max() < 0.3
-    assert a.to_dict()["edge"] == "window"
+    assert a.edge == "reflect" and "--edge window" in a.edge_note and a.edge_note in a.messages
+    err = np.abs(a.magnetic_rms_deg / _window_truth_rms(s, a) - 1)
+    assert err[:-2].max() < 0.005 and err[-2] < 0.02 and err[-1] < 0.05, err
+    w = _run(s, edge="window")
+    assert np.abs(w.magnetic_rms_deg / _window_truth_rms(s, w) - 1).max() < 0.01
+    assert np.abs(w.drift_px - s.drift_px).max() < 0.3
+    assert w.to_dict()["edge"] == "window"
