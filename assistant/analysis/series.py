@@ -508,7 +508,8 @@ def _decompose(phase_deg, *, heights_m, pixel_m, bias_v, repeat_phase_deg, sprin
             mf = split_heights_only(total[:, 0], mean_sd[:, 0], mm_cov, heights_m=h, tip_radius_m=tip_radius_m,
                                     tip_radius_rel_std=tip_radius_rel_std, cone_half_angle_deg=cone_half_angle_deg,
                                     cone_height_m=cone_height_m, amplitude_m=amplitude_m, gap_offset_m=gap_offset_m,
-                                    attractive_sign=1.0 if exact else -1.0, to_deg=to_deg)
+                                    attractive_sign=1.0 if exact else -1.0, to_deg=to_deg,
+                                    weight_std=np.sqrt(shrunk_noise_variance(image_var, band_cells) / n_ok[:, 0]))
         except ValueError as exc:
             raise SeriesInputError(str(exc)) from None
     es_deg = to_deg(mf.electrostatic)
