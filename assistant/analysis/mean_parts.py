@@ -302,10 +302,11 @@ def split_heights_only(total, total_std, magnetic_mean_cov, *, heights_m, tip_ra
                      "offsets down to half the amplitude enter the split's uncertainty.")
     # in degrees for the sentence
     es0, sr0, t0 = float(deg(es[0])), float(deg(sr[0])), float(deg(y[0]))
-    fit_words = (f"The image-mean model fits the measured means within noise (reduced chi-square {red:.3g})."
-                 if red <= 2.0 else
-                 f"The image-mean model does not fit the measured means within noise (reduced chi-square "
-                 f"{red:.3g}): the split's uncertainties are widened by the Birge ratio {np.sqrt(b2):.3g}.")
+    fit_words = (f"The image-mean model fits the measured means within their uncertainty (noise and magnetic "
+                 f"window mean; reduced chi-square {red:.3g})." if red <= 2.0 else
+                 f"The image-mean model does not fit the measured means within their uncertainty (noise and "
+                 f"magnetic window mean; reduced chi-square {red:.3g}): the split's uncertainties are widened by "
+                 f"the Birge ratio {np.sqrt(b2):.3g}.")
     words = [f"The non-magnetic mean is measured ({t0:.4g} deg at {h0:.4g} nm); its split depends on the tip.",
              fit_words,
              f"Over plausible tip models ({geometry}) the split is averaged by goodness of fit and its spread "

@@ -148,6 +148,8 @@ class SeriesAnalysis:
     electrostatic_mean_model_std_deg: np.ndarray | None = None
     short_range_mean_model_std_deg: np.ndarray | None = None
     cpd_model_std_v: float | None = None
+    alias_axes: tuple = ()              # axes with alias fields, decided from the pixel spacing and lowest height
+    error_method: str = ""              # how the standard errors were obtained and checked
 
     @property
     def heights_nm(self) -> np.ndarray:
@@ -209,6 +211,8 @@ class SeriesAnalysis:
             "edge_band_px": int(self.edge_band_px),
             "edge": self.edge,
             "edge_note": self.edge_note,
+            "alias_axes": list(self.alias_axes),
+            "error_method": self.error_method,
             "residual_at_noise": [bool(x) for x in self.residual_at_noise],
             "noise_deg": lst(self.noise_deg),
             "phase_noise_deg": self.noise.measured_phase_noise_deg,
@@ -333,6 +337,14 @@ def analyse_series(phase_deg, *, heights_m, pixel_m, bias_v=None, repeat_phase_d
     note = _small_scan_note(a)
     return dataclasses.replace(a, edge_note=note) if note else a
 
+
+ERROR_METHOD = {
+    "reflect": "first-order propagation of the measured white noise through fits with fixed weights; checked "
+               "against the scatter over repeats with fresh noise (64-256 px crops: 0.8-1.25)",
+    "window": "periodic approximation on the window grid; not checked by Monte Carlo (the magnetic rms scattered "
+              "0.8-2.9 times its error on 64 x 64 crops)",
+    "periodic": "per-frequency closed form for a periodic scan; not checked by Monte Carlo",
+}
 
 SMALL_SCAN_FRACTION = 0.12  # continuation range against the scan size from which the note is given
 
@@ -564,4 +576,5 @@ def _decompose(phase_deg, *, heights_m, pixel_m, bias_v, repeat_phase_deg, sprin
         recommendation=rec, noise=verdict, tip_change=tip, magnetic_deg=mag_deg, residual_deg=fit.residual * lin,
         nan_pixels=int(bad.sum()), signal_space="gradient" if exact else "phase", fitted_parameters=params,
         drift_std_px=drift_sd, drift_mean_std_px=drift_mean_sd,
-        cpd_model_std_v=mf.cpd_model_std_v, **parts_deg)
+        cpd_model_std_v=mf.cpd_model_std_v, alias_axes=tuple(alias_axes), error_method=ERROR_METHOD[edge],
+        **parts_deg)

@@ -183,15 +183,20 @@ def series(args) -> int:
 
 
 def _series_text(d: dict) -> list[str]:
-    lines = ["height_nm  magnetic_rms_deg  electrostatic_mean_deg  short_range_mean_deg"]
-    es = d["electrostatic_mean_deg"]
+    lines = ["height_nm  magnetic_rms_deg  nonmagnetic_mean_deg  electrostatic_mean_deg  short_range_mean_deg"]
+    es, total = d["electrostatic_mean_deg"], d["nonmagnetic_mean_deg"]
     for i, h in enumerate(d["heights_nm"]):
         e = es[i] if not isinstance(es[i], list) else es[i][0]
-        lines.append(f"{h:9.1f}  {d['magnetic_rms_deg'][i]:16.4f}  {e:22.4f}  {d['short_range_mean_deg'][i]:20.4f}")
+        t = total[i] if not isinstance(total[i], list) else total[i][0]
+        lines.append(f"{h:9.1f}  {d['magnetic_rms_deg'][i]:16.4f}  {t:20.4f}  {e:22.4f}  "
+                     f"{d['short_range_mean_deg'][i]:20.4f}")
     if d.get("edge") == "reflect" and d.get("edge_band_px"):
         lines.append(f"magnetic rms over the interior: an edge band of {d['edge_band_px']} px left out")
     lines.append(f"residual rms: {d['residual_rms_deg']} deg")
     lines.append(f"recommended lift height: {d['recommended_lift_nm']} nm")
     if d.get("cpd_v") is not None:
         lines.append(f"contact potential difference V_cpd = {d['cpd_v']:.3f} V")
+    lines.append(d["separability"])
+    if d.get("edge_note"):
+        lines.append(d["edge_note"])
     return lines

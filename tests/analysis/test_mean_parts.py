@@ -80,7 +80,7 @@ def test_a_model_that_cannot_fit_is_never_silent():
     s = build_series(rows=64, cols=64, heights_m=np.array([20, 30, 45, 60, 80]) * 1e-9, noise_deg=0.02, seed=14)
     phase = s.phase_deg + np.random.default_rng(14).normal(scale=0.05, size=(5, 1, 1))
     a = analyse_series(phase, heights_m=s.heights_m, pixel_m=s.pixel_m, **s.analysis_kwargs)
-    assert "does not fit the measured means within noise" in a.separability_sentence
+    assert "does not fit the measured means within their uncertainty" in a.separability_sentence
     assert "Birge ratio" in a.separability_sentence
     d = a.to_dict()
     assert d["mean_model_reduced_chi2"] > 10 and d["mean_model_birge_ratio"] > 3
