@@ -42,17 +42,22 @@ def recommendation_title(a: SeriesAnalysis) -> str:
     return f"Recommended: {lift}{bias}"
 
 
+def _whole(std, model_std):
+    """Noise and model uncertainty in quadrature (the model part may be missing)."""
+    return std if model_std is None else np.hypot(std, model_std)
+
+
 def mean_figure(a: SeriesAnalysis) -> Figure:
-    """Image-mean phase (deg) against lift height (nm) with the fitted parts and 1-sigma bands."""
-    fig = _new_figure((6.4, 6.0))
-    ax, note = fig.subplots(2, 1, height_ratios=[4.2, 1.0])
+    """Image-mean phase (deg) against lift height (nm) with the parts and 1-sigma bands (noise and model)."""
+    fig = _new_figure((6.4, 6.8))
+    ax, note = fig.subplots(2, 1, height_ratios=[4.2, 1.8])
     h = a.heights_nm
-    es, es_sd = a.electrostatic_mean_deg, a.electrostatic_mean_std_deg
-    sr, sr_sd = a.short_range_mean_deg, a.short_range_mean_std_deg
+    es, es_sd = a.electrostatic_mean_deg, _whole(a.electrostatic_mean_std_deg, a.electrostatic_mean_model_std_deg)
+    sr, sr_sd = a.short_range_mean_deg, _whole(a.short_range_mean_std_deg, a.short_range_mean_model_std_deg)
     if es.ndim == 1:
         ax.errorbar(h, a.mean_phase_deg, yerr=a.mean_phase_std_deg, fmt="o", color="k", ms=4,
                     label="measured image mean")
-        ax.plot(h, es + sr, "-", color="0.3", label="fit: electrostatic + short-range")
+        ax.plot(h, es + sr, "-", color="0.3", label="electrostatic + short-range (the measured total)")
         ax.plot(h, es, "-", color="tab:blue", label="electrostatic")
         ax.fill_between(h, es - es_sd, es + es_sd, color="tab:blue", alpha=0.25, linewidth=0)
     else:
