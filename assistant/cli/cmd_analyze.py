@@ -60,7 +60,7 @@ def _load_record(p: Path, rate_hz: float | None):
 
 
 def thermal(args) -> int:
-    from assistant.analysis import thermal as th
+    from assistant.analysis.calibration import thermal as th
 
     p = _existing(args.file)
     invols = args.invols * 1e-9 if args.invols else None
@@ -92,7 +92,7 @@ def thermal(args) -> int:
 
 
 def _thermal_from_session(p: Path, args, invols):
-    from assistant.analysis import thermal as th
+    from assistant.analysis.calibration import thermal as th
     from assistant.storage.session_file import SessionFile
 
     with SessionFile.open(p, "r") as sf:
@@ -111,7 +111,7 @@ def _thermal_from_session(p: Path, args, invols):
 
 # ---- sader ---------------------------------------------------------------------------------------------------
 def sader(args) -> int:
-    from assistant.analysis.sader import sader_spring_constant
+    from assistant.analysis.calibration.sader import sader_spring_constant
 
     r = sader_spring_constant(args.length_um * 1e-6, args.width_um * 1e-6, args.f0_hz, args.q,
                               temperature_k=args.temperature_k, pressure_pa=args.pressure_pa)
@@ -140,7 +140,7 @@ def _load_sweep(p: Path):
 
 
 def sweep(args) -> int:
-    from assistant.analysis.sweep import fit_drive_sweep
+    from assistant.analysis.calibration.sweep import fit_drive_sweep
 
     f, a, ph = _load_sweep(_existing(args.file))
     r = fit_drive_sweep(f, a, ph)

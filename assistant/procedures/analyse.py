@@ -35,7 +35,7 @@ def _probe_inputs(settings: dict) -> dict:
 def analyse_arrays(phase_deg: np.ndarray, *, heights_m, pixel_m: float | tuple[float, float], bias_v=None,
                    repeat_phase_deg=None, line_rate_hz: float | None = None, pixels: int | None = None,
                    short_range_fraction: float = 0.1, edge: str = "auto", **probe):
-    from assistant.analysis.series import analyse_series
+    from assistant.analysis.lift_series.decomposition import analyse_series
 
     bandwidth = None
     if line_rate_hz and pixels:
@@ -137,7 +137,7 @@ def analyse_npz(path: Path, *, short_range_fraction: float = 0.1, edge: str = "a
     def scalar(key: str, factor: float = 1.0):
         return float(get[key]) * factor if key in get else None
 
-    from assistant.analysis.series import analyse_series
+    from assistant.analysis.lift_series.decomposition import analyse_series
 
     kwargs = {
         "spring_constant_n_per_m": scalar("spring_constant_n_per_m"), "quality_factor": scalar("quality_factor"),

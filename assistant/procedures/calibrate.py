@@ -19,8 +19,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from assistant.analysis import thermal as th
-from assistant.analysis.spectra import WelchAccumulator
+from assistant.analysis.calibration import thermal as th
+from assistant.analysis.calibration.spectra import WelchAccumulator
 from assistant.procedures.acquire import drive_sweep, thermal_chunks
 from assistant.procedures.events import CancelToken, Notice, Progress, Sink, null_sink
 from assistant.procedures.guard import SafetyLimits, safety_guard
@@ -90,8 +90,8 @@ class DriveSettings:
 @dataclass
 class CalibrationResult:
     thermal: th.ThermalResult
-    sweep: object  # assistant.analysis.sweep fit result
-    sader: object | None  # assistant.analysis.sader result
+    sweep: object  # assistant.analysis.calibration.sweep fit result
+    sader: object | None  # assistant.analysis.calibration.sader result
     k_n_per_m: float
     k_std_n_per_m: float
     k_source: str
@@ -148,7 +148,7 @@ def _thermal(controller, settings: CalibrationSettings, *, sink: Sink, cancel: C
 
 
 def _sweep(controller, settings: CalibrationSettings, f0_hz: float, q: float, *, sink: Sink, cancel: CancelToken):
-    from assistant.analysis import sweep as sw
+    from assistant.analysis.calibration import sweep as sw
 
     half_width = 6.0 * f0_hz / q
     freqs = np.linspace(f0_hz - half_width, f0_hz + half_width, settings.sweep_points)
@@ -172,8 +172,8 @@ def _dimensions(controller, settings: CalibrationSettings) -> tuple[float | None
 def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits | None = None,
               sink: Sink = null_sink, cancel: CancelToken | None = None) -> CalibrationResult:
     """Run the whole calibration on a withdrawn stage. Runs inside the safety guard."""
-    from assistant.analysis import sader as sd
-    from assistant.analysis import sweep as sw
+    from assistant.analysis.calibration import sader as sd
+    from assistant.analysis.calibration import sweep as sw
 
     settings.validate()
     limits = limits or SafetyLimits()
@@ -275,7 +275,7 @@ def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits
 def _drive_setup(controller, settings: CalibrationSettings, sweep_fit, invols_m_per_v: float, *,
                  limits: SafetyLimits) -> DriveSettings:
     """Drive amplitude for the requested free amplitude, through the sweep's response and InvOLS."""
-    from assistant.analysis import sweep as sw
+    from assistant.analysis.calibration import sweep as sw
 
     invols_dynamic = invols_m_per_v * CHI_OPTICAL_LEVER  # volts -> true first-mode displacement
     frequency = sw.drive_frequency(sweep_fit)
@@ -302,7 +302,7 @@ def _drive_setup(controller, settings: CalibrationSettings, sweep_fit, invols_m_
 def _contact_invols(controller, settings: CalibrationSettings, sweep_fit, *, limits: SafetyLimits, sink: Sink,
                     cancel: CancelToken):
     """Approach, take force curves on the surface, fit the contact slope, withdraw."""
-    from assistant.analysis import force_curve as fc
+    from assistant.analysis.calibration import force_curve as fc
     from assistant.procedures.approach import ApproachSettings, approach
     from drivers.base import Capability
 

@@ -219,7 +219,7 @@ def _calibration_figures(session: SessionFile, out_dir: Path, notes: list[str]) 
     sweep = _figure_writer(mod, "sweep_figure")
     if resonance is not None and sweep is not None and "frequency_hz" in resonance.arrays:
         def write_sweep() -> None:
-            from assistant.analysis.sweep import fit_drive_sweep
+            from assistant.analysis.calibration.sweep import fit_drive_sweep
 
             a = resonance.arrays
             sweep(fit_drive_sweep(a["frequency_hz"], a["amplitude_v"], a["phase_deg"]), out_dir / "sweep.png")
@@ -233,8 +233,8 @@ def _thermal_result(record: Record):
     The route of the stored calibration is kept: on the non-contact path k came from Sader and InvOLS from this
     spectrum, so the figure converts with that k (showing a thermal k there would be circular).
     """
-    from assistant.analysis import thermal as th
-    from assistant.analysis.spectra import WelchSpectrum
+    from assistant.analysis.calibration import thermal as th
+    from assistant.analysis.calibration.spectra import WelchSpectrum
 
     s, a = record.scalars, record.arrays
     f = a["spectrum_frequency_hz"]

@@ -23,10 +23,10 @@ import warnings
 import numpy as np
 from scipy.optimize import curve_fit
 
-from assistant.analysis import decomposition as dec
-from assistant.analysis.continuation_reflect import fit_continuation_reflect
-from assistant.analysis.series import analyse_series
-from tests.analysis.synthetic_series import build_series
+from assistant.analysis.lift_series import continuation as dec
+from assistant.analysis.lift_series.reflected import fit_continuation_reflect
+from assistant.analysis.lift_series.decomposition import analyse_series
+from tests.analysis.lift_series.synthetic_series import build_series
 
 HEIGHTS = np.array([20, 30, 40, 55, 70, 90, 110, 140]) * 1e-9
 

@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 import scipy.special
 
-from assistant.analysis.sader import (
+from assistant.analysis.calibration.sader import (
     hydrodynamic_circular, hydrodynamic_rectangular, omega_correction, sader_spring_constant,
 )
 

@@ -15,8 +15,8 @@ from __future__ import annotations
 import numpy as np
 from scipy import ndimage
 
-from .continuation_reflect import fit_continuation_reflect
-from .decomposition import ContinuationFit
+from .reflected import fit_continuation_reflect
+from .continuation import ContinuationFit
 
 __all__ = ["average_biases", "reflect_align", "fit_with_drift_reflect"]
 

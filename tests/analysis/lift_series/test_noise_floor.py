@@ -4,7 +4,7 @@ the worked example k = 2.8 N/m, f0 = 75 kHz, Q = 200, T = 300 K, B = 100 Hz, A =
 import numpy as np
 import pytest
 
-from assistant.analysis import noise_floor as nf
+from assistant.analysis.lift_series import noise_floor as nf
 
 EX = dict(spring_constant_n_per_m=2.8, resonance_hz=75e3, quality_factor=200.0, temperature_k=300.0,
           bandwidth_hz=100.0, amplitude_m=10e-9)

@@ -34,9 +34,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import decomposition as dec
-from . import lift_models as lm
-from .align_reflect import average_biases, fit_with_drift_reflect
+from . import continuation as dec
+from . import image_mean_models as lm
+from .reflected_drift import average_biases, fit_with_drift_reflect
 from .noise_floor import NoiseVerdict, noise_verdict, periodic_component_of, white_noise_std
 from .recommend import Recommendation, recommend_lift
 from .registration import align_stack, shift_from_spectra

@@ -8,7 +8,7 @@ lag atan2(gamma w, k - m w^2). The instruments report the lock-in phase as -(lag
 import numpy as np
 import pytest
 
-from assistant.analysis.sweep import (
+from assistant.analysis.calibration.sweep import (
     SweepFitError, compare_q, drive_amplitude_for_free_amplitude, drive_frequency, fit_drive_sweep,
     setpoint_from_ratio, sweep_response_v_per_v,
 )

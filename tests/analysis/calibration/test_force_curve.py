@@ -4,7 +4,7 @@ with a hard sample the deflection equals the piezo travel; lever and contact are
 import numpy as np
 import pytest
 
-from assistant.analysis.force_curve import ForceCurveError, contact_invols, stiff_sample_invols
+from assistant.analysis.calibration.force_curve import ForceCurveError, contact_invols, stiff_sample_invols
 
 
 def force_curve(*, invols=40e-9, k=2.8, k_sample=np.inf, snap_v=-0.05, adhesion_v=-0.3, noise_v=0.0,

@@ -11,9 +11,9 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from assistant.analysis import series as ser
-from assistant.analysis.series import analyse_series
-from tests.analysis.synthetic_series import build_series
+from assistant.analysis.lift_series import decomposition as ser
+from assistant.analysis.lift_series.decomposition import analyse_series
+from tests.analysis.lift_series.synthetic_series import build_series
 
 HEIGHTS = np.array([20, 35, 50, 70]) * 1e-9
 BASE = build_series(rows=64, cols=64, heights_m=HEIGHTS, noise_deg=0.03, magnetic_scale=0.3,

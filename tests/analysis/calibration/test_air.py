@@ -8,7 +8,7 @@ Chem. Ref. Data 29, 331) and Lemmon & Jacobsen 2004 (Int. J. Thermophys. 25, 21)
 import numpy as np
 import pytest
 
-from assistant.analysis.air import air_density_kg_m3, air_viscosity_pa_s
+from assistant.analysis.calibration.air import air_density_kg_m3, air_viscosity_pa_s
 
 # T [deg C]: (ideal-gas rho, reference rho, Sutherland eta, reference eta)
 TABLE = {

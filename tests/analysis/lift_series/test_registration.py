@@ -4,8 +4,8 @@ against shifts made with the Fourier shift theorem (independent implementation i
 import numpy as np
 import pytest
 
-from assistant.analysis.registration import align_stack, estimate_drift_px, estimate_shift_px, fourier_shift
-from tests.analysis.synthetic_series import random_domains, shift_image
+from assistant.analysis.lift_series.registration import align_stack, estimate_drift_px, estimate_shift_px, fourier_shift
+from tests.analysis.lift_series.synthetic_series import random_domains, shift_image
 
 
 def _pattern(rng, n=128, blur_px=1.5):

@@ -5,9 +5,9 @@ import numpy as np
 import pytest
 from scipy import ndimage
 
-from assistant.analysis.series import analyse_series
-from assistant.analysis.tip_change import detect_tip_change
-from tests.analysis.synthetic_series import build_series
+from assistant.analysis.lift_series.decomposition import analyse_series
+from assistant.analysis.lift_series.tip_change import detect_tip_change
+from tests.analysis.lift_series.synthetic_series import build_series
 
 HEIGHTS = np.array([20, 30, 40, 60, 80]) * 1e-9
 

@@ -9,8 +9,8 @@
 
 import numpy as np
 
-from assistant.analysis.align_reflect import fit_with_drift_reflect, reflect_align
-from tests.analysis.synthetic_series import build_series
+from assistant.analysis.lift_series.reflected_drift import fit_with_drift_reflect, reflect_align
+from tests.analysis.lift_series.synthetic_series import build_series
 
 
 def test_whole_pixel_shift_is_a_roll_away_from_the_edges():

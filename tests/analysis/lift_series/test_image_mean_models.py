@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 from scipy import integrate, special
 
-from assistant.analysis import lift_models as lm
+from assistant.analysis.lift_series import image_mean_models as lm
 
 R = 30e-9
 Z = 20e-9

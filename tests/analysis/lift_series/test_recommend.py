@@ -4,9 +4,9 @@
 import numpy as np
 import pytest
 
-from assistant.analysis.recommend import recommend_lift
-from assistant.analysis.series import analyse_series
-from tests.analysis.synthetic_series import build_series
+from assistant.analysis.lift_series.recommend import recommend_lift
+from assistant.analysis.lift_series.decomposition import analyse_series
+from tests.analysis.lift_series.synthetic_series import build_series
 
 HEIGHTS = np.array([6, 9, 12, 16, 20, 26, 34, 44]) * 1e-9
 

@@ -11,9 +11,9 @@ per height.
 import numpy as np
 import pytest
 
-from assistant.analysis import decomposition as dec
-from assistant.analysis.series import analyse_series
-from tests.analysis.synthetic_series import build_series
+from assistant.analysis.lift_series import continuation as dec
+from assistant.analysis.lift_series.decomposition import analyse_series
+from tests.analysis.lift_series.synthetic_series import build_series
 
 HEIGHTS = np.array([20, 30, 40, 55, 70, 90, 110, 140]) * 1e-9
 

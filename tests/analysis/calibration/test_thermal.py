@@ -12,7 +12,7 @@ import pytest
 import scipy.integrate
 import scipy.optimize
 
-from assistant.analysis.thermal import (
+from assistant.analysis.calibration.thermal import (
     BOLTZMANN_J_PER_K as KB, DETECTION_FACTORS, ThermalFitError, analyse_thermal_record, calibrate_thermal,
     fit_thermal_spectrum, invols_from_thermal, oscillator_psd, spring_constant_from_thermal,
 )

@@ -12,8 +12,8 @@
 import numpy as np
 import pytest
 
-from assistant.analysis.continuation_reflect import fit_continuation_reflect
-from assistant.analysis.decomposition import resolution_period_m
+from assistant.analysis.lift_series.reflected import fit_continuation_reflect
+from assistant.analysis.lift_series.continuation import resolution_period_m
 
 HEIGHTS = np.array([20, 30, 45, 60, 80]) * 1e-9
 PIXEL = 10e-9

@@ -25,7 +25,7 @@ from __future__ import annotations
 import numpy as np
 from scipy import fft as sp_fft
 
-from .decomposition import ContinuationFit, alias_axes_for, dct_frequencies, pixel_pair_m
+from .continuation import ContinuationFit, alias_axes_for, dct_frequencies, pixel_pair_m
 
 __all__ = ["fit_continuation_reflect"]
 

@@ -8,7 +8,7 @@ import scipy.signal
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from assistant.analysis.spectra import SpectrumError, WelchAccumulator, welch_variance_inflation
+from assistant.analysis.calibration.spectra import SpectrumError, WelchAccumulator, welch_variance_inflation
 
 
 def _reference(x, rate_hz, nperseg, detrend="constant"):
