@@ -22,7 +22,7 @@ from matplotlib.colors import ListedColormap, Normalize
 from matplotlib.figure import Figure
 from matplotlib.patches import Rectangle
 
-from assistant.analysis.lift_series.decomposition import SeriesAnalysis
+from assistant.analysis.lift_series import SeriesAnalysis
 from assistant.report.images import phase_colormap, save_png
 
 __all__ = ["mean_figure", "magnetic_figure", "maps_figure", "series_figures", "write_series_figures",

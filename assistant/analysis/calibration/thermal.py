@@ -24,15 +24,15 @@ from dataclasses import dataclass, replace
 import numpy as np
 import scipy.ndimage
 
+from ..constants import BOLTZMANN_J_PER_K
 from .spectra import WelchAccumulator, WelchSpectrum
 
 __all__ = [
-    "BOLTZMANN_J_PER_K", "DETECTION_FACTORS", "ThermalFit", "ThermalFitError", "ThermalResult",
+    "DETECTION_FACTORS", "ThermalFit", "ThermalFitError", "ThermalResult",
     "analyse_thermal_record", "calibrate_thermal", "default_segment_length", "fit_thermal_spectrum", "invols_from_thermal",
     "oscillator_psd", "spring_constant_from_thermal",
 ]
 
-BOLTZMANN_J_PER_K = 1.380649e-23  # exact, SI 2019
 # Butt & Jaschke 1995: first-mode factors (optical lever with static InvOLS; displacement detection).
 DETECTION_FACTORS = {"optical-lever": 0.817434, "displacement": 0.970688}
 _MAX_F0_OVER_NYQUIST = 0.8  # common practice, no source: keep the peak clear of aliasing and filters

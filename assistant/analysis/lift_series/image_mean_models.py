@@ -1,18 +1,20 @@
-"""Image-mean models of a lift-height series: electrostatic, van der Waals, oscillation averaging, phase.
+"""Image-mean models of a lift series: electrostatic and van der Waals gradients of the tip, their average over
+the oscillation, and the gap the tip oscillates at.
 
-Sign convention (used throughout the analysis): ``z`` is the tip-sample gap, increasing away from the
-surface; ``F`` is the z-component of the force, positive = repulsive; ``F' = dF/dz``. An attractive force
-that strengthens on approach has ``F < 0`` and ``F' > 0``. The reported phase shift is
-``phase = -arctan(Q F'/k)``: an attractive gradient gives a negative (dark) phase.
+Sign convention as in :mod:`.phase`: ``F' = dF/dz`` with ``z`` the tip-sample gap, so an attractive force that
+strengthens on approach has ``F' > 0``.
 
 Gap convention of a second pass: the centre of the tip's oscillation sits ``gap_offset_m + lift_height_m``
 above the surface and the tip swings ``amplitude_m`` (peak) either side of it. ``gap_offset_m`` defaults
-to ``amplitude_m``, so that the closest approach equals the lift height.
+to ``amplitude_m``, so that the closest approach equals the lift height; a series recorded under amplitude
+feedback knows it better (:func:`first_pass_gap_offset_m`).
 """
 
 from __future__ import annotations
 
 import numpy as np
+
+from .probe import ProbeModel
 
 EPSILON_0_F_PER_M = 8.8541878188e-12  # CODATA 2022
 
@@ -29,9 +31,9 @@ __all__ = [
     "vdw_sphere_force_n",
     "vdw_sphere_gradient_n_per_m",
     "amplitude_weighted",
-    "phase_deg_from_gradient",
-    "gradient_from_phase_deg",
     "centre_gap_m",
+    "first_pass_gap_offset_m",
+    "image_mean_shapes",
 ]
 
 
@@ -268,17 +270,28 @@ def amplitude_weighted(gradient, centre_gap_m, *, amplitude_m: float, n_nodes: i
     return (2.0 / np.pi) * (vals * w).sum(axis=-1)
 
 
-def phase_deg_from_gradient(gradient_n_per_m, *, spring_constant_n_per_m: float, quality_factor: float):
-    """Phase shift at fixed drive on the free resonance: ``-arctan(Q F'/k)`` in degrees.
+def first_pass_gap_offset_m(amplitude_m: float, setpoint_ratio: float) -> float:
+    """Oscillation centre above the surface at zero lift [m], for a series whose first pass ran under amplitude
+    feedback: a tapping tip's amplitude is limited by the gap, and the feedback holds it at the setpoint, so
+    the centre sits about one setpoint amplitude, ``amplitude_m * setpoint_ratio``, above the surface (a
+    model, common practice, no source)."""
+    return float(amplitude_m) * float(setpoint_ratio)
 
-    Exact within the driven damped-oscillator model with stiffness ``k - F'`` (textbook; Hartmann 1999,
-    Annu. Rev. Mater. Sci. 29, 53 for the small-gradient form). Attractive (F' > 0) -> negative phase.
+
+def image_mean_shapes(heights_m, probe: ProbeModel) -> tuple[np.ndarray, np.ndarray]:
+    """The two image-mean shapes at each lift height, per unit parameter [N/m]: the amplitude-weighted
+    ``1/2 C''`` of the tip (times ``(V - V_cpd)^2`` it is the electrostatic gradient) and the amplitude-weighted
+    Hamaker sphere gradient per unit Hamaker constant.
+
+    Raises ``ValueError`` where the closest approach of the oscillation would reach the surface.
     """
-    g = np.asarray(gradient_n_per_m, dtype=float)
-    return -np.degrees(np.arctan(quality_factor * g / spring_constant_n_per_m))
-
-
-def gradient_from_phase_deg(phase_deg, *, spring_constant_n_per_m: float, quality_factor: float):
-    """Inverse of :func:`phase_deg_from_gradient`: ``F' = -(k/Q) tan(phase)`` [N/m]."""
-    p = np.asarray(phase_deg, dtype=float)
-    return -spring_constant_n_per_m / quality_factor * np.tan(np.radians(p))
+    dc = centre_gap_m(heights_m, amplitude_m=probe.amplitude_m, gap_offset_m=probe.gap_offset_m)
+    electrostatic = amplitude_weighted(
+        lambda z: 0.5 * tip_capacitance_second_derivative_f_per_m2(
+            z, radius_m=probe.tip_radius_m, cone_half_angle_deg=probe.cone_half_angle_deg,
+            cone_height_m=probe.cone_height_m),
+        dc, amplitude_m=probe.amplitude_m)
+    short_range = amplitude_weighted(
+        lambda z: vdw_sphere_gradient_n_per_m(z, hamaker_j=1.0, radius_m=probe.tip_radius_m), dc,
+        amplitude_m=probe.amplitude_m)
+    return electrostatic, short_range

@@ -10,10 +10,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-BOLTZMANN_J_PER_K = 1.380649e-23  # exact (SI 2019)
+from ..constants import BOLTZMANN_J_PER_K
+from .phase import linear_phase_slope_deg
 
 __all__ = [
-    "BOLTZMANN_J_PER_K",
     "thermal_min_gradient_n_per_m",
     "thermal_min_phase_deg",
     "periodic_component_of",
@@ -67,7 +67,8 @@ def thermal_min_phase_deg(*, spring_constant_n_per_m: float, resonance_hz: float
         spring_constant_n_per_m=spring_constant_n_per_m, resonance_hz=resonance_hz,
         quality_factor=quality_factor, temperature_k=temperature_k, bandwidth_hz=bandwidth_hz,
         amplitude_m=amplitude_m, amplitude_is_rms=amplitude_is_rms)
-    return float(np.degrees(quality_factor * g / spring_constant_n_per_m))
+    return float(g * linear_phase_slope_deg(spring_constant_n_per_m=spring_constant_n_per_m,
+                                            quality_factor=quality_factor))
 
 
 def periodic_component_of(image: np.ndarray) -> np.ndarray:
@@ -168,7 +169,8 @@ def noise_verdict(measured_phase_noise_deg: float, *, spring_constant_n_per_m: f
     g = thermal_min_gradient_n_per_m(spring_constant_n_per_m=spring_constant_n_per_m, resonance_hz=resonance_hz,
                                      quality_factor=quality_factor, temperature_k=temperature_k,
                                      bandwidth_hz=bandwidth_hz, amplitude_m=amplitude_m)
-    t = float(np.degrees(quality_factor * g / spring_constant_n_per_m))
+    t = float(g * linear_phase_slope_deg(spring_constant_n_per_m=spring_constant_n_per_m,
+                                         quality_factor=quality_factor))
     r = m / t
     if r > tolerance:
         v, s = "excess_noise", (f"Phase noise {m:.3g} deg rms is {r:.2g} x the thermal limit {t:.3g} deg: "

@@ -16,7 +16,7 @@ two differ to first order by the normal derivative at the edge times the distanc
 that difference through the continuation kernel (a Poisson kernel of width ``h - h_0``), so their images
 misfit within a few kernel widths of the edges, and the joint fit passes a small part of that misfit on to
 the lowest height. The noise of every height is therefore estimated from the residual in the interior
-only. :func:`~assistant.analysis.decomposition.fit_continuation_windowed` treats the outside as missing data
+only. :func:`~.windowed.fit_continuation_windowed` treats the outside as missing data
 and removes the misfit, at one to two hundred times the cost.
 """
 
@@ -25,27 +25,10 @@ from __future__ import annotations
 import numpy as np
 from scipy import fft as sp_fft
 
-from .continuation import ContinuationFit, alias_axes_for, dct_frequencies, pixel_pair_m
+from .continuation import ContinuationFit
+from .frequencies import alias_axes_for, dct_alias_frequencies, pixel_pair_m
 
-__all__ = ["fit_continuation_reflect"]
-
-
-def _fields(shape, pixel_m, axes):
-    """Frequency pairs of the fundamental and of the alias partners kept on ``axes``.
-
-    A scan point-samples the field, so a cosine of frequency ``1/p - f`` or ``1/p + f`` along an axis with
-    spacing p lands on the cell of ``f`` (with its sign flipped, absorbed by the amplitude) but decays with
-    its own, larger ``|q|`` (Shannon 1949, Proc. IRE 37, 10; from memory).
-    """
-    pr, pc = pixel_pair_m(pixel_m)
-    fr, fc = dct_frequencies(shape, pixel_m)
-    fr, fc = np.broadcast_arrays(fr, fc)
-    out = [(fr, fc)]
-    if 0 in axes:
-        out += [(1.0 / pr - fr, fc), (1.0 / pr + fr, fc)]
-    if 1 in axes:
-        out += [(fr, 1.0 / pc - fc), (fr, 1.0 / pc + fc)]
-    return out
+__all__ = ["fit_continuation_reflected"]
 
 
 def _solve_cells(e, w, f, ridge, out=None):
@@ -146,7 +129,7 @@ def _variances(w, sigma2, hat, g0, work=None):
     return np.einsum("hjq,hjq,j->hq", hat, hat, sigma2), np.einsum("h,hq,hq->q", ws, g0, g0)
 
 
-def fit_continuation_reflect(stack: np.ndarray, *, heights_m, pixel_m, valid: np.ndarray | None = None,
+def fit_continuation_reflected(stack: np.ndarray, *, heights_m, pixel_m, valid: np.ndarray | None = None,
                              interior_px: int = 0, alias_axes="auto", alias_ridge: float = 1e-4,
                              max_weight_ratio: float = 10.0, n_fill: int = 8,
                              noise_std: np.ndarray | None = None) -> ContinuationFit:
@@ -157,7 +140,7 @@ def fit_continuation_reflect(stack: np.ndarray, *, heights_m, pixel_m, valid: np
     from an earlier estimate ``noise_std``, so that a height whose residual shows more than noise (a noisier
     pass, contrast that does not continue) weighs less and cannot pull the others. With equal weights the
     lowest height's estimate is mostly the other heights' noise continued down, so the weights are iterated:
-    :func:`~assistant.analysis.align_reflect.fit_with_drift_reflect` weighs every fit after its first by the
+    :func:`~.reflected_drift.fit_with_drift_reflected` weighs every fit after its first by the
     noise the one before found. Masked pixels are filled with the model and refitted
     (expectation-maximisation), up to ``n_fill`` times.
 
@@ -174,7 +157,7 @@ def fit_continuation_reflect(stack: np.ndarray, *, heights_m, pixel_m, valid: np
     interior_px : int
         Width of the edge band left out of the noise estimate and of ``residual_rms`` [px].
     alias_axes : "auto" or sequence of {0, 1}
-        Axes with alias fields (see :func:`~assistant.analysis.decomposition.alias_axes_for`).
+        Axes with alias fields (see :func:`~.frequencies.alias_axes_for`).
     alias_ridge : float
         Penalty on the alias fields relative to the mean weight. On two simulated series with 75 and 125 nm
         between lines at 10 nm lowest lift, 1e-3 held the alias fields too tightly (residuals 1.2-1.6x what
@@ -215,7 +198,7 @@ def fit_continuation_reflect(stack: np.ndarray, *, heights_m, pixel_m, valid: np
         means = np.where(ok, data, 0.0).sum(axis=(1, 2)) / np.maximum(ok.sum(axis=(1, 2)), 1)
         work = np.where(ok, data, means[:, None, None])
 
-    fields = _fields((rows, cols), (pr, pc), axes)
+    fields = dct_alias_frequencies((rows, cols), (pr, pc), axes)
     nk = len(fields)
     # per-cell arrays and transforms in single precision: this fit is memory-bound, and half the traffic
     # cut its time by a third. Against double precision on synthetic series the noise, residual and

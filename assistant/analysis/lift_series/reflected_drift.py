@@ -1,12 +1,12 @@
 """Drift of a non-periodic series refined jointly with its reflected-edge continuation.
 
 Images are realigned by a band-limited shift of their reflected extension (the extension the cosine basis of
-:func:`~assistant.analysis.continuation_reflect.fit_continuation_reflect` assumes), never by a periodic shift
+:func:`~.reflected.fit_continuation_reflected` assumes), never by a periodic shift
 of the scan itself, so no content wraps round. The drift of every image is then refined by Gauss-Newton steps
 on the interior residual against the fitted continuation, alternating with the fit; the first image defines
 the frame.
 
-Convention as in :mod:`assistant.analysis.registration`: ``drift_px = [drow, dcol]`` is how far the content
+Convention as in :mod:`.registration`: ``drift_px = [drow, dcol]`` is how far the content
 of an image is displaced relative to the first, ``moving(r, c) = reference(r - drow, c - dcol)``.
 """
 
@@ -15,22 +15,11 @@ from __future__ import annotations
 import numpy as np
 from scipy import ndimage
 
-from .reflected import fit_continuation_reflect
 from .continuation import ContinuationFit
+from .reflected import fit_continuation_reflected
+from .registration import average_biases
 
-__all__ = ["average_biases", "reflect_align", "fit_with_drift_reflect"]
-
-
-def average_biases(aligned: np.ndarray, valid: np.ndarray, nh: int, nb: int):
-    """Average (nh * nb, rows, cols) aligned images over the nb biases of each height, ignoring missing pixels.
-
-    Returns the (nh, rows, cols) stack (NaN where no bias is valid) and its validity.
-    """
-    rows, cols = aligned.shape[-2:]
-    w = valid.reshape(nh, nb, rows, cols)
-    num = np.where(w, aligned.reshape(nh, nb, rows, cols), 0.0).sum(axis=1)
-    cnt = w.sum(axis=1)
-    return np.where(cnt > 0, num / np.maximum(cnt, 1), np.nan), cnt > 0
+__all__ = ["reflect_align", "fit_with_drift_reflected"]
 
 
 def _reflect_shift_axis(x: np.ndarray, shift: np.ndarray, axis: int) -> np.ndarray:
@@ -104,13 +93,13 @@ def _gauss_newton_steps(aligned, valid, model, height_index, band):
     return steps
 
 
-def fit_with_drift_reflect(images: np.ndarray, valid: np.ndarray, drift_px: np.ndarray, *, heights_m, pixel_m,
+def fit_with_drift_reflected(images: np.ndarray, valid: np.ndarray, drift_px: np.ndarray, *, heights_m, pixel_m,
                            nb: int = 1, interior_px: int = 0, refine: bool = True, max_rounds: int = 8,
                            tol_px: float = 0.005) -> tuple[ContinuationFit, np.ndarray, np.ndarray, np.ndarray]:
     """Align, fit the reflected-edge continuation, and refine the drift until it settles.
 
     The first fit weighs the heights equally, every later one by the noise the fit before it found (see
-    :func:`~assistant.analysis.continuation_reflect.fit_continuation_reflect`), so that the last one is robust
+    :func:`~.reflected.fit_continuation_reflected`), so that the last one is robust
     to a height whose residual shows more than noise; it is always a weighted fit at the final drift.
 
     Parameters
@@ -122,7 +111,7 @@ def fit_with_drift_reflect(images: np.ndarray, valid: np.ndarray, drift_px: np.n
     drift_px : ndarray (H * nb, 2)
         Starting drift [px]; the first image's is the frame and stays.
     heights_m, pixel_m
-        As for :func:`~assistant.analysis.continuation_reflect.fit_continuation_reflect`.
+        As for :func:`~.reflected.fit_continuation_reflected`.
     nb : int
         Images per height (biases), averaged after alignment.
     interior_px : int
@@ -147,7 +136,7 @@ def fit_with_drift_reflect(images: np.ndarray, valid: np.ndarray, drift_px: np.n
     def align_and_fit(noise=None):
         aligned, ok = reflect_align(images, valid, drift)
         hstack, hvalid = average_biases(aligned, ok, nh, nb)
-        fit = fit_continuation_reflect(hstack, heights_m=heights_m, pixel_m=pixel_m, valid=hvalid,
+        fit = fit_continuation_reflected(hstack, heights_m=heights_m, pixel_m=pixel_m, valid=hvalid,
                                        interior_px=interior_px, noise_std=noise)
         return fit, aligned, ok
 

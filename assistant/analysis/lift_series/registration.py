@@ -9,16 +9,10 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["estimate_shift_px", "shift_from_spectra", "estimate_drift_px", "fourier_shift", "align_stack"]
+from .frequencies import rfft_cell_weights
 
-
-def _half_weights(cols: int) -> np.ndarray:
-    # a half-plane cell stands for itself and its conjugate, except column 0 and the Nyquist column
-    cw = np.full(cols // 2 + 1, 2.0)
-    cw[0] = 1.0
-    if cols % 2 == 0:
-        cw[-1] = 1.0
-    return cw
+__all__ = ["estimate_shift_px", "shift_from_spectra", "estimate_drift_px", "fourier_shift", "align_stack",
+           "average_biases"]
 
 
 def _upsampled_correlation(cross: np.ndarray, shape: tuple[int, int], size: int, factor: int,
@@ -34,7 +28,7 @@ def _upsampled_correlation(cross: np.ndarray, shape: tuple[int, int], size: int,
     grid = (np.arange(size) - size // 2) / factor
     ar = 2.0 * np.pi / rows * np.outer(grid + centre[0], fr)
     ac = 2.0 * np.pi / cols * np.outer(fc, grid + centre[1])
-    kcr, kci = np.cos(ac) * _half_weights(cols)[:, None], np.sin(ac) * _half_weights(cols)[:, None]
+    kcr, kci = np.cos(ac) * rfft_cell_weights(cols)[:, None], np.sin(ac) * rfft_cell_weights(cols)[:, None]
     cr, ci = np.ascontiguousarray(cross.real), np.ascontiguousarray(cross.imag)
     # real arithmetic with einsum: no BLAS thread pool, whose busy-waiting threads slowed everything else
     # down by about 2x on a loaded two-core machine
@@ -146,3 +140,15 @@ def align_stack(stack: np.ndarray, drift_px: np.ndarray) -> np.ndarray:
     rows, cols = stack.shape[-2:]
     ph = _shift_phase((rows, cols), -np.asarray(drift_px, dtype=float))
     return np.fft.irfft2(np.fft.rfft2(stack, axes=(-2, -1)) * ph, s=(rows, cols), axes=(-2, -1))
+
+
+def average_biases(aligned: np.ndarray, valid: np.ndarray, nh: int, nb: int):
+    """Average (nh * nb, rows, cols) aligned images over the nb biases of each height, ignoring missing pixels.
+
+    Returns the (nh, rows, cols) stack (NaN where no bias is valid) and its validity.
+    """
+    rows, cols = aligned.shape[-2:]
+    w = valid.reshape(nh, nb, rows, cols)
+    num = np.where(w, aligned.reshape(nh, nb, rows, cols), 0.0).sum(axis=1)
+    cnt = w.sum(axis=1)
+    return np.where(cnt > 0, num / np.maximum(cnt, 1), np.nan), cnt > 0

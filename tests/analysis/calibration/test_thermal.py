@@ -12,8 +12,9 @@ import pytest
 import scipy.integrate
 import scipy.optimize
 
+from assistant.analysis.constants import BOLTZMANN_J_PER_K as KB
 from assistant.analysis.calibration.thermal import (
-    BOLTZMANN_J_PER_K as KB, DETECTION_FACTORS, ThermalFitError, analyse_thermal_record, calibrate_thermal,
+    DETECTION_FACTORS, ThermalFitError, analyse_thermal_record, calibrate_thermal,
     fit_thermal_spectrum, invols_from_thermal, oscillator_psd, spring_constant_from_thermal,
 )
 

@@ -12,6 +12,7 @@ import pytest
 from scipy import integrate, special
 
 from assistant.analysis.lift_series import image_mean_models as lm
+from assistant.analysis.lift_series import phase
 
 R = 30e-9
 Z = 20e-9
@@ -111,9 +112,9 @@ def test_giessibl_vdw_finite_amplitude_check_value():
 def test_phase_relation_exact_arctan():
     # exact steady state on resonance: phase = -arctan(Q F'/k); F' = 1e-4 N/m, k = 2.8, Q = 200 -> -0.409249 deg;
     # F' = 5e-3 N/m -> -19.6538 deg (the linear form gives -20.4628 deg)
-    p = lm.phase_deg_from_gradient(np.array([1e-4, 5e-3]), spring_constant_n_per_m=2.8, quality_factor=200)
+    p = phase.phase_deg_from_gradient(np.array([1e-4, 5e-3]), spring_constant_n_per_m=2.8, quality_factor=200)
     np.testing.assert_allclose(p, [-0.409249, -19.6538], rtol=2e-6)
-    back = lm.gradient_from_phase_deg(p, spring_constant_n_per_m=2.8, quality_factor=200)
+    back = phase.gradient_from_phase_deg(p, spring_constant_n_per_m=2.8, quality_factor=200)
     np.testing.assert_allclose(back, [1e-4, 5e-3], rtol=1e-12)
     # exact-sphere phase check value: -(Q/k) F' = -0.02958969 rad (small-angle)
     fp = lm.sphere_electrostatic_gradient_n_per_m(Z, radius_m=R, voltage_v=V)

@@ -12,7 +12,7 @@
 import numpy as np
 import pytest
 
-from assistant.analysis.lift_series.reflected import fit_continuation_reflect
+from assistant.analysis.lift_series.reflected import fit_continuation_reflected
 from assistant.analysis.lift_series.continuation import resolution_period_m
 
 HEIGHTS = np.array([20, 30, 45, 60, 80]) * 1e-9
@@ -36,7 +36,7 @@ TERMS = [(3, 0, 1.0), (0, 5, -0.7), (4, 7, 0.5), (11, 2, 0.3), (20, 17, 0.2)]
 
 def test_even_field_is_reproduced_exactly():
     stack = _even_cosine_stack(96, 80, HEIGHTS, TERMS)
-    fit = fit_continuation_reflect(stack, heights_m=HEIGHTS, pixel_m=PIXEL)
+    fit = fit_continuation_reflected(stack, heights_m=HEIGHTS, pixel_m=PIXEL)
     truth = stack - stack.mean(axis=(1, 2), keepdims=True)
     # single-precision transforms: rounding about 1e-7 of the contrast
     assert np.abs(fit.model - truth).max() < 1e-5 * np.abs(truth).max()
@@ -48,7 +48,7 @@ def test_white_noise_sigma_and_expected_residual():
     sig = np.array([0.02, 0.02, 0.03, 0.02, 0.025])
     clean = _even_cosine_stack(128, 128, HEIGHTS, TERMS)
     stack = clean + sig[:, None, None] * rng.standard_normal(clean.shape)
-    fit = fit_continuation_reflect(stack, heights_m=HEIGHTS, pixel_m=PIXEL, interior_px=10)
+    fit = fit_continuation_reflected(stack, heights_m=HEIGHTS, pixel_m=PIXEL, interior_px=10)
     # the moment estimate is unbiased (mean over 12 seeds 1.017 +- 0.021 of the truth at the lowest height);
     # its scatter is 0.6 % above the lowest height and 7 % at it, whose residual keeps few degrees of freedom
     # (the height alone measures its finest detail)
@@ -68,11 +68,11 @@ def test_noise_weights_change_nothing_for_equal_noise():
     rng = np.random.default_rng(4)
     clean = _even_cosine_stack(64, 64, HEIGHTS, TERMS)
     stack = clean + 0.02 * rng.standard_normal(clean.shape)
-    a = fit_continuation_reflect(stack, heights_m=HEIGHTS, pixel_m=PIXEL)
-    b = fit_continuation_reflect(stack, heights_m=HEIGHTS, pixel_m=PIXEL, noise_std=a.noise_std)
+    a = fit_continuation_reflected(stack, heights_m=HEIGHTS, pixel_m=PIXEL)
+    b = fit_continuation_reflected(stack, heights_m=HEIGHTS, pixel_m=PIXEL, noise_std=a.noise_std)
     np.testing.assert_allclose(a.magnetic_rms, b.magnetic_rms, rtol=2e-3)
     with pytest.raises(ValueError, match="noise_std"):
-        fit_continuation_reflect(stack, heights_m=HEIGHTS, pixel_m=PIXEL, noise_std=[0.02, 0.02])
+        fit_continuation_reflected(stack, heights_m=HEIGHTS, pixel_m=PIXEL, noise_std=[0.02, 0.02])
 
 
 def test_a_height_with_extra_noise_weighs_less():
@@ -81,9 +81,9 @@ def test_a_height_with_extra_noise_weighs_less():
     sig = np.array([0.02, 0.2, 0.02, 0.02, 0.02])
     stack = clean + sig[:, None, None] * rng.standard_normal(clean.shape)
     # as the drift rounds of analyse_series do: equal weights, then each fit weighted by the one before
-    equal = fit_continuation_reflect(stack, heights_m=HEIGHTS, pixel_m=PIXEL)
-    once = fit_continuation_reflect(stack, heights_m=HEIGHTS, pixel_m=PIXEL, noise_std=equal.noise_std)
-    twice = fit_continuation_reflect(stack, heights_m=HEIGHTS, pixel_m=PIXEL, noise_std=once.noise_std)
+    equal = fit_continuation_reflected(stack, heights_m=HEIGHTS, pixel_m=PIXEL)
+    once = fit_continuation_reflected(stack, heights_m=HEIGHTS, pixel_m=PIXEL, noise_std=equal.noise_std)
+    twice = fit_continuation_reflected(stack, heights_m=HEIGHTS, pixel_m=PIXEL, noise_std=once.noise_std)
     truth = clean - clean.mean(axis=(1, 2), keepdims=True)
     err = [np.sqrt(np.mean((f.model - truth) ** 2)) for f in (equal, once, twice)]
     assert err[2] < 0.6 * err[0], err
@@ -99,7 +99,7 @@ def test_masked_pixels_are_filled_and_reported_missing():
     clean = _even_cosine_stack(64, 64, HEIGHTS, TERMS)
     stack = clean + 0.01 * rng.standard_normal(clean.shape)
     stack[2, 10:14, 20:30] = np.nan
-    fit = fit_continuation_reflect(stack, heights_m=HEIGHTS, pixel_m=PIXEL)
+    fit = fit_continuation_reflected(stack, heights_m=HEIGHTS, pixel_m=PIXEL)
     assert np.isnan(fit.residual[2, 10:14, 20:30]).all()
     assert np.isfinite(fit.model).all()
     truth = clean - clean.mean(axis=(1, 2), keepdims=True)
@@ -111,7 +111,7 @@ def test_resolution_coarsens_with_height_on_the_cosine_grid():
     rng = np.random.default_rng(7)
     terms = [(k, k // 2, 1.0 / (1 + k)) for k in range(1, 60, 3)]
     clean = _even_cosine_stack(128, 128, HEIGHTS, terms)
-    fit = fit_continuation_reflect(clean + 0.01 * rng.standard_normal(clean.shape), heights_m=HEIGHTS,
+    fit = fit_continuation_reflected(clean + 0.01 * rng.standard_normal(clean.shape), heights_m=HEIGHTS,
                                    pixel_m=PIXEL)
     per = resolution_period_m(fit)
     assert np.all(np.isfinite(per))

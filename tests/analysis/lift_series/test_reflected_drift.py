@@ -9,7 +9,7 @@
 
 import numpy as np
 
-from assistant.analysis.lift_series.reflected_drift import fit_with_drift_reflect, reflect_align
+from assistant.analysis.lift_series.reflected_drift import fit_with_drift_reflected, reflect_align
 from tests.analysis.lift_series.synthetic_series import build_series
 
 
@@ -62,7 +62,7 @@ def test_drift_refined_with_the_fit_on_a_non_periodic_crop():
     grad = grad - grad.mean(axis=(1, 2), keepdims=True)
     start = np.zeros_like(drift)
     start[1:] = np.round(drift[1:])  # a coarse start, as an integer-pixel correlation peak gives
-    fit, est, _, _ = fit_with_drift_reflect(grad, np.ones(grad.shape, bool), start, heights_m=heights,
+    fit, est, _, _ = fit_with_drift_reflected(grad, np.ones(grad.shape, bool), start, heights_m=heights,
                                             pixel_m=s.pixel_m, interior_px=11)
     assert np.abs(est - drift).max() < 0.1, est - drift
     assert fit.model.shape == grad.shape

@@ -11,7 +11,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from assistant.analysis.lift_series import decomposition as ser
+from assistant.analysis.lift_series import errors as ser
 from assistant.analysis.lift_series.decomposition import analyse_series
 from tests.analysis.lift_series.synthetic_series import build_series
 
