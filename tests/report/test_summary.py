@@ -122,7 +122,7 @@ def test_session_without_series_still_gets_a_summary(tmp_path, no_colleague_modu
 
 def test_calibration_figures_fallback_refits_the_stored_sweep_and_spectrum(tmp_path, monkeypatch):
     from assistant.analysis.calibration.sweep import oscillator_response
-    from assistant.analysis.calibration.thermal import oscillator_psd
+    from assistant.analysis.calibration import oscillator_psd
 
     f = np.linspace(74e3, 76e3, 201)
     amp, phase = oscillator_response(f, f0_hz=75e3, q=200.0, amplitude_at_resonance_v=0.02, phase_offset_deg=-5.0)

@@ -14,10 +14,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from assistant.errors import AssistantError
+
 __all__ = ["ContactInvolsResult", "ForceCurveError", "contact_invols", "stiff_sample_invols"]
 
 
-class ForceCurveError(ValueError):
+class ForceCurveError(AssistantError, ValueError):
     """The force curve cannot be analysed (the message names the quantity and the limit)."""
 
 

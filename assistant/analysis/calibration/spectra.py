@@ -14,7 +14,8 @@ from dataclasses import dataclass
 
 import numpy as np
 import scipy.fft
-import scipy.signal
+
+from assistant.errors import AssistantError
 
 __all__ = ["SpectrumError", "WelchAccumulator", "WelchSpectrum", "welch_variance_inflation"]
 
@@ -23,7 +24,7 @@ _BATCH_SEGMENTS = 16
 _BATCH_SAMPLES = 2**20  # and at most about this many samples per batch
 
 
-class SpectrumError(ValueError):
+class SpectrumError(AssistantError, ValueError):
     """Invalid input to the spectrum estimate (names the quantity, its value and the limit)."""
 
 
@@ -137,6 +138,8 @@ class WelchAccumulator:
         self._step = n // 2
         self._detrend = detrend
         self._workers = int(workers)
+        import scipy.signal  # here, not at import: it costs seconds and only the accumulator needs it
+
         self._window = scipy.signal.get_window("hann", n)  # periodic (fftbins=True), as scipy.signal.welch
         self._batch = max(1, min(_BATCH_SEGMENTS, _BATCH_SAMPLES // n))
         # Input buffer: the unprocessed tail plus new samples, exactly ``batch`` segments when full.

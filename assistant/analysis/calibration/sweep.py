@@ -20,6 +20,8 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.optimize
 
+from assistant.errors import AssistantError
+
 __all__ = [
     "QComparison", "SweepFitError", "SweepResult", "compare_q", "drive_amplitude_for_free_amplitude",
     "drive_frequency", "fit_drive_sweep", "oscillator_response", "setpoint_from_ratio",
@@ -27,7 +29,7 @@ __all__ = [
 ]
 
 
-class SweepFitError(ValueError):
+class SweepFitError(AssistantError, ValueError):
     """The sweep cannot be fitted (the message names the quantity and the limit)."""
 
 

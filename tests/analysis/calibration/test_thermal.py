@@ -13,7 +13,7 @@ import scipy.integrate
 import scipy.optimize
 
 from assistant.analysis.constants import BOLTZMANN_J_PER_K as KB
-from assistant.analysis.calibration.thermal import (
+from assistant.analysis.calibration import (
     DETECTION_FACTORS, ThermalFitError, analyse_thermal_record, calibrate_thermal,
     fit_thermal_spectrum, invols_from_thermal, oscillator_psd, spring_constant_from_thermal,
 )
