@@ -20,9 +20,8 @@ from drivers.base import (Capability, Controller, ControllerInfo, ForceCurve, Li
                           Status, SweepData)
 from drivers.errors import BadURL, ControllerFault, LaserLost, LimitExceeded
 from simulated_stage.clock import PACES, VirtualClock
-from simulated_stage.errors import ScenarioError, StageError, StageFault, StageLimitError
+from simulated_stage.errors import LASER_LOST, ScenarioError, StageError, StageFault, StageLimitError
 from simulated_stage.faults import STAGE_KINDS, FaultPlan, FaultyStage, gate_for
-from simulated_stage.instrument import LASER_LOST
 from simulated_stage.scenario import Scenario, build_microscope, load_scenario
 
 _URL_KEYS = ("scenario", "seed", "pace", "line_rate")
