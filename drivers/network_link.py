@@ -40,7 +40,7 @@ class NetworkController(LinkController):
         host = urlsplit(endpoint).hostname or ""
         if (server_key is None) != (client_key is None):
             raise BadURL("give both server=PUBLIC_KEY_FILE and client=SECRET_KEY_FILE, or neither")
-        from drivers.server import is_loopback
+        from drivers.registry import is_loopback
 
         if server_key is None and not is_loopback(host):
             raise BadURL(f"refusing to talk to {host} unencrypted; give server= and client= key files "

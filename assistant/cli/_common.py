@@ -29,10 +29,7 @@ def classify(exc: BaseException) -> int:
 
     if isinstance(exc, (UsageError, de.BadURL, de.UnknownScheme, de.LimitExceeded)):
         return EXIT_USAGE
-    from drivers.keys import KeyFileError
-    from drivers.server import InsecureBind
-
-    if isinstance(exc, (InsecureBind, KeyFileError)):  # a set-up refused as asked: no keys, a missing key file
+    if isinstance(exc, (de.InsecureBind, de.KeyFileError)):  # a set-up refused as asked: no keys, a missing key file
         return EXIT_USAGE
     if isinstance(exc, de.ControllerError):
         return EXIT_RUNTIME
