@@ -23,7 +23,8 @@ from drivers import keys
 from drivers.errors import BadURL, LinkLost, LinkTimeout, ProtocolError
 from drivers.serial_link import LinkController, _no_extra, _options
 from drivers.wire import messages
-from drivers.wire.commands import Command, exception_for
+from drivers.wire.commands import Command
+from drivers.wire.error_map import exception_for
 
 _FAILED = {getattr(zmq, n) for n in ("EVENT_HANDSHAKE_FAILED_NO_DETAIL", "EVENT_HANDSHAKE_FAILED_PROTOCOL",
                                      "EVENT_HANDSHAKE_FAILED_AUTH") if hasattr(zmq, n)}

@@ -19,7 +19,9 @@ import numpy as np
 from drivers.base import Controller
 from drivers.errors import CapabilityMissing, LimitExceeded
 from drivers.wire import messages
-from drivers.wire.commands import Command, check_limits, check_types, error_for, resolve
+from drivers.wire.checks import check_limits, check_types
+from drivers.wire.commands import Command, resolve
+from drivers.wire.error_map import error_for
 from drivers.wire.scpi import ErrorQueue, WireError, decode_params, encode_answer, split_line
 
 log = logging.getLogger(__name__)
