@@ -4,18 +4,15 @@ limits (both codecs deliver Python values; these checks run on them)."""
 from __future__ import annotations
 
 import math
-import re
 from typing import Any
 
 from drivers.base import Limits
 from drivers.errors import LimitExceeded
-from drivers.wire.scpi import WireError
+from drivers.wire.scpi import NAME, WireError
 
 __all__ = ["MAX_LIST", "check_types", "check_value", "check_limits", "within"]
 
 MAX_LIST = 4096  # values in any list argument (a protocol bound, common practice, no source)
-
-_NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]{0,63}$")
 
 
 def check_types(cmd, args: tuple) -> tuple:
@@ -54,7 +51,7 @@ def check_value(kind: str, v: Any, name: str) -> Any:
             raise WireError(-104, f"{name} must be a boolean")
         return v
     if kind == "name":
-        if not isinstance(v, str) or not _NAME.match(v):
+        if not isinstance(v, str) or not NAME.match(v):
             raise WireError(-104, f"{name} must be a name of letters, digits and _")
         return v
     if kind in ("str", "text"):

@@ -26,7 +26,7 @@ from drivers.base import (
 )
 from drivers.errors import LimitExceeded
 from drivers.wire.checks import within
-from drivers.wire.scpi import WireError
+from drivers.wire.scpi import NAME, WireError
 
 Bounds = Callable[[Limits], tuple[float | None, float | None]]
 
@@ -176,7 +176,7 @@ def _hint_invoke(c: Controller, args: tuple) -> tuple:
     # "name=value" items: the interface lets a controller name any quantity it knows about the probe
     hint = c.probe_hint() or {}
     return (tuple(f"{k}={float(v)!r}" for k, v in sorted(hint.items())
-                  if _NAME.match(str(k)) and v is not None),)
+                  if NAME.match(str(k)) and v is not None),)
 
 
 def _hint_unpack(args: tuple, f: tuple) -> dict[str, float] | None:

@@ -13,15 +13,15 @@ Every decoding problem raises :class:`WireError`, a :class:`drivers.errors.Proto
 standard SCPI error code that the server queues for ``SYSTem:ERRor?``.
 """
 
-from drivers.wire.scpi.lines import (MAX_BLOCK, MAX_LINE, STANDARD_ERRORS, ErrorQueue, ParsedCommand, WireError,
-                                     format_command, format_error, format_float, format_line, format_string,
+from drivers.wire.scpi.lines import (MAX_BLOCK, MAX_LINE, NAME, STANDARD_ERRORS, ErrorQueue, ParsedCommand,
+                                     WireError, format_command, format_error, format_float, format_line, format_string,
                                      parse_bool, parse_float, parse_int, parse_name, parse_string, split_line)
 from drivers.wire.scpi.replies import Token, decode_block, encode_block, parse_reply, reply_end
 from drivers.wire.scpi.values import decode_answer, decode_params, encode_answer, encode_params
 
 __all__ = [
-    "MAX_BLOCK", "MAX_LINE", "STANDARD_ERRORS", "ErrorQueue", "ParsedCommand", "Token", "WireError", "decode_answer",
-    "decode_block", "decode_params", "encode_answer", "encode_block", "encode_params", "format_command",
-    "format_error", "format_float", "format_line", "format_string", "parse_bool", "parse_float", "parse_int",
+    "MAX_BLOCK", "MAX_LINE", "NAME", "STANDARD_ERRORS", "ErrorQueue", "ParsedCommand", "Token", "WireError",
+    "decode_answer", "decode_block", "decode_params", "encode_answer", "encode_block", "encode_params",
+    "format_command", "format_error", "format_float", "format_line", "format_string", "parse_bool", "parse_float", "parse_int",
     "parse_name", "parse_reply", "parse_string", "reply_end", "split_line",
 ]

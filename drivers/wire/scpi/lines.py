@@ -141,7 +141,8 @@ def format_line(commands: list[bytes]) -> bytes:
 
 _NUMBER = re.compile(r"^[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d{1,3})?$")
 _INT = re.compile(r"^[+-]?\d{1,18}$")
-_NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]{0,63}$")
+#: A bare name: a channel, capability or key (letters, digits and _, at most 64).
+NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]{0,63}$")
 
 
 def format_float(x: float) -> str:
@@ -179,7 +180,7 @@ def parse_bool(token: str) -> bool:
 
 
 def parse_name(token: str) -> str:
-    if not _NAME.match(token):
+    if not NAME.match(token):
         raise WireError(-104, f"{_clip(token)!r} is not a name")
     return token
 
