@@ -60,7 +60,7 @@ def _load_record(p: Path, rate_hz: float | None):
 
 
 def thermal(args) -> int:
-    from assistant.analysis.calibration import thermal as th
+    from assistant.analysis.calibration import analyse_thermal_record
 
     p = _existing(args.file)
     invols = args.invols * 1e-9 if args.invols else None
@@ -68,12 +68,12 @@ def thermal(args) -> int:
         result = _thermal_from_session(p, args, invols)
     else:
         volts, rate = _load_record(p, args.rate)
-        result = th.analyse_thermal_record(volts, rate, temperature_k=args.temperature, invols_m_per_v=invols,
-                                           k_n_per_m=args.k, detection=args.detection)
+        result = analyse_thermal_record(volts, rate, temperature_k=args.temperature, invols_m_per_v=invols,
+                                        k_n_per_m=args.k, detection=args.detection)
     if args.plot:
-        from assistant.report.calibration_figures import thermal_figure
+        from assistant.report.calibration_figures import write_thermal_figure
 
-        thermal_figure(result, args.plot)
+        write_thermal_figure(result, args.plot)
     d = result.to_dict()
     if args.json:
         emit_json(d)
@@ -92,8 +92,9 @@ def thermal(args) -> int:
 
 
 def _thermal_from_session(p: Path, args, invols):
-    from assistant.analysis.calibration import thermal as th
-    from assistant.storage.session_file import SessionFile
+    from assistant.analysis.calibration import calibrate_thermal
+    from assistant.procedures.analyse import stored_thermal_fit
+    from assistant.storage import SessionFile
 
     with SessionFile.open(p, "r") as sf:
         cals = sf.read_calibrations()
@@ -102,11 +103,8 @@ def _thermal_from_session(p: Path, args, invols):
     rec = cals[-1]
     if "spectrum_psd_v2_per_hz" not in rec.arrays:
         raise UsageError(f"{p}: the last calibration kept no spectrum")
-    fit = th.fit_thermal_spectrum(rec.arrays["spectrum_frequency_hz"], rec.arrays["spectrum_psd_v2_per_hz"],
-                                  averages=float(rec.scalars["spectrum_segments"]),
-                                  variance_inflation=float(rec.scalars.get("spectrum_variance_inflation", 1.0)))
-    return th.calibrate_thermal(fit, temperature_k=args.temperature, invols_m_per_v=invols, k_n_per_m=args.k,
-                                detection=args.detection)
+    return calibrate_thermal(stored_thermal_fit(rec), temperature_k=args.temperature, invols_m_per_v=invols,
+                             k_n_per_m=args.k, detection=args.detection)
 
 
 # ---- sader ---------------------------------------------------------------------------------------------------
@@ -145,9 +143,9 @@ def sweep(args) -> int:
     f, a, ph = _load_sweep(_existing(args.file))
     r = fit_drive_sweep(f, a, ph)
     if args.plot:
-        from assistant.report.calibration_figures import sweep_figure
+        from assistant.report.calibration_figures import write_sweep_figure
 
-        sweep_figure(r, args.plot)
+        write_sweep_figure(r, args.plot)
     d = r.to_dict()
     if args.json:
         emit_json(d)

@@ -8,7 +8,9 @@ from pathlib import Path
 
 import numpy as np
 
-from assistant.analysis.lift_series import ProbeModel, SeriesInputError, analyse_series, first_pass_gap_offset_m
+from assistant.analysis.calibration import ThermalFit, WelchSpectrum, fit_thermal_spectrum
+from assistant.analysis.lift_series import (ProbeModel, SeriesAnalysis, SeriesInputError, analyse_series,
+                                            first_pass_gap_offset_m)
 from assistant.procedures.events import Notice, Sink, null_sink
 
 DEFAULT_TIP_RADIUS_M = 30e-9  # nominal apex radius of a magnetic-coated tip; a setting, not a measurement
@@ -54,10 +56,34 @@ def analyse_session_series(session, name: str | None, *, sink: Sink = null_sink,
                             short_range_fraction=short_range_fraction, edge=edge)
     if write:
         scalars, arrays = storage_form(result.to_dict())
-        session.write_analysis(name, scalars, arrays)
+        session.write_analysis(name, scalars, arrays, result=result.to_record())
     for text in getattr(result, "messages", ()):
         sink(Notice("info", text))
     return result
+
+
+def stored_series_analysis(session, name: str) -> SeriesAnalysis:
+    """The decomposition of series ``name`` as it was stored with the series; a series that was never analysed
+    (an interrupted run, or a file from before results were kept whole) is decomposed now, without writing."""
+    record = session.read_analysis_result(name)
+    if record is not None:
+        return SeriesAnalysis.from_record(record.scalars, record.arrays)
+    return analyse_session_series(session, name, write=False)
+
+
+def stored_thermal_fit(record) -> ThermalFit:
+    """Refit the thermal spectrum kept with a stored calibration record (its averaged spectrum and how it was
+    averaged), so that a figure or another conversion starts from the fit the calibration came from."""
+    s, a = record.scalars, record.arrays
+    f = a["spectrum_frequency_hz"]
+    # a one-sided spectrum runs from 0 to Nyquist in segment_length / 2 + 1 bins
+    spectrum = WelchSpectrum(f, a["spectrum_psd_v2_per_hz"],
+                             rate_hz=float(s.get("spectrum_rate_hz", 2.0 * f[-1])),
+                             segment_length=int(s.get("spectrum_segment_length", 2 * (f.size - 1))),
+                             n_segments=int(s["spectrum_segments"]),
+                             variance_inflation=float(s.get("spectrum_variance_inflation", 1.0)))
+    return fit_thermal_spectrum(spectrum.frequencies_hz, spectrum.psd_v2_per_hz, averages=spectrum.n_segments,
+                                variance_inflation=spectrum.variance_inflation, spectrum=spectrum)
 
 
 def storage_form(d: dict) -> tuple[dict, dict]:

@@ -93,12 +93,17 @@ class SeriesSettings:
         if not self.line_rate_hz > 0:
             raise SeriesSettingsError(f"line rate {self.line_rate_hz:g} Hz must be positive")
 
+    def to_dict(self) -> dict:
+        """Every field, as stored in the session file (JSON types)."""
+        return asdict(self)
+
     def to_json(self) -> str:
-        return json.dumps(asdict(self))
+        return json.dumps(self.to_dict())
 
     @classmethod
-    def from_json(cls, text: str) -> "SeriesSettings":
-        d = json.loads(text)
+    def from_dict(cls, d: dict) -> "SeriesSettings":
+        """The settings :meth:`to_dict` gave (lists become tuples again)."""
+        d = dict(d)
         d["heights_m"] = tuple(d["heights_m"])
         if d.get("biases_v") is not None:
             d["biases_v"] = tuple(d["biases_v"])

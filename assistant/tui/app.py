@@ -318,8 +318,7 @@ class MfmApp(App[int]):
             from assistant.report.summary import build_report
 
             wf.session.flush()  # the report reads the session file; the workflow keeps it open for writing
-            analyses = {wf.series_settings.name: wf.analysis} if wf.analysis is not None and wf.series_settings else None
-            return build_report(wf.session_path, out, analyses=analyses)
+            return build_report(wf.session_path, out)
 
         self._run("report", report)
 

@@ -98,6 +98,7 @@ def test_importing_a_family_loads_no_heavy_module():
 
 
 def test_the_package_imports_no_family():
-    code = "import sys, assistant.analysis\nprint(','.join(m for m in sys.modules if m.startswith('assistant.analysis.')))\n"
+    code = ("import sys, assistant.analysis\n"
+            "print(','.join(m for m in sys.modules if m.startswith('assistant.analysis.')))\n")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=ROOT, check=True)
     assert out.stdout.strip() == ""

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import dataclasses
+import types
 import typing
 from dataclasses import dataclass
 
@@ -169,8 +170,9 @@ def _build(cls, prefix: str, scalars: dict, arrays: dict):
     values = {}
     for f in dataclasses.fields(cls):
         name, hint = prefix + f.name, hints[f.name]
-        kinds = [k for k in typing.get_args(hint) if k is not type(None)] or [hint]
-        kind = typing.get_origin(kinds[0]) or kinds[0]
+        if typing.get_origin(hint) in (typing.Union, types.UnionType):  # "X | None": the X
+            hint = next(k for k in typing.get_args(hint) if k is not type(None))
+        kind = typing.get_origin(hint) or hint
         nested = name + "."
         if name in arrays:
             values[f.name] = tuple(arrays[name].tolist()) if kind is tuple else arrays[name]
