@@ -7,12 +7,13 @@ from collections.abc import Callable, Iterator
 
 import numpy as np
 
+from assistant.errors import AssistantError
 from assistant.procedures.events import CancelToken, Progress, Sink, null_sink
 from assistant.procedures.guard import safety_guard
 from drivers.base import Capability, SweepData
 
 
-class AcquisitionError(ValueError):
+class AcquisitionError(AssistantError, ValueError):
     """Acquisition settings that cannot work (named quantity, value and limit)."""
 
 

@@ -20,6 +20,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from assistant.analysis import calibration as cal
+from assistant.errors import AssistantError
 from assistant.procedures.acquire import drive_sweep, thermal_chunks
 from assistant.procedures.events import CancelToken, Notice, Progress, Sink, null_sink
 from assistant.procedures.guard import SafetyLimits, safety_guard
@@ -37,7 +38,7 @@ DISAGREEMENT_CAUSES = ("plan-view dimensions (length, width) off their nominal v
                        "pressure", "laser spot not at the free end", "a damaged or contaminated lever")
 
 
-class CalibrationError(ValueError):
+class CalibrationError(AssistantError, ValueError):
     """Calibration inputs that cannot work (missing dimensions with no other route to k, bad values)."""
 
 

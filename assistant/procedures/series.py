@@ -14,6 +14,7 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
+from assistant.errors import AssistantError
 from assistant.procedures.events import CancelToken, Notice, Progress, Sink, null_sink
 from assistant.procedures.guard import SafetyLimits, safety_guard
 from drivers.base import Capability, LineData, LineSpec, PassData, SecondPass
@@ -21,7 +22,7 @@ from drivers.base import Capability, LineData, LineSpec, PassData, SecondPass
 DEFAULT_HEIGHTS_M = (10e-9, 15e-9, 20e-9, 30e-9, 50e-9, 75e-9, 100e-9)
 
 
-class SeriesSettingsError(ValueError):
+class SeriesSettingsError(AssistantError, ValueError):
     """The series settings are inconsistent or outside a limit."""
 
 
