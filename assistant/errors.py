@@ -12,4 +12,9 @@ class AssistantError(Exception):
     """Root of every error the assistant raises on purpose."""
 
 
-__all__ = ["AssistantError"]
+class InputError(AssistantError, ValueError):
+    """A value given to a function that it cannot use: the message names the quantity, the value and the limit.
+    Each package has more specific errors; this one is for checking arguments."""
+
+
+__all__ = ["AssistantError", "InputError"]

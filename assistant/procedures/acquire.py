@@ -11,6 +11,7 @@ from assistant.errors import AssistantError
 from assistant.procedures.events import CancelToken, Progress, Sink, null_sink
 from assistant.procedures.guard import safety_guard
 from drivers.base import Capability, SweepData
+from drivers.errors import ProtocolError
 
 
 class AcquisitionError(AssistantError, ValueError):
@@ -109,5 +110,5 @@ def write_npy_stream(path, chunks: Iterator[np.ndarray], samples: int,
             if on_chunk is not None:
                 on_chunk(chunk)
     if written != samples:
-        raise RuntimeError(f"controller delivered {written} samples, {samples} were requested")
+        raise ProtocolError(f"controller delivered {written} samples, {samples} were requested")
     return written

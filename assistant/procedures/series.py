@@ -18,6 +18,7 @@ from assistant.errors import AssistantError
 from assistant.procedures.events import CancelToken, Notice, Progress, Sink, null_sink
 from assistant.procedures.guard import SafetyLimits, safety_guard
 from drivers.base import Capability, LineData, LineSpec, PassData, SecondPass
+from drivers.errors import ProtocolError
 
 DEFAULT_HEIGHTS_M = (10e-9, 15e-9, 20e-9, 30e-9, 50e-9, 75e-9, 100e-9)
 
@@ -172,7 +173,7 @@ def _arrange(settings: SeriesSettings, data: LineData) -> tuple[np.ndarray, np.n
     nh = len(settings.heights_m)
     expected = nh * nb + (1 if settings.repeat_first else 0)
     if len(data.passes) != expected:
-        raise RuntimeError(f"controller returned {len(data.passes)} second passes, expected {expected}")
+        raise ProtocolError(f"controller returned {len(data.passes)} second passes, expected {expected}")
     ref = settings.phase_reference_deg
     phase = np.array([p.phase_deg for p in data.passes[: nh * nb]], dtype=float) - ref
     amp = np.array([p.amplitude_v for p in data.passes[: nh * nb]], dtype=float)

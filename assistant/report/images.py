@@ -21,6 +21,7 @@ from matplotlib.colors import Colormap, ListedColormap, Normalize
 from matplotlib.figure import Figure
 from matplotlib.patches import Rectangle
 
+from assistant.errors import InputError
 from assistant.report.colours import phase_rgb, symmetric_limit
 
 
@@ -96,7 +97,7 @@ def phase_figure(phase_deg: np.ndarray, *, heights_m: Sequence[float], scan_size
     """
     stack = np.asarray(phase_deg, dtype=np.float64)
     if stack.ndim != 3 or stack.shape[0] != len(heights_m):
-        raise ValueError(f"phase_deg must have shape (heights={len(heights_m)}, lines, pixels), got {stack.shape}")
+        raise InputError(f"phase_deg must have shape (heights={len(heights_m)}, lines, pixels), got {stack.shape}")
     panels = [(_padded(img, lines), f"lift {h * 1e9:.4g} nm") for img, h in zip(stack, heights_m)]
     if repeat_phase_deg is not None:
         panels.append((_padded(repeat_phase_deg, lines), f"lift {heights_m[0] * 1e9:.4g} nm, repeat"))

@@ -16,6 +16,7 @@ from textual.app import App
 from textual.binding import Binding
 from textual.widgets import Footer, Static, TabbedContent, TabPane
 
+from assistant.errors import InputError
 from assistant.procedures.events import Cancelled, Notice
 from assistant.tui.bridge import (MessageSink, ProcedureEvent, SerialisedController, StatusChanged, StepFinished,
                                   WithdrawDone)
@@ -77,7 +78,7 @@ class MfmApp(StepRunner, App[int]):
             from assistant.procedures.workflow import Workflow
 
             if self.session_path is None:
-                raise ValueError("a live session needs session_path")
+                raise InputError("a live session needs session_path")
             self.workflow = Workflow(self.controller, self.session_path, controller_url=self.controller_url,
                                      scenario_text=scenario_text, limits=self.limits, sink=MessageSink(self))
         self.busy: str | None = None

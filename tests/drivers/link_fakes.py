@@ -18,8 +18,7 @@ from drivers.base import (
     Capability, Controller, ControllerInfo, ForceCurve, LineData, LineSpec, Limits, PassData, Status, SweepData,
 )
 from drivers.errors import ControllerFault, LaserLost
-from simulated_stage.errors import StageFault
-from simulated_stage.errors import LASER_LOST
+from simulated_stage.errors import LASER_LOST, StageFault
 
 ROOT = Path(__file__).resolve().parents[2]
 

@@ -10,6 +10,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from assistant.errors import InputError
+
 __all__ = [
     "DRY_AIR_MOLAR_MASS_KG_PER_MOL", "GAS_CONSTANT_J_PER_MOL_K", "STANDARD_PRESSURE_PA",
     "air_density_kg_m3", "air_viscosity_pa_s",
@@ -26,7 +28,7 @@ _SUTHERLAND_S_K = 110.4
 def _positive(name: str, value) -> np.ndarray:
     arr = np.asarray(value, dtype=float)
     if not np.all(np.isfinite(arr)) or np.any(arr <= 0):
-        raise ValueError(f"{name} = {value!r} must be positive and finite")
+        raise InputError(f"{name} = {value!r} must be positive and finite")
     return arr
 
 

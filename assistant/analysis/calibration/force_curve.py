@@ -14,7 +14,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from assistant.errors import AssistantError
+from assistant.errors import AssistantError, InputError
 
 __all__ = ["ContactInvolsResult", "ForceCurveError", "contact_invols", "stiff_sample_invols"]
 
@@ -134,5 +134,5 @@ def stiff_sample_invols(measured_invols_m_per_v: float, *, k_n_per_m: float,
     for name, value in (("measured_invols_m_per_v", measured_invols_m_per_v), ("k_n_per_m", k_n_per_m),
                         ("sample_stiffness_n_per_m", sample_stiffness_n_per_m)):
         if not (np.isfinite(value) and value > 0):
-            raise ValueError(f"{name} = {value!r} must be positive and finite")
+            raise InputError(f"{name} = {value!r} must be positive and finite")
     return float(measured_invols_m_per_v / (1.0 + k_n_per_m / sample_stiffness_n_per_m))

@@ -16,6 +16,8 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.special
 
+from assistant.errors import InputError
+
 from .air import STANDARD_PRESSURE_PA, air_density_kg_m3, air_viscosity_pa_s
 
 __all__ = [
@@ -141,7 +143,7 @@ def sader_spring_constant(length_m: float, width_m: float, f0_hz: float, q: floa
                         ("temperature_k", temperature_k), ("pressure_pa", pressure_pa),
                         ("density_kg_m3", density_kg_m3), ("viscosity_pa_s", viscosity_pa_s)):
         if value is not None and not (np.isfinite(value) and value > 0):
-            raise ValueError(f"{name} = {value!r} must be positive and finite")
+            raise InputError(f"{name} = {value!r} must be positive and finite")
     fixed_fluid = density_kg_m3 is not None and viscosity_pa_s is not None
 
     def fluid(t):

@@ -20,7 +20,7 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.optimize
 
-from assistant.errors import AssistantError
+from assistant.errors import AssistantError, InputError
 
 __all__ = [
     "QComparison", "SweepFitError", "SweepResult", "compare_q", "drive_amplitude_for_free_amplitude",
@@ -172,7 +172,7 @@ def drive_frequency(sweep: SweepResult, *, side: str = "resonance") -> float:
     if side == "resonance":
         return sweep.f0_hz
     if side not in ("below", "above"):
-        raise ValueError(f"side = {side!r}; allowed: 'resonance', 'below', 'above'")
+        raise InputError(f"side = {side!r}; allowed: 'resonance', 'below', 'above'")
     sign = -1.0 if side == "below" else 1.0
     return sweep.f0_hz * (1.0 + sign / (2.0 * np.sqrt(2.0) * sweep.q))
 
@@ -196,10 +196,10 @@ def drive_amplitude_for_free_amplitude(free_amplitude_m: float, *, invols_m_per_
     for name, value in (("free_amplitude_m", free_amplitude_m), ("invols_m_per_v", invols_m_per_v),
                         ("response_v_per_v", response_v_per_v)):
         if not (np.isfinite(value) and value > 0):
-            raise ValueError(f"{name} = {value!r} must be positive and finite")
+            raise InputError(f"{name} = {value!r} must be positive and finite")
     drive = free_amplitude_m / invols_m_per_v / response_v_per_v
     if max_drive_v is not None and drive > max_drive_v:
-        raise ValueError(f"drive amplitude {drive:.4g} V for a free amplitude of {free_amplitude_m:.4g} m "
+        raise InputError(f"drive amplitude {drive:.4g} V for a free amplitude of {free_amplitude_m:.4g} m "
                          f"exceeds the limit max_drive_v = {max_drive_v:.4g} V")
     return float(drive)
 
@@ -207,16 +207,16 @@ def drive_amplitude_for_free_amplitude(free_amplitude_m: float, *, invols_m_per_
 def sweep_response_v_per_v(sweep: SweepResult, frequency_hz: float, *, drive_amplitude_v: float) -> float:
     """Detector amplitude per drive volt [V/V] at ``frequency_hz`` from the fitted sweep model."""
     if not (np.isfinite(drive_amplitude_v) and drive_amplitude_v > 0):
-        raise ValueError(f"drive_amplitude_v = {drive_amplitude_v!r} must be positive and finite")
+        raise InputError(f"drive_amplitude_v = {drive_amplitude_v!r} must be positive and finite")
     return float(sweep.model(np.array([frequency_hz]))[0][0] / drive_amplitude_v)
 
 
 def setpoint_from_ratio(free_amplitude_v: float, ratio: float) -> float:
     """Amplitude setpoint [V] = ratio x free amplitude; ratio must lie in (0, 1)."""
     if not 0 < ratio < 1:
-        raise ValueError(f"setpoint ratio = {ratio!r} must lie strictly between 0 and 1")
+        raise InputError(f"setpoint ratio = {ratio!r} must lie strictly between 0 and 1")
     if not (np.isfinite(free_amplitude_v) and free_amplitude_v > 0):
-        raise ValueError(f"free_amplitude_v = {free_amplitude_v!r} must be positive and finite")
+        raise InputError(f"free_amplitude_v = {free_amplitude_v!r} must be positive and finite")
     return float(ratio * free_amplitude_v)
 
 

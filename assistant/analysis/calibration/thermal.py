@@ -12,6 +12,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from assistant.errors import InputError
+
 from ..constants import BOLTZMANN_J_PER_K
 from .spectra import WelchAccumulator
 from .thermal_fit import ThermalFit, ThermalFitError, fit_thermal_spectrum
@@ -88,13 +90,13 @@ def calibrate_thermal(fit: ThermalFit, *, temperature_k: float = 298.15, invols_
         Unknown detection, both InvOLS and k given, or a non-positive input.
     """
     if detection not in DETECTION_FACTORS:
-        raise ValueError(f"detection = {detection!r}; allowed: {sorted(DETECTION_FACTORS)}")
+        raise InputError(f"detection = {detection!r}; allowed: {sorted(DETECTION_FACTORS)}")
     if invols_m_per_v is not None and k_n_per_m is not None:
-        raise ValueError("give either invols_m_per_v (to get k) or k_n_per_m (to get InvOLS), not both")
+        raise InputError("give either invols_m_per_v (to get k) or k_n_per_m (to get InvOLS), not both")
     for name, value in (("temperature_k", temperature_k), ("invols_m_per_v", invols_m_per_v),
                         ("k_n_per_m", k_n_per_m)):
         if value is not None and not (np.isfinite(value) and value > 0):
-            raise ValueError(f"{name} = {value!r} must be positive and finite")
+            raise InputError(f"{name} = {value!r} must be positive and finite")
     beta = DETECTION_FACTORS[detection]
     area, rel_area = fit.peak_area_v2, fit.peak_area_std_v2 / fit.peak_area_v2
     rel_t = temperature_std_k / temperature_k

@@ -11,6 +11,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from assistant.errors import InputError
+
 __all__ = ["pixel_pair_m", "rfft_cell_weights", "rfft_wavenumbers", "dct_frequencies", "alias_axes_for",
            "rfft_alias_frequencies", "dct_alias_frequencies", "self_conjugate_real"]
 
@@ -21,7 +23,7 @@ def pixel_pair_m(pixel_m) -> tuple[float, float]:
     if p.size == 1:
         p = np.array([p[0], p[0]])
     if p.size != 2 or not np.all(np.isfinite(p)) or np.any(p <= 0):
-        raise ValueError(f"pixel_m must be a spacing > 0 m or a (row, column) pair of them, got {pixel_m!r}")
+        raise InputError(f"pixel_m must be a spacing > 0 m or a (row, column) pair of them, got {pixel_m!r}")
     return float(p[0]), float(p[1])
 
 
@@ -62,7 +64,7 @@ def alias_axes_for(alias_axes, pixel_m, lowest_height_m: float) -> tuple[int, ..
     1 deg misfit without row aliases); else the axes given."""
     if isinstance(alias_axes, str):
         if alias_axes != "auto":
-            raise ValueError(f"alias_axes must be 'auto' or a sequence of 0 and 1, got {alias_axes!r}")
+            raise InputError(f"alias_axes must be 'auto' or a sequence of 0 and 1, got {alias_axes!r}")
         return tuple(a for a, p in enumerate(pixel_pair_m(pixel_m)) if p > 4.0 * lowest_height_m)
     return tuple(int(a) for a in alias_axes)
 

@@ -14,6 +14,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from assistant.errors import InputError
+
 from .probe import ProbeModel
 
 EPSILON_0_F_PER_M = 8.8541878188e-12  # CODATA 2022
@@ -53,9 +55,9 @@ def _n_terms(alpha_min: float, n_terms: int | None) -> int:
 def _series_terms(gap_m, radius_m: float, n_terms: int | None):
     z = np.atleast_1d(np.asarray(gap_m, dtype=float))
     if np.any(~(z > 0)):
-        raise ValueError(f"gap_m must be > 0 m for the sphere-plane series, got min {np.min(z)!r}")
+        raise InputError(f"gap_m must be > 0 m for the sphere-plane series, got min {np.min(z)!r}")
     if not radius_m > 0:
-        raise ValueError(f"radius_m must be > 0 m, got {radius_m!r}")
+        raise InputError(f"radius_m must be > 0 m, got {radius_m!r}")
     a = _alpha(z, radius_m)
     n = np.arange(1, _n_terms(float(a.min()), n_terms) + 1, dtype=float)
     x = a[..., None] * n  # n alpha
@@ -160,9 +162,9 @@ def hudlet_apex_gradient_n_per_m(gap_m, *, radius_m: float, voltage_v: float,
 def _cone_constants(radius_m, voltage_v, cone_half_angle_deg, cone_height_m):
     t = np.radians(cone_half_angle_deg)
     if not 0.0 < t < np.pi / 2:
-        raise ValueError(f"cone_half_angle_deg must be in (0, 90) deg, got {cone_half_angle_deg!r}")
+        raise InputError(f"cone_half_angle_deg must be in (0, 90) deg, got {cone_half_angle_deg!r}")
     if not cone_height_m > 0:
-        raise ValueError(f"cone_height_m must be > 0 m, got {cone_height_m!r}")
+        raise InputError(f"cone_height_m must be > 0 m, got {cone_height_m!r}")
     k = np.pi * EPSILON_0_F_PER_M * voltage_v**2 / np.log(np.tan(t / 2.0)) ** 2
     b = radius_m * np.cos(t) ** 2 / np.sin(t)
     return k, b, _hudlet_a(radius_m, cone_half_angle_deg)
@@ -229,7 +231,7 @@ def centre_gap_m(lift_height_m, *, amplitude_m: float, gap_offset_m: float | Non
     off = amplitude_m if gap_offset_m is None else gap_offset_m
     d = np.asarray(lift_height_m, dtype=float) + off
     if np.any(d - amplitude_m <= 0):
-        raise ValueError(
+        raise InputError(
             f"closest approach gap_offset_m + lift height - amplitude_m must be > 0 m, got "
             f"{float(np.min(d - amplitude_m))!r} m")
     return d
@@ -261,7 +263,7 @@ def amplitude_weighted(gradient, centre_gap_m, *, amplitude_m: float, n_nodes: i
     if amplitude_m == 0:
         return np.asarray(gradient(d), dtype=float)
     if amplitude_m < 0:
-        raise ValueError(f"amplitude_m must be >= 0 m, got {amplitude_m!r}")
+        raise InputError(f"amplitude_m must be >= 0 m, got {amplitude_m!r}")
     i = np.arange(1, n_nodes + 1)
     theta = i * np.pi / (n_nodes + 1)
     x = np.cos(theta)

@@ -10,6 +10,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from assistant.errors import InputError
+
 from ..constants import BOLTZMANN_J_PER_K
 from .phase import linear_phase_slope_deg
 
@@ -51,7 +53,7 @@ def thermal_min_gradient_n_per_m(*, spring_constant_n_per_m: float, resonance_hz
                     ("quality_factor", quality_factor), ("temperature_k", temperature_k),
                     ("bandwidth_hz", bandwidth_hz), ("amplitude_m", amplitude_m)):
         if not (np.isfinite(v) and v > 0):
-            raise ValueError(f"{name} must be finite and > 0, got {v!r}")
+            raise InputError(f"{name} must be finite and > 0, got {v!r}")
     z2 = amplitude_m**2 if amplitude_is_rms else amplitude_m**2 / 2.0
     w0 = 2.0 * np.pi * resonance_hz
     return float(np.sqrt(4.0 * spring_constant_n_per_m * BOLTZMANN_J_PER_K * temperature_k * bandwidth_hz
@@ -117,7 +119,7 @@ def white_noise_std(image: np.ndarray, *, band_fraction: float = 0.7, periodic_c
     rad = np.sqrt(qr**2 + qc**2)  # in units of the Nyquist frequency
     band = rad >= band_fraction
     if not np.any(band):
-        raise ValueError(f"band_fraction {band_fraction!r} leaves no frequencies (limit: < sqrt(2))")
+        raise InputError(f"band_fraction {band_fraction!r} leaves no frequencies (limit: < sqrt(2))")
     power = np.abs(f[band]) ** 2
     return float(np.sqrt(power.mean() / (rows * cols)))
 

@@ -25,6 +25,8 @@ from __future__ import annotations
 import numpy as np
 from scipy import fft as sp_fft
 
+from assistant.errors import InputError
+
 from .continuation import ContinuationFit
 from .frequencies import alias_axes_for, dct_alias_frequencies, pixel_pair_m
 
@@ -231,7 +233,7 @@ def fit_continuation_reflected(stack: np.ndarray, *, heights_m, pixel_m, valid: 
     else:
         s2 = np.asarray(noise_std, dtype=float) ** 2
         if s2.shape != (nh,) or not np.all(s2 > 0):
-            raise ValueError(f"noise_std must be {nh} values > 0, got {noise_std!r}")
+            raise InputError(f"noise_std must be {nh} values > 0, got {noise_std!r}")
         w = 1.0 / s2
     rounds = 1 if complete else max(int(n_fill), 1)
     sigma2 = np.ones(nh)

@@ -9,6 +9,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from assistant.errors import InputError
+
 from .frequencies import rfft_cell_weights
 
 __all__ = ["estimate_shift_px", "shift_from_spectra", "estimate_drift_px", "fourier_shift", "align_stack",
@@ -93,7 +95,7 @@ def estimate_shift_px(reference: np.ndarray, moving: np.ndarray, *, upsample: in
     ref = _fill_nan(reference)
     mov = _fill_nan(moving)
     if ref.shape != mov.shape:
-        raise ValueError(f"image shapes differ: {ref.shape} vs {mov.shape}")
+        raise InputError(f"image shapes differ: {ref.shape} vs {mov.shape}")
     return shift_from_spectra(np.fft.rfft2(ref), np.fft.rfft2(mov), ref.shape, upsample=upsample,
                               whitening=whitening)
 

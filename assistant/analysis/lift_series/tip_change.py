@@ -12,6 +12,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import ndimage
 
+from assistant.errors import InputError
+
 __all__ = ["TipChange", "detect_tip_change"]
 
 _MAD_TO_STD = 1.482602218505602  # 1/Phi^-1(3/4), Gaussian consistency factor of the median absolute deviation
@@ -62,11 +64,11 @@ def detect_tip_change(first_deg: np.ndarray, repeat_deg: np.ndarray, *, noise_de
     a = np.asarray(first_deg, float)
     b = np.asarray(repeat_deg, float)
     if a.shape != b.shape:
-        raise ValueError(f"repeat image shape {b.shape} differs from the first-height image {a.shape}")
+        raise InputError(f"repeat image shape {b.shape} differs from the first-height image {a.shape}")
     d = b - a
     ok = np.isfinite(d)
     if not np.any(ok):
-        raise ValueError("repeat and first pass share no valid pixel")
+        raise InputError("repeat and first pass share no valid pixel")
     offset = float(np.median(d[ok]))
     d = d - offset
     filled = np.where(ok, d, 0.0)
