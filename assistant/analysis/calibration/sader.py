@@ -124,7 +124,7 @@ def sader_spring_constant(length_m: float, width_m: float, f0_hz: float, q: floa
         Quality factor in the fluid.
     temperature_k, pressure_pa : float, keyword-only
         Air temperature [K] and pressure [Pa]; give the density and viscosity from them
-        (:mod:`assistant.analysis.air`) unless ``density_kg_m3``/``viscosity_pa_s`` are given.
+        (:mod:`.air`) unless ``density_kg_m3``/``viscosity_pa_s`` are given.
     length_std_m, width_std_m, f0_std_hz, q_std, temperature_std_k : float, optional
         Standard uncertainties; defaults 1 % (length), 2 % (width), 0.1 % (f0), 2 % (Q), 1 K (the
         temperature, only when the air properties come from it).

@@ -282,7 +282,7 @@ def fit_thermal_spectrum(frequencies_hz: np.ndarray, psd_v2_per_hz: np.ndarray, 
         Number of averaged periodograms per bin (Welch segments).
     variance_inflation : float
         Factor applied to the Fisher covariance for correlated bins (1 for independent bins; see
-        :func:`assistant.analysis.spectra.welch_variance_inflation`).
+        :func:`.spectra.welch_variance_inflation`).
     f0_guess_hz : float, optional
         Skip the automatic peak search and start here [Hz].
     fit_range_hz : (float, float), optional
