@@ -33,6 +33,7 @@ _PREFIXES = {-12: "p", -9: "n", -6: "µ", -3: "m", 0: "", 3: "k", 6: "M", 9: "G"
 # pm or km; a frequency in Hz, kHz or MHz, never in mHz).
 _SCALED = {"Hz": (0, 3, 6, 9), "m": (-9, -6, -3, 0), "V": (-9, -6, -3, 0), "s": (-6, -3, 0),
            "N": (-12, -9, -6, -3, 0), "A": (-12, -9, -6, -3, 0), "Pa·s": (-6, -3, 0), "W": (-9, -6, -3, 0)}
+_ZERO_EXPONENT = {"m": -6}
 # Spellings we accept for a unit, as (factor to the base unit, base unit).
 _ALIASES = {"nm": (1e-9, "m"), "um": (1e-6, "m"), "µm": (1e-6, "m"), "mm": (1e-3, "m"), "kHz": (1e3, "Hz"),
             "MHz": (1e6, "Hz"), "mV": (1e-3, "V"), "ms": (1e-3, "s"), "Pa s": (1.0, "Pa·s")}
@@ -72,7 +73,9 @@ def _significant(v: float, digits: int) -> str:
     if decimals <= 0:
         return f"{round(v, decimals):.0f}"
     text = f"{v:.{decimals}f}"
-    return text.rstrip("0").rstrip(".") if "." in text else text
+    short = text.rstrip("0").rstrip(".") if "." in text else text
+    # trailing zeros go only when the value is exactly that (20.0 -> "20"); 74.9965 to 4 digits stays "75.00"
+    return short if abs(float(short) - v) <= 1e-9 * max(abs(v), 1e-300) else text
 
 
 def _with_std(v: float, s: float) -> tuple[str, str]:
@@ -111,8 +114,11 @@ def number(value, std=None, *, digits: int = 4) -> str:
 def _prefixed(v: float, unit: str) -> tuple[float, str]:
     """(scale, written unit) for ``v`` in base ``unit``: the prefix that puts the value in [1, 1000)."""
     allowed = _SCALED.get(unit)
-    if not allowed or v == 0:
+    if not allowed:
         return 1.0, unit
+    if v == 0:  # a zero Z reads "0 µm", not "0 m"
+        e3 = _ZERO_EXPONENT.get(unit, 0)
+        return 10.0 ** e3, _PREFIXES[e3] + unit
     e3 = 3 * math.floor(_exponent(v) / 3)
     e3 = min(max(e3, allowed[0]), allowed[-1])
     return 10.0 ** e3, _PREFIXES[e3] + unit

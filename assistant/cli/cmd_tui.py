@@ -20,7 +20,8 @@ def run(args) -> int:
     with open_controller_from_args(args) as ctl:
         app = MfmApp(ctl, controller_url=args.controller, session_path=session_path, limits=limits,
                      scenario_text=getattr(ctl, "scenario_text", None))
-        code = app.run()
+        app.run()
+        code = app.return_code  # 1 after a crash of the UI, whatever run() returned
         # The app only exits on its own once the stage is confirmed safe; make sure of it on any other exit.
         try:
             if not ctl.status().safe:
@@ -50,4 +51,5 @@ def _open(path: Path) -> int:
     from assistant.tui.app import MfmApp
 
     app = MfmApp(None, open_path=path, stored=stored)
-    return int(app.run() or 0)
+    app.run()
+    return int(app.return_code or 0)

@@ -263,8 +263,11 @@ def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits
                                    "Sader method, or a measured sensitivity (--invols) for the thermal method")
 
         drive = _drive_setup(controller, settings, sweep_fit, invols, limits=limits)
-        note("info", f"drive {drive.frequency_hz:.1f} Hz at {drive.amplitude_v * 1e3:.2f} mV for "
-                     f"{drive.free_amplitude_m * 1e9:.1f} nm free amplitude; setpoint {drive.setpoint_v * 1e3:.1f} mV")
+        from assistant.formatting import quantity
+
+        note("info", f"drive {quantity(drive.frequency_hz, 'Hz', digits=6)} at {quantity(drive.amplitude_v, 'V')} "
+                     f"for a free amplitude of {quantity(drive.free_amplitude_m, 'm', digits=3)}; setpoint "
+                     f"{quantity(drive.setpoint_v, 'V')}")
         controller.drive_off()
     return CalibrationResult(thermal=thermal_result, sweep=sweep_fit, sader=sader, k_n_per_m=k, k_std_n_per_m=k_std,
                              k_source=k_source, invols_m_per_v=invols, invols_std_m_per_v=invols_std,
