@@ -118,7 +118,7 @@ def results_block(d: dict) -> list[tuple[str, str]]:
     noise = d.get("noise_sentence") or d.get("noise_verdict") or DASH
     warnings = _warnings(d)
     return [("Recommended lift height", _lift_text(d)), ("Recommended tip bias", _bias_text(d)),
-            ("Noise", str(noise)), ("Warnings", "; ".join(warnings) if warnings else "none")]
+            ("Noise", str(noise)), ("Warnings", "; ".join(w.rstrip(". ") for w in warnings) if warnings else "none")]
 
 
 def render_block(pairs: list[tuple[str, str]], *, markdown: bool) -> list[str]:

@@ -195,7 +195,7 @@ class MfmApp(App[int]):
                                       bias) if p)
         path = self.open_path or self.session_path
         run = f"[b]running: {self.busy}[/b] (ctrl+x cancel) │ " if self.busy else ""
-        if self.controller is None:
+        if self.controller is None and self.open_path is not None:
             run = "[b]read-only[/b] │ "
         err = f"status: {self.status_error} │ " if self.status_error else ""
         second = f"{run}{err}session {path.name if path else '—'}"

@@ -4,6 +4,7 @@ recommended lift height and V_cpd, and where the report was written."""
 from __future__ import annotations
 
 import math
+from pathlib import Path
 
 import numpy as np
 from textual.containers import Horizontal, Vertical
@@ -36,7 +37,7 @@ def _num(d: dict, key: str) -> float | None:
 
 class AnalysisView(View):
     DEFAULT_CSS = """
-    AnalysisView #an-side { width: 34; }
+    AnalysisView #an-side { width: 36; padding-right: 2; }  /* clear of the tick labels */
     AnalysisView #an-plots { width: 1fr; }
     AnalysisView PlotextPlot { height: 1fr; min-height: 5; }
     AnalysisView #an-text { height: 1fr; }
@@ -100,8 +101,9 @@ class AnalysisView(View):
         names = {"Recommended lift height": "[b]lift[/b]", "Recommended tip bias": "[b]bias[/b]",
                  "Noise": "[b]noise[/b]", "Warnings": "[b]warnings[/b]"}
         lines = [f"{names.get(n, n)} {escape(t)}" for n, t in results_block(d)]
-        lines.append(f"[b]report[/b] {escape(self.report_dir)}" if self.report_dir else
-                     "[b]report[/b] not written yet (Report)")
+        lines.insert(2, f"[b]report[/b] {escape(Path(self.report_dir).name)}/ (next to the session file)"
+                     if self.report_dir else
+                     "[b]report[/b] not written yet (Report)")  # after lift and bias: visible at 80 x 24
         return "\n".join(lines)
 
     def redraw(self) -> None:

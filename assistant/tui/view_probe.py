@@ -35,7 +35,7 @@ def summary_lines(s: dict) -> list[str]:
 class ProbeView(View):
     EVENTS = ("thermal record", "thermal spectrum", "thermal fit")
     DEFAULT_CSS = """
-    ProbeView #probe-left { width: 34; }
+    ProbeView #probe-left { width: 36; padding-right: 2; }  /* clear of the tick labels */
     ProbeView #probe-right { width: 1fr; }
     ProbeView #thermal-plot { height: 1fr; min-height: 6; }
     ProbeView #probe-result { height: auto; max-height: 12; }

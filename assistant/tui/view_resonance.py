@@ -18,7 +18,7 @@ class ResonanceView(View):
     EVENTS = ("drive sweep", "sweep fit")
     DEFAULT_CSS = """
     ResonanceView #res-plots { width: 1fr; }
-    ResonanceView #res-side { width: 34; }
+    ResonanceView #res-side { width: 36; padding-left: 2; }
     ResonanceView PlotextPlot { height: 1fr; min-height: 5; }
     """
 
