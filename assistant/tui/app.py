@@ -159,7 +159,8 @@ class MfmApp(App[int]):
     def on_status_changed(self, message: StatusChanged) -> None:
         if message.status is not None:
             self.last_status = message.status
-            self.view("approach").show_status(message.status)
+            for view in self.query("#view-approach"):  # none while the app shuts down
+                view.show_status(message.status)
         self.status_error = message.error
         self._update_status_line()
 
@@ -199,7 +200,8 @@ class MfmApp(App[int]):
             run = "[b]read-only[/b] │ "
         err = f"status: {self.status_error} │ " if self.status_error else ""
         second = f"{run}{err}session {path.name if path else '—'}"
-        self.query_one("#status", Static).update(f"{first}\n{second}")
+        for status in self.query("#status").results(Static):  # none while the app shuts down
+            status.update(f"{first}\n{second}")
 
     def say(self, level: str, text: str) -> None:
         self.view("log").add(level, text)

@@ -155,7 +155,9 @@ async def test_calibration_shows_its_result_and_is_accepted(tmp_path):
         cal = app.workflow.calibration
         assert cal is not None, app.view("log").entries
         result = str(app.view("probe").query_one("#probe-result").render())
-        assert f"{cal.k_n_per_m:.4g} ± {cal.k_std_n_per_m:.2g} N/m" in result
+        from assistant.formatting import quantity
+
+        assert f"spring constant k  {quantity(cal.k_n_per_m, 'N/m', cal.k_std_n_per_m)}" in result
         assert cal.k_source in result and "Higgins" in result  # which path produced the number
         assert app.view("probe").fit is not None  # the "thermal fit" overlay arrived
         assert app.view("resonance").model is not None  # the sweep with its fitted response
@@ -220,7 +222,7 @@ async def test_short_series_fills_previews_and_matches_the_session_file(tmp_path
         print(f"UI timer: {len(gaps)} ticks, max gap {max(gaps) * 1e3:.1f} ms (of it on the CPU "
               f"{max(stalls) * 1e3:.1f} ms), median {np.median(gaps) * 1e3:.1f} ms")
         assert len(gaps) > 20 and max(stalls) < 0.1, f"UI stalled {max(stalls) * 1e3:.0f} ms over {len(gaps)} ticks"
-        assert "4 nm" not in screen_text(app) and "10 nm 64/64" in screen_text(app)
+        assert "4 nm" not in screen_text(app) and "10 nm" in screen_text(app) and "series1 done: 64 of 64 lines" in screen_text(app)
 
 
 @run_async
