@@ -8,6 +8,7 @@ record and the offline analysis of a session file have workers of their own. Mix
 
 from __future__ import annotations
 
+import dataclasses
 from pathlib import Path
 
 from textual import work
@@ -58,10 +59,13 @@ class StepRunner:
         if wf is None or wf.calibration is None or settings is None:
             self.say("error", "accept: no calibration of this session to record")
             return
-        if not settings.probe_name:
-            self.say("error", "accept: give the probe a name (Probe view) and calibrate again")
+        name = settings.probe_name or self.view("probe").text("probe-name")
+        if not name:  # the calibration stands; it only needs a name to be filed under
+            self.view("probe").ask_for_name()
             return
-        self._record_worker(settings.probe_name, calibration_scalars(wf.calibration, settings.probe_name))
+        self.probe_name = name
+        self._update_status_line()
+        self._record_worker(name, calibration_scalars(wf.calibration, name))
 
     def start_approach(self) -> None:
         wf = self.workflow
@@ -74,23 +78,31 @@ class StepRunner:
 
     def start_series(self, settings) -> None:
         wf = self.workflow
+        if wf is not None:  # every series of the session gets its own group: series1, series2, ...
+            taken = set(wf.session.series_names())
+            n = 1
+            while f"series{n}" in taken:
+                n += 1
+            settings = dataclasses.replace(settings, name=f"series{n}")
         if self._run("series", lambda: wf.series(settings)):
             self.view("series").begin(heights_m=settings.heights_m, biases_v=settings.biases_v,
-                                      lines=settings.lines, pixels=settings.pixels)
+                                      lines=settings.lines, pixels=settings.pixels, scan_size_m=settings.scan_size_m)
 
     def start_analysis(self) -> None:
         if self.workflow is None and self.open_path is not None:
-            self._offline_worker("analyse", self.open_path)
+            self._offline_worker("analyze", self.open_path)
             return
         wf = self.workflow
-        self._run("analyse", lambda: wf.analyse())
+        self._run("analyze", lambda: wf.analyse())
 
     def start_report(self) -> None:
         if self.workflow is None and self.open_path is not None:
             self._offline_worker("report", self.open_path)
             return
+        from assistant.outputs import report_dir_for
+
         wf = self.workflow
-        out = self.session_path.parent / f"report-{self.session_path.stem}"
+        out = report_dir_for(self.session_path)
 
         def report():
             from assistant.report.summary import build_report
@@ -154,14 +166,15 @@ class StepRunner:
     @work(thread=True, group="procedure", exit_on_error=False)
     def _offline_worker(self, step: str, path: Path) -> None:
         try:
-            if step == "analyse":
+            if step == "analyze":
                 from assistant.procedures.analyse import analyse_session_file
 
                 result = analyse_session_file(path, None)
             else:
+                from assistant.outputs import report_dir_for
                 from assistant.report.summary import build_report
 
-                result = build_report(path, path.parent / f"report-{path.stem}")
+                result = build_report(path, report_dir_for(path))
         except Exception as exc:
             self.post_message(StepFinished(step, None, exc))
             return
