@@ -48,7 +48,7 @@ def _session(path, *, biases=None, lines_done=24):
                           "magnetic_rms_std_deg": np.array([0.05, 0.04, 0.03])})
 
 
-def _quick_series_figures(result, directory):
+def _quick_series_figures(result, directory, **options):
     # stand-ins for the decomposition figures (drawn for real in test_series_figures): the file names only
     paths = [directory / f"decomposition_{stem}.png" for stem in ("mean", "magnetic", "maps")]
     for path in paths:
@@ -104,7 +104,7 @@ def test_bias_grid_gives_one_phase_figure_per_bias(tmp_path):
 def test_a_failing_figure_becomes_a_note(tmp_path, monkeypatch):
     _session(tmp_path / "s.h5", lines_done=8)
 
-    def broken(result, directory):
+    def broken(result, directory, **options):
         raise RuntimeError("disk on fire")
 
     monkeypatch.setattr(summary, "write_series_figures", broken)
@@ -121,7 +121,7 @@ def test_the_report_draws_the_stored_decomposition_without_computing_it_again(tm
     with SessionFile.open(tmp_path / "s.h5", "a") as s:
         stored = analyse.analyse_session_series(s, "lift")
     drawn = []
-    monkeypatch.setattr(summary, "write_series_figures", lambda result, directory: drawn.append(result) or [])
+    monkeypatch.setattr(summary, "write_series_figures", lambda result, directory, **o: drawn.append(result) or [])
 
     def no_second_decomposition(*args, **kwargs):
         raise AssertionError("the report decomposed the series again")
