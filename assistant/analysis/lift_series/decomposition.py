@@ -203,6 +203,15 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
     alias_axes = alias_axes_for("auto", pixel_m, h[0])
     image_var, dof = band_noise_variance(src, aliased_axes=alias_axes, valid_fraction=okf.mean(axis=(1, 2)),
                                          taper=0.0 if edge == "periodic" else 1.0)
+    # the phase noise of one series is alike at every height (the same detector and oscillation); the highest
+    # height has the least magnetic contrast left in the band, where the lower ones keep some when the pixels are
+    # not much finer than the lift (a simulated 32 x 128 run with 31 nm pixels read 5 x the noise at 10 nm). In
+    # the signal each image's noise is that phase noise times the slope of the inversion at its pixels (a mean
+    # phase of -21 deg makes it 16 % larger)
+    gain = np.array([np.mean(1.0 / space.slope(sig_i[ok_i]) ** 2)
+                     for sig_i, ok_i in zip(sig.reshape(nh * nb, rows, cols), okf)])
+    phase_var = image_var.reshape(nh, nb)[-1] / gain.reshape(nh, nb)[-1]  # per bias, from the top height
+    image_var = np.tile(phase_var, nh) * gain
     fit, drift, aligned, valid = _fit_magnetic(src, okf, h, pixel_m, nb=nb, edge=edge, band=band, options=options,
                                                image_var=image_var, dof=dof)
     drift_cov = None

@@ -194,9 +194,9 @@ def fit_continuation_reflected(stack: np.ndarray, *, heights_m, pixel_m, valid: 
         :func:`~assistant.analysis.lift_series.image_noise.band_noise_variance`): it is used for the statistics as well
         and the moment estimate is skipped; masked pixels are then filled and refitted exactly ``n_fill``
         times, so the result is a smooth function of the data.
-    noise_dof : float or ndarray (H,), optional
-        Degrees of freedom behind each height's noise variance (``Var(sigma^2) = sigma^4 / noise_dof``):
-        the uncertainty of the debiasing then enters ``magnetic_rms_std``.
+    noise_dof : float, optional
+        Degrees of freedom behind the noise variance, one estimate for all heights (``Cov(sigma_h^2, sigma_j^2)
+        = sigma_h^2 sigma_j^2 / noise_dof``): the uncertainty of the debiasing then enters ``magnetic_rms_std``.
     weight_std : ndarray (H,), optional
         With ``noise_known``: weigh the heights by ``1 / weight_std^2`` instead of ``1 / noise_std^2`` (for
         example a noise estimate shrunk towards the series' common level); the statistics keep ``noise_std``.
@@ -315,7 +315,8 @@ def fit_continuation_reflected(stack: np.ndarray, *, heights_m, pixel_m, valid: 
     core = model[:, b:rows - b, b:cols - b]
     power = np.var(core, axis=(1, 2)) - noise_power
     # first-order variance over the interior (standard_errors); with a measured noise, its own uncertainty too
-    var_noise = None if noise_dof is None else sigma2**2 / np.asarray(noise_dof, float)
+    # one noise level for the series: the estimates of all heights move together
+    var_noise = None if noise_dof is None else np.outer(sigma2, sigma2) / np.asarray(noise_dof, float)
     var_power = (interior_power_variance(model, v, cell_w, b, noise_power_jacobian=jac, noise_variance_var=var_noise)
                  if rms_std else np.full(nh, np.nan))
     rms = np.sqrt(np.clip(power, 0.0, None))

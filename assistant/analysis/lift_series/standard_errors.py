@@ -46,8 +46,8 @@ def interior_power_variance(model: np.ndarray, cell_variance: np.ndarray, cell_w
         Edge band [px].
     noise_power_jacobian : ndarray (H, H), optional
         ``dN_h / d sigma_j^2``.
-    noise_variance_var : ndarray (H,), optional
-        Variance of every height's noise-variance estimate.
+    noise_variance_var : ndarray (H,) or (H, H), optional
+        Variance of every height's noise-variance estimate, or their covariance (one estimate for all heights).
 
     Returns
     -------
@@ -67,7 +67,8 @@ def interior_power_variance(model: np.ndarray, cell_variance: np.ndarray, cell_w
     vv = np.einsum("hq,hq,q->h", v, v, cell_weight, dtype=np.float64) / (n_i * n)
     out = np.maximum(cross - 4.0 * vv, 0.0) + 2.0 * vv
     if noise_power_jacobian is not None and noise_variance_var is not None:
-        out = out + np.asarray(noise_power_jacobian) ** 2 @ np.asarray(noise_variance_var, float)
+        jac, var = np.asarray(noise_power_jacobian), np.asarray(noise_variance_var, float)
+        out = out + (jac**2 @ var if var.ndim == 1 else np.einsum("hj,jk,hk->h", jac, var, jac))
     return out
 
 

@@ -9,7 +9,8 @@ its electrostatic and short-range parts per height, and V_cpd with a bias grid; 
 short-range part are also the recommendation's inputs.
 
 The sampling scatter of a standard deviation from N repeats is about 1 / sqrt(2 (N - 1)) of it (Gaussian
-statistics), so the repeats are chosen to keep it near 7 % or below; the seeds are fixed.
+statistics), so the repeats keep it at 5-6 % (with 100 repeats the 128 x 128 grid's lowest height read
+0.78, 0.91 and 0.92 with three seeds: the ratio itself scatters); the seeds are fixed.
 """
 
 from __future__ import annotations
@@ -67,8 +68,8 @@ def _check(ratios, low, high):
 
 
 @pytest.mark.slow
-@pytest.mark.parametrize("n, grid, repeats", [(256, False, 100), (128, False, 120), (64, False, 150),
-                                              (128, True, 100), (64, True, 120)])
+@pytest.mark.parametrize("n, grid, repeats", [(256, False, 200), (128, False, 150), (64, False, 150),
+                                              (128, True, 200), (64, True, 150)])
 def test_standard_errors_match_their_scatter(n, grid, repeats):
     _check(calibration_ratios(n, grid, repeats, noise_deg=0.02 if grid else 0.05), 0.8, 1.25)
 

