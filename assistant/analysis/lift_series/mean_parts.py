@@ -50,9 +50,11 @@ class TipCandidate:
     gap_offset_m: float
     reduced_chi2: float = float("nan")
     weight: float = 0.0
+    hudlet_apex: bool = False       # the apex as Hudlet et al.'s closed form instead of the exact sphere series
 
     def to_dict(self) -> dict:
-        return {"cone_half_angle_deg": self.cone_half_angle_deg, "radius_nm": self.radius_m * 1e9,
+        return {"cone_half_angle_deg": self.cone_half_angle_deg, "hudlet_apex": float(self.hudlet_apex),
+                "radius_nm": self.radius_m * 1e9,
                 "short_range_radius_nm": self.short_range_radius_m * 1e9, "amplitude_nm": self.amplitude_m * 1e9,
                 "gap_offset_nm": self.gap_offset_m * 1e9, "reduced_chi2": self.reduced_chi2, "weight": self.weight}
 
@@ -134,7 +136,23 @@ def _candidates(*, radius_m, radius_rel_std, cone_half_angle_deg, amplitude_m, g
             for cone in cones:
                 for r in radii:
                     for rv in radii:
-                        out.append(TipCandidate(cone, float(r), float(rv), float(amp), float(gap)))
+                        for hudlet in (False, True):
+                            out.append(TipCandidate(cone, float(r), float(rv), float(amp), float(gap),
+                                                    hudlet_apex=hudlet))
+    return out
+
+
+def _electrostatic(z, c: TipCandidate, cone_height_m: float):
+    """``1/2 C''(z)`` of a candidate tip: the exact sphere series (Smythe 1968) or Hudlet et al.'s closed-form
+    apex (1998, Eur. Phys. J. B 2, 5), with or without their cone."""
+    if not c.hudlet_apex:
+        return 0.5 * lm.tip_capacitance_second_derivative_f_per_m2(
+            z, radius_m=c.radius_m, cone_half_angle_deg=c.cone_half_angle_deg, cone_height_m=cone_height_m)
+    angle = 0.0 if c.cone_half_angle_deg is None else c.cone_half_angle_deg
+    out = lm.hudlet_apex_gradient_n_per_m(z, radius_m=c.radius_m, voltage_v=1.0, cone_half_angle_deg=angle)
+    if c.cone_half_angle_deg is not None:
+        out = out + lm.hudlet_cone_gradient_n_per_m(z, radius_m=c.radius_m, voltage_v=1.0,
+                                                    cone_half_angle_deg=angle, cone_height_m=cone_height_m)
     return out
 
 
@@ -155,10 +173,8 @@ def _shapes(cands, heights_m, cone_height_m):
         except ValueError:  # the tip would touch the surface at the lowest height: not a plausible model
             continue
         op = (c.amplitude_m, c.gap_offset_m)
-        es.append(shape(("e", c.cone_half_angle_deg, c.radius_m) + op,
-                        lambda z, c=c: 0.5 * lm.tip_capacitance_second_derivative_f_per_m2(
-                            z, radius_m=c.radius_m, cone_half_angle_deg=c.cone_half_angle_deg,
-                            cone_height_m=cone_height_m), dc, c.amplitude_m))
+        es.append(shape(("e", c.hudlet_apex, c.cone_half_angle_deg, c.radius_m) + op,
+                        lambda z, c=c: _electrostatic(z, c, cone_height_m), dc, c.amplitude_m))
         ss.append(shape(("s", c.short_range_radius_m) + op,
                         lambda z, c=c: lm.vdw_sphere_gradient_n_per_m(z, hamaker_j=1.0, radius_m=c.short_range_radius_m),
                         dc, c.amplitude_m))
@@ -278,7 +294,8 @@ def split_heights_only(total, total_std, magnetic_mean_cov, *, heights_m, tip_ra
     dof = max(nh - 2, 1)
     red = float(chi2.min()) / dof
     candidates = tuple(TipCandidate(c.cone_half_angle_deg, c.radius_m, c.short_range_radius_m, c.amplitude_m,
-                                    c.gap_offset_m, float(x / dof), float(wt)) for c, x, wt in zip(cands, chi2, wts))
+                                    c.gap_offset_m, float(x / dof), float(wt), c.hudlet_apex)
+                       for c, x, wt in zip(cands, chi2, wts))
 
     # separability at the lowest height, everything included
     tot0 = abs(y[0])
@@ -287,7 +304,8 @@ def split_heights_only(total, total_std, magnetic_mean_cov, *, heights_m, tip_ra
     separable = bool(abs(es[0]) > 2.0 * u_es and abs(sr[0]) > 2.0 * u_sr and worst <= separation_tolerance * tot0)
     h0 = h[0] * 1e9
     radii = sorted({c.radius_m for c in cands})
-    geometry = (f"cone or none, apex and van der Waals radii each {radii[0] * 1e9:.3g}-{radii[-1] * 1e9:.3g} nm")
+    geometry = (f"exact sphere or Hudlet apex, cone or none, apex and van der Waals radii each "
+                f"{radii[0] * 1e9:.3g}-{radii[-1] * 1e9:.3g} nm")
     assumed, amp_range, extra = {}, None, []
     if amplitude_m is None:
         assumed["amplitude_nm"] = ASSUMED_AMPLITUDE_M * 1e9

