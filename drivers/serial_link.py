@@ -22,7 +22,7 @@ from urllib.parse import parse_qs, urlsplit, urlunsplit
 
 import numpy as np
 
-from drivers.base import Controller, LineData, LineSpec, Limits, Status, SweepData
+from drivers.base import Capability, Controller, LineData, LineSpec, Limits, Status, SweepData
 from drivers.errors import BadURL, LinkLost, LinkTimeout, ProtocolError
 from drivers.wire.commands import MAX_SWEEP_POINTS, Command, command, exception_for, line_args
 from drivers.wire.scpi import (
@@ -120,11 +120,20 @@ class LinkController(Controller):
     def status(self) -> Status:
         return self._call("STATus?")  # type: ignore[return-value]
 
+    def set_field(self, field_a_per_m: float) -> None:
+        if field_a_per_m == 0.0 and not self.has(Capability.APPLIED_FIELD):
+            return  # zero is always allowed, even without a magnet (the base class's promise)
+        self._call("MAGNet:FIELd", float(field_a_per_m))
+
+    def read_field(self) -> float:
+        return self._call("MAGNet:FIELd?")  # type: ignore[return-value]
+
     def probe_hint(self) -> dict[str, float] | None:
         return self._call("SYSTem:PROBe?")  # type: ignore[return-value]
 
     def make_safe(self) -> None:
-        """Withdraw, drive off, bias zero in one command; the server attempts each step even if one fails."""
+        """Withdraw, drive off, bias zero (and field zero with a magnet) in one command; the server attempts each
+        step even if one fails."""
         self._call("SYSTem:SAFE")
 
 
