@@ -32,6 +32,7 @@ from scipy.signal import cont2discrete, lfilter
 from simulated_stage.clock import VirtualClock
 from simulated_stage.errors import StageFault, StageLimitError
 from simulated_stage.lever import Lever
+from simulated_stage.magnet import Electromagnet, MagnetConfig, MagnetControl
 from simulated_stage.optical_lever import CHI, FlickerNoise, OpticalLever
 from simulated_stage.scanner import CoarseMotor, XYScanner, ZPiezo
 from simulated_stage.thermal_mode import KB, ThermalMode
@@ -60,6 +61,9 @@ class StageLimits:
     scan_size_max_m: float = 90e-6
     sample_rate_max_hz: float = 5e6
     frequency_max_hz: float = 2e6
+    field_max_a_per_m: float = 800e3
+    field_ramp_a_per_m_per_s: float = 50e3
+    field_settle_s: float = 2.0
 
 
 @dataclass(frozen=True)
@@ -82,6 +86,7 @@ class InstrumentConfig:
     crash_depth_m: float = 20e-9  # a centre gap below minus this with the feedback off is a crash
     sum_min_v: float = 0.5  # the laser counts as lost below this sum signal
     detector: OpticalLever = OpticalLever()
+    field_noise_a_per_m: float = 50.0  # rms of one reading of the magnet's field sensor
 
 
 @dataclass(frozen=True)
@@ -154,7 +159,7 @@ def _closed_loop(dt_s: float, slope: float, kp: float, ki: float, tau_a: float, 
     return np.ravel(num_z), np.ravel(num_e), np.ravel(den_d)
 
 
-class VirtualMicroscope:
+class VirtualMicroscope(MagnetControl):
     """A simulated MFM: every reading is physics plus noise, every action costs virtual time.
 
     Parameters
@@ -197,6 +202,8 @@ class VirtualMicroscope:
         self.laser_fraction = 1.0
         self._faults: list[str] = []
         self._thermal: dict[float, tuple[ThermalMode, FlickerNoise]] = {}
+        self.magnet = Electromagnet(MagnetConfig(lim.field_max_a_per_m, lim.field_ramp_a_per_m_per_s,
+                                                 lim.field_settle_s, config.field_noise_a_per_m), self.clock)
 
     # ---- small physics helpers -----------------------------------------------------------------------
     @property
