@@ -282,10 +282,12 @@ class Controller(abc.ABC):
         """Withdraw, drive off, bias zero and, with a magnet, field zero: each attempted even if an earlier one
         fails."""
         errors: list[BaseException] = []
-        actions = [self.withdraw, self.drive_off, lambda: self.set_bias(0.0)]
-        if self.has(Capability.APPLIED_FIELD):
-            actions.append(lambda: self.set_field(0.0))
-        for action in actions:
+
+        def field_to_zero() -> None:
+            if Capability.APPLIED_FIELD in getattr(self, "capabilities", ()):
+                self.set_field(0.0)
+
+        for action in (self.withdraw, self.drive_off, lambda: self.set_bias(0.0), field_to_zero):
             try:
                 action()
             except Exception as exc:  # keep going: every step that can succeed must

@@ -411,24 +411,31 @@ class Sample:
         base = np.sign(self.tip.moment_a_m2) or -np.sign(self.tip.monopole_a_m) or 1.0  # q < 0 when m > 0
         self._tip_sign = base * tip_direction(base * self._tip_sign, h, self.tip.coercive_field_ka_per_m * 1e3)
         if self._dots is not None:
-            return self._switched(*self._dots.apply_field(h))
+            return self._switched(*self._dots.apply_field(h), bulk=True)
         if self._in_plane or not abs(h) > self.spec.coercive_field_ka_per_m * 1e3:
             return 0
         flat = self._mz.reshape(-1)
         pix = np.flatnonzero(flat * h < 0.0)
         old = flat[pix].copy()
         flat[pix] = -old
-        return self._switched(pix, old)
+        return self._switched(pix, old, bulk=True)
 
     @property
     def tip_reversed(self) -> bool:
         """Whether the tip's coating points against its scenario moment (reversed by the applied field)."""
         return self._tip_sign < 0
 
-    def _switched(self, pixels: np.ndarray, old_values: np.ndarray) -> int:
+    def _switched(self, pixels: np.ndarray, old_values: np.ndarray, *, bulk: bool = False) -> int:
+        """Bring the caches up to date after a switch; a field step's switching (``bulk``) is spread over the
+        whole film, where updating every cached node costs more than building again the few the next lines use."""
         if pixels.size:
             self._version += 1
-            self._update_nodes(pixels, old_values, False)
+            if bulk:
+                self._stray = None
+                self._nodes.clear()
+                self._node_uses.clear()
+            else:
+                self._update_nodes(pixels, old_values, False)
         return int(pixels.size)
 
 
