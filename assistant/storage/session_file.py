@@ -122,7 +122,7 @@ class SeriesData:
 _UNIT_SUFFIXES: tuple[tuple[tuple[str, ...], str], ...] = (
     (("n", "per", "m"), "N/m"), (("nm", "per", "v"), "nm/V"), (("m", "per", "v"), "m/V"),
     (("v2", "per", "hz"), "V^2/Hz"), (("m2", "per", "hz"), "m^2/Hz"), (("m", "per", "s"), "m/s"),
-    (("ka", "per", "m"), "kA/m"), (("kg", "per", "m3"), "kg/m^3"), (("kg", "m3"), "kg/m^3"), (("pa", "s"), "Pa s"),
+    (("ka", "per", "m"), "kA/m"), (("a", "per", "m"), "A/m"), (("kg", "per", "m3"), "kg/m^3"), (("kg", "m3"), "kg/m^3"), (("pa", "s"), "Pa s"),
     (("a", "m2"), "A m^2"), (("per", "m"), "1/m"), (("per", "s"), "1/s"), (("hz",), "Hz"), (("m",), "m"),
     (("nm",), "nm"), (("um",), "um"), (("v",), "V"), (("v2",), "V^2"), (("deg",), "deg"), (("rad",), "rad"),
     (("s",), "s"), (("k",), "K"), (("pa",), "Pa"), (("n",), "N"), (("j",), "J"), (("px",), "pixel"),
@@ -624,6 +624,28 @@ class SessionFile:
         if name not in self.analysis_names():
             raise SessionFileError(f"no analysis {name!r} in {str(self.path)!r}; have {self.analysis_names()}")
         return _read_record(self._h5["analysis"][name])
+
+    # ---- field series (assistant.storage.field_series_file) ---------------------------------------------
+    def create_field_series(self, name: str, **kwargs):
+        """Create ``field_series/<name>``; see :func:`assistant.storage.field_series_file.create`."""
+        from assistant.storage import field_series_file
+
+        return field_series_file.create(self, name, **kwargs)
+
+    def open_field_series_for_resume(self, name: str, *, before_write: BeforeWrite | None = None):
+        from assistant.storage import field_series_file
+
+        return field_series_file.open_for_resume(self, name, before_write=before_write)
+
+    def field_series_names(self) -> list[str]:
+        from assistant.storage import field_series_file
+
+        return field_series_file.names(self)
+
+    def read_field_series(self, name: str):
+        from assistant.storage import field_series_file
+
+        return field_series_file.read(self, name)
 
     def _series_group(self, name: str) -> h5py.Group:
         if name not in self.series_names():
