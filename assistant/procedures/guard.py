@@ -1,7 +1,7 @@
 """The safety guard every procedure runs inside, and the software limits it enforces.
 
 Whatever goes wrong (an exception, a cancel, Ctrl-C), the guard leaves the instrument withdrawn, with the drive
-off and the bias at zero, lets the procedure save what it has, reports, and re-raises. The software limits here
+off, the bias at zero and any applied field at zero, lets the procedure save what it has, reports, and re-raises. The software limits here
 sit *inside* the controller's hard limits; both are checked.
 """
 
@@ -36,6 +36,7 @@ class SafetyLimits:
     min_sum_v: float = 0.5  # photodetector sum below this means the laser is off the lever
     lift_height_max_m: float = 2e-6
     drive_amplitude_max_v: float = 1.0
+    field_max_a_per_m: float = 2e6  # |applied field|; the magnet's own limit applies as well
 
     def check_bias(self, bias_v: float) -> None:
         if not abs(bias_v) <= self.bias_max_v:
@@ -52,6 +53,11 @@ class SafetyLimits:
             raise SafetyError(
                 f"drive amplitude {amplitude_v:g} V outside [0, {self.drive_amplitude_max_v:g}] V"
             )
+
+    def check_field(self, field_a_per_m: float) -> None:
+        if not abs(field_a_per_m) <= self.field_max_a_per_m:
+            raise SafetyError(f"applied field {field_a_per_m / 1e3:g} kA/m exceeds the software limit of "
+                              f"±{self.field_max_a_per_m / 1e3:g} kA/m")
 
     def check_sum(self, sum_v: float) -> None:
         if not sum_v >= self.min_sum_v:  # also catches NaN
@@ -105,10 +111,20 @@ def safety_guard(controller, *, sink: Sink = null_sink, save: Callable[[], None]
         except BaseException as safe_exc:  # the link may be gone: say so loudly, then carry on with the save
             sink(Notice("error", f"could not confirm a safe stage ({safe_exc}); check the instrument by hand"))
         else:
-            sink(Notice("warning", f"stopped ({type(exc).__name__}: {exc}); tip withdrawn, drive off, bias 0 V"))
+            field = ", field 0" if _has_magnet(controller) else ""
+            sink(Notice("warning", f"stopped ({type(exc).__name__}: {exc}); tip withdrawn, drive off, bias 0 V{field}"))
         if save is not None:
             try:
                 save()
             except Exception as save_exc:
                 sink(Notice("error", f"could not save after the stop: {save_exc}"))
         raise
+
+
+def _has_magnet(controller) -> bool:
+    from drivers.base import Capability
+
+    try:
+        return bool(controller.has(Capability.APPLIED_FIELD))
+    except Exception:
+        return False

@@ -47,6 +47,9 @@ class Workflow:
     series_result: SeriesResult | None = None
     analysis: object | None = None
     probe_warnings: list[str] = field(default_factory=list)
+    field_settings: object | None = None  # the field series (assistant.procedures.field_series)
+    field_result: object | None = None
+    loop_analysis: object | None = None
     _session: object | None = None
 
     # ---- session file --------------------------------------------------------------------------------
@@ -164,6 +167,19 @@ class Workflow:
             self.controller.make_safe()  # the scan is over: nothing needs the tip near the surface now
         self.analysis = analyse_session_series(self.session, name, sink=self.sink)
         return self.analysis
+
+
+    def field_series(self, settings, *, resume: bool = False):
+        """Image every field step of ``settings`` (FieldSeriesSettings); the field ends at zero."""
+        from assistant.procedures.analyse_loop import workflow_field_series
+
+        return workflow_field_series(self, settings, resume=resume)
+
+    def analyse_loop(self, name: str | None = None):
+        """Switching fields and the loop of the session's field series (stored in the session file)."""
+        from assistant.procedures.analyse_loop import workflow_analyse_loop
+
+        return workflow_analyse_loop(self, name)
 
 
 def calibration_scalars(result: CalibrationResult, probe_name: str | None, *, now: datetime | None = None) -> dict:
