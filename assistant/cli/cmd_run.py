@@ -66,6 +66,10 @@ def run(args) -> int:
     from assistant.procedures.workflow import Workflow
     from drivers.registry import redact, scheme_of
 
+    from assistant.cli.cmd_run_fields import is_field_run, run_fields
+
+    if is_field_run(args):
+        return run_fields(args)
     limits = load_limits(args.limits)
     progress = StderrProgress(quiet=False)
     if args.resume:

@@ -96,6 +96,16 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--plots", metavar="DIR", help="also write the decomposition figures to DIR")
     _json(p)
     p.set_defaults(handler="cmd_analyze:series")
+    p = ana.add_parser("loop", help="switching fields, loop, coercive field and switching-field spread of a field "
+                                    "series")
+    p.add_argument("file", help=".npz (phase_deg (fields, rows, cols), field_ka_per_m (fields,), pixel_nm, optional "
+                                "topography_m (rows, cols)) or a session file (.h5)")
+    p.add_argument("--field-series", metavar="NAME", help="field series inside a session file (default: the last)")
+    p.add_argument("--tip-moment", choices=("up", "down"), default="up",
+                   help="the tip's magnetisation at the first step: along +z (up, default) or -z")
+    p.add_argument("--plots", metavar="DIR", help="also write the loop figures to DIR")
+    _json(p)
+    p.set_defaults(handler="cmd_analyze_loop:run")
 
     # ---- calibrate, probes --------------------------------------------------------------------------------
     p = sub.add_parser("calibrate", help="calibrate the mounted probe: resonance, Q, k (Sader), InvOLS")
@@ -123,6 +133,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--pixels", type=positive(int), default=128, help="pixels per line (default 128)")
     p.add_argument("--size-um", type=positive(), default=4.0, help="scan size in µm (default 4)")
     p.add_argument("--no-repeat", action="store_true", help="do not repeat the first height at the end of lines")
+    p.add_argument("--fields-ka-per-m", metavar="LIST|START:STOP:STEP",
+                   help="a field series instead of a lift series: applied fields in kA/m, as a list or as "
+                        "START:STOP:STEP (from START to STOP and back); one lift height (--heights, default 50 nm)")
     p.add_argument("--pace", choices=("fast", "realtime"), default="fast", help="simulated stage pacing")
     p.add_argument("--line-rate", type=positive(), default=1.0, metavar="HZ", help="lines per second per pass")
     p.add_argument("--out", default="mfma-out", metavar="DIR", help="output folder (default ./mfma-out)")

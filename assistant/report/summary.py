@@ -286,10 +286,12 @@ def _decomposition_figures(session: SessionFile, out_dir: Path, notes: list[str]
 
 # ---- the report -----------------------------------------------------------------------------------------------
 def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLike[str], *,
-                 analyses: Mapping[str, object] | None = None) -> ReportResult:
+                 analyses: Mapping[str, object] | None = None,
+                 loops: Mapping[str, object] | None = None) -> ReportResult:
     """Write the figures a session file supports and ``summary.md`` into ``out_dir`` (created if needed).
 
-    ``analyses`` maps series names to decompositions the caller already has, so they are not computed again.
+    ``analyses`` maps series names to decompositions the caller already has, ``loops`` field-series names to
+    loop analyses, so they are not computed again.
     """
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
@@ -319,6 +321,12 @@ def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLik
             data = session.read_series(name)
             text += _series_section(data)
             paths += _series_images(data, out)
+        if session.field_series_names():
+            from assistant.report.loop_report import field_series_report
+
+            more_text, more_paths = field_series_report(session, out, notes, loops)
+            text += more_text
+            paths += more_paths
         stored = session.analysis_names()
         if stored:
             text += ["## Analysis", ""]

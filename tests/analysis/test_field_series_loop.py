@@ -157,12 +157,13 @@ def test_tip_reversal_in_the_middle_of_the_switching():
 
 
 def test_tip_switched_element_is_found_and_where():
-    base = make_loop_stack(seed=5, rows=96, cols=96, drift_step_px=0.1)
-    inside = np.flatnonzero(np.all((base.centres_px > 12) & (base.centres_px < 84), axis=1))
+    kw = dict(seed=5, rows=80, cols=80, drift_step_px=0.1, fields=loop_fields(450e3, 50e3))
+    base = make_loop_stack(**kw)
+    inside = np.flatnonzero(np.all((base.centres_px > 12) & (base.centres_px < 68), axis=1))
     dot = int(inside[0])
     step = int(np.argmax(base.states[:, dot] < 0)) - 1  # the field reverses it at the next step
     row = int(round(base.centres_px[dot, 0]))
-    st = make_loop_stack(seed=5, rows=96, cols=96, drift_step_px=0.1, tip_switch=(dot, step, row))
+    st = make_loop_stack(**kw, tip_switch=(dot, step, row))
     with_repeat = analyse_loop(st.phase_deg, st.field_a_per_m, topography_m=st.topography_m,
                                repeat_phase_deg=st.repeat_phase_deg)
     e = int(np.flatnonzero(match(with_repeat.elements.centroids_px, st.centres_px) == dot)[0])

@@ -20,7 +20,7 @@ from drivers.errors import ControllerFault, LinkTimeout
 from drivers.registry import open_controller
 
 DOT_LOOP = resources.files("simulated_stage").joinpath("scenarios/dot-loop.toml").read_text()
-SMALL = FieldSeriesSettings(fields_a_per_m=tuple(f * 1e3 for f in parse_fields_ka_per_m("450:-450:150")),
+SMALL = FieldSeriesSettings(fields_a_per_m=tuple(f * 1e3 for f in parse_fields_ka_per_m("450:-450:300")),
                             lift_height_m=50e-9, lines=8, pixels=16, scan_size_m=1.0e-6)
 
 
@@ -102,8 +102,8 @@ def test_magnet_fault_leaves_the_stage_safe_with_the_field_at_zero(tmp_path):
             notices = []
             with pytest.raises(ControllerFault, match="tripped"):
                 run_field_series(ctl, SMALL, writer(sf, SMALL), sink=notices.append)
-            # the 4th field set to a non-zero value trips (setting zero never faults): step 5, -150 kA/m
-            assert sf.read_field_series(SMALL.name).completed_lines == 4 * SMALL.lines
+            # the 4th field set trips: step 4 (450, 150, -150, then -450 kA/m)
+            assert sf.read_field_series(SMALL.name).completed_lines == 3 * SMALL.lines
         assert_safe(ctl.stage)
         assert any(isinstance(n, Notice) and "field 0" in n.text for n in notices)
 
@@ -143,7 +143,7 @@ def test_interrupted_series_resumes_where_it_stopped(tmp_path):
     cancel = CancelToken()
 
     def stop_mid_step(event):
-        if isinstance(event, Progress) and event.done == 8 * SMALL.lines + 3:
+        if isinstance(event, Progress) and event.done == 4 * SMALL.lines + 3:
             cancel.set()
 
     with engaged(scenario=scenario, seed=5) as ctl:
@@ -152,7 +152,7 @@ def test_interrupted_series_resumes_where_it_stopped(tmp_path):
                 run_field_series(ctl, SMALL, writer(sf, SMALL), sink=stop_mid_step, cancel=cancel)
             before = sf.read_field_series(SMALL.name)
         assert_safe(ctl.stage)
-    assert before.completed_lines == 8 * SMALL.lines + 3 and before.completed_steps == 8
+    assert before.completed_lines == 4 * SMALL.lines + 3 and before.completed_steps == 4
     notices = []
     with engaged(scenario=scenario, seed=5) as ctl:  # a new stage: its dots start unsaturated
         with SessionFile.open(path, "a") as sf:
@@ -160,6 +160,6 @@ def test_interrupted_series_resumes_where_it_stopped(tmp_path):
             run_field_series(ctl, SMALL, w, sink=notices.append)
             after = sf.read_field_series(SMALL.name)
     assert after.finished
-    assert after.phase_deg[:8].tobytes() == before.phase_deg.tobytes()
+    assert after.phase_deg[:4].tobytes() == before.phase_deg.tobytes()
     text = " ".join(n.text for n in notices if isinstance(n, Notice))
-    assert "resuming at field step 9 line 4" in text and "450, -450, -300 kA/m" in text
+    assert "resuming at field step 5 line 4" in text and "450, -450 kA/m" in text

@@ -47,7 +47,8 @@ class BranchSwitching:
     """Per element along one branch.
 
     ``step`` is the first step found reversed (-1: it did not reverse; -2: it already pointed the branch's
-    way at the start, so it has no switching field on this branch). ``low``/``high`` bound its switching
+    way at the start, or was out of sight before it reversed, so the branch tells nothing of its switching
+    field). ``low``/``high`` bound its switching
     field [A/m] (``high`` inf when it did not reverse by the branch's end: censored); for a descending branch
     they bound ``-H``, the field's magnitude against the element, so both branches give positive values for
     elements that need a reverse field.
@@ -74,10 +75,14 @@ def switching(states: np.ndarray, field: np.ndarray, branch: Branch) -> BranchSw
     h = np.asarray(field, dtype=float)
     d = branch.direction
     start = s[branch.start]
-    seg = s[branch.start + 1: branch.end + 1] == d  # (steps after the turning point, elements)
+    after = s[branch.start + 1: branch.end + 1]  # (steps after the turning point, elements)
+    seg = after == d
     hit = seg.any(axis=0)
-    first = np.argmax(seg, axis=0) + branch.start + 1
-    step = np.where(start == -d, np.where(hit, first, -1), -2)
+    first = np.argmax(seg, axis=0)
+    # out of sight (state 0) at some step before the reversal, or before the branch's end without one
+    unseen = np.cumsum(after == 0, axis=0) > 0
+    lost = np.where(hit, unseen[first, np.arange(s.shape[1])], unseen[-1]) if after.size else np.zeros(s.shape[1], bool)
+    step = np.where((start == -d) & ~lost, np.where(hit, first + branch.start + 1, -1), -2)
     # bounds of the switching field along the branch's direction, as a magnitude "against" the element
     g = d * h  # the field component that drives the reversal
     low = np.where(step >= 0, g[np.maximum(step - 1, 0)], g[branch.end])

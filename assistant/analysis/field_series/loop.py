@@ -35,7 +35,7 @@ class LoopAnalysis:
     """Result of :func:`analyse_loop` (fields in A/m; element indices 0-based, in ``elements.labels - 1``)."""
 
     field_a_per_m: np.ndarray  # (steps,)
-    m_over_ms: np.ndarray  # (steps,) mean state of the measurable elements
+    m_over_ms: np.ndarray  # (steps,) mean state of the elements in sight at each step
     elements: ElementMap
     states: np.ndarray  # (steps, elements) +1 along +z, -1 along -z, 0 never measurable
     contrast_deg: np.ndarray  # (steps, elements) mean phase over each element minus the image mean
@@ -139,9 +139,22 @@ def _combine(down: NormalFit | None, up: NormalFit | None, rho: float) -> tuple[
         return f.mean, f.mean_std, f.sigma, f.sigma_std
     hc = 0.5 * (down.mean + up.mean)
     hc_std = 0.5 * math.sqrt(down.mean_std**2 + up.mean_std**2 + 2 * rho * down.mean_std * up.mean_std)
-    sigma = math.sqrt(0.5 * (down.sigma**2 + up.sigma**2))
-    sigma_std = 0.5 * (down.sigma_std + up.sigma_std)  # the two branches' spreads share their elements
+    resolved = [f for f in fits if math.isfinite(f.sigma)]
+    if not resolved:
+        return hc, hc_std, math.nan, math.nan
+    sigma = math.sqrt(sum(f.sigma**2 for f in resolved) / len(resolved))
+    sigma_std = sum(f.sigma_std for f in resolved) / len(resolved)  # the branches' spreads share their elements
     return hc, hc_std, sigma, sigma_std
+
+
+def _tip_censored(b: BranchSwitching, switches: tuple[TipSwitch, ...]) -> tuple[np.ndarray, np.ndarray]:
+    """Switching intervals for the fit, an element the tip reversed counted as needing more than the field of
+    the step before (its own switching field lies above that plus the tip's unknown field: censored)."""
+    low, high = b.low.copy(), b.high.copy()
+    for s in switches:
+        if b.step[s.element] == s.step:
+            high[s.element] = np.inf
+    return low, high
 
 
 def _correlation(down: BranchSwitching | None, up: BranchSwitching | None) -> float:
@@ -235,15 +248,17 @@ def analyse_loop(phase_deg: np.ndarray, field_a_per_m: np.ndarray, *, topography
                             tip_start=1 if tip_moment == "up" else -1)
     states = result.states
     measurable = np.any(states != 0, axis=0)
-    m = states[:, measurable].mean(axis=1) if measurable.any() else np.zeros(h.size)
+    seen = (states != 0).sum(axis=1)
+    m = np.where(seen > 0, states.sum(axis=1) / np.maximum(seen, 1), np.nan)  # over the elements in sight
     down_b, up_b = _major(parts, h, -1), _major(parts, h, +1)
     down = None if down_b is None else switching(states, h, down_b)
     up = None if up_b is None else switching(states, h, up_b)
-    down_fit = None if down is None else fit_intervals(down.low, down.high)
-    up_fit = None if up is None else fit_intervals(up.low, up.high)
+    intervals = [_tip_censored(b, result.tip_switches) for b in (down, up) if b is not None]
+    down_fit = None if down is None else fit_intervals(*intervals[0])
+    up_fit = None if up is None else fit_intervals(*intervals[-1])
     hc, hc_std, sigma, sigma_std = _combine(down_fit, up_fit, _correlation(down, up))
-    lows = np.concatenate([b.low for b in (down, up) if b is not None])
-    highs = np.concatenate([b.high for b in (down, up) if b is not None])
+    lows = np.concatenate([low for low, _ in intervals])
+    highs = np.concatenate([high for _, high in intervals])
     fit_of = lambda b: None if b is None else fit_loop(h[b.start:b.end + 1], m[b.start:b.end + 1],  # noqa: E731
                                                        direction=b.direction)
     tagawa, tagawa_std, notes = math.nan, math.nan, []
@@ -294,6 +309,10 @@ def _notes(h, m, down_b, up_b, result, elements, drift, measurable, topo, down_f
         if fit is not None and not np.isfinite(fit.sigma):
             notes.append(f"on the {label} branch the elements switched within {fit.intervals} field step(s): "
                          f"the spread is not resolved; use finer steps")
+    gone = measurable & np.any(result.states == 0, axis=0)
+    if gone.any():
+        notes.append(f"{int(gone.sum())} element(s) drifted out of the frame (or lost their contrast) for some "
+                     f"steps: no state there, and no switching field on a branch they were not seen through")
     if (~measurable).any():
         notes.append(f"{int((~measurable).sum())} element(s) never showed a significant contrast")
     shift = float(np.max(np.hypot(drift[:, 0], drift[:, 1])))

@@ -46,16 +46,21 @@ class TipSwitch:
 
 @dataclass(frozen=True)
 class StateResult:
-    states: np.ndarray  # (steps, elements) +1 / -1 (0: never measurable)
+    states: np.ndarray  # (steps, elements) +1 / -1 (0: not measurable there, e.g. drifted out of the frame)
     tip: np.ndarray  # (steps,) +1 tip along +z, -1 reversed
     reversal_steps: tuple[int, ...]
     tip_switches: tuple[TipSwitch, ...]
     determined: np.ndarray  # (steps, elements) whether the contrast itself was significant
 
 
-def _carry(observed: np.ndarray, determined: np.ndarray) -> np.ndarray:
-    """Undetermined entries take the last determined state of their element (the first one before it)."""
-    out = np.where(determined, observed, 0).astype(np.int8)
+def _carry(values: np.ndarray) -> np.ndarray:
+    """Entries 0 (undetermined) take the last determined state of their element (before its first: the first).
+
+    Carried in the elements' own frame (after the tip's reversals are taken out): an element too faint to read
+    at a step keeps its magnetisation, not its contrast.
+    """
+    determined = values != 0
+    out = values.astype(np.int8)
     index = np.where(determined, np.arange(out.shape[0])[:, None], -1)
     last = np.maximum.accumulate(index, axis=0)
     first = np.argmax(determined, axis=0)
@@ -112,7 +117,10 @@ def _tip_series(steps: int, reversals: tuple[int, ...], start: int) -> np.ndarra
 
 def resolve_tip(observed: np.ndarray, candidates: list[int], parts: list[Branch], field: np.ndarray, *,
                 tip_start: int) -> tuple[tuple[int, ...], np.ndarray]:
-    """The set of candidate steps taken as tip reversals, and the tip's direction at every step."""
+    """The set of candidate steps taken as tip reversals, and the tip's direction at every step.
+
+    ``observed`` holds each element's state as read with the tip along +z (0 where the contrast was too faint).
+    """
     n = max(observed.shape[1], 1)
     direction = np.zeros(observed.shape[0], dtype=int)
     for b in parts:
@@ -123,7 +131,7 @@ def resolve_tip(observed: np.ndarray, candidates: list[int], parts: list[Branch]
             tip = _tip_series(observed.shape[0], chosen, tip_start)
             # the tip turns towards the field's change and can only end up along the field it sits in
             against = sum(1 for k in chosen if tip[k] != direction[k] or np.sign(field[k]) != tip[k])
-            cost = wrong_way_transitions(observed * tip[:, None], parts) + n * against + 0.5 * r
+            cost = wrong_way_transitions(_carry(observed * tip[:, None]), parts) + n * against + 0.5 * r
             if cost < best_cost:
                 best, best_cost = chosen, cost
     return best, _tip_series(observed.shape[0], best, tip_start)
@@ -150,7 +158,7 @@ def element_states(contrast_deg: np.ndarray, contrast_sigma: np.ndarray, field: 
     if repeat_line_deg is not None:
         for e, k in repeat_mismatches(line_deg, line_sigma, repeat_line_deg, line_element):
             switches[(e, k)] = "lift pass"
-    observed = _carry(-sign, determined)
+    observed = np.where(determined, -sign, 0).astype(np.int8)  # the state if the tip points along +z
     both = determined[1:] & determined[:-1]
     inverted = (observed[1:] != observed[:-1]) & both
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -160,5 +168,7 @@ def element_states(contrast_deg: np.ndarray, contrast_sigma: np.ndarray, field: 
         candidates = sorted(sorted(candidates, key=lambda k: -fraction[k - 1])[:_MAX_CANDIDATES])
     reversals, tip = resolve_tip(observed, candidates, parts, np.asarray(field, dtype=float), tip_start=tip_start)
     tip_switches = tuple(TipSwitch(e, k, during) for (e, k), during in sorted(switches.items()))
-    return StateResult(states=(observed * tip[:, None]).astype(np.int8), tip=tip, reversal_steps=reversals,
+    visible = np.isfinite(contrast_deg)  # an element drifted out of the frame has no state there, not the last
+    states = np.where(visible, _carry(observed * tip[:, None]), 0).astype(np.int8)
+    return StateResult(states=states, tip=tip, reversal_steps=reversals,
                        tip_switches=tip_switches, determined=determined)

@@ -1,0 +1,163 @@
+"""``mfma run --fields-ka-per-m LIST|START:STOP:STEP``: calibrate, approach once, image every field step at one
+lift height, analyse the loop, write the report. ``mfma run --resume FILE`` on a session whose field series was
+interrupted continues it."""
+
+from __future__ import annotations
+
+import json
+from datetime import datetime, timezone
+from pathlib import Path
+
+from assistant.cli._common import StderrProgress, UsageError, emit_json, emit_text, open_controller_from_args
+
+DEFAULT_LIFT_NM = 50.0
+_RUN_DEFAULT_BIASES = [-0.5, 0.0, 0.5, 1.0]  # ``mfma run``'s bias grid for a lift series; a field series takes one bias
+
+
+def is_field_run(args) -> bool:
+    """A new field series, or a resume of a session whose last field series is unfinished."""
+    if getattr(args, "fields_ka_per_m", None) is not None:
+        return True
+    if not getattr(args, "resume", None) or not Path(args.resume).is_file():
+        return False
+    from assistant.storage.session_file import SessionFile, SessionFileError
+
+    try:
+        with SessionFile.open(args.resume, "r") as sf:
+            names = sf.field_series_names()
+            return bool(names) and not sf.read_field_series(names[-1]).finished and not _unfinished_series(sf)
+    except SessionFileError:
+        return False  # the lift-series path reports what is wrong with the file
+
+
+def _unfinished_series(sf) -> bool:
+    names = sf.series_names()
+    return bool(names) and not sf.read_series(names[-1]).finished
+
+
+def field_settings(args):
+    from assistant.procedures.field_series import FieldSeriesSettings, parse_fields_ka_per_m
+
+    fields = parse_fields_ka_per_m(args.fields_ka_per_m)
+    heights = args.heights or [DEFAULT_LIFT_NM]
+    if len(heights) != 1:
+        raise UsageError(f"--heights: a field series images at one lift height, got {len(heights)}")
+    biases = list(args.biases)
+    if biases == _RUN_DEFAULT_BIASES:
+        bias = 0.0
+    elif len(biases) == 1:
+        bias = biases[0]
+    else:
+        raise UsageError(f"--biases: a field series images at one tip bias, got {len(biases)}")
+    return FieldSeriesSettings(fields_a_per_m=tuple(f * 1e3 for f in fields), lift_height_m=heights[0] * 1e-9,
+                               bias_v=bias, lines=args.lines, pixels=args.pixels, scan_size_m=args.size_um * 1e-6,
+                               line_rate_hz=args.line_rate, repeat_first=not args.no_repeat)
+
+
+def run_fields(args) -> int:
+    from assistant.cli.cmd_run import _scenario_text, _writable_dir, _writer_hook, calibration_settings
+    from assistant.procedures.field_series import check_controller
+    from assistant.procedures.guard import load_limits
+    from assistant.procedures.workflow import Workflow
+    from assistant.report.summary import build_report
+    from drivers.registry import redact, scheme_of
+
+    limits = load_limits(args.limits)
+    progress = StderrProgress(quiet=False)
+    if args.resume:
+        return _resume(args, limits, progress)
+    out = _writable_dir(args.out)
+    settings = field_settings(args)
+    settings.validate(limits)
+    cal_settings = calibration_settings(args)
+    cal_settings.validate()
+    stamp = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
+    session_path = out / f"session-{stamp}.h5"
+    extra = {"pace": args.pace, "line_rate": args.line_rate} if scheme_of(args.controller) == "sim" else {}
+    with open_controller_from_args(args, **extra) as ctl:
+        check_controller(ctl, settings, limits)  # the magnet and its limits, before anything moves
+        wf = Workflow(ctl, session_path, controller_url=redact(args.controller), scenario_text=_scenario_text(ctl),
+                      limits=limits, sink=progress, fsync=args.fsync, before_write=_writer_hook(ctl))
+        try:
+            from assistant.storage.probe_record import ProbeRecord
+
+            wf.calibrate(cal_settings, probe_record=ProbeRecord() if args.probe else None)
+            wf.approach()
+            wf.field_series(settings)
+            analysis = wf.analyse_loop()
+            wf.session.mark_complete()
+            wf.session.flush()
+            report = build_report(session_path, out / f"report-{stamp}", loops={settings.name: analysis})
+        finally:
+            wf.close()
+    return _finish(args, session_path, report, wf, analysis)
+
+
+def _resume(args, limits, progress) -> int:
+    from assistant.cli.cmd_run import _writer_hook
+    from assistant.procedures.field_series import FieldSeriesSettings, check_controller
+    from assistant.procedures.workflow import Workflow, drive_from_json
+    from assistant.report.summary import build_report
+    from assistant.storage.session_file import SessionFile
+    from drivers.registry import redact, scheme_of
+
+    path = Path(args.resume)
+    with SessionFile.open(path, "r") as sf:
+        data = sf.read_field_series(sf.field_series_names()[-1])
+        stored = json.loads(data.settings_json)
+    drive = drive_from_json(stored.pop("drive"))
+    k, q, t = stored.pop("spring_constant_n_per_m"), stored.pop("quality_factor"), stored.pop("temperature_k")
+    settings = FieldSeriesSettings.from_json(json.dumps(stored))
+    extra = {"pace": args.pace, "line_rate": settings.line_rate_hz} if scheme_of(args.controller) == "sim" else {}
+    with open_controller_from_args(args, **extra) as ctl:
+        check_controller(ctl, settings, limits)
+        wf = Workflow(ctl, path, controller_url=redact(args.controller), limits=limits, sink=progress,
+                      fsync=args.fsync, before_write=_writer_hook(ctl))
+        wf._session = SessionFile.open(path, "a")
+        try:
+            wf.restore_drive(drive, spring_constant_n_per_m=k, quality_factor=q, temperature_k=t)
+            step, line = divmod(data.completed_lines, data.lines)
+            progress.notices.append(("info", f"resuming {settings.name} at field step {step + 1}, line {line + 1}"))
+            wf.approach()
+            wf.field_series(settings, resume=True)
+            analysis = wf.analyse_loop()
+            wf.session.mark_complete()
+            wf.session.flush()
+            report = build_report(path, path.parent / f"report-{path.stem}", loops={settings.name: analysis})
+        finally:
+            wf.close()
+    return _finish(args, path, report, wf, analysis)
+
+
+def _finish(args, session_path: Path, report, wf, analysis) -> int:
+    cal = wf.calibration
+    calib = ({"k_n_per_m": cal.k_n_per_m, "k_std_n_per_m": cal.k_std_n_per_m, "f0_hz": cal.thermal.f0_hz,
+              "q": cal.thermal.q, "invols_nm_per_v": cal.invols_m_per_v * 1e9} if cal is not None else
+             {"k_n_per_m": wf.spring_constant_n_per_m, "k_std_n_per_m": None, "f0_hz": wf.drive.frequency_hz,
+              "q": wf.quality_factor, "invols_nm_per_v": None})
+    s, res = wf.field_settings, wf.field_result
+    loop = analysis.to_dict()
+    summary = {
+        "session_file": str(session_path), "report_dir": str(report.out_dir), "calibration": calib,
+        "field_series": {"name": s.name, "fields_ka_per_m": [round(h / 1e3, 6) for h in s.fields_a_per_m],
+                         "lift_height_nm": round(s.lift_height_m * 1e9, 6), "completed_steps": res.completed_steps,
+                         "lines": s.lines},
+        "loop": loop,
+    }
+    if args.json:
+        emit_json(summary)
+        return 0
+    hc, hc_std, sigma = loop["coercive_field_ka_per_m"], loop["coercive_field_std_ka_per_m"], loop["sfd_sigma_ka_per_m"]
+    emit_text([
+        f"session file: {session_path}",
+        f"report:       {report.out_dir}",
+        f"k = {calib['k_n_per_m']:.4g} N/m, f0 = {calib['f0_hz']:.1f} Hz, Q = {calib['q']:.1f}",
+        f"field series: {res.completed_steps} field steps x {s.lines} lines at {s.lift_height_m * 1e9:g} nm lift",
+        f"elements: {loop['dots']}",
+        "coercive field: " + (f"{hc:.4g} ± {hc_std:.2g} kA/m" if hc is not None else "not determined"),
+        "switching-field spread (sigma): " + (f"{sigma:.3g} kA/m" if sigma is not None else "not determined"),
+        "tip reversals at: " + (", ".join(f"{h:g}" for h in loop["tip_reversals_ka_per_m"]) + " kA/m"
+                                if loop["tip_reversals_ka_per_m"] else "none"),
+        "elements switched by the tip: " + (", ".join(str(e) for e in loop["tip_switched_elements"]) or "none"),
+    ] + [f"note: {n}" for n in analysis.notes[1:]])
+    return 0

@@ -1,0 +1,140 @@
+"""``mfma analyze loop`` and ``mfma run --fields-ka-per-m``: the outside contract (keys, exit codes, one-line
+errors) and a whole field series on the simulated dot array, checked against the stage's own dots."""
+
+from __future__ import annotations
+
+import json
+import sys
+from importlib import resources
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+sys.path.insert(0, str(Path(__file__).parents[1] / "analysis"))
+from synthetic_loop import loop_fields, make_loop_stack, match  # noqa: E402
+
+from assistant.cli import main  # noqa: E402
+
+JSON_KEYS = {"dots", "coercive_field_ka_per_m", "coercive_field_std_ka_per_m", "sfd_sigma_ka_per_m",
+             "switching_fields_ka_per_m", "loop_field_ka_per_m", "loop_m_over_ms", "tip_reversals_ka_per_m",
+             "tip_switched_elements"}
+
+
+@pytest.fixture(scope="module")
+def stack():
+    return make_loop_stack(seed=8, rows=80, cols=80, fields=loop_fields(450e3, 50e3), drift_step_px=0.2)
+
+
+def _npz(path: Path, st, **change) -> Path:
+    data = {"phase_deg": st.phase_deg, "field_ka_per_m": st.field_a_per_m / 1e3, "pixel_nm": 20.0,
+            "topography_m": st.topography_m}
+    data.update(change)
+    np.savez(path, **{k: v for k, v in data.items() if v is not None})
+    return path
+
+
+def _run(argv, capsys) -> tuple[int, str, str]:
+    code = main(argv)
+    out, err = capsys.readouterr()
+    return code, out, err
+
+
+def test_analyze_loop_json_has_exactly_the_keys(tmp_path, stack, capsys):
+    code, out, _ = _run(["analyze", "loop", str(_npz(tmp_path / "s.npz", stack)), "--json"], capsys)
+    assert code == 0
+    d = json.loads(out)
+    assert set(d) == JSON_KEYS
+    assert d["tip_reversals_ka_per_m"] == [-250.0, 250.0]
+    assert d["loop_field_ka_per_m"] == (stack.field_a_per_m / 1e3).tolist()
+    down = np.array([v[0] for v in d["switching_fields_ka_per_m"]], float)
+    assert d["dots"] == down.size and np.all(np.isfinite(down))
+
+
+def test_analyze_loop_recovers_known_switching_fields_and_writes_figures(tmp_path, stack, capsys):
+    from assistant.procedures.analyse_loop import analyse_npz
+
+    path = _npz(tmp_path / "s.npz", stack)
+    code, out, _ = _run(["analyze", "loop", str(path), "--plots", str(tmp_path / "fig")], capsys)
+    assert code == 0 and "coercive field Hc" in out and "tip reversals at: -250, 250 kA/m" in out
+    assert sorted(p.name for p in (tmp_path / "fig").iterdir()) == ["elements.png", "field_steps.png", "loop.png"]
+    result = analyse_npz(path)
+    truth = stack.switching_a_per_m[match(result.elements.centroids_px, stack.centres_px)] / 1e3
+    down = -np.array([v[0] for v in result.to_dict()["switching_fields_ka_per_m"]])
+    assert np.all((down - truth >= 0) & (down - truth < 50.0))  # within one field step
+
+
+@pytest.mark.parametrize("change,message", [
+    ({"pixel_nm": None}, "missing key(s) pixel_nm"),
+    ({"field_ka_per_m": np.arange(5.0)}, "field axis"),
+    ("three", "at least 3 field steps"),
+    ("noise", "no elements found"),
+])
+def test_analyze_loop_bad_stacks_exit_2_with_one_line(tmp_path, stack, capsys, change, message):
+    if change == "three":
+        change = {"phase_deg": stack.phase_deg[:2], "field_ka_per_m": stack.field_a_per_m[:2] / 1e3}
+    elif change == "noise":
+        change = {"phase_deg": np.random.default_rng(0).normal(0, 0.05, stack.phase_deg.shape), "topography_m": None}
+    code, out, err = _run(["analyze", "loop", str(_npz(tmp_path / "s.npz", stack, **change)), "--json"], capsys)
+    assert code == 2 and out == ""
+    assert len(err.strip().splitlines()) == 1 and message in err and "Traceback" not in err
+
+
+DOT_LOOP = resources.files("simulated_stage").joinpath("scenarios/dot-loop.toml").read_text()
+
+
+@pytest.mark.parametrize("argv,message", [
+    (["--fields-ka-per-m", "300,0"], "at least 3 field steps"),
+    (["--fields-ka-per-m", "700:-700:100"], "exceeds the magnet's limit of 600 kA/m"),
+    (["--fields-ka-per-m", "3000:-3000:1000"], "software limit"),
+    (["--fields-ka-per-m", "300:-300:100", "--heights", "20,40"], "one lift height"),
+    (["--fields-ka-per-m", "300:-300"], "START:STOP:STEP"),
+])
+def test_run_with_bad_fields_exits_2_before_anything_moves(tmp_path, capsys, argv, message):
+    code, out, err = _run(["run", "--scenario", "dot-loop", "--out", str(tmp_path / "o"), *argv], capsys)
+    assert code == 2 and out == "" and message in err and len(err.strip().splitlines()) == 1
+    assert not list(tmp_path.rglob("session-*.h5"))
+
+
+def test_field_series_on_the_simulated_dot_array(tmp_path, capsys):
+    # A user's run: calibrate, approach, a loop of +-440 kA/m in 40 kA/m steps, analysis, report. The dot array
+    # (switching fields 300 +- 40 kA/m, tip coating reversing at 200 kA/m) on a film just large enough.
+    from simulated_stage.sample import build_sample
+    from simulated_stage.scenario import load_scenario
+
+    scenario = tmp_path / "dots.toml"
+    scenario.write_text(DOT_LOOP.replace("extent_um = 6.0", "extent_um = 3.5"))
+    code, out, err = _run(["run", "--scenario", str(scenario), "--fields-ka-per-m", "440:-440:40", "--lines", "16",
+                           "--pixels", "24", "--size-um", "1.5", "--thermal-seconds", "0.2", "--seed", "3",
+                           "--out", str(tmp_path / "out"), "--json"], capsys)
+    assert code == 0, err
+    d = json.loads(out)
+    loop = d["loop"]
+    assert set(loop) == JSON_KEYS and d["field_series"]["completed_steps"] == 45
+    m = loop["loop_m_over_ms"]
+    assert m[0] == 1.0 and min(m) == -1.0 and m[-1] == 1.0
+    # the tip's coating reverses at the first step past 200 kA/m on each branch
+    assert loop["tip_reversals_ka_per_m"] == [-240.0, 240.0]
+    # the stage's own dots under the elements found (the sample is built from the scenario's seed)
+    s = load_scenario(str(scenario))
+    dots = build_sample(s.sample, s.tip)._dots
+    from assistant.procedures.analyse_loop import analyse_stored
+    from assistant.storage.session_file import SessionFile
+
+    with SessionFile.open(d["session_file"], "r") as sf:
+        result = analyse_stored(sf, write=False)
+    pr, pc = result.pixel_m
+    centres = result.elements.centroids_px
+    dist = np.hypot((centres[:, 1, None] + 0.5) * pc - dots.x_m, (centres[:, 0, None] + 0.5) * pr - dots.y_m)
+    truth = dots.switching_a_per_m[np.argmin(dist, axis=1)] / 1e3
+    assert loop["dots"] >= 5 and np.all(dist.min(axis=1) < 100e-9)
+    assert loop["coercive_field_ka_per_m"] == pytest.approx(truth.mean(), abs=3 * loop["coercive_field_std_ka_per_m"])
+    assert loop["sfd_sigma_ka_per_m"] == pytest.approx(truth.std(ddof=1), rel=0.6)
+    by_tip = set(loop["tip_switched_elements"])
+    for e, (down, up) in enumerate(loop["switching_fields_ka_per_m"]):
+        for got in (down, up):
+            if got is not None and e not in by_tip:  # the field alone: the first step at or past the dot's own
+                assert 0 <= abs(got) - truth[e] < 40.0
+    report = Path(d["report_dir"])
+    assert {"fields1_loop.png", "fields1_elements.png", "fields1_field_steps.png"} <= {p.name for p in report.iterdir()}
+    assert "## Field series" in (report / "summary.md").read_text()
