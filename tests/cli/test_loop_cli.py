@@ -130,11 +130,15 @@ def test_field_series_on_the_simulated_dot_array(tmp_path, capsys):
     assert loop["dots"] >= 5 and np.all(dist.min(axis=1) < 100e-9)
     assert loop["coercive_field_ka_per_m"] == pytest.approx(truth.mean(), abs=3 * loop["coercive_field_std_ka_per_m"])
     assert loop["sfd_sigma_ka_per_m"] == pytest.approx(truth.std(ddof=1), rel=0.6)
+    # The first step at or past each dot's own switching field; the tip's field at a dot under it (at most
+    # m / (2 pi delta^3) = 9.2 kA/m for this tip in the topography pass) can bring that a step earlier. A switch
+    # the images show happening under the tip is reported as such and may come earlier still.
+    tip_field = 1e-16 / (2 * np.pi * (120e-9) ** 3) / 1e3
     by_tip = set(loop["tip_switched_elements"])
     for e, (down, up) in enumerate(loop["switching_fields_ka_per_m"]):
         for got in (down, up):
-            if got is not None and e not in by_tip:  # the field alone: the first step at or past the dot's own
-                assert 0 <= abs(got) - truth[e] < 40.0
+            if got is not None and e not in by_tip:
+                assert -tip_field <= abs(got) - truth[e] < 40.0
     report = Path(d["report_dir"])
     assert {"fields1_loop.png", "fields1_elements.png", "fields1_field_steps.png"} <= {p.name for p in report.iterdir()}
     assert "## Field series" in (report / "summary.md").read_text()
