@@ -20,11 +20,13 @@ from assistant.procedures.events import Cancelled, CancelToken, Notice
 from assistant.procedures.workflow import calibration_scalars
 from assistant.tui.bridge import (MessageSink, ProcedureEvent, SerialisedController, StatusChanged, StepFinished,
                                   WithdrawDone)
+from assistant.tui.fields_actions import FieldSeriesActions
 from assistant.tui.screens import ConfirmQuit, HelpScreen
 from assistant.tui.session_view import load_session
 from assistant.tui.view_analysis import AnalysisView
 from assistant.tui.view_approach import ApproachView
 from assistant.tui.view_base import FieldError
+from assistant.tui.view_fields import FieldSeriesView
 from assistant.tui.view_log import LogView
 from assistant.tui.view_probe import ProbeView
 from assistant.tui.view_resonance import ResonanceView
@@ -32,10 +34,10 @@ from assistant.tui.view_series import SeriesView
 
 VIEWS = (("probe", "Probe", ProbeView), ("resonance", "Resonance", ResonanceView),
          ("approach", "Approach", ApproachView), ("series", "Series", SeriesView),
-         ("analysis", "Analysis", AnalysisView), ("log", "Log", LogView))
+         ("analysis", "Analysis", AnalysisView), ("log", "Log", LogView), ("fields", "Fields", FieldSeriesView))
 
 
-class MfmApp(App[int]):
+class MfmApp(FieldSeriesActions, App[int]):
     """``MfmApp(controller, session_path=...)`` for a live session; ``MfmApp(None, open_path=...)`` to view a
     session file. ``probe_record`` is a :class:`ProbeRecord` (default: the user's)."""
 
@@ -409,3 +411,4 @@ class MfmApp(App[int]):
         for text in shown.notes:
             self.say("info", text)
         self.action_view("series" if shown.series is not None else "probe")
+        self.show_field_series_file(path)
