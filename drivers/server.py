@@ -25,7 +25,7 @@ from urllib.parse import urlsplit
 
 import numpy as np
 
-from drivers.base import Controller
+from drivers.base import Capability, Controller
 from drivers.errors import CapabilityMissing, ControllerError, LimitExceeded
 from drivers.wire import messages
 from drivers.wire.commands import Command, check_limits, check_types, error_for, resolve
@@ -174,20 +174,31 @@ class Dispatcher:
         try:
             s = self.controller.status()
             # Near the surface: engaged, or the feedback or the Z piezo could bring the tip down. A withdrawn
-            # stage with the drive on (a client thinking between sweeps) is left alone.
-            at_risk = s.engaged or s.feedback_on or s.z_m > 0.0
+            # stage with the drive on (a client thinking between sweeps) is left alone; a magnet left on is not.
+            at_risk = s.engaged or s.feedback_on or s.z_m > 0.0 or _field_on(self.controller)
         except Exception:
             at_risk = True
         if not at_risk:
             return False
-        log.warning("watchdog: client silent for %.2f s (limit %.2f s) with the tip engaged; withdrawing, "
-                    "drive off, bias zero", silent, self.watchdog_s)
+        log.warning("watchdog: client silent for %.2f s (limit %.2f s) with the tip engaged or a field on; "
+                    "withdrawing, drive off, bias zero, field zero", silent, self.watchdog_s)
         self.safe_stage()
         self.watchdog_trips += 1
         return True
 
 
 _ANY = Command("", False, (), (), False)
+
+
+def _field_on(controller: Controller) -> bool:
+    """Whether a magnet holds a field above 1 % of its range (its sensor's noise stays well below that)."""
+    if not controller.has(Capability.APPLIED_FIELD):
+        return False
+    try:
+        field = controller.read_field()
+    except CapabilityMissing:  # declared but not offered after all: there is no field to leave on
+        return False
+    return abs(field) > 0.01 * controller.limits.field_max_a_per_m
 
 
 # ---- link-level faults --------------------------------------------------------------------------------

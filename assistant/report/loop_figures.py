@@ -68,7 +68,7 @@ def loop_figure(a: LoopAnalysis) -> Figure:
     ax.axhline(0.0, color="0.8", lw=0.6, zorder=0)
     ax.set_ylabel("M / Ms (element states)")
     ax.set_ylim(-1.12, 1.12)
-    ax.legend(fontsize=8, loc="lower right")
+    ax.legend(fontsize=8, loc="center")  # the middle of a loop is empty
     ax.set_title(_title(a), fontsize=10)
     step = float(np.median(np.abs(np.diff(h)))) if h.size > 1 else 1.0
     edges = np.arange(np.floor(h.min() / step) - 0.5, np.ceil(h.max() / step) + 1.0) * step

@@ -130,3 +130,17 @@ def test_injected_faults_never_stop_the_field_going_to_zero():
         faulty.set_field(100e3)
     faulty.set_field(0.0)
     assert stage.magnet.field_a_per_m == 0.0
+
+
+def test_watchdog_brings_a_field_left_on_to_zero():
+    # a client that falls silent with the tip withdrawn but the magnet on: the field must not stay on
+    now = [0.0]
+    fake = MagnetController()
+    fake.set_field(300e3)
+    d = Dispatcher(fake, watchdog_s=2.0, clock=lambda: now[0])
+    now[0] = 2.5
+    assert d.watchdog() and fake.field == 0.0 and d.watchdog_trips == 1
+    fake.field = 1e3  # under 1 % of the range: sensor noise, not a field left on
+    d.activity()
+    now[0] = 5.0
+    assert not d.watchdog()
