@@ -142,3 +142,73 @@ def test_field_series_on_the_simulated_dot_array(tmp_path, capsys):
     report = Path(d["report_dir"])
     assert {"fields1_loop.png", "fields1_elements.png", "fields1_field_steps.png"} <= {p.name for p in report.iterdir()}
     assert "## Field series" in (report / "summary.md").read_text()
+    # the stored series analysed again from the session file gives the same answer
+    code, out, _ = _run(["analyze", "loop", d["session_file"], "--json"], capsys)
+    assert code == 0 and json.loads(out) == loop
+
+
+def _partial_session(tmp_path: Path, scenario: Path, stop_after_lines: int) -> Path:
+    """A field series stopped part-way (as a kill would leave it): drive settings stored, no calibration run."""
+    from assistant.procedures.approach import ApproachSettings, approach
+    from assistant.procedures.calibrate import DriveSettings
+    from assistant.procedures.events import CancelToken, Progress
+    from assistant.procedures.field_series import FieldSeriesSettings, parse_fields_ka_per_m
+    from assistant.procedures.workflow import Workflow
+    from drivers.registry import open_controller
+
+    path = tmp_path / "partial.h5"
+    with open_controller("sim://", scenario=str(scenario), seed=4) as ctl:
+        ctl.set_drive(85e3, 0.2)
+        free = ctl.read(["amplitude_v"])["amplitude_v"]
+        drive = DriveSettings(85e3, 0.2, free, 20e-9, 0.7 * free, 0.7, 0.0)
+        wf = Workflow(ctl, path, cancel=CancelToken())
+        wf.restore_drive(drive, spring_constant_n_per_m=4.0, quality_factor=240.0, temperature_k=298.15)
+        wf.approach_result = approach(ctl, ApproachSettings(85e3, 0.2, 0.7 * free, free))
+
+        def sink(event):
+            if isinstance(event, Progress) and event.done == stop_after_lines:
+                wf.cancel.set()
+
+        wf.sink = sink
+        settings = FieldSeriesSettings(fields_a_per_m=tuple(f * 1e3 for f in parse_fields_ka_per_m("450:-450:225")),
+                                       lines=8, pixels=16, scan_size_m=1.5e-6)
+        with pytest.raises(Exception, match="cancelled"):
+            wf.field_series(settings)
+        wf.close()
+    return path
+
+
+def test_run_resume_finishes_an_interrupted_field_series(tmp_path, capsys):
+    import h5py
+
+    scenario = tmp_path / "dots.toml"
+    scenario.write_text(DOT_LOOP.replace("extent_um = 6.0", "extent_um = 3.0"))
+    path = _partial_session(tmp_path, scenario, stop_after_lines=3 * 8 + 5)
+    with h5py.File(path, "r") as f:
+        before = f["field_series/fields1/phase_deg"][:3].copy()
+        assert int(f["field_series/fields1"].attrs["completed_lines"]) == 29
+    code, out, err = _run(["run", "--resume", str(path), "--scenario", str(scenario), "--json"], capsys)
+    assert code == 0, err
+    d = json.loads(out)
+    assert d["field_series"]["completed_steps"] == 9 and d["loop"]["tip_reversals_ka_per_m"] == [-225.0, 225.0]
+    assert "resuming" in err and "retracing the fields 450" in err
+    with h5py.File(path, "r") as f:
+        g = f["field_series/fields1"]
+        assert int(g.attrs["completed_lines"]) == 72 and bool(f.attrs["complete"])
+        assert g["phase_deg"][:3].tobytes() == before.tobytes()
+
+
+@pytest.mark.slow
+def test_a_tip_close_to_the_film_switches_elements_and_is_reported(tmp_path, capsys):
+    # The same tip moment 60 nm behind the apex instead of 120 nm: its field at a dot under it in the topography
+    # pass is m / (2 pi delta^3) = 74 kA/m, enough to reverse dots within that of their own switching field.
+    scenario = tmp_path / "close-tip.toml"
+    scenario.write_text(DOT_LOOP.replace("extent_um = 6.0", "extent_um = 3.5")
+                        .replace("effective_distance_nm = 120.0", "effective_distance_nm = 60.0"))
+    code, out, err = _run(["run", "--scenario", str(scenario), "--fields-ka-per-m", "450:-450:30", "--lines", "16",
+                           "--pixels", "24", "--size-um", "1.5", "--thermal-seconds", "0.2", "--seed", "3",
+                           "--out", str(tmp_path / "out"), "--json"], capsys)
+    assert code == 0, err
+    loop = json.loads(out)["loop"]
+    assert len(loop["tip_switched_elements"]) >= 2
+    assert "switched" in err and "lower-moment tip" in err
