@@ -5,10 +5,9 @@ interrupted continues it."""
 from __future__ import annotations
 
 import json
-from datetime import datetime, timezone
 from pathlib import Path
 
-from assistant.cli._common import StderrProgress, UsageError, emit_json, emit_text, open_controller_from_args
+from assistant.cli._common import UsageError, emit_json, emit_text, open_controller_from_args
 
 DEFAULT_LIFT_NM = 50.0
 _RUN_DEFAULT_BIASES = [-0.5, 0.0, 0.5, 1.0]  # ``mfma run``'s bias grid for a lift series; a field series takes one bias
@@ -55,24 +54,30 @@ def field_settings(args):
 
 
 def run_fields(args) -> int:
-    from assistant.cli.cmd_run import _scenario_text, _writable_dir, _writer_hook, calibration_settings
-    from assistant.procedures.field_series import check_controller
+    from assistant.cli.progress import StageProgress
     from assistant.procedures.guard import load_limits
+
+    limits = load_limits(args.limits)
+    with StageProgress() as progress:
+        if args.resume:
+            return _resume(args, limits, progress)
+        return _run(args, limits, progress)
+
+
+def _run(args, limits, progress) -> int:
+    from assistant.cli.cmd_run import _scenario_text, _writable_dir, _writer_hook, calibration_settings
+    from assistant.outputs import new_session_path, report_dir_for
+    from assistant.procedures.field_series import check_controller
     from assistant.procedures.workflow import Workflow
     from assistant.report.summary import build_report
     from drivers.registry import redact, scheme_of
 
-    limits = load_limits(args.limits)
-    progress = StderrProgress(quiet=False)
-    if args.resume:
-        return _resume(args, limits, progress)
     out = _writable_dir(args.out)
     settings = field_settings(args)
     settings.validate(limits)
     cal_settings = calibration_settings(args)
     cal_settings.validate()
-    stamp = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
-    session_path = out / f"session-{stamp}.h5"
+    session_path = new_session_path(out)
     extra = {"pace": args.pace, "line_rate": args.line_rate} if scheme_of(args.controller) == "sim" else {}
     with open_controller_from_args(args, **extra) as ctl:
         check_controller(ctl, settings, limits)  # the magnet and its limits, before anything moves
@@ -84,10 +89,12 @@ def run_fields(args) -> int:
             wf.calibrate(cal_settings, probe_record=ProbeRecord() if args.probe else None)
             wf.approach()
             wf.field_series(settings)
-            analysis = wf.analyse_loop()
+            with progress.stage("analysis", "switching fields and the loop"):
+                analysis = wf.analyse_loop()
             wf.session.mark_complete()
             wf.session.flush()
-            report = build_report(session_path, out / f"report-{stamp}", loops={settings.name: analysis})
+            report = build_report(session_path, report_dir_for(session_path), loops={settings.name: analysis},
+                                  sink=progress)
         finally:
             wf.close()
     return _finish(args, session_path, report, wf, analysis)
@@ -95,6 +102,8 @@ def run_fields(args) -> int:
 
 def _resume(args, limits, progress) -> int:
     from assistant.cli.cmd_run import _writer_hook
+    from assistant.outputs import report_dir_for
+    from assistant.procedures.events import Notice
     from assistant.procedures.field_series import FieldSeriesSettings, check_controller
     from assistant.procedures.workflow import Workflow, drive_from_json
     from assistant.report.summary import build_report
@@ -117,13 +126,14 @@ def _resume(args, limits, progress) -> int:
         try:
             wf.restore_drive(drive, spring_constant_n_per_m=k, quality_factor=q, temperature_k=t)
             step, line = divmod(data.completed_lines, data.lines)
-            progress.notices.append(("info", f"resuming {settings.name} at field step {step + 1}, line {line + 1}"))
+            progress(Notice("info", f"resuming {settings.name} at field step {step + 1}, line {line + 1}"))
             wf.approach()
             wf.field_series(settings, resume=True)
-            analysis = wf.analyse_loop()
+            with progress.stage("analysis", "switching fields and the loop"):
+                analysis = wf.analyse_loop()
             wf.session.mark_complete()
             wf.session.flush()
-            report = build_report(path, path.parent / f"report-{path.stem}", loops={settings.name: analysis})
+            report = build_report(path, report_dir_for(path), loops={settings.name: analysis}, sink=progress)
         finally:
             wf.close()
     return _finish(args, path, report, wf, analysis)
@@ -147,17 +157,21 @@ def _finish(args, session_path: Path, report, wf, analysis) -> int:
     if args.json:
         emit_json(summary)
         return 0
-    hc, hc_std, sigma = loop["coercive_field_ka_per_m"], loop["coercive_field_std_ka_per_m"], loop["sfd_sigma_ka_per_m"]
-    emit_text([
-        f"session file: {session_path}",
-        f"report:       {report.out_dir}",
-        f"k = {calib['k_n_per_m']:.4g} N/m, f0 = {calib['f0_hz']:.1f} Hz, Q = {calib['q']:.1f}",
-        f"field series: {res.completed_steps} field steps x {s.lines} lines at {s.lift_height_m * 1e9:g} nm lift",
-        f"elements: {loop['dots']}",
-        "coercive field: " + (f"{hc:.4g} ± {hc_std:.2g} kA/m" if hc is not None else "not determined"),
-        "switching-field spread (sigma): " + (f"{sigma:.3g} kA/m" if sigma is not None else "not determined"),
-        "tip reversals at: " + (", ".join(f"{h:g}" for h in loop["tip_reversals_ka_per_m"]) + " kA/m"
-                                if loop["tip_reversals_ka_per_m"] else "none"),
-        "elements switched by the tip: " + (", ".join(str(e) for e in loop["tip_switched_elements"]) or "none"),
-    ] + [f"note: {n}" for n in analysis.notes[1:]])
+    from assistant.formatting import number, quantity
+    from assistant.report.results import render_block
+
+    ka = lambda key: None if loop[key] is None else loop[key] * 1e3  # noqa: E731  (A/m for quantity)
+    rev = loop["tip_reversals_ka_per_m"]
+    pairs = [
+        ("Coercive field", quantity(ka("coercive_field_ka_per_m"), "A/m", ka("coercive_field_std_ka_per_m"))),
+        ("Switching-field spread", quantity(ka("sfd_sigma_ka_per_m"), "A/m")
+         if loop["sfd_sigma_ka_per_m"] is not None else "not resolved by the field steps"),
+        ("Elements", f"{loop['dots']} ({analysis.elements.source})"),
+        ("Tip reversals", ", ".join(quantity(h * 1e3, "A/m") for h in rev) if rev else "none"),
+        ("Switched by the tip", ", ".join(map(str, loop["tip_switched_elements"])) or "none"),
+        ("Calibration", f"k {quantity(calib['k_n_per_m'], 'N/m', calib['k_std_n_per_m'])}, "
+                        f"f0 {quantity(calib['f0_hz'], 'Hz')}, Q {number(calib['q'], digits=3)}"),
+        ("Field series", f"{res.completed_steps} field steps x {s.lines} lines at {quantity(s.lift_height_m, 'm')} lift"),
+        ("Session file", str(session_path)), ("Report", str(report.out_dir))]
+    emit_text(render_block(pairs, markdown=False) + [f"note: {n}" for n in analysis.notes[1:]])
     return 0

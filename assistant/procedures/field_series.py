@@ -247,7 +247,7 @@ def run_field_series(controller, settings: FieldSeriesSettings, writer, *, limit
                 done = step * settings.lines + row + 1
                 elapsed = time.monotonic() - t0
                 rate = elapsed / max(done - first_step * settings.lines - first_line, 1)
-                sink(Progress("field_series", done, total, "lines", elapsed, remaining_s=rate * (total - done),
+                sink(Progress("field series", done, total, "lines", elapsed, remaining_s=rate * (total - done),
                               data={"step": step, "row": row, "field_a_per_m": fields[step],
                                     "measured_field_a_per_m": reading, "phase_deg": phase,
                                     "topography_m": np.asarray(data.topography_m, dtype=float),

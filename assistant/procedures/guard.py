@@ -112,7 +112,8 @@ def safety_guard(controller, *, sink: Sink = null_sink, save: Callable[[], None]
             sink(Notice("error", f"could not confirm a safe stage ({safe_exc}); check the instrument by hand"))
         else:
             field = ", field 0" if _has_magnet(controller) else ""
-            sink(Notice("warning", f"stopped ({type(exc).__name__}: {exc}); tip withdrawn, drive off, bias 0 V{field}"))
+            sink(Notice("warning", f"stopped ({type(exc).__name__}: {exc}); tip withdrawn, drive off, bias 0 V{field}",
+                        kind="stopped"))
         if save is not None:
             try:
                 save()

@@ -122,7 +122,8 @@ class SeriesData:
 _UNIT_SUFFIXES: tuple[tuple[tuple[str, ...], str], ...] = (
     (("n", "per", "m"), "N/m"), (("nm", "per", "v"), "nm/V"), (("m", "per", "v"), "m/V"),
     (("v2", "per", "hz"), "V^2/Hz"), (("m2", "per", "hz"), "m^2/Hz"), (("m", "per", "s"), "m/s"),
-    (("ka", "per", "m"), "kA/m"), (("a", "per", "m"), "A/m"), (("kg", "per", "m3"), "kg/m^3"), (("kg", "m3"), "kg/m^3"), (("pa", "s"), "Pa s"),
+    (("ka", "per", "m"), "kA/m"), (("a", "per", "m"), "A/m"), (("kg", "per", "m3"), "kg/m^3"), (("kg", "m3"), "kg/m^3"),
+    (("pa", "s"), "Pa s"),
     (("a", "m2"), "A m^2"), (("per", "m"), "1/m"), (("per", "s"), "1/s"), (("hz",), "Hz"), (("m",), "m"),
     (("nm",), "nm"), (("um",), "um"), (("v",), "V"), (("v2",), "V^2"), (("deg",), "deg"), (("rad",), "rad"),
     (("s",), "s"), (("k",), "K"), (("pa",), "Pa"), (("n",), "N"), (("j",), "J"), (("px",), "pixel"),

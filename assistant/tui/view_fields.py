@@ -16,7 +16,7 @@ from assistant.tui.widgets import Field, HalfBlockImage, ScaleKey
 
 
 class FieldSeriesView(View):
-    EVENTS = ("field_series",)
+    EVENTS = ("field series",)
     DEFAULT_CSS = """
     FieldSeriesView #fields-top { height: 1fr; }
     FieldSeriesView #fields-form { width: 36; }
