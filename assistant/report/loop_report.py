@@ -55,12 +55,25 @@ def _result_lines(a) -> list[str]:
     return out + [f"- note: {n}" for n in a.notes]
 
 
-def field_series_report(session, out_dir: Path, notes: list[str],
-                        loops: Mapping[str, object] | None = None) -> tuple[list[str], list[Path]]:
-    """Summary lines and figure paths for every field series of an open session file."""
+def _headline(name: str, a) -> str:
+    """One line for the summary's results: Hc, spread, elements, the tip."""
+    from assistant.formatting import quantity
+
+    sigma = quantity(a.sfd_sigma_a_per_m, "A/m") if math.isfinite(a.sfd_sigma_a_per_m) else "not resolved"
+    rev = ", ".join(quantity(h, "A/m") for h in a.tip_reversal_fields_a_per_m) or "none"
+    by_tip = len(a.tip_switched_elements)
+    return (f"- **Field series {name}:** coercive field {quantity(a.coercive_a_per_m, 'A/m', a.coercive_std_a_per_m)}"
+            f", switching-field spread {sigma}, {a.count} elements; tip reversals at {rev}"
+            + (f"; {by_tip} element(s) switched by the tip" if by_tip else ""))
+
+
+def field_series_report(session, out_dir: Path, notes: list[str], loops: Mapping[str, object] | None = None
+                        ) -> tuple[list[str], list[Path], list[str]]:
+    """Summary lines, figure paths and the lines for the summary's results, for every field series of an open
+    session file."""
     from assistant.procedures.analyse_loop import analyse_stored
 
-    text, paths = ["## Field series", ""], []
+    text, paths, results = ["## Field series", ""], [], []
     for name in session.field_series_names():
         data = session.read_field_series(name)
         text += [f"### Field series {name}", ""] + _measured_lines(data) + [""]
@@ -72,10 +85,11 @@ def field_series_report(session, out_dir: Path, notes: list[str],
                 notes.append(f"field series {name!r} not analysed: {exc}")
                 continue
         text += ["Loop analysis:", ""] + _result_lines(result) + [""]
+        results += [_headline(name, result), ""]
         try:
             from assistant.report.loop_figures import write_loop_figures
 
             paths += write_loop_figures(result, out_dir, phase_deg=data.phase_deg, prefix=f"{name}_")
         except Exception as exc:  # one figure must not cost the whole report
             notes.append(f"figures of field series {name!r} failed: {type(exc).__name__}: {exc}")
-    return text, paths
+    return text, paths, results

@@ -199,6 +199,12 @@ def caption(file_name: str, *, per_height_scale: bool) -> str:
         return "magnetic rms, noise and residual against lift height; shortest resolved period"
     if stem == "decomposition_maps":
         return f"magnetic maps at three heights ({scale}), the residual, and the change map of the repeat"
+    if stem.endswith("_loop"):
+        return "field series: net moment of the elements against the field, and their switching fields"
+    if stem.endswith("_elements"):
+        return "field series: each element coloured by its switching field, descending and ascending branch"
+    if stem.endswith("_field_steps"):
+        return "field series: phase over the field steps on one colour scale; dark = attractive"
     return ""
 
 

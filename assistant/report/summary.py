@@ -235,7 +235,7 @@ def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLik
         if field_names:
             from assistant.report.loop_report import field_series_report
 
-            more_text, more_paths = field_series_report(session, out, notes, loops)
+            more_text, more_paths, loop_results = field_series_report(session, out, notes, loops)
             body += more_text
             paths += more_paths
             step("field-series figures")
@@ -260,7 +260,11 @@ def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLik
             if not analysed:  # nothing stored, but decomposed for the figures: the results still open the summary
                 analysed = [(n, r.to_dict()) for n, r in computed.items() if hasattr(r, "to_dict")]
         title = [f"# Session report: {Path(session_path).name}", ""]
-        title += sections.results_section(analysed, dict(cals[-1].scalars) if cals else None)
+        results = sections.results_section(analysed, dict(cals[-1].scalars) if cals else None)
+        if field_names:  # the loops lead; without a lift series there is no decomposition to miss
+            rest = [ln for ln in results[2:] if names or "Decomposition:" not in ln]
+            results = results[:2] + loop_results + [ln for i, ln in enumerate(rest) if ln or (i and rest[i - 1])]
+        title += results
         title += ["## Session", "",
                   f"- file format: {info.format} version {info.format_version}; software {info.software_version}",
                   f"- created (UTC): {info.created_utc}",
