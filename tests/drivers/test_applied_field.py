@@ -16,7 +16,7 @@ from drivers.base import Capability, Limits  # noqa: E402
 from drivers.errors import CapabilityMissing, LimitExceeded  # noqa: E402
 from drivers.registry import open_controller  # noqa: E402
 from drivers.server import Dispatcher, _Session  # noqa: E402
-from drivers.wire.commands import check_limits, check_types, command  # noqa: E402
+from drivers.wire.commands import check_limits, check_types, command, ramp_s  # noqa: E402
 from simulated_stage.faults import Fault, FaultPlan, FaultyStage  # noqa: E402
 
 LIM = Limits(field_max_a_per_m=500e3, field_ramp_a_per_m_per_s=50e3, field_settle_s=1.0)
@@ -64,7 +64,7 @@ def test_field_beyond_the_magnet_is_refused_by_the_command_table(value):
         check_limits(cmd, check_types(cmd, (value,)), LIM)
     check_limits(cmd, (-500e3,), LIM)
     assert cmd.safe_to_repeat and cmd.capability is Capability.APPLIED_FIELD
-    assert cmd.expected_s((value,), LIM) == pytest.approx(2 * 500e3 / 50e3 + 1.0)
+    assert ramp_s(LIM, -500e3, 500e3) == pytest.approx(2 * 500e3 / 50e3 + 1.0) and ramp_s(LIM, 1.0, 1.0) == 0.0
 
 
 def test_server_refuses_out_of_range_fields_before_the_controller_sees_them():
