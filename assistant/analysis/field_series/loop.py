@@ -111,7 +111,7 @@ def _checked(phase_deg, field_a_per_m, topography_m, repeat_phase_deg) -> tuple[
         raise LoopInputError(f"the field axis has shape {h.shape} but the stack has {k} field steps")
     if not np.all(np.isfinite(h)):
         raise LoopInputError("the field axis holds values that are not finite")
-    if not np.any(np.isfinite(phase).all(axis=(1, 2)) | np.isfinite(phase).any(axis=(1, 2))):
+    if not np.isfinite(phase).any():
         raise LoopInputError("the phase stack holds no finite values")
     topo = None if topography_m is None else np.asarray(topography_m, dtype=float)
     if topo is not None and topo.shape not in ((rows, cols), (k, rows, cols)):
