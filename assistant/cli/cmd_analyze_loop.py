@@ -39,29 +39,35 @@ def run(args) -> int:
 
 
 def text_lines(result, d: dict) -> list[str]:
-    """The human-readable summary of a loop analysis."""
-    def ka(v, digits=4):
-        return "not determined" if v is None else f"{v:.{digits}g} kA/m"
+    """The human-readable summary of a loop analysis: the results first, then per branch and per element."""
+    from assistant.formatting import DASH, quantity
+    from assistant.report.results import render_block
 
-    lines = [f"elements: {d['dots']} ({result.elements.source})",
-             f"coercive field Hc = {ka(d['coercive_field_ka_per_m'])} ± {ka(d['coercive_field_std_ka_per_m'], 2)}",
-             f"switching-field spread sigma = {ka(d['sfd_sigma_ka_per_m'], 3)} (step width accounted for)"]
-    for label, fit in (("descending", result.down_fit), ("ascending", result.up_fit)):
+    a_per_m = lambda v: None if v is None else v * 1e3  # noqa: E731  (quantity scales A/m to kA/m itself)
+    rev = d["tip_reversals_ka_per_m"]
+    source = {"topography": "topography", "magnetic": "magnetic contrast"}[result.elements.source]
+    pairs = [("Coercive field", quantity(a_per_m(d["coercive_field_ka_per_m"]), "A/m",
+                                         a_per_m(d["coercive_field_std_ka_per_m"]))),
+             ("Switching-field spread", (quantity(a_per_m(d["sfd_sigma_ka_per_m"]), "A/m")
+                                         + " (step width accounted for)") if d["sfd_sigma_ka_per_m"] is not None
+              else "not resolved by the field steps"),
+             ("Elements", f"{d['dots']} (found in the {source})"),
+             ("Tip reversals", ", ".join(quantity(h * 1e3, "A/m") for h in rev) if rev else "none"),
+             ("Switched by the tip", ", ".join(str(e) for e in d["tip_switched_elements"]) or "none")]
+    for label, fit in (("Descending branch", result.down_fit), ("Ascending branch", result.up_fit)):
         if fit is not None:
-            lines.append(f"  {label} branch: mean |H_sw| {fit.mean / 1e3:.4g} kA/m, sigma "
-                         f"{'-' if fit.sigma != fit.sigma else f'{fit.sigma / 1e3:.3g}'} kA/m, "
-                         f"{fit.switched} of {fit.elements} elements switched")
+            sigma = quantity(fit.sigma, "A/m") if fit.sigma == fit.sigma else "not resolved"
+            pairs.append((label, f"mean |switching field| {quantity(fit.mean, 'A/m', fit.mean_std)}, spread {sigma}, "
+                                 f"{fit.switched} of {fit.elements} elements switched"))
     if result.loop_fit_down is not None:
         f = result.loop_fit_down
-        lines.append(f"  loop fit (descending branch, non-interacting elements): Hc {f.coercive / 1e3:.4g} kA/m, "
-                     f"sigma {f.sigma / 1e3:.3g} kA/m")
+        pairs.append(("Loop fit", f"Hc {quantity(f.coercive, 'A/m')}, spread {quantity(f.sigma, 'A/m')} "
+                                  f"(descending branch, non-interacting elements)"))
     if result.tagawa_sigma_a_per_m == result.tagawa_sigma_a_per_m:
-        lines.append(f"interaction-corrected spread (Tagawa Delta-H(M, Delta-M)): "
-                     f"{result.tagawa_sigma_a_per_m / 1e3:.3g} ± {result.tagawa_sigma_std_a_per_m / 1e3:.2g} kA/m")
-    rev = d["tip_reversals_ka_per_m"]
-    lines.append("tip reversals at: " + (", ".join(f"{h:g}" for h in rev) + " kA/m" if rev else "none"))
-    lines.append("elements switched by the tip: " + (", ".join(str(e) for e in d["tip_switched_elements"]) or "none"))
-    lines.append("element  down_ka_per_m  up_ka_per_m")
+        pairs.append(("Interaction-corrected spread", quantity(result.tagawa_sigma_a_per_m, "A/m",
+                                                               result.tagawa_sigma_std_a_per_m)
+                      + " (Tagawa Delta-H(M, Delta-M), recoil branch)"))
+    lines = render_block(pairs, markdown=False) + ["", "element  down (kA/m)  up (kA/m)"]
     for i, (down, up) in enumerate(d["switching_fields_ka_per_m"]):
-        lines.append(f"{i:7d}  {'-' if down is None else f'{down:.4g}':>13}  {'-' if up is None else f'{up:.4g}':>11}")
+        lines.append(f"{i:7d}  {DASH if down is None else f'{down:.4g}':>11}  {DASH if up is None else f'{up:.4g}':>9}")
     return lines + [f"note: {n}" for n in result.notes]

@@ -89,8 +89,7 @@ def _run(args, limits, progress) -> int:
             wf.calibrate(cal_settings, probe_record=ProbeRecord() if args.probe else None)
             wf.approach()
             wf.field_series(settings)
-            with progress.stage("analysis", "switching fields and the loop"):
-                analysis = wf.analyse_loop()
+            analysis = _analysed(wf, progress, session_path)
             wf.session.mark_complete()
             wf.session.flush()
             report = build_report(session_path, report_dir_for(session_path), loops={settings.name: analysis},
@@ -129,14 +128,24 @@ def _resume(args, limits, progress) -> int:
             progress(Notice("info", f"resuming {settings.name} at field step {step + 1}, line {line + 1}"))
             wf.approach()
             wf.field_series(settings, resume=True)
-            with progress.stage("analysis", "switching fields and the loop"):
-                analysis = wf.analyse_loop()
+            analysis = _analysed(wf, progress, path)
             wf.session.mark_complete()
             wf.session.flush()
             report = build_report(path, report_dir_for(path), loops={settings.name: analysis}, sink=progress)
         finally:
             wf.close()
     return _finish(args, path, report, wf, analysis)
+
+
+def _analysed(wf, progress, session_path: Path):
+    """The loop analysis; stacks it cannot read (no elements in them) are bad input, the images kept."""
+    from assistant.analysis.field_series import LoopInputError
+
+    try:
+        with progress.stage("analysis", "switching fields and the loop"):
+            return wf.analyse_loop()
+    except LoopInputError as exc:
+        raise UsageError(f"{exc}; the images are kept in {session_path}") from None
 
 
 def _finish(args, session_path: Path, report, wf, analysis) -> int:
