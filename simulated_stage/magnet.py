@@ -62,6 +62,8 @@ class MagnetControl:
     ``sample`` and random generator)."""
 
     magnet: Electromagnet
+    clock: VirtualClock
+    rng: np.random.Generator
 
     def set_field(self, field_a_per_m: float) -> None:
         """Ramp the applied field to ``field_a_per_m`` [A/m] (+z away from the sample) and let it settle; the
@@ -73,5 +75,5 @@ class MagnetControl:
 
     def read_field(self) -> float:
         """The applied field as the sensor reads it now [A/m] (one lock-in time constant passes)."""
-        self.clock.advance(self.lockin_time_constant_s)
-        return self.magnet.read(self._rng)
+        self.clock.advance(self.lockin.time_constant_s)
+        return self.magnet.read(self.rng)

@@ -1,37 +1,16 @@
 """``mfma run --fields-ka-per-m LIST|START:STOP:STEP``: calibrate, approach once, image every field step at one
 lift height, analyse the loop, write the report. ``mfma run --resume FILE`` on a session whose field series was
-interrupted continues it."""
+interrupted continues it (``cmd_run`` reads the :class:`~assistant.procedures.workflow.ResumePlan` and hands a
+field series over to :func:`resume_fields`)."""
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 
 from assistant.cli._common import UsageError, emit_json, emit_text, open_controller_from_args
 
 DEFAULT_LIFT_NM = 50.0
 _RUN_DEFAULT_BIASES = [-0.5, 0.0, 0.5, 1.0]  # ``mfma run``'s bias grid for a lift series; a field series takes one bias
-
-
-def is_field_run(args) -> bool:
-    """A new field series, or a resume of a session whose last field series is unfinished."""
-    if getattr(args, "fields_ka_per_m", None) is not None:
-        return True
-    if not getattr(args, "resume", None) or not Path(args.resume).is_file():
-        return False
-    from assistant.storage.session_file import SessionFile, SessionFileError
-
-    try:
-        with SessionFile.open(args.resume, "r") as sf:
-            names = sf.field_series_names()
-            return bool(names) and not sf.read_field_series(names[-1]).finished and not _unfinished_series(sf)
-    except SessionFileError:
-        return False  # the lift-series path reports what is wrong with the file
-
-
-def _unfinished_series(sf) -> bool:
-    names = sf.series_names()
-    return bool(names) and not sf.read_series(names[-1]).finished
 
 
 def field_settings(args):
@@ -53,18 +32,8 @@ def field_settings(args):
                                line_rate_hz=args.line_rate, repeat_first=not args.no_repeat)
 
 
-def run_fields(args) -> int:
-    from assistant.cli.progress import StageProgress
-    from assistant.procedures.guard import load_limits
-
-    limits = load_limits(args.limits)
-    with StageProgress() as progress:
-        if args.resume:
-            return _resume(args, limits, progress)
-        return _run(args, limits, progress)
-
-
-def _run(args, limits, progress) -> int:
+def run_fields(args, limits, progress) -> int:
+    """A new session: calibrate, approach, the field series, its loop analysis, the report."""
     from assistant.cli.cmd_run import _scenario_text, _writable_dir, _writer_hook, calibration_settings
     from assistant.outputs import new_session_path, report_dir_for
     from assistant.procedures.field_series import check_controller
@@ -92,49 +61,40 @@ def _run(args, limits, progress) -> int:
             analysis = _analysed(wf, progress, session_path)
             wf.session.mark_complete()
             wf.session.flush()
-            report = build_report(session_path, report_dir_for(session_path), loops={settings.name: analysis},
-                                  sink=progress)
+            report = build_report(session_path, report_dir_for(session_path), sink=progress)
         finally:
             wf.close()
     return _finish(args, session_path, report, wf, analysis)
 
 
-def _resume(args, limits, progress) -> int:
+def resume_fields(args, plan, limits, progress) -> int:
+    """Continue the interrupted field series of ``plan`` (a field series' ResumePlan) through the workflow's
+    resume: the stored calibration, a new approach, the turning points retraced, the remaining steps."""
     from assistant.cli.cmd_run import _writer_hook
     from assistant.outputs import report_dir_for
     from assistant.procedures.events import Notice
-    from assistant.procedures.field_series import FieldSeriesSettings, check_controller
-    from assistant.procedures.workflow import Workflow, drive_from_json
+    from assistant.procedures.field_series import check_controller
+    from assistant.procedures.workflow import Workflow
     from assistant.report.summary import build_report
-    from assistant.storage.session_file import SessionFile
-    from drivers.registry import redact, scheme_of
+    from drivers.registry import scheme_of
 
-    path = Path(args.resume)
-    with SessionFile.open(path, "r") as sf:
-        data = sf.read_field_series(sf.field_series_names()[-1])
-        stored = json.loads(data.settings_json)
-    drive = drive_from_json(stored.pop("drive"))
-    k, q, t = stored.pop("spring_constant_n_per_m"), stored.pop("quality_factor"), stored.pop("temperature_k")
-    settings = FieldSeriesSettings.from_json(json.dumps(stored))
+    settings = plan.series
     extra = {"pace": args.pace, "line_rate": settings.line_rate_hz} if scheme_of(args.controller) == "sim" else {}
     with open_controller_from_args(args, **extra) as ctl:
         check_controller(ctl, settings, limits)
-        wf = Workflow(ctl, path, controller_url=redact(args.controller), limits=limits, sink=progress,
-                      fsync=args.fsync, before_write=_writer_hook(ctl))
-        wf._session = SessionFile.open(path, "a")
+        wf = Workflow.resume(ctl, plan, limits=limits, sink=progress, fsync=args.fsync,
+                             before_write=_writer_hook(ctl))
         try:
-            wf.restore_drive(drive, spring_constant_n_per_m=k, quality_factor=q, temperature_k=t)
-            step, line = divmod(data.completed_lines, data.lines)
-            progress(Notice("info", f"resuming {settings.name} at field step {step + 1}, line {line + 1}"))
+            progress(Notice("info", f"resuming {settings.name} at {plan.where}"))
             wf.approach()
             wf.field_series(settings, resume=True)
-            analysis = _analysed(wf, progress, path)
+            analysis = _analysed(wf, progress, plan.path)
             wf.session.mark_complete()
             wf.session.flush()
-            report = build_report(path, report_dir_for(path), loops={settings.name: analysis}, sink=progress)
+            report = build_report(plan.path, report_dir_for(plan.path), sink=progress)
         finally:
             wf.close()
-    return _finish(args, path, report, wf, analysis)
+    return _finish(args, plan.path, report, wf, analysis)
 
 
 def _analysed(wf, progress, session_path: Path):
@@ -180,7 +140,8 @@ def _finish(args, session_path: Path, report, wf, analysis) -> int:
         ("Switched by the tip", ", ".join(map(str, loop["tip_switched_elements"])) or "none"),
         ("Calibration", f"k {quantity(calib['k_n_per_m'], 'N/m', calib['k_std_n_per_m'])}, "
                         f"f0 {quantity(calib['f0_hz'], 'Hz')}, Q {number(calib['q'], digits=3)}"),
-        ("Field series", f"{res.completed_steps} field steps x {s.lines} lines at {quantity(s.lift_height_m, 'm')} lift"),
+        ("Field series",
+         f"{res.completed_steps} field steps × {s.lines} lines at {quantity(s.lift_height_m, 'm')} lift"),
         ("Session file", str(session_path)), ("Report", str(report.out_dir))]
     emit_text(render_block(pairs, markdown=False) + [f"note: {n}" for n in analysis.notes[1:]])
     return 0

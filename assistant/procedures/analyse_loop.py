@@ -1,20 +1,20 @@
-"""Run the field-series analysis on stored data (a session file or a .npz stack), store the result, and the
-field-series steps of a whole session (what ``Workflow.field_series`` and ``Workflow.analyse_loop`` call)."""
+"""The field-series analysis of stored data (a session file or a .npz stack), stored back into the session file
+whole, and read back from it (what ``Workflow.analyse_loop``, ``mfma analyze loop``, the report and the terminal
+UI call)."""
 
 from __future__ import annotations
 
-import dataclasses
-import json
 from pathlib import Path
 
 import numpy as np
 
+from assistant.errors import InputError
 from assistant.procedures.events import Notice, Sink, null_sink
 
 NPZ_KEYS = ("phase_deg", "field_ka_per_m", "pixel_nm")  # required; optional: topography_m
 
 
-class LoopFileError(ValueError):
+class LoopFileError(InputError):
     """A stack or session file that holds no analysable field series (the message names the problem)."""
 
 
@@ -44,14 +44,15 @@ def analyse_stored(session, name: str | None = None, *, sink: Sink = null_sink, 
                    tip_moment: str = "up"):
     """Analyse field series ``name`` (default: the last) of an open session file; store the result in it."""
     from assistant.analysis.field_series import analyse_loop
+    from assistant.storage import field_series_names, read_field_series
 
-    names = session.field_series_names()
+    names = field_series_names(session)
     if not names:
         raise LoopFileError(f"{session.path} holds no field series")
     name = name or names[-1]
     if name not in names:
         raise LoopFileError(f"no field series {name!r} in {session.path} (have: {', '.join(names)})")
-    data = session.read_field_series(name)
+    data = read_field_series(session, name)
     steps = data.completed_steps
     if steps < 3:
         raise LoopFileError(f"field series {name!r} has {steps} completed field steps; need at least 3")
@@ -59,16 +60,28 @@ def analyse_stored(session, name: str | None = None, *, sink: Sink = null_sink, 
                           repeat_phase_deg=data.repeat_phase_deg, tip_moment=tip_moment, pixel_m=data.pixel_m)
     if write:
         scalars, arrays = storage_form(result)
-        session.write_analysis(name, scalars, arrays)
+        session.write_analysis(name, scalars, arrays, result=result.to_record())
     for text in result.notes:
         sink(Notice("info", text))
     return result
 
 
+def stored_loop_analysis(session, name: str):
+    """The loop analysis of field series ``name`` as it was stored with it; a field series that was never
+    analysed (an interrupted run) is analysed now, without writing."""
+    from assistant.analysis.field_series import LoopAnalysis
+
+    record = session.read_analysis_result(name)
+    if record is not None and "field_a_per_m" in record.arrays:  # a loop's, not a decomposition's
+        return LoopAnalysis.from_record(record.scalars, record.arrays)
+    return analyse_stored(session, name, write=False)
+
+
 def storage_form(result) -> tuple[dict, dict]:
     """Scalars and arrays of a loop analysis for ``analysis/<name>/`` (unit suffixes on every name)."""
     scalars = {"analysis": "field series", "elements": int(result.count), "element_source": result.elements.source,
-               "coercive_field_a_per_m": result.coercive_a_per_m, "coercive_field_std_a_per_m": result.coercive_std_a_per_m,
+               "coercive_field_a_per_m": result.coercive_a_per_m,
+               "coercive_field_std_a_per_m": result.coercive_std_a_per_m,
                "sfd_sigma_a_per_m": result.sfd_sigma_a_per_m, "sfd_sigma_std_a_per_m": result.sfd_sigma_std_a_per_m,
                "sheppard_sigma_a_per_m": result.sheppard_sigma_a_per_m,
                "tagawa_sigma_a_per_m": result.tagawa_sigma_a_per_m,
@@ -82,43 +95,3 @@ def storage_form(result) -> tuple[dict, dict]:
               "tip_reversal_field_a_per_m": np.asarray(result.tip_reversal_fields_a_per_m, dtype=float),
               "tip_switched_elements": np.asarray(result.tip_switched_elements, dtype=np.int64)}
     return scalars, arrays
-
-
-# ---- the steps of a session (Workflow) ---------------------------------------------------------------------
-def workflow_field_series(wf, settings, *, resume: bool = False):
-    """Run (or resume) a field series in a workflow's session; the tip must be engaged."""
-    from assistant.procedures.field_series import run_field_series
-    from assistant.procedures.workflow import WorkflowError
-
-    if wf.approach_result is None or not wf.approach_result.engaged:
-        raise WorkflowError("approach first: the field series needs an engaged tip")
-    if wf.drive is not None and settings.phase_reference_deg == 0.0:
-        settings = dataclasses.replace(settings, phase_reference_deg=wf.drive.phase_reference_deg)
-    wf.field_settings = settings
-    if resume:
-        writer = wf.session.open_field_series_for_resume(settings.name, before_write=wf.before_write)
-    else:
-        d = json.loads(settings.to_json())
-        if wf.drive is not None:
-            d["drive"] = wf.drive.__dict__
-        d.update(spring_constant_n_per_m=wf.spring_constant_n_per_m, quality_factor=wf.quality_factor,
-                 temperature_k=wf.temperature_k)
-        writer = wf.session.create_field_series(
-            settings.name, fields_a_per_m=settings.fields_a_per_m, lines=settings.lines, pixels=settings.pixels,
-            scan_size_m=settings.scan_size_m, line_rate_hz=settings.line_rate_hz, lift_height_m=settings.lift_height_m,
-            repeat_first=settings.repeat_first, order=settings.order, settings_json=json.dumps(d),
-            field_axis=settings.field_axis, before_write=wf.before_write)
-    wf.field_result = run_field_series(wf.controller, settings, writer, limits=wf.limits, sink=wf.sink,
-                                       cancel=wf.cancel)
-    return wf.field_result
-
-
-def workflow_analyse_loop(wf, name: str | None = None):
-    """Analyse the session's field series (from the session file) after making the stage safe."""
-    from assistant.procedures.guard import safety_guard
-
-    with safety_guard(wf.controller, sink=wf.sink):
-        wf.controller.make_safe()  # the images are taken: nothing needs the tip, the drive or the field now
-    name = name or (wf.field_settings.name if wf.field_settings else None)
-    wf.loop_analysis = analyse_stored(wf.session, name, sink=wf.sink)
-    return wf.loop_analysis

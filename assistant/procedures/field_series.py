@@ -21,6 +21,8 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
+from assistant.errors import AssistantError, InputError
+from assistant.formatting import number_list, quantity
 from assistant.procedures.events import CancelToken, Notice, Progress, Sink, null_sink
 from assistant.procedures.guard import SafetyError, SafetyLimits, safety_guard
 from assistant.procedures.series import scan_line_generic
@@ -30,11 +32,11 @@ MIN_FIELD_STEPS = 3
 FIELD_TOLERANCE = 0.02  # a settled field may read this fraction of the full range off (rule of thumb, no source)
 
 
-class FieldSeriesSettingsError(ValueError):
+class FieldSeriesSettingsError(InputError):
     """The field-series settings are inconsistent or outside a limit."""
 
 
-class MagnetFault(RuntimeError):
+class MagnetFault(AssistantError, RuntimeError):
     """The magnet's field does not read what it was set to."""
 
 
@@ -80,7 +82,8 @@ def turning_points(fields_a_per_m, upto: int) -> list[float]:
 
 @dataclass(frozen=True)
 class FieldSeriesSettings:
-    """Everything that defines a field series; stored as JSON in the session file for ``--resume``."""
+    """Everything that defines a field series; stored as JSON in the session file for a resume
+    (:class:`assistant.procedures.workflow.ResumePlan`)."""
 
     name: str = "fields1"
     fields_a_per_m: tuple[float, ...] = ()
@@ -128,8 +131,8 @@ class FieldSeriesSettings:
         limits.check_field(top)
         if controller_limits is not None and top > controller_limits.field_max_a_per_m:
             raise FieldSeriesSettingsError(
-                f"field {top / 1e3:g} kA/m exceeds the magnet's limit of {controller_limits.field_max_a_per_m / 1e3:g} "
-                f"kA/m")
+                f"field {quantity(top, 'A/m')} exceeds the magnet's limit of "
+                f"{quantity(controller_limits.field_max_a_per_m, 'A/m')}")
         limits.check_lift(self.lift_height_m)
         if controller_limits is not None and self.lift_height_m > controller_limits.z_range_m / 2:
             raise FieldSeriesSettingsError(f"lift height {self.lift_height_m * 1e9:g} nm exceeds half the Z range")
@@ -145,14 +148,19 @@ class FieldSeriesSettings:
         if not self.line_rate_hz > 0:
             raise FieldSeriesSettingsError(f"line rate {self.line_rate_hz:g} Hz must be positive")
 
+    def to_dict(self) -> dict:
+        """Every field, as stored in the session file (JSON types)."""
+        return asdict(self)
+
     def to_json(self) -> str:
-        return json.dumps(asdict(self))
+        return json.dumps(self.to_dict())
 
     @classmethod
-    def from_json(cls, text: str) -> "FieldSeriesSettings":
-        d = json.loads(text)
+    def from_dict(cls, d: dict) -> "FieldSeriesSettings":
+        """The settings :meth:`to_dict` gave (lists become tuples again)."""
+        d = dict(d)
         d["fields_a_per_m"] = tuple(d["fields_a_per_m"])
-        return cls(**{k: v for k, v in d.items() if k in cls.__dataclass_fields__})
+        return cls(**d)
 
 
 @dataclass
@@ -182,8 +190,8 @@ def settle_field(controller, field_a_per_m: float) -> float:
     measured = float(controller.read_field())
     allowed = FIELD_TOLERANCE * max(controller.limits.field_max_a_per_m, abs(field_a_per_m), 1.0)
     if not abs(measured - field_a_per_m) <= allowed:  # also catches NaN
-        raise MagnetFault(f"the magnet reads {measured / 1e3:.4g} kA/m after being set to {field_a_per_m / 1e3:.4g} "
-                          f"kA/m (allowed {allowed / 1e3:.3g} kA/m off)")
+        raise MagnetFault(f"the magnet reads {quantity(measured, 'A/m')} after being set to "
+                          f"{quantity(field_a_per_m, 'A/m')} (allowed {quantity(allowed, 'A/m', digits=3)} off)")
     return measured
 
 
@@ -219,7 +227,7 @@ def run_field_series(controller, settings: FieldSeriesSettings, writer, *, limit
         if first_step or first_line:
             history = turning_points(fields, first_step)
             sink(Notice("info", f"resuming at field step {first_step + 1} line {first_line + 1}: retracing the "
-                                f"fields {', '.join(f'{h / 1e3:g}' for h in history)} kA/m first"))
+                                f"fields {number_list(history, 'A/m')} first"))
             for h in history:
                 cancel.raise_if_set()
                 settle_field(controller, h)

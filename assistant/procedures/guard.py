@@ -1,8 +1,8 @@
 """The safety guard every procedure runs inside, and the software limits it enforces.
 
 Whatever goes wrong (an exception, a cancel, Ctrl-C), the guard leaves the instrument withdrawn, with the drive
-off, the bias at zero and any applied field at zero, lets the procedure save what it has, reports, and re-raises. The software limits here
-sit *inside* the controller's hard limits; both are checked.
+off, the bias at zero and any applied field at zero, lets the procedure save what it has, reports, and re-raises.
+The software limits here sit *inside* the controller's hard limits; both are checked.
 """
 
 from __future__ import annotations
@@ -15,14 +15,15 @@ from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
 
+from assistant.errors import AssistantError
 from assistant.procedures.events import Notice, Sink, null_sink
 
 
-class SafetyError(RuntimeError):
+class SafetyError(AssistantError, RuntimeError):
     """A software safety limit would be crossed (the message names quantity, value and limit)."""
 
 
-class LimitsFileError(ValueError):
+class LimitsFileError(AssistantError, ValueError):
     """The limits file is unreadable or names an unknown key or an impossible value."""
 
 
@@ -56,8 +57,10 @@ class SafetyLimits:
 
     def check_field(self, field_a_per_m: float) -> None:
         if not abs(field_a_per_m) <= self.field_max_a_per_m:
-            raise SafetyError(f"applied field {field_a_per_m / 1e3:g} kA/m exceeds the software limit of "
-                              f"±{self.field_max_a_per_m / 1e3:g} kA/m")
+            from assistant.formatting import quantity
+
+            raise SafetyError(f"applied field {quantity(field_a_per_m, 'A/m')} exceeds the software limit of "
+                              f"±{quantity(self.field_max_a_per_m, 'A/m')}")
 
     def check_sum(self, sum_v: float) -> None:
         if not sum_v >= self.min_sum_v:  # also catches NaN

@@ -20,7 +20,9 @@ from matplotlib.colors import Normalize
 from matplotlib.figure import Figure
 
 from assistant.analysis.field_series import LoopAnalysis, branches, normal_loop
-from assistant.report.images import phase_colormap, save_png, shared_phase_limit
+from assistant.formatting import quantity
+from assistant.report.colours import symmetric_limit
+from assistant.report.images import phase_colormap, save_png
 
 __all__ = ["loop_figure", "element_map_figure", "strip_figure", "write_loop_figures"]
 
@@ -37,9 +39,9 @@ def _title(a: LoopAnalysis) -> str:
     hc = a.coercive_a_per_m
     text = f"{a.count} elements"
     if np.isfinite(hc):
-        text += f", Hc = {hc / 1e3:.4g} ± {a.coercive_std_a_per_m / 1e3:.2g} kA/m"
+        text += f", Hc = {quantity(hc, 'A/m', a.coercive_std_a_per_m)}"
     if np.isfinite(a.sfd_sigma_a_per_m):
-        text += f", σ = {a.sfd_sigma_a_per_m / 1e3:.3g} kA/m"
+        text += f", σ = {quantity(a.sfd_sigma_a_per_m, 'A/m', digits=3)}"
     return text
 
 
@@ -155,7 +157,7 @@ def strip_figure(a: LoopAnalysis, phase_deg: np.ndarray, *, most: int = 12) -> F
     fig = _new_figure((1.9 * cols + 1.2, 2.1 * rows + 0.6))
     axes = np.atleast_1d(fig.subplots(rows, cols, squeeze=False)).ravel()
     images = [np.asarray(phase_deg[k], dtype=float) - np.nanmean(phase_deg[k]) for k in steps]
-    limit = shared_phase_limit(images)
+    limit = symmetric_limit(images)
     rows_px, cols_px = images[0].shape
     pr, pc = a.pixel_m if a.pixel_m is not None else (1.0, 1.0)
     extent = (0.0, cols_px * pc, 0.0, rows_px * pr)  # the frame's true shape, whatever the pixel counts
@@ -166,7 +168,7 @@ def strip_figure(a: LoopAnalysis, phase_deg: np.ndarray, *, most: int = 12) -> F
         ax.set_aspect("equal")
         mark = " tip reversed" if k in a.tip_reversal_steps else ""
         way = "" if k == 0 else (" ↓" if a.field_a_per_m[k] < a.field_a_per_m[k - 1] else " ↑")
-        ax.set_title(f"{a.field_a_per_m[k] / 1e3:.4g} kA/m{way}{mark}", fontsize=8,
+        ax.set_title(f"{quantity(a.field_a_per_m[k], 'A/m')}{way}{mark}", fontsize=8,
                      color="#7b3294" if mark else "black")
         ax.set_xticks([])
         ax.set_yticks([])

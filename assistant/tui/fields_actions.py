@@ -37,27 +37,29 @@ class FieldSeriesActions:
 
     @work(thread=True, group="procedure", exit_on_error=False)
     def _stored_loop_worker(self, path: Path) -> None:
-        from assistant.procedures.analyse_loop import analyse_stored
-        from assistant.storage.session_file import SessionFile
+        from assistant.procedures.analyse_loop import stored_loop_analysis
+        from assistant.storage import SessionFile, field_series_names
 
         try:
             with SessionFile.open(path, "r") as sf:
-                result = analyse_stored(sf, write=False)
+                names = field_series_names(sf)
+                result = stored_loop_analysis(sf, names[-1])
         except Exception as exc:
             self.post_message(StepFinished("analyse loop", None, exc))
             return
         self.post_message(StepFinished("analyse loop", result))
 
     def show_field_series_file(self, path: Path) -> None:
-        """Load the last field series of a session file into the Fields view and analyse it."""
-        from assistant.storage.session_file import SessionFile
+        """Load the last field series of a session file into the Fields view with its stored analysis (or one made
+        now, not written)."""
+        from assistant.storage import SessionFile, field_series_names, read_field_series
 
         try:
             with SessionFile.open(path, "r") as sf:
-                names = sf.field_series_names()
+                names = field_series_names(sf)
                 if not names:
                     return
-                data = sf.read_field_series(names[-1])
+                data = read_field_series(sf, names[-1])
         except Exception as exc:
             self.say("error", f"cannot read the field series of {path}: {exc}")
             return

@@ -9,7 +9,8 @@ from textual.containers import Horizontal, Vertical
 from textual.widgets import Button, Checkbox, ProgressBar, Static
 from textual_plotext import PlotextPlot
 
-from assistant.tui.colours import symmetric_limit
+from assistant.formatting import DASH, duration, number_list, quantity
+from assistant.report.colours import symmetric_limit
 from assistant.tui.plots import DATA, FIT, PART_B, redraw
 from assistant.tui.view_base import FieldError, View
 from assistant.tui.widgets import Field, HalfBlockImage, ScaleKey
@@ -97,8 +98,9 @@ class FieldSeriesView(View):
         except ValueError as exc:  # FieldError and FieldSeriesSettingsError both are ValueErrors
             msg.update(f"[b]not valid:[/b] {exc}")
             return
-        h = np.asarray(s.fields_a_per_m) / 1e3
-        msg.update(f"ok: {h.size} field steps from {h[0]:g} to {h.min():g} kA/m and back; {s.order}")
+        h = np.asarray(s.fields_a_per_m)
+        msg.update(f"ok: {h.size} field steps from {quantity(h[0], 'A/m')} to {quantity(h.min(), 'A/m')} and back; "
+                   f"{s.order}")
         if event.button.id == "fields-start":
             self.app.start_field_series(s)
 
@@ -113,7 +115,7 @@ class FieldSeriesView(View):
         self.mark_dirty()
 
     def load(self, data, analysis=None) -> None:
-        """Show a stored field series (``SessionFile.read_field_series``) and its analysis if given."""
+        """Show a stored field series (``assistant.storage.read_field_series``) and its analysis if given."""
         self.begin(fields_a_per_m=data.field_a_per_m, lines=data.lines, pixels=data.pixels)
         k = data.completed_steps
         self.phase[:k], self.topography[:k] = data.phase_deg, data.topography_m
@@ -182,12 +184,12 @@ class FieldSeriesView(View):
         if self.current is not None:
             step, row = self.current
             bar.update(total=steps * lines, progress=step * lines + row + 1)
-            h = self.fields_a_per_m[step] / 1e3
+            h = quantity(self.fields_a_per_m[step], "A/m")
             meas = self.measured.get(step)
-            read = f" (reads {meas / 1e3:.4g})" if meas is not None else ""
-            rem = f", about {self.remaining_s:.0f} s left" if self.remaining_s is not None else ""
+            read = f" (reads {quantity(meas, 'A/m')})" if meas is not None else ""
+            rem = f", about {duration(self.remaining_s)} left" if self.remaining_s is not None else ""
             self.query_one("#fields-status", Static).update(
-                self.ended or f"step {step + 1} of {steps} at {h:g} kA/m{read}, line {row + 1} of {lines}{rem}")
+                self.ended or f"step {step + 1} of {steps} at {h}{read}, line {row + 1} of {lines}{rem}")
             image = self.phase[step] - np.nanmean(self.phase[step]) if np.isfinite(self.phase[step]).any() else None
             limit = symmetric_limit(image) if image is not None else 1.0
             self.query_one("#fields-image", HalfBlockImage).set_image(image, limit)
@@ -222,12 +224,11 @@ class FieldSeriesView(View):
         if a is None:
             box.update(self.loop_error or ("the loop appears after 3 field steps" if self.steps_done < 3 else ""))
             return
-        d = a.to_dict()
-        hc, sd, sig = d["coercive_field_ka_per_m"], d["coercive_field_std_ka_per_m"], d["sfd_sigma_ka_per_m"]
-        rev = ", ".join(f"{h:g}" for h in d["tip_reversals_ka_per_m"]) or "none"
-        lines = [f"{d['dots']} elements ({a.elements.source}), {a.field_a_per_m.size} steps",
-                 "Hc " + (f"{hc:.4g} ± {sd:.2g} kA/m" if hc is not None else "—")
-                 + ", σ " + (f"{sig:.3g} kA/m" if sig is not None else "—"),
-                 f"tip reversed at: {rev} kA/m",
-                 "switched by the tip: " + (", ".join(map(str, d["tip_switched_elements"])) or "none")]
+        hc, sig = a.coercive_a_per_m, a.sfd_sigma_a_per_m
+        rev = number_list(a.tip_reversal_fields_a_per_m, "A/m") if a.tip_reversal_fields_a_per_m else "none"
+        lines = [f"{a.count} elements ({a.elements.source}), {a.field_a_per_m.size} steps",
+                 "Hc " + (quantity(hc, "A/m", a.coercive_std_a_per_m) if np.isfinite(hc) else DASH)
+                 + ", σ " + (quantity(sig, "A/m", digits=3) if np.isfinite(sig) else DASH),
+                 f"tip reversed at: {rev}",
+                 "switched by the tip: " + (", ".join(map(str, a.tip_switched_elements)) or "none")]
         box.update("\n".join(lines))

@@ -118,11 +118,11 @@ def test_field_series_on_the_simulated_dot_array(tmp_path, capsys):
     # the stage's own dots under the elements found (the sample is built from the scenario's seed)
     s = load_scenario(str(scenario))
     dots = build_sample(s.sample, s.tip)._dots
-    from assistant.procedures.analyse_loop import analyse_stored
-    from assistant.storage.session_file import SessionFile
+    from assistant.procedures.analyse_loop import stored_loop_analysis
+    from assistant.storage import SessionFile
 
     with SessionFile.open(d["session_file"], "r") as sf:
-        result = analyse_stored(sf, write=False)
+        result = stored_loop_analysis(sf, "fields1")  # the analysis the run stored whole
     pr, pc = result.pixel_m
     centres = result.elements.centroids_px
     dist = np.hypot((centres[:, 1, None] + 0.5) * pc - dots.x_m, (centres[:, 0, None] + 0.5) * pr - dots.y_m)
@@ -162,7 +162,7 @@ def _partial_session(tmp_path: Path, scenario: Path, stop_after_lines: int) -> P
         free = ctl.read(["amplitude_v"])["amplitude_v"]
         drive = DriveSettings(85e3, 0.2, free, 20e-9, 0.7 * free, 0.7, 0.0)
         wf = Workflow(ctl, path, cancel=CancelToken())
-        wf.restore_drive(drive, spring_constant_n_per_m=4.0, quality_factor=240.0, temperature_k=298.15)
+        wf.drive, wf.spring_constant_n_per_m, wf.quality_factor, wf.temperature_k = drive, 4.0, 240.0, 298.15
         wf.approach_result = approach(ctl, ApproachSettings(85e3, 0.2, 0.7 * free, free))
 
         def sink(event):
@@ -187,6 +187,11 @@ def test_run_resume_finishes_an_interrupted_field_series(tmp_path, capsys):
     with h5py.File(path, "r") as f:
         before = f["field_series/fields1/phase_deg"][:3].copy()
         assert int(f["field_series/fields1"].attrs["completed_lines"]) == 29
+    from assistant.procedures.workflow import ResumePlan
+
+    plan = ResumePlan.read(path)  # what `run --resume` hands to Workflow.resume
+    assert plan.is_field_series and plan.completed_lines == 29 and plan.where == "field step 4 of 9, line 6 of 8"
+    assert plan.series.fields_a_per_m[:3] == (450e3, 225e3, 0.0) and plan.spring_constant_n_per_m == 4.0
     code, out, err = _run(["run", "--resume", str(path), "--scenario", str(scenario), "--json"], capsys)
     assert code == 0, err
     d = json.loads(out)

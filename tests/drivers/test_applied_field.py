@@ -15,9 +15,11 @@ from link_fakes import FakeController, ThreadServer, connect  # noqa: E402
 from drivers.base import Capability, Limits  # noqa: E402
 from drivers.errors import CapabilityMissing, LimitExceeded  # noqa: E402
 from drivers.registry import open_controller  # noqa: E402
-from drivers.server import Dispatcher, _Session  # noqa: E402
-from drivers.wire.commands import check_limits, check_types, command, ramp_s  # noqa: E402
-from simulated_stage.faults import Fault, FaultPlan, FaultyStage  # noqa: E402
+from drivers.fault_plan import Fault, FaultPlan  # noqa: E402
+from drivers.server.dispatch import Dispatcher, Session  # noqa: E402
+from drivers.wire.checks import check_limits, check_types  # noqa: E402
+from drivers.wire.commands import command, ramp_s  # noqa: E402
+from simulated_stage.faults import FaultyStage  # noqa: E402
 
 LIM = Limits(field_max_a_per_m=500e3, field_ramp_a_per_m_per_s=50e3, field_settle_s=1.0)
 
@@ -69,7 +71,7 @@ def test_field_beyond_the_magnet_is_refused_by_the_command_table(value):
 
 def test_server_refuses_out_of_range_fields_before_the_controller_sees_them():
     fake = MagnetController()
-    d, s = Dispatcher(fake, watchdog_s=None), _Session()
+    d, s = Dispatcher(fake, watchdog_s=None), Session()
     for text in ("MAGN:FIEL 500001", "MAGN:FIEL -1e9", "MAGN:FIEL NAN", "MAGNET:FIELD INF"):
         assert d.handle_line(text.encode(), s) is None
         code, message = s.errors.pop()

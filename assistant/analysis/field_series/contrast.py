@@ -21,7 +21,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from assistant.analysis.registration import align_stack
+from assistant.analysis.lift_series.registration import align_stack
 
 MIN_CORRELATION = 0.1  # well above the ~1/sqrt(pixels) of unrelated images (rule of thumb, no source)
 

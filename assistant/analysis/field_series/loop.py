@@ -20,13 +20,15 @@ from assistant.analysis.field_series.branches import Branch, BranchSwitching, br
 from assistant.analysis.field_series.distribution import (LoopFit, NormalFit, fit_intervals, fit_loop,
                                                           sheppard_sigma, tagawa_sigma)
 from assistant.analysis.field_series.elements import ElementMap, find_elements, remove_plane
+from assistant.analysis.field_series.record import build, flatten
 from assistant.analysis.field_series.states import TipSwitch, element_states
+from assistant.errors import InputError
 
 MIN_STEPS = 3
 _SATURATED = 0.9  # |M/Ms| above which a branch's start counts as saturated (rule of thumb, no source)
 
 
-class LoopInputError(ValueError):
+class LoopInputError(InputError):
     """The stack cannot be analysed as a field series (the message names the problem)."""
 
 
@@ -79,6 +81,16 @@ class LoopAnalysis:
     @property
     def tip_switched_elements(self) -> tuple[int, ...]:
         return tuple(sorted({s.element for s in self.tip_switches}))
+
+    def to_record(self) -> tuple[dict, dict]:
+        """Every field as plain scalars and arrays named by its path (:mod:`.record`); :meth:`from_record`
+        rebuilds an equal result, arrays with their dtype. The session file keeps a loop analysis in this form."""
+        return flatten(self)
+
+    @classmethod
+    def from_record(cls, scalars: dict, arrays: dict) -> "LoopAnalysis":
+        """The result :meth:`to_record` described."""
+        return build(cls, scalars, arrays)
 
     def to_dict(self) -> dict:
         """The ``mfma analyze loop --json`` keys (kA/m)."""
