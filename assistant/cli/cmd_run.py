@@ -60,6 +60,39 @@ def _writer_hook(ctl):
     return ctl.writer_fault_hook() if isinstance(ctl, SimulatedController) else None
 
 
+def _field_map_tip(args):
+    """With ``--field-map``: the probe's newest stored TTF, checked before anything moves (exit 2 if none)."""
+    if not getattr(args, "field_map", False):
+        return None
+    if not args.probe:
+        raise UsageError("--field-map needs --probe NAME (the probe whose stored TTF maps the field)")
+    from assistant.procedures.quantitative import resolve_tip
+    from assistant.procedures.quantitative_inputs import QuantitativeInputError
+    from assistant.storage.probe_record import ProbeRecord
+
+    try:
+        return resolve_tip(tip_path=None, probe=args.probe, record=ProbeRecord())
+    except QuantitativeInputError as exc:
+        raise UsageError(str(exc)) from None
+
+
+def _field_map_step(wf, tip) -> None:
+    """The optional field map after the analysis. A TTF that does not fit this session (e.g. the calibration found
+    the probe changed) leaves the session and report complete; ``_finish`` then reports it and exits 1."""
+    wf.field_map_error = None
+    if tip is None:
+        return
+    from assistant.procedures.events import Notice
+    from assistant.procedures.quantitative_inputs import QuantitativeInputError
+    from assistant.storage.probe_record import ProbeRecord
+
+    try:
+        wf.field_map(tip, record=ProbeRecord())
+    except QuantitativeInputError as exc:
+        wf.field_map_error = f"field map not made: {exc}"
+        wf.sink(Notice("error", wf.field_map_error))
+
+
 def run(args) -> int:
     from assistant.procedures.guard import load_limits
     from assistant.report.summary import build_report
@@ -68,6 +101,7 @@ def run(args) -> int:
 
     limits = load_limits(args.limits)
     progress = StderrProgress(quiet=False)
+    tip = _field_map_tip(args)
     if args.resume:
         return _resume(args, limits, progress)
     out = _writable_dir(args.out)
@@ -88,6 +122,7 @@ def run(args) -> int:
             wf.approach()
             wf.series(series_settings)
             analysis = wf.analyse()
+            _field_map_step(wf, tip)
             wf.session.mark_complete()
             wf.session.flush()
             report = build_report(session_path, out / f"report-{stamp}",
@@ -129,6 +164,7 @@ def _resume(args, limits, progress) -> int:
             wf.approach()
             wf.series(settings, resume=True)
             analysis = wf.analyse()
+            _field_map_step(wf, tip)
             wf.session.mark_complete()
             wf.session.flush()
             report = build_report(path, path.parent / f"report-{path.stem}",
@@ -152,9 +188,19 @@ def _finish(args, session_path: Path, report, wf, analysis) -> int:
                    "completed_lines": wf.series_result.completed_lines},
         "analysis": analysis.to_dict() if analysis is not None else None,
     }
+    error = getattr(wf, "field_map_error", None)
+    if wf.field_map_result is not None or error:
+        summary["field_map"] = wf.field_map_result.summary if wf.field_map_result is not None else None
+        summary["field_map_error"] = error
     if args.json:
         emit_json(summary)
     else:
+        fmap = summary.get("field_map")
+        if fmap:
+            progress_lines = [f"field map: Hz rms {fmap['hz_rms_a_per_m']:.4g} A/m = {fmap['mu0_hz_rms_mt']:.4g} mT "
+                              f"at {fmap['height_nm']:.4g} nm (band {fmap['band_nm'][0]:.0f}-{fmap['band_nm'][1]:.0f} "
+                              "nm), stored in the session file as field_map/"]
+            emit_text(progress_lines)
         a = summary["analysis"] or {}
         emit_text([
             f"session file: {session_path}",
@@ -166,4 +212,9 @@ def _finish(args, session_path: Path, report, wf, analysis) -> int:
             "V_cpd: " + (f"{a['cpd_v']:.3f} ± {a.get('cpd_std_v') or 0:.1g} V" if a.get("cpd_v") is not None
                          else "not measured (needs a bias grid, --biases)"),
         ])
+    if error:
+        import sys
+
+        sys.stderr.write(f"mfma: error: {error}\n")
+        return 1
     return 0

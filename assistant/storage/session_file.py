@@ -17,6 +17,8 @@ Layout (NeXus NXdata attributes so general-purpose HDF5 viewers plot the images)
                             lines, pixels); optional frequency_shift_hz, repeat_phase_deg (lines, pixels);
                             axes lift_height_m, [tip_bias_v,] y_m, x_m; sub-group topography/ (NXdata view)
     analysis/<name>/        decomposition results: scalars as attributes, arrays as datasets
+    field_map/<name>/       stray-field map of series <name> (quantitative MFM): hz_a_per_m, hz_std_a_per_m
+                            (rows, cols), scalars (height_nm, pixel spacing, band, the TTF used) as attributes
 """
 
 from __future__ import annotations
@@ -455,6 +457,31 @@ class SessionFile:
             if name in parent:
                 del parent[name]
             self._fill(parent.create_group(name), *record)
+
+    def write_field_map(self, name: str, scalars: Mapping[str, Scalar], arrays: Mapping[str, np.ndarray]) -> None:
+        """Store a stray-field map of series ``name`` as ``field_map/<name>/`` (replacing an earlier one);
+        NXdata with ``hz_a_per_m`` as the signal when it is among the arrays."""
+        _check_name(name)
+        record = self._checked(scalars, arrays, None)
+        with self._writing(f"field map {name!r}"):
+            parent = self._h5.require_group("field_map")
+            parent.attrs["NX_class"] = "NXcollection"
+            if name in parent:
+                del parent[name]
+            group = parent.create_group(name)
+            self._fill(group, *record)
+            if "hz_a_per_m" in record[1]:
+                group.attrs["NX_class"] = "NXdata"
+                group.attrs["signal"] = "hz_a_per_m"
+                group.attrs["axes"] = [".", "."]
+
+    def field_map_names(self) -> list[str]:
+        return sorted(self._h5["field_map"]) if "field_map" in self._h5 else []
+
+    def read_field_map(self, name: str) -> Record:
+        if name not in self.field_map_names():
+            raise SessionFileError(f"no field map {name!r} in {str(self.path)!r}; have {self.field_map_names()}")
+        return _read_record(self._h5["field_map"][name])
 
     def mark_complete(self) -> None:
         """Mark the session as finished normally."""
