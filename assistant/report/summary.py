@@ -284,6 +284,13 @@ def _decomposition_figures(session: SessionFile, out_dir: Path, notes: list[str]
     return paths
 
 
+def _field_map_figures(session: SessionFile, out_dir: Path, notes: list[str]) -> list[Path]:
+    mod = _import_figures("field_figures", notes)
+    if mod is None:
+        return []
+    return _new_files(out_dir, lambda: mod.figures_from_session(session, out_dir), "field-map figures", notes)
+
+
 # ---- the report -----------------------------------------------------------------------------------------------
 def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLike[str], *,
                  analyses: Mapping[str, object] | None = None) -> ReportResult:
@@ -327,6 +334,14 @@ def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLik
         paths += _calibration_figures(session, out, notes)
         if names:
             paths += _decomposition_figures(session, out, notes, analyses)
+        maps = session.field_map_names() if hasattr(session, "field_map_names") else []
+        if maps:
+            text += ["## Stray-field maps (quantitative MFM)", "",
+                     "Hz in A/m (mu0 Hz in mT in the figure); z away from the sample; the measurement plane is the "
+                     "closest approach of the oscillating tip.", ""]
+            for name in maps:
+                text += _record_section(f"field_map/{name}", session.read_field_map(name))
+            paths += _field_map_figures(session, out, notes)
     text += ["## Figures", ""] + [f"- {p.relative_to(out)}" for p in paths] + [""]
     if notes:
         text += ["## Notes", ""] + [f"- {n}" for n in notes] + [""]

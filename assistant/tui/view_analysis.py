@@ -44,6 +44,7 @@ class AnalysisView(View):
         self.result: dict | None = None
         self.mean_phase: np.ndarray | None = None
         self.report_dir: str | None = None
+        self.field_map: dict | None = None
 
     def compose(self):
         with Horizontal():
@@ -51,6 +52,7 @@ class AnalysisView(View):
                 with Horizontal(classes="buttons"):
                     yield Button("Analyse", id="analyse", variant="primary")
                     yield Button("Report", id="report")
+                    yield Button("Field map", id="fieldmap")
                 yield Static("Run a series (4), then Analyse.", id="an-text")
             with Vertical(id="an-plots"):
                 yield PlotextPlot(id="an-mean")
@@ -63,6 +65,9 @@ class AnalysisView(View):
         elif event.button.id == "report":
             event.stop()
             self.app.start_report()
+        elif event.button.id == "fieldmap":
+            event.stop()
+            self.app.start_field_map()
 
     def show(self, result: dict, *, mean_phase_deg=None) -> None:
         """``result``: ``SeriesAnalysis.to_dict()`` or a stored analysis record's scalars and arrays."""
@@ -88,6 +93,9 @@ class AnalysisView(View):
             self.show(result.to_dict(), mean_phase_deg=getattr(result, "mean_phase_deg", None))
         elif step == "report":
             self.set_report(str(getattr(result, "out_dir", result)))
+        elif step == "field map":
+            self.field_map = getattr(result, "summary", None)
+            self.query_one("#an-text", Static).update(self._text())
 
     def _text(self) -> str:
         d = self.result or {}
@@ -104,6 +112,12 @@ class AnalysisView(View):
             lines.append("residual rms deg  " + ", ".join(f"{v:.2g}" for v in res.ravel()[:8]))
         if d.get("tip_changed_sample") is not None:
             lines.append(f"tip changed the sample: {'YES' if d['tip_changed_sample'] else 'no'}")
+        fm = getattr(self, "field_map", None)
+        if fm:
+            lo, hi = fm["band_nm"]
+            lines.append(f"field map: mu0 Hz rms {fm['mu0_hz_rms_mt']:.3g} mT at {fm['height_nm']:.3g} nm "
+                         f"(periods {lo:.0f}-{hi:.0f} nm; stored as field_map/)")
+            lines += [f"  warning: {w}" for w in fm.get("warnings", [])]
         lines.append(f"report: {self.report_dir}" if self.report_dir else "report: not written yet (Report)")
         return "\n".join(lines)
 

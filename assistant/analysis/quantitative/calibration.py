@@ -139,7 +139,8 @@ def calibrate_tip(gradient_n_per_m: np.ndarray, *, pixel_m: float | tuple[float,
         c = r - r.mean()
         denom = float(np.sum(c * c))
         rho = float(np.clip(np.sum(c[1:] * c[:-1]) / denom, 0.0, 0.95)) if denom > 0 and r.size > 2 else 0.0
-    rel = np.maximum(np.hypot(rel_std, replica_scatter), scatter)
+    # the correction is itself uncertain: half its size counts as a further standard uncertainty (our choice)
+    rel = np.maximum(np.sqrt(rel_std ** 2 + replica_scatter ** 2 + (0.5 * bias) ** 2), scatter)
     ttf = np.full(est.k_per_m.shape, np.nan)
     unc = np.full(est.k_per_m.shape, np.nan)
     ttf[band] = values

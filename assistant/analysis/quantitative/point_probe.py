@@ -14,8 +14,10 @@ the model and delta is the tip's own offset; without it delta absorbs it (to fir
 by A).
 
 The fit is weighted least squares over the valid band (``scipy.optimize.least_squares``); the dipole-only,
-monopole-only and full models are compared by a quasi-AIC (Akaike 1974, IEEE Trans. Autom. Control 19, 716;
-the overdispersed form of Lebreton et al. 1992; both from memory) and the preferred one is reported. A parameter
+monopole-only and full models are compared by a quasi-BIC (the Bayesian information criterion of Schwarz 1978,
+Ann. Stat. 6, 461, with the chi-square divided by the full model's overdispersion as in the quasi-likelihood
+criteria of Lebreton et al. 1992, Ecol. Monogr. 62, 67; both from memory; unlike AIC it does not keep an extra
+component that only fits noise) and the preferred one is reported. A parameter
 counts as determined when its value is at least three standard uncertainties from zero; the model is determined
 when all its parameters are. A pure monopole and a small dipole shifted in delta give the same TTF to first order,
 so with both components free a weak one is often undetermined: the reduced model then says so.
@@ -59,7 +61,7 @@ class PointProbeFit:
     correlation: np.ndarray          # 3 x 3 correlation of (m, q, delta)
     chi2_reduced: float
     determined: bool
-    preferred: str                   # "dipole", "monopole" or "dipole+monopole" (lowest AIC)
+    preferred: str                   # "dipole", "monopole" or "dipole+monopole" (lowest quasi-BIC)
     verdict: str
     amplitude_m: float | None        # the amplitude the model includes (None: delta absorbs it)
 
@@ -141,9 +143,9 @@ def fit_point_probe(k_per_m: np.ndarray, ttf_n_per_a: np.ndarray, ttf_std_n_per_
     -----
     Standard uncertainties: the Jacobian covariance, scaled by the reduced chi-square when above one and by the
     ring-to-ring correlation of the residuals (``_effective_inflation``), plus the reference's Ms and t in
-    quadrature. The reported model is the one with the lowest quasi-AIC (chi-square divided by the full model's
-    overdispersion, plus twice the parameter count; Lebreton et al. 1992, Ecol. Monogr. 62, 67, from memory);
-    a component it leaves out is reported as 0 with no uncertainty.
+    quadrature. The reported model is the one with the lowest quasi-BIC (chi-square divided by the full model's
+    overdispersion, plus the parameter count times ln(rings)); a component it leaves out is reported as 0 with
+    no uncertainty.
     """
     k = np.asarray(k_per_m, dtype=float)
     t = np.asarray(ttf_n_per_a, dtype=float)
@@ -157,8 +159,8 @@ def fit_point_probe(k_per_m: np.ndarray, ttf_n_per_a: np.ndarray, ttf_std_n_per_
     fits = {name: _fit(k, t, std, weight, free) for name, free in models.items()}
     chi2_full, n_full = fits["dipole+monopole"][2], fits["dipole+monopole"][3]
     overdispersion = max(chi2_full / max(k.size - n_full, 1), 1.0)
-    qaic = {name: f[2] / overdispersion + 2 * f[3] for name, f in fits.items()}
-    preferred = min(qaic, key=qaic.get)
+    qbic = {name: f[2] / overdispersion + f[3] * math.log(k.size) for name, f in fits.items()}
+    preferred = min(qbic, key=qbic.get)
     x, cov, chi2, npar = fits[preferred]
     free = models[preferred]
     resid = (_model(x, k, weight, free) - t) / std
@@ -191,12 +193,12 @@ def fit_point_probe(k_per_m: np.ndarray, ttf_n_per_a: np.ndarray, ttf_std_n_per_
         shown.append(f"{text} {u}" + ("" if is_sig else " (not determined)"))
     off = corr[np.triu_indices(3, 1)]
     strongest = float(np.max(np.abs(off[np.isfinite(off)]))) if np.isfinite(off).any() else float("nan")
-    verdict = (("determined" if determined else "not determined") + f" ({preferred} model, lowest quasi-AIC): "
+    verdict = (("determined" if determined else "not determined") + f" ({preferred} model, lowest quasi-BIC): "
                + "; ".join(shown) + f"; largest parameter correlation {strongest:.2f}")
     if preferred != "dipole+monopole":
         full = fits["dipole+monopole"]
         verdict += "; with both components the fit cannot tell them apart" if not np.all(
-            np.isfinite(np.diag(full[1]))) or qaic["dipole+monopole"] > qaic[preferred] else ""
+            np.isfinite(np.diag(full[1]))) or qbic["dipole+monopole"] > qbic[preferred] else ""
     if not amplitude_m:
         verdict += "; amplitude unknown, so delta includes the oscillation amplitude"
     return PointProbeFit(

@@ -55,6 +55,20 @@ class Synthetic:
     hz_a_per_m: np.ndarray         # the true Hz at the measurement plane, same grid
     pattern: np.ndarray            # the fine pattern's cell averages on the coarse grid
     pixel_m: float
+    hz_whole_a_per_m: np.ndarray   # the true Hz of the whole (periodic) film on the coarse grid
+    crop_at: tuple[int, int]       # where the image sits in it
+
+    def hz_in_band(self, band_k_per_m, taper) -> np.ndarray:
+        """The true Hz with only the spatial frequencies ``taper(k, band)`` passes, filtered over the whole film
+        (not over the image window), cut to the image."""
+        whole = self.hz_whole_a_per_m - self.hz_whole_a_per_m.mean()
+        ny, nx = whole.shape
+        k = np.hypot(2 * np.pi * np.fft.fftfreq(ny, d=self.pixel_m)[:, None],
+                     2 * np.pi * np.fft.rfftfreq(nx, d=self.pixel_m)[None, :])
+        out = np.fft.irfft2(np.fft.rfft2(whole) * taper(k, band_k_per_m), s=whole.shape)
+        r0, c0 = self.crop_at
+        rows, cols = self.hz_a_per_m.shape
+        return out[r0:r0 + rows, c0:c0 + cols]
 
 
 def make_image(*, n=128, oversample=4, pixel_m=10e-9, period_m=200e-9, ms=6e5, thickness_m=12e-9, height_m=20e-9,
@@ -78,9 +92,11 @@ def make_image(*, n=128, oversample=4, pixel_m=10e-9, period_m=200e-9, ms=6e5, t
     hz = np.fft.irfft2(hz_spec * (shift if oversample > 1 else 1.0), s=(nf, nf))[sl, sl]
     grad = np.fft.irfft2(hz_spec * ttf * (shift if oversample > 1 else 1.0), s=(nf, nf))[sl, sl]
     cells = pattern.reshape(big, oversample, big, oversample).mean(axis=(1, 3))
+    whole, at = hz.copy(), (0, 0)
     if crop is not None:
+        at = (crop[1], crop[2])
         r0, c0 = crop[1], crop[2]
         hz, grad, cells = (a[r0:r0 + n, c0:c0 + n] for a in (hz, grad, cells))
     if noise_n_per_m:
         grad = grad + noise_n_per_m * rng.standard_normal(grad.shape)
-    return Synthetic(grad, hz, cells, pixel_m)
+    return Synthetic(grad, hz, cells, pixel_m, whole, at)
