@@ -180,7 +180,6 @@ def reconstruct_field(gradient_n_per_m: np.ndarray, *, pixel_m: float | tuple[fl
     band = (lo, hi)
     taper = band_taper(k, band)
     ttf = _profile_on(k, ring_k_per_m, ttf_n_per_a)
-    rel = _profile_on(k, ring_k_per_m, np.asarray(ttf_std_n_per_a) / np.abs(ttf_n_per_a))
     if amplitude_m and ttf_amplitude_m:
         ttf = ttf * amplitude_weight(k, amplitude_m) / amplitude_weight(k, ttf_amplitude_m)
     data = grid.forward(image - image.mean())
@@ -192,10 +191,7 @@ def reconstruct_field(gradient_n_per_m: np.ndarray, *, pixel_m: float | tuple[fl
     count = np.bincount(rings.ravel(), w.ravel())
     ring_power = np.bincount(rings.ravel(), (w * np.abs(data) ** 2).ravel()) / np.maximum(count, 1.0)
 
-    def gain_for(noise_level: float) -> np.ndarray:
-        return np.clip(1.0 - noise_level / np.maximum(ring_power, 1e-300), 0.0, 1.0)[rings]
-
-    gain = gain_for(noise)
+    gain = np.clip(1.0 - noise / np.maximum(ring_power, 1e-300), 0.0, 1.0)[rings]
     excess = np.maximum(np.abs(data) ** 2 - noise, 0.0) * w
     excess.flat[0] = 0.0
     total = float(excess.sum())
@@ -205,19 +201,20 @@ def reconstruct_field(gradient_n_per_m: np.ndarray, *, pixel_m: float | tuple[fl
                         f"(outside the TTF's valid band {2 * math.pi / hi * 1e9:.0f}-{2 * math.pi / lo * 1e9:.0f} nm, "
                         "or in its longest octave, where the map tapers off)")
 
-    def field(spec, t, g):
-        return grid.inverse(spec * g * taper * cont / t)
-
-    hz = field(data, ttf, gain)
-    # Monte Carlo, in blocks of draws (a block of 16 spectra of a 512 x 512 image is about 34 MB)
+    base = taper * cont / ttf
+    hz = grid.inverse(data * gain * base)
+    # Monte Carlo, in blocks of draws (a block of 16 spectra of a 512 x 512 image is about 34 MB). Every perturbation
+    # but the image noise depends on |k| only, so each draw's filter is a factor per ring of the image's rings
+    # (ring width 2 pi / L), gathered onto the grid once.
     sigma = math.sqrt(noise / grid.norm)
     ring_k = np.asarray(ring_k_per_m, dtype=float)
     finite = np.flatnonzero(np.isfinite(np.asarray(ttf_n_per_a, dtype=float)))
-    # linear interpolation of a per-ring perturbation onto the grid: two neighbouring rings and a weight
-    pos = np.clip(np.interp(k, ring_k[finite], np.arange(finite.size)), 0, finite.size - 1)
+    k_rings = np.arange(ring_power.size) * dk                 # the image's ring centres
+    pos = np.interp(k_rings, ring_k[finite], np.arange(finite.size, dtype=float))
     j0 = np.minimum(np.floor(pos).astype(np.intp), finite.size - 2)
     frac = pos - j0
-    thick_factor = -np.expm1(-k * thickness_m) if thickness_m and thickness_std_m else None
+    rel_rings = np.interp(k_rings, ring_k, np.nan_to_num(np.asarray(ttf_std_n_per_a) / np.abs(ttf_n_per_a)))
+    thick_rings = -np.expm1(-k_rings * thickness_m) if thickness_m and thickness_std_m else None
     acc = np.zeros_like(image)
     acc2 = np.zeros_like(image)
     done = 0
@@ -226,18 +223,17 @@ def reconstruct_field(gradient_n_per_m: np.ndarray, *, pixel_m: float | tuple[fl
         if periodic:
             spec = data[None] + grid.forward(sigma * rng.standard_normal((n,) + image.shape))
         else:   # orthonormal cosine basis: white noise has independent coefficients of the same variance
-            spec = data[None] + sigma * rng.standard_normal((n,) + k.shape)
+            spec = data[None] + sigma * rng.standard_normal((n,) + k.shape, dtype=np.float32)
         eps = _correlated(rng, n, finite.size, ring_correlation)
-        t = ttf * (1.0 + rel * (eps[:, j0] * (1.0 - frac) + eps[:, j0 + 1] * frac))
-        scale = 1.0 + ms_rel_std * rng.standard_normal(n) + calibration_rel_std * rng.standard_normal(n)
-        t /= scale[:, None, None]
-        if thick_factor is not None:
+        factor = 1.0 / (1.0 + rel_rings * (eps[:, j0] * (1.0 - frac) + eps[:, j0 + 1] * frac))
+        factor *= (1.0 + ms_rel_std * rng.standard_normal(n) + calibration_rel_std * rng.standard_normal(n))[:, None]
+        if thick_rings is not None:   # the TTF scales as 1/(1 - exp(-kt)), so Hz as (1 - exp(-kt))
             ti = np.maximum(thickness_m + thickness_std_m * rng.standard_normal(n), 1e-12)
-            ratio = np.ones((n,) + k.shape)
-            np.divide(thick_factor, -np.expm1(-k[None] * ti[:, None, None]), out=ratio, where=k[None] > 0)
-            t *= ratio
-        g = np.stack([gain_for(noise * 2.0 ** u) for u in rng.uniform(-1.0, 1.0, n)])
-        maps = field(spec, t, g)
+            with np.errstate(invalid="ignore", divide="ignore"):
+                factor *= np.nan_to_num(-np.expm1(-k_rings[None] * ti[:, None]) / thick_rings, nan=1.0)
+        levels = noise * 2.0 ** rng.uniform(-1.0, 1.0, n)
+        factor *= np.clip(1.0 - levels[:, None] / np.maximum(ring_power, 1e-300)[None], 0.0, 1.0)
+        maps = grid.inverse(spec * base * factor[:, rings])
         acc += maps.sum(axis=0)
         acc2 += np.einsum("ijk,ijk->jk", maps, maps)
         done += n

@@ -124,7 +124,7 @@ def gcv_tikhonov(data: np.ndarray, kernel: np.ndarray, weight: np.ndarray) -> fl
         f = a / (p + a)
         return float(np.sum(w * d2 * f * f) / np.sum(w * f) ** 2)
 
-    grid = np.linspace(-21.0, 7.0, 57)   # alpha from 1e-9 to 1e3 times the mean kernel power
+    grid = np.linspace(-21.0, 7.0, 29)   # alpha from 1e-9 to 1e3 times the mean kernel power
     values = [gcv(g) for g in grid]
     i = int(np.argmin(values))
     lo, hi = grid[max(i - 1, 0)], grid[min(i + 1, grid.size - 1)]
