@@ -83,6 +83,8 @@ def tip(args) -> int:
 def _pm(value, std, unit: str) -> str:
     if value is None:
         return "—"
+    if value == 0.0 and std is None:
+        return "left out (see the verdict)"
     return f"{value:.3g}" + (f" ± {std:.2g}" if std is not None else "") + f" {unit}"
 
 

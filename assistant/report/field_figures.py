@@ -71,9 +71,10 @@ def ttf_figure(cal, *, pixel_m: tuple[float, float]) -> Figure:
         amp = a.get("amplitude_nm", np.nan)
         fit = point_probe_ttf(kk, moment_a_m2=a["dipole_a_m2"], monopole_a_m=a["monopole_a_m"],
                               offset_m=a["offset_nm"] * 1e-9, amplitude_m=None if not np.isfinite(amp) else amp * 1e-9)
+        parts = [f"m = {a['dipole_a_m2']:.3g} A m²" if a["dipole_a_m2"] else "",
+                 f"q = {a['monopole_a_m']:.3g} A m" if a["monopole_a_m"] else "", f"δ = {a['offset_nm']:.3g} nm"]
         ax.plot(2e9 * np.pi / kk, sign * fit, "-", color="#c0392b", lw=1.5,
-                label=f"point probe: m = {a['dipole_a_m2']:.3g} A m², q = {a['monopole_a_m']:.3g} A m, "
-                      f"δ = {a['offset_nm']:.3g} nm")
+                label="point probe: " + ", ".join(p for p in parts if p))
     ax.set_xscale("log")
     ax.set_yscale("log")
     ax.set_xlabel("spatial period (nm)")
@@ -124,16 +125,16 @@ def pattern_figure(cal, *, gradient_n_per_m: np.ndarray, pixel_m: tuple[float, f
     im = ax.imshow(g, origin="lower", extent=extent, cmap=phase_colormap().reversed(), vmin=-lim, vmax=lim)
     yy = (np.arange(rows) + 0.5) * pixel_m[0] * 1e6
     xx = (np.arange(cols) + 0.5) * pixel_m[1] * 1e6
-    ax.contour(xx, yy, initial, levels=[0.0], colors="#e67e22", linewidths=0.6, linestyles="dotted")
+    ax.contour(xx, yy, initial, levels=[0.0], colors="#e67e22", linewidths=1.2)
     ax.contour(xx, yy, pattern, levels=[0.0], colors="#00a087", linewidths=0.8)
-    ax.set_title("reference image; walls: refined (green), first sign (orange dots)")
+    ax.set_title("reference image; walls: refined (green), first sign (orange)", fontsize=9)
     ax.set_xlabel("x (µm)")
     ax.set_ylabel("y (µm)")
     fig.colorbar(im, ax=ax, label="F' − mean (mN/m); attractive dark", shrink=0.85)
     tip = str(a.get("tip_moment", "up"))
     im2 = ax2.imshow(pattern, origin="lower", extent=extent, cmap="gray", vmin=-1, vmax=1)
-    ax2.set_title(f"domain pattern s = M/Ms (tip moment {tip}: +Ms where the tip is "
-                  f"{'attracted' if tip == 'up' else 'repelled'})", fontsize=9)
+    ax2.set_title(f"s = M/Ms: +Ms (white) where the tip is {'attracted' if tip == 'up' else 'repelled'} "
+                  f"(moment {tip})", fontsize=9)
     ax2.set_xlabel("x (µm)")
     fig.colorbar(im2, ax=ax2, label="s (white +Ms, black −Ms)", shrink=0.85)
     return fig
