@@ -103,7 +103,7 @@ def run(args) -> int:
     progress = StderrProgress(quiet=False)
     tip = _field_map_tip(args)
     if args.resume:
-        return _resume(args, limits, progress)
+        return _resume(args, limits, progress, tip)
     out = _writable_dir(args.out)
     series_settings = _series_settings(args)
     series_settings.validate(limits)
@@ -132,7 +132,7 @@ def run(args) -> int:
     return _finish(args, session_path, report, wf, analysis)
 
 
-def _resume(args, limits, progress) -> int:
+def _resume(args, limits, progress, tip=None) -> int:
     from assistant.procedures.series import SeriesSettings
     from assistant.report.summary import build_report
     from assistant.procedures.workflow import Workflow, drive_from_json

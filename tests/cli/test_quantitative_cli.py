@@ -178,3 +178,28 @@ def test_bad_field_requests_exit_2(files, tip_file, capsys):
                           (["--probe", "nobody"], "no TTF stored")):
         code, out, err = run(capsys, *base, *extra)
         assert code == 2 and needle in err and len(err.strip().splitlines()) == 1, (extra, err)
+
+
+def test_frequency_shift_images_give_the_same_tip(files, record_dir, capsys, tmp_path):
+    # a frequency-modulated second pass: F' = k (1 - (1 + df/f0)^2) (Albrecht et al. 1991); same film, same tip
+    d, ref, _ = files
+    f0 = 75e3
+    df = f0 * (np.sqrt(1.0 - ref.gradient_n_per_m / K_SPRING) - 1.0)
+    np.savez(tmp_path / "fm.npz", frequency_shift_hz=df, resonance_hz=f0, lift_nm=20.0, pixel_nm=10.0,
+             spring_constant_n_per_m=K_SPRING)
+    code, out, err = run(capsys, "analyze", "tip", str(tmp_path / "fm.npz"), "--ms-ka-per-m", "600",
+                         "--thickness-nm", "12", "--out", str(tmp_path / "fm_tip.npz"), "--json")
+    assert code == 0, err
+    j = json.loads(out)
+    code, out, err = run(capsys, "analyze", "tip", str(d / "ref.npz"), "--ms-ka-per-m", "600", "--thickness-nm",
+                         "12", "--out", str(tmp_path / "ph_tip.npz"), "--json")
+    assert j["band_nm"] == json.loads(out)["band_nm"]
+    assert j["dipole_a_m2"] == pytest.approx(json.loads(out)["dipole_a_m2"], rel=0.02)
+
+
+def test_run_field_map_needs_a_probe_with_a_ttf(record_dir, capsys, tmp_path):
+    # checked before anything moves
+    code, out, err = run(capsys, "run", "--field-map", "--out", str(tmp_path / "o"))
+    assert code == 2 and "--probe" in err
+    code, out, err = run(capsys, "run", "--field-map", "--probe", "never-calibrated", "--out", str(tmp_path / "o"))
+    assert code == 2 and "no TTF stored" in err and len(err.strip().splitlines()) == 1

@@ -13,7 +13,6 @@ from __future__ import annotations
 from importlib import resources
 
 import numpy as np
-import pytest
 
 from assistant.analysis.quantitative import band_taper, point_probe_ttf
 from assistant.procedures.calibrate import CalibrationSettings

@@ -20,7 +20,6 @@ covers more than the noise.
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 
 import numpy as np
