@@ -124,7 +124,12 @@ def check_tip(tip: TipFile, image: ImageInput, record=None) -> list[str]:
                 f"{when.isoformat()}: calibrate the tip again on the reference (mfma analyze tip)")
     if own_time is not None and own_time > made:
         base = _tip_calibration(tip, record)
-        warnings = record.changes(tip.probe, base, own) if base else ["no calibration is known for the TTF"]
+        if base is None:
+            raise QuantitativeInputError(
+                f"the TTF of probe {tip.probe!r} from {made.isoformat()} was made with no calibration of the probe on "
+                f"record, so the calibration of {own_time.isoformat()} cannot show the probe unchanged: calibrate "
+                "the tip again on the reference")
+        warnings = record.changes(tip.probe, base, own)
         if warnings:
             raise QuantitativeInputError(
                 f"the TTF of probe {tip.probe!r} from {made.isoformat()} is older than the probe's calibration of "

@@ -80,3 +80,16 @@ def test_calibration_between_ttf_and_session_is_refused(setting):
     record.add("P", own, now=made + timedelta(days=1))
     with pytest.raises(QuantitativeInputError, match="older than the probe's calibration"):
         check_tip(tip, _image("P", own), record)
+
+
+def test_ttf_made_without_a_calibration_cannot_be_judged_unchanged(tmp_path):
+    record = ProbeRecord(tmp_path)
+    made = T0
+    (tmp_path / "tip.npz").write_bytes(b"")
+    record.add_tip_transfer("P", tmp_path / "tip.npz", {"calibration": None, "created_utc": utc_now_text(made)},
+                            now=made)
+    tip = TipFile(tmp_path / "tip.npz", {"probe": "P", "created_utc": utc_now_text(made)})
+    own = _cal(made + timedelta(days=1))
+    record.add("P", own, now=made + timedelta(days=1))
+    with pytest.raises(QuantitativeInputError, match="no calibration of the probe on record"):
+        check_tip(tip, _image("P", own), record)
