@@ -249,8 +249,9 @@ def map_field_file(image_path: str | Path, *, tip_path: str | Path | None, probe
 
 
 def field_map_for_session(session, tip: TipFile, *, series: str | None = None, record=None,
-                          height_m: float | None = None) -> FieldResult:
-    """Map the field of a series of an open session file at its recommended height and store it there."""
+                          height_m: float | None = None, store: bool = True) -> FieldResult:
+    """Map the field of a series of an open session file at its recommended height; store it there unless
+    ``store`` is false (a session opened read-only)."""
     from assistant.procedures.quantitative_inputs import image_from_session
 
     image = image_from_session(session, str(session.path), series=series, wanted_plane_m=height_m)
@@ -258,7 +259,8 @@ def field_map_for_session(session, tip: TipFile, *, series: str | None = None, r
     fm, more = map_field(image, tip, height_m=height_m)
     summary = field_summary(fm, notes + more)
     summary.update(tip_file=str(tip.path), probe=tip.probe, source=image.source)
-    store_field_map(session, image.series, fm, summary, tip)
+    if store:
+        store_field_map(session, image.series, fm, summary, tip)
     return FieldResult(summary, fm, image, tip)
 
 

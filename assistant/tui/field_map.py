@@ -1,5 +1,6 @@
 """The field-map step of the terminal UI (quantitative MFM): the probe's newest stored TTF maps the stray field of
-the series at its recommended height, live through the workflow or on an opened session file."""
+the series at its recommended height, live through the workflow (stored in the session file) or on a session file
+opened for viewing (left unchanged; the map goes into its report folder)."""
 
 from __future__ import annotations
 
@@ -32,9 +33,20 @@ def start_field_map(app) -> None:
 
 
 def offline_field_map(path: Path, tip, record):
-    """Map and store the field of the last series of a session file opened for viewing."""
+    """Map the field of the last series of a session file opened for viewing. The file stays as it is (opened
+    read-only): the map goes into its report folder as ``field_map.npz`` and ``field_map.png``."""
+    from assistant.outputs import report_dir_for
     from assistant.procedures.quantitative import field_map_for_session
+    from assistant.report.field_figures import write_field_figures
+    from assistant.storage.quantitative_files import write_field_file
     from assistant.storage.session_file import SessionFile
 
-    with SessionFile.open(path, "a") as sf:
-        return field_map_for_session(sf, tip, record=record)
+    with SessionFile.open(path, "r") as sf:
+        result = field_map_for_session(sf, tip, record=record, store=False)
+    out = report_dir_for(path)
+    out.mkdir(parents=True, exist_ok=True)
+    write_field_file(out / "field_map.npz", result.field_map, extra={"tip_file": str(tip.path), "probe": tip.probe,
+                                                                      "source": result.image.source})
+    write_field_figures(result.field_map, out)
+    result.summary["field_file"] = str(out / "field_map.npz")
+    return result

@@ -58,6 +58,10 @@ def test_field_map_button_maps_an_opened_session(tmp_path):
 
     text = asyncio.run(go())
     assert "field map: mu0 Hz rms" in text
-    with SessionFile.open(path, "r") as sf:
-        assert sf.field_map_names() == ["series1"]
-        assert sf.read_field_map("series1").arrays["hz_a_per_m"].shape == (96, 96)
+    with SessionFile.open(path, "r") as sf:                # opened read-only: the file is left as it was
+        assert sf.field_map_names() == []
+    from assistant.outputs import report_dir_for
+
+    with np.load(report_dir_for(path) / "field_map.npz") as z:
+        assert z["hz_a_per_m"].shape == (96, 96)
+    assert (report_dir_for(path) / "field_map.png").is_file()
