@@ -9,6 +9,15 @@ from assistant import __version__
 from assistant.cli._common import add_controller_options, number_list, positive, scenario_names
 
 
+class _Formatter(argparse.HelpFormatter):
+    """Help text wrapped at spaces only: a name such as ``reference-film`` is never split at its hyphen."""
+
+    def _split_lines(self, text: str, width: int) -> list[str]:
+        import textwrap
+
+        return textwrap.wrap(self._whitespace_matcher.sub(" ", text).strip(), width, break_on_hyphens=False)
+
+
 class _Parser(argparse.ArgumentParser):
     """argparse with a one-line error message and exit status 2.
 
@@ -17,6 +26,10 @@ class _Parser(argparse.ArgumentParser):
     """
 
     argv: list[str] = []  # the arguments being parsed, for the hint (set by the top-level parser)
+
+    def __init__(self, *args, **kwargs) -> None:
+        kwargs.setdefault("formatter_class", _Formatter)
+        super().__init__(*args, **kwargs)
 
     def parse_known_args(self, args=None, namespace=None):  # type: ignore[override]
         if self.prog == "mfma":
