@@ -82,15 +82,13 @@ def _field_map_step(wf, tip) -> None:
     wf.field_map_error = None
     if tip is None:
         return
-    from assistant.procedures.events import Notice
     from assistant.procedures.quantitative_inputs import QuantitativeInputError
     from assistant.storage.probe_record import ProbeRecord
 
     try:
         wf.field_map(tip, record=ProbeRecord())
-    except QuantitativeInputError as exc:
+    except QuantitativeInputError as exc:   # reported once, at the end (after the report is written)
         wf.field_map_error = f"field map not made: {exc}"
-        wf.sink(Notice("error", wf.field_map_error))
 
 
 def run(args) -> int:
