@@ -39,11 +39,14 @@ def _transfer_lines(transfers: list[dict]) -> list[str]:
     """One line per stored TTF: date, reference, band, point-probe numbers."""
     if not transfers:
         return []
+    from assistant.formatting import number, quantity, span
+
     lines = [f"{len(transfers)} tip transfer function(s) (quantitative MFM; newest last):"]
     for t in transfers:
-        band = t.get("band_nm") or [float("nan"), float("nan")]
+        band = span(*t["band_nm"], "nm") if t.get("band_nm") else "?"
         m, q, d = t.get("dipole_a_m2"), t.get("monopole_a_m"), t.get("offset_nm")
-        pp = (f"m = {m:.3g} A m^2, q = {q:.3g} A m, offset {d:.3g} nm" if None not in (m, q, d) else "no point probe")
-        lines.append(f"  {t.get('recorded_utc', '?')}  band {band[0]:.0f}-{band[1]:.0f} nm  {pp}  "
+        pp = (f"m = {number(m, digits=3)} A m², q = {number(q, digits=3)} A m, offset {quantity(d, 'nm', digits=3)}"
+              if None not in (m, q, d) else "no point probe")
+        lines.append(f"  {t.get('recorded_utc', '?')}  band {band}  {pp}  "
                      f"reference {t.get('reference', '?')}  file {t.get('file', '?')}")
     return lines

@@ -67,25 +67,30 @@ def tip(args) -> int:
     if args.json:
         emit_json(d)
         return 0
-    lo, hi = d["band_nm"]
+    from assistant.formatting import number, quantity, span
+
     pp = ("dipole m = {0}, monopole q = {1}, offset = {2}".format(
-        _pm(d["dipole_a_m2"], d["dipole_std_a_m2"], "A m^2"), _pm(d["monopole_a_m"], d["monopole_std_a_m"], "A m"),
+        _pm(d["dipole_a_m2"], d["dipole_std_a_m2"], "A m²"), _pm(d["monopole_a_m"], d["monopole_std_a_m"], "A m"),
         _pm(d["offset_nm"], d["offset_std_nm"], "nm")))
     emit_text([f"tip file: {args.out}" + (f" (stored for probe {args.probe})" if args.probe else ""),
-               f"valid band: periods {lo:.0f}-{hi:.0f} nm; regularisation {d['regularization']:.3g} (GCV)",
-               f"measurement plane {d['measurement_plane_nm']:.4g} nm; reference Ms = {d['ms_ka_per_m']:.4g} ± "
-               f"{d['ms_std_ka_per_m']:.2g} kA/m, t = {d['thickness_nm']:.4g} ± {d['thickness_std_nm']:.2g} nm",
+               f"valid band: periods {span(*d['band_nm'], 'nm')}; regularisation "
+               f"{number(d['regularization'], digits=3)} (GCV)",
+               f"measurement plane {quantity(d['measurement_plane_nm'], 'nm')}; reference Ms = "
+               f"{number(d['ms_ka_per_m'], d['ms_std_ka_per_m'])} kA/m, t = "
+               f"{quantity(d['thickness_nm'], 'nm', d['thickness_std_nm'])}",
                f"point probe: {pp}", f"  {d['point_probe_verdict']}", *[f"note: {n}" for n in d["notes"]],
                *[f"figure: {f}" for f in d["figures"]], f"conventions: {CONVENTIONS}"])
     return 0
 
 
 def _pm(value, std, unit: str) -> str:
+    from assistant.formatting import DASH, number
+
     if value is None:
-        return "—"
+        return DASH
     if value == 0.0 and std is None:
         return "left out (see the verdict)"
-    return f"{value:.3g}" + (f" ± {std:.2g}" if std is not None else "") + f" {unit}"
+    return f"{number(value, std, digits=3)} {unit}"
 
 
 def field(args) -> int:
@@ -110,13 +115,14 @@ def field(args) -> int:
     if args.json:
         emit_json(d)
         return 0
-    lo, hi = d["band_nm"]
+    from assistant.formatting import number, quantity, span
+
     emit_text([f"field file: {args.out}",
-               f"Hz at {d['height_nm']:.4g} nm (measured at {d['measurement_plane_nm']:.4g} nm): rms "
-               f"{d['hz_rms_a_per_m']:.4g} A/m = {d['mu0_hz_rms_mt']:.4g} mT (mu0 Hz); range "
-               f"{d['hz_min_a_per_m']:.4g} .. {d['hz_max_a_per_m']:.4g} A/m; median uncertainty "
-               f"{d['hz_std_median_a_per_m']:.3g} A/m",
-               f"periods {lo:.0f}-{hi:.0f} nm (the TTF's valid band); statistics beyond a {d['margin_px']} px edge "
-               "margin", *[f"warning: {w}" for w in d["warnings"]], *[f"note: {n}" for n in d["notes"]],
+               f"Hz at {quantity(d['height_nm'], 'nm')} (measured at {quantity(d['measurement_plane_nm'], 'nm')}): "
+               f"rms {number(d['hz_rms_a_per_m'])} A/m = {number(d['mu0_hz_rms_mt'])} mT (μ0 Hz); range "
+               f"{number(d['hz_min_a_per_m'])} to {number(d['hz_max_a_per_m'])} A/m; median uncertainty "
+               f"{number(d['hz_std_median_a_per_m'], digits=3)} A/m",
+               f"periods {span(*d['band_nm'], 'nm')} (the TTF's valid band); statistics beyond a {d['margin_px']} px "
+               "edge margin", *[f"warning: {w}" for w in d["warnings"]], *[f"note: {n}" for n in d["notes"]],
                *[f"figure: {f}" for f in d["figures"]], f"conventions: {CONVENTIONS}"])
     return 0

@@ -2,11 +2,10 @@
 
 from __future__ import annotations
 
-import json
 import os
 from pathlib import Path
 
-from assistant.cli._common import UsageError, emit_json, emit_text, open_controller_from_args
+from assistant.cli._common import EXIT_OK, EXIT_RUNTIME, UsageError, emit_json, emit_text, open_controller_from_args
 from assistant.outputs import new_session_path, report_dir_for
 
 
@@ -76,19 +75,20 @@ def _field_map_tip(args):
         raise UsageError(str(exc)) from None
 
 
-def _field_map_step(wf, tip) -> None:
+def _field_map_step(wf, tip) -> str | None:
     """The optional field map after the analysis. A TTF that does not fit this session (e.g. the calibration found
-    the probe changed) leaves the session and report complete; ``_finish`` then reports it and exits 1."""
-    wf.field_map_error = None
+    the probe changed) leaves the session and report complete: the text returned is reported by ``_finish``, once,
+    at the end, and the command exits 1."""
     if tip is None:
-        return
+        return None
     from assistant.procedures.quantitative_inputs import QuantitativeInputError
     from assistant.storage.probe_record import ProbeRecord
 
     try:
         wf.field_map(tip, record=ProbeRecord())
-    except QuantitativeInputError as exc:   # reported once, at the end (after the report is written)
-        wf.field_map_error = f"field map not made: {exc}"
+    except QuantitativeInputError as exc:
+        return f"field map not made: {exc}"
+    return None
 
 
 def run(args) -> int:
@@ -126,63 +126,48 @@ def _run(args, limits, progress, tip=None) -> int:
             wf.series(series_settings)
             with progress.stage("analysis", "decomposing the series"):
                 analysis = wf.analyse()
-            _field_map_step(wf, tip)
+            field_map_error = _field_map_step(wf, tip)
             wf.session.mark_complete()
             wf.session.flush()
-            report = build_report(session_path, report_dir_for(session_path),
-                                  analyses={wf.series_settings.name: analysis}, sink=progress,
+            report = build_report(session_path, report_dir_for(session_path), sink=progress,
                                   per_height_scale=args.per_height_scale)
         finally:
             wf.close()
-    return _finish(args, session_path, report, wf, analysis)
+    return _finish(args, session_path, report, wf, analysis, field_map_error)
 
 
 def _resume(args, limits, progress, tip=None) -> int:
-    from assistant.procedures.series import SeriesSettings
+    from assistant.procedures.workflow import ResumePlan, Workflow
     from assistant.report.summary import build_report
-    from assistant.procedures.workflow import Workflow, drive_from_json
-    from assistant.storage.session_file import SessionFile
-    from drivers.registry import redact, scheme_of
+    from drivers.registry import scheme_of
 
     path = Path(args.resume)
     if not path.is_file():
         raise UsageError(f"resume file {path} does not exist")
-    with SessionFile.open(path, "r") as sf:  # raises a clear error for files that are not session files
-        names = sf.series_names()
-        if not names:
-            raise UsageError(f"{path} has no series to resume")
-        data = sf.read_series(names[-1])
-        if data.finished:
-            raise UsageError(f"series {names[-1]!r} in {path} is already complete; nothing to resume")
-        stored = json.loads(data.settings_json)
-    drive = drive_from_json(stored.pop("drive"))
-    k, q, t = stored.pop("spring_constant_n_per_m"), stored.pop("quality_factor"), stored.pop("temperature_k")
-    settings = SeriesSettings.from_json(json.dumps(stored))
-    extra = {"pace": args.pace, "line_rate": settings.line_rate_hz} if scheme_of(args.controller) == "sim" else {}
+    plan = ResumePlan.read(path)
+    extra = {"pace": args.pace, "line_rate": plan.series.line_rate_hz} if scheme_of(args.controller) == "sim" else {}
     with open_controller_from_args(args, **extra) as ctl:
-        wf = Workflow(ctl, path, controller_url=redact(args.controller), limits=limits, sink=progress,
-                      fsync=args.fsync, before_write=_writer_hook(ctl))
-        wf._session = SessionFile.open(path, "a")
+        wf = Workflow.resume(ctl, plan, limits=limits, sink=progress, fsync=args.fsync,
+                             before_write=_writer_hook(ctl))
         try:
-            wf.restore_drive(drive, spring_constant_n_per_m=k, quality_factor=q, temperature_k=t)
             from assistant.procedures.events import Notice
 
-            progress(Notice("info", f"resuming {settings.name} at line {data.completed_lines + 1} of {data.lines}"))
+            progress(Notice("info", f"resuming {plan.series.name} at line {plan.completed_lines + 1} of "
+                                    f"{plan.series.lines}"))
             wf.approach()
-            wf.series(settings, resume=True)
+            wf.series(plan.series, resume=True)
             with progress.stage("analysis", "decomposing the series"):
                 analysis = wf.analyse()
-            _field_map_step(wf, tip)
+            field_map_error = _field_map_step(wf, tip)
             wf.session.mark_complete()
             wf.session.flush()
-            report = build_report(path, report_dir_for(path), analyses={wf.series_settings.name: analysis},
-                                  sink=progress, per_height_scale=args.per_height_scale)
+            report = build_report(path, report_dir_for(path), sink=progress, per_height_scale=args.per_height_scale)
         finally:
             wf.close()
-    return _finish(args, path, report, wf, analysis)
+    return _finish(args, path, report, wf, analysis, field_map_error)
 
 
-def _finish(args, session_path: Path, report, wf, analysis) -> int:
+def _finish(args, session_path: Path, report, wf, analysis, field_map_error: str | None = None) -> int:
     cal = wf.calibration
     calib = ({"k_n_per_m": cal.k_n_per_m, "k_std_n_per_m": cal.k_std_n_per_m, "f0_hz": cal.thermal.f0_hz,
               "q": cal.thermal.q, "invols_nm_per_v": cal.invols_m_per_v * 1e9} if cal is not None else
@@ -196,18 +181,13 @@ def _finish(args, session_path: Path, report, wf, analysis) -> int:
                    "completed_lines": wf.series_result.completed_lines},
         "analysis": analysis.to_dict() if analysis is not None else None,
     }
-    error = getattr(wf, "field_map_error", None)
-    if wf.field_map_result is not None or error:
+    if wf.field_map_result is not None or field_map_error:
         summary["field_map"] = wf.field_map_result.summary if wf.field_map_result is not None else None
-        summary["field_map_error"] = error
+        summary["field_map_error"] = field_map_error
     if args.json:
         emit_json(summary)
-        if error:
-            import sys
-
-            sys.stderr.write(f"mfma: error: {error}\n")
-        return 1 if error else 0
-    from assistant.formatting import number, number_list, quantity
+        return _field_map_verdict(field_map_error)
+    from assistant.formatting import number, number_list, quantity, span
     from assistant.report.results import render_block, results_block
 
     a = summary["analysis"] or {}
@@ -219,18 +199,22 @@ def _finish(args, session_path: Path, report, wf, analysis) -> int:
     pairs = results_block(a) if a else [("Analysis", "none")]
     fmap = summary.get("field_map")
     if fmap:
-        lo, hi = fmap["band_nm"]
         pairs.append(("Field map", f"μ0 Hz rms {number(fmap['mu0_hz_rms_mt'], digits=3)} mT at "
-                                   f"{number(fmap['height_nm'], digits=3)} nm (periods {lo:.0f}-{hi:.0f} nm), "
-                                   "stored in the session file as field_map/"))
+                                   f"{quantity(fmap['height_nm'], 'nm', digits=3)} (periods "
+                                   f"{span(*fmap['band_nm'], 'nm')}), stored in the session file as field_map/"))
     emit_text(render_block(pairs + [
         ("Calibration", cal_text),
         ("Series", f"{wf.series_result.completed_lines} lines at {len(s.heights_m)} lift heights ({heights})"
          + (f" × {len(s.biases_v)} biases" if s.biases_v else "")),
         ("Session file", str(session_path)), ("Report", str(report.out_dir))], markdown=False))
-    if error:
-        import sys
+    return _field_map_verdict(field_map_error)
 
-        sys.stderr.write(f"mfma: error: {error}\n")
-        return 1
-    return 0
+
+def _field_map_verdict(error: str | None) -> int:
+    """A refused field map is the one failure that leaves the session and its report complete: said once, last."""
+    if not error:
+        return EXIT_OK
+    import sys
+
+    sys.stderr.write(f"mfma: error: {error}\n")
+    return EXIT_RUNTIME

@@ -16,6 +16,8 @@ from pathlib import Path
 
 import numpy as np
 
+from assistant.analysis.constants import MU_0_N_PER_A2
+from assistant.formatting import quantity
 from assistant.procedures.quantitative_inputs import ImageInput, QuantitativeInputError, load_image
 from assistant.storage.quantitative_files import (TipFile, parse_utc, read_tip_file, write_field_file,
                                                   write_tip_file)
@@ -197,8 +199,8 @@ def map_field(image: ImageInput, tip: TipFile, *, height_m: float | None = None,
     notes = list(image.notes)
     tip_pixel = tuple(np.asarray(tip["pixel_nm"], dtype=float) * 1e-9)
     if any(abs(a / b - 1.0) > 1e-6 for a, b in zip(tip_pixel, image.pixel_m)):
-        notes.append(f"the TTF was measured with {tip_pixel[1] * 1e9:.4g} nm pixels, the image has "
-                     f"{image.pixel_m[1] * 1e9:.4g} nm: its profile is resampled in spatial frequency")
+        notes.append(f"the TTF was measured with {quantity(tip_pixel[1], 'm')} pixels, the image has "
+                     f"{quantity(image.pixel_m[1], 'm')}: its profile is resampled in spatial frequency")
     ms = tip["ms_ka_per_m"]
     try:
         fm = reconstruct_field(
@@ -226,10 +228,9 @@ def field_summary(fm, notes: list[str]) -> dict:
     warnings = list(fm.warnings)
     if inner is hz and m:
         warnings.append(f"the image is small against the edge margin ({m} px): statistics include the edges")
-    mu0 = 1.25663706127e-6
     rms = float(np.sqrt(np.mean(inner ** 2)))
     return {"hz_rms_a_per_m": rms, "hz_min_a_per_m": float(inner.min()), "hz_max_a_per_m": float(inner.max()),
-            "mu0_hz_rms_mt": mu0 * rms * 1e3, "hz_std_median_a_per_m": float(np.median(fm.hz_std_a_per_m)),
+            "mu0_hz_rms_mt": MU_0_N_PER_A2 * rms * 1e3, "hz_std_median_a_per_m": float(np.median(fm.hz_std_a_per_m)),
             "height_nm": fm.height_m * 1e9, "measurement_plane_nm": fm.plane_m * 1e9,
             "band_nm": [p * 1e9 for p in fm.band_periods_m], "margin_px": m,
             "signal_outside_band": fm.signal_outside_band, "warnings": warnings, "notes": notes}

@@ -21,11 +21,13 @@ from pathlib import Path
 
 import numpy as np
 
-from assistant.analysis.quantitative.conversion import (force_gradient_from_frequency_shift,
-                                                        force_gradient_from_phase, measurement_plane_m)
+from assistant.analysis.quantitative import (force_gradient_from_frequency_shift, force_gradient_from_phase,
+                                             measurement_plane_m)
+from assistant.errors import InputError
+from assistant.formatting import quantity
 
 
-class QuantitativeInputError(ValueError):
+class QuantitativeInputError(InputError):
     """Input that quantitative MFM cannot use; the message names the file and the problem (exit status 2)."""
 
 
@@ -98,15 +100,15 @@ def _pick(stack: np.ndarray, heights_m: np.ndarray, *, recommended_m: float | No
         return 0
     best = int(np.argmin(np.abs(heights_m - recommended_m))) if recommended_m is not None else 0
     if recommended_m is None:
-        notes.append(f"no recommended lift height: the lowest height ({heights_m[0] * 1e9:.4g} nm) is used")
+        notes.append(f"no recommended lift height: the lowest height ({quantity(heights_m[0], 'm')}) is used")
     if wanted_plane_m is not None and heights_m[best] + plane_offset_m > wanted_plane_m + 1e-12:
         below = np.flatnonzero(heights_m + plane_offset_m <= wanted_plane_m + 1e-12)
         if below.size == 0:
             raise QuantitativeInputError(
-                f"height {wanted_plane_m * 1e9:.4g} nm is below every measurement plane of the series (lowest "
-                f"{(heights_m[0] + plane_offset_m) * 1e9:.4g} nm): fields can only be continued upwards")
+                f"height {quantity(wanted_plane_m, 'm')} is below every measurement plane of the series (lowest "
+                f"{quantity(heights_m[0] + plane_offset_m, 'm')}): fields can only be continued upwards")
         best = int(below[-1])
-        notes.append(f"the image at {heights_m[best] * 1e9:.4g} nm lift is used, below the recommended height, "
+        notes.append(f"the image at {quantity(heights_m[best], 'm')} lift is used, below the recommended height, "
                      "because the requested plane is lower: check its short-range part")
     return best
 
@@ -115,13 +117,14 @@ def _recommended(stack, heights_m, pixel_m, *, bias_v, k, q, amplitude_m, gap_of
     """(recommended lift [m] or None, contact potential [V] or None) from the decomposition of a stack."""
     if stack.shape[0] < 3:
         return None, None
-    from assistant.analysis.series import analyse_series
+    from assistant.analysis.lift_series import ProbeModel, analyse_series
 
-    kwargs = {"spring_constant_n_per_m": k, "quality_factor": q, "bias_v": bias_v, "gap_offset_m": gap_offset_m}
+    fields = {"spring_constant_n_per_m": k, "quality_factor": q, "gap_offset_m": gap_offset_m}
     if amplitude_m:
-        kwargs["amplitude_m"] = amplitude_m
+        fields["amplitude_m"] = amplitude_m
     try:
-        result = analyse_series(stack, heights_m=heights_m, pixel_m=pixel_m, **kwargs)
+        result = analyse_series(stack, heights_m=heights_m, pixel_m=pixel_m, bias_v=bias_v,
+                                probe=ProbeModel(**fields))
     except (ValueError, RuntimeError, np.linalg.LinAlgError) as exc:
         notes.append(f"the lift-series decomposition failed ({exc}); the lowest height is used")
         return None, None
@@ -134,8 +137,8 @@ def _bias_image(stack4: np.ndarray, biases: np.ndarray, cpd_v: float | None, not
         j = int(np.argmin(np.abs(biases - cpd_v)))
     else:
         j = int(np.argmax(np.nanmean(stack4, axis=(0, 2, 3))))
-    notes.append(f"bias grid: the passes at {biases[j]:+.3g} V are used"
-                 + (f" (nearest the contact potential {cpd_v:+.3g} V)" if cpd_v is not None else
+    notes.append(f"bias grid: the passes at {quantity(biases[j], 'V')} are used"
+                 + (f" (nearest the contact potential {quantity(cpd_v, 'V')})" if cpd_v is not None else
                     " (the weakest electrostatic attraction)"))
     return stack4[:, j]
 
@@ -219,6 +222,8 @@ def load_session(path: Path, *, wanted_plane_m: float | None = None) -> ImageInp
 def image_from_session(sf, label: str, *, series: str | None = None,
                        wanted_plane_m: float | None = None) -> ImageInput:
     """Series ``series`` (default: the last) of an open session file, as a force-gradient image."""
+    from assistant.procedures.analyse import analyse_session_series, stored_probe
+
     path = label
     names = sf.series_names()
     if not names:
@@ -230,19 +235,17 @@ def image_from_session(sf, label: str, *, series: str | None = None,
     cals = sf.read_calibrations()
     analysis = sf.read_analysis(name).scalars if name in sf.analysis_names() else None
     if analysis is None and data.completed_lines >= 8 and len(data.heights_m) >= 3:
-        from assistant.procedures.analyse import analyse_session_series
-
         try:
             analysis = analyse_session_series(sf, name, write=False).to_dict()
         except (ValueError, RuntimeError):
             analysis = None
     settings = json.loads(data.settings_json or "{}")
-    drive = settings.get("drive") or {}
     k, q = settings.get("spring_constant_n_per_m"), settings.get("quality_factor")
     if not k or not q:
         raise QuantitativeInputError(f"{path}: series {name!r} has no spring constant and Q: calibrate first")
-    amp = drive.get("free_amplitude_m")
-    gap = amp * drive["setpoint_ratio"] if amp and drive.get("setpoint_ratio") else None
+    probe = stored_probe(settings)  # amplitude and gap offset of the first pass, as the decomposition takes them
+    amp = probe.amplitude_m if (settings.get("drive") or {}).get("free_amplitude_m") else None
+    gap = probe.gap_offset_m if amp else None
     pixel = (data.scan_size_m / data.lines, data.scan_size_m / data.pixels)
     notes: list[str] = []
     stack = _complete_rows(np.asarray(data.phase_deg, dtype=float), path)
@@ -256,7 +259,7 @@ def image_from_session(sf, label: str, *, series: str | None = None,
               plane_offset_m=plane_offset, notes=notes)
     cal = cals[-1].scalars if cals else None
     return ImageInput(
-        source=f"{path} (series {name}, {heights[i] * 1e9:.4g} nm lift)",
+        source=f"{path} (series {name}, {quantity(heights[i], 'm')} lift)",
         gradient_n_per_m=force_gradient_from_phase(stack[i], spring_constant_n_per_m=k, quality_factor=q),
         pixel_m=pixel, lift_m=float(heights[i]), plane_m=float(heights[i]) + plane_offset,
         amplitude_m=amp, spring_constant_n_per_m=float(k), quality_factor=float(q),

@@ -16,9 +16,11 @@ from pathlib import Path
 import numpy as np
 from matplotlib.figure import Figure
 
+from assistant.analysis.constants import MU_0_N_PER_A2 as MU_0
+from assistant.formatting import number, quantity, span
+from assistant.report.colours import symmetric_limit
 from assistant.report.images import phase_colormap, save_png
 
-MU_0 = 1.25663706127e-6
 _SIGN = "z away from the sample; tip moment +z unless stated"
 
 
@@ -71,15 +73,17 @@ def ttf_figure(cal, *, pixel_m: tuple[float, float]) -> Figure:
         amp = a.get("amplitude_nm", np.nan)
         fit = point_probe_ttf(kk, moment_a_m2=a["dipole_a_m2"], monopole_a_m=a["monopole_a_m"],
                               offset_m=a["offset_nm"] * 1e-9, amplitude_m=None if not np.isfinite(amp) else amp * 1e-9)
-        parts = [f"m = {a['dipole_a_m2']:.3g} A m²" if a["dipole_a_m2"] else "",
-                 f"q = {a['monopole_a_m']:.3g} A m" if a["monopole_a_m"] else "", f"δ = {a['offset_nm']:.3g} nm"]
+        parts = [f"m = {number(a['dipole_a_m2'], digits=3)} A m²" if a["dipole_a_m2"] else "",
+                 f"q = {number(a['monopole_a_m'], digits=3)} A m" if a["monopole_a_m"] else "",
+                 f"δ = {quantity(a['offset_nm'], 'nm', digits=3)}"]
         ax.plot(2e9 * np.pi / kk, sign * fit, "-", color="#c0392b", lw=1.5,
                 label="point probe: " + ", ".join(p for p in parts if p))
     ax.set_xscale("log")
     ax.set_yscale("log")
     ax.set_xlabel("spatial period (nm)")
     ax.set_ylabel("|TTF| (N/A = (N/m) per (A/m))" if sign > 0 else "−TTF (N/A; tip moment down)")
-    ax.set_title(f"Tip transfer function, measurement plane {float(a['measurement_plane_nm']):.3g} nm")
+    plane = quantity(float(a["measurement_plane_nm"]), "nm", digits=3)
+    ax.set_title(f"Tip transfer function, measurement plane {plane}")
     ax.legend(fontsize=7.5, loc="lower left")
     ax.grid(True, which="both", color="0.85", lw=0.5)
     # 2-D map: the rfft2 half plane completed by Hermitian symmetry and centred
@@ -121,7 +125,7 @@ def pattern_figure(cal, *, gradient_n_per_m: np.ndarray, pixel_m: tuple[float, f
     extent = (0, cols * pixel_m[1] * 1e6, 0, rows * pixel_m[0] * 1e6)
     fig = Figure(figsize=(11.0, 5.0), layout="constrained")
     ax, ax2 = fig.subplots(1, 2)
-    lim = float(np.percentile(np.abs(g), 99.5)) or 1.0
+    lim = symmetric_limit(g)
     im = ax.imshow(g, origin="lower", extent=extent, cmap=phase_colormap().reversed(), vmin=-lim, vmax=lim)
     yy = (np.arange(rows) + 0.5) * pixel_m[0] * 1e6
     xx = (np.arange(cols) + 0.5) * pixel_m[1] * 1e6
@@ -151,10 +155,10 @@ def field_figure(hz_a_per_m: np.ndarray, hz_std_a_per_m: np.ndarray, *, pixel_m:
     extent = (0, cols * pixel_m[1] * 1e6, 0, rows * pixel_m[0] * 1e6)
     fig = Figure(figsize=(11.0, 4.9), layout="constrained")
     ax, ax2 = fig.subplots(1, 2)
-    lim = float(np.max(np.abs(b))) or 1.0
+    lim = symmetric_limit(b, percentile=100.0)  # the whole field on the scale: its peaks are the point of the map
     im = ax.imshow(b, origin="lower", extent=extent, cmap="RdBu_r", vmin=-lim, vmax=lim)
-    band = f", periods {band_nm[0]:.0f}–{band_nm[1]:.0f} nm" if band_nm else ""
-    ax.set_title(f"μ0 Hz at {height_m * 1e9:.3g} nm above the sample{band}", fontsize=10)
+    band = f", periods {span(*band_nm, 'nm')}" if band_nm else ""
+    ax.set_title(f"μ0 Hz at {quantity(height_m, 'm', digits=3)} above the sample{band}", fontsize=10)
     fig.colorbar(im, ax=ax, label="μ0 Hz (mT); red: pointing away from the sample", shrink=0.85)
     im2 = ax2.imshow(s, origin="lower", extent=extent, cmap="cividis", vmin=0.0,
                      vmax=float(np.percentile(s, 99.5)) or 1.0)
@@ -189,7 +193,7 @@ def figures_from_session(session, out_dir: str | Path) -> list[Path]:
     """The field-map figure of every field map stored in a session file (for the report)."""
     out = Path(out_dir)
     paths = []
-    names = session.field_map_names() if hasattr(session, "field_map_names") else []
+    names = session.field_map_names()
     for name in names:
         rec = session.read_field_map(name)
         s = rec.scalars

@@ -18,6 +18,8 @@ from typing import Any
 
 import platformdirs
 
+from assistant.errors import AssistantError
+
 ENV_DATA_DIR = "MFMA_DATA_DIR"
 RECORD_FORMAT = "mfm-assistant-probe-record"
 RECORD_VERSION = 1
@@ -25,7 +27,7 @@ _FILE_NAME = "probe_record.json"
 TRANSFER_KEY = "tip_transfer"
 
 
-class ProbeRecordError(ValueError):
+class ProbeRecordError(AssistantError, ValueError):
     """The probe record cannot be read or a calibration cannot be added; the message names the problem."""
 
 

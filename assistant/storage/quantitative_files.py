@@ -26,13 +26,15 @@ from typing import Any
 
 import numpy as np
 
+from assistant.errors import AssistantError
+
 TIP_FORMAT = "mfm-assistant-tip-transfer"
 TIP_VERSION = 1
 _TIP_REQUIRED = ("format", "version", "k_per_m", "ttf_n_per_a", "ttf_unc_n_per_a", "band_k_per_m", "pixel_nm",
                  "measurement_plane_nm", "ms_ka_per_m", "thickness_nm")
 
 
-class QuantitativeFileError(ValueError):
+class QuantitativeFileError(AssistantError, ValueError):
     """A tip or field file that cannot be read or written; the message names the file and the problem."""
 
 
@@ -160,7 +162,8 @@ def read_tip_file(path: str | os.PathLike[str]) -> TipFile:
 def write_field_file(path: str | os.PathLike[str], field_map, *, extra: dict[str, Any]) -> None:
     """FIELD.npz: ``hz_a_per_m``, ``hz_std_a_per_m`` (rows, cols), ``height_nm``, ``pixel_nm`` [row, column], plus
     ``mu0_hz_mt``, ``measurement_plane_nm``, ``band_nm``, ``margin_px``, ``warnings`` and the scalars in ``extra``."""
-    mu0 = 1.25663706127e-6
+    from assistant.analysis.constants import MU_0_N_PER_A2 as mu0
+
     arrays: dict[str, Any] = {
         "hz_a_per_m": field_map.hz_a_per_m, "hz_std_a_per_m": field_map.hz_std_a_per_m,
         "height_nm": np.array(field_map.height_m * 1e9), "pixel_nm": np.array(field_map.pixel_m) * 1e9,

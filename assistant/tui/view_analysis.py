@@ -12,7 +12,7 @@ from rich.markup import escape
 from textual.widgets import Button, Static
 from textual_plotext import PlotextPlot
 
-from assistant.formatting import quantity
+from assistant.formatting import number, quantity, span
 from assistant.report.results import results_block
 from assistant.tui.plots import DATA, FIT, PART_A, PART_B, redraw
 from assistant.tui.view_base import View
@@ -114,10 +114,10 @@ class AnalysisView(View):
                      "[b]report[/b] not written yet (Report)")  # after lift and bias: visible at 80 x 24
         fm = self.field_map
         if fm:
-            lo, hi = fm["band_nm"]
             where = "stored as field_map/" if not fm.get("field_file") else "in the report folder"
-            lines.insert(3, escape(f"field map: mu0 Hz rms {fm['mu0_hz_rms_mt']:.3g} mT at {fm['height_nm']:.3g} "
-                                   f"nm (periods {lo:.0f}-{hi:.0f} nm; {where})"))
+            lines.insert(3, escape(f"field map: μ0 Hz rms {number(fm['mu0_hz_rms_mt'], digits=3)} mT at "
+                                   f"{quantity(fm['height_nm'], 'nm', digits=3)} (periods "
+                                   f"{span(*fm['band_nm'], 'nm')}; {where})"))
             lines += [escape(f"  warning: {w}") for w in fm.get("warnings", [])]
         return "\n".join(lines)
 

@@ -57,7 +57,7 @@ def test_field_map_button_maps_an_opened_session(tmp_path):
         return text
 
     text = asyncio.run(go())
-    assert "field map: mu0 Hz rms" in text
+    assert "field map: μ0 Hz rms" in text
     with SessionFile.open(path, "r") as sf:                # opened read-only: the file is left as it was
         assert sf.field_map_names() == []
     from assistant.outputs import report_dir_for

@@ -26,6 +26,7 @@ import numpy as np
 
 from assistant.analysis.quantitative.point_probe import PointProbeFit, fit_point_probe, point_probe_ttf
 from assistant.analysis.quantitative.transfer import TransferEstimate, calibrate_transfer
+from assistant.errors import InputError
 
 __all__ = ["TipCalibration", "calibrate_tip"]
 
@@ -107,7 +108,7 @@ def calibrate_tip(gradient_n_per_m: np.ndarray, *, pixel_m: float | tuple[float,
     ms_std = 0.05 * ms_a_per_m if ms_std_a_per_m is None else float(ms_std_a_per_m)
     t_std = 0.05 * thickness_m if thickness_std_m is None else float(thickness_std_m)
     if ms_std < 0 or t_std < 0:
-        raise ValueError("the uncertainties of Ms and t must be >= 0")
+        raise InputError("the uncertainties of Ms and t must be >= 0")
     est = calibrate_transfer(gradient_n_per_m, pixel_m=pixel_m, ms_a_per_m=ms_a_per_m, thickness_m=thickness_m,
                              height_m=plane_m, tip_moment=tip_moment, periodic=periodic, refine=refine)
     band = est.in_band

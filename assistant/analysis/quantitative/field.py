@@ -34,17 +34,18 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from assistant.analysis.constants import MU_0_N_PER_A2 as MU_0
 from assistant.analysis.quantitative import fourier as fr
 from assistant.analysis.quantitative.conversion import amplitude_weight
+from assistant.errors import InputError
 
 __all__ = ["FieldMap", "FieldInputError", "reconstruct_field", "band_taper", "OUTSIDE_BAND_WARNING"]
 
-MU_0 = 1.25663706127e-6       # N/A^2, CODATA 2022
 OUTSIDE_BAND_WARNING = 0.2    # warn when this share of the image's signal power lies outside the band
 _LOW_RAMP, _HIGH_RAMP = 2.0, 0.85    # raised-cosine edges: k_lo .. 2 k_lo and 0.85 k_hi .. k_hi
 
 
-class FieldInputError(ValueError):
+class FieldInputError(InputError):
     """The image cannot be deconvolved with this TTF (no overlap with the band, bad height); message says why."""
 
 
@@ -160,7 +161,7 @@ def reconstruct_field(gradient_n_per_m: np.ndarray, *, pixel_m: float | tuple[fl
         raise FieldInputError(f"height {height * 1e9:.4g} nm is below the measurement plane {plane_m * 1e9:.4g} nm: "
                               "the field can be continued upwards only (downwards the noise grows without bound)")
     if draws < 8:
-        raise ValueError(f"draws = {draws} must be >= 8")
+        raise InputError(f"draws = {draws} must be >= 8")
     rng = rng if rng is not None else np.random.default_rng(0)
     pixel = fr.pixel_pair(pixel_m)
     grid = fr.SpectralGrid(image.shape, pixel, periodic=periodic)

@@ -11,6 +11,8 @@ import math
 
 import numpy as np
 
+from assistant.errors import InputError
+
 __all__ = ["SpectralGrid", "pixel_pair", "wavenumbers", "ring_edges", "ring_index", "tukey", "tukey_2d", "half_plane_weight"]
 
 
@@ -18,10 +20,10 @@ def pixel_pair(pixel_m: float | tuple[float, float]) -> tuple[float, float]:
     """``(row spacing, column spacing)`` [m] from one spacing or a pair; both finite and > 0."""
     pair = (pixel_m, pixel_m) if np.ndim(pixel_m) == 0 else tuple(pixel_m)
     if len(pair) != 2:
-        raise ValueError(f"pixel_m must be one spacing or a (row, column) pair, got {pixel_m!r}")
+        raise InputError(f"pixel_m must be one spacing or a (row, column) pair, got {pixel_m!r}")
     dy, dx = float(pair[0]), float(pair[1])
     if not (math.isfinite(dy) and math.isfinite(dx) and dy > 0 and dx > 0):
-        raise ValueError(f"pixel_m = {pixel_m!r} must be finite and > 0 m")
+        raise InputError(f"pixel_m = {pixel_m!r} must be finite and > 0 m")
     return dy, dx
 
 
@@ -64,9 +66,9 @@ def tukey(n: int, fraction: float) -> np.ndarray:
     Written here because importing scipy.signal costs seconds.
     """
     if n < 1:
-        raise ValueError(f"window length {n} must be >= 1")
+        raise InputError(f"window length {n} must be >= 1")
     if not 0.0 <= fraction <= 1.0:
-        raise ValueError(f"taper fraction {fraction!r} must be in [0, 1]")
+        raise InputError(f"taper fraction {fraction!r} must be in [0, 1]")
     w = np.ones(n)
     taper = int(math.floor(fraction * (n - 1) / 2.0))
     if taper > 0:
@@ -110,7 +112,7 @@ class SpectralGrid:
         the median of the power's distribution: ln 2 for complex Fourier, 0.4549 for real cosine coefficients)."""
         outer = self.k > 0.8 * k_nyquist
         if np.count_nonzero(outer) < 8:
-            raise ValueError("the image is too small to estimate its noise (fewer than 8 components above 0.8 "
+            raise InputError("the image is too small to estimate its noise (fewer than 8 components above 0.8 "
                              "of the Nyquist frequency)")
         return float(np.median(np.abs(spectrum[outer]) ** 2) / (math.log(2.0) if self.periodic else 0.45494))
 

@@ -30,11 +30,13 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from assistant.analysis.constants import MU_0_N_PER_A2
 from assistant.analysis.quantitative.conversion import amplitude_weight
+from assistant.errors import InputError
 
 __all__ = ["PointProbeFit", "fit_point_probe", "point_probe_ttf", "MU_0"]
 
-MU_0 = 1.25663706127e-6  # N/A^2, CODATA 2022
+MU_0 = MU_0_N_PER_A2  # N/A^2
 _SCALES = (1e-16, 1e-9, 1e-8)   # A m^2, A m, m: typical sizes, so the solver works on numbers of order one
 
 
@@ -168,7 +170,7 @@ def fit_point_probe(k_per_m: np.ndarray, ttf_n_per_a: np.ndarray, ttf_std_n_per_
     std = np.asarray(ttf_std_n_per_a, dtype=float)
     ok = np.isfinite(k) & np.isfinite(t) & np.isfinite(std) & (std > 0) & (k > 0)
     if ok.sum() < 5:
-        raise ValueError(f"the point-probe fit needs at least 5 rings with a TTF and its uncertainty, got {ok.sum()}")
+        raise InputError(f"the point-probe fit needs at least 5 rings with a TTF and its uncertainty, got {ok.sum()}")
     k, t, std = k[ok], t[ok], std[ok]
     weight = amplitude_weight(k, amplitude_m) if amplitude_m else np.ones_like(k)
     models = {"dipole+monopole": (True, True), "dipole": (True, False), "monopole": (False, True)}

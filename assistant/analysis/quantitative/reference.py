@@ -21,6 +21,7 @@ import math
 import numpy as np
 
 from assistant.analysis.quantitative.fourier import pixel_pair, wavenumbers
+from assistant.errors import InputError
 
 __all__ = ["film_factor", "film_field", "subpixel_sign", "PIXEL_MODELS", "EDGES"]
 
@@ -65,14 +66,14 @@ def film_field(pattern: np.ndarray, *, ms_a_per_m: float, thickness_m: float, he
     The k = 0 component is zero: a uniformly magnetised film has no field outside it.
     """
     if pixel_model not in PIXEL_MODELS:
-        raise ValueError(f"pixel_model = {pixel_model!r} must be one of {', '.join(PIXEL_MODELS)}")
+        raise InputError(f"pixel_model = {pixel_model!r} must be one of {', '.join(PIXEL_MODELS)}")
     if edge not in EDGES:
-        raise ValueError(f"edge = {edge!r} must be one of {', '.join(EDGES)}")
+        raise InputError(f"edge = {edge!r} must be one of {', '.join(EDGES)}")
     for name, v in (("ms_a_per_m", ms_a_per_m), ("thickness_m", thickness_m)):
         if not (math.isfinite(v) and v > 0):
-            raise ValueError(f"{name} = {v!r} must be finite and > 0")
+            raise InputError(f"{name} = {v!r} must be finite and > 0")
     if not (math.isfinite(height_m) and height_m >= 0):
-        raise ValueError(f"height_m = {height_m!r} must be finite and >= 0")
+        raise InputError(f"height_m = {height_m!r} must be finite and >= 0")
     s = np.asarray(pattern, dtype=float)
     dy, dx = pixel_pair(pixel_m)
     rows, cols = s.shape

@@ -44,6 +44,7 @@ import numpy as np
 
 from assistant.analysis.quantitative import fourier as fr
 from assistant.analysis.quantitative.reference import film_factor, subpixel_sign
+from assistant.errors import InputError
 
 __all__ = ["TransferEstimate", "calibrate_transfer", "gcv_tikhonov", "ring_profile", "noise_power"]
 
@@ -56,7 +57,7 @@ LOWEST_RING_WINDOWED = 6    # a window and the reflected reference field: up to 
 WINDOW_CORRECTIONS = 2
 
 
-class CalibrationInputError(ValueError):
+class CalibrationInputError(InputError):
     """The reference image cannot give a TTF (flat image, band too narrow); the message says why."""
 
 
@@ -203,10 +204,10 @@ def calibrate_transfer(gradient_n_per_m: np.ndarray, *, pixel_m: float | tuple[f
     if not np.all(np.isfinite(image)):
         raise CalibrationInputError("the reference image holds NaN or infinite values")
     if tip_moment not in ("up", "down"):
-        raise ValueError(f"tip_moment = {tip_moment!r} must be 'up' or 'down'")
+        raise InputError(f"tip_moment = {tip_moment!r} must be 'up' or 'down'")
     for name, v in (("ms_a_per_m", ms_a_per_m), ("thickness_m", thickness_m), ("height_m", height_m)):
         if not (math.isfinite(v) and v > 0):
-            raise ValueError(f"{name} = {v!r} must be finite and > 0")
+            raise InputError(f"{name} = {v!r} must be finite and > 0")
     st = _Setup(image, pixel_m, periodic, ms_a_per_m, thickness_m, height_m)
     noise = noise_power(st.data_w, st.k_w, st.k_nyquist)       # per windowed component
     sigma2 = noise / float(np.sum(st.window ** 2))            # per pixel [(N/m)^2]

@@ -21,6 +21,17 @@ def test_phase_inverts_the_exact_arctan_relation():
     assert force_gradient_from_phase(-1.0, spring_constant_n_per_m=2.8, quality_factor=200) > 0
 
 
+def test_phase_conversion_agrees_with_the_lift_series_family():
+    # one relation, kept in two families (the quantitative family does not import the lift-series one)
+    from assistant.analysis.lift_series import gradient_from_phase_deg
+
+    phase = np.linspace(-60.0, 60.0, 13)
+    assert force_gradient_from_phase(phase, spring_constant_n_per_m=2.8, quality_factor=200) == pytest.approx(
+        gradient_from_phase_deg(phase, spring_constant_n_per_m=2.8, quality_factor=200), rel=1e-12)
+    with pytest.raises(ValueError, match="90"):
+        force_gradient_from_phase(95.0, spring_constant_n_per_m=2.8, quality_factor=200)
+
+
 def test_frequency_shift_inverts_the_exact_square_root():
     # f = f0 sqrt(1 - F'/k) (Albrecht, Gruetter, Horne & Rugar 1991, J. Appl. Phys. 69, 668; from memory);
     # k = 2.8 N/m, f0 = 75 kHz, F' = 1e-4 N/m -> df = -1.339298 Hz (exact form).
