@@ -191,6 +191,13 @@ def _calibration_rel_std(tip: TipFile, image: ImageInput, notes: list[str]) -> f
     return float(math.sqrt(sum(p * p for p in parts)))
 
 
+def _spacing(pixel_m: tuple[float, float]) -> str:
+    """Pixel spacing for a person: one value when square, else between lines × along a line."""
+    if pixel_m[0] == pixel_m[1]:
+        return quantity(pixel_m[1], "m")
+    return f"{quantity(pixel_m[0], 'm')} × {quantity(pixel_m[1], 'm')}"
+
+
 def map_field(image: ImageInput, tip: TipFile, *, height_m: float | None = None, draws: int = 64,
               seed: int = 0):
     """Hz of ``image`` with the TTF of ``tip`` (the analysis ``reconstruct_field``), with the notes it needs."""
@@ -199,8 +206,8 @@ def map_field(image: ImageInput, tip: TipFile, *, height_m: float | None = None,
     notes = list(image.notes)
     tip_pixel = tuple(np.asarray(tip["pixel_nm"], dtype=float) * 1e-9)
     if any(abs(a / b - 1.0) > 1e-6 for a, b in zip(tip_pixel, image.pixel_m)):
-        notes.append(f"the TTF was measured with {quantity(tip_pixel[1], 'm')} pixels, the image has "
-                     f"{quantity(image.pixel_m[1], 'm')}: its profile is resampled in spatial frequency")
+        notes.append(f"the TTF was measured with {_spacing(tip_pixel)} pixels, the image has "
+                     f"{_spacing(image.pixel_m)}: its profile is resampled in spatial frequency")
     ms = tip["ms_ka_per_m"]
     try:
         fm = reconstruct_field(
