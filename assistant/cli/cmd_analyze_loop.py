@@ -12,13 +12,13 @@ def run(args) -> int:
 
     from assistant.cli.cmd_analyze import _existing, _is_hdf5
     from assistant.procedures.analyse_loop import analyse_npz, analyse_stored
-    from assistant.storage import SessionFile, field_series_names, read_field_series
+    from assistant.storage import SessionFile
 
     p = _existing(args.file)
     if _is_hdf5(p):
         with SessionFile.open(p, "r") as sf:
             result = analyse_stored(sf, args.field_series, write=False, tip_moment=args.tip_moment)
-            phase = read_field_series(sf, args.field_series or field_series_names(sf)[-1]).phase_deg
+            phase = sf.read_field_series(args.field_series or sf.field_series_names()[-1]).phase_deg
     elif p.suffix.lower() == ".npz":
         result = analyse_npz(p, tip_moment=args.tip_moment)
         with np.load(p, allow_pickle=False) as z:

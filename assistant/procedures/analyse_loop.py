@@ -44,15 +44,14 @@ def analyse_stored(session, name: str | None = None, *, sink: Sink = null_sink, 
                    tip_moment: str = "up"):
     """Analyse field series ``name`` (default: the last) of an open session file; store the result in it."""
     from assistant.analysis.field_series import analyse_loop
-    from assistant.storage import field_series_names, read_field_series
 
-    names = field_series_names(session)
+    names = session.field_series_names()
     if not names:
         raise LoopFileError(f"{session.path} holds no field series")
     name = name or names[-1]
     if name not in names:
         raise LoopFileError(f"no field series {name!r} in {session.path} (have: {', '.join(names)})")
-    data = read_field_series(session, name)
+    data = session.read_field_series(name)
     steps = data.completed_steps
     if steps < 3:
         raise LoopFileError(f"field series {name!r} has {steps} completed field steps; need at least 3")

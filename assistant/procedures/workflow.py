@@ -98,6 +98,7 @@ class Workflow:
     series_result: SeriesResult | None = None
     analysis: object | None = None
     probe_warnings: list[str] = field(default_factory=list)
+    field_map_result: object | None = None
     field_settings: FieldSeriesSettings | None = None
     field_result: FieldSeriesResult | None = None
     loop_analysis: object | None = None
@@ -226,6 +227,17 @@ class Workflow:
         self.analysis = analyse_session_series(self.session, name, sink=self.sink)
         return self.analysis
 
+    def field_map(self, tip, *, record=None, name: str | None = None):
+        """Quantitative MFM: map the stray field of the series at its recommended height with the TTF of ``tip``
+        (a tip file, e.g. the probe's newest from the probe record) and store it as ``field_map/<series>``."""
+        from assistant.procedures.quantitative import field_map_for_session
+
+        name = name or (self.series_settings.name if self.series_settings else None)
+        self.field_map_result = field_map_for_session(self.session, tip, series=name, record=record)
+        for text in self.field_map_result.summary["warnings"]:
+            self.sink(Notice("warning", f"field map: {text}"))
+        return self.field_map_result
+
     def field_series(self, settings: FieldSeriesSettings, *, resume: bool = False) -> FieldSeriesResult:
         """Image every field step of ``settings`` at one lift height; the field ends at zero (and goes to zero
         through the safety guard on any stop). A resume retraces the fields' turning points first."""
@@ -240,10 +252,8 @@ class Workflow:
 
             writer = resume_field_writer(self.session, settings.name, before_write=self.before_write)
         else:
-            from assistant.storage import create_field_series
-
-            writer = create_field_series(
-                self.session, settings.name, fields_a_per_m=settings.fields_a_per_m, lines=settings.lines,
+            writer = self.session.create_field_series(
+                settings.name, fields_a_per_m=settings.fields_a_per_m, lines=settings.lines,
                 pixels=settings.pixels, scan_size_m=settings.scan_size_m, line_rate_hz=settings.line_rate_hz,
                 lift_height_m=settings.lift_height_m, repeat_first=settings.repeat_first, order=settings.order,
                 settings_json=self._stored_settings(settings), field_axis=settings.field_axis,

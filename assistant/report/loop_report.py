@@ -12,7 +12,6 @@ import numpy as np
 
 from assistant.formatting import number_list, quantity
 from assistant.report.loop_figures import write_loop_figures
-from assistant.storage import field_series_names, read_field_series
 
 
 def _field(value: float, std: float | None = None) -> str:
@@ -81,8 +80,8 @@ def field_series_report(session, out_dir: Path, notes: list[str]) -> tuple[list[
     from assistant.procedures.analyse_loop import stored_loop_analysis
 
     text, paths, results = ["## Field series", ""], [], []
-    for name in field_series_names(session):
-        data = read_field_series(session, name)
+    for name in session.field_series_names():
+        data = session.read_field_series(name)
         text += [f"### Field series {name}", ""] + _measured_lines(data) + [""]
         try:
             result = stored_loop_analysis(session, name)

@@ -205,6 +205,10 @@ def caption(file_name: str, *, per_height_scale: bool) -> str:
         return "field series: each element coloured by its switching field, descending and ascending branch"
     if stem.endswith("_field_steps"):
         return "field series: phase over the field steps on one colour scale; dark = attractive"
+    if stem.startswith("field_map"):
+        return "stray field μ0 Hz (red: pointing away from the sample) and its standard uncertainty; edge margin dashed"
+    if stem == "ttf":
+        return "tip transfer function against spatial period with its uncertainty, valid band and point-probe fit"
     return ""
 
 

@@ -1,13 +1,7 @@
 """Storage: the crash-safe HDF5 session file (the file, its series and field-series groups, resume) and the
 per-probe calibration record."""
 
-from assistant.storage.field_series_group import (
-    FieldSeriesData,
-    FieldSeriesWriter,
-    create_field_series,
-    field_series_names,
-    read_field_series,
-)
+from assistant.storage.field_series_group import FieldSeriesData, FieldSeriesWriter
 from assistant.storage.probe_record import ProbeRecord, ProbeRecordError, default_data_dir
 from assistant.storage.records import (
     FORMAT_NAME,
@@ -32,7 +26,6 @@ __all__ = [
     "FORMAT_NAME", "FORMAT_VERSION", "FieldSeriesData", "FieldSeriesWriter", "FinishedSeriesError",
     "FormatVersionError", "NotASessionFileError", "ProbeRecord", "ProbeRecordError", "Record", "ResumePoint",
     "SeriesData", "SeriesWriter", "SessionBusyError", "SessionFile", "SessionFileError", "SessionInfo",
-    "SessionWriteError", "UnwritablePathError", "create_field_series", "default_data_dir", "field_series_names",
-    "read_field_series", "redact_controller_url", "resume_field_writer", "resume_point", "resume_writer",
-    "unit_for_name",
+    "SessionWriteError", "UnwritablePathError", "default_data_dir", "redact_controller_url", "resume_field_writer",
+    "resume_point", "resume_writer", "unit_for_name",
 ]

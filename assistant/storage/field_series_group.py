@@ -14,15 +14,14 @@ Layout (NeXus NXdata, so general-purpose HDF5 viewers show the phase stack again
                             attrs: completed_lines, lines, pixels, fields, scan_size_m, line_rate_hz,
                             lift_height_m, field_axis, repeat_first, order, settings_json
 
-The functions take an open :class:`~assistant.storage.session_file.SessionFile`; continuing an interrupted field
-series is :func:`assistant.storage.resume.resume_field_writer`.
+:class:`FieldSeriesGroups` gives :class:`~assistant.storage.session_file.SessionFile` its field-series methods;
+continuing an interrupted field series is :func:`assistant.storage.resume.resume_field_writer`.
 """
 
 from __future__ import annotations
 
 import json
-from collections.abc import Iterator, Sequence
-from contextlib import contextmanager
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import h5py
@@ -31,10 +30,9 @@ import numpy as np
 from assistant.storage.records import FinishedSeriesError, SessionFileError, check_name, unit_for_name
 from assistant.storage.series_group import BeforeWrite, axis_dataset, line_dataset
 
-__all__ = ["FieldSeriesData", "FieldSeriesWriter", "create_field_series", "field_series_names",
-           "field_series_writer", "read_field_series"]
+__all__ = ["FIELD_SERIES_GROUP", "FieldSeriesData", "FieldSeriesGroups", "FieldSeriesWriter"]
 
-GROUP = "field_series"
+FIELD_SERIES_GROUP = "field_series"
 _PASSES = ("topography_m", "phase_deg", "amplitude_v", "repeat_phase_deg")
 
 
@@ -104,7 +102,7 @@ class FieldSeriesWriter:
         """Record the field read once step ``step`` has settled (before its first line)."""
         if not 0 <= step < self.fields:
             raise SessionFileError(f"field series {self.name!r}: step {step} outside 0..{self.fields - 1}")
-        with _writing(self._session, f"the field of step {step} of {self.name!r}"):
+        with self._session._writing(f"the field of step {step} of {self.name!r}"):
             self._datasets["measured_field_a_per_m"][step] = float(measured_a_per_m)
 
     def write_line(self, step: int, line: int, *, topography_m: np.ndarray, phase_deg: np.ndarray,
@@ -144,11 +142,48 @@ class FieldSeriesWriter:
             raise self._session.failed(f"step {step} line {line} of field series {self.name!r}", exc) from exc
 
 
-def create_field_series(session, name: str, *, fields_a_per_m: Sequence[float], lines: int, pixels: int,
-                        scan_size_m: float, line_rate_hz: float, lift_height_m: float, repeat_first: bool, order: str,
-                        settings_json: str, field_axis: str = "z",
-                        before_write: BeforeWrite | None = None) -> FieldSeriesWriter:
-    """Create ``field_series/<name>`` in an open session file with every dataset allocated; its writer."""
+class FieldSeriesGroups:
+    """The ``field_series/`` groups of :class:`~assistant.storage.session_file.SessionFile` (a mixin: it uses the
+    file's ``_h5``, ``path`` and ``_writing``, the guard that refuses writes after a failed one)."""
+
+    def create_field_series(self, name: str, *, fields_a_per_m: Sequence[float], lines: int, pixels: int,
+                            scan_size_m: float, line_rate_hz: float, lift_height_m: float, repeat_first: bool,
+                            order: str, settings_json: str, field_axis: str = "z",
+                            before_write: BeforeWrite | None = None) -> FieldSeriesWriter:
+        """Create ``field_series/<name>`` with every dataset allocated and NaN-filled; returns its writer."""
+        fields = _checked_arguments(name, fields_a_per_m, lines=lines, pixels=pixels, scan_size_m=scan_size_m,
+                                    line_rate_hz=line_rate_hz, settings_json=settings_json)
+        if name in self.field_series_names():
+            raise SessionFileError(f"field series {name!r} already exists in {str(self.path)!r}; resume it instead")
+        with self._writing(f"field series {name!r}"):
+            g = _new_group(self._h5, name, fields, lines=int(lines), pixels=int(pixels),
+                           scan_size_m=float(scan_size_m), line_rate_hz=float(line_rate_hz),
+                           lift_height_m=float(lift_height_m), repeat_first=repeat_first, order=order,
+                           settings_json=settings_json, field_axis=field_axis)
+        return FieldSeriesWriter(self, g, before_write=before_write)
+
+    def field_series_names(self) -> list[str]:
+        """The names of the file's field series, sorted."""
+        return sorted(self._h5[FIELD_SERIES_GROUP]) if FIELD_SERIES_GROUP in self._h5 else []
+
+    def field_series_writer(self, name: str, *, before_write: BeforeWrite | None = None) -> FieldSeriesWriter:
+        """A writer of the existing ``field_series/<name>`` at its next line (see :mod:`assistant.storage.resume`)."""
+        return FieldSeriesWriter(self, self._field_series_group(name), before_write=before_write)
+
+    def read_field_series(self, name: str) -> FieldSeriesData:
+        """The stored field series, cut to the field steps whose every line was written."""
+        return _read(self._field_series_group(name), name)
+
+    def _field_series_group(self, name: str) -> h5py.Group:
+        have = self.field_series_names()
+        if name not in have:
+            raise SessionFileError(f"no field series {name!r} in {str(self.path)!r}; have {have}")
+        return self._h5[FIELD_SERIES_GROUP][name]
+
+
+def _checked_arguments(name: str, fields_a_per_m: Sequence[float], *, lines: int, pixels: int, scan_size_m: float,
+                       line_rate_hz: float, settings_json: str) -> np.ndarray:
+    """The fields as an array after checking every argument, so that a bad one leaves the file untouched."""
     check_name(name)
     fields = np.asarray(fields_a_per_m, dtype=np.float64)
     if fields.ndim != 1 or fields.size == 0 or not np.all(np.isfinite(fields)):
@@ -163,61 +198,45 @@ def create_field_series(session, name: str, *, fields_a_per_m: Sequence[float], 
         json.loads(settings_json)
     except (TypeError, ValueError) as exc:
         raise SessionFileError(f"settings_json is not valid JSON: {exc}") from exc
-    h5 = session.h5
-    if name in field_series_names(session):
-        raise SessionFileError(f"field series {name!r} already exists in {str(session.path)!r}; resume it instead")
-    with _writing(session, f"field series {name!r}"):
-        root = h5.require_group(GROUP)
-        g = root.create_group(name)
-        shape = (fields.size, int(lines), int(pixels))
-        for ds in _PASSES if repeat_first else _PASSES[:-1]:
-            line_dataset(g, ds, shape)
-        axis_dataset(g, "applied_field_a_per_m", fields, "A/m")
-        dcpl = h5py.h5p.create(h5py.h5p.DATASET_CREATE)
-        dcpl.set_alloc_time(h5py.h5d.ALLOC_TIME_EARLY)
-        measured = g.create_dataset("measured_field_a_per_m", shape=(fields.size,), dtype=np.float64,
-                                    fillvalue=np.nan, dcpl=dcpl)
-        measured.attrs["units"] = unit_for_name("measured_field_a_per_m")
-        axis_dataset(g, "y_m", np.arange(lines) * (scan_size_m / lines), "m")
-        axis_dataset(g, "x_m", np.arange(pixels) * (scan_size_m / pixels), "m")
-        axes = ["applied_field_a_per_m", "y_m", "x_m"]
-        g.attrs.update({
-            "NX_class": "NXdata", "signal": "phase_deg", "axes": axes,
-            "auxiliary_signals": ["amplitude_v"] + (["repeat_phase_deg"] if repeat_first else []),
-            "completed_lines": np.int64(0), "lines": np.int64(lines), "pixels": np.int64(pixels),
-            "fields": np.int64(fields.size), "scan_size_m": float(scan_size_m), "line_rate_hz": float(line_rate_hz),
-            "lift_height_m": float(lift_height_m), "field_axis": field_axis, "repeat_first": bool(repeat_first),
-            "order": order, "settings_json": settings_json,
-        })
-        for i, axis in enumerate(axes):
-            g.attrs[f"{axis}_indices"] = np.int64(i)
-        root.attrs["NX_class"] = "NXentry"
-        root.attrs["default"] = name
-        if "series" not in h5:
-            h5.attrs["default"] = GROUP
-    return FieldSeriesWriter(session, g, before_write=before_write)
+    return fields
 
 
-def field_series_names(session) -> list[str]:
-    """The names of the session's field series, sorted."""
-    return sorted(session.h5[GROUP]) if GROUP in session.h5 else []
+def _new_group(h5: h5py.File, name: str, fields: np.ndarray, *, lines: int, pixels: int, scan_size_m: float,
+               line_rate_hz: float, lift_height_m: float, repeat_first: bool, order: str, settings_json: str,
+               field_axis: str) -> h5py.Group:
+    """``field_series/<name>`` with every dataset allocated and NaN-filled, with its NeXus view."""
+    root = h5.require_group(FIELD_SERIES_GROUP)
+    g = root.create_group(name)
+    shape = (fields.size, lines, pixels)
+    for ds in _PASSES if repeat_first else _PASSES[:-1]:
+        line_dataset(g, ds, shape)
+    axis_dataset(g, "applied_field_a_per_m", fields, "A/m")
+    dcpl = h5py.h5p.create(h5py.h5p.DATASET_CREATE)
+    dcpl.set_alloc_time(h5py.h5d.ALLOC_TIME_EARLY)
+    measured = g.create_dataset("measured_field_a_per_m", shape=(fields.size,), dtype=np.float64,
+                                fillvalue=np.nan, dcpl=dcpl)
+    measured.attrs["units"] = unit_for_name("measured_field_a_per_m")
+    axis_dataset(g, "y_m", np.arange(lines) * (scan_size_m / lines), "m")
+    axis_dataset(g, "x_m", np.arange(pixels) * (scan_size_m / pixels), "m")
+    axes = ["applied_field_a_per_m", "y_m", "x_m"]
+    g.attrs.update({
+        "NX_class": "NXdata", "signal": "phase_deg", "axes": axes,
+        "auxiliary_signals": ["amplitude_v"] + (["repeat_phase_deg"] if repeat_first else []),
+        "completed_lines": np.int64(0), "lines": np.int64(lines), "pixels": np.int64(pixels),
+        "fields": np.int64(fields.size), "scan_size_m": scan_size_m, "line_rate_hz": line_rate_hz,
+        "lift_height_m": lift_height_m, "field_axis": field_axis, "repeat_first": bool(repeat_first),
+        "order": order, "settings_json": settings_json,
+    })
+    for i, axis in enumerate(axes):
+        g.attrs[f"{axis}_indices"] = np.int64(i)
+    root.attrs["NX_class"] = "NXentry"
+    root.attrs["default"] = name
+    if "series" not in h5:
+        h5.attrs["default"] = FIELD_SERIES_GROUP
+    return g
 
 
-def _group(session, name: str) -> h5py.Group:
-    have = field_series_names(session)
-    if name not in have:
-        raise SessionFileError(f"no field series {name!r} in {str(session.path)!r}; have {have}")
-    return session.h5[GROUP][name]
-
-
-def field_series_writer(session, name: str, *, before_write: BeforeWrite | None = None) -> FieldSeriesWriter:
-    """A writer of the existing ``field_series/<name>`` at its next line (see :mod:`assistant.storage.resume`)."""
-    return FieldSeriesWriter(session, _group(session, name), before_write=before_write)
-
-
-def read_field_series(session, name: str) -> FieldSeriesData:
-    """The stored field series, cut to the field steps whose every line was written."""
-    g = _group(session, name)
+def _read(g: h5py.Group, name: str) -> FieldSeriesData:
     lines = int(g.attrs["lines"])
     done = int(g.attrs["completed_lines"])
     steps = done // lines
@@ -229,16 +248,3 @@ def read_field_series(session, name: str) -> FieldSeriesData:
         scan_size_m=float(g.attrs["scan_size_m"]), line_rate_hz=float(g.attrs["line_rate_hz"]),
         lift_height_m=float(g.attrs["lift_height_m"]), field_axis=str(g.attrs["field_axis"]),
         settings_json=str(g.attrs["settings_json"]))
-
-
-@contextmanager
-def _writing(session, what: str) -> Iterator[None]:
-    """Write ``what`` and flush; a failed write marks the session file broken (as its own records do)."""
-    session.check_usable()
-    try:
-        yield
-        session.flush()
-    except SessionFileError:
-        raise
-    except (OSError, ValueError, RuntimeError) as exc:  # h5py reports a full disk as any of these
-        raise session.failed(what, exc) from exc

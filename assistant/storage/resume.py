@@ -11,8 +11,7 @@ from __future__ import annotations
 import json
 from dataclasses import dataclass
 
-from assistant.storage.field_series_group import (FieldSeriesWriter, field_series_names, field_series_writer,
-                                                  read_field_series)
+from assistant.storage.field_series_group import FieldSeriesWriter
 from assistant.storage.records import FinishedSeriesError, SessionFileError
 from assistant.storage.series_group import BeforeWrite, SeriesWriter
 
@@ -41,7 +40,7 @@ def resume_point(session) -> ResumePoint:
     :class:`SessionFileError` for a file without series and :class:`FinishedSeriesError` when the last series is
     complete (nothing to resume).
     """
-    names, field_names = session.series_names(), field_series_names(session)
+    names, field_names = session.series_names(), session.field_series_names()
     if not names and not field_names:
         raise SessionFileError(f"{session.path} has no series to resume")
     if names:
@@ -49,7 +48,7 @@ def resume_point(session) -> ResumePoint:
         if not data.finished:
             return ResumePoint(names[-1], data.completed_lines, data.lines, json.loads(data.settings_json))
     if field_names:
-        fs = read_field_series(session, field_names[-1])
+        fs = session.read_field_series(field_names[-1])
         if not fs.finished:
             return ResumePoint(field_names[-1], fs.completed_lines, fs.fields * fs.lines,
                                json.loads(fs.settings_json), FIELD_SERIES)
@@ -74,7 +73,7 @@ def resume_writer(session, name: str, *, before_write: BeforeWrite | None = None
 def resume_field_writer(session, name: str, *, before_write: BeforeWrite | None = None) -> FieldSeriesWriter:
     """A writer that continues ``field_series/<name>`` at its next line; refuses a finished field series. The
     session is marked as not complete while the series goes on."""
-    writer = field_series_writer(session, name, before_write=before_write)
+    writer = session.field_series_writer(name, before_write=before_write)
     done, total = writer.completed_lines, writer.fields * writer.lines
     if done >= total:
         raise FinishedSeriesError(f"field series {name!r} is finished ({done} of {total} lines); nothing to resume")

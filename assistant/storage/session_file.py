@@ -19,10 +19,13 @@ Layout (NeXus NXdata attributes so general-purpose HDF5 viewers plot the images)
     field_series/<name>/    NXdata: one image per applied-field step (see assistant.storage.field_series_group)
     analysis/<name>/        decomposition (or loop) results: scalars as attributes, arrays as datasets; result/
                             the whole result as computed (every field, dtypes kept), from which the report draws
+    field_map/<name>/       stray-field map of series <name> (quantitative MFM): hz_a_per_m, hz_std_a_per_m
+                            (rows, cols), scalars (height_nm, pixel spacing, band, the TTF used) as attributes
 
 The series group is :mod:`assistant.storage.series_group`, the field series
-:mod:`assistant.storage.field_series_group`, the records and errors :mod:`assistant.storage.records`, and
-continuing an interrupted series :mod:`assistant.storage.resume`.
+:mod:`assistant.storage.field_series_group`, the records and errors :mod:`assistant.storage.records`, continuing
+an interrupted series :mod:`assistant.storage.resume`, and the stray-field maps
+:mod:`assistant.storage.field_map_group`.
 """
 
 from __future__ import annotations
@@ -37,6 +40,8 @@ from typing import Literal
 import h5py
 import numpy as np
 
+from assistant.storage.field_map_group import FieldMapGroups
+from assistant.storage.field_series_group import FieldSeriesGroups
 from assistant.storage.records import (FORMAT_NAME, FORMAT_VERSION, MAX_ATTR_TEXT, FormatVersionError,
                                        NotASessionFileError, Record, Scalar, SessionBusyError, SessionFileError,
                                        SessionInfo, SessionWriteError, UnwritablePathError, check_name,
@@ -50,19 +55,16 @@ __all__ = ["SessionFile"]
 RESULT_GROUP = "result"
 
 
-class SessionFile:
-    """An open session file. Create with :meth:`create`, reopen with :meth:`open`; use as a context manager."""
+class SessionFile(FieldMapGroups, FieldSeriesGroups):
+    """An open session file. Create with :meth:`create`, reopen with :meth:`open`; use as a context manager.
+    The stray-field maps of quantitative MFM are written and read by :class:`FieldMapGroups`, the field series by
+    :class:`FieldSeriesGroups`."""
 
     def __init__(self, h5: h5py.File, *, fsync: bool) -> None:
         self._h5 = h5
         self._fsync = fsync
         self._broken: str | None = None  # set by a failed write: the HDF5 state is no longer trustworthy
         self.path = Path(h5.filename)
-
-    @property
-    def h5(self) -> h5py.File:
-        """The open HDF5 file, for the group modules of this package (the field series)."""
-        return self._h5
 
     # ---- opening -------------------------------------------------------------------------------------
     @classmethod

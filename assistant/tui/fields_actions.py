@@ -38,11 +38,11 @@ class FieldSeriesActions:
     @work(thread=True, group="procedure", exit_on_error=False)
     def _stored_loop_worker(self, path: Path) -> None:
         from assistant.procedures.analyse_loop import stored_loop_analysis
-        from assistant.storage import SessionFile, field_series_names
+        from assistant.storage import SessionFile
 
         try:
             with SessionFile.open(path, "r") as sf:
-                names = field_series_names(sf)
+                names = sf.field_series_names()
                 result = stored_loop_analysis(sf, names[-1])
         except Exception as exc:
             self.post_message(StepFinished("analyse loop", None, exc))
@@ -52,14 +52,14 @@ class FieldSeriesActions:
     def show_field_series_file(self, path: Path) -> None:
         """Load the last field series of a session file into the Fields view with its stored analysis (or one made
         now, not written)."""
-        from assistant.storage import SessionFile, field_series_names, read_field_series
+        from assistant.storage import SessionFile
 
         try:
             with SessionFile.open(path, "r") as sf:
-                names = field_series_names(sf)
+                names = sf.field_series_names()
                 if not names:
                     return
-                data = read_field_series(sf, names[-1])
+                data = sf.read_field_series(names[-1])
         except Exception as exc:
             self.say("error", f"cannot read the field series of {path}: {exc}")
             return

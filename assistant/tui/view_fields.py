@@ -115,7 +115,7 @@ class FieldSeriesView(View):
         self.mark_dirty()
 
     def load(self, data, analysis=None) -> None:
-        """Show a stored field series (``assistant.storage.read_field_series``) and its analysis if given."""
+        """Show a stored field series (``SessionFile.read_field_series``) and its analysis if given."""
         self.begin(fields_a_per_m=data.field_a_per_m, lines=data.lines, pixels=data.pixels)
         k = data.completed_steps
         self.phase[:k], self.topography[:k] = data.phase_deg, data.topography_m

@@ -89,6 +89,7 @@ DOT_LOOP = resources.files("simulated_stage").joinpath("scenarios/dot-loop.toml"
     (["--fields-ka-per-m", "3000:-3000:1000"], "software limit"),
     (["--fields-ka-per-m", "300:-300:100", "--heights", "20,40"], "one lift height"),
     (["--fields-ka-per-m", "300:-300"], "START:STOP:STEP"),
+    (["--fields-ka-per-m", "300:-300:100", "--field-map", "--probe", "p1"], "a field series has none to map"),
 ])
 def test_run_with_bad_fields_exits_2_before_anything_moves(tmp_path, capsys, argv, message):
     code, out, err = _run(["run", "--scenario", "dot-loop", "--out", str(tmp_path / "o"), *argv], capsys)

@@ -15,7 +15,7 @@ from assistant.procedures.events import Cancelled, CancelToken, Notice, Progress
 from assistant.procedures.field_series import (FieldSeriesSettings, FieldSeriesSettingsError, MagnetFault,
                                                parse_fields_ka_per_m, run_field_series, turning_points)
 from assistant.procedures.guard import SafetyLimits
-from assistant.storage import SessionFile, create_field_series, read_field_series, resume_field_writer
+from assistant.storage import SessionFile, resume_field_writer
 from drivers.errors import ControllerFault, LinkTimeout
 from drivers.registry import open_controller
 
@@ -40,10 +40,10 @@ def engaged(url: str = "sim://", **options):
 
 
 def writer(sf: SessionFile, s: FieldSeriesSettings):
-    return create_field_series(sf, s.name, fields_a_per_m=s.fields_a_per_m, lines=s.lines, pixels=s.pixels,
-                               scan_size_m=s.scan_size_m, line_rate_hz=s.line_rate_hz,
-                               lift_height_m=s.lift_height_m, repeat_first=s.repeat_first, order=s.order,
-                               settings_json=s.to_json())
+    return sf.create_field_series(s.name, fields_a_per_m=s.fields_a_per_m, lines=s.lines, pixels=s.pixels,
+                                  scan_size_m=s.scan_size_m, line_rate_hz=s.line_rate_hz,
+                                  lift_height_m=s.lift_height_m, repeat_first=s.repeat_first, order=s.order,
+                                  settings_json=s.to_json())
 
 
 def assert_safe(stage) -> None:
@@ -83,7 +83,7 @@ def test_series_runs_and_ends_with_the_field_at_zero(tmp_path):
     with engaged(scenario=str(small_scenario(tmp_path)), seed=1) as ctl:
         with SessionFile.create(tmp_path / "s.h5", controller_url="sim://", software_version="t") as sf:
             res = run_field_series(ctl, SMALL, writer(sf, SMALL), sink=events.append)
-            data = read_field_series(sf, SMALL.name)
+            data = sf.read_field_series(SMALL.name)
         assert ctl.stage.magnet.field_a_per_m == 0.0 and ctl.status().engaged  # a normal end keeps the tip down
         with pytest.raises(FieldSeriesSettingsError, match="magnet's limit"):
             run_field_series(ctl, FieldSeriesSettings(fields_a_per_m=(7e5, 0.0, -7e5)), None)
@@ -103,7 +103,7 @@ def test_magnet_fault_leaves_the_stage_safe_with_the_field_at_zero(tmp_path):
             with pytest.raises(ControllerFault, match="tripped"):
                 run_field_series(ctl, SMALL, writer(sf, SMALL), sink=notices.append)
             # the 4th field set trips: step 4 (450, 150, -150, then -450 kA/m)
-            assert read_field_series(sf, SMALL.name).completed_lines == 3 * SMALL.lines
+            assert sf.read_field_series(SMALL.name).completed_lines == 3 * SMALL.lines
         assert_safe(ctl.stage)
         assert any(isinstance(n, Notice) and "field 0" in n.text for n in notices)
 
@@ -150,7 +150,7 @@ def test_interrupted_series_resumes_where_it_stopped(tmp_path):
         with SessionFile.create(path, controller_url="sim://", software_version="t") as sf:
             with pytest.raises(Cancelled):
                 run_field_series(ctl, SMALL, writer(sf, SMALL), sink=stop_mid_step, cancel=cancel)
-            before = read_field_series(sf, SMALL.name)
+            before = sf.read_field_series(SMALL.name)
         assert_safe(ctl.stage)
     assert before.completed_lines == 4 * SMALL.lines + 3 and before.completed_steps == 4
     notices = []
@@ -158,7 +158,7 @@ def test_interrupted_series_resumes_where_it_stopped(tmp_path):
         with SessionFile.open(path, "a") as sf:
             w = resume_field_writer(sf, SMALL.name)
             run_field_series(ctl, SMALL, w, sink=notices.append)
-            after = read_field_series(sf, SMALL.name)
+            after = sf.read_field_series(SMALL.name)
     assert after.finished
     assert after.phase_deg[:4].tobytes() == before.phase_deg.tobytes()
     text = " ".join(n.text for n in notices if isinstance(n, Notice))

@@ -12,16 +12,16 @@ import h5py
 import numpy as np
 import pytest
 
-from assistant.storage import (FinishedSeriesError, SessionFile, SessionFileError, create_field_series,
-                               field_series_names, read_field_series, resume_field_writer, resume_point)
+from assistant.storage import (FinishedSeriesError, SessionFile, SessionFileError, resume_field_writer,
+                               resume_point)
 
 FIELDS = (3e5, 0.0, -3e5, 0.0, 3e5)
 
 
 def _create(sf: SessionFile, repeat: bool = True):
-    return create_field_series(sf, "loop", fields_a_per_m=FIELDS, lines=4, pixels=6, scan_size_m=2e-6,
-                               line_rate_hz=1.0, lift_height_m=50e-9, repeat_first=repeat, order="per step",
-                               settings_json=json.dumps({"a": 1}))
+    return sf.create_field_series("loop", fields_a_per_m=FIELDS, lines=4, pixels=6, scan_size_m=2e-6,
+                                  line_rate_hz=1.0, lift_height_m=50e-9, repeat_first=repeat, order="per step",
+                                  settings_json=json.dumps({"a": 1}))
 
 
 def _line(step: int, line: int) -> dict:
@@ -45,8 +45,8 @@ def test_layout_units_and_partial_reading(tmp_path):
             w.write_line(2, 2, **_line(2, 2))
         with pytest.raises(SessionFileError, match="shape"):
             w.write_line(2, 1, **{**_line(2, 1), "phase_deg": np.zeros(5)})
-        data = read_field_series(sf, "loop")
-        assert field_series_names(sf) == ["loop"]
+        data = sf.read_field_series("loop")
+        assert sf.field_series_names() == ["loop"]
     assert data.completed_lines == 9 and data.completed_steps == 2 and not data.finished
     assert data.phase_deg.shape == (2, 4, 6) and data.phase_deg[1, 3, 0] == 103.0
     assert data.repeat_phase_deg[0, 2, 0] == 2.5 and data.pixel_m == (0.5e-6, 2e-6 / 6)
@@ -79,7 +79,7 @@ def test_resume_and_finish(tmp_path):
         for index in range(1, 20):
             step, line = divmod(index, 4)
             w.write_line(step, line, **{k: v for k, v in _line(step, line).items() if k != "repeat_phase_deg"})
-        assert read_field_series(sf, "loop").finished
+        assert sf.read_field_series("loop").finished
         with pytest.raises(FinishedSeriesError):
             resume_field_writer(sf, "loop")
         with pytest.raises(FinishedSeriesError, match="field series 'loop' .* is already complete"):
@@ -90,10 +90,10 @@ WRITER = """
 import json, os, sys
 import numpy as np
 sys.path[:0] = {paths!r}
-from assistant.storage import SessionFile, create_field_series
+from assistant.storage import SessionFile
 sf = SessionFile.create({path!r}, controller_url="sim://", software_version="t")
-w = create_field_series(sf, "loop", fields_a_per_m=(3e5, 0.0, -3e5), lines=4, pixels=6, scan_size_m=2e-6,
-                        line_rate_hz=1.0, lift_height_m=5e-8, repeat_first=False, order="x", settings_json="{{}}")
+w = sf.create_field_series("loop", fields_a_per_m=(3e5, 0.0, -3e5), lines=4, pixels=6, scan_size_m=2e-6,
+                           line_rate_hz=1.0, lift_height_m=5e-8, repeat_first=False, order="x", settings_json="{{}}")
 for index in range(7):
     step, line = divmod(index, 4)
     w.write_line(step, line, topography_m=np.zeros(6), phase_deg=np.full(6, float(index)), amplitude_v=np.ones(6))
@@ -106,7 +106,7 @@ def test_a_writer_that_dies_leaves_every_written_line(tmp_path):
     root = str(Path(__file__).parents[2])
     subprocess.run([sys.executable, "-c", WRITER.format(paths=[root], path=str(path))], check=True, timeout=60)
     with SessionFile.open(path, "r") as sf:
-        data = read_field_series(sf, "loop")
+        data = sf.read_field_series("loop")
     assert data.completed_lines == 7 and data.completed_steps == 1
     assert data.phase_deg[0, :, 0].tolist() == [0.0, 1.0, 2.0, 3.0]
     with h5py.File(path, "r") as f:
