@@ -37,6 +37,7 @@ import numpy as np
 from . import decomposition as dec
 from . import lift_models as lm
 from .align_reflect import average_biases, fit_with_drift_reflect
+from .interaction_regime import InteractionRegime, classify_interaction, recommendation_with_regime
 from .noise_floor import NoiseVerdict, noise_verdict, periodic_component_of, white_noise_std
 from .recommend import Recommendation, recommend_lift
 from .registration import align_stack, shift_from_spectra
@@ -129,6 +130,7 @@ class SeriesAnalysis:
     signal_space: str                   # "gradient" (k and Q given) or "phase"
     fitted_parameters: dict
     edge_note: str = ""                 # why the estimator differs from the default's first choice
+    interaction: InteractionRegime | None = None  # tip-sample interaction regime (set by analyse_series)
 
     @property
     def heights_nm(self) -> np.ndarray:
@@ -142,6 +144,8 @@ class SeriesAnalysis:
             out.append(self.tip_change.sentence)
         if self.edge_note:
             out.append(self.edge_note)
+        if self.interaction is not None:
+            out.append(self.interaction.evidence)
         return tuple(out)
 
     def to_dict(self) -> dict:
@@ -188,6 +192,8 @@ class SeriesAnalysis:
         }
         if self.drift_px.ndim == 3:
             out["drift_px_per_bias"] = lst(self.drift_px)
+        if self.interaction is not None:
+            out.update(self.interaction.to_dict())
         return out
 
 
@@ -283,15 +289,24 @@ def analyse_series(phase_deg, *, heights_m, pixel_m, bias_v=None, repeat_phase_d
         raise SeriesInputError(f"edge must be 'auto', 'reflect', 'window' or 'periodic', got {edge!r}")
     params = {k: v for k, v in locals().items() if k not in ("phase_deg", "edge")}  # every other keyword, as given
     if edge != "auto":
-        return _decompose(phase_deg, edge=edge, **params)
+        return _with_regime(_decompose(phase_deg, edge=edge, **params), phase_deg, params)
     fast = _decompose(phase_deg, edge="reflect", **params)
     heights = _reflection_mattered(fast)
     if not heights:
-        return fast
+        return _with_regime(fast, phase_deg, params)
     exact = _decompose(phase_deg, edge="window", **params)
     note = ("The reflected-edge fit left a residual above noise at " + ", ".join(f"{x:.4g}" for x in heights)
             + " nm, where the other criteria hold; the windowed fit, exact up to the edges, was used instead.")
-    return dataclasses.replace(exact, edge_note=note)
+    return _with_regime(dataclasses.replace(exact, edge_note=note), phase_deg, params)
+
+
+def _with_regime(a: SeriesAnalysis, phase_deg, params: dict) -> SeriesAnalysis:
+    """Name the tip-sample interaction regime and restrict the advice to heights where it is negligible."""
+    regime = classify_interaction(a, phase_deg, **{k: params[k] for k in (
+        "repeat_phase_deg", "spring_constant_n_per_m", "quality_factor", "tip_radius_m", "amplitude_m",
+        "gap_offset_m")})
+    return dataclasses.replace(a, interaction=regime, tip_change=regime.tip_change,
+                               recommendation=recommendation_with_regime(a.recommendation, regime))
 
 
 def _reflection_mattered(a: SeriesAnalysis) -> list[float]:

@@ -192,6 +192,8 @@ def _series_text(d: dict) -> list[str]:
         lines.append(f"magnetic rms over the interior: an edge band of {d['edge_band_px']} px left out")
     lines.append(f"residual rms: {d['residual_rms_deg']} deg")
     lines.append(f"recommended lift height: {d['recommended_lift_nm']} nm")
+    if d.get("interaction_regime"):
+        lines.append(f"tip-sample interaction: {d['interaction_regime']}. {d['interaction_evidence']}")
     if d.get("cpd_v") is not None:
         lines.append(f"contact potential difference V_cpd = {d['cpd_v']:.3f} V")
     return lines

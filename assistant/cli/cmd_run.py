@@ -165,5 +165,6 @@ def _finish(args, session_path: Path, report, wf, analysis) -> int:
                                            else "none (see the report)"),
             "V_cpd: " + (f"{a['cpd_v']:.3f} ± {a.get('cpd_std_v') or 0:.1g} V" if a.get("cpd_v") is not None
                          else "not measured (needs a bias grid, --biases)"),
-        ])
+        ] + ([f"tip-sample interaction: {a['interaction_regime']}. {a['interaction_evidence']}"]
+             if a.get("interaction_regime") else []))
     return 0

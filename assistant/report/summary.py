@@ -323,7 +323,11 @@ def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLik
         if stored:
             text += ["## Analysis", ""]
             for name in stored:
-                text += _record_section(f"analysis/{name}", session.read_analysis(name))
+                record = session.read_analysis(name)
+                if "interaction_regime" in record.scalars:  # the verdict first, in words
+                    text += [f"Tip-sample interaction of {name}: **{record.scalars['interaction_regime']}**. "
+                             f"{record.scalars.get('interaction_evidence', '')}", ""]
+                text += _record_section(f"analysis/{name}", record)
         paths += _calibration_figures(session, out, notes)
         if names:
             paths += _decomposition_figures(session, out, notes, analyses)

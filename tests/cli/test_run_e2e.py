@@ -41,6 +41,8 @@ def test_json_summary_has_the_contract_keys(finished_run):
     for key in ("heights_nm", "magnetic_rms_deg", "electrostatic_mean_deg", "short_range_mean_deg",
                 "residual_rms_deg", "drift_px", "cpd_v", "recommended_lift_nm"):
         assert key in a
+    # the default film is hard: the tip neither rewrites it nor pulls on it
+    assert a["interaction_regime"] == "negligible", a["interaction_evidence"]
 
 
 def test_session_file_opens_plainly_and_is_complete(finished_run):
