@@ -33,6 +33,7 @@ __all__ = ["MediaInputError", "TooFewPixelsPerBitError", "TrackResult", "TrackAn
 
 TYPICAL_TIP_OFFSET_M = 30e-9  # starting value only: a point probe's effective offset (rule of thumb, no source)
 MAX_RELATIVE_RESIDUAL = 0.2  # a track model leaving more of the profile unexplained has missed transitions
+GOOD_RELATIVE_RESIDUAL = 0.05  # ... and one leaving less needs no other starting width (rules of thumb)
 CORE_FRACTION = 0.2  # half-width of the rows averaged per track, as a fraction of its width (rule of thumb)
 
 
@@ -240,15 +241,15 @@ def analyse_tracks(phase_deg, *, pixel_m, lift_m: float | None = None, thickness
     u = np.where(ok, u, np.median(u[ok]))
     noise = float(noise_deg) if noise_deg is not None else white_noise_std(u)
     noise = max(noise, 1e-9 * float(np.std(u)) + 1e-300)
-    # the track direction: first the axis across which the image varies most (transitions lie across tracks),
-    # then the other; the first whose bands of activity include a complete track
+    # the track direction: the axis along which the bands of activity are the more regular (tracks read along
+    # them cover most rows with bands of one width; read across them, the bands are short and irregular)
     orient_probe = magnetisation_orientation(u, pixel_m=pix, noise_deg=noise)
-    layout = None
-    for axis in (orient_probe.axis, 1 - orient_probe.axis):
-        candidate = find_tracks(u if axis == 1 else u.T, noise=noise)
-        if candidate is not None and any(b.is_track and b.complete for b in candidate.bands):
-            layout = candidate
-            break
+    layout, axis = None, 1
+    for ax in (1, 0):
+        candidate = find_tracks(u if ax == 1 else u.T, noise=noise)
+        if candidate is not None and candidate.regularity > 0 and (
+                layout is None or candidate.regularity > layout.regularity):
+            layout, axis = candidate, ax
     if layout is None:
         return no_tracks(orient_probe, pix, u.shape, "No recorded tracks: no band of transitions stands out from the "
                          "rest of the image, so the media metrics are null.")
@@ -271,15 +272,19 @@ def analyse_tracks(phase_deg, *, pixel_m, lift_m: float | None = None, thickness
         profiles.append((b, img[core].mean(axis=0), noise / np.sqrt(core.size), geom))
     # orientation of the transition model: the image's verdict, else the better fit on the first track
     candidates = ([orient.orientation] if orient.orientation != "undetermined" else ["out-of-plane", "in-plane"])
-    # the shape is fitted on the strongest complete track that yields transitions (then held for the others)
+    # the shape is fitted on the strongest complete track that yields a good fit (then held for the others);
+    # the starting width is only a guess (the tip's offset is unknown), so a few are tried
     best, first = None, None
     for cand in sorted(profiles, key=lambda p: (p[3] is not None, p[1].std()), reverse=True)[:3]:
-        for name in candidates:
-            fit = _fit_with_width(cand[1], name, cand[2], w0, t_px, tip, cand[3])
-            if fit is not None and (best is None or fit[1].residual_rms < best[1].residual_rms):
-                best = (name, fit[1], fit[0])
-        if best is not None:
-            first = cand
+        scale = float(np.std(cand[1]))
+        for start in (w0, 1.5 * w0, 0.7 * w0):
+            for name in candidates:
+                fit = _fit_with_width(cand[1], name, cand[2], start, t_px, tip, cand[3])
+                if fit is not None and (best is None or fit[1].residual_rms < best[1].residual_rms):
+                    best, first = (name, fit[1], fit[0]), cand
+            if best is not None and best[1].residual_rms < GOOD_RELATIVE_RESIDUAL * scale:
+                break
+        if best is not None and best[1].residual_rms <= MAX_RELATIVE_RESIDUAL * float(np.std(first[1])):
             break
     if best is not None and best[1].residual_rms > MAX_RELATIVE_RESIDUAL * float(np.std(first[1])):
         best = None  # transitions missed wholesale: most often bits the pixels do not resolve

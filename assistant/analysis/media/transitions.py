@@ -135,9 +135,14 @@ def _detect(profile, *, orientation, width_px, thickness_px, tip, noise, pad, tr
     kernel = h[mid - reach:mid + reach + 1]
     # levels from the interior: the ends are where the padding's guess shows
     edge = int(min(np.ceil(2 * width_px), n // 8))
+    margin = min(width_px, n / 16)
     inner = np.abs(t[edge:n - edge]) if n > 2 * edge + 2 else np.abs(t)
     strong = float(np.max(inner)) if inner.size else 0.0
-    pos, amp = _clean(np.clip(t, -1.5 * strong, 1.5 * strong), kernel, max(5.0 * t_noise, 0.15 * strong))
+    # fade the estimate out between 2 w and w from either end: there the padding's guess shows, and the loop
+    # would spend itself on it (and its large components would set the scale that real ones are judged by)
+    x = np.arange(n, dtype=float)
+    fade = np.clip((np.minimum(x, n - 1 - x) - margin) / max(edge - margin, 1.0), 0.0, 1.0)
+    pos, amp = _clean(np.clip(t, -1.5 * strong, 1.5 * strong) * fade, kernel, max(5.0 * t_noise, 0.15 * strong))
     if pos.size == 0:
         return np.array([]), np.array([]), t
     # components of one transition (the loop takes several bites at a peak): merge those within a pixel
@@ -152,7 +157,6 @@ def _detect(profile, *, orientation, width_px, thickness_px, tip, noise, pad, tr
     gp = np.array([np.average(pos[gr], weights=np.abs(amp[gr])) for gr in groups])
     ga = np.array([amp[gr].sum() for gr in groups])
     # within about w of an end the filter sees the padding's guess, not data: nothing found there is trusted
-    margin = min(width_px, n / 16)
     inside = (gp >= margin) & (gp <= n - 1 - margin)
     gp, ga = gp[inside], ga[inside]
     if gp.size == 0:
