@@ -331,6 +331,12 @@ def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLik
         paths += _calibration_figures(session, out, notes)
         if names:
             paths += _decomposition_figures(session, out, notes, analyses)
+    if names:  # the media section reads the session file itself
+        from assistant.report.media_report import media_section
+
+        media_text, media_paths = media_section(session_path, out, notes)
+        text += media_text
+        paths += media_paths
     text += ["## Figures", ""] + [f"- {p.relative_to(out)}" for p in paths] + [""]
     if notes:
         text += ["## Notes", ""] + [f"- {n}" for n in notes] + [""]

@@ -64,13 +64,13 @@ class TrackLayout:
 
     @property
     def regularity(self) -> float:
-        """Fraction of the rows inside complete bands, less the spread (coefficient of variation) of the complete
-        tracks' widths: near 0.75-0.9 for written tracks read along them, below 0.45 for the same image read
-        across them (synthetic tracks; the across-track reading finds short, irregular bands)."""
+        """Fraction of the rows inside complete tracks, less the spread (coefficient of variation) of their
+        widths: about 0.75 for written tracks read along them, below 0.45 for the same images read across them
+        (synthetic tracks; the across-track reading finds short, irregular bands)."""
         widths = np.array([b.width for b in self.tracks if b.complete])
         if widths.size == 0:
             return -1.0
-        cover = sum(b.width for b in self.bands if b.complete) / self.activity.size
+        cover = float(widths.sum()) / self.activity.size
         return float(cover - (widths.std() / widths.mean() if widths.size > 1 else 0.0))
 
 

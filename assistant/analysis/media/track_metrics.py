@@ -30,18 +30,31 @@ def jitter_without_position_noise(dev: np.ndarray, sd: np.ndarray, dof_factor: f
     return float(np.sqrt(j2))
 
 
+def _closer_to_clock(positions: np.ndarray, grid: BitGrid | None, hint: float) -> BitGrid | None:
+    if grid is not None and abs(grid.bit_length / hint - 1) <= 0.02:
+        return grid
+    again = fit_bit_grid(positions, bit_length_hint=hint)
+    if grid is None or (again is not None and again.jitter <= grid.jitter):
+        return again
+    return grid
+
+
 def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix, shape, along_rows, skew, px_down,
                px_across, lift_m, have_tip, min_pixels_per_bit) -> TrackAnalysis:
     grids: list[BitGrid | None] = []
-    for _, f in fits:
-        grids.append(fit_bit_grid(f.positions_px[f.interior]))
+    for _, f in fits:  # cells shorter than 2 pixels cannot be resolved: no shorter grid is considered
+        grids.append(fit_bit_grid(f.positions_px[f.interior], min_bit=2.0))
     found = [g for g in grids if g is not None]
     if not found:
         return no_tracks(orient, pix, shape, "Tracks were found but no bit-cell grid fits their transitions: the "
                           "media metrics are null.")
-    hint = float(np.median([g.bit_length for g in found]))
-    grids = [fit_bit_grid(f.positions_px[f.interior], bit_length_hint=hint) if g is None or abs(
-        g.bit_length / hint - 1) > 0.1 else g for (_, f), g in zip(fits, grids)]
+    # the tracks of one image share the write clock: a track whose cell differs from it (a few transitions can
+    # fit a wrong cell) is fitted again near it, and the better grid stays
+    # the clock: the cell of the track whose profile the model explains best
+    quality = [f.residual_rms / max(float(f.noise), 1e-300) if g is not None else np.inf
+               for (_, f), g in zip(fits, grids)]
+    hint = float(grids[int(np.argmin(quality))].bit_length)
+    grids = [_closer_to_clock(f.positions_px[f.interior], g, hint) for (_, f), g in zip(fits, grids)]
     if hint < min_pixels_per_bit:
         raise_too_few(hint * px_down, px_down, min_pixels_per_bit)
     results = []
@@ -57,8 +70,12 @@ def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix,
             None if g is None else (g.phase + 0.5) * px_down, None if g is None else g.jitter * px_down,
             pos, f.positions_std_px[sel] * px_down, dev, f.signs[sel], f.width_px * px_down,
             None if g is None else g.off_grid))
-    good = [(r, g) for r, g in zip(results, grids) if g is not None and np.isfinite(g.bit_length_std)
+    # tracks whose cell still disagrees with the clock by more than 10 % (a track whose fit went wrong
+    # and placed transitions where there are none) are left out of the combined numbers, and said so
+    agree = [g is not None and abs(g.bit_length / hint - 1) <= 0.1 for g in grids]
+    good = [(r, g) for (r, g), ok in zip(zip(results, grids), agree) if ok and np.isfinite(g.bit_length_std)
             and g.bit_length_std > 0]
+    outliers = [r.index for r, ok, g in zip(results, agree, grids) if not ok and g is not None]
     if not good:
         return no_tracks(orient, pix, shape, "Tracks were found but no bit-cell grid fits their transitions: the "
                          "media metrics are null.")
@@ -80,7 +97,7 @@ def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix,
     n_off = int(sum(int(g.off_grid.sum()) for _, g in good))
     shift = np.concatenate([(f.detected_px[f.interior] - f.positions_px[f.interior]) for _, f in fits]) * px_down
     inter = float(np.sqrt(np.mean(shift**2))) if shift.size else None
-    complete = [bd for bd, _ in fits if bd.complete]
+    complete = [bd for bd in layout.tracks if bd.complete]  # every track band, with or without fitted transitions
     centres = np.array([bd.centre for bd in complete]) * px_across
     widths = np.array([bd.width for bd in complete]) * px_across
     pitch = pitch_sd = None
@@ -107,6 +124,9 @@ def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix,
     sentences.append(f"Bit length {bit * 1e9:.4g} ± {bit_sd * 1e9:.2g} nm; jitter {jitter * 1e9:.3g} nm rms about "
                      f"the grid ({raw * 1e9:.3g} nm before taking out the position noise of {pos_noise * 1e9:.2g} nm)"
                      + (f"; {n_off} transition(s) more than 30 % of a cell off the grid left out." if n_off else "."))
+    if outliers:
+        sentences.append(f"Track(s) {', '.join(str(i) for i in outliers)}: their transitions fit another cell than "
+                         "the other tracks' (a fit gone wrong); left out of the combined numbers.")
     if inter is not None:
         sentences.append(f"Neighbouring transitions pulled the detected positions by {inter * 1e9:.2g} nm rms; the "
                          "joint fit removes that interaction (exact for a linear response).")

@@ -31,7 +31,8 @@ from .transitions import TrackTransitions, fit_track_transitions
 
 __all__ = ["MediaInputError", "TooFewPixelsPerBitError", "TrackResult", "TrackAnalysis", "analyse_tracks"]
 
-TYPICAL_TIP_OFFSET_M = 30e-9  # starting value only: a point probe's effective offset (rule of thumb, no source)
+TYPICAL_TIP_OFFSET_M = 20e-9  # starting values only: a point probe's effective offset and a transition's arctan
+TYPICAL_TRANSITION_M = 10e-9  # parameter (rules of thumb, no source); three starting widths are tried anyway
 MAX_RELATIVE_RESIDUAL = 0.2  # a track model leaving more of the profile unexplained has missed transitions
 GOOD_RELATIVE_RESIDUAL = 0.05  # ... and one leaving less needs no other starting width (rules of thumb)
 CORE_FRACTION = 0.2  # half-width of the rows averaged per track, as a fraction of its width (rule of thumb)
@@ -261,7 +262,8 @@ def analyse_tracks(phase_deg, *, pixel_m, lift_m: float | None = None, thickness
         rows_idx = np.arange(img.shape[0]) - 0.5 * (img.shape[0] - 1)
         img = _fourier_shift_rows(img, -skew * rows_idx)
     tip = None if tip_transfer is None else (lambda k, f=tip_transfer, p=px_down: f(np.asarray(k) / p))
-    w0 = ((lift_m or 20e-9) + TYPICAL_TIP_OFFSET_M) / px_down
+    # starting w: lift + the arctan parameter (+ the tip's offset, unless its transfer function carries it)
+    w0 = ((lift_m or 20e-9) + TYPICAL_TRANSITION_M + (0.0 if tip_transfer is not None else TYPICAL_TIP_OFFSET_M)) / px_down
     t_px = None if thickness_m is None else float(thickness_m) / px_down
     tracks_bands = [b for b in layout.tracks]
     profiles = []
@@ -305,6 +307,16 @@ def analyse_tracks(phase_deg, *, pixel_m, lift_m: float | None = None, thickness
             f = fit_track_transitions(prof, orientation=model_orientation, noise=nz, width_px=shaped.width_px,
                                       thickness_px=shaped.thickness_px, fit_shape=False, tip_transfer=tip,
                                       **_geometry(geom))
+            scale = float(np.std(prof))
+            if f is None or f.residual_rms > GOOD_RELATIVE_RESIDUAL * scale:
+                # a poor fit has missed transitions (or taken a lobe for one): seed again from other widths and
+                # let the shape move; the best fit stays
+                for start in (1.5 * shaped.width_px, 0.7 * shaped.width_px, shaped.width_px):
+                    g = fit_track_transitions(prof, orientation=model_orientation, noise=nz, width_px=start,
+                                              thickness_px=shaped.thickness_px, fit_thickness=t_px is None,
+                                              tip_transfer=tip, **_geometry(geom))
+                    if g is not None and (f is None or g.residual_rms < f.residual_rms):
+                        f = g
         if f is not None:
             fits.append((b, f))
     from .track_metrics import summarise
