@@ -7,8 +7,6 @@ bits, 600 nm pitch, 4 nm jitter, is what the metrics must find)."""
 from __future__ import annotations
 
 import json
-from pathlib import Path
-
 import numpy as np
 import pytest
 
@@ -29,7 +27,7 @@ def test_json_contract_on_synthetic_tracks(tmp_path, capsys):
     im = track_image(orientation="in-plane", seed=41, rows=192)
     path = tmp_path / "tracks.npz"
     np.savez(path, phase_deg=im.phase_deg, pixel_nm=im.pixel_m * 1e9, lift_nm=im.lift_m * 1e9)
-    code, out, err = run(capsys, "analyze", "image", str(path), "--json", "--plots", str(tmp_path / "fig"))
+    code, out, err = run(capsys, "analyze", "image", str(path), "--json")
     assert code == 0, err
     d = json.loads(out)
     assert all(k in d for k in KEYS)
@@ -37,7 +35,6 @@ def test_json_contract_on_synthetic_tracks(tmp_path, capsys):
     assert d["bit_length_nm"] == pytest.approx(80.0, rel=0.02)
     assert d["track_pitch_nm"] == pytest.approx(500.0, rel=0.03)
     assert d["image"]["lift_nm"] == pytest.approx(20.0)
-    assert sorted(Path(p).name for p in d["figures"]) == ["media_jitter_histogram.png", "media_transition_map.png"]
     code, out, _ = run(capsys, "analyze", "image", str(path))  # the text form
     assert code == 0 and "bit length:" in out and "jitter:" in out
 
@@ -93,9 +90,10 @@ def stage_session(tmp_path_factory):
         try:
             wf.calibrate(CalibrationSettings(temperature_k=298.15, thermal_seconds=0.5))
             wf.approach()
-            # 1.8 um, 11.7 nm along the lines (8.5 px per bit), three heights at the contact potential
-            wf.series(SeriesSettings(heights_m=(15e-9, 25e-9, 40e-9), bias_v=0.25, lines=72, pixels=154,
-                                     scan_size_m=1.8e-6))
+            # 1.6 um, 12.5 nm along the lines (8 px per bit), 25 nm between lines (the 40 nm erase bands and
+            # the old data between tracks need them), three heights at the contact potential
+            wf.series(SeriesSettings(heights_m=(15e-9, 25e-9, 40e-9), bias_v=0.25, lines=64, pixels=128,
+                                     scan_size_m=1.6e-6))
             wf.analyse()
         finally:
             wf.close()
@@ -113,3 +111,16 @@ def test_session_file_on_the_recorded_tracks_scenario(stage_session, capsys):
     assert "series 'series1'" in d["image"]["source"]
     code, _, err = run(capsys, "analyze", "image", str(stage_session), "--height-nm", "33")
     assert code == 2 and "no height 33 nm" in err
+
+
+def test_report_media_section(stage_session, tmp_path):
+    # the section build_report adds: its text and both figures (the whole report of a run is checked in
+    # tests/cli/test_run_e2e.py)
+    from assistant.report.media_report import media_section
+
+    notes = []
+    lines, paths = media_section(stage_session, tmp_path, notes)
+    text = "\n".join(lines)
+    assert not notes and "## Media: orientation and recorded tracks" in text and "| bit length |" in text
+    assert sorted(p.name for p in paths) == ["media_jitter_histogram.png", "media_transition_map.png"]
+    assert all(p.stat().st_size > 10_000 for p in paths)
