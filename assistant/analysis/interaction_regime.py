@@ -307,8 +307,9 @@ def classify_interaction(analysis, phase_deg=None, *, repeat_phase_deg=None, spr
         else:
             res = f"the continuation residual is above noise at every height (up to {np.nanmax(ratio):.2g} x)"
         rep = "the repeat matches the first pass" if repeat_checked else "no repeat pass was made"
+        unseen = "; not checked: " + "; ".join(notes) if notes else ""
         evidence = (f"Negligible: {res}, no attraction independent of the domain polarity above "
-                    f"{reversible_fraction:.0%} of the magnetic contrast is seen ({largest}), and {rep}.")
+                    f"{reversible_fraction:.0%} of the magnetic contrast is seen ({largest}), and {rep}{unseen}.")
     return InteractionRegime(regime, evidence, h, negligible_at, lowest, even_mean, even_mean_sd, even_lat,
                              even_lat_sd, ratio, repeat_checked, tip, tuple(notes))
 

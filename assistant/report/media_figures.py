@@ -3,7 +3,8 @@
 The transition map shows the phase image on the report's phase scale (dark = attractive) with each track's
 written edges (dashed) and every placed transition as a short bar across the track's core, coloured by its
 deviation from the track's bit-cell grid on a magenta-green scale that cannot be confused with the phase
-colours; thin grey ticks above each track mark the grid. The histogram pools the deviations of all tracks and
+colours (the bar spans the rows averaged into the track's profile); thin grey ticks above each track mark its
+grid. The histogram pools the deviations of all tracks and
 draws the normal density of the reported jitter over them.
 """
 
@@ -45,8 +46,11 @@ def transition_map_figure(phase_deg: np.ndarray, result, *, title: str = "Transi
     along_rows = result.tracks_along_rows
     for t in result.tracks:
         lo, hi = t.edges_m
-        centre = t.centre_m if t.centre_m is not None else np.nanmean([e for e in (lo, hi) if e is not None])
-        half = 0.3 * (t.width_m if t.width_m is not None else 0.2e-6)
+        if t.core_m is not None:  # the rows averaged into the track's profile
+            centre, half = t.core_m
+        else:
+            centre = t.centre_m if t.centre_m is not None else np.nanmean([e for e in (lo, hi) if e is not None])
+            half = 0.2 * (t.width_m if t.width_m is not None else 0.2e-6)
         for e in (lo, hi):
             if e is not None:
                 _line(ax, along_rows, e * 1e6, (x0, x1) if along_rows else (y0, y1), color="0.15", lw=0.8, ls="--")

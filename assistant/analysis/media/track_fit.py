@@ -32,11 +32,13 @@ def analyse_along(u: np.ndarray, layout: TrackLayout, axis: int, *, pix, noise, 
     t_px = None if thickness_m is None else float(thickness_m) / px_down
     tracks_bands = [b for b in layout.tracks]
     profiles = []
+    cores: dict[int, tuple[float, float]] = {}  # per band: centre and half-width of the averaged rows [rows]
     for b in tracks_bands:
         core = _core_rows(b, img.shape[0])
         # the track's width and the core's half-width, in down-track pixels, for the finite-track response
         geom = None if b.width is None else (b.width * px_across / px_down, 0.5 * core.size * px_across / px_down)
         profiles.append((b, img[core].mean(axis=0), noise / np.sqrt(core.size), geom))
+        cores[id(b)] = (0.5 * (core[0] + core[-1]), 0.5 * (core[-1] - core[0] + 1))
     # orientation of the transition model: the image's verdict, else the better fit on the first track
     candidates = ([orient.orientation] if orient.orientation != "undetermined" else ["out-of-plane", "in-plane"])
     # the shape is fitted on the strongest complete track that yields a good fit (then held for the others);
@@ -51,8 +53,8 @@ def analyse_along(u: np.ndarray, layout: TrackLayout, axis: int, *, pix, noise, 
                     best, first = (name, fit[1], fit[0]), cand
             if best is not None and best[1].residual_rms < GOOD_RELATIVE_RESIDUAL * scale:
                 break
-        if best is not None and best[1].residual_rms <= MAX_RELATIVE_RESIDUAL * float(np.std(first[1])):
-            break
+        if best is not None and best[1].residual_rms < GOOD_RELATIVE_RESIDUAL * float(np.std(first[1])):
+            break  # a fit this good needs no other track (a merely acceptable one does: it may be a wrong shape)
     if best is not None and best[1].residual_rms > MAX_RELATIVE_RESIDUAL * float(np.std(first[1])):
         best = None  # transitions missed wholesale: most often bits the pixels do not resolve
     if best is None:
@@ -88,7 +90,8 @@ def analyse_along(u: np.ndarray, layout: TrackLayout, axis: int, *, pix, noise, 
     from .track_metrics import summarise
 
     return summarise(orient, model_orientation, orient.orientation == "undetermined", layout, fits, pix, u.shape,
-                     axis == 1, skew, px_down, px_across, lift_m, tip_transfer is not None, min_pixels_per_bit)
+                     axis == 1, skew, px_down, px_across, lift_m, tip_transfer is not None, min_pixels_per_bit,
+                     cores)
 
 
 

@@ -40,7 +40,7 @@ def _closer_to_clock(positions: np.ndarray, grid: BitGrid | None, hint: float) -
 
 
 def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix, shape, along_rows, skew, px_down,
-               px_across, lift_m, have_tip, min_pixels_per_bit) -> TrackAnalysis:
+               px_across, lift_m, have_tip, min_pixels_per_bit, cores=None) -> TrackAnalysis:
     grids: list[BitGrid | None] = []
     for _, f in fits:  # cells shorter than 2 pixels cannot be resolved: no shorter grid is considered
         grids.append(fit_bit_grid(f.positions_px[f.interior], min_bit=2.0))
@@ -57,11 +57,15 @@ def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix,
     grids = [_closer_to_clock(f.positions_px[f.interior], g, hint) for (_, f), g in zip(fits, grids)]
     if hint < min_pixels_per_bit:
         raise_too_few(hint * px_down, px_down, min_pixels_per_bit)
+    # tracks whose cell still disagrees with the clock by more than 10 % (a track whose fit went wrong
+    # and placed transitions where there are none) are left out of the combined numbers, and said so; their
+    # deviations are not shown as such
+    agree = [g is not None and abs(g.bit_length / hint - 1) <= 0.1 for g in grids]
     results = []
     for i, ((band, f), g) in enumerate(zip(fits, grids)):
         sel = f.interior
         pos = (f.positions_px[sel] + 0.5) * px_down
-        dev = g.deviations * px_down if g is not None else np.full(pos.size, np.nan)
+        dev = g.deviations * px_down if g is not None and agree[i] else np.full(pos.size, np.nan)
         centre = None if band.centre is None else (band.centre + 0.5) * px_across
         edges = tuple(None if e is None else (e + 0.5) * px_across for e in (band.lower, band.upper))
         results.append(TrackResult(
@@ -69,10 +73,9 @@ def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix,
             None if g is None else g.bit_length * px_down, None if g is None else g.bit_length_std * px_down,
             None if g is None else (g.phase + 0.5) * px_down, None if g is None else g.jitter * px_down,
             pos, f.positions_std_px[sel] * px_down, dev, f.signs[sel], f.width_px * px_down,
-            None if g is None else g.off_grid))
-    # tracks whose cell still disagrees with the clock by more than 10 % (a track whose fit went wrong
-    # and placed transitions where there are none) are left out of the combined numbers, and said so
-    agree = [g is not None and abs(g.bit_length / hint - 1) <= 0.1 for g in grids]
+            None if g is None else g.off_grid,
+            None if not cores or id(band) not in cores else ((cores[id(band)][0] + 0.5) * px_across,
+                                                               cores[id(band)][1] * px_across)))
     good = [(r, g) for (r, g), ok in zip(zip(results, grids), agree) if ok and np.isfinite(g.bit_length_std)
             and g.bit_length_std > 0]
     outliers = [r.index for r, ok, g in zip(results, agree, grids) if not ok and g is not None]
@@ -95,7 +98,8 @@ def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix,
     jitter = jitter_without_position_noise(dev_all, sd_all, dof_factor)
     pos_noise = float(np.sqrt(np.mean(sd_all**2))) if sd_all.size else 0.0
     n_off = int(sum(int(g.off_grid.sum()) for _, g in good))
-    shift = np.concatenate([(f.detected_px[f.interior] - f.positions_px[f.interior]) for _, f in fits]) * px_down
+    shift = np.concatenate([(f.detected_px[f.interior] - f.positions_px[f.interior])
+                            for (_, f), ok in zip(fits, agree) if ok]) * px_down
     inter = float(np.sqrt(np.mean(shift**2))) if shift.size else None
     complete = [bd for bd in layout.tracks if bd.complete]  # every track band, with or without fitted transitions
     centres = np.array([bd.centre for bd in complete]) * px_across
@@ -108,8 +112,11 @@ def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix,
     width = float(widths.mean()) if widths.size else None
     width_sd = float(widths.std(ddof=1) / np.sqrt(widths.size)) if widths.size > 1 else None
     erase = float(np.mean(layout.erase_bands_px)) * px_across if layout.erase_bands_px else None
-    # the shape was fitted on one track (the others hold it): its w, a and standard errors
-    shaped = max((f for _, f in fits), key=lambda f: f.width_std_px)
+    # the shape was fitted on one track (the others hold it, unless their own fit had to move it): w and its
+    # standard error from a freely shaped track whose grid agrees with the clock
+    free = [f for (_, f), ok in zip(fits, agree) if ok and f.width_std_px > 0]
+    shaped = min(free, key=lambda f: f.width_std_px) if free else max((f for _, f in fits),
+                                                                       key=lambda f: f.width_std_px)
     w_m = shaped.width_px * px_down
     a, a_sd = shaped.along_px, shaped.along_std_px
     separated = (a is not None and a_sd is not None and np.isfinite(a_sd) and a > 2 * a_sd

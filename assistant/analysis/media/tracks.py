@@ -69,6 +69,7 @@ class TrackResult:
     signs: np.ndarray
     fitted_width_m: float | None
     off_grid: np.ndarray | None = None   # more than 30 % of a cell from the grid: not jitter, left out of it
+    core_m: tuple[float, float] | None = None  # centre and half-width of the rows averaged for the profile
 
     def to_dict(self) -> dict:
         def nm(v):
