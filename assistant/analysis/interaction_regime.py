@@ -9,7 +9,8 @@ the three regimes the trade distinguishes applies, with one sentence of evidence
   difference holds no magnetic contrast, and the electrostatic one is smooth): the decomposition's own
   estimate, from the highest spatial frequencies of the top image, reads magnetic content as noise when
   the lines are coarse (on 150 nm lines it read 1.0 deg for a true 0.05 deg and hid a change over 87 % of
-  a low-coercivity film).
+  a low-coercivity film). At that finer noise each line's sub-pixel position error between the two passes is
+  taken out first (a fitted shift along the line), or sharp contrast reads as a change.
 * **reversible**: the repeat matches, but the images carry an attraction that does not follow the domain
   polarity. Two routes can show it:
 
