@@ -30,10 +30,10 @@ from .track_layout import find_tracks
 
 __all__ = ["MediaInputError", "TooFewPixelsPerBitError", "TrackResult", "TrackAnalysis", "analyse_tracks"]
 
-TYPICAL_TIP_OFFSET_M = 20e-9  # starting values only: a point probe's effective offset and a transition's arctan
+TYPICAL_TIP_OFFSET_M = 30e-9  # starting values only: a point probe's effective offset and a transition's arctan
 TYPICAL_TRANSITION_M = 10e-9  # parameter (rules of thumb, no source); three starting widths are tried anyway
 MAX_RELATIVE_RESIDUAL = 0.2  # a track model leaving more of the profile unexplained has missed transitions
-GOOD_RELATIVE_RESIDUAL = 0.05  # ... and one leaving less needs no other starting width (rules of thumb)
+GOOD_RELATIVE_RESIDUAL = 0.08  # ... and one leaving less needs no other starting width (rules of thumb)
 CORE_FRACTION = 0.2  # half-width of the rows averaged per track, as a fraction of its width (rule of thumb)
 
 
