@@ -5,6 +5,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from assistant.cli._common import UsageError, emit_json, emit_text
+from assistant.formatting import number, quantity
 
 
 def run(args) -> int:
@@ -13,7 +14,7 @@ def run(args) -> int:
     for name in ("thickness_nm", "tip_offset_nm", "height_nm"):
         value = getattr(args, name)
         if value is not None and not value >= 0:
-            raise UsageError(f"--{name.replace('_', '-')} must be >= 0, got {value:g}")
+            raise UsageError(f"--{name.replace('_', '-')} must be >= 0 nm, got {quantity(value, 'nm')}")
     image = load_image(args.file, series=args.series, height_nm=args.height_nm)
     result = analyse_image(image, thickness_m=None if args.thickness_nm is None else args.thickness_nm * 1e-9,
                            tip_offset_m=None if args.tip_offset_nm is None else args.tip_offset_nm * 1e-9)
@@ -35,20 +36,17 @@ def run(args) -> int:
 
 
 def _text(d: dict, result) -> list[str]:
-    lines = [f"image: {d['image']['source']}",
-             f"orientation: {d['orientation']} (confidence {d['orientation_confidence']:.2f})"]
-    if not result.has_tracks:
-        return lines + [d["summary"]]
+    from assistant.report.media_report import track_rows
+    from assistant.report.results import render_block
 
-    def nm(key, std=None):
-        v, s = d[key], d.get(std) if std else None
-        return "not measured" if v is None else (f"{v:.4g} ± {s:.2g} nm" if s else f"{v:.4g} nm")
-    lines += [f"bit length:       {nm('bit_length_nm', 'bit_length_std_nm')}",
-              f"track pitch:      {nm('track_pitch_nm', 'track_pitch_std_nm')}",
-              f"track width:      {nm('track_width_nm', 'track_width_std_nm')}",
-              f"jitter:           {nm('transition_jitter_nm')} rms about the bit-cell grid",
-              f"transition width: {nm('transition_width_nm', 'transition_width_std_nm')}"
-              + (" (upper bound, includes the tip)" if d["transition_width_includes_tip"] else ""),
-              f"erase band:       {nm('erase_band_nm')}",
-              f"tracks: {len(d['tracks'])}, transitions: {len(d['transitions'])}"]
-    return lines + list(result.sentences)
+    pairs = [("image", d["image"]["source"]),
+             ("orientation", f"{d['orientation']} (confidence {number(d['orientation_confidence'], digits=2)})")]
+    if not result.has_tracks:
+        return render_block(pairs, markdown=False) + [d["summary"]]
+    rows = dict(track_rows(d))
+    pairs += [("bit length", rows["bit length"]), ("track pitch", rows["track pitch"]),
+              ("track width", rows["written track width"]),
+              ("jitter", rows["transition jitter (rms about the bit-cell grid)"] + " rms about the bit-cell grid"),
+              ("transition width", rows["transition width (arctan parameter)"]), ("erase band", rows["erase band"]),
+              ("tracks, transitions", rows["tracks, transitions"])]
+    return render_block(pairs, markdown=False) + list(result.sentences)

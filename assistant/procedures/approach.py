@@ -8,12 +8,13 @@ from __future__ import annotations
 import time
 from dataclasses import dataclass, field
 
+from assistant.errors import AssistantError
 from assistant.procedures.events import CancelToken, Notice, Progress, Sink, null_sink
 from assistant.procedures.guard import SafetyLimits, safety_guard
 from drivers.base import Capability
 
 
-class NoSurfaceFound(RuntimeError):
+class NoSurfaceFound(AssistantError, RuntimeError):
     """The allowed coarse travel was used up without the amplitude reaching the setpoint."""
 
 
@@ -108,6 +109,8 @@ def approach(controller, settings: ApproachSettings, *, limits: SafetyLimits | N
         result.z_m = z
         result.coarse_position_m = status.coarse_position_m
         result.coarse_travel_m = status.coarse_position_m - start
-        sink(Notice("info", f"engaged: Z extension {z * 1e6:.2f} µm of {z_range * 1e6:.1f} µm, "
-                            f"amplitude {amp * 1e3:.1f} mV (setpoint {settings.setpoint_v * 1e3:.1f} mV)"))
+        from assistant.formatting import quantity
+
+        sink(Notice("info", f"engaged: Z extension {quantity(z, 'm')} of {quantity(z_range, 'm')}, amplitude "
+                            f"{quantity(amp, 'V')} (setpoint {quantity(settings.setpoint_v, 'V')})"))
     return result

@@ -11,6 +11,8 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
 
+from assistant.errors import AssistantError
+
 
 @dataclass(frozen=True)
 class Progress:
@@ -27,10 +29,13 @@ class Progress:
 
 @dataclass(frozen=True)
 class Notice:
-    """A message for the user: level is "info", "warning" or "error"."""
+    """A message for the user: level is "info", "warning" or "error". ``kind`` marks a notice a renderer may
+    shorten: "stopped" is the safety guard's report that it made the stage safe after an error (whose text the
+    caller reports anyway)."""
 
     level: str
     text: str
+    kind: str = ""
 
 
 Event = Progress | Notice
@@ -41,7 +46,7 @@ def null_sink(event: Event) -> None:
     """A sink that discards everything."""
 
 
-class Cancelled(Exception):
+class Cancelled(AssistantError):
     """Raised inside a procedure when its cancel token was set."""
 
 

@@ -15,14 +15,15 @@ from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
 
+from assistant.errors import AssistantError
 from assistant.procedures.events import Notice, Sink, null_sink
 
 
-class SafetyError(RuntimeError):
+class SafetyError(AssistantError, RuntimeError):
     """A software safety limit would be crossed (the message names quantity, value and limit)."""
 
 
-class LimitsFileError(ValueError):
+class LimitsFileError(AssistantError, ValueError):
     """The limits file is unreadable or names an unknown key or an impossible value."""
 
 
@@ -105,7 +106,8 @@ def safety_guard(controller, *, sink: Sink = null_sink, save: Callable[[], None]
         except BaseException as safe_exc:  # the link may be gone: say so loudly, then carry on with the save
             sink(Notice("error", f"could not confirm a safe stage ({safe_exc}); check the instrument by hand"))
         else:
-            sink(Notice("warning", f"stopped ({type(exc).__name__}: {exc}); tip withdrawn, drive off, bias 0 V"))
+            sink(Notice("warning", f"stopped ({type(exc).__name__}: {exc}); tip withdrawn, drive off, bias 0 V",
+                        kind="stopped"))
         if save is not None:
             try:
                 save()

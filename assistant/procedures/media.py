@@ -14,13 +14,16 @@ from pathlib import Path
 
 import numpy as np
 
+from assistant.errors import InputError
+from assistant.formatting import number_list, quantity
+
 __all__ = ["MediaImageError", "StoredImage", "load_image", "analyse_image"]
 
 NPZ_REQUIRED = ("phase_deg", "pixel_nm")
 NPZ_OPTIONAL = ("lift_nm",)
 
 
-class MediaImageError(ValueError):
+class MediaImageError(InputError):
     """The file holds no usable image (missing keys, wrong shape, no such series or height)."""
 
 
@@ -92,14 +95,14 @@ def _from_session(path: Path, series: str | None, height_nm: float | None) -> St
     if height_nm is not None:
         i = int(np.argmin(np.abs(h * 1e9 - height_nm)))
         if abs(h[i] * 1e9 - height_nm) > 1e-3 * max(height_nm, 1.0):
-            raise MediaImageError(f"{path}: no height {height_nm:g} nm in series {name!r} (have: "
-                                  f"{', '.join(f'{x * 1e9:g}' for x in h)} nm)")
+            raise MediaImageError(f"{path}: no height {quantity(height_nm, 'nm')} in series {name!r} (have: "
+                                  f"{number_list(np.round(h * 1e9, 6), 'nm')})")
         why = "as asked"
     else:
         i, why = _chosen_height(h, stored)
     pixel = (data.scan_size_m / data.lines, data.scan_size_m / data.pixels)
-    bias = "" if data.biases_v is None else f", tip bias {data.biases_v[b]:+.3g} V"
-    source = f"{path.name}, series {name!r} at {h[i] * 1e9:.4g} nm ({why}){bias}, {lines} lines"
+    bias = "" if data.biases_v is None else f", tip bias {quantity(data.biases_v[b], 'V', digits=3)}"
+    source = f"{path.name}, series {name!r} at {quantity(h[i], 'm')} ({why}){bias}, {lines} lines"
     return StoredImage(phase[i, :lines], pixel, float(h[i]), source, phase[:, :lines], h)
 
 

@@ -14,14 +14,16 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
+from assistant.errors import AssistantError
 from assistant.procedures.events import CancelToken, Notice, Progress, Sink, null_sink
 from assistant.procedures.guard import SafetyLimits, safety_guard
 from drivers.base import Capability, LineData, LineSpec, PassData, SecondPass
+from drivers.errors import ProtocolError
 
 DEFAULT_HEIGHTS_M = (10e-9, 15e-9, 20e-9, 30e-9, 50e-9, 75e-9, 100e-9)
 
 
-class SeriesSettingsError(ValueError):
+class SeriesSettingsError(AssistantError, ValueError):
     """The series settings are inconsistent or outside a limit."""
 
 
@@ -45,7 +47,7 @@ class SeriesSettings:
     @property
     def order(self) -> str:
         rep = ", repeat of the first height" if self.repeat_first else ""
-        bias = " x every bias" if self.biases_v else ""
+        bias = " × every bias" if self.biases_v else ""
         return f"per line: topography, then each height in increasing order{bias}{rep}"
 
     @property
@@ -68,7 +70,7 @@ class SeriesSettings:
         if h.size < 1:
             raise SeriesSettingsError("at least one lift height is needed")
         if not np.all(np.isfinite(h)) or np.any(h <= 0):
-            raise SeriesSettingsError(f"lift heights must be positive, got {[f'{x * 1e9:g}' for x in h]} nm")
+            raise SeriesSettingsError(f"lift heights must be positive, got {', '.join(f'{x * 1e9:g}' for x in h)} nm")
         if np.any(np.diff(h) <= 0):
             raise SeriesSettingsError("lift heights must be strictly increasing")
         top = min(limits.lift_height_max_m, z_range_m / 2 if z_range_m else math.inf)
@@ -82,9 +84,9 @@ class SeriesSettings:
             if len(set(self.biases_v)) != len(self.biases_v):
                 raise SeriesSettingsError("biases must be distinct")
         if self.pixels < 8:
-            raise SeriesSettingsError(f"pixels = {self.pixels} is below the minimum of 8")
+            raise SeriesSettingsError(f"{self.pixels} pixels per line is below the minimum of 8")
         if self.lines < 8:  # the decomposition needs images of at least 8 x 8
-            raise SeriesSettingsError(f"lines = {self.lines} is below the minimum of 8")
+            raise SeriesSettingsError(f"{self.lines} scan lines is below the minimum of 8")
         if not self.scan_size_m > 0:
             raise SeriesSettingsError(f"scan size {self.scan_size_m * 1e6:g} µm must be positive")
         if scan_size_max_m is not None and self.scan_size_m > scan_size_max_m:
@@ -93,12 +95,17 @@ class SeriesSettings:
         if not self.line_rate_hz > 0:
             raise SeriesSettingsError(f"line rate {self.line_rate_hz:g} Hz must be positive")
 
+    def to_dict(self) -> dict:
+        """Every field, as stored in the session file (JSON types)."""
+        return asdict(self)
+
     def to_json(self) -> str:
-        return json.dumps(asdict(self))
+        return json.dumps(self.to_dict())
 
     @classmethod
-    def from_json(cls, text: str) -> "SeriesSettings":
-        d = json.loads(text)
+    def from_dict(cls, d: dict) -> "SeriesSettings":
+        """The settings :meth:`to_dict` gave (lists become tuples again)."""
+        d = dict(d)
         d["heights_m"] = tuple(d["heights_m"])
         if d.get("biases_v") is not None:
             d["biases_v"] = tuple(d["biases_v"])
@@ -166,7 +173,7 @@ def _arrange(settings: SeriesSettings, data: LineData) -> tuple[np.ndarray, np.n
     nh = len(settings.heights_m)
     expected = nh * nb + (1 if settings.repeat_first else 0)
     if len(data.passes) != expected:
-        raise RuntimeError(f"controller returned {len(data.passes)} second passes, expected {expected}")
+        raise ProtocolError(f"controller returned {len(data.passes)} second passes, expected {expected}")
     ref = settings.phase_reference_deg
     phase = np.array([p.phase_deg for p in data.passes[: nh * nb]], dtype=float) - ref
     amp = np.array([p.amplitude_v for p in data.passes[: nh * nb]], dtype=float)

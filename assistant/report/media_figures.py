@@ -18,7 +18,9 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.colors import Normalize
 from matplotlib.figure import Figure
 
-from assistant.report.images import phase_colormap, save_png, shared_phase_limit
+from assistant.formatting import quantity
+from assistant.report.colours import symmetric_limit
+from assistant.report.images import phase_colormap, save_png
 
 __all__ = ["transition_map_figure", "jitter_histogram_figure", "write_media_figures"]
 
@@ -35,7 +37,7 @@ def transition_map_figure(phase_deg: np.ndarray, result, *, title: str = "Transi
     fig = Figure(figsize=(7.6, 5.6), layout="constrained")
     FigureCanvasAgg(fig)
     ax = fig.add_subplot()
-    lim = shared_phase_limit([img])
+    lim = symmetric_limit(img)
     im = ax.imshow(img, origin="lower", extent=(x0, x1, y0, y1), cmap=phase_colormap(), vmin=-lim, vmax=lim,
                    interpolation="nearest")
     fig.colorbar(im, ax=ax, label="phase (deg), dark = attractive", shrink=0.8, extend="both")
@@ -111,14 +113,14 @@ def jitter_histogram_figure(result, *, title: str = "Transition jitter") -> Figu
         if jit > 0:
             density = np.exp(-0.5 * (x / jit) ** 2) / (jit * np.sqrt(2 * np.pi))
             ax.plot(x, density * devs.size * (bins[1] - bins[0]), color="#1b7837", lw=2,
-                    label=f"normal, jitter {jit:.3g} nm rms")
+                    label=f"normal, jitter {quantity(jit, 'nm', digits=3)} rms")
         ax.legend(loc="upper right", fontsize=9)
     else:
         ax.text(0.5, 0.5, "no transitions on a grid", ha="center", va="center", transform=ax.transAxes)
     ax.set_xlabel("deviation from the bit-cell grid (nm)")
     ax.set_ylabel("transitions")
     bl = result.bit_length_m
-    ax.set_title(title + (f" (bit length {bl * 1e9:.4g} nm)" if bl else ""))
+    ax.set_title(title + (f" (bit length {quantity(bl, 'm')})" if bl else ""))
     return fig
 
 

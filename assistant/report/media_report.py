@@ -4,35 +4,40 @@ from __future__ import annotations
 
 from pathlib import Path
 
-__all__ = ["media_lines", "media_section"]
+from assistant.formatting import number, quantity
+
+__all__ = ["media_lines", "media_section", "track_rows"]
+
+
+def track_rows(d: dict) -> list[tuple[str, str]]:
+    """(quantity, value) rows of the track metrics of an analysed image's dictionary (``TrackAnalysis.to_dict``),
+    numbers with their units and uncertainties; shared by ``summary.md`` and ``mfma analyze image``."""
+    def nm(key, std=None, digits=4):
+        return quantity(d[key], "nm", d.get(std) if std else None, digits=digits) if d[key] is not None \
+            else "not measured"
+    width = nm("transition_width_nm", "transition_width_std_nm", 3)
+    if d["transition_width_includes_tip"] and d["transition_width_nm"] is not None:
+        width += " (upper bound: includes the tip)"
+    return [("bit length", nm("bit_length_nm", "bit_length_std_nm")),
+            ("track pitch", nm("track_pitch_nm", "track_pitch_std_nm")),
+            ("written track width", nm("track_width_nm", "track_width_std_nm")),
+            ("transition jitter (rms about the bit-cell grid)", nm("transition_jitter_nm", digits=3)),
+            ("transition width (arctan parameter)", width),
+            ("erase band", nm("erase_band_nm", digits=3)),
+            ("tracks, transitions", f"{len(d['tracks'])}, {len(d['transitions'])}")]
 
 
 def media_lines(result, source: str) -> list[str]:
     """Markdown lines for one analysed image."""
     d = result.to_dict()
-    conf = d["orientation_confidence"]
     out = [f"Image: {source}.", "",
-           f"- magnetisation orientation: **{d['orientation']}** (confidence {conf:.2f})"]
+           f"- magnetisation orientation: **{d['orientation']}** (confidence "
+           f"{number(d['orientation_confidence'], digits=2)})"]
     out += [f"  - {e}" for e in d["orientation_evidence"]]
     if not result.has_tracks:
         return out + [f"- recorded tracks: none. {d['summary']}", ""]
-
-    def nm(key, std=None, digits=4):
-        v = d[key]
-        if v is None:
-            return "not measured"
-        s = d.get(std) if std else None
-        return f"{v:.{digits}g} ± {s:.2g} nm" if s else f"{v:.{digits}g} nm"
-    out += ["", "| quantity | value |", "|---|---|",
-            f"| bit length | {nm('bit_length_nm', 'bit_length_std_nm')} |",
-            f"| track pitch | {nm('track_pitch_nm', 'track_pitch_std_nm')} |",
-            f"| written track width | {nm('track_width_nm', 'track_width_std_nm')} |",
-            f"| transition jitter (rms about the grid) | {nm('transition_jitter_nm', digits=3)} |",
-            f"| transition width (arctan parameter) | {nm('transition_width_nm', 'transition_width_std_nm', 3)}"
-            + (" (upper bound: includes the tip)" if d["transition_width_includes_tip"] else "") + " |",
-            f"| erase band | {nm('erase_band_nm', digits=3)} |",
-            f"| tracks, transitions | {len(d['tracks'])}, {len(d['transitions'])} |", ""]
-    out += [f"- {s}" for s in result.sentences] + [""]
+    out += ["", "| quantity | value |", "|---|---|"] + [f"| {name} | {value} |" for name, value in track_rows(d)]
+    out += [""] + [f"- {s}" for s in result.sentences] + [""]
     return out
 
 

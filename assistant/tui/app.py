@@ -2,8 +2,9 @@
 always pulls the tip back.
 
 Thin by design: every step is a :class:`assistant.procedures.workflow.Workflow` method (the same code path as
-``mfma run``), run in a thread worker; its events reach the UI thread as messages. The controller is shared by
-the running step, the status poller and the withdraw key through :class:`SerialisedController`.
+``mfma run``), run in a thread worker (:mod:`assistant.tui.steps`); its events reach the UI thread as messages.
+The controller is shared by the running step, the status poller and the withdraw key through
+:class:`SerialisedController`. This module is the app itself: layout, messages, status line and keys.
 """
 
 from __future__ import annotations
@@ -11,20 +12,22 @@ from __future__ import annotations
 import threading
 from pathlib import Path
 
-from textual import work
+from textual import on
 from textual.app import App
 from textual.binding import Binding
-from textual.widgets import Footer, Static, TabbedContent, TabPane
+from textual.containers import Horizontal
+from textual.widgets import Button, Footer, Static, TabbedContent, TabPane
 
-from assistant.procedures.events import Cancelled, CancelToken, Notice
-from assistant.procedures.workflow import calibration_scalars
+from assistant.errors import InputError
+from assistant.formatting import quantity
+from assistant.procedures.events import Cancelled, Notice
 from assistant.tui.bridge import (MessageSink, ProcedureEvent, SerialisedController, StatusChanged, StepFinished,
                                   WithdrawDone)
-from assistant.tui.screens import ConfirmQuit, HelpScreen
+from assistant.tui.screens import WITHDRAW_KEY, ConfirmQuit, HelpScreen
 from assistant.tui.session_view import load_session
+from assistant.tui.steps import StepRunner
 from assistant.tui.view_analysis import AnalysisView
 from assistant.tui.view_approach import ApproachView
-from assistant.tui.view_base import FieldError
 from assistant.tui.view_log import LogView
 from assistant.tui.view_probe import ProbeView
 from assistant.tui.view_resonance import ResonanceView
@@ -35,23 +38,26 @@ VIEWS = (("probe", "Probe", ProbeView), ("resonance", "Resonance", ResonanceView
          ("analysis", "Analysis", AnalysisView), ("log", "Log", LogView))
 
 
-class MfmApp(App[int]):
+class MfmApp(StepRunner, App[int]):
     """``MfmApp(controller, session_path=...)`` for a live session; ``MfmApp(None, open_path=...)`` to view a
     session file. ``probe_record`` is a :class:`ProbeRecord` (default: the user's)."""
 
     TITLE = "mfm-assistant"
     CSS = """
-    #status { height: 2; padding: 0 1; background: $boost; }
+    #status-bar { height: 2; background: $boost; }
+    #status { height: 2; width: 1fr; padding: 0 1; }
+    #withdraw-button { height: 2; min-width: 12; border: none; margin: 0; text-style: bold; }
     TabbedContent { height: 1fr; }
     TabPane { padding: 0 1; }
     .buttons { height: 1; margin: 0 0 1 0; }
     .buttons Button { height: 1; min-width: 10; border: none; margin: 0 1 0 0; }
     """
     BINDINGS = [
-        Binding("ctrl+w", "withdraw", "WITHDRAW", priority=True),
-        Binding("w", "withdraw", "withdraw", show=False),
+        # The withdraw key works in every view and also while typing in a field (priority): a control chord that
+        # terminals send as one ASCII code, that no browser reserves (unlike ctrl+w, which closes a browser tab)
+        # and that no field uses for editing; the Withdraw button in the status bar does the same.
+        Binding(WITHDRAW_KEY, "withdraw", "WITHDRAW", priority=True),
         Binding("ctrl+x", "cancel", "cancel", priority=True),
-        Binding("x", "cancel", "cancel", show=False),
         *[Binding(str(i + 1), f"view('{key}')", title, show=False) for i, (key, title, _) in enumerate(VIEWS)],
         Binding("question_mark", "help", "help"),
         Binding("q", "quit", "quit"),
@@ -61,7 +67,7 @@ class MfmApp(App[int]):
 
     def __init__(self, controller=None, *, controller_url: str = "sim://", session_path: Path | None = None,
                  open_path: Path | None = None, limits=None, probe_record=None, scenario_text: str | None = None,
-                 poll_interval_s: float = 0.25) -> None:
+                 poll_interval_s: float = 0.25, stored=None) -> None:
         super().__init__()
         from assistant.procedures.guard import SafetyLimits
         from drivers.registry import redact
@@ -70,6 +76,7 @@ class MfmApp(App[int]):
         self.controller_url = redact(controller_url)
         self.limits = limits or SafetyLimits()
         self.open_path = Path(open_path) if open_path else None
+        self._stored = stored  # a StoredSession already read (mfma tui --open checks the file before the UI)
         self.session_path = Path(session_path) if session_path else None
         self._probe_record = probe_record
         self.poll_interval_s = poll_interval_s
@@ -78,7 +85,7 @@ class MfmApp(App[int]):
             from assistant.procedures.workflow import Workflow
 
             if self.session_path is None:
-                raise ValueError("a live session needs session_path")
+                raise InputError("a live session needs session_path")
             self.workflow = Workflow(self.controller, self.session_path, controller_url=self.controller_url,
                                      scenario_text=scenario_text, limits=self.limits, sink=MessageSink(self))
         self.busy: str | None = None
@@ -91,7 +98,11 @@ class MfmApp(App[int]):
 
     # ---- layout ------------------------------------------------------------------------------------------
     def compose(self):
-        yield Static("", id="status")
+        with Horizontal(id="status-bar"):
+            yield Static("", id="status")
+            withdraw = Button("Withdraw", id="withdraw-button", variant="error")
+            withdraw.can_focus = False  # a click or the key, never a stray enter after tab
+            yield withdraw
         with TabbedContent(initial="probe"):
             for i, (key, title, cls) in enumerate(VIEWS):
                 with TabPane(f"{i + 1} {title}", id=key):
@@ -106,6 +117,8 @@ class MfmApp(App[int]):
         return [self.view(key) for key, _, _ in VIEWS]
 
     def on_mount(self) -> None:
+        if self.controller is None:
+            self.query_one("#withdraw-button").display = False  # a stored session: nothing to withdraw
         if self.controller is not None:
             self.view("approach").configure(travel_max_m=self.limits.coarse_travel_max_m,
                                             z_range_m=self.controller.limits.z_range_m)
@@ -123,7 +136,8 @@ class MfmApp(App[int]):
     def on_procedure_event(self, message: ProcedureEvent) -> None:
         ev = message.event
         if isinstance(ev, Notice):
-            self.say(ev.level, ev.text)
+            # the guard's stop notice repeats the error the step reports when it ends: say only what it did
+            self.say(ev.level, "stopped: tip withdrawn, drive off, bias 0 V" if ev.kind == "stopped" else ev.text)
             return
         for view in self.views:
             if ev.what in view.EVENTS:
@@ -137,7 +151,7 @@ class MfmApp(App[int]):
         elif isinstance(err, Cancelled):
             self.say("warning", f"{step}: cancelled")
         else:
-            self.say("error", f"{step} failed: {type(err).__name__}: {err}")
+            self.say("error", f"{step} failed: {str(err).strip() or type(err).__name__}")
         for view in self.views:
             view.step_finished(step, message.result, err)
         self._update_status_line()
@@ -146,6 +160,8 @@ class MfmApp(App[int]):
     def on_status_changed(self, message: StatusChanged) -> None:
         if message.status is not None:
             self.last_status = message.status
+            for view in self.query("#view-approach"):  # none while the app shuts down
+                view.show_status(message.status)
         self.status_error = message.error
         self._update_status_line()
 
@@ -175,15 +191,18 @@ class MfmApp(App[int]):
                 state = "[b]withdrawn[/b]"
             else:
                 state = "[b reverse] NOT SAFE [/]"
-            z, bias = f"Z {st.z_m * 1e6:.3f} µm", f"bias {st.bias_v:+.2f} V"
+            z, bias = f"Z {quantity(st.z_m, 'm')}", f"bias {st.bias_v:+.2f} V"
         probe = self.probe_name or "—"
         first = " │ ".join(p for p in (self.controller_url if self.controller else "", f"probe {probe}", state, z,
                                       bias) if p)
         path = self.open_path or self.session_path
         run = f"[b]running: {self.busy}[/b] (ctrl+x cancel) │ " if self.busy else ""
+        if self.controller is None and self.open_path is not None:
+            run = "[b]read-only[/b] │ "
         err = f"status: {self.status_error} │ " if self.status_error else ""
         second = f"{run}{err}session {path.name if path else '—'}"
-        self.query_one("#status", Static).update(f"{first}\n{second}")
+        for status in self.query("#status").results(Static):  # none while the app shuts down
+            status.update(f"{first}\n{second}")
 
     def say(self, level: str, text: str) -> None:
         self.view("log").add(level, text)
@@ -192,7 +211,15 @@ class MfmApp(App[int]):
 
     # ---- actions --------------------------------------------------------------------------------------------
     def action_view(self, key: str) -> None:
+        # Leave the focused button first: a tabbed pane that keeps the focus switches itself back to its tab.
+        if self.focused is not None:
+            self.set_focus(None)
         self.query_one(TabbedContent).active = key
+
+    @on(Button.Pressed, "#withdraw-button")
+    def _withdraw_pressed(self, event: Button.Pressed) -> None:
+        event.stop()
+        self.action_withdraw()
 
     def action_help(self) -> None:
         if not isinstance(self.screen, HelpScreen):
@@ -243,169 +270,13 @@ class MfmApp(App[int]):
             self._stop_poll.set()
             self.exit(0)
 
-    # ---- intents from the views --------------------------------------------------------------------------
-    def _run(self, step: str, fn) -> bool:
-        if self.workflow is None:
-            self.say("error", f"{step}: no controller (viewing a session file)")
-            return False
-        if self.busy:
-            self.say("warning", f"{step}: {self.busy} is still running; cancel it first (ctrl+x)")
-            return False
-        self.busy = step
-        self.workflow.cancel = CancelToken()  # a fresh token: the last cancel must not stop this step
-        self._step_worker(step, fn)
-        self._update_status_line()
-        return True
-
-    def start_calibration(self) -> None:
-        from assistant.procedures.calibrate import CalibrationError
-
-        res = self.view("resonance")
-        try:
-            settings = self.view("probe").calibration_settings(free_amplitude_m=res.free_amplitude_m(),
-                                                               setpoint_ratio=res.setpoint_ratio())
-            settings.validate()
-        except (FieldError, CalibrationError) as exc:
-            self.say("error", f"calibration: {exc}")
-            return
-        wf = self.workflow
-        if self._run("calibrate", lambda: wf.calibrate(settings)):
-            self._calibration_settings = settings
-            self.probe_name = settings.probe_name
-            self._update_status_line()
-
-    def accept_calibration(self) -> None:
-        wf = self.workflow
-        settings = getattr(self, "_calibration_settings", None)
-        if wf is None or wf.calibration is None or settings is None:
-            self.say("error", "accept: no calibration of this session to record")
-            return
-        if not settings.probe_name:
-            self.say("error", "accept: give the probe a name (Probe view) and calibrate again")
-            return
-        self._record_worker(settings.probe_name, calibration_scalars(wf.calibration, settings.probe_name))
-
-    def start_approach(self) -> None:
-        wf = self.workflow
-        self._run("approach", lambda: wf.approach())
-
-    def validate_series(self, settings) -> None:
-        lim = self.controller.limits if self.controller is not None else None
-        settings.validate(self.limits, z_range_m=lim.z_range_m if lim else None,
-                          scan_size_max_m=lim.scan_size_max_m if lim else None)
-
-    def start_series(self, settings) -> None:
-        wf = self.workflow
-        if self._run("series", lambda: wf.series(settings)):
-            self.view("series").begin(heights_m=settings.heights_m, biases_v=settings.biases_v,
-                                      lines=settings.lines, pixels=settings.pixels)
-
-    def start_analysis(self) -> None:
-        if self.workflow is None and self.open_path is not None:
-            self._offline_worker("analyse", self.open_path)
-            return
-        wf = self.workflow
-        self._run("analyse", lambda: wf.analyse())
-
-    def start_report(self) -> None:
-        if self.workflow is None and self.open_path is not None:
-            self._offline_worker("report", self.open_path)
-            return
-        wf = self.workflow
-        out = self.session_path.parent / f"report-{self.session_path.stem}"
-
-        def report():
-            from assistant.report.summary import build_report
-
-            wf.session.flush()  # the report reads the session file; the workflow keeps it open for writing
-            analyses = {wf.series_settings.name: wf.analysis} if wf.analysis is not None and wf.series_settings else None
-            return build_report(wf.session_path, out, analyses=analyses)
-
-        self._run("report", report)
-
-    # ---- workers --------------------------------------------------------------------------------------------
-    @work(thread=True, group="procedure", exit_on_error=False)
-    def _step_worker(self, step: str, fn) -> None:
-        try:
-            result = fn()
-        except BaseException as exc:  # the step's guard already made the stage safe; report and carry on
-            self.post_message(StepFinished(step, None, exc))
-            return
-        self.post_message(StepFinished(step, result))
-
-    @work(thread=True, group="safety", exit_on_error=False)
-    def _withdraw_worker(self) -> None:
-        try:
-            self.workflow.withdraw()
-            status = self.controller.status()
-        except Exception as exc:
-            self.post_message(WithdrawDone(None, f"{type(exc).__name__}: {exc}"))
-            return
-        self.post_message(StatusChanged(status))
-        self.post_message(WithdrawDone(status.safe))
-
-    @work(thread=True, group="poll", exit_on_error=False)
-    def _poll_worker(self) -> None:
-        while not self._stop_poll.wait(self.poll_interval_s):
-            if not self.is_running or self._closed:  # the app ended without unmounting cleanly (a crash)
-                return
-            try:
-                status = self.controller.try_status(0.05)
-            except Exception as exc:
-                self.post_message(StatusChanged(None, f"{type(exc).__name__}: {exc}"))
-                continue
-            if status is not None:
-                self.post_message(StatusChanged(status))
-
-    @work(thread=True, group="record", exit_on_error=False)
-    def _record_worker(self, name: str, entry: dict) -> None:
-        try:
-            record = self._probe_record
-            if record is None:
-                from assistant.storage.probe_record import ProbeRecord
-
-                record = ProbeRecord()
-            warnings = record.add(name, entry)
-        except Exception as exc:
-            self.post_message(ProcedureEvent(Notice("error", f"probe record: {exc}")))
-            return
-        for w in warnings:
-            self.post_message(ProcedureEvent(Notice("warning", f"probe record: {w}")))
-        self.post_message(ProcedureEvent(Notice("info", f"probe record: calibration of {name!r} stored")))
-        self.call_from_thread(self.view("probe").set_accepted, f"Stored in the probe record as {name!r}.")
-
-    @work(thread=True, group="procedure", exit_on_error=False)
-    def _offline_worker(self, step: str, path: Path) -> None:
-        try:
-            if step == "analyse":
-                from assistant.procedures.analyse import analyse_session_file
-
-                result = analyse_session_file(path, None)
-            else:
-                from assistant.report.summary import build_report
-
-                result = build_report(path, path.parent / f"report-{path.stem}")
-        except Exception as exc:
-            self.post_message(StepFinished(step, None, exc))
-            return
-        self.post_message(StepFinished(step, result))
-
     # ---- viewing a session file ---------------------------------------------------------------------------
     def _show_session_file(self, path: Path) -> None:
+        from assistant.tui.stored_view import show_stored
+
         try:
-            shown = load_session(path)
+            shown = self._stored if self._stored is not None else load_session(path)
         except Exception as exc:
             self.say("error", f"cannot open {path}: {exc}")
             return
-        if shown.probe_name:
-            self.probe_name = shown.probe_name
-        if shown.calibration is not None:
-            self.view("probe").show_summary(shown.calibration, live=False)
-            self.view("resonance").show_drive(shown.calibration)
-        if shown.series is not None:
-            self.view("series").load(shown.series)
-        if shown.analysis is not None:
-            self.view("analysis").show(shown.analysis, mean_phase_deg=shown.mean_phase_deg)
-        for text in shown.notes:
-            self.say("info", text)
-        self.action_view("series" if shown.series is not None else "probe")
+        show_stored(self, shown, path)

@@ -20,7 +20,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from drivers.wire.commands import BY_HEADER, Command, check_types, check_value
+from drivers.wire.checks import check_types, check_value
+from drivers.wire.commands import BY_HEADER, Command
 from drivers.wire.scpi import WireError
 
 VERSION = 1
@@ -57,8 +58,9 @@ def _to_json(v: object) -> object:
 
 def _from_json(v: object) -> object:
     if isinstance(v, dict):
-        if set(v) == {"$f"} and v["$f"] in _NONFINITE:
-            return _NONFINITE[v["$f"]]
+        tag = v.get("$f") if set(v) == {"$f"} else None
+        if isinstance(tag, str) and tag in _NONFINITE:  # any other value (a list, a number) is malformed
+            return _NONFINITE[tag]
         raise WireError(-104, "unexpected object in the arguments")
     if isinstance(v, list):
         return tuple(_from_json(x) for x in v)

@@ -35,7 +35,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..noise_floor import white_noise_std
+from ..lift_series import white_noise_std
+from .errors import MediaInputError
 from .local_phase import analytic_rows, row_features
 
 __all__ = ["ORIENTATIONS", "Orientation", "magnetisation_orientation", "down_track_axis"]
@@ -196,8 +197,8 @@ def magnetisation_orientation(phase_deg, *, pixel_m, heights_m=None, noise_deg: 
     if stack.ndim == 2:
         stack = stack[None]
     if stack.ndim != 3 or min(stack.shape[-2:]) < 16:
-        raise ValueError(f"phase_deg must be an image (rows, cols) or a stack (heights, rows, cols) of at least "
-                         f"16 x 16 pixels, got shape {np.shape(phase_deg)}")
+        raise MediaInputError(f"phase_deg must be an image (rows, cols) or a stack (heights, rows, cols) of at least "
+                               f"16 × 16 pixels, got shape {np.shape(phase_deg)}")
     pix = (float(pixel_m), float(pixel_m)) if np.ndim(pixel_m) == 0 else (float(pixel_m[0]), float(pixel_m[1]))
     stack = np.array([_clean(im) for im in stack])
     if noise_deg is None:
@@ -231,7 +232,7 @@ def magnetisation_orientation(phase_deg, *, pixel_m, heights_m=None, noise_deg: 
         if heights_m is not None and np.size(heights_m) == stack.shape[0]:
             period, ratio = _fundamental_decay(stack, np.asarray(heights_m, float), pix)
             if ratio is not None:
-                ev.append(f"The fundamental (period {period * 1e9:.3g} nm) decays at {ratio:.2f} x the Laplace rate "
+                ev.append(f"The fundamental (period {period * 1e9:.0f} nm) decays at {ratio:.2f} × the Laplace rate "
                           "2 pi / period; surface and volume charges share the factor (1 - exp(-k t)) when the "
                           "magnetisation is uniform through the film, so the decay confirms a stray field but "
                           "does not separate the orientations.")

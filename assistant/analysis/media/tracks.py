@@ -24,30 +24,18 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..noise_floor import white_noise_std
+from ..lift_series import white_noise_std
+from .errors import MediaInputError, TooFewPixelsPerBitError
 from .orientation import Orientation, magnetisation_orientation
 from .track_layout import find_tracks
 
-__all__ = ["MediaInputError", "TooFewPixelsPerBitError", "TrackResult", "TrackAnalysis", "analyse_tracks"]
+__all__ = ["TrackResult", "TrackAnalysis", "analyse_tracks"]
 
 TYPICAL_TIP_OFFSET_M = 30e-9  # starting values only: a point probe's effective offset and a transition's arctan
 TYPICAL_TRANSITION_M = 10e-9  # parameter (rules of thumb, no source); three starting widths are tried anyway
 MAX_RELATIVE_RESIDUAL = 0.2  # a track model leaving more of the profile unexplained has missed transitions
 GOOD_RELATIVE_RESIDUAL = 0.08  # ... and one leaving less needs no other starting width (rules of thumb)
 CORE_FRACTION = 0.2  # half-width of the rows averaged per track, as a fraction of its width (rule of thumb)
-
-
-class MediaInputError(ValueError):
-    """The image cannot be analysed (shape, pixel size)."""
-
-
-class TooFewPixelsPerBitError(MediaInputError):
-    """Bits shorter than the resolvable minimum of pixels; ``needed_pixel_m`` is the largest pixel that works."""
-
-    def __init__(self, message: str, *, needed_pixel_m: float, bit_length_m: float):
-        super().__init__(message)
-        self.needed_pixel_m = needed_pixel_m
-        self.bit_length_m = bit_length_m
 
 
 @dataclass(frozen=True)
@@ -176,7 +164,7 @@ def analyse_tracks(phase_deg, *, pixel_m, lift_m: float | None = None, thickness
     """
     u = np.asarray(phase_deg, float)
     if u.ndim != 2 or min(u.shape) < 16:
-        raise MediaInputError(f"phase_deg must be one image of at least 16 x 16 pixels, got shape {u.shape}")
+        raise MediaInputError(f"phase_deg must be one image of at least 16 × 16 pixels, got shape {u.shape}")
     pix = (float(pixel_m), float(pixel_m)) if np.ndim(pixel_m) == 0 else (float(pixel_m[0]), float(pixel_m[1]))
     if not all(np.isfinite(p) and p > 0 for p in pix):
         raise MediaInputError(f"pixel_m must be positive, got {pixel_m!r}")

@@ -21,6 +21,8 @@ from collections.abc import Callable
 
 import numpy as np
 
+from .errors import MediaInputError
+
 __all__ = ["MU0", "point_probe_transfer", "transition_response", "track_transition_response", "TrackResponse"]
 
 MU0 = 1.25663706127e-6  # N/A^2, CODATA 2022
@@ -62,7 +64,7 @@ def transition_response(k: np.ndarray, *, orientation: str, width_m: float, thic
     elif orientation == "in-plane":
         out = -common / safe + 0j
     else:
-        raise ValueError(f"orientation must be 'in-plane' or 'out-of-plane', got {orientation!r}")
+        raise MediaInputError(f"orientation must be 'in-plane' or 'out-of-plane', got {orientation!r}")
     return np.where(ka > 0, out, 0.0)
 
 
@@ -101,7 +103,7 @@ def track_transition_response(kx: np.ndarray, *, orientation: str, width_m: floa
     elif orientation == "out-of-plane":
         step = 1.0 / (1j * np.where(kx != 0, kx, 1.0))
     else:
-        raise ValueError(f"orientation must be 'in-plane' or 'out-of-plane', got {orientation!r}")
+        raise MediaInputError(f"orientation must be 'in-plane' or 'out-of-plane', got {orientation!r}")
     scale = 2.0 * dky / (2.0 * np.pi) * step * (kx != 0)
     g = body.sum(axis=1) * scale
     if not derivatives:
@@ -142,7 +144,7 @@ class TrackResponse:
         elif orientation == "out-of-plane":
             step = 1.0 / (1j * np.where(kx != 0, kx, 1.0))
         else:
-            raise ValueError(f"orientation must be 'in-plane' or 'out-of-plane', got {orientation!r}")
+            raise MediaInputError(f"orientation must be 'in-plane' or 'out-of-plane', got {orientation!r}")
         self.base = base
         self.scale = 2.0 * dky / (2.0 * np.pi) * step * (kx != 0)
 

@@ -61,7 +61,7 @@ def test_a_series_decays_alike_for_both_orientations():
 
 
 def test_bad_input():
-    with pytest.raises(ValueError, match="16 x 16"):
+    with pytest.raises(ValueError, match="16 × 16"):
         magnetisation_orientation(np.zeros((8, 8)), pixel_m=1e-8)
     flat = magnetisation_orientation(np.zeros((32, 32)), pixel_m=1e-8)
     assert flat.orientation == "undetermined"
