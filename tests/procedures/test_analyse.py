@@ -80,6 +80,6 @@ def test_npz_stacks_name_what_is_wrong(tmp_path):
 
 def test_storage_form_keeps_numbers_and_drops_text_lists():
     scalars, arrays = analyse.storage_form({"a_deg": [1.0, 2.0], "ok": True, "n": 3, "s": "x", "none": None,
-                                             "mixed": [1.0, None], "words": ["a"]})
+                                             "mixed": [1.0, None], "words": ["a"], "no_notes": []})
     assert scalars == {"ok": 1, "n": 3, "s": "x"} and list(arrays) == ["a_deg"]
     assert json.dumps(scalars)
