@@ -204,6 +204,10 @@ def caption(file_name: str, *, per_height_scale: bool) -> str:
                "ticks) and every transition coloured by its deviation from that grid"
     if stem.endswith("media_jitter_histogram"):
         return "deviations of the transitions from their tracks' bit-cell grids, with the normal density of the jitter"
+    if stem.startswith("field_map"):
+        return "stray field μ0 Hz (red: pointing away from the sample) and its standard uncertainty; edge margin dashed"
+    if stem == "ttf":
+        return "tip transfer function against spatial period with its uncertainty, valid band and point-probe fit"
     return ""
 
 

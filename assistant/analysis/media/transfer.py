@@ -21,26 +21,22 @@ from collections.abc import Callable
 
 import numpy as np
 
+from ..quantitative import point_probe_ttf
 from .errors import MediaInputError
 
-__all__ = ["MU0", "point_probe_transfer", "transition_response", "track_transition_response", "TrackResponse"]
-
-MU0 = 1.25663706127e-6  # N/A^2, CODATA 2022
+__all__ = ["point_probe_transfer", "transition_response", "track_transition_response", "TrackResponse"]
 
 
 def point_probe_transfer(*, dipole_a_m2: float = 1e-16, monopole_a_m: float = 0.0,
                          offset_m: float = 0.0) -> Callable[[np.ndarray], np.ndarray]:
-    """Tip transfer function of a point probe, TTF(k) = mu0 (m k^2 - q k) exp(-k delta) [N/m per A/m].
-
-    ``k`` in rad/m. Sign convention of the quantitative-MFM work: a tip moment along +z, the apex pole
-    opposite (q < 0 when m > 0), so both terms add. Hartmann 1999 and Lohau et al. 1999 (J. Appl. Phys. 86,
-    3410), both from memory.
+    """Tip transfer function of a point probe, TTF(k) = mu0 (m k^2 - q k) exp(-k delta) [N/m per A/m], as a
+    function of ``k`` in rad/m (either sign): the quantitative family's :func:`point_probe_ttf`, whose sign
+    convention it shares (a tip moment along +z, the apex pole opposite: q < 0 when m > 0, so both terms add).
     """
     m, q, d = float(dipole_a_m2), float(monopole_a_m), float(offset_m)
 
     def ttf(k: np.ndarray) -> np.ndarray:
-        k = np.abs(np.asarray(k, float))
-        return MU0 * (m * k * k - q * k) * np.exp(-k * d)
+        return point_probe_ttf(np.abs(np.asarray(k, float)), moment_a_m2=m, monopole_a_m=q, offset_m=d)
     return ttf
 
 
