@@ -87,10 +87,11 @@ def stored_thermal_fit(record) -> ThermalFit:
 
 
 def storage_form(d: dict) -> tuple[dict, dict]:
-    """Split a result dict into scalar attributes and array datasets for the session file (None dropped)."""
+    """Split a result dict into scalar attributes and array datasets for the session file (None, text lists and
+    empty lists dropped: an empty list of notes is no array)."""
     scalars, arrays = {}, {}
     for key, value in d.items():
-        if value is None:
+        if value is None or (isinstance(value, (list, tuple)) and not value):
             continue
         if isinstance(value, dict) or (isinstance(value, (list, tuple)) and any(isinstance(v, dict) for v in value)):
             scalars[key] = json.dumps(value)  # nested records (tip models, assumed values) as JSON text

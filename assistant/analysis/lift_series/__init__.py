@@ -1,5 +1,5 @@
-"""The lift-height series: registration, Laplace continuation, image-mean parts, noise floor, tip change and
-the recommended lift height.
+"""The lift-height series: registration, Laplace continuation, image-mean parts, noise floor, tip change, the
+tip-sample interaction regime and the recommended lift height.
 
 Entry point: :func:`analyse_series` (module :mod:`.decomposition`), which returns a :class:`SeriesAnalysis`.
 The continuation estimators are one module each (:mod:`.periodic`, :mod:`.reflected` with
@@ -16,8 +16,10 @@ from .errors import (HeightsMismatchError, HeightsNotIncreasingError, ImageShape
 from .image_mean_models import centre_gap_m, first_pass_gap_offset_m, image_mean_shapes
 from .image_means import MeanFit, fit_mean_bias_grid, fit_mean_heights
 from .image_noise import band_noise_variance, shrunk_noise_variance
+from .interaction_regime import REGIMES, InteractionRegime, classify_interaction, recommendation_with_regime
 from .mean_parts import MeanParts, TipCandidate, magnetic_window_mean_cov, split_bias_grid, split_heights_only
-from .noise_floor import NoiseVerdict, noise_verdict, thermal_min_gradient_n_per_m, thermal_min_phase_deg
+from .noise_floor import (NoiseVerdict, noise_verdict, thermal_min_gradient_n_per_m, thermal_min_phase_deg,
+                          white_noise_std)
 from .periodic import fit_continuation_periodic, fit_with_drift_periodic, leave_one_out_prediction
 from .phase import SignalSpace, gradient_from_phase_deg, linear_phase_slope_deg, phase_deg_from_gradient
 from .probe import ProbeModel
@@ -31,16 +33,16 @@ from .tip_change import TipChange, detect_tip_change
 from .windowed import fit_continuation_windowed
 
 __all__ = [
-    "EDGES", "ContinuationFit", "HeightsMismatchError", "HeightsNotIncreasingError", "ImageShapeError", "MeanFit",
-    "MeanParts", "NoiseVerdict", "ProbeModel", "Recommendation", "SeriesAnalysis", "SeriesInputError",
-    "SignalSpace", "TipCandidate", "TipChange", "TooFewBiasesError", "TooFewHeightsError",
+    "EDGES", "REGIMES", "ContinuationFit", "HeightsMismatchError", "HeightsNotIncreasingError", "ImageShapeError",
+    "InteractionRegime", "MeanFit", "MeanParts", "NoiseVerdict", "ProbeModel", "Recommendation", "SeriesAnalysis",
+    "SeriesInputError", "SignalSpace", "TipCandidate", "TipChange", "TooFewBiasesError", "TooFewHeightsError",
     "TooManyInvalidPixelsError", "align_stack", "analyse_series", "band_noise_variance", "centre_gap_m",
-    "detect_tip_change", "drift_covariance", "estimate_drift_px", "estimate_shift_px", "interior_power_variance",
-    "magnetic_window_mean_cov", "shrunk_noise_variance", "split_bias_grid", "split_heights_only",
+    "classify_interaction", "detect_tip_change", "drift_covariance", "estimate_drift_px", "estimate_shift_px",
     "first_pass_gap_offset_m", "fit_continuation_periodic", "fit_continuation_reflected",
     "fit_continuation_windowed", "fit_mean_bias_grid", "fit_mean_heights", "fit_with_drift_periodic",
     "fit_with_drift_reflected", "fourier_shift", "gradient_from_phase_deg", "image_mean_shapes",
-    "leave_one_out_prediction", "linear_phase_slope_deg", "noise_verdict", "phase_deg_from_gradient",
-    "recommend_lift", "reflect_align", "resolution_period_m", "thermal_min_gradient_n_per_m",
-    "thermal_min_phase_deg",
+    "interior_power_variance", "leave_one_out_prediction", "linear_phase_slope_deg", "magnetic_window_mean_cov",
+    "noise_verdict", "phase_deg_from_gradient", "recommend_lift", "recommendation_with_regime", "reflect_align",
+    "resolution_period_m", "shrunk_noise_variance", "split_bias_grid", "split_heights_only",
+    "thermal_min_gradient_n_per_m", "thermal_min_phase_deg", "white_noise_std",
 ]

@@ -7,7 +7,8 @@ itself (small-angle approximation); reported parts are the phase each alone woul
 
 Steps: registration (:mod:`.registration`), the magnetic part by Laplace continuation, the image means
 (:mod:`.image_means`), the noise against the thermal limit (:mod:`.noise_floor`), the tip change
-(:mod:`.tip_change`) and the advice (:mod:`.recommend`).
+(:mod:`.tip_change`), the advice (:mod:`.recommend`), and last the tip-sample interaction regime
+(:mod:`.interaction_regime`), which keeps the advice to heights where the regime is negligible.
 
 Edges: a real scan is a window onto an unbounded field, not a period of it. Three estimators:
 
@@ -44,9 +45,10 @@ import numpy as np
 from .continuation import resolution_period_m
 from .errors import (HeightsMismatchError, HeightsNotIncreasingError, ImageShapeError, SeriesInputError,
                      TooFewBiasesError, TooFewHeightsError, TooManyInvalidPixelsError)
-from .estimator_note import ERROR_METHOD, small_scan_note
+from .estimator_note import ERROR_METHOD, auto_estimator, small_scan_note
 from .frequencies import alias_axes_for, pixel_pair_m
 from .image_noise import band_noise_variance, fill_missing, shrunk_noise_variance
+from .interaction_regime import classify_interaction, recommendation_with_regime
 from .mean_parts import MeanParts, magnetic_window_mean_cov, split_bias_grid, split_heights_only
 from .noise_floor import noise_verdict, periodic_component_of, white_noise_std
 from .periodic import fit_with_drift_periodic
@@ -132,11 +134,21 @@ def analyse_series(phase_deg, *, heights_m, pixel_m, bias_v=None, repeat_phase_d
                        max_phase_deg)
     inputs = (phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe, options)
     if edge != "auto":
-        return _decompose(*inputs, edge=edge)
+        return _with_regime(_decompose(*inputs, edge=edge), phase_deg, repeat_phase_deg, probe)
     # decided once, from the geometry alone (estimator_note)
-    a = _decompose(*inputs, edge="reflect")
-    note = small_scan_note(a.heights_m, a.pixel_m, a.magnetic_deg.shape[-2:])
-    return dataclasses.replace(a, edge_note=note) if note else a
+    choice, note = auto_estimator(heights_m, pixel_m)
+    a = _decompose(*inputs, edge=choice)
+    note = note or small_scan_note(a.heights_m, a.pixel_m, a.magnetic_deg.shape[-2:])
+    return _with_regime(dataclasses.replace(a, edge_note=note) if note else a, phase_deg, repeat_phase_deg, probe)
+
+
+def _with_regime(a: SeriesAnalysis, phase_deg, repeat_phase_deg, probe: ProbeModel) -> SeriesAnalysis:
+    """Name the tip-sample interaction regime and restrict the advice to heights where it is negligible. The
+    regime's repeat verdict becomes ``tip_change`` (kept once: the regime is stored without it)."""
+    regime = classify_interaction(a, phase_deg, repeat_phase_deg=repeat_phase_deg, probe=probe)
+    return dataclasses.replace(a, interaction=dataclasses.replace(regime, tip_change=None),
+                               tip_change=regime.tip_change,
+                               recommendation=recommendation_with_regime(a.recommendation, regime))
 
 
 def _validate(phase_deg, heights_m, bias_v):
@@ -211,6 +223,13 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
     gain = np.array([np.mean(1.0 / space.slope(sig_i[ok_i]) ** 2)
                      for sig_i, ok_i in zip(sig.reshape(nh * nb, rows, cols), okf)])
     phase_var = image_var.reshape(nh, nb)[-1] / gain.reshape(nh, nb)[-1]  # per bias, from the top height
+    if len(alias_axes) == 2 and repeat_phase_deg is not None:
+        # with both axes aliased no band is free of signal: the difference of the first pass and its repeat is
+        # (robust median-based estimate, about 37 % efficient)
+        rep = np.asarray(repeat_phase_deg, float)
+        phase_var = np.full(nb, detect_tip_change(stack[0] if not grid else stack[0, 0],
+                                                  rep[0] if rep.ndim == 3 else rep).noise_deg ** 2)
+        dof = 0.37 * rows * cols
     image_var = np.tile(phase_var, nh) * gain
     fit, drift, aligned, valid = _fit_magnetic(src, okf, h, pixel_m, nb=nb, edge=edge, band=band, options=options,
                                                image_var=image_var, dof=dof)
