@@ -161,6 +161,7 @@ def _finish(args, session_path: Path, report, wf, analysis) -> int:
             f"report:       {report.out_dir}",
             f"k = {calib['k_n_per_m']:.4g} N/m, f0 = {calib['f0_hz']:.1f} Hz, Q = {calib['q']:.1f}",
             f"series: {len(s.heights_m)} heights x {wf.series_result.completed_lines} lines",
+            a["decomposition"] if a.get("kind") == "imaging" else  # one or two heights: says what it needs
             "recommended lift height: " + (f"{a['recommended_lift_nm']:.4g} nm" if a.get("recommended_lift_nm")
                                            else "none (see the report)"),
             "V_cpd: " + (f"{a['cpd_v']:.3f} ± {a.get('cpd_std_v') or 0:.1g} V" if a.get("cpd_v") is not None

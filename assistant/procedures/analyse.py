@@ -62,17 +62,33 @@ def analyse_session_series(session, name: str | None, *, sink: Sink = null_sink,
     if data.completed_lines < 4:
         raise SeriesInputError(f"series {name!r} has {data.completed_lines} completed lines; need at least 4")
     settings = json.loads(data.settings_json or "{}")
-    result = analyse_arrays(data.phase_deg, heights_m=data.heights_m,
-                            pixel_m=(data.scan_size_m / data.lines, data.scan_size_m / data.pixels),
-                            bias_v=data.biases_v, repeat_phase_deg=data.repeat_phase_deg,
-                            line_rate_hz=data.line_rate_hz, pixels=data.pixels,
-                            short_range_fraction=short_range_fraction, edge=edge, **_probe_inputs(settings))
+    from assistant.analysis.imaging import DECOMPOSITION_MIN_HEIGHTS
+
+    if data.heights_m.size < DECOMPOSITION_MIN_HEIGHTS:  # one or two heights: what they tell, no decomposition
+        result = analyse_imaging_series(data, _probe_inputs(settings))
+    else:
+        result = analyse_arrays(data.phase_deg, heights_m=data.heights_m,
+                                pixel_m=(data.scan_size_m / data.lines, data.scan_size_m / data.pixels),
+                                bias_v=data.biases_v, repeat_phase_deg=data.repeat_phase_deg,
+                                line_rate_hz=data.line_rate_hz, pixels=data.pixels,
+                                short_range_fraction=short_range_fraction, edge=edge, **_probe_inputs(settings))
     if write:
         scalars, arrays = storage_form(result.to_dict())
         session.write_analysis(name, scalars, arrays)
     for text in getattr(result, "messages", ()):
         sink(Notice("info", text))
     return result
+
+
+def analyse_imaging_series(data, probe: dict):
+    """One or two lift heights (a ``SeriesData``): image statistics, noise, repeat check, V_cpd of a bias grid."""
+    from assistant.analysis.imaging import analyse_imaging
+
+    keep = ("spring_constant_n_per_m", "quality_factor", "resonance_hz", "amplitude_m", "temperature_k")
+    return analyse_imaging(data.phase_deg, heights_m=data.heights_m, bias_v=data.biases_v,
+                           repeat_phase_deg=data.repeat_phase_deg,
+                           bandwidth_hz=0.5 * data.line_rate_hz * data.pixels,  # Nyquist of one pixel's dwell
+                           **{k: probe[k] for k in keep if probe.get(k) is not None})
 
 
 def storage_form(d: dict) -> tuple[dict, dict]:

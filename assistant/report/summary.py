@@ -157,6 +157,8 @@ def _series_images(data: SeriesData, out_dir: Path) -> list[Path]:
         return []
     paths = [save_png(topography_figure(data.topography_m, scan_size_m=data.scan_size_m, lines=data.lines,
                                         title=f"{data.name}: topography"), out_dir / f"{data.name}_topography.png")]
+    if len(data.heights_m) < 3:  # one or two heights: the imaging overview shows every image on one scale
+        return paths
     if data.biases_v is None:
         fig = phase_figure(data.phase_deg, heights_m=data.heights_m, scan_size_m=data.scan_size_m,
                            repeat_phase_deg=data.repeat_phase_deg, lines=data.lines, title=f"{data.name}: phase")
@@ -279,6 +281,11 @@ def _decomposition_figures(session: SessionFile, out_dir: Path, notes: list[str]
                 from assistant.procedures.analyse import analyse_session_series
 
                 result = analyse_session_series(session, name, write=False)
+            if getattr(result, "kind", None) == "imaging":  # one or two heights: no decomposition to draw
+                from assistant.report.imaging_figures import write_imaging_figures
+
+                write_imaging_figures(result, session.read_series(name), target)
+                return
             mod.write_series_figures(result, target)
         paths += _new_files(target, write, f"decomposition figures of {name!r}", notes)
     return paths
@@ -323,7 +330,11 @@ def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLik
         if stored:
             text += ["## Analysis", ""]
             for name in stored:
-                text += _record_section(f"analysis/{name}", session.read_analysis(name))
+                record = session.read_analysis(name)
+                if record.scalars.get("kind") == "imaging":  # say first what was and was not computed
+                    text += [str(record.scalars[k]) + "\n" for k in ("decomposition", "noise_sentence",
+                             "cpd_sentence", "tip_change") if k in record.scalars]
+                text += _record_section(f"analysis/{name}", record)
         paths += _calibration_figures(session, out, notes)
         if names:
             paths += _decomposition_figures(session, out, notes, analyses)

@@ -96,7 +96,8 @@ class AnalysisView(View):
         lines = [f"recommended lift  {'—' if rec is None else f'{rec:.3g} nm'}",
                  "V_cpd             " + ("— (no bias grid)" if cpd is None else
                                           f"{cpd:.3f} ± {cpd_std:.2g} V" if cpd_std else f"{cpd:.3f} V")]
-        for key, label in (("recommendation", ""), ("separability", ""), ("noise_sentence", "")):
+        for key, label in (("decomposition", ""), ("recommendation", ""), ("separability", ""), ("cpd_sentence", ""),
+                           ("noise_sentence", "")):
             if isinstance(d.get(key), str) and d[key]:
                 lines.append(f"{label}{d[key]}")
         res = _arr(d, "residual_rms_deg")
