@@ -289,10 +289,18 @@ class MfmApp(App[int]):
         wf = self.workflow
         self._run("approach", lambda: wf.approach())
 
-    def validate_series(self, settings) -> None:
-        lim = self.controller.limits if self.controller is not None else None
-        settings.validate(self.limits, z_range_m=lim.z_range_m if lim else None,
-                          scan_size_max_m=lim.scan_size_max_m if lim else None)
+    def validate_series(self, settings):
+        """The checks ``mfma run`` makes before the stage moves (limits, capabilities, a free series name);
+        returns the plan, which says what the series will give."""
+        from assistant.procedures.preflight import check_series_plan
+
+        return check_series_plan(settings, limits=self.limits, controller=self.controller,
+                                 existing_series=self.series_names(), approach=False)
+
+    def series_names(self) -> list[str]:
+        """Series already in the session file (none before the first step wrote it)."""
+        wf = self.workflow
+        return wf.session.series_names() if wf is not None and wf.session_path.exists() else []
 
     def start_series(self, settings) -> None:
         wf = self.workflow

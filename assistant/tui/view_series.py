@@ -59,6 +59,7 @@ class SeriesView(View):
         self.remaining_s: float | None = None
         self.instrument_s: float | None = None
         self._previews_built_for: tuple | None = None
+        self.plan_sentence = ""
 
     def compose(self):
         with Horizontal(id="series-top"):
@@ -83,11 +84,13 @@ class SeriesView(View):
 
     # settings ----------------------------------------------------------------------------------------
     def settings(self):
+        from assistant.procedures.preflight import free_series_name
         from assistant.procedures.series import SeriesSettings
 
         heights = self.numbers("s-heights", "heights")
         biases = self.numbers("s-biases", "biases", optional=True)
         return SeriesSettings(
+            name=free_series_name(self.app.series_names()),  # series1, then series2, ... in one session file
             heights_m=tuple(h * 1e-9 for h in heights), biases_v=biases,
             lines=int(self.number("s-lines", "lines", integer=True)),
             pixels=int(self.number("s-pixels", "pixels", integer=True)),
@@ -98,9 +101,9 @@ class SeriesView(View):
     def checked_settings(self):
         """Settings from the form, validated as the procedure will validate them; raises with the reason."""
         s = self.settings()
-        self.app.validate_series(s)
         if s.biases_v is not None and len(s.biases_v) < 3:
             raise FieldError(f"biases: a bias grid needs at least three biases, got {len(s.biases_v)}")
+        self.plan_sentence = self.app.validate_series(s).sentence
         return s
 
     def on_button_pressed(self, event: Button.Pressed) -> None:
@@ -113,7 +116,7 @@ class SeriesView(View):
         except ValueError as exc:  # FieldError and SeriesSettingsError both are ValueErrors
             msg.update(f"[b]not valid:[/b] {exc}")
             return
-        msg.update(f"ok: {len(s.passes)} second passes per line; {s.order}")
+        msg.update(f"ok: {len(s.passes)} second passes per line. {self.plan_sentence}")
         if event.button.id == "series-start":
             self.app.start_series(s)
 
