@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import json
 import os
 from datetime import datetime, timezone
 from pathlib import Path
@@ -60,8 +59,20 @@ def _writer_hook(ctl):
     return ctl.writer_fault_hook() if isinstance(ctl, SimulatedController) else None
 
 
+def _plan(settings, limits, *, controller=None, sink=None):
+    """The checks before the stage moves (settings alone, then with the controller's limits and capabilities)."""
+    from assistant.procedures.events import Notice
+    from assistant.procedures.preflight import check_series_plan
+
+    plan = check_series_plan(settings, limits=limits, controller=controller)
+    if sink is not None:
+        sink(Notice("info", "this series gives " + plan.sentence[0].lower() + plan.sentence[1:]))
+    return plan
+
+
 def run(args) -> int:
     from assistant.procedures.guard import load_limits
+    from assistant.procedures.resume import run_plan_json
     from assistant.report.summary import build_report
     from assistant.procedures.workflow import Workflow
     from drivers.registry import redact, scheme_of
@@ -72,18 +83,21 @@ def run(args) -> int:
         return _resume(args, limits, progress)
     out = _writable_dir(args.out)
     series_settings = _series_settings(args)
-    series_settings.validate(limits)
+    _plan(series_settings, limits)
     cal_settings = calibration_settings(args)
     cal_settings.validate()
     stamp = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
     session_path = out / f"session-{stamp}.h5"
     extra = {"pace": args.pace, "line_rate": args.line_rate} if scheme_of(args.controller) == "sim" else {}
     with open_controller_from_args(args, **extra) as ctl:
+        _plan(series_settings, limits, controller=ctl, sink=progress)  # before the first motion
         wf = Workflow(ctl, session_path, controller_url=redact(args.controller), scenario_text=_scenario_text(ctl),
                       limits=limits, sink=progress, fsync=args.fsync, before_write=_writer_hook(ctl))
         try:
             from assistant.storage.probe_record import ProbeRecord
 
+            # the plan goes first, so a run stopped at any moment leaves a file that can be resumed
+            wf.session.write_run_plan(run_plan_json(series_settings, cal_settings, probe_record=bool(args.probe)))
             wf.calibrate(cal_settings, probe_record=ProbeRecord() if args.probe else None)
             wf.approach()
             wf.series(series_settings)
@@ -98,36 +112,42 @@ def run(args) -> int:
 
 
 def _resume(args, limits, progress) -> int:
-    from assistant.procedures.series import SeriesSettings
+    from assistant.procedures.resume import read_resume_point, reestablish_drive
     from assistant.report.summary import build_report
-    from assistant.procedures.workflow import Workflow, drive_from_json
+    from assistant.procedures.workflow import Workflow
     from assistant.storage.session_file import SessionFile
     from drivers.registry import redact, scheme_of
 
-    path = Path(args.resume)
-    if not path.is_file():
-        raise UsageError(f"resume file {path} does not exist")
-    with SessionFile.open(path, "r") as sf:  # raises a clear error for files that are not session files
-        names = sf.series_names()
-        if not names:
-            raise UsageError(f"{path} has no series to resume")
-        data = sf.read_series(names[-1])
-        if data.finished:
-            raise UsageError(f"series {names[-1]!r} in {path} is already complete; nothing to resume")
-        stored = json.loads(data.settings_json)
-    drive = drive_from_json(stored.pop("drive"))
-    k, q, t = stored.pop("spring_constant_n_per_m"), stored.pop("quality_factor"), stored.pop("temperature_k")
-    settings = SeriesSettings.from_json(json.dumps(stored))
-    extra = {"pace": args.pace, "line_rate": settings.line_rate_hz} if scheme_of(args.controller) == "sim" else {}
+    point = read_resume_point(args.resume)
+    path, settings = point.path, point.settings
+    if point.stage == "analyse":  # every line is written: analyse and report, no instrument needed
+        return _finish_stored(args, point, progress)
+    _plan(settings, limits)
+    extra = {}
+    if scheme_of(args.controller) == "sim":
+        extra = {"pace": args.pace, "line_rate": settings.line_rate_hz}
+        if not args.scenario and point.scenario_text:  # the simulated stage the file was recorded on
+            from simulated_stage.scenario import Scenario
+
+            extra["scenario"] = Scenario.from_text(point.scenario_text, name="stored")
     with open_controller_from_args(args, **extra) as ctl:
+        _plan(settings, limits, controller=ctl)  # before the first motion
         wf = Workflow(ctl, path, controller_url=redact(args.controller), limits=limits, sink=progress,
                       fsync=args.fsync, before_write=_writer_hook(ctl))
         wf._session = SessionFile.open(path, "a")
         try:
-            wf.restore_drive(drive, spring_constant_n_per_m=k, quality_factor=q, temperature_k=t)
-            progress.notices.append(("info", f"resuming {settings.name} at line {data.completed_lines}"))
+            if point.stage == "start":
+                from assistant.storage.probe_record import ProbeRecord
+
+                progress.notices.append(("info", f"resuming {path.name}: stopped before the series; starting it"))
+                wf.calibrate(point.calibration, probe_record=ProbeRecord() if point.probe_record else None)
+            else:
+                wf.restore_drive(point.drive, spring_constant_n_per_m=point.spring_constant_n_per_m,
+                                 quality_factor=point.quality_factor, temperature_k=point.temperature_k)
+                progress.notices.append(("info", f"resuming {settings.name} at line {point.completed_lines}"))
+                reestablish_drive(ctl, point.drive, limits=limits, sink=progress, cancel=wf.cancel)
             wf.approach()
-            wf.series(settings, resume=True)
+            wf.series(settings, resume=point.stage == "scan")
             analysis = wf.analyse()
             wf.session.mark_complete()
             wf.session.flush()
@@ -138,11 +158,39 @@ def _resume(args, limits, progress) -> int:
     return _finish(args, path, report, wf, analysis)
 
 
+def _finish_stored(args, point, progress) -> int:
+    """The series was complete when the run stopped: the analysis, the report and the complete flag."""
+    from assistant.procedures.analyse import analyse_session_series
+    from assistant.procedures.series import SeriesResult
+    from assistant.procedures.workflow import Workflow
+    from assistant.report.summary import build_report
+    from assistant.storage.session_file import SessionFile
+
+    path, s = point.path, point.settings
+    progress.notices.append(("info", f"resuming {path.name}: every line is written; analysing"))
+    wf = Workflow(None, path, sink=progress, fsync=args.fsync)
+    wf._session = SessionFile.open(path, "a")
+    try:
+        if point.drive is not None:
+            wf.restore_drive(point.drive, spring_constant_n_per_m=point.spring_constant_n_per_m,
+                             quality_factor=point.quality_factor, temperature_k=point.temperature_k)
+        wf.series_settings = s
+        wf.series_result = SeriesResult(s.name, s.heights_m, point.completed_lines, s.lines, 0.0)
+        analysis = wf.analysis = analyse_session_series(wf.session, s.name, sink=progress)
+        wf.session.mark_complete()
+        wf.session.flush()
+        report = build_report(path, path.parent / f"report-{path.stem}", analyses={s.name: analysis})
+    finally:
+        wf.close()
+    return _finish(args, path, report, wf, analysis)
+
+
 def _finish(args, session_path: Path, report, wf, analysis) -> int:
     cal = wf.calibration
     calib = ({"k_n_per_m": cal.k_n_per_m, "k_std_n_per_m": cal.k_std_n_per_m, "f0_hz": cal.thermal.f0_hz,
               "q": cal.thermal.q, "invols_nm_per_v": cal.invols_m_per_v * 1e9} if cal is not None else
-             {"k_n_per_m": wf.spring_constant_n_per_m, "k_std_n_per_m": None, "f0_hz": wf.drive.frequency_hz,
+             {"k_n_per_m": wf.spring_constant_n_per_m, "k_std_n_per_m": None,
+              "f0_hz": wf.drive.frequency_hz if wf.drive is not None else None,
               "q": wf.quality_factor, "invols_nm_per_v": None})
     s = wf.series_settings
     summary = {
@@ -165,6 +213,6 @@ def _finish(args, session_path: Path, report, wf, analysis) -> int:
             "recommended lift height: " + (f"{a['recommended_lift_nm']:.4g} nm" if a.get("recommended_lift_nm")
                                            else "none (see the report)"),
             "V_cpd: " + (f"{a['cpd_v']:.3f} ± {a.get('cpd_std_v') or 0:.1g} V" if a.get("cpd_v") is not None
-                         else "not measured (needs a bias grid, --biases)"),
+                         else a.get("cpd_sentence") or "not measured (needs a bias grid, --biases)"),
         ])
     return 0

@@ -17,6 +17,10 @@ class NoSurfaceFound(RuntimeError):
     """The allowed coarse travel was used up without the amplitude reaching the setpoint."""
 
 
+class ApproachSettingsError(ValueError):
+    """The drive and setpoint cannot engage this lever (checked before any motion)."""
+
+
 @dataclass(frozen=True)
 class ApproachSettings:
     drive_frequency_hz: float
@@ -67,6 +71,13 @@ def approach(controller, settings: ApproachSettings, *, limits: SafetyLimits | N
     with safety_guard(controller, sink=sink):
         controller.withdraw()
         controller.set_drive(settings.drive_frequency_hz, settings.drive_amplitude_v)
+        # Before any motion: withdrawn, the lever must oscillate above the setpoint, or the feedback would pull
+        # Z back at once and read that as a surface in reach (a drive that no longer fits the lever)
+        free = sum(controller.read(["amplitude_v"])["amplitude_v"] for _ in range(4)) / 4  # small ones are noisy
+        if not free > settings.setpoint_v:
+            raise ApproachSettingsError(
+                f"withdrawn, the lever oscillates at {free * 1e3:.1f} mV, not above the setpoint "
+                f"{settings.setpoint_v * 1e3:.1f} mV: the drive does not fit this lever; calibrate again")
         start = controller.status().coarse_position_m
         while True:
             cancel.raise_if_set()
@@ -92,6 +103,8 @@ def approach(controller, settings: ApproachSettings, *, limits: SafetyLimits | N
         # Re-centre: retract, move coarse by the distance between found Z and mid-range, re-engage.
         mid = 0.5 * z_range
         steps = int(round((z - mid) / step_m))
+        # never retract the motor past its origin as the controller reports it (coarse position >= 0)
+        steps = max(steps, -int(controller.status().coarse_position_m / step_m))
         if steps != 0:
             controller.set_feedback(False)
             controller.withdraw()

@@ -456,6 +456,23 @@ class SessionFile:
                 del parent[name]
             self._fill(parent.create_group(name), *record)
 
+    def write_run_plan(self, plan_json: str) -> None:
+        """Keep what the run was asked to do (JSON: series and calibration settings) as the root attribute
+        ``run_plan_json``, so that a run stopped before its series began can still be resumed."""
+        try:
+            json.loads(plan_json)
+        except (TypeError, ValueError) as exc:
+            raise SessionFileError(f"run plan is not valid JSON: {exc}") from exc
+        if len(plan_json.encode()) > _MAX_ATTR_TEXT:
+            raise SessionFileError(f"run plan is {len(plan_json.encode())} bytes; limit {_MAX_ATTR_TEXT}")
+        with self._writing("the run plan"):
+            self._h5.attrs["run_plan_json"] = plan_json
+
+    def read_run_plan(self) -> str | None:
+        """The run plan written by :meth:`write_run_plan`, or None."""
+        value = self._h5.attrs.get("run_plan_json")
+        return None if value is None else str(value)
+
     def mark_complete(self) -> None:
         """Mark the session as finished normally."""
         with self._writing("the complete flag"):

@@ -1,0 +1,141 @@
+"""Resume an interrupted run from its session file, whatever moment it was stopped at.
+
+What the file says decides what is left to do (:func:`read_resume_point`):
+
+* ``"start"``: stopped before the series began (during the calibration or the approach): the run plan stored
+  at the start says what was asked; calibrate, approach and scan from the first line.
+* ``"scan"``: stopped during the series: re-establish the drive the series ran with, approach, continue at the
+  first line not counted in ``completed_lines``.
+* ``"analyse"``: every line is written but the analysis or the report was not: no motion at all.
+* a session marked complete has nothing left (:class:`ResumeError`).
+
+Nothing is assumed about where the instrument was left. The controller reports where the coarse motor is now
+(a process that died may have left it anywhere, and a new simulated stage starts from its own origin); the
+approach starts from there. Before any coarse motion, :func:`reestablish_drive` sets the stored drive on the
+withdrawn lever and checks that it oscillates as it did when the series began (same free amplitude within
+15 %, common practice, no source); a different lever, a shifted resonance or a different simulated scenario is
+refused with both numbers instead of being driven towards the surface with a setpoint it cannot reach.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+from dataclasses import dataclass
+from pathlib import Path
+
+from assistant.procedures.calibrate import CalibrationSettings, DriveSettings
+from assistant.procedures.events import CancelToken, Notice, Sink, null_sink
+from assistant.procedures.guard import SafetyLimits, safety_guard
+from assistant.procedures.series import SeriesSettings
+from assistant.procedures.workflow import drive_from_json
+
+AMPLITUDE_TOLERANCE = 0.15  # free amplitude at the stored drive, relative (common practice, no source)
+PHASE_TOLERANCE_DEG = 2.0   # free phase at the drive frequency; beyond it the resumed lines carry an offset
+
+
+class ResumeError(ValueError):
+    """The file has nothing to resume, or lacks what a resume needs; one line naming it."""
+
+
+class InstrumentMismatch(ValueError):
+    """The instrument does not reproduce the drive stored in the session file."""
+
+
+@dataclass(frozen=True)
+class ResumePoint:
+    """What an interrupted session file holds and what is left to do."""
+
+    path: Path
+    stage: str                         # "start", "scan" or "analyse"
+    settings: SeriesSettings
+    calibration: CalibrationSettings | None  # from the run plan (stage "start")
+    probe_record: bool
+    drive: DriveSettings | None
+    spring_constant_n_per_m: float | None
+    quality_factor: float | None
+    temperature_k: float
+    completed_lines: int
+    scenario_text: str | None
+    controller_url: str
+
+
+def run_plan_json(settings: SeriesSettings, calibration: CalibrationSettings, *, probe_record: bool) -> str:
+    """The run plan kept in the session file before anything moves (see ``SessionFile.write_run_plan``)."""
+    return json.dumps({"series": json.loads(settings.to_json()), "calibration": dataclasses.asdict(calibration),
+                       "probe_record": bool(probe_record)})
+
+
+def read_resume_point(path: str | Path) -> ResumePoint:
+    """Read what is left to do from an interrupted session file (opened read-only and closed again)."""
+    from assistant.storage.session_file import SessionFile
+
+    path = Path(path)
+    if not path.is_file():
+        raise ResumeError(f"resume file {path} does not exist")
+    with SessionFile.open(path, "r") as sf:  # raises a clear error for files that are not session files
+        info = sf.info()
+        names = sf.series_names()
+        plan_text = sf.read_run_plan()
+        if info.complete:
+            what = f"series {names[-1]!r} in {path}" if names else str(path)
+            raise ResumeError(f"{what} is already complete; nothing to resume")
+        plan = json.loads(plan_text) if plan_text else None
+        common = dict(path=path, scenario_text=info.scenario_text, controller_url=info.controller_url,
+                      probe_record=bool(plan and plan.get("probe_record")))
+        if not names:
+            if plan is None:
+                raise ResumeError(f"{path} has no series to resume and no run plan to start one from")
+            return ResumePoint(stage="start", settings=SeriesSettings.from_json(json.dumps(plan["series"])),
+                               calibration=CalibrationSettings(**plan["calibration"]), drive=None,
+                               spring_constant_n_per_m=None, quality_factor=None, temperature_k=295.15,
+                               completed_lines=0, **common)
+        data = sf.read_series(names[-1])
+    stored = json.loads(data.settings_json)
+    drive = stored.pop("drive", None)
+    k, q = stored.pop("spring_constant_n_per_m", None), stored.pop("quality_factor", None)
+    t = stored.pop("temperature_k", None) or 295.15
+    settings = SeriesSettings.from_json(json.dumps(stored))
+    stage = "analyse" if data.finished else "scan"
+    if stage == "scan" and drive is None:
+        raise ResumeError(f"series {names[-1]!r} in {path} stores no drive settings, so its lines cannot be "
+                          "continued with the same drive; start a new run")
+    return ResumePoint(stage=stage, settings=settings, calibration=None,
+                       drive=None if drive is None else drive_from_json(drive), spring_constant_n_per_m=k,
+                       quality_factor=q, temperature_k=float(t), completed_lines=data.completed_lines, **common)
+
+
+def reestablish_drive(controller, drive: DriveSettings, *, limits: SafetyLimits | None = None,
+                      sink: Sink = null_sink, cancel: CancelToken | None = None) -> dict:
+    """Withdraw, set the stored drive and check the free oscillation against the stored one, before any coarse
+    motion. Returns what was measured; raises :class:`InstrumentMismatch` when the lever does not respond as
+    stored. Runs inside the safety guard (the stage is left safe on any failure)."""
+    limits = limits or SafetyLimits()
+    cancel = cancel or CancelToken()
+    with safety_guard(controller, sink=sink):
+        controller.make_safe()  # whatever state the stopped run left: withdrawn, drive off, bias 0 V
+        status = controller.status()
+        cancel.raise_if_set()
+        limits.check_drive(drive.amplitude_v)
+        controller.set_drive(drive.frequency_hz, drive.amplitude_v)
+        readings = [controller.read(["amplitude_v", "phase_deg", "sum_v"]) for _ in range(4)]
+        limits.check_sum(min(r["sum_v"] for r in readings))
+        amp = sum(float(r["amplitude_v"]) for r in readings) / len(readings)
+        phase = sum(float(r["phase_deg"]) for r in readings) / len(readings)
+        ratio = amp / drive.free_amplitude_v
+        if not abs(ratio - 1.0) <= AMPLITUDE_TOLERANCE:
+            controller.drive_off()
+            raise InstrumentMismatch(
+                f"at the stored drive ({drive.frequency_hz:.1f} Hz, {drive.amplitude_v * 1e3:.1f} mV) the free "
+                f"amplitude is {amp * 1e3:.1f} mV, but the session file recorded {drive.free_amplitude_v * 1e3:.1f} "
+                "mV: not the lever, resonance or scenario the series ran with; resume on that instrument or start "
+                "a new run")
+        shift = phase - drive.phase_reference_deg
+        if abs(shift) > PHASE_TOLERANCE_DEG:
+            sink(Notice("warning", f"the free phase at the drive frequency moved by {shift:+.2f} deg since the "
+                                   "series began (resonance drift?): the resumed lines carry that offset"))
+        sink(Notice("info", f"drive re-established: free amplitude {amp * 1e3:.1f} mV "
+                            f"({(ratio - 1) * 100:+.1f} % of the stored), coarse motor at "
+                            f"{status.coarse_position_m * 1e6:.2f} µm as the controller reports it"))
+    return {"free_amplitude_v": amp, "free_phase_deg": phase, "amplitude_ratio": ratio,
+            "coarse_position_m": status.coarse_position_m}
