@@ -81,11 +81,11 @@ def run(args) -> int:
     progress = StderrProgress(quiet=False)
     if args.resume:
         return _resume(args, limits, progress)
-    out = _writable_dir(args.out)
     series_settings = _series_settings(args)
     _plan(series_settings, limits)
     cal_settings = calibration_settings(args)
     cal_settings.validate()
+    out = _writable_dir(args.out)
     stamp = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
     session_path = out / f"session-{stamp}.h5"
     extra = {"pace": args.pace, "line_rate": args.line_rate} if scheme_of(args.controller) == "sim" else {}

@@ -14,7 +14,7 @@ import itertools
 import numpy as np
 import pytest
 
-from tests.cli.kill_resume import LINES, serve, stop, trial
+from tests.cli.kill_resume import LINES, serve, stop, trial, without_pngs
 
 TRIALS = 24
 SERIES_S = {"realtime": LINES * 5 / 20, "fast": 0.3}  # 10 lines x 5 passes at 20 lines/s; fast: computing only
@@ -30,7 +30,8 @@ def moment(anchor: str, pace: str, rng) -> tuple[float, bool]:
 
 
 @pytest.mark.slow
-def test_kill_at_random_moments_then_resume(tmp_path, capsys):
+def test_kill_at_random_moments_then_resume(tmp_path, capsys, monkeypatch):
+    without_pngs(monkeypatch)
     rng = np.random.default_rng(20261204)
     combos = list(itertools.product(("sigkill", "sigint"), ("fast", "realtime"), ("sim", "zmq", "serial")))
     anchors = ("start", "series", "late")

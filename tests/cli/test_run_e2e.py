@@ -101,9 +101,12 @@ pixel_nm = 20.0
 """
 
 
-def test_sigkill_mid_series_then_resume_keeps_every_line(tmp_path, capsys):
+def test_sigkill_mid_series_then_resume_keeps_every_line(tmp_path, capsys, monkeypatch):
     # one kill in the default suite; tests/cli/test_kill_resume.py (slow) draws many, by SIGKILL and Ctrl-C, at
     # both paces, on sim:// and over both links, at moments from the start-up to the report
+    from tests.cli.kill_resume import without_pngs
+
+    without_pngs(monkeypatch)
     scenario = tmp_path / "probe.toml"
     scenario.write_text(PROBE_ONLY)
     rng = np.random.default_rng(2024)
@@ -160,23 +163,25 @@ def test_ctrl_c_withdraws_and_exits_130(tmp_path):
     (["--resume", "nothing.h5"], "does not exist"),
     (["--scenario", "no-such-scenario"], "no-such-scenario"),
 ])
-def test_bad_input_exit_2(tmp_path, argv, needle):
-    out = mfma("run", *argv, cwd=tmp_path)
-    assert out.returncode == 2, out.stderr
-    assert needle in out.stderr and "Traceback" not in out.stderr
-    assert len(out.stderr.strip().splitlines()) == 1
+def test_bad_input_exit_2(tmp_path, capsys, argv, needle):
+    out = tmp_path / "out"
+    assert main(["run", *argv, "--out", str(out)]) == 2  # in this process: the checks need no interpreter start
+    err = capsys.readouterr().err
+    assert needle in err and "Traceback" not in err
+    assert len(err.strip().splitlines()) == 1
+    assert not out.exists() or not any(out.iterdir())  # nothing written before the checks
 
 
-def test_resume_rejects_a_file_that_is_not_a_session(tmp_path):
+def test_resume_rejects_a_file_that_is_not_a_session(tmp_path, capsys):
     bogus = tmp_path / "bogus.h5"
     with h5py.File(bogus, "w") as f:
         f["x"] = np.arange(3)
-    out = mfma("run", "--resume", str(bogus), cwd=tmp_path)
-    assert out.returncode == 2 and "session" in out.stderr.lower()
+    assert main(["run", "--resume", str(bogus)]) == 2
+    assert "session" in capsys.readouterr().err.lower()
 
 
-def test_unwritable_output_folder(tmp_path):
+def test_unwritable_output_folder(tmp_path, capsys):
     blocker = tmp_path / "file"
     blocker.write_text("")
-    out = mfma("run", "--out", str(blocker / "sub"), cwd=tmp_path)
-    assert out.returncode == 2 and "output folder" in out.stderr
+    assert main(["run", "--out", str(blocker / "sub")]) == 2
+    assert "output folder" in capsys.readouterr().err
