@@ -113,3 +113,13 @@ def test_two_heights_are_analysed_without_the_decomposition(tmp_path, capsys):
     assert main(["analyze", "series", str(path), "--json"]) == 2
     captured = capsys.readouterr()
     assert captured.out == "" and "has 2" in captured.err
+
+
+def test_analyze_series_refuses_a_two_height_stack(tmp_path, capsys):
+    import numpy as np
+
+    path = tmp_path / "two.npz"
+    np.savez(path, phase_deg=np.zeros((2, 8, 8)), heights_nm=[20.0, 40.0], pixel_nm=10.0)
+    assert main(["analyze", "series", str(path), "--json"]) == 2
+    captured = capsys.readouterr()
+    assert captured.out == "" and "has 2" in captured.err and len(captured.err.strip().splitlines()) == 1
