@@ -96,7 +96,7 @@ def wait_for_first_line(proc: subprocess.Popen, timeout_s: float = 180) -> bool:
     """Read the run's stderr until its first scan line is reported; False if the run ended first."""
     t0 = time.monotonic()
     for line in proc.stderr:
-        if line.startswith("series:"):
+        if line.startswith("series ") and " of " in line:  # "series 1 of 10 lines", the plain progress line
             return True
         assert time.monotonic() - t0 < timeout_s, "the series never started"
     return False

@@ -74,7 +74,7 @@ def _start(cwd: Path, *argv: str) -> subprocess.Popen:
 def _wait_for_series(proc: subprocess.Popen, timeout_s: float = 120) -> None:
     t0 = time.monotonic()
     for line in proc.stderr:
-        if line.startswith("series:") or "series: " in line:
+        if line.startswith("series ") and " of " in line:  # "series 1 of 12 lines", the plain progress line
             return
         assert time.monotonic() - t0 < timeout_s, "series never started"
     raise AssertionError(f"run ended before the series: {proc.wait()}")
@@ -110,8 +110,9 @@ def test_sigkill_mid_series_then_resume_keeps_every_line(tmp_path, capsys, monke
     scenario = tmp_path / "probe.toml"
     scenario.write_text(PROBE_ONLY)
     rng = np.random.default_rng(2024)
-    # realtime pace: after the first line the series still has 11 lines x 5 passes at 20 lines/s, 2.75 s
-    proc = _start(tmp_path, "run", *KILL, "--scenario", str(scenario), "--pace", "realtime", "--line-rate", "20")
+    # realtime pace: 20 lines x 5 passes at 20 lines/s, 5 s; the first progress line may come up to 1 s late
+    proc = _start(tmp_path, "run", *KILL, "--lines", "20", "--scenario", str(scenario), "--pace", "realtime",
+                  "--line-rate", "20")
     _wait_for_series(proc)
     time.sleep(float(rng.uniform(0.0, 1.5)))
     os.kill(proc.pid, signal.SIGKILL)
@@ -122,13 +123,13 @@ def test_sigkill_mid_series_then_resume_keeps_every_line(tmp_path, capsys, monke
         done = int(s.attrs["completed_lines"])
         before = {k: s[k][..., :done, :].copy() for k in ("phase_deg", "amplitude_v", "topography_m")}
         assert all(np.all(np.isfinite(v)) for v in before.values())
-    assert 0 < done < 12
+    assert 0 < done < 20
     # resumed in this process, without --scenario: the stage is rebuilt from the scenario stored in the file
     assert main(["run", "--resume", str(session)]) == 0, capsys.readouterr().err
     assert "drive re-established" in capsys.readouterr().err
     with h5py.File(session, "r") as f:
         s = f["series/series1"]
-        assert int(s.attrs["completed_lines"]) == 12 and bool(f.attrs["complete"])
+        assert int(s.attrs["completed_lines"]) == 20 and bool(f.attrs["complete"])
         for key, old in before.items():
             assert s[key][..., :done, :].tobytes() == old.tobytes()
         assert np.all(np.isfinite(s["phase_deg"][...]))

@@ -91,7 +91,7 @@ def test_killed_server_ends_the_run_and_resume_finishes(tmp_path, capsys, monkey
                                   cwd=tmp_path, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
         server2, url2 = serve_quick("zmq", tmp_path, pace="fast")
         for line in client.stderr:
-            if line.startswith("series:"):
+            if line.startswith("series ") and " of " in line:  # the first plain progress line of the series
                 break
         time.sleep(0.3)
         killed_at = time.monotonic()
