@@ -213,10 +213,17 @@ class ImagingAnalysis:
         return None if self.parabola is None else self.parabola.cpd_std_v
 
     @property
+    def cpd_needs_sentence(self) -> str:
+        n = 0 if self.bias_v is None else int(np.unique(self.bias_v).size)
+        return f"V_cpd needs at least three distinct biases; this series has {n}."
+
+    @property
     def messages(self) -> tuple[str, ...]:
         out = [self.decomposition_sentence, self.noise.sentence]
         if self.parabola is not None:
             out.append(self.parabola.sentence)
+        elif self.bias_v is not None:
+            out.append(self.cpd_needs_sentence)
         if self.tip_change is not None:
             out.append(self.tip_change.sentence)
         return tuple(out)
@@ -245,6 +252,8 @@ class ImagingAnalysis:
         }
         if self.bias_v is not None:
             out["bias_v"] = lst(self.bias_v)
+            if self.parabola is None:
+                out["cpd_sentence"] = self.cpd_needs_sentence
         if self.parabola is not None:
             out.update(cpd_v=self.parabola.cpd_v, cpd_std_v=self.parabola.cpd_std_v, cpd_sentence=self.parabola.sentence,
                        bias_parabola_reduced_chi2=self.parabola.reduced_chi2)

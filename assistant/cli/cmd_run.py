@@ -37,9 +37,7 @@ def _series_settings(args):
 
     heights = tuple(h * 1e-9 for h in args.heights) if args.heights else DEFAULT_HEIGHTS_M
     biases = tuple(args.biases)
-    if len(biases) == 2:
-        raise UsageError("--biases: give one bias (no grid) or at least three biases for a bias grid, got two")
-    grid = biases if len(biases) >= 3 else None
+    grid = biases if len(biases) >= 2 else None  # two only with one or two heights (checked with the plan)
     return SeriesSettings(heights_m=heights, biases_v=grid, bias_v=biases[0] if grid is None else 0.0,
                           lines=args.lines, pixels=args.pixels,
                           scan_size_m=args.size_um * 1e-6, line_rate_hz=args.line_rate,

@@ -36,8 +36,10 @@ def _what_it_gives(s: SeriesSettings) -> tuple[str, str]:
 
     n = len(s.heights_m)
     parts = []
-    if s.biases_v:
+    if s.biases_v and len(s.biases_v) >= 3:
         parts.append(f"V_cpd from {len(s.biases_v)} biases")
+    elif s.biases_v:
+        parts.append(f"images at {len(s.biases_v)} biases (V_cpd needs three)")
     if s.repeat_first:
         parts.append("the repeat check for a changed sample")
     extra = (", " + ", ".join(parts)) if parts else ""

@@ -90,7 +90,7 @@ def _lift_text(d: dict) -> str:
 def _bias_text(d: dict) -> str:
     cpd = _num(d.get("cpd_v"))
     if cpd is None and d.get("cpd_sentence"):  # a bias grid whose image mean did not vary beyond noise
-        return "not determined: " + str(d["cpd_sentence"]).split(":")[0].rstrip(". ")
+        return "not determined: " + str(d["cpd_sentence"]).rstrip(". ")
     if cpd is None:
         return "not measured (needs a bias grid of three or more biases)"
     return f"{quantity(cpd, 'V', _num(d.get('cpd_std_v')))} (V_cpd: nulls the electrostatic part)"

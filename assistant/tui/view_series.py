@@ -14,7 +14,7 @@ from textual_plotext import PlotextPlot
 from assistant.formatting import duration, number_list
 from assistant.tui.colours import symmetric_limit
 from assistant.tui.plots import redraw
-from assistant.tui.view_base import FieldError, View
+from assistant.tui.view_base import View
 from assistant.tui.widgets import Field, HalfBlockImage, ScaleKey
 
 LINE_PLOT_INTERVAL_S = 1.0
@@ -129,8 +129,6 @@ class SeriesView(View):
     def checked_settings(self):
         """Settings from the form, validated as the procedure will validate them; raises with the reason."""
         s = self.settings()
-        if s.biases_v is not None and len(s.biases_v) < 3:
-            raise FieldError(f"biases: a bias grid needs at least three biases, got {len(s.biases_v)}")
         self.plan_sentence = self.app.validate_series(s).sentence
         return s
 

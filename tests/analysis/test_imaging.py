@@ -135,3 +135,15 @@ def test_bad_input_names_the_problem():
         analyse_imaging(np.zeros((1, 3, 8, 8)), heights_m=[10e-9])
     with pytest.raises(ImagingInputError, match="3 distinct"):
         fit_bias_parabola(np.zeros((1, 3, 8, 8)), bias_v=[0.0, 0.0, 1.0])
+
+
+def test_two_biases_give_images_and_say_why_there_is_no_cpd(clean_single):
+    rng = np.random.default_rng(8)
+    two = noisy(clean_single.phase_deg[:, [0, 4]], rng, pixel_deg=0.03, line_deg=0.0)
+    a = analyse_imaging(two, heights_m=clean_single.heights_m, bias_v=BIASES[[0, 4]])
+    d = a.to_dict()
+    assert a.parabola is None and d["cpd_sentence"].startswith("V_cpd needs at least three")
+    assert "cpd_v" not in d and np.asarray(d["image_mean_deg"]).shape == (1, 2)
+    # the noise from the difference of the two bias images (same magnetic contrast): the 0.03 deg put in
+    assert a.noise_source.startswith("the difference of two bias images")
+    assert a.reference_noise_deg == pytest.approx(0.03, rel=0.1)

@@ -72,3 +72,11 @@ def test_run_refuses_before_anything_is_written(tmp_path, capsys, argv, needle):
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and needle in err[0]
     assert not list(tmp_path.glob("session-*.h5"))  # refused before the session file and any motion
+
+
+def test_two_biases_image_one_height_but_not_a_decomposition():
+    two = replace(BASE, heights_m=(30e-9,), biases_v=(0.0, 0.4))
+    plan = check_series_plan(two, limits=SafetyLimits())
+    assert plan.analysis == "imaging" and "images at 2 biases (V_cpd needs three)" in plan.sentence
+    with pytest.raises(PlanError, match="needs at least three biases, got 2"):
+        check_series_plan(replace(two, heights_m=BASE.heights_m), limits=SafetyLimits())
