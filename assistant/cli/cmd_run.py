@@ -69,17 +69,19 @@ def _plan(settings, limits, *, controller=None, sink=None):
 
 
 def run(args) -> int:
+    from assistant.cli.interrupts import remember_interrupts
     from assistant.cli.progress import StageProgress
     from assistant.procedures.guard import load_limits
 
-    limits = load_limits(args.limits)
-    with StageProgress() as progress:
-        if args.resume:
-            return _resume(args, limits, progress)
-        return _run(args, limits, progress)
+    with remember_interrupts() as latch:  # a Ctrl-C while the libraries load is honoured before any motion
+        limits = load_limits(args.limits)
+        with StageProgress() as progress:
+            if args.resume:
+                return _resume(args, limits, progress, latch)
+            return _run(args, limits, progress, latch)
 
 
-def _run(args, limits, progress) -> int:
+def _run(args, limits, progress, latch) -> int:
     from assistant.procedures.resume import run_plan_json
     from assistant.procedures.workflow import Workflow
     from assistant.report.summary import build_report
@@ -101,9 +103,13 @@ def _run(args, limits, progress) -> int:
 
             # the plan goes first, so a run stopped at any moment leaves a file that can be resumed
             wf.session.write_run_plan(run_plan_json(series_settings, cal_settings, probe_record=bool(args.probe)))
+            latch.check()
             wf.calibrate(cal_settings, probe_record=ProbeRecord() if args.probe else None)
+            latch.check()
             wf.approach()
+            latch.check()
             wf.series(series_settings)
+            latch.check()
             with progress.stage("analysis", "decomposing the series"):
                 analysis = wf.analyse()
             wf.session.mark_complete()
@@ -116,7 +122,7 @@ def _run(args, limits, progress) -> int:
     return _finish(args, session_path, report, wf, analysis)
 
 
-def _resume(args, limits, progress) -> int:
+def _resume(args, limits, progress, latch) -> int:
     from assistant.procedures.events import Notice
     from assistant.procedures.resume import read_resume_point, reestablish_drive
     from assistant.report.summary import build_report
@@ -142,6 +148,7 @@ def _resume(args, limits, progress) -> int:
                       fsync=args.fsync, before_write=_writer_hook(ctl))
         wf._session = SessionFile.open(path, "a")
         try:
+            latch.check()
             if point.stage == "start":
                 from assistant.storage.probe_record import ProbeRecord
 
@@ -153,8 +160,11 @@ def _resume(args, limits, progress) -> int:
                 progress(Notice("info", f"resuming {settings.name} at line {point.completed_lines + 1} of "
                                         f"{settings.lines}"))
                 reestablish_drive(ctl, point.drive, limits=limits, sink=progress, cancel=wf.cancel)
+            latch.check()
             wf.approach()
+            latch.check()
             wf.series(settings, resume=point.stage == "scan")
+            latch.check()
             with progress.stage("analysis", "decomposing the series"):
                 analysis = wf.analyse()
             wf.session.mark_complete()

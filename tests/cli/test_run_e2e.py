@@ -110,11 +110,13 @@ def test_sigkill_mid_series_then_resume_keeps_every_line(tmp_path, capsys, monke
     scenario = tmp_path / "probe.toml"
     scenario.write_text(PROBE_ONLY)
     rng = np.random.default_rng(2024)
-    # realtime pace: 20 lines x 5 passes at 20 lines/s, 5 s; the first progress line may come up to 1 s late
+    # realtime pace: 20 lines x 5 passes at 20 lines/s, 5 s
     proc = _start(tmp_path, "run", *KILL, "--lines", "20", "--scenario", str(scenario), "--pace", "realtime",
                   "--line-rate", "20")
-    _wait_for_series(proc)
-    time.sleep(float(rng.uniform(0.0, 1.5)))
+    for line in proc.stderr:  # the tip engaged: the series starts now (notices are written at once)
+        if line.startswith("engaged:"):
+            break
+    time.sleep(float(rng.uniform(0.5, 2.5)))
     os.kill(proc.pid, signal.SIGKILL)
     proc.wait()
     session = next((tmp_path / "mfma-out").glob("session-*.h5"))
