@@ -79,7 +79,7 @@ def read_resume_point(path: str | Path) -> ResumePoint:
         plan_text = sf.read_run_plan()
         if info.complete:
             what = f"series {names[-1]!r} in {path}" if names else str(path)
-            raise ResumeError(f"{what} is already complete; nothing to resume")
+            raise ResumeError(f"{what} is already complete; nothing to resume (mfma report writes its report again)")
         plan = json.loads(plan_text) if plan_text else None
         common = dict(path=path, scenario_text=info.scenario_text, controller_url=info.controller_url,
                       probe_record=bool(plan and plan.get("probe_record")))
