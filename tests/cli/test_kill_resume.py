@@ -32,6 +32,7 @@ def moment(anchor: str, pace: str, rng) -> tuple[float, bool]:
 
 
 @pytest.mark.slow
+@pytest.mark.timeout(3600)  # 24 trials take 3-5 min on two loaded cores; KILL_TRIALS=48 twice that
 def test_kill_at_random_moments_then_resume(tmp_path, capsys, monkeypatch):
     without_pngs(monkeypatch)
     rng = np.random.default_rng(20261204)
