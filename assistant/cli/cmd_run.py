@@ -114,8 +114,7 @@ def _run(args, limits, progress, latch) -> int:
                 analysis = wf.analyse()
             wf.session.mark_complete()
             wf.session.flush()
-            report = build_report(session_path, report_dir_for(session_path),
-                                  analyses={wf.series_settings.name: analysis}, sink=progress,
+            report = build_report(session_path, report_dir_for(session_path), sink=progress,
                                   per_height_scale=args.per_height_scale)
         finally:
             wf.close()
@@ -124,84 +123,72 @@ def _run(args, limits, progress, latch) -> int:
 
 def _resume(args, limits, progress, latch) -> int:
     from assistant.procedures.events import Notice
-    from assistant.procedures.resume import read_resume_point, reestablish_drive
-    from assistant.report.summary import build_report
+    from assistant.procedures.resume import read_resume_plan, reestablish_drive
     from assistant.procedures.workflow import Workflow
-    from assistant.storage.session_file import SessionFile
-    from drivers.registry import redact, scheme_of
+    from assistant.report.summary import build_report
+    from drivers.registry import scheme_of
 
-    point = read_resume_point(args.resume)
-    path, settings = point.path, point.settings
-    if point.stage == "analyse":  # every line is written: analyse and report, no instrument needed
-        return _finish_stored(args, point, progress)
+    plan = read_resume_plan(args.resume)  # what is left: start, scan or analyse (see procedures/resume.py)
+    path, settings = plan.path, plan.series
+    if plan.stage == "analyse":  # every line is written: analyse and report, no instrument needed
+        return _finish_stored(args, plan, progress)
     _plan(settings, limits)
     extra = {}
     if scheme_of(args.controller) == "sim":
         extra = {"pace": args.pace, "line_rate": settings.line_rate_hz}
-        if not args.scenario and point.scenario_text:  # the simulated stage the file was recorded on
+        if not args.scenario and plan.scenario_text:  # the simulated stage the file was recorded on
             from simulated_stage.scenario import Scenario
 
-            extra["scenario"] = Scenario.from_text(point.scenario_text, name="stored")
+            extra["scenario"] = Scenario.from_text(plan.scenario_text, name="stored")
     with open_controller_from_args(args, **extra) as ctl:
         _plan(settings, limits, controller=ctl)  # before the first motion
-        wf = Workflow(ctl, path, controller_url=redact(args.controller), limits=limits, sink=progress,
-                      fsync=args.fsync, before_write=_writer_hook(ctl))
-        wf._session = SessionFile.open(path, "a")
+        wf = Workflow.resume(ctl, plan, limits=limits, sink=progress, fsync=args.fsync,
+                             before_write=_writer_hook(ctl))
         try:
             latch.check()
-            if point.stage == "start":
+            if plan.stage == "start":
                 from assistant.storage.probe_record import ProbeRecord
 
                 progress(Notice("info", f"resuming {path.name}: stopped before its series began; starting it"))
-                wf.calibrate(point.calibration, probe_record=ProbeRecord() if point.probe_record else None)
+                wf.calibrate(plan.calibration, probe_record=ProbeRecord() if plan.probe_record else None)
             else:
-                wf.restore_drive(point.drive, spring_constant_n_per_m=point.spring_constant_n_per_m,
-                                 quality_factor=point.quality_factor, temperature_k=point.temperature_k)
-                progress(Notice("info", f"resuming {settings.name} at line {point.completed_lines + 1} of "
+                progress(Notice("info", f"resuming {settings.name} at line {plan.completed_lines + 1} of "
                                         f"{settings.lines}"))
-                reestablish_drive(ctl, point.drive, limits=limits, sink=progress, cancel=wf.cancel)
+                reestablish_drive(ctl, plan.drive, limits=limits, sink=progress, cancel=wf.cancel)
             latch.check()
             wf.approach()
             latch.check()
-            wf.series(settings, resume=point.stage == "scan")
+            wf.series(settings, resume=plan.stage == "scan")
             latch.check()
             with progress.stage("analysis", "decomposing the series"):
                 analysis = wf.analyse()
             wf.session.mark_complete()
             wf.session.flush()
-            report = build_report(path, report_dir_for(path), analyses={wf.series_settings.name: analysis},
-                                  sink=progress, per_height_scale=args.per_height_scale)
+            report = build_report(path, report_dir_for(path), sink=progress, per_height_scale=args.per_height_scale)
         finally:
             wf.close()
     return _finish(args, path, report, wf, analysis)
 
 
-def _finish_stored(args, point, progress) -> int:
+def _finish_stored(args, plan, progress) -> int:
     """The series was complete when the run stopped: the analysis, the report and the complete flag."""
     from assistant.procedures.analyse import analyse_session_series
+    from assistant.procedures.events import Notice
     from assistant.procedures.series import SeriesResult
     from assistant.procedures.workflow import Workflow
     from assistant.report.summary import build_report
-    from assistant.storage.session_file import SessionFile
 
-    path, s = point.path, point.settings
-    from assistant.procedures.events import Notice
-
+    path, s = plan.path, plan.series
     progress(Notice("info", f"resuming {path.name}: every line is written; analyzing and reporting"))
-    wf = Workflow(None, path, sink=progress, fsync=args.fsync)
-    wf._session = SessionFile.open(path, "a")
+    wf = Workflow.resume(None, plan, sink=progress, fsync=args.fsync)
     try:
-        if point.drive is not None:
-            wf.restore_drive(point.drive, spring_constant_n_per_m=point.spring_constant_n_per_m,
-                             quality_factor=point.quality_factor, temperature_k=point.temperature_k)
         wf.series_settings = s
-        wf.series_result = SeriesResult(s.name, s.heights_m, point.completed_lines, s.lines, 0.0)
+        wf.series_result = SeriesResult(s.name, s.heights_m, plan.completed_lines, s.lines, 0.0)
         with progress.stage("analysis", "decomposing the series"):
             analysis = wf.analysis = analyse_session_series(wf.session, s.name, sink=progress)
         wf.session.mark_complete()
         wf.session.flush()
-        report = build_report(path, report_dir_for(path), analyses={s.name: analysis}, sink=progress,
-                              per_height_scale=args.per_height_scale)
+        report = build_report(path, report_dir_for(path), sink=progress, per_height_scale=args.per_height_scale)
     finally:
         wf.close()
     return _finish(args, path, report, wf, analysis)

@@ -12,13 +12,14 @@ from __future__ import annotations
 from collections.abc import Iterable
 from dataclasses import dataclass
 
+from assistant.errors import AssistantError
 from assistant.procedures.guard import SafetyError, SafetyLimits
 from assistant.procedures.series import SeriesSettings, SeriesSettingsError
 from drivers.base import Capability
 
 
 
-class PlanError(ValueError):
+class PlanError(AssistantError, ValueError):
     """A setting that would make the run fail later; the message is one line naming it."""
 
 

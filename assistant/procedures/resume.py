@@ -1,6 +1,7 @@
 """Resume an interrupted run from its session file, whatever moment it was stopped at.
 
-What the file says decides what is left to do (:func:`read_resume_point`):
+What the file says decides what is left to do (:func:`read_resume_plan`, giving a
+:class:`~assistant.procedures.workflow.ResumePlan` for :meth:`~assistant.procedures.workflow.Workflow.resume`):
 
 * ``"start"``: stopped before the series began (during the calibration or the approach): the run plan stored
   at the start says what was asked; calibrate, approach and scan from the first line.
@@ -21,54 +22,36 @@ from __future__ import annotations
 
 import dataclasses
 import json
-from dataclasses import dataclass
 from pathlib import Path
 
+from assistant.errors import AssistantError
 from assistant.procedures.calibrate import CalibrationSettings, DriveSettings
 from assistant.procedures.events import CancelToken, Notice, Sink, null_sink
 from assistant.procedures.guard import SafetyLimits, safety_guard
 from assistant.procedures.series import SeriesSettings
-from assistant.procedures.workflow import drive_from_json
+from assistant.procedures.workflow import CALIBRATION_KEYS, ResumePlan
 
 AMPLITUDE_TOLERANCE = 0.15  # free amplitude at the stored drive, relative (common practice, no source)
 PHASE_TOLERANCE_DEG = 2.0   # free phase at the drive frequency; beyond it the resumed lines carry an offset
 
 
-class ResumeError(ValueError):
+class ResumeError(AssistantError, ValueError):
     """The file has nothing to resume, or lacks what a resume needs; one line naming it."""
 
 
-class InstrumentMismatch(ValueError):
+class InstrumentMismatch(AssistantError, ValueError):
     """The instrument does not reproduce the drive stored in the session file."""
-
-
-@dataclass(frozen=True)
-class ResumePoint:
-    """What an interrupted session file holds and what is left to do."""
-
-    path: Path
-    stage: str                         # "start", "scan" or "analyse"
-    settings: SeriesSettings
-    calibration: CalibrationSettings | None  # from the run plan (stage "start")
-    probe_record: bool
-    drive: DriveSettings | None
-    spring_constant_n_per_m: float | None
-    quality_factor: float | None
-    temperature_k: float
-    completed_lines: int
-    scenario_text: str | None
-    controller_url: str
 
 
 def run_plan_json(settings: SeriesSettings, calibration: CalibrationSettings, *, probe_record: bool) -> str:
     """The run plan kept in the session file before anything moves (see ``SessionFile.write_run_plan``)."""
-    return json.dumps({"series": json.loads(settings.to_json()), "calibration": dataclasses.asdict(calibration),
+    return json.dumps({"series": settings.to_dict(), "calibration": dataclasses.asdict(calibration),
                        "probe_record": bool(probe_record)})
 
 
-def read_resume_point(path: str | Path) -> ResumePoint:
+def read_resume_plan(path: str | Path) -> ResumePlan:
     """Read what is left to do from an interrupted session file (opened read-only and closed again)."""
-    from assistant.storage.session_file import SessionFile
+    from assistant.storage import FinishedSeriesError, SessionFile, SessionFileError
 
     path = Path(path)
     if not path.is_file():
@@ -76,33 +59,33 @@ def read_resume_point(path: str | Path) -> ResumePoint:
     with SessionFile.open(path, "r") as sf:  # raises a clear error for files that are not session files
         info = sf.info()
         names = sf.series_names()
-        plan_text = sf.read_run_plan()
+        plan_text = info.run_plan_json
         if info.complete:
             what = f"series {names[-1]!r} in {path}" if names else str(path)
-            raise ResumeError(f"{what} is already complete; nothing to resume (mfma report writes its report again)")
+            raise FinishedSeriesError(f"{what} is already complete; nothing to resume (mfma report writes its "
+                                      "report again)")
         plan = json.loads(plan_text) if plan_text else None
-        common = dict(path=path, scenario_text=info.scenario_text, controller_url=info.controller_url,
-                      probe_record=bool(plan and plan.get("probe_record")))
+        common = dict(path=path, scenario_text=info.scenario_text, probe_record=bool(plan and plan.get("probe_record")))
         if not names:
             if plan is None:
-                raise ResumeError(f"{path} has no series to resume and no run plan to start one from")
-            return ResumePoint(stage="start", settings=SeriesSettings.from_json(json.dumps(plan["series"])),
-                               calibration=CalibrationSettings(**plan["calibration"]), drive=None,
-                               spring_constant_n_per_m=None, quality_factor=None, temperature_k=295.15,
-                               completed_lines=0, **common)
+                raise SessionFileError(f"{path} has no series to resume and no run plan to start one from")
+            return ResumePlan(stage="start", series=SeriesSettings.from_dict(plan["series"]),
+                              calibration=CalibrationSettings(**plan["calibration"]), completed_lines=0, drive=None,
+                              spring_constant_n_per_m=None, quality_factor=None, temperature_k=295.15, **common)
         data = sf.read_series(names[-1])
     stored = json.loads(data.settings_json)
-    drive = stored.pop("drive", None)
-    k, q = stored.pop("spring_constant_n_per_m", None), stored.pop("quality_factor", None)
-    t = stored.pop("temperature_k", None) or 295.15
-    settings = SeriesSettings.from_json(json.dumps(stored))
+    drive = stored.get("drive")
     stage = "analyse" if data.finished else "scan"
     if stage == "scan" and drive is None:
         raise ResumeError(f"series {names[-1]!r} in {path} stores no drive settings, so its lines cannot be "
                           "continued with the same drive; start a new run")
-    return ResumePoint(stage=stage, settings=settings, calibration=None,
-                       drive=None if drive is None else drive_from_json(drive), spring_constant_n_per_m=k,
-                       quality_factor=q, temperature_k=float(t), completed_lines=data.completed_lines, **common)
+    return ResumePlan(stage=stage, series=SeriesSettings.from_dict({k: v for k, v in stored.items()
+                                                                    if k not in CALIBRATION_KEYS}),
+                      drive=None if drive is None else DriveSettings(**{k: float(v) for k, v in drive.items()}),
+                      spring_constant_n_per_m=stored.get("spring_constant_n_per_m"),
+                      quality_factor=stored.get("quality_factor"),
+                      temperature_k=float(stored.get("temperature_k") or 295.15),
+                      completed_lines=data.completed_lines, **common)
 
 
 def reestablish_drive(controller, drive: DriveSettings, *, limits: SafetyLimits | None = None,

@@ -20,7 +20,8 @@ from matplotlib.colors import Normalize
 from matplotlib.figure import Figure
 
 from assistant.analysis.imaging import ImagingAnalysis
-from assistant.report.images import phase_colormap, save_png, shared_phase_limit
+from assistant.report.colours import symmetric_limit
+from assistant.report.images import phase_colormap, save_png
 
 __all__ = ["imaging_overview_figure", "bias_parabola_figure", "write_imaging_figures"]
 
@@ -35,13 +36,6 @@ def _padded(image: np.ndarray, lines: int) -> np.ndarray:
     out = np.full((lines, image.shape[-1]), np.nan)
     out[: image.shape[0]] = image
     return out
-
-
-def _symmetric(img) -> float:
-    v = np.abs(np.asarray(img, float))
-    v = v[np.isfinite(v)]
-    lim = float(np.percentile(v, 99.5)) if v.size else 0.0
-    return lim if lim > 0 else 1.0
 
 
 def imaging_overview_figure(data, a: ImagingAnalysis) -> Figure:
@@ -69,7 +63,7 @@ def imaging_overview_figure(data, a: ImagingAnalysis) -> Figure:
     fig = _new_figure((2.9 * cols + 1.6, 2.9 * (grid_rows + check_rows) + 1.0))
     top, bottom = fig.subfigures(2, 1, height_ratios=[grid_rows, check_rows])
     axes = top.subplots(grid_rows, cols, squeeze=False)
-    limit = shared_phase_limit([p for p, _ in panels] + ([] if repeat is None else [repeat]))
+    limit = symmetric_limit([p for p, _ in panels] + ([] if repeat is None else [repeat]))
     norm = Normalize(-limit, limit)
     cmap = phase_colormap()
     im = None
@@ -89,7 +83,7 @@ def imaging_overview_figure(data, a: ImagingAnalysis) -> Figure:
     if a.tip_change is not None:
         ax = lower.pop(0)
         diff = _padded(a.tip_change.difference_deg, data.lines)
-        lim = _symmetric(diff)
+        lim = symmetric_limit(diff)
         dim = ax.imshow(diff, origin="lower", extent=extent, cmap=cmap, norm=Normalize(-lim, lim),
                         interpolation="nearest")
         changed = _padded(a.tip_change.changed.astype(float), data.lines)

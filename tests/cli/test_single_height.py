@@ -68,10 +68,10 @@ def test_analyze_series_refuses_a_single_height_file_with_one_line(single, capsy
 
 def two_height_session(path: Path) -> Path:
     """A session file of two heights, one bias, with a repeat pass, written through the session-file API from a
-    stack built from the published physics (tests/analysis/synthetic_series.py)."""
+    stack built from the published physics (tests/analysis/lift_series/synthetic_series.py)."""
     from assistant.procedures.series import SeriesSettings
     from assistant.storage.session_file import SessionFile
-    from tests.analysis import synthetic_series as synthetic
+    from tests.analysis.lift_series import synthetic_series as synthetic
 
     s = synthetic.build_series(rows=16, cols=32, pixel_m=25e-9, heights_m=(20e-9, 40e-9), noise_deg=0.03,
                                repeat=True, margin_px=8, seed=12)

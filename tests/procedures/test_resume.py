@@ -13,11 +13,11 @@ from assistant.cli import main
 from assistant.procedures.approach import ApproachSettings, ApproachSettingsError, approach
 from assistant.procedures.calibrate import CalibrationSettings
 from assistant.procedures.events import Cancelled, Progress
-from assistant.procedures.resume import (InstrumentMismatch, ResumeError, read_resume_point, reestablish_drive,
+from assistant.procedures.resume import (InstrumentMismatch, read_resume_plan, reestablish_drive,
                                          run_plan_json)
 from assistant.procedures.series import SeriesSettings
 from assistant.procedures.workflow import Workflow
-from assistant.storage.session_file import SessionFile
+from assistant.storage import FinishedSeriesError, SessionFile, SessionFileError
 from drivers.registry import open_controller
 
 # the scenario of the report: a lever that is not the default one (k, f0, Q, InvOLS), nothing else
@@ -60,8 +60,8 @@ def interrupted(tmp_path_factory):
 
 
 def test_resume_point_of_an_interrupted_series(interrupted):
-    p = read_resume_point(interrupted)
-    assert (p.stage, p.completed_lines, p.settings.heights_m) == ("scan", 3, SERIES.heights_m)
+    p = read_resume_plan(interrupted)
+    assert (p.stage, p.completed_lines, p.series.heights_m) == ("scan", 3, SERIES.heights_m)
     assert p.drive is not None and p.drive.frequency_hz == pytest.approx(71000, rel=0.01)
     assert "resonance_hz = 71000" in p.scenario_text
 
@@ -92,7 +92,7 @@ def test_resume_on_another_lever_is_refused_before_anything_moves(interrupted, t
 
 
 def test_reestablish_measures_the_drive_and_leaves_the_coarse_motor_alone(interrupted):
-    p = read_resume_point(interrupted)
+    p = read_resume_plan(interrupted)
     from simulated_stage.scenario import Scenario
 
     with open_controller("sim://", scenario=Scenario.from_text(p.scenario_text)) as ctl:
@@ -117,18 +117,18 @@ def test_what_is_left_is_read_from_the_file(tmp_path, interrupted):
     plan_only = tmp_path / "plan.h5"  # stopped during the calibration: only the plan is there
     with SessionFile.create(plan_only, controller_url="sim://", software_version="test") as sf:
         sf.write_run_plan(run_plan_json(SERIES, CalibrationSettings(thermal_seconds=0.3), probe_record=False))
-    p = read_resume_point(plan_only)
-    assert p.stage == "start" and p.calibration.thermal_seconds == 0.3 and p.settings == SERIES
+    p = read_resume_plan(plan_only)
+    assert p.stage == "start" and p.calibration.thermal_seconds == 0.3 and p.series == SERIES
     bare = tmp_path / "bare.h5"
     SessionFile.create(bare, controller_url="sim://", software_version="test").close()
-    with pytest.raises(ResumeError, match="no series to resume"):
-        read_resume_point(bare)
+    with pytest.raises(SessionFileError, match="no series to resume"):
+        read_resume_plan(bare)
     finished = tmp_path / "finished.h5"  # every line written, the analysis not: no motion left to do
     finished.write_bytes(interrupted.read_bytes())
     with h5py.File(finished, "r+") as f:
         f["series/series1"].attrs.modify("completed_lines", 8)
-    assert read_resume_point(finished).stage == "analyse"
+    assert read_resume_plan(finished).stage == "analyse"
     with h5py.File(finished, "r+") as f:
         f.attrs["complete"] = True
-    with pytest.raises(ResumeError, match="already complete"):
-        read_resume_point(finished)
+    with pytest.raises(FinishedSeriesError, match="already complete"):
+        read_resume_plan(finished)
