@@ -101,19 +101,22 @@ def fit_bias_parabola(stack, *, bias_v, attractive_sign: float = 1.0, min_signif
     sigma = float(np.sqrt(np.nansum(r**2) / max(dof, 1)))
     sd = np.repeat((sigma / np.sqrt(n_lines))[:, None], nb, axis=1)
     sd = np.maximum(sd, 1e-300)
-    fit = fit_mean_bias_grid(mean, sd, bias_v=volts)
-    # the errors come from the line scatter, measured on many degrees of freedom; the fit's own scaling by the
-    # reduced chi-square of the few image means (H B - 2H - 1 degrees of freedom) would inflate them at random
-    # (by 13 % on average at 5 biases), so it is undone and applied only where the parabola misfits clearly
-    fit_dof = nh * nb - (2 * nh + 1)
-    cov = fit.covariance / max(fit.reduced_chi2, 1.0)
-    misfit = fit_dof > 0 and _chi2_sf(fit.reduced_chi2 * fit_dof, fit_dof) < 0.01
-    if misfit:
-        cov = cov * fit.reduced_chi2
+    fit = fit_mean_bias_grid(mean, sd, bias_v=volts)  # the common vertex and the parabolas
+    vertex = float(fit.cpd_v)
     a = fit.parameters[1:1 + nh]
     c = fit.parameters[1 + nh:]
+    # the errors come from the line scatter, measured on many degrees of freedom: the covariance is that of these
+    # weights alone. Scaling it by the reduced chi-square of the few image means (H B - 2H - 1 degrees of freedom)
+    # would inflate it at random (by 13 % on average at 5 biases); that is done only where the parabola clearly
+    # misfits
+    cov, chi2 = _covariance(mean, sd, volts, vertex, a, c)
+    fit_dof = nh * nb - (2 * nh + 1)
+    reduced = chi2 / max(fit_dof, 1)
+    misfit = fit_dof > 0 and _chi2_sf(chi2, fit_dof) < 0.01
+    if misfit:
+        cov = cov * reduced
     a_sd = np.sqrt(np.diag(cov)[1:1 + nh])
-    vertex, vertex_sd = float(fit.cpd_v), float(np.sqrt(cov[0, 0]))
+    vertex_sd = float(np.sqrt(cov[0, 0]))
     signed = attractive_sign * a
     significant = bool(np.all(np.isfinite(a_sd))) and bool(np.any(signed > min_significance * a_sd))
     if significant:
@@ -121,15 +124,30 @@ def fit_bias_parabola(stack, *, bias_v, attractive_sign: float = 1.0, min_signif
         sentence = (f"V_cpd = {cpd:.4g} ± {cpd_sd:.2g} V from the parabola of the image mean over {nb} biases"
                     + (f" (common vertex at {nh} heights)" if nh > 1 else "") + "; error from the scatter of "
                     f"{int(n_lines.sum())} line means"
-                    + (f", widened by the parabola's misfit (reduced chi-square {fit.reduced_chi2:.3g})." if misfit
+                    + (f", widened by the parabola's misfit (reduced chi-square {reduced:.3g})." if misfit
                        else "."))
     else:
         cpd = cpd_sd = None
         sentence = (f"The image mean does not vary with the tip bias beyond noise (curvature "
                     f"{np.max(signed / np.maximum(a_sd, 1e-300)):.2g} of its standard errors, fewer than "
                     f"{min_significance:g}, or of the wrong sign): V_cpd is not determined.")
-    return BiasParabola(volts, mean, sd, a, a_sd, c, vertex, vertex_sd, cpd, cpd_sd, sigma, dof,
-                        float(fit.reduced_chi2), sentence)
+    return BiasParabola(volts, mean, sd, a, a_sd, c, vertex, vertex_sd, cpd, cpd_sd, sigma, dof, float(reduced),
+                        sentence)
+
+
+def _covariance(mean, sd, volts, vertex, a, c) -> tuple[np.ndarray, float]:
+    """Covariance of (V_cpd, a_1..a_H, c_1..c_H) from the Jacobian of ``a_h (V - V_cpd)^2 + c_h`` with weights
+    ``1/sd^2`` (linearised least squares), and the chi-square of the image means."""
+    nh, nb = mean.shape
+    d = (volts - vertex) ** 2
+    jac = np.zeros((nh, nb, 2 * nh + 1))
+    jac[:, :, 0] = -2.0 * a[:, None] * (volts - vertex)[None]
+    idx = np.arange(nh)
+    jac[idx, :, 1 + idx] = d[None]
+    jac[idx, :, 1 + nh + idx] = 1.0
+    jw = (jac / sd[..., None]).reshape(nh * nb, -1)
+    resid = (mean - a[:, None] * d[None] - c[:, None]) / sd
+    return np.linalg.pinv(jw.T @ jw), float(np.sum(resid**2))
 
 
 def _chi2_sf(x: float, dof: int) -> float:
