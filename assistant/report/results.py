@@ -62,7 +62,7 @@ def _lift_text(d: dict) -> str:
     heights = _list(d, "heights_nm") or []
     if d.get("kind") == "imaging":  # one or two heights: no recommendation is claimed
         return (f"not given: it needs at least 3 lift heights, this series has {len(heights)} "
-                "(images, noise and V_cpd are reported)")
+                "(the images and their noise are reported)")
     if rec is None:
         sentence = str(d.get("recommendation") or "")
         reason = sentence.split(":", 1)[1].split(".")[0].strip() if ":" in sentence else ""
