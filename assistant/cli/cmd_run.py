@@ -5,7 +5,7 @@ from __future__ import annotations
 import os
 from pathlib import Path
 
-from assistant.cli._common import UsageError, emit_json, emit_text, open_controller_from_args
+from assistant.cli._common import EXIT_OK, EXIT_RUNTIME, UsageError, emit_json, emit_text, open_controller_from_args
 from assistant.outputs import new_session_path, report_dir_for
 
 
@@ -68,6 +68,38 @@ def _plan(settings, limits, *, controller=None, sink=None):
     return plan
 
 
+def _field_map_tip(args):
+    """With ``--field-map``: the probe's newest stored TTF, checked before anything moves (exit 2 if none)."""
+    if not getattr(args, "field_map", False):
+        return None
+    if not args.probe:
+        raise UsageError("--field-map needs --probe NAME (the probe whose stored TTF maps the field)")
+    from assistant.procedures.quantitative import resolve_tip
+    from assistant.procedures.quantitative_inputs import QuantitativeInputError
+    from assistant.storage.probe_record import ProbeRecord
+
+    try:
+        return resolve_tip(tip_path=None, probe=args.probe, record=ProbeRecord())
+    except QuantitativeInputError as exc:
+        raise UsageError(str(exc)) from None
+
+
+def _field_map_step(wf, tip) -> str | None:
+    """The optional field map after the analysis. A TTF that does not fit this session (e.g. the calibration found
+    the probe changed) leaves the session and report complete: the text returned is reported by ``_finish``, once,
+    at the end, and the command exits 1."""
+    if tip is None:
+        return None
+    from assistant.procedures.quantitative_inputs import QuantitativeInputError
+    from assistant.storage.probe_record import ProbeRecord
+
+    try:
+        wf.field_map(tip, record=ProbeRecord())
+    except QuantitativeInputError as exc:
+        return f"field map not made: {exc}"
+    return None
+
+
 def run(args) -> int:
     from assistant.cli.interrupts import remember_interrupts
     from assistant.cli.progress import StageProgress
@@ -75,13 +107,14 @@ def run(args) -> int:
 
     with remember_interrupts() as latch:  # a Ctrl-C while the libraries load is honoured before any motion
         limits = load_limits(args.limits)
+        tip = _field_map_tip(args)
         with StageProgress() as progress:
             if args.resume:
-                return _resume(args, limits, progress, latch)
-            return _run(args, limits, progress, latch)
+                return _resume(args, limits, progress, latch, tip)
+            return _run(args, limits, progress, latch, tip)
 
 
-def _run(args, limits, progress, latch) -> int:
+def _run(args, limits, progress, latch, tip=None) -> int:
     from assistant.procedures.resume import run_plan_json
     from assistant.procedures.workflow import Workflow
     from assistant.report.summary import build_report
@@ -112,16 +145,17 @@ def _run(args, limits, progress, latch) -> int:
             latch.check()
             with progress.stage("analysis", "decomposing the series"):
                 analysis = wf.analyse()
+            field_map_error = _field_map_step(wf, tip)
             wf.session.mark_complete()
             wf.session.flush()
             report = build_report(session_path, report_dir_for(session_path), sink=progress,
                                   per_height_scale=args.per_height_scale)
         finally:
             wf.close()
-    return _finish(args, session_path, report, wf, analysis)
+    return _finish(args, session_path, report, wf, analysis, field_map_error)
 
 
-def _resume(args, limits, progress, latch) -> int:
+def _resume(args, limits, progress, latch, tip=None) -> int:
     from assistant.procedures.events import Notice
     from assistant.procedures.resume import read_resume_plan, reestablish_drive
     from assistant.procedures.workflow import Workflow
@@ -131,7 +165,7 @@ def _resume(args, limits, progress, latch) -> int:
     plan = read_resume_plan(args.resume)  # what is left: start, scan or analyse (see procedures/resume.py)
     path, settings = plan.path, plan.series
     if plan.stage == "analyse":  # every line is written: analyse and report, no instrument needed
-        return _finish_stored(args, plan, progress)
+        return _finish_stored(args, plan, progress, tip)
     _plan(settings, limits)
     extra = {}
     if scheme_of(args.controller) == "sim":
@@ -162,15 +196,16 @@ def _resume(args, limits, progress, latch) -> int:
             latch.check()
             with progress.stage("analysis", "decomposing the series"):
                 analysis = wf.analyse()
+            field_map_error = _field_map_step(wf, tip)
             wf.session.mark_complete()
             wf.session.flush()
             report = build_report(path, report_dir_for(path), sink=progress, per_height_scale=args.per_height_scale)
         finally:
             wf.close()
-    return _finish(args, path, report, wf, analysis)
+    return _finish(args, path, report, wf, analysis, field_map_error)
 
 
-def _finish_stored(args, plan, progress) -> int:
+def _finish_stored(args, plan, progress, tip=None) -> int:
     """The series was complete when the run stopped: the analysis, the report and the complete flag."""
     from assistant.procedures.analyse import analyse_session_series
     from assistant.procedures.events import Notice
@@ -186,15 +221,16 @@ def _finish_stored(args, plan, progress) -> int:
         wf.series_result = SeriesResult(s.name, s.heights_m, plan.completed_lines, s.lines, 0.0)
         with progress.stage("analysis", "decomposing the series"):
             analysis = wf.analysis = analyse_session_series(wf.session, s.name, sink=progress)
+        field_map_error = _field_map_step(wf, tip)
         wf.session.mark_complete()
         wf.session.flush()
         report = build_report(path, report_dir_for(path), sink=progress, per_height_scale=args.per_height_scale)
     finally:
         wf.close()
-    return _finish(args, path, report, wf, analysis)
+    return _finish(args, path, report, wf, analysis, field_map_error)
 
 
-def _finish(args, session_path: Path, report, wf, analysis) -> int:
+def _finish(args, session_path: Path, report, wf, analysis, field_map_error: str | None = None) -> int:
     cal = wf.calibration
     calib = ({"k_n_per_m": cal.k_n_per_m, "k_std_n_per_m": cal.k_std_n_per_m, "f0_hz": cal.thermal.f0_hz,
               "q": cal.thermal.q, "invols_nm_per_v": cal.invols_m_per_v * 1e9} if cal is not None else
@@ -209,10 +245,13 @@ def _finish(args, session_path: Path, report, wf, analysis) -> int:
                    "completed_lines": wf.series_result.completed_lines},
         "analysis": analysis.to_dict() if analysis is not None else None,
     }
+    if wf.field_map_result is not None or field_map_error:
+        summary["field_map"] = wf.field_map_result.summary if wf.field_map_result is not None else None
+        summary["field_map_error"] = field_map_error
     if args.json:
         emit_json(summary)
-        return 0
-    from assistant.formatting import number, number_list, quantity
+        return _field_map_verdict(field_map_error)
+    from assistant.formatting import number, number_list, quantity, span
     from assistant.report.results import render_block, results_block
 
     a = summary["analysis"] or {}
@@ -222,10 +261,25 @@ def _finish(args, session_path: Path, report, wf, analysis) -> int:
         cal_text += f", optical-lever sensitivity {quantity(calib['invols_nm_per_v'], 'nm/V')}"
     heights = number_list(summary["series"]["heights_nm"], "nm")
     pairs = results_block(a) if a else [("Analysis", "none")]
+    fmap = summary.get("field_map")
+    if fmap:
+        pairs.append(("Field map", f"μ0 Hz rms {number(fmap['mu0_hz_rms_mt'], digits=3)} mT at "
+                                   f"{quantity(fmap['height_nm'], 'nm', digits=3)} (periods "
+                                   f"{span(*fmap['band_nm'], 'nm')}), stored in the session file as field_map/"))
     emit_text(render_block(pairs + [
         ("Calibration", cal_text),
         ("Series", f"{wf.series_result.completed_lines} lines at {len(s.heights_m)} lift "
                    f"height{'s' if len(s.heights_m) != 1 else ''} ({heights})"
          + (f" × {len(s.biases_v)} biases" if s.biases_v else "")),
         ("Session file", str(session_path)), ("Report", str(report.out_dir))], markdown=False))
-    return 0
+    return _field_map_verdict(field_map_error)
+
+
+def _field_map_verdict(error: str | None) -> int:
+    """A refused field map is the one failure that leaves the session and its report complete: said once, last."""
+    if not error:
+        return EXIT_OK
+    import sys
+
+    sys.stderr.write(f"mfma: error: {error}\n")
+    return EXIT_RUNTIME
