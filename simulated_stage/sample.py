@@ -52,6 +52,13 @@ class SampleSpec:
     hamaker_j: float = 1e-19
     youngs_modulus_gpa: float = 150.0
     seed: int = 1
+    # written-track layout of the two track patterns (0: the layout that follows from period_nm)
+    bit_length_nm: float = 0.0
+    track_pitch_nm: float = 0.0
+    track_width_nm: float = 0.0
+    jitter_nm: float = 0.0
+    erase_band_nm: float = 0.0
+    old_data_bit_nm: float = 0.0
 
     def __post_init__(self) -> None:
         s = "sample"
@@ -73,6 +80,35 @@ class SampleSpec:
         check_range(s, "hamaker_j", self.hamaker_j, 0.0, 1e-17)
         check_range(s, "youngs_modulus_gpa", self.youngs_modulus_gpa, 0.0, 2000.0, low_open=True)
         check_range(s, "seed", self.seed, 0, 2**63 - 1)
+        self._check_tracks()
+
+    def _check_tracks(self) -> None:
+        s = "sample"
+        extra = {k: getattr(self, k) for k in ("track_pitch_nm", "track_width_nm", "jitter_nm", "erase_band_nm",
+                                               "old_data_bit_nm")}
+        if self.bit_length_nm == 0.0:
+            given = [k for k, v in extra.items() if v != 0.0]
+            if given:
+                raise ScenarioError(f"[sample] {given[0]} needs bit_length_nm (the written-track layout)")
+            return
+        if self.pattern not in ("oop_tracks", "inplane_bits"):
+            raise ScenarioError(f"[sample] bit_length_nm applies to the patterns oop_tracks and inplane_bits, "
+                                f"not {self.pattern!r}")
+        check_range(s, "bit_length_nm", self.bit_length_nm, 2.0 * self.pixel_nm, 1e5)
+        check_range(s, "track_pitch_nm", self.track_pitch_nm, 4.0 * self.pixel_nm, self.extent_um * 1e3)
+        check_range(s, "track_width_nm", self.track_width_nm, 2.0 * self.pixel_nm, self.track_pitch_nm)
+        check_range(s, "jitter_nm", self.jitter_nm, 0.0, 0.25 * self.bit_length_nm)
+        check_range(s, "erase_band_nm", self.erase_band_nm, 0.0, 0.5 * (self.track_pitch_nm - self.track_width_nm))
+        check_range(s, "old_data_bit_nm", self.old_data_bit_nm, 0.0, 1e5)
+
+    def track_layout(self):
+        """The written-track layout in metres, or None for the layout that follows from ``period_nm``."""
+        if self.bit_length_nm == 0.0:
+            return None
+        from simulated_stage.recording import TrackLayout
+
+        return TrackLayout(self.bit_length_nm * 1e-9, self.track_pitch_nm * 1e-9, self.track_width_nm * 1e-9,
+                           self.jitter_nm * 1e-9, self.erase_band_nm * 1e-9, self.old_data_bit_nm * 1e-9)
 
     @classmethod
     def from_table(cls, table: Mapping[str, Any]) -> "SampleSpec":
@@ -107,7 +143,8 @@ class Sample:
         mx, mz, features = magnetism.pattern_maps(
             spec.pattern, n=self.n, pixel_m=self.pixel_m, period_m=spec.period_nm * 1e-9,
             transition_m=spec.transition_width_nm * 1e-9,
-            ms_a_per_m=spec.saturation_magnetisation_ka_per_m * 1e3, rng=np.random.default_rng(pattern_seed))
+            ms_a_per_m=spec.saturation_magnetisation_ka_per_m * 1e3, rng=np.random.default_rng(pattern_seed),
+            tracks=spec.track_layout())
         self._mx, self._mz = mx, mz
         self._in_plane = bool(np.any(mx))  # in-plane films switch along x, the others along z
         rough = magnetism.roughness_map(self.n, self.pixel_m, spec.roughness_nm * 1e-9,

@@ -5,7 +5,9 @@ Everything comes from the session file. Figures of the calibration are drawn by
 fitted them); figures of the decomposition by :mod:`assistant.report.series_figures` from the decomposition
 stored with each series, or, for a series never analysed (an interrupted run), from a decomposition computed
 now and not written; stray-field maps by :mod:`assistant.report.field_figures` from the maps stored in
-``field_map/``. A failing figure is written down as a note in the summary instead of stopping the report.
+``field_map/``. The media section (:mod:`assistant.report.media_report`) reads each series' image at the height
+the stored decomposition chose and reports its orientation and recorded tracks. A failing figure is written down
+as a note in the summary instead of stopping the report.
 """
 
 from __future__ import annotations
@@ -23,6 +25,7 @@ from assistant.report.imaging_sections import imaging_section
 from assistant.report.calibration_figures import write_sweep_figure, write_thermal_figure
 from assistant.report.imaging_figures import write_imaging_figures
 from assistant.report.images import phase_figure, remove_plane, save_png, topography_figure
+from assistant.report.media_report import media_section
 from assistant.report.series_figures import write_series_figures
 from assistant.storage import Record, SeriesData, SessionFile
 
@@ -158,7 +161,7 @@ def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLik
     t0 = time.monotonic()
     with SessionFile.open(session_path, "r") as session:
         names = session.series_names()
-        steps = 2 + len(names) + (1 if names else 0)
+        steps = 2 + len(names) + (2 if names else 0)
         maps = session.field_map_names()
         steps += 1 if maps else 0
         done = 0
@@ -210,6 +213,10 @@ def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLik
             step("decomposition figures")
             if not analysed:  # nothing stored, but decomposed for the figures: the results still open the summary
                 analysed = [(n, r.to_dict()) for n, r in computed.items() if hasattr(r, "to_dict")]
+            media_text, media_paths = media_section(session_path, out, notes)
+            body += media_text
+            paths += media_paths
+            step("media")
         if maps:
             body += ["## Stray-field maps (quantitative MFM)", "",
                      "Hz in A/m (μ0 Hz in mT in the figure); z away from the sample; the measurement plane is the "
