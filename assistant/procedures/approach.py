@@ -19,7 +19,10 @@ class NoSurfaceFound(AssistantError, RuntimeError):
 
 
 class ApproachSettingsError(AssistantError, ValueError):
-    """The drive and setpoint cannot engage this lever (checked before any motion)."""
+    """The drive and setpoint cannot engage this lever (found before any coarse motion)."""
+
+
+_RETRACTED = 0.02  # Z below this fraction of its range counts as pulled back by the feedback (rule of thumb)
 
 
 @dataclass(frozen=True)
@@ -72,18 +75,17 @@ def approach(controller, settings: ApproachSettings, *, limits: SafetyLimits | N
     with safety_guard(controller, sink=sink):
         controller.withdraw()
         controller.set_drive(settings.drive_frequency_hz, settings.drive_amplitude_v)
-        # Before any motion: withdrawn, the lever must oscillate above the setpoint, or the feedback would pull
-        # Z back at once and read that as a surface in reach (a drive that no longer fits the lever)
-        free = sum(controller.read(["amplitude_v"])["amplitude_v"] for _ in range(4)) / 4  # small ones are noisy
-        if not free > settings.setpoint_v:
-            raise ApproachSettingsError(
-                f"withdrawn, the lever oscillates at {free * 1e3:.1f} mV, not above the setpoint "
-                f"{settings.setpoint_v * 1e3:.1f} mV: the drive does not fit this lever; calibrate again")
         start = controller.status().coarse_position_m
         while True:
             cancel.raise_if_set()
             limits.check_sum(controller.read(["sum_v"])["sum_v"])
             holds, z, amp = _engaged_reading(controller, settings)
+            if holds and z < _RETRACTED * z_range and amp < (1.0 - 2.0 * settings.tolerance) * settings.setpoint_v:
+                # the feedback pulled Z all the way back although nothing is near: the free lever does not reach
+                # the setpoint, so "in reach" would be a misreading (a drive that no longer fits the lever)
+                raise ApproachSettingsError(
+                    f"the feedback retracted Z fully with the amplitude at {amp * 1e3:.1f} mV, below the setpoint "
+                    f"{settings.setpoint_v * 1e3:.1f} mV: the drive does not fit this lever; calibrate again")
             pos = controller.status().coarse_position_m
             result.cycles += 1
             result.trace_coarse_m.append(pos)

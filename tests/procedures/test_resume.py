@@ -107,7 +107,7 @@ def test_reestablish_measures_the_drive_and_leaves_the_coarse_motor_alone(interr
 
 def test_approach_refuses_a_setpoint_the_free_lever_cannot_reach():
     with open_controller("sim://", seed=2) as ctl:
-        with pytest.raises(ApproachSettingsError, match="not above the setpoint"):
+        with pytest.raises(ApproachSettingsError, match="below the setpoint"):
             approach(ctl, ApproachSettings(75e3, 0.01, setpoint_v=0.5, free_amplitude_v=0.6))
         status = ctl.status()
         assert status.coarse_position_m == 0.0 and status.safe
