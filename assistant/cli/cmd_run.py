@@ -1,4 +1,5 @@
-"""``mfma run``: the whole session headless — calibrate, approach, series, analysis, report."""
+"""``mfma run``: the whole session headless — calibrate, approach, series, analysis, report (a field series with
+``--fields-ka-per-m``: :mod:`assistant.cli.cmd_run_fields`)."""
 
 from __future__ import annotations
 
@@ -68,6 +69,24 @@ def _plan(settings, limits, *, controller=None, sink=None):
     return plan
 
 
+def resume_controller_options(args, plan) -> dict:
+    """Options for the controller a resume opens: on the simulated stage its pace, the series' line rate and,
+    unless ``--scenario`` names another, the scenario the file was recorded on."""
+    from drivers.registry import scheme_of
+
+    if scheme_of(args.controller) != "sim":
+        return {}
+    extra = {"pace": args.pace, "line_rate": plan.series.line_rate_hz}
+    if not args.scenario and plan.scenario_text:
+        from simulated_stage.scenario import Scenario
+
+        extra["scenario"] = Scenario.from_text(plan.scenario_text, name="stored")
+    return extra
+
+
+_FIELD_MAP_NEEDS_LIFT_SERIES = "--field-map maps the stray field of a lift series; a field series has none to map"
+
+
 def _field_map_tip(args):
     """With ``--field-map``: the probe's newest stored TTF, checked before anything moves (exit 2 if none)."""
     if not getattr(args, "field_map", False):
@@ -107,10 +126,16 @@ def run(args) -> int:
 
     with remember_interrupts() as latch:  # a Ctrl-C while the libraries load is honoured before any motion
         limits = load_limits(args.limits)
+        if args.field_map and args.fields_ka_per_m is not None and not args.resume:
+            raise UsageError(_FIELD_MAP_NEEDS_LIFT_SERIES)
         tip = _field_map_tip(args)
         with StageProgress() as progress:
             if args.resume:
                 return _resume(args, limits, progress, latch, tip)
+            if args.fields_ka_per_m is not None:
+                from assistant.cli.cmd_run_fields import run_fields
+
+                return run_fields(args, limits, progress, latch)
             return _run(args, limits, progress, latch, tip)
 
 
@@ -160,20 +185,19 @@ def _resume(args, limits, progress, latch, tip=None) -> int:
     from assistant.procedures.resume import read_resume_plan, reestablish_drive
     from assistant.procedures.workflow import Workflow
     from assistant.report.summary import build_report
-    from drivers.registry import scheme_of
 
     plan = read_resume_plan(args.resume)  # what is left: start, scan or analyse (see procedures/resume.py)
+    if plan.is_field_series:
+        from assistant.cli.cmd_run_fields import resume_fields
+
+        if tip is not None:
+            raise UsageError(_FIELD_MAP_NEEDS_LIFT_SERIES)
+        return resume_fields(args, plan, limits, progress, latch)
     path, settings = plan.path, plan.series
     if plan.stage == "analyse":  # every line is written: analyse and report, no instrument needed
         return _finish_stored(args, plan, progress, tip)
     _plan(settings, limits)
-    extra = {}
-    if scheme_of(args.controller) == "sim":
-        extra = {"pace": args.pace, "line_rate": settings.line_rate_hz}
-        if not args.scenario and plan.scenario_text:  # the simulated stage the file was recorded on
-            from simulated_stage.scenario import Scenario
-
-            extra["scenario"] = Scenario.from_text(plan.scenario_text, name="stored")
+    extra = resume_controller_options(args, plan)
     with open_controller_from_args(args, **extra) as ctl:
         _plan(settings, limits, controller=ctl)  # before the first motion
         wf = Workflow.resume(ctl, plan, limits=limits, sink=progress, fsync=args.fsync,
@@ -186,8 +210,7 @@ def _resume(args, limits, progress, latch, tip=None) -> int:
                 progress(Notice("info", f"resuming {path.name}: stopped before its series began; starting it"))
                 wf.calibrate(plan.calibration, probe_record=ProbeRecord() if plan.probe_record else None)
             else:
-                progress(Notice("info", f"resuming {settings.name} at line {plan.completed_lines + 1} of "
-                                        f"{settings.lines}"))
+                progress(Notice("info", f"resuming {settings.name} at {plan.where}"))
                 reestablish_drive(ctl, plan.drive, limits=limits, sink=progress, cancel=wf.cancel)
             latch.check()
             wf.approach()

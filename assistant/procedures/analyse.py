@@ -116,7 +116,9 @@ def storage_form(d: dict) -> tuple[dict, dict]:
     for key, value in d.items():
         if value is None or (isinstance(value, (list, tuple)) and not value):
             continue
-        if isinstance(value, (list, tuple, np.ndarray)):
+        if isinstance(value, dict) or (isinstance(value, (list, tuple)) and any(isinstance(v, dict) for v in value)):
+            scalars[key] = json.dumps(value)  # nested records (tip models, assumed values) as JSON text
+        elif isinstance(value, (list, tuple, np.ndarray)):
             arr = np.asarray(value, dtype=float) if not _is_text(value) else None
             if arr is not None:
                 arrays[key] = arr

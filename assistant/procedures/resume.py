@@ -5,8 +5,9 @@ What the file says decides what is left to do (:func:`read_resume_plan`, giving 
 
 * ``"start"``: stopped before the series began (during the calibration or the approach): the run plan stored
   at the start says what was asked; calibrate, approach and scan from the first line.
-* ``"scan"``: stopped during the series: re-establish the drive the series ran with, approach, continue at the
-  first line not counted in ``completed_lines``.
+* ``"scan"``: stopped during the series (a lift series, or a field series: the same for every field step, whose
+  fields' turning points are retraced first): re-establish the drive the series ran with, approach, continue at
+  the first line not counted in ``completed_lines``.
 * ``"analyse"``: every line is written but the analysis or the report was not: no motion at all.
 * a session marked complete has nothing left (:class:`ResumeError`).
 
@@ -27,6 +28,7 @@ from pathlib import Path
 from assistant.errors import AssistantError
 from assistant.procedures.calibrate import CalibrationSettings, DriveSettings
 from assistant.procedures.events import CancelToken, Notice, Sink, null_sink
+from assistant.procedures.field_series import FieldSeriesSettings
 from assistant.procedures.guard import SafetyLimits, safety_guard
 from assistant.procedures.series import SeriesSettings
 from assistant.procedures.workflow import CALIBRATION_KEYS, ResumePlan
@@ -43,49 +45,74 @@ class InstrumentMismatch(AssistantError, ValueError):
     """The instrument does not reproduce the drive stored in the session file."""
 
 
-def run_plan_json(settings: SeriesSettings, calibration: CalibrationSettings, *, probe_record: bool) -> str:
-    """The run plan kept in the session file before anything moves (see ``SessionFile.write_run_plan``)."""
-    return json.dumps({"series": settings.to_dict(), "calibration": dataclasses.asdict(calibration),
+def run_plan_json(settings: SeriesSettings | FieldSeriesSettings, calibration: CalibrationSettings, *,
+                  probe_record: bool) -> str:
+    """The run plan kept in the session file before anything moves (see ``SessionFile.write_run_plan``); a field
+    series is kept under ``field_series``, a lift series under ``series``."""
+    key = "field_series" if isinstance(settings, FieldSeriesSettings) else "series"
+    return json.dumps({key: settings.to_dict(), "calibration": dataclasses.asdict(calibration),
                        "probe_record": bool(probe_record)})
 
 
+def _settings(stored: dict, kind: str) -> SeriesSettings | FieldSeriesSettings:
+    cls = FieldSeriesSettings if kind == "field_series" else SeriesSettings
+    return cls.from_dict({k: v for k, v in stored.items() if k not in CALIBRATION_KEYS})
+
+
+def _complete_error(path: Path, names: list[str], field_names: list[str]):
+    from assistant.storage import FinishedSeriesError
+
+    what = ([f"series {names[-1]!r}"] if names else []) + ([f"field series {field_names[-1]!r}"] if field_names
+                                                           else [])
+    where = f"{' and '.join(what)} in {path}" if what else str(path)
+    return FinishedSeriesError(f"{where} {'are' if len(what) > 1 else 'is'} already complete; nothing to resume "
+                               "(mfma report writes its report again)")
+
+
 def read_resume_plan(path: str | Path) -> ResumePlan:
-    """Read what is left to do from an interrupted session file (opened read-only and closed again)."""
-    from assistant.storage import FinishedSeriesError, SessionFile, SessionFileError
+    """Read what is left to do from an interrupted session file (opened read-only and closed again).
+
+    An unfinished lift series is continued before an unfinished field series (``storage.resume_point``); when
+    every series has all its lines, the last lift series (else the last field series) is analysed."""
+    from assistant.storage import FinishedSeriesError, SessionFile, SessionFileError, resume_point
+    from assistant.storage.resume import FIELD_SERIES, LIFT_SERIES
 
     path = Path(path)
     if not path.is_file():
         raise ResumeError(f"resume file {path} does not exist")
     with SessionFile.open(path, "r") as sf:  # raises a clear error for files that are not session files
         info = sf.info()
-        names = sf.series_names()
-        plan_text = info.run_plan_json
+        names, field_names = sf.series_names(), sf.field_series_names()
         if info.complete:
-            what = f"series {names[-1]!r} in {path}" if names else str(path)
-            raise FinishedSeriesError(f"{what} is already complete; nothing to resume (mfma report writes its "
-                                      "report again)")
-        plan = json.loads(plan_text) if plan_text else None
+            raise _complete_error(path, names, field_names)
+        plan = json.loads(info.run_plan_json) if info.run_plan_json else None
         common = dict(path=path, scenario_text=info.scenario_text, probe_record=bool(plan and plan.get("probe_record")))
-        if not names:
+        if not names and not field_names:
             if plan is None:
                 raise SessionFileError(f"{path} has no series to resume and no run plan to start one from")
-            return ResumePlan(stage="start", series=SeriesSettings.from_dict(plan["series"]),
+            kind = "field_series" if "field_series" in plan else "series"
+            return ResumePlan(stage="start", series=_settings(plan[kind], kind),
                               calibration=CalibrationSettings(**plan["calibration"]), completed_lines=0, drive=None,
                               spring_constant_n_per_m=None, quality_factor=None, temperature_k=295.15, **common)
-        data = sf.read_series(names[-1])
-    stored = json.loads(data.settings_json)
+        try:
+            point = resume_point(sf)
+            name, kind, done, stored, stage = (point.series_name, point.kind, point.completed_lines, point.settings,
+                                               "scan")
+        except FinishedSeriesError:  # every line is written: what is left is the analysis and the report
+            kind = LIFT_SERIES if names else FIELD_SERIES
+            name = names[-1] if names else field_names[-1]
+            data = sf.read_series(name) if kind == LIFT_SERIES else sf.read_field_series(name)
+            done, stored, stage = data.completed_lines, json.loads(data.settings_json), "analyse"
     drive = stored.get("drive")
-    stage = "analyse" if data.finished else "scan"
     if stage == "scan" and drive is None:
-        raise ResumeError(f"series {names[-1]!r} in {path} stores no drive settings, so its lines cannot be "
+        what = "field series" if kind == FIELD_SERIES else "series"
+        raise ResumeError(f"{what} {name!r} in {path} stores no drive settings, so its lines cannot be "
                           "continued with the same drive; start a new run")
-    return ResumePlan(stage=stage, series=SeriesSettings.from_dict({k: v for k, v in stored.items()
-                                                                    if k not in CALIBRATION_KEYS}),
+    return ResumePlan(stage=stage, series=_settings(stored, kind),
                       drive=None if drive is None else DriveSettings(**{k: float(v) for k, v in drive.items()}),
                       spring_constant_n_per_m=stored.get("spring_constant_n_per_m"),
                       quality_factor=stored.get("quality_factor"),
-                      temperature_k=float(stored.get("temperature_k") or 295.15),
-                      completed_lines=data.completed_lines, **common)
+                      temperature_k=float(stored.get("temperature_k") or 295.15), completed_lines=done, **common)
 
 
 def reestablish_drive(controller, drive: DriveSettings, *, limits: SafetyLimits | None = None,

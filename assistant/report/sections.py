@@ -209,6 +209,12 @@ def caption(file_name: str, *, per_height_scale: bool) -> str:
                "ticks) and every transition coloured by its deviation from that grid"
     if stem.endswith("media_jitter_histogram"):
         return "deviations of the transitions from their tracks' bit-cell grids, with the normal density of the jitter"
+    if stem.endswith("_loop"):
+        return "field series: net moment of the elements against the field, and their switching fields"
+    if stem.endswith("_elements"):
+        return "field series: each element coloured by its switching field, descending and ascending branch"
+    if stem.endswith("_field_steps"):
+        return "field series: phase over the field steps on one colour scale; dark = attractive"
     if stem.startswith("field_map"):
         return "stray field μ0 Hz (red: pointing away from the sample) and its standard uncertainty; edge margin dashed"
     if stem == "ttf":

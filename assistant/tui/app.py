@@ -23,11 +23,13 @@ from assistant.formatting import quantity
 from assistant.procedures.events import Cancelled, Notice
 from assistant.tui.bridge import (MessageSink, ProcedureEvent, SerialisedController, StatusChanged, StepFinished,
                                   WithdrawDone)
+from assistant.tui.fields_actions import FieldSeriesActions
 from assistant.tui.screens import WITHDRAW_KEY, ConfirmQuit, HelpScreen
 from assistant.tui.session_view import load_session
 from assistant.tui.steps import StepRunner
 from assistant.tui.view_analysis import AnalysisView
 from assistant.tui.view_approach import ApproachView
+from assistant.tui.view_fields import FieldSeriesView
 from assistant.tui.view_log import LogView
 from assistant.tui.view_probe import ProbeView
 from assistant.tui.view_resonance import ResonanceView
@@ -35,10 +37,10 @@ from assistant.tui.view_series import SeriesView
 
 VIEWS = (("probe", "Probe", ProbeView), ("resonance", "Resonance", ResonanceView),
          ("approach", "Approach", ApproachView), ("series", "Series", SeriesView),
-         ("analysis", "Analysis", AnalysisView), ("log", "Log", LogView))
+         ("analysis", "Analysis", AnalysisView), ("log", "Log", LogView), ("fields", "Fields", FieldSeriesView))
 
 
-class MfmApp(StepRunner, App[int]):
+class MfmApp(FieldSeriesActions, StepRunner, App[int]):
     """``MfmApp(controller, session_path=...)`` for a live session; ``MfmApp(None, open_path=...)`` to view a
     session file. ``probe_record`` is a :class:`ProbeRecord` (default: the user's)."""
 
@@ -280,3 +282,4 @@ class MfmApp(StepRunner, App[int]):
             self.say("error", f"cannot open {path}: {exc}")
             return
         show_stored(self, shown, path)
+        self.show_field_series_file(path)

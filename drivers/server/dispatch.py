@@ -3,7 +3,8 @@
 It checks every argument against the controller's hard limits itself, answers bad input through the error queue
 (stream) or an error reply (network), executes a retried network request once (request ids, remembered per
 session), makes the stage safe after any controller fault, and runs a watchdog that withdraws the tip, switches
-the drive off and sets the bias to zero when a client falls silent while the tip is near the surface.
+the drive off and sets the bias (and a magnet's field) to zero when a client falls silent while the tip is near the
+surface or a magnet is left on.
 """
 
 from __future__ import annotations
@@ -16,7 +17,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from drivers.base import Controller
+from drivers.base import Capability, Controller
 from drivers.errors import CapabilityMissing, LimitExceeded
 from drivers.wire import messages
 from drivers.wire.checks import check_limits, check_types
@@ -153,7 +154,7 @@ class Dispatcher:
         self._watchdog_armed = True
 
     def watchdog(self) -> bool:
-        """Withdraw, drive off, bias zero if the client is silent too long with the tip near the surface."""
+        """Make the stage safe if the client is silent too long with the tip near the surface or a field on."""
         if self.watchdog_s is None or not self._watchdog_armed:
             return False
         silent = self.clock() - self.last_activity
@@ -163,17 +164,28 @@ class Dispatcher:
         try:
             s = self.controller.status()
             # Near the surface: engaged, or the feedback or the Z piezo could bring the tip down. A withdrawn
-            # stage with the drive on (a client thinking between sweeps) is left alone.
-            at_risk = s.engaged or s.feedback_on or s.z_m > 0.0
+            # stage with the drive on (a client thinking between sweeps) is left alone; a magnet left on is not.
+            at_risk = s.engaged or s.feedback_on or s.z_m > 0.0 or _field_on(self.controller)
         except Exception:
             at_risk = True
         if not at_risk:
             return False
-        log.warning("watchdog: client silent for %.2f s (limit %.2f s) with the tip engaged; withdrawing, "
-                    "drive off, bias zero", silent, self.watchdog_s)
+        log.warning("watchdog: client silent for %.2f s (limit %.2f s) with the tip engaged or a field on; "
+                    "withdrawing, drive off, bias zero, field zero", silent, self.watchdog_s)
         self.safe_stage()
         self.watchdog_trips += 1
         return True
 
 
 _ANY = Command("", False, (), (), False)
+
+
+def _field_on(controller: Controller) -> bool:
+    """Whether a magnet holds a field above 1 % of its range (its sensor's noise stays well below that)."""
+    if not controller.has(Capability.APPLIED_FIELD):
+        return False
+    try:
+        field = controller.read_field()
+    except CapabilityMissing:  # declared but not offered after all: there is no field to leave on
+        return False
+    return abs(field) > 0.01 * controller.limits.field_max_a_per_m

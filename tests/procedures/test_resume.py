@@ -13,7 +13,7 @@ from assistant.cli import main
 from assistant.procedures.approach import ApproachSettings, ApproachSettingsError, approach
 from assistant.procedures.calibrate import CalibrationSettings
 from assistant.procedures.events import Cancelled, Progress
-from assistant.procedures.resume import (InstrumentMismatch, read_resume_plan, reestablish_drive,
+from assistant.procedures.resume import (InstrumentMismatch, ResumeError, read_resume_plan, reestablish_drive,
                                          run_plan_json)
 from assistant.procedures.series import SeriesSettings
 from assistant.procedures.workflow import Workflow
@@ -132,3 +132,33 @@ def test_what_is_left_is_read_from_the_file(tmp_path, interrupted):
         f.attrs["complete"] = True
     with pytest.raises(FinishedSeriesError, match="already complete"):
         read_resume_plan(finished)
+
+
+def test_what_is_left_of_a_field_series_is_read_from_the_file(tmp_path):
+    from assistant.procedures.field_series import FieldSeriesSettings
+
+    fields = FieldSeriesSettings(fields_a_per_m=(3e5, 0.0, -3e5), lines=2, pixels=4, scan_size_m=1e-6)
+    plan_only = tmp_path / "plan.h5"  # a field-series run stopped during its calibration
+    with SessionFile.create(plan_only, controller_url="sim://", software_version="test") as sf:
+        sf.write_run_plan(run_plan_json(fields, CalibrationSettings(thermal_seconds=0.3), probe_record=True))
+    p = read_resume_plan(plan_only)
+    assert (p.stage, p.is_field_series, p.series, p.probe_record) == ("start", True, fields, True)
+    written = tmp_path / "written.h5"  # every line of every field step written, the loop analysis not
+    stored = json.dumps({**fields.to_dict(), "drive": None, "spring_constant_n_per_m": 2.0,
+                         "quality_factor": 200.0, "temperature_k": 296.0})
+    with SessionFile.create(written, controller_url="sim://", software_version="test") as sf:
+        sf.create_field_series(fields.name, fields_a_per_m=fields.fields_a_per_m, lines=2, pixels=4,
+                               scan_size_m=1e-6, line_rate_hz=1.0, lift_height_m=50e-9, repeat_first=False,
+                               order="per step", settings_json=stored)
+    with h5py.File(written, "r+") as f:
+        f[f"field_series/{fields.name}"].attrs.modify("completed_lines", 6)
+    p = read_resume_plan(written)
+    assert (p.stage, p.is_field_series, p.completed_lines, p.spring_constant_n_per_m) == ("analyse", True, 6, 2.0)
+    with h5py.File(written, "r+") as f:
+        f[f"field_series/{fields.name}"].attrs.modify("completed_lines", 3)
+    with pytest.raises(ResumeError, match="stores no drive settings"):  # lines to scan, but no drive to scan them
+        read_resume_plan(written)
+    with h5py.File(written, "r+") as f:
+        f.attrs["complete"] = True
+    with pytest.raises(FinishedSeriesError, match="field series 'fields1' .* is already complete"):
+        read_resume_plan(written)
