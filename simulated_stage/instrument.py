@@ -401,7 +401,7 @@ class VirtualMicroscope:
                 v += a * np.cos(2 * np.pi * self.drive_frequency_hz * t - float(lag))
             if v.max() > sat or v.min() < -sat:
                 self.detector.clip(v)
-            self.clock.advance(n / rate_hz)
+            self.clock.advance(n / rate_hz, step_s=1.0 / rate_hz)
             done += n
             yield v
 
@@ -453,7 +453,7 @@ class VirtualMicroscope:
         phase = 90.0 - np.degrees(lag + np.arctan2(sigma * n2, amp + sigma * n1)) + self.config.phase_offset_deg
         settle = 5 * max(self.lockin_time_constant_s, 2 * self.q / (2 * math.pi * self.f0)) if settle_s is None \
             else float(settle_s)
-        self.clock.advance(settle * f.size)
+        self.clock.advance(settle * f.size, step_s=settle)
         self.drive_frequency_hz = float(f[-1])
         self._settle()
         return SweepResult(f, amp_meas * self.volts_per_m, phase)
@@ -483,7 +483,7 @@ class VirtualMicroscope:
     def withdraw(self) -> None:
         """Feedback off and Z fully retracted. Always allowed, idempotent, never raises."""
         self.feedback_on = False
-        self.clock.advance(self.z.position_m / self.z.speed_max_m_per_s)
+        self.clock.advance(self.z.withdraw_time_s(), interruptible=False)
         self.z.position_m = 0.0
 
     def set_feedback(self, enabled: bool, *, setpoint_v: float | None = None, p_gain: float | None = None,
@@ -595,7 +595,7 @@ class VirtualMicroscope:
         results: list[PassResult] = []
         if passes:
             results = self._second_passes(passes, u_px, x_px, y_m, t0, line_rate_hz, dwell, gap0, free, sigma)
-        self.clock.advance((1 + len(passes)) / line_rate_hz)
+        self.clock.advance((1 + len(passes)) / line_rate_hz, step_s=dt)  # an abort stops at a servo step
         self.xy.move(float(x_px[-1]), y_m)
         self._settle()
         return LineResult(topography, amp_err_v, results)
