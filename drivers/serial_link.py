@@ -7,6 +7,11 @@ and checks for a complete reply (``read_until`` alone returns silently on a time
 garbled reply the link is resynchronised with an echo token before it is used again. Only commands marked
 safe to repeat are retried.
 
+``abort()`` may come from another thread while a command is in flight: it writes the line
+``ABORt;SYSTem:ERRor?;SYSTem:ECHO? "abortN"``, which the server handles ahead of the running command, and
+returns once the echo comes back (it follows the reply of the command it stopped). Whichever thread is reading
+replies at that moment takes the echo out of the stream.
+
 :class:`LinkController` here holds the part shared with the network driver: every Controller method as one
 command of ``drivers.wire.commands``.
 """
@@ -16,6 +21,7 @@ from __future__ import annotations
 import abc
 import itertools
 import select
+import threading
 import time
 from collections.abc import Iterator, Sequence
 from urllib.parse import parse_qs, urlsplit, urlunsplit
@@ -23,7 +29,7 @@ from urllib.parse import parse_qs, urlsplit, urlunsplit
 import numpy as np
 
 from drivers.base import Controller, LineData, LineSpec, Limits, Status, SweepData
-from drivers.errors import BadURL, LinkLost, LinkTimeout, ProtocolError
+from drivers.errors import Aborted, BadURL, ControllerFault, LinkLost, LinkTimeout, ProtocolError
 from drivers.wire.commands import MAX_SWEEP_POINTS, Command, command, exception_for, line_args
 from drivers.wire.scpi import (
     WireError, decode_answer, encode_params, format_command, format_line, parse_reply, reply_end,
@@ -36,6 +42,8 @@ class LinkController(Controller):
     timeout_s: float = 2.0
     #: Deflection samples asked for per request; links with little bandwidth lower it.
     chunk_limit: int = 1 << 18
+    #: Counts abort() calls: a record or a split sweep in progress stops at its next request after one.
+    _aborts: int = 0
 
     @abc.abstractmethod
     def _transact(self, cmd: Command, args: tuple, timeout_s: float) -> tuple:
@@ -63,10 +71,12 @@ class LinkController(Controller):
 
     def record_deflection(self, samples: int, rate_hz: float, *, chunk: int = 1 << 18) -> Iterator[np.ndarray]:
         chunk = max(1, min(int(chunk), self.chunk_limit))
+        aborts = self._aborts
         self._call("ACQuire:DEFLection:STARt", int(samples), float(rate_hz), chunk)
         got = 0
         cmd = command("ACQuire:DEFLection:NEXT?")
         while got < samples:
+            self._not_aborted_since(aborts, "deflection record")
             wait = self.timeout_s + chunk / rate_hz + self._transfer_s(cmd, (chunk,))
             part = cmd.unpack((), self._transact(cmd, (), wait))  # type: ignore[misc]
             if not len(part):
@@ -85,7 +95,9 @@ class LinkController(Controller):
 
     def sweep(self, frequencies_hz: np.ndarray, amplitude_v: float, *, settle_s: float | None = None) -> SweepData:
         f = np.asarray(frequencies_hz, float).ravel()
-        parts = [self._call("DRIVe:SWEep?", float(amplitude_v), None if settle_s is None else float(settle_s),
+        aborts = self._aborts
+        parts = [self._not_aborted_since(aborts, "sweep") or
+                 self._call("DRIVe:SWEep?", float(amplitude_v), None if settle_s is None else float(settle_s),
                             tuple(float(x) for x in f[i:i + MAX_SWEEP_POINTS]))
                  for i in range(0, max(len(f), 1), MAX_SWEEP_POINTS)]
         return SweepData(*(np.concatenate([getattr(p, k) for p in parts])  # type: ignore[arg-type]
@@ -127,6 +139,23 @@ class LinkController(Controller):
         """Withdraw, drive off, bias zero in one command; the server attempts each step even if one fails."""
         self._call("SYSTem:SAFE")
 
+    def zero_applied_field(self) -> None:
+        self._call("FIELd:ZERO")
+
+    def server_watchdog_s(self) -> float | None:
+        """The server's silence limit [s]: it makes the stage safe when the client says nothing that long while
+        the tip is near the surface; None if its watchdog is off."""
+        return self._call("SYSTem:WATChdog?")  # type: ignore[return-value]
+
+    def _not_aborted_since(self, aborts: int, what: str) -> None:
+        if self._aborts != aborts:
+            raise Aborted(f"{what} stopped by abort")
+
+    def _abort_wait_s(self) -> float:
+        """How long an abort may take to be confirmed: the link's timeout plus a full retraction."""
+        limits = getattr(self, "limits", Limits())
+        return self.timeout_s + limits.z_range_m / limits.z_speed_max_m_per_s
+
 
 def _no_extra(options: dict[str, object], scheme: str) -> None:
     unknown = sorted(k for k, v in options.items() if v is not None)
@@ -163,6 +192,10 @@ class SerialController(LinkController):
         self.chunk_limit = 4096  # 16 kB per request: about 1.4 s at 115200 baud
         self._tokens = itertools.count(1)
         self._pending = bytearray()
+        self._io = threading.Lock()  # held by the thread that exchanges a request and reads its reply
+        self._write_lock = threading.Lock()  # whole lines only, whichever thread writes
+        self._acks: dict[str, list] = {}  # abort echo token -> [threading.Event, (code, message) or None]
+        self._inflight_transfer_s = 0.0
         try:
             # Reads never block inside pyserial (timeout 0, set once: changing it reconfigures a real port);
             # _read_some waits on the descriptor itself, so bulk replies come in as large reads.
@@ -210,8 +243,9 @@ class SerialController(LinkController):
         import serial
 
         try:
-            self._port.write(data)
-            self._port.flush()
+            with self._write_lock:
+                self._port.write(data)
+                self._port.flush()
         except (serial.SerialException, OSError) as exc:
             raise LinkLost(f"write to {self.port_name} failed: {exc}") from None
 
@@ -233,14 +267,20 @@ class SerialController(LinkController):
         except (serial.SerialException, OSError) as exc:
             raise LinkLost(f"read from {self.port_name} failed: {exc}") from None
 
-    def _read_reply(self, timeout_s: float, what: str) -> bytes:
+    def _read_reply(self, timeout_s: float, what: str, *, until=None) -> bytes | None:
+        """The next reply message; abort echoes are taken out on the way. With ``until`` (a callable), returns
+        None as soon as it is true after an echo."""
         deadline = time.monotonic() + timeout_s
         buf = self._pending
         while True:
             end = reply_end(bytes(buf))
             if end is not None:
                 message = bytes(buf[:end])
-                self._pending = bytearray(buf[end:])
+                self._pending = buf = bytearray(buf[end:])
+                if self._take_ack(message):
+                    if until is not None and until():
+                        return None
+                    continue
                 return message
             left = deadline - time.monotonic()
             if left <= 0:
@@ -264,6 +304,7 @@ class SerialController(LinkController):
             seen += self._read_some(deadline - time.monotonic())
             at = seen.find(marker)
             if at >= 0:
+                self._echoes_in(bytes(seen[:at]))
                 self._pending = bytearray(seen[at + len(marker):])
                 self._dirty = False
                 return
@@ -274,7 +315,87 @@ class SerialController(LinkController):
 
     _dirty = False
 
+    # ---- abort ---------------------------------------------------------------------------------------
+    def abort(self) -> None:
+        """Stop the command in flight (from any thread) and make the stage safe; returns once confirmed."""
+        self._aborts += 1
+        name = f"abort{next(self._tokens)}"
+        done = threading.Event()
+        self._acks[name] = entry = [done, None]
+        deadline = time.monotonic() + self._abort_wait_s()
+        try:
+            self._write(format_line([b"ABORt", b"SYSTem:ERRor?", format_command("SYSTem:ECHO?", (f'"{name}"',))]))
+            while not done.is_set():
+                left = deadline - time.monotonic()
+                if left <= 0:
+                    raise LinkTimeout(f"abort not confirmed by {self.port_name} within {self._abort_wait_s():.2f} s")
+                # a command in flight takes the echo out with its own reply; else this thread reads it
+                if self._io.acquire(timeout=min(0.005, left)):
+                    try:
+                        self._collect_acks(deadline + self._inflight_transfer_s)
+                    finally:
+                        self._io.release()
+        finally:
+            self._acks.pop(name, None)
+        if entry[1] is None:  # the echo was seen during a resynchronisation, its status was not
+            if not self.status().safe:
+                raise ControllerFault(-300, "abort sent, but the stage does not report safe")
+            return
+        code, message = entry[1]
+        if code != 0:
+            raise exception_for(code, message)
+
+    def _take_ack(self, message: bytes) -> bool:
+        """If ``message`` is the echo of an abort line, record its error status and say so."""
+        if b'"abort' not in message:
+            return False
+        try:
+            answers = parse_reply(message)
+            token = decode_answer(("str",), answers[-1])[0]
+        except (WireError, IndexError):
+            return False
+        entry = self._acks.get(token) if isinstance(token, str) else None
+        if entry is None or len(answers) != 2:
+            return False
+        try:
+            entry[1] = decode_answer(("int", "str"), answers[0])
+        except WireError:
+            entry[1] = (-102, "garbled abort status")
+        entry[0].set()
+        return True
+
+    def _echoes_in(self, skipped: bytes) -> None:
+        """Abort echoes among bytes a resynchronisation threw away: seen, status unknown."""
+        for token, entry in list(self._acks.items()):
+            if f'"{token}"'.encode() in skipped:
+                entry[0].set()
+
+    def _collect_acks(self, deadline: float) -> None:
+        """Read until every abort echo outstanding is in (other replies are stale: dropped). Holds the I/O."""
+        outstanding = lambda: [e for e in self._acks.values() if not e[0].is_set()]  # noqa: E731
+        while outstanding():
+            left = deadline - time.monotonic()
+            if left <= 0:
+                return
+            try:
+                self._read_reply(left, "ABORt", until=lambda: not outstanding())
+            except (LinkTimeout, ProtocolError):
+                return
+
     def _transact(self, cmd: Command, args: tuple, timeout_s: float) -> tuple:
+        with self._io:
+            self._inflight_transfer_s = self._transfer_s(cmd, args)
+            try:
+                return self._exchange(cmd, args, timeout_s)
+            except BaseException as exc:
+                if not isinstance(exc, Exception):  # Ctrl-C while the reply was on its way
+                    self._dirty = True
+                raise
+            finally:
+                if self._acks:
+                    self._collect_acks(time.monotonic() + self._abort_wait_s())
+
+    def _exchange(self, cmd: Command, args: tuple, timeout_s: float) -> tuple:
         kinds = tuple(p.kind for p in cmd.params)
         line = format_line([b"*CLS", format_command(cmd.spelling, encode_params(kinds, args)), b"SYST:ERR?"])
         attempts = 1 + (self.retries if cmd.safe_to_repeat else 0)

@@ -6,10 +6,13 @@ limits itself, answers bad input through the error queue (stream) or an error re
 serving, executes a retried network request once (request ids), makes the stage safe after any controller
 fault, and runs a watchdog that withdraws the tip, switches the drive off and sets the bias to zero when a
 client falls silent while the tip is near the surface. Secrets never appear in logs, replies or errors.
+Requests run in a worker thread (``drivers.server_inflight``), so an abort request is handled ahead of a long
+command in flight and the watchdog also aborts a command that overruns its expected time.
 """
 
 from __future__ import annotations
 
+import functools
 import ipaddress
 import logging
 import os
@@ -26,7 +29,8 @@ from urllib.parse import urlsplit
 import numpy as np
 
 from drivers.base import Controller
-from drivers.errors import CapabilityMissing, ControllerError, LimitExceeded
+from drivers import server_inflight as inflight
+from drivers.errors import Aborted, CapabilityMissing, ControllerError, LimitExceeded
 from drivers.wire import messages
 from drivers.wire.commands import Command, check_limits, check_types, error_for, resolve
 from drivers.wire.scpi import MAX_LINE, ErrorQueue, WireError, decode_params, encode_answer, split_line
@@ -62,6 +66,7 @@ class Dispatcher:
         self._watchdog_armed = True
         self.watchdog_trips = 0
         self.sessions: OrderedDict[str, _Session] = OrderedDict()
+        self.watch = inflight.CommandWatch(controller, watchdog_s, clock)  # the command in flight
 
     # ---- one command ---------------------------------------------------------------------------------
     def execute(self, cmd: Command, args: tuple, session: _Session) -> tuple:
@@ -75,10 +80,13 @@ class Dispatcher:
             return session.errors.pop()
         if h == "SYSTem:ECHO":
             return (args[0],)
+        if h == "SYSTem:WATChdog":  # the silence limit, 0 when the watchdog is off
+            return (float(self.watchdog_s or 0.0),)
         c = self.controller
         if cmd.capability is not None and not c.has(cmd.capability):
             raise CapabilityMissing(f"{type(c).__name__} does not offer {cmd.capability.value}")
         check_limits(cmd, args, c.limits)
+        self.watch.begin(cmd, args, c.limits, session)
         try:
             if h == "ACQuire:DEFLection:STARt":
                 session.deflection = iter(c.record_deflection(args[0], args[1], chunk=args[2]))
@@ -93,13 +101,15 @@ class Dispatcher:
                 return (np.asarray(chunk, np.float32),)
             assert cmd.invoke is not None
             return cmd.invoke(c, args)
-        except (LimitExceeded, CapabilityMissing, WireError):
-            raise  # refused before anything moved
+        except (LimitExceeded, CapabilityMissing, WireError, Aborted):
+            raise  # refused before anything moved, or stopped by an abort that made the stage safe
         except Exception as exc:
             # A controller that failed mid-operation may have left the tip down or the drive on.
             log.warning("%s failed (%s); making the stage safe", cmd.spelling, type(exc).__name__)
             self.safe_stage()
             raise
+        finally:
+            self.watch.end()
 
     def safe_stage(self) -> None:
         try:
@@ -180,9 +190,8 @@ class Dispatcher:
             at_risk = True
         if not at_risk:
             return False
-        log.warning("watchdog: client silent for %.2f s (limit %.2f s) with the tip engaged; withdrawing, "
-                    "drive off, bias zero", silent, self.watchdog_s)
-        self.safe_stage()
+        self.watch.abort(f"watchdog: client silent for {silent:.2f} s (limit {self.watchdog_s:.2f} s) with the "
+                         f"tip engaged; withdrawing, drive off, bias zero")
         self.watchdog_trips += 1
         return True
 
@@ -305,6 +314,7 @@ def _serve_stream(d: Dispatcher, lf: _LinkFaults, bind: str | None, announce: Ca
     session = _Session()
     buf = bytearray()
     discarding = False
+    worker = inflight.Worker("stream-requests")
     try:
         while not stop.is_set():
             watch = [conn_fd] if conn_fd is not None else [listener.fileno()]  # type: ignore[union-attr]
@@ -327,6 +337,9 @@ def _serve_stream(d: Dispatcher, lf: _LinkFaults, bind: str | None, announce: Ca
                 if chunk == b"":  # peer gone (socket) or pty failure
                     if listener is None:
                         raise ControllerError("pseudo-terminal failed")
+                    if worker.busy:  # nobody can take the reply of what runs: stop it
+                        d.watch.abort("the client left during a command")
+                        worker.wait_idle(10.0)
                     conn.close()  # type: ignore[union-attr]
                     conn_fd = None
                     continue
@@ -337,8 +350,9 @@ def _serve_stream(d: Dispatcher, lf: _LinkFaults, bind: str | None, announce: Ca
                         nl = buf.find(b"\n")
                         if nl < 0:
                             if len(buf) >= MAX_LINE and not discarding:
-                                session.errors.push_error(WireError(
-                                    -363, f"line longer than {MAX_LINE - 1} bytes discarded"))
+                                worker.submit(functools.partial(  # in turn with the lines before it
+                                    session.errors.push_error,
+                                    WireError(-363, f"line longer than {MAX_LINE - 1} bytes discarded")))
                                 discarding = True
                             if discarding:
                                 buf.clear()
@@ -347,10 +361,11 @@ def _serve_stream(d: Dispatcher, lf: _LinkFaults, bind: str | None, announce: Ca
                         if discarding:
                             discarding = False
                             continue
-                        _stream_line(d, lf, session, line, conn_fd)
-                        d.activity()  # a client waiting for a long command was not silent meanwhile
-            d.watchdog()
+                        inflight.submit_line(d, worker, line, functools.partial(
+                            _stream_line, d, lf, session, line, conn_fd))
+            inflight.watch(d, worker)
     finally:
+        inflight.stop_worker(d, worker, "the server is stopping")
         for fd in keep:
             os.close(fd)
         if listener is not None:
@@ -423,6 +438,7 @@ def _serve_zmq(d: Dispatcher, lf: _LinkFaults, bind: str | None, server_key: str
     ctx = zmq.Context()
     auth = None
     sock = None
+    worker = outbox = None
     try:
         if curve:
             # Without an authenticator on this very context, CURVE would admit any client key pair.
@@ -442,21 +458,35 @@ def _serve_zmq(d: Dispatcher, lf: _LinkFaults, bind: str | None, server_key: str
         actual = sock.getsockopt_string(zmq.LAST_ENDPOINT)
         log.info("serving on %s (%s)", actual, f"CURVE, {n_keys} client keys" if curve else "loopback, plain")
         announce({"endpoint": actual})
+        worker, outbox = inflight.Worker("zmq-requests"), inflight.Outbox(ctx)
         poller = zmq.Poller()
         poller.register(sock, zmq.POLLIN)
+        poller.register(outbox.receiver, zmq.POLLIN)
         while not stop.is_set():
-            if poller.poll(int(poll_s * 1000)):
+            ready = dict(poller.poll(int(poll_s * 1000)))
+            if outbox.receiver in ready:
+                outbox.forward(sock)
+            if sock in ready:
                 msg = sock.recv_multipart()
                 d.activity()
-                _zmq_message(d, lf, sock, msg)
-                d.activity()  # a client waiting for a long command was not silent meanwhile
-            d.watchdog()
+                if not inflight.handle_zmq_abort(d, sock, msg):  # an abort goes ahead of the command in flight
+                    worker.submit(functools.partial(_zmq_job, d, lf, outbox, msg))
+            inflight.watch(d, worker)
     finally:
+        if worker is not None:
+            inflight.stop_worker(d, worker, "the server is stopping")
+            outbox.forward(sock)
+            outbox.close()
         if sock is not None:
             sock.close(0)
         if auth is not None:
             auth.stop()
         ctx.term()
+
+
+def _zmq_job(d: Dispatcher, lf: _LinkFaults, outbox, msg: list[bytes]) -> None:
+    _zmq_message(d, lf, outbox, msg)  # the outbox stands in for the socket: the loop sends the reply
+    d.activity()  # a client waiting for a long command was not silent meanwhile
 
 
 def _zmq_message(d: Dispatcher, lf: _LinkFaults, sock, msg: list[bytes]) -> None:

@@ -41,6 +41,8 @@ MAX_SAMPLES = 1 << 34
 MAX_CHUNK = 1 << 20
 MAX_SWEEP_POINTS = 2048  # per request; the client drivers split longer sweeps
 MAX_LIST = 4096  # values in any list argument
+#: Device-dependent (positive) error code of a call stopped by an abort; the client raises ``Aborted`` for it.
+ABORTED_CODE = 280
 
 
 @dataclass(frozen=True)
@@ -207,6 +209,7 @@ COMMANDS: tuple[Command, ...] = (
     # answered by the server itself
     Command("SYSTem:ERRor", True, (), ("int", "str"), False, unpack=lambda a, f: f),
     Command("SYSTem:ECHO", True, (_P("token", "str"),), ("str",), True, unpack=lambda a, f: f[0]),
+    Command("SYSTem:WATChdog", True, (), ("float",), True, unpack=lambda a, f: f[0] if f[0] > 0 else None),
     # identity and limits
     Command("SYSTem:CAPabilities", True, (), ("names*",), True, "capabilities",
             invoke=lambda c, a: (tuple(sorted(x.value for x in c.capabilities)),),
@@ -217,6 +220,10 @@ COMMANDS: tuple[Command, ...] = (
     Command("SYSTem:PROBe", True, (), ("strs*",), True, "probe_hint",
             invoke=_hint_invoke, unpack=_hint_unpack),
     Command("SYSTem:SAFE", False, (), (), True, "make_safe", invoke=lambda c, a: (c.make_safe(), ())[1]),
+    # stop what runs and make safe: the servers handle it ahead of the command in flight (SCPI's ABORt)
+    Command("ABORt", False, (), (), True, "abort", invoke=lambda c, a: (c.abort(), ())[1]),
+    Command("FIELd:ZERO", False, (), (), True, "zero_applied_field",
+            invoke=lambda c, a: (c.zero_applied_field(), ())[1]),
     # signals
     Command("MEASure:READ", True, (_P("channels", "names*"),), ("floats*",), True, "read",
             invoke=_read_invoke, unpack=lambda a, f: dict(zip(a[0], f[0]))),
@@ -411,6 +418,8 @@ def error_for(exc: BaseException) -> tuple[int, str]:
         return -222, f"Data out of range;{exc}"
     if isinstance(exc, e.CapabilityMissing):
         return -241, f"Hardware missing;{exc}"
+    if isinstance(exc, e.Aborted):
+        return ABORTED_CODE, f"Aborted;{exc}"
     if isinstance(exc, e.ControllerFault):
         plain = re.sub(r"^controller fault -?\d+: ", "", str(exc))  # the receiving end adds it again
         if isinstance(exc, e.LaserLost):
@@ -444,6 +453,8 @@ def exception_for(code: int, message: str) -> Exception:
         return e.ControllerFault(code, info)
     if code == -241:
         return e.CapabilityMissing(info)
+    if code == ABORTED_CODE:
+        return e.Aborted(info)
     if code == -231:
         m = re.match(r"^(-?\d{1,6});(.*)$", info, re.S)
         return e.LaserLost(int(m.group(1)), m.group(2)) if m else e.LaserLost(code, info)
