@@ -92,6 +92,9 @@ def run(args) -> int:
             wf.session.flush()
             report = build_report(session_path, out / f"report-{stamp}",
                                   analyses={wf.series_settings.name: analysis})
+        except KeyboardInterrupt:
+            _stop(ctl)  # Ctrl-C between two steps: no guard was running
+            raise
         finally:
             wf.close()
     return _finish(args, session_path, report, wf, analysis)
@@ -133,9 +136,23 @@ def _resume(args, limits, progress) -> int:
             wf.session.flush()
             report = build_report(path, path.parent / f"report-{path.stem}",
                                   analyses={wf.series_settings.name: analysis})
+        except KeyboardInterrupt:
+            _stop(ctl)
+            raise
         finally:
             wf.close()
     return _finish(args, path, report, wf, analysis)
+
+
+def _stop(ctl) -> None:
+    from assistant.procedures.guard import stop_now
+
+    try:
+        stop_now(ctl)
+    except Exception as exc:
+        import sys
+
+        sys.stderr.write(f"mfma: could not confirm a safe stage ({exc}); check the instrument by hand\n")
 
 
 def _finish(args, session_path: Path, report, wf, analysis) -> int:

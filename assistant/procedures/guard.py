@@ -101,7 +101,7 @@ def safety_guard(controller, *, sink: Sink = null_sink, save: Callable[[], None]
         yield
     except BaseException as exc:
         try:
-            controller.make_safe()
+            stop_now(controller)
         except BaseException as safe_exc:  # the link may be gone: say so loudly, then carry on with the save
             sink(Notice("error", f"could not confirm a safe stage ({safe_exc}); check the instrument by hand"))
         else:
@@ -112,3 +112,10 @@ def safety_guard(controller, *, sink: Sink = null_sink, save: Callable[[], None]
             except Exception as save_exc:
                 sink(Notice("error", f"could not save after the stop: {save_exc}"))
         raise
+
+
+def stop_now(controller) -> None:
+    """Stop whatever the controller is doing and make the stage safe: ``abort()``, which does not queue behind a
+    command still running (on a link, a command the client gave up on may still run), else ``make_safe()``."""
+    abort = getattr(controller, "abort", None)
+    (abort if callable(abort) else controller.make_safe)()

@@ -3,7 +3,8 @@ always pulls the tip back.
 
 Thin by design: every step is a :class:`assistant.procedures.workflow.Workflow` method (the same code path as
 ``mfma run``), run in a thread worker; its events reach the UI thread as messages. The controller is shared by
-the running step, the status poller and the withdraw key through :class:`SerialisedController`.
+the running step, the status poller and the withdraw key through :class:`SerialisedController`; the withdraw
+key's ``abort()`` goes past its lock and stops the controller call in flight.
 """
 
 from __future__ import annotations
@@ -17,6 +18,7 @@ from textual.binding import Binding
 from textual.widgets import Footer, Static, TabbedContent, TabPane
 
 from assistant.procedures.events import Cancelled, CancelToken, Notice
+from drivers.errors import Aborted
 from assistant.procedures.workflow import calibration_scalars
 from assistant.tui.bridge import (MessageSink, ProcedureEvent, SerialisedController, StatusChanged, StepFinished,
                                   WithdrawDone)
@@ -134,7 +136,7 @@ class MfmApp(App[int]):
         step, err = message.step, message.error
         if err is None:
             self.say("info", f"{step}: done")
-        elif isinstance(err, Cancelled):
+        elif isinstance(err, (Cancelled, Aborted)):
             self.say("warning", f"{step}: cancelled")
         else:
             self.say("error", f"{step} failed: {type(err).__name__}: {err}")
