@@ -31,7 +31,7 @@ from simulated_stage.instrument import LASER_LOST
 from simulated_stage.scenario import Scenario, build_microscope, load_scenario
 
 _URL_KEYS = ("scenario", "seed", "pace", "line_rate")
-_MAX_LAG_S = 0.005  # realtime pace: host time lost before an action is not caught up beyond this
+_MAX_LAG_S = 0.005  # realtime pace: host time lost before a call is not caught up beyond this
 STAGE_ERROR_CODE = -300  # SCPI "device-specific error" for stage errors without a code of their own
 
 
@@ -41,6 +41,9 @@ def _mapped(method):
     @functools.wraps(method)
     def call(self, *args, **kwargs):
         with self._lock:
+            clock = getattr(self.stage, "clock", None)
+            if clock is not None:
+                clock.begin()  # realtime: this call takes its own duration, whatever the host did before
             try:
                 return method(self, *args, **kwargs)
             except StageError as exc:
@@ -129,7 +132,7 @@ class SimulatedController(Controller):
         try:
             if not isinstance(scenario, Scenario):
                 scenario = load_scenario(str(scenario))
-            # realtime: every action takes its own duration, so the stage can be timed from outside
+            # realtime: every call takes its own duration, so the stage can be timed from outside
             clock = merged.get("clock") or VirtualClock(pace, max_lag_s=_MAX_LAG_S)
             stage = build_microscope(scenario, seed=seed, clock=clock, sample=merged.get("sample"))
             plan = FaultPlan.from_table(scenario.faults) if scenario.faults else None

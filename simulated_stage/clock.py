@@ -31,10 +31,11 @@ class VirtualClock:
     monotonic, sleep : callables, optional
         Wall-clock source and sleep function (default :func:`time.monotonic`, :func:`time.sleep`).
     max_lag_s : float, optional
-        In realtime pace, how far virtual time may stay behind the wall clock after an action. None (default):
-        no bound, so time lost earlier (the host computing) is caught up by later actions, which then take less
-        than their duration. With a bound, each action takes its own duration (less at most ``max_lag_s``) once
-        the host has caught up: what a stage that is timed from outside must do.
+        In realtime pace, how far virtual time may stay behind the wall clock when an action begins
+        (:meth:`begin`). None (default): no bound, so time the host lost earlier (computing, talking over a
+        link) is caught up by later actions, which then take less than their duration. With a bound, each
+        action takes its own duration (or its computing time, if longer): what a stage that is timed from
+        outside must do.
     """
 
     def __init__(self, pace: str = "fast", *, monotonic: Callable[[], float] = time.monotonic,
@@ -79,10 +80,14 @@ class VirtualClock:
             if stopped:
                 spent = self._stop_at(start, seconds, step_s)
                 raise StageAborted(f"stopped on request after {spent:.3g} s of {seconds:.3g} s")
-        if self.max_lag_s is not None:
-            behind = self._monotonic() - self._wall_start - self._now_s
-            if behind > self.max_lag_s:  # forget time lost before this action ended
-                self._wall_start += behind - self.max_lag_s
+
+    def begin(self) -> None:
+        """An action begins: in realtime pace with ``max_lag_s``, forget wall-clock time lost before it."""
+        if self.pace != "realtime" or self.max_lag_s is None:
+            return
+        behind = self._monotonic() - self._wall_start - self._now_s
+        if behind > self.max_lag_s:
+            self._wall_start += behind - self.max_lag_s
 
     def _wait(self, seconds: float) -> bool:
         """Sleep ``seconds``; True if interrupted meanwhile (at once with the real sleep)."""
