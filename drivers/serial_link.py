@@ -29,7 +29,8 @@ from urllib.parse import parse_qs, urlsplit, urlunsplit
 import numpy as np
 
 from drivers.base import Controller, LineData, LineSpec, Limits, Status, SweepData
-from drivers.errors import Aborted, BadURL, ControllerFault, LinkLost, LinkTimeout, ProtocolError
+from drivers.serial_abort import StreamAbort
+from drivers.errors import Aborted, BadURL, LinkLost, LinkTimeout, ProtocolError
 from drivers.wire.commands import MAX_SWEEP_POINTS, Command, command, exception_for, line_args
 from drivers.wire.scpi import (
     WireError, decode_answer, encode_params, format_command, format_line, parse_reply, reply_end,
@@ -180,7 +181,7 @@ def _options(query: str, allowed: dict[str, type]) -> dict[str, object]:
     return out
 
 
-class SerialController(LinkController):
+class SerialController(StreamAbort, LinkController):
     """A controller at the far end of a serial line (or anything pyserial opens), speaking our SCPI tree."""
 
     schemes = ("serial", "socket")
@@ -314,73 +315,6 @@ class SerialController(LinkController):
                               f"(is a controller server at the other end?)")
 
     _dirty = False
-
-    # ---- abort ---------------------------------------------------------------------------------------
-    def abort(self) -> None:
-        """Stop the command in flight (from any thread) and make the stage safe; returns once confirmed."""
-        self._aborts += 1
-        name = f"abort{next(self._tokens)}"
-        done = threading.Event()
-        self._acks[name] = entry = [done, None]
-        deadline = time.monotonic() + self._abort_wait_s()
-        try:
-            self._write(format_line([b"ABORt", b"SYSTem:ERRor?", format_command("SYSTem:ECHO?", (f'"{name}"',))]))
-            while not done.is_set():
-                left = deadline - time.monotonic()
-                if left <= 0:
-                    raise LinkTimeout(f"abort not confirmed by {self.port_name} within {self._abort_wait_s():.2f} s")
-                # a command in flight takes the echo out with its own reply; else this thread reads it
-                if self._io.acquire(timeout=min(0.005, left)):
-                    try:
-                        self._collect_acks(deadline + self._inflight_transfer_s)
-                    finally:
-                        self._io.release()
-        finally:
-            self._acks.pop(name, None)
-        if entry[1] is None:  # the echo was seen during a resynchronisation, its status was not
-            if not self.status().safe:
-                raise ControllerFault(-300, "abort sent, but the stage does not report safe")
-            return
-        code, message = entry[1]
-        if code != 0:
-            raise exception_for(code, message)
-
-    def _take_ack(self, message: bytes) -> bool:
-        """If ``message`` is the echo of an abort line, record its error status and say so."""
-        if b'"abort' not in message:
-            return False
-        try:
-            answers = parse_reply(message)
-            token = decode_answer(("str",), answers[-1])[0]
-        except (WireError, IndexError):
-            return False
-        entry = self._acks.get(token) if isinstance(token, str) else None
-        if entry is None or len(answers) != 2:
-            return False
-        try:
-            entry[1] = decode_answer(("int", "str"), answers[0])
-        except WireError:
-            entry[1] = (-102, "garbled abort status")
-        entry[0].set()
-        return True
-
-    def _echoes_in(self, skipped: bytes) -> None:
-        """Abort echoes among bytes a resynchronisation threw away: seen, status unknown."""
-        for token, entry in list(self._acks.items()):
-            if f'"{token}"'.encode() in skipped:
-                entry[0].set()
-
-    def _collect_acks(self, deadline: float) -> None:
-        """Read until every abort echo outstanding is in (other replies are stale: dropped). Holds the I/O."""
-        outstanding = lambda: [e for e in self._acks.values() if not e[0].is_set()]  # noqa: E731
-        while outstanding():
-            left = deadline - time.monotonic()
-            if left <= 0:
-                return
-            try:
-                self._read_reply(left, "ABORt", until=lambda: not outstanding())
-            except (LinkTimeout, ProtocolError):
-                return
 
     def _transact(self, cmd: Command, args: tuple, timeout_s: float) -> tuple:
         with self._io:
