@@ -803,6 +803,6 @@ def fit_mean_bias_grid(mean, mean_std, *, bias_v) -> MeanFit:
     corr = cov_ec / np.where(es_sd[:, 0] * sr_sd > 0, es_sd[:, 0] * sr_sd, 1.0)
     params = np.concatenate([[v0], a, c])
     cpd_sd = float(np.sqrt(cov[0, 0]))
-    sentence = (f"The bias grid ({nb} biases) separates the electrostatic part: V_cpd = {v0:.4g} +- {cpd_sd:.2g} V; "
+    sentence = (f"The bias grid ({nb} biases) separates the electrostatic part: V_cpd = {v0:.4g} ± {cpd_sd:.2g} V; "
                 "the remainder at V_cpd is short-range.")
     return MeanFit(es, es_sd, c, sr_sd, corr, params, cov, True, sentence, v0, cpd_sd, red)

@@ -227,9 +227,11 @@ def centre_gap_m(lift_height_m, *, amplitude_m: float, gap_offset_m: float | Non
     off = amplitude_m if gap_offset_m is None else gap_offset_m
     d = np.asarray(lift_height_m, dtype=float) + off
     if np.any(d - amplitude_m <= 0):
+        low = float(np.min(np.asarray(lift_height_m, dtype=float)))
         raise ValueError(
-            f"closest approach gap_offset_m + lift height - amplitude_m must be > 0 m, got "
-            f"{float(np.min(d - amplitude_m))!r} m")
+            f"at a lift height of {low * 1e9:.3g} nm the tip would reach the surface: the oscillation amplitude "
+            f"{amplitude_m * 1e9:.3g} nm exceeds the lift height plus the first pass's gap of {off * 1e9:.3g} nm "
+            f"above the surface; use a larger lift height or a smaller free amplitude")
     return d
 
 

@@ -163,7 +163,7 @@ def noise_verdict(measured_phase_noise_deg: float, *, spring_constant_n_per_m: f
     needed = (spring_constant_n_per_m, resonance_hz, quality_factor, bandwidth_hz, amplitude_m)
     if any(v is None for v in needed):
         return NoiseVerdict(m, None, None, None, "unknown",
-                            f"Measured phase noise {m:.3g} deg rms; the thermal limit needs k, f0, Q, the "
+                            f"Measured phase noise {m:.3g}° rms; the thermal limit needs k, f0, Q, the "
                             "bandwidth and the amplitude.")
     g = thermal_min_gradient_n_per_m(spring_constant_n_per_m=spring_constant_n_per_m, resonance_hz=resonance_hz,
                                      quality_factor=quality_factor, temperature_k=temperature_k,
@@ -171,12 +171,12 @@ def noise_verdict(measured_phase_noise_deg: float, *, spring_constant_n_per_m: f
     t = float(np.degrees(quality_factor * g / spring_constant_n_per_m))
     r = m / t
     if r > tolerance:
-        v, s = "excess_noise", (f"Phase noise {m:.3g} deg rms is {r:.2g} x the thermal limit {t:.3g} deg: "
+        v, s = "excess_noise", (f"Phase noise {m:.3g}° rms is {r:.2g} × the thermal limit {t:.3g}°: "
                                 "another source (detector, lock-in, vibration, drift) dominates.")
     elif r < 1.0 / tolerance:
-        v, s = "below_thermal_limit", (f"Phase noise {m:.3g} deg rms is below the thermal limit {t:.3g} deg "
+        v, s = "below_thermal_limit", (f"Phase noise {m:.3g}° rms is below the thermal limit {t:.3g}° "
                                        f"(ratio {r:.2g}): check the bandwidth, k and Q given.")
     else:
-        v, s = "thermal_limit", (f"Phase noise {m:.3g} deg rms is at the thermal limit {t:.3g} deg "
+        v, s = "thermal_limit", (f"Phase noise {m:.3g}° rms is at the thermal limit {t:.3g}° "
                                  f"(ratio {r:.2g}).")
     return NoiseVerdict(m, t, g, r, v, s)

@@ -197,8 +197,8 @@ def drive_amplitude_for_free_amplitude(free_amplitude_m: float, *, invols_m_per_
             raise ValueError(f"{name} = {value!r} must be positive and finite")
     drive = free_amplitude_m / invols_m_per_v / response_v_per_v
     if max_drive_v is not None and drive > max_drive_v:
-        raise ValueError(f"drive amplitude {drive:.4g} V for a free amplitude of {free_amplitude_m:.4g} m "
-                         f"exceeds the limit max_drive_v = {max_drive_v:.4g} V")
+        raise ValueError(f"a free amplitude of {free_amplitude_m * 1e9:.4g} nm needs a drive of {drive:.4g} V, "
+                         f"above the drive limit of {max_drive_v:.4g} V: ask for a smaller free amplitude")
     return float(drive)
 
 

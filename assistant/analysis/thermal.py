@@ -449,7 +449,8 @@ class ThermalResult:
             "f0_hz": float(self.f0_hz), "f0_std_hz": float(self.f0_std_hz), "q": float(self.q),
             "q_std": float(self.q_std), "peak_area_v2": float(self.peak_area_v2),
             "k_n_per_m": opt(self.k_n_per_m), "k_std_n_per_m": opt(self.k_std_n_per_m),
-            "invols_nm_per_v": opt(self.invols_m_per_v, 1e9), "temperature_k": float(self.temperature_k),
+            "invols_nm_per_v": opt(self.invols_m_per_v, 1e9),
+            "invols_std_nm_per_v": opt(self.invols_std_m_per_v, 1e9), "temperature_k": float(self.temperature_k),
             "correction_factor": float(self.correction_factor),
         }
 

@@ -102,7 +102,7 @@ def detect_tip_change(first_deg: np.ndarray, repeat_deg: np.ndarray, *, noise_de
     irreversible = bool(changed.any())
     if irreversible:
         sentence = (f"The tip changed the sample: {frac:.2%} of the first-height image differs beyond noise "
-                    f"({threshold:g} x {sm_noise:.2g} deg after {smooth_px} px smoothing) between the first pass and "
+                    f"({threshold:g} × {sm_noise:.2g}° after {smooth_px} px smoothing) between the first pass and "
                     "its repeat; the change did not reverse.")
     else:
         sentence = "No change beyond noise between the first pass and its repeat: the tip left the sample as it was."

@@ -109,8 +109,19 @@ def add_controller_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--controller", default="sim://", metavar="URL",
                    help="controller URL (default sim://, the built-in simulated stage)")
     p.add_argument("--scenario", metavar="FILE_OR_NAME",
-                   help="simulated-stage scenario: a TOML file or a built-in name (sim:// only)")
+                   help=f"simulated-stage scenario (sim:// only): a TOML file or a built-in name: {scenario_names()}")
     p.add_argument("--seed", type=int, default=None, help="random seed of the simulated stage")
+
+
+def scenario_names() -> str:
+    """The built-in scenarios of the simulated stage, found without importing it (``--help`` stays fast)."""
+    import importlib.util
+    from pathlib import Path
+
+    spec = importlib.util.find_spec("simulated_stage")
+    folders = list(spec.submodule_search_locations or []) if spec is not None else []
+    names = sorted(p.stem for f in folders for p in (Path(f) / "scenarios").glob("*.toml"))
+    return ", ".join(names) or "none installed"
 
 
 def open_controller_from_args(args: argparse.Namespace, **extra):

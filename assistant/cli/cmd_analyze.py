@@ -19,15 +19,63 @@ def _is_hdf5(p: Path) -> bool:
         return fh.read(8) == b"\x89HDF\r\n\x1a\n"
 
 
-def _read_csv(p: Path):
-    """A CSV with a header row, as a structured array and its column names."""
+def _read_csv(p: Path) -> tuple[dict, tuple[str, ...]]:
+    """A CSV with a header row: its columns by name. A row that is not all numbers is named, never dropped."""
+    import re
+
     import numpy as np
 
+    header_at, header = None, None
+    with open(p, encoding="utf-8", errors="replace") as fh:
+        for n, line in enumerate(fh):
+            if line.strip() and not line.lstrip().startswith("#"):
+                header_at, header = n, line
+                break
+    if header is None:
+        raise UsageError(f"{p}: the file is empty")
+    names = tuple(t.strip() for t in header.strip().split(","))
+    if any(_is_number(t) for t in names):
+        raise UsageError(f"{p}: the first line must name the columns (time_s,volts or "
+                         f"frequency_hz,amplitude_v,phase_deg), found numbers: {header.strip()[:60]}")
     try:
-        table = np.genfromtxt(p, delimiter=",", names=True)
+        data = np.loadtxt(p, delimiter=",", skiprows=header_at + 1, ndmin=2, comments="#")
     except ValueError as exc:
-        raise UsageError(f"{p}: not a readable CSV ({exc})") from None
-    return table, table.dtype.names or ()
+        text = str(exc)
+        m = re.search(r"string '(.*)' to \w+ at row (\d+), column (\d+)", text)
+        if m:
+            line = _file_line(p, header_at, int(m.group(2)))
+            column = names[int(m.group(3)) - 1] if int(m.group(3)) <= len(names) else m.group(3)
+            what = "an empty value" if m.group(1) == "" else f"'{m.group(1)}'"
+            raise UsageError(f"{p}, line {line}: {what} in column {column} is not a number") from None
+        m = re.search(r"from (\d+) to (\d+) at row (\d+)", text)
+        if m:
+            raise UsageError(f"{p}, line {_file_line(p, header_at, int(m.group(3)))}: {m.group(2)} values where "
+                             f"the header names {len(names)} columns") from None
+        raise UsageError(f"{p}: not a readable CSV ({text})") from None
+    if data.size and data.shape[1] != len(names):
+        raise UsageError(f"{p}: {data.shape[1]} values per row where the header names {len(names)} columns")
+    return {n: data[:, k] for k, n in enumerate(names)}, names
+
+
+def _is_number(text: str) -> bool:
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
+
+
+def _file_line(p: Path, header_at: int, row: int) -> int:
+    """The 1-based line number of data row ``row`` (0-based, blank and comment lines not counted)."""
+    with open(p, encoding="utf-8", errors="replace") as fh:
+        seen = -1
+        for n, line in enumerate(fh):
+            if n <= header_at or not line.strip() or line.lstrip().startswith("#"):
+                continue
+            seen += 1
+            if seen == row:
+                return n + 1
+    return header_at + row + 2
 
 
 # ---- thermal ------------------------------------------------------------------------------------------------
@@ -46,9 +94,9 @@ def _load_record(p: Path, rate_hz: float | None):
         table, names = _read_csv(p)
         if "volts" not in names:
             raise UsageError(f"{p}: CSV needs a 'volts' column (and optionally 'time_s'), found {list(names)}")
-        v = np.atleast_1d(table["volts"]).astype(float)
+        v = np.asarray(table["volts"], dtype=float)
         if "time_s" in names:
-            t = np.atleast_1d(table["time_s"]).astype(float)
+            t = np.asarray(table["time_s"], dtype=float)
             if t.size < 2 or not np.all(np.diff(t) > 0):
                 raise UsageError(f"{p}: time_s must increase")
             rate_from_t = (t.size - 1) / (t[-1] - t[0])
@@ -56,7 +104,11 @@ def _load_record(p: Path, rate_hz: float | None):
         if rate_hz is None:
             raise UsageError(f"{p}: give --rate HZ or a time_s column")
         return v, rate_hz
-    raise UsageError(f"{p}: unsupported file type {p.suffix!r} (use .npy, .csv or a session .h5)")
+    if p.suffix.lower() in (".h5", ".hdf5"):
+        raise UsageError(f"{p} is not an HDF5 file (it lacks the HDF5 signature): give a session file written by "
+                         f"mfma, a .npy record or a .csv")
+    raise UsageError(f"{p}: a {p.suffix or 'file without an extension'} cannot be read here; give a .npy record, "
+                     f"a .csv (volts, or time_s,volts) or a session file (.h5)")
 
 
 def thermal(args) -> int:
@@ -64,49 +116,74 @@ def thermal(args) -> int:
 
     p = _existing(args.file)
     invols = args.invols * 1e-9 if args.invols else None
+    if args.k_std and not args.k:
+        raise UsageError("--k-std is the uncertainty of --k: give --k too")
+    if args.invols_std and not args.invols:
+        raise UsageError("--invols-std is the uncertainty of --invols: give --invols too")
+    known = {"invols_m_per_v": invols, "k_n_per_m": args.k, "k_std_n_per_m": args.k_std or 0.0,
+             "invols_std_m_per_v": (args.invols_std or 0.0) * 1e-9}
     if _is_hdf5(p):
-        result = _thermal_from_session(p, args, invols)
+        result = _thermal_from_session(p, args, known)
     else:
         volts, rate = _load_record(p, args.rate)
-        result = th.analyse_thermal_record(volts, rate, temperature_k=args.temperature, invols_m_per_v=invols,
-                                           k_n_per_m=args.k, detection=args.detection)
+        fit = th.analyse_thermal_record(volts, rate, temperature_k=args.temperature_k, detection=args.detection).fit
+        result = th.calibrate_thermal(fit, temperature_k=args.temperature_k, detection=args.detection, **known)
     if args.plot:
-        from assistant.report.calibration_figures import thermal_figure
+        from assistant.report.calibration_figures import write_thermal_figure
 
-        thermal_figure(result, args.plot)
+        write_thermal_figure(result, _png_path(args.plot))
     d = result.to_dict()
     if args.json:
         emit_json(d)
+        return 0
+    from assistant.formatting import number, quantity
+
+    lines = [f"resonance f0: {quantity(d['f0_hz'], 'Hz', d['f0_std_hz'])}",
+             f"quality factor Q: {number(d['q'], d['q_std'])}",
+             f"thermal peak area: {quantity(d['peak_area_v2'], 'V^2')} (Butt-Jaschke factor "
+             f"{number(d['correction_factor'])}, {args.detection} detection, {quantity(args.temperature_k, 'K')})"]
+    if args.invols:
+        source = "" if args.invols_std else "; give --invols-std for the sensitivity's own uncertainty"
+        lines.append(f"spring constant k: {quantity(d['k_n_per_m'], 'N/m', d['k_std_n_per_m'])} "
+                     f"(thermal, from the given sensitivity{source})")
+    elif args.k:
+        source = "" if args.k_std else "; give --k-std to include the uncertainty of k"
+        lines.append(f"optical-lever sensitivity (InvOLS): {quantity(d['invols_nm_per_v'], 'nm/V', d['invols_std_nm_per_v'])}"
+                     f" (non-contact, from the given k{source})")
     else:
-        lines = [f"f0 = {d['f0_hz']:.2f} ± {d['f0_std_hz']:.2f} Hz", f"Q = {d['q']:.2f} ± {d['q_std']:.2f}",
-                 f"peak area = {d['peak_area_v2']:.4g} V^2 (Butt-Jaschke factor {d['correction_factor']:.4f})"]
-        if d["k_n_per_m"] is not None and args.invols:
-            lines.append(f"k = {d['k_n_per_m']:.4g} ± {d['k_std_n_per_m']:.2g} N/m (thermal, InvOLS given)")
-        if args.k:
-            lines.append(f"InvOLS = {d['invols_nm_per_v']:.3f} nm/V (non-contact, from the given k)")
-        if d["k_n_per_m"] is None:
-            lines.append("k: give --invols NM_PER_V (or --k to get the sensitivity instead)")
-        lines += [f"warning: {w}" for w in result.warnings]
-        emit_text(lines)
+        lines.append("k or sensitivity: give --invols NM_PER_V (for k) or --k N_PER_M (for the non-contact "
+                     "optical-lever sensitivity)")
+    if args.plot:
+        lines.append(f"figure: {_png_path(args.plot)}")
+    lines += [f"warning: {w}" for w in result.warnings]
+    emit_text(lines)
     return 0
 
 
-def _thermal_from_session(p: Path, args, invols):
+def _png_path(text: str) -> Path:
+    p = Path(text)
+    if p.suffix.lower() != ".png":
+        raise UsageError(f"--plot {text}: the figure is written as PNG; give a file name ending in .png")
+    if not p.parent.exists():
+        raise UsageError(f"--plot {text}: the folder {p.parent} does not exist")
+    return p
+
+
+def _thermal_from_session(p: Path, args, known: dict):
     from assistant.analysis import thermal as th
     from assistant.storage.session_file import SessionFile
 
     with SessionFile.open(p, "r") as sf:
         cals = sf.read_calibrations()
     if not cals:
-        raise UsageError(f"{p}: the session file holds no thermal spectrum")
+        raise UsageError(f"{p}: the session file holds no calibration, so no thermal spectrum")
     rec = cals[-1]
     if "spectrum_psd_v2_per_hz" not in rec.arrays:
-        raise UsageError(f"{p}: the last calibration kept no spectrum")
+        raise UsageError(f"{p}: the last calibration kept no thermal spectrum")
     fit = th.fit_thermal_spectrum(rec.arrays["spectrum_frequency_hz"], rec.arrays["spectrum_psd_v2_per_hz"],
                                   averages=float(rec.scalars["spectrum_segments"]),
                                   variance_inflation=float(rec.scalars.get("spectrum_variance_inflation", 1.0)))
-    return th.calibrate_thermal(fit, temperature_k=args.temperature, invols_m_per_v=invols, k_n_per_m=args.k,
-                                detection=args.detection)
+    return th.calibrate_thermal(fit, temperature_k=args.temperature_k, detection=args.detection, **known)
 
 
 # ---- sader ---------------------------------------------------------------------------------------------------
@@ -118,11 +195,15 @@ def sader(args) -> int:
     d = r.to_dict()
     if args.json:
         emit_json(d)
-    else:
-        emit_text([f"k = {d['k_n_per_m']:.5g} ± {d['k_std_n_per_m']:.2g} N/m (Sader method)",
-                   f"Reynolds number {d['reynolds']:.4g}, Gamma_i {d['gamma_imag']:.5f}",
-                   f"air: {d['density_kg_m3']:.4f} kg/m^3, {d['viscosity_pa_s']:.4e} Pa s"]
-                  + [f"warning: {w}" for w in r.warnings])
+        return 0
+    from assistant.formatting import number, quantity
+
+    emit_text([f"spring constant k: {quantity(d['k_n_per_m'], 'N/m', d['k_std_n_per_m'])} (Sader method)",
+               f"Reynolds number {number(d['reynolds'])}, imaginary part of the hydrodynamic function "
+               f"{number(d['gamma_imag'])}",
+               f"air: density {quantity(d['density_kg_m3'], 'kg/m^3')}, viscosity "
+               f"{quantity(d['viscosity_pa_s'], 'Pa s')}"]
+              + [f"warning: {w}" for w in r.warnings])
     return 0
 
 
@@ -134,9 +215,9 @@ def _load_sweep(p: Path):
     need = ("frequency_hz", "amplitude_v", "phase_deg")
     missing = [n for n in need if n not in names]
     if missing:
-        raise UsageError(f"{p}: CSV lacks the column(s) {', '.join(missing)} (header must be "
+        raise UsageError(f"{p}: the CSV lacks the column(s) {', '.join(missing)} (its header must be "
                          f"frequency_hz,amplitude_v,phase_deg)")
-    return tuple(np.atleast_1d(table[n]).astype(float) for n in need)
+    return tuple(np.asarray(table[n], dtype=float) for n in need)
 
 
 def sweep(args) -> int:
@@ -145,53 +226,73 @@ def sweep(args) -> int:
     f, a, ph = _load_sweep(_existing(args.file))
     r = fit_drive_sweep(f, a, ph)
     if args.plot:
-        from assistant.report.calibration_figures import sweep_figure
+        from assistant.report.calibration_figures import write_sweep_figure
 
-        sweep_figure(r, args.plot)
+        write_sweep_figure(r, _png_path(args.plot))
     d = r.to_dict()
     if args.json:
         emit_json(d)
-    else:
-        emit_text([f"f0 = {d['f0_hz']:.2f} ± {d['f0_std_hz']:.2f} Hz", f"Q = {d['q']:.2f} ± {d['q_std']:.2f}",
-                   f"phase offset {d['phase_offset_deg']:.2f} deg, amplitude at resonance "
-                   f"{d['amplitude_at_resonance_v']:.4g} V"])
+        return 0
+    from assistant.formatting import number, quantity
+
+    lines = [f"resonance f0: {quantity(d['f0_hz'], 'Hz', d['f0_std_hz'])}",
+             f"quality factor Q: {number(d['q'], d['q_std'])}",
+             f"phase offset: {quantity(d['phase_offset_deg'], 'deg')}, amplitude at resonance "
+             f"{quantity(d['amplitude_at_resonance_v'], 'V')}"]
+    if args.plot:
+        lines.append(f"figure: {_png_path(args.plot)}")
+    emit_text(lines)
     return 0
 
 
 # ---- series ---------------------------------------------------------------------------------------------------
 def series(args) -> int:
+    from assistant.cli.progress import StageProgress
     from assistant.procedures.analyse import analyse_npz, analyse_session_file
 
     p = _existing(args.file)
-    if _is_hdf5(p):
-        result = analyse_session_file(p, args.series, short_range_fraction=args.short_range_fraction, edge=args.edge)
-    elif p.suffix.lower() == ".npz":
-        result = analyse_npz(p, short_range_fraction=args.short_range_fraction, edge=args.edge)
-    else:
-        raise UsageError(f"{p}: expected a .npz stack or a session .h5 file")
-    if args.plots:
-        from assistant.report.series_figures import write_series_figures
+    with StageProgress() as progress:
+        with progress.stage("analysis", f"decomposing {p.name}"):
+            if _is_hdf5(p):
+                result = analyse_session_file(p, args.series, short_range_fraction=args.short_range_fraction,
+                                              edge=args.edge)
+            elif p.suffix.lower() == ".npz":
+                result = analyse_npz(p, short_range_fraction=args.short_range_fraction, edge=args.edge)
+            elif p.suffix.lower() in (".h5", ".hdf5"):
+                raise UsageError(f"{p} is not an HDF5 file (it lacks the HDF5 signature): give a session file "
+                                 f"written by mfma or a .npz stack")
+            else:
+                raise UsageError(f"{p}: expected a .npz stack or a session file (.h5)")
+        if args.plots:
+            from assistant.report.series_figures import write_series_figures
 
-        Path(args.plots).mkdir(parents=True, exist_ok=True)
-        write_series_figures(result, Path(args.plots))
+            with progress.stage("figures", f"writing the figures to {args.plots}"):
+                Path(args.plots).mkdir(parents=True, exist_ok=True)
+                written = write_series_figures(result, Path(args.plots), per_height_scale=args.per_height_scale)
     d = result.to_dict()
     if args.json:
         emit_json(d)
     else:
-        emit_text(_series_text(d))
+        lines = series_text(d, biases_v=result.bias_v)
+        if args.plots:
+            lines += ["", f"figures in {args.plots}: " + ", ".join(p.name for p in written)]
+        emit_text(lines)
     return 0
 
 
-def _series_text(d: dict) -> list[str]:
-    lines = ["height_nm  magnetic_rms_deg  electrostatic_mean_deg  short_range_mean_deg"]
-    es = d["electrostatic_mean_deg"]
-    for i, h in enumerate(d["heights_nm"]):
-        e = es[i] if not isinstance(es[i], list) else es[i][0]
-        lines.append(f"{h:9.1f}  {d['magnetic_rms_deg'][i]:16.4f}  {e:22.4f}  {d['short_range_mean_deg'][i]:20.4f}")
+def series_text(d: dict, *, biases_v=None) -> list[str]:
+    """The text output of ``analyze series``: the results first, then the per-height numbers."""
+    from assistant.report.results import bias_table, per_height_table, render_block, render_table, results_block
+
+    lines = render_block(results_block(d), markdown=False) + [""]
+    headers, rows, notes = per_height_table(d)
+    lines += render_table(headers, rows, markdown=False) + notes
+    grid = bias_table(d, biases_v)
+    if grid is not None:
+        lines += ["", "Electrostatic mean (°) at each tip bias:"] + render_table(*grid, markdown=False)
     if d.get("edge") == "reflect" and d.get("edge_band_px"):
-        lines.append(f"magnetic rms over the interior: an edge band of {d['edge_band_px']} px left out")
-    lines.append(f"residual rms: {d['residual_rms_deg']} deg")
-    lines.append(f"recommended lift height: {d['recommended_lift_nm']} nm")
-    if d.get("cpd_v") is not None:
-        lines.append(f"contact potential difference V_cpd = {d['cpd_v']:.3f} V")
+        lines.append(f"Magnetic rms and residual over the interior: an edge band of {d['edge_band_px']} px "
+                     f"left out.")
+    if d.get("recommendation"):
+        lines += ["", str(d["recommendation"])]
     return lines

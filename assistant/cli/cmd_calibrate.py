@@ -2,28 +2,21 @@
 
 from __future__ import annotations
 
-from datetime import datetime, timezone
-from pathlib import Path
-
-from assistant.cli._common import StderrProgress, emit_json, emit_text, open_controller_from_args
+from assistant.cli._common import emit_json, emit_text, open_controller_from_args
 
 
 def run(args) -> int:
     from assistant.cli.cmd_run import _scenario_text, _writable_dir, calibration_settings
+    from assistant.cli.progress import StageProgress
+    from assistant.outputs import new_session_path
     from assistant.procedures.workflow import Workflow
     from assistant.storage.probe_record import ProbeRecord
     from drivers.registry import redact
 
     settings = calibration_settings(args)
     settings.validate()
-    if args.out:
-        path = Path(args.out)
-        _writable_dir(str(path.parent or "."))
-    else:
-        stamp = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
-        path = _writable_dir("sessions") / f"calibration-{stamp}.h5"
-    progress = StderrProgress(quiet=False)
-    with open_controller_from_args(args) as ctl:
+    path = new_session_path(_writable_dir(args.out))
+    with StageProgress() as progress, open_controller_from_args(args) as ctl:
         wf = Workflow(ctl, path, controller_url=redact(args.controller),
                       scenario_text=_scenario_text(ctl), sink=progress)
         try:
@@ -36,13 +29,18 @@ def run(args) -> int:
                "notices": result.notices, "probe_record_warnings": wf.probe_warnings}
     if args.json:
         emit_json(summary)
-    else:
-        s = summary
-        lines = [f"f0 = {s['f0_hz']:.2f} ± {s['f0_std_hz']:.2f} Hz, Q = {s['q']:.1f} ± {s['q_std']:.1f} (thermal fit)",
-                 f"k = {s['k_n_per_m']:.4g} ± {s['k_std_n_per_m']:.2g} N/m ({s['k_source']})",
-                 f"InvOLS = {s['invols_nm_per_v']:.3f} ± {s['invols_std_nm_per_v']:.3f} nm/V ({s['invols_source']})",
-                 f"drive {s['drive_frequency_hz']:.1f} Hz, {s['drive_amplitude_v'] * 1e3:.2f} mV -> free amplitude "
-                 f"{s['free_amplitude_nm']:.1f} nm; setpoint {s['setpoint_v'] * 1e3:.1f} mV",
-                 f"session file: {path}"]
-        emit_text(lines)
+        return 0
+    from assistant.formatting import number, quantity
+
+    s = summary
+    emit_text([f"resonance f0: {quantity(s['f0_hz'], 'Hz', s['f0_std_hz'])}, quality factor Q: "
+               f"{number(s['q'], s['q_std'])} (thermal fit)",
+               f"spring constant k: {quantity(s['k_n_per_m'], 'N/m', s['k_std_n_per_m'])} ({s['k_source']})",
+               f"optical-lever sensitivity (InvOLS): {quantity(s['invols_nm_per_v'], 'nm/V', s['invols_std_nm_per_v'])}"
+               f" ({s['invols_source']})",
+               f"drive: {quantity(s['drive_frequency_hz'], 'Hz', digits=6)} at {quantity(s['drive_amplitude_v'], 'V')}"
+               f" for a free amplitude of {quantity(s['free_amplitude_nm'], 'nm', digits=3)}; setpoint "
+               f"{quantity(s['setpoint_v'], 'V')}",
+               f"session file: {path}"]
+              + ([f"probe record: calibration of {args.probe} stored"] if args.probe else []))
     return 0

@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import json
 import os
-from datetime import datetime, timezone
 from pathlib import Path
 
-from assistant.cli._common import StderrProgress, UsageError, emit_json, emit_text, open_controller_from_args
+from assistant.cli._common import UsageError, emit_json, emit_text, open_controller_from_args
+from assistant.outputs import new_session_path, report_dir_for
 
 
 def _writable_dir(text: str) -> Path:
@@ -61,22 +61,27 @@ def _writer_hook(ctl):
 
 
 def run(args) -> int:
+    from assistant.cli.progress import StageProgress
     from assistant.procedures.guard import load_limits
-    from assistant.report.summary import build_report
-    from assistant.procedures.workflow import Workflow
-    from drivers.registry import redact, scheme_of
 
     limits = load_limits(args.limits)
-    progress = StderrProgress(quiet=False)
-    if args.resume:
-        return _resume(args, limits, progress)
+    with StageProgress() as progress:
+        if args.resume:
+            return _resume(args, limits, progress)
+        return _run(args, limits, progress)
+
+
+def _run(args, limits, progress) -> int:
+    from assistant.procedures.workflow import Workflow
+    from assistant.report.summary import build_report
+    from drivers.registry import redact, scheme_of
+
     out = _writable_dir(args.out)
     series_settings = _series_settings(args)
     series_settings.validate(limits)
     cal_settings = calibration_settings(args)
     cal_settings.validate()
-    stamp = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
-    session_path = out / f"session-{stamp}.h5"
+    session_path = new_session_path(out)
     extra = {"pace": args.pace, "line_rate": args.line_rate} if scheme_of(args.controller) == "sim" else {}
     with open_controller_from_args(args, **extra) as ctl:
         wf = Workflow(ctl, session_path, controller_url=redact(args.controller), scenario_text=_scenario_text(ctl),
@@ -87,11 +92,13 @@ def run(args) -> int:
             wf.calibrate(cal_settings, probe_record=ProbeRecord() if args.probe else None)
             wf.approach()
             wf.series(series_settings)
-            analysis = wf.analyse()
+            with progress.stage("analysis", "decomposing the series"):
+                analysis = wf.analyse()
             wf.session.mark_complete()
             wf.session.flush()
-            report = build_report(session_path, out / f"report-{stamp}",
-                                  analyses={wf.series_settings.name: analysis})
+            report = build_report(session_path, report_dir_for(session_path),
+                                  analyses={wf.series_settings.name: analysis}, sink=progress,
+                                  per_height_scale=args.per_height_scale)
         except KeyboardInterrupt:
             _stop(ctl)  # Ctrl-C between two steps: no guard was running
             raise
@@ -128,14 +135,17 @@ def _resume(args, limits, progress) -> int:
         wf._session = SessionFile.open(path, "a")
         try:
             wf.restore_drive(drive, spring_constant_n_per_m=k, quality_factor=q, temperature_k=t)
-            progress.notices.append(("info", f"resuming {settings.name} at line {data.completed_lines}"))
+            from assistant.procedures.events import Notice
+
+            progress(Notice("info", f"resuming {settings.name} at line {data.completed_lines + 1} of {data.lines}"))
             wf.approach()
             wf.series(settings, resume=True)
-            analysis = wf.analyse()
+            with progress.stage("analysis", "decomposing the series"):
+                analysis = wf.analyse()
             wf.session.mark_complete()
             wf.session.flush()
-            report = build_report(path, path.parent / f"report-{path.stem}",
-                                  analyses={wf.series_settings.name: analysis})
+            report = build_report(path, report_dir_for(path), analyses={wf.series_settings.name: analysis},
+                                  sink=progress, per_height_scale=args.per_height_scale)
         except KeyboardInterrupt:
             _stop(ctl)
             raise
@@ -171,16 +181,20 @@ def _finish(args, session_path: Path, report, wf, analysis) -> int:
     }
     if args.json:
         emit_json(summary)
-    else:
-        a = summary["analysis"] or {}
-        emit_text([
-            f"session file: {session_path}",
-            f"report:       {report.out_dir}",
-            f"k = {calib['k_n_per_m']:.4g} N/m, f0 = {calib['f0_hz']:.1f} Hz, Q = {calib['q']:.1f}",
-            f"series: {len(s.heights_m)} heights x {wf.series_result.completed_lines} lines",
-            "recommended lift height: " + (f"{a['recommended_lift_nm']:.4g} nm" if a.get("recommended_lift_nm")
-                                           else "none (see the report)"),
-            "V_cpd: " + (f"{a['cpd_v']:.3f} ± {a.get('cpd_std_v') or 0:.1g} V" if a.get("cpd_v") is not None
-                         else "not measured (needs a bias grid, --biases)"),
-        ])
+        return 0
+    from assistant.formatting import number, number_list, quantity
+    from assistant.report.results import render_block, results_block
+
+    a = summary["analysis"] or {}
+    cal_text = (f"k {quantity(calib['k_n_per_m'], 'N/m', calib['k_std_n_per_m'])}, f0 {quantity(calib['f0_hz'], 'Hz')}"
+                f", Q {number(calib['q'], digits=3)}")
+    if calib["invols_nm_per_v"] is not None:
+        cal_text += f", optical-lever sensitivity {quantity(calib['invols_nm_per_v'], 'nm/V')}"
+    heights = number_list(summary["series"]["heights_nm"], "nm")
+    pairs = results_block(a) if a else [("Analysis", "none")]
+    emit_text(render_block(pairs + [
+        ("Calibration", cal_text),
+        ("Series", f"{wf.series_result.completed_lines} lines at {len(s.heights_m)} lift heights ({heights})"
+         + (f" × {len(s.biases_v)} biases" if s.biases_v else "")),
+        ("Session file", str(session_path)), ("Report", str(report.out_dir))], markdown=False))
     return 0

@@ -2,29 +2,26 @@
 
 from __future__ import annotations
 
-from datetime import datetime, timezone
 from pathlib import Path
 
 from assistant.cli._common import UsageError, open_controller_from_args
 
 
 def run(args) -> int:
+    from assistant.outputs import new_session_path
     from assistant.procedures.guard import load_limits
-    from assistant.tui.app import MfmApp
 
     if args.open:
-        path = Path(args.open)
-        if not path.is_file():
-            raise UsageError(f"session file {path} does not exist")
-        app = MfmApp(None, open_path=path)
-        return int(app.run() or 0)
+        return _open(Path(args.open))
     limits = load_limits()
-    stamp = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
-    session_path = Path("mfma-out") / f"session-{stamp}.h5"
+    session_path = new_session_path(args.out)
+    from assistant.tui.app import MfmApp
+
     with open_controller_from_args(args) as ctl:
         app = MfmApp(ctl, controller_url=args.controller, session_path=session_path, limits=limits,
                      scenario_text=getattr(ctl, "scenario_text", None))
-        code = app.run()
+        app.run()
+        code = app.return_code  # 1 after a crash of the UI, whatever run() returned
         # The app only exits on its own once the stage is confirmed safe; make sure of it on any other exit.
         try:
             if not ctl.status().safe:
@@ -33,3 +30,26 @@ def run(args) -> int:
             if app.workflow is not None:
                 app.workflow.close()
     return int(code or 0)
+
+
+def _open(path: Path) -> int:
+    """Check the file before any screen opens: a missing or foreign file is one line and exit 2."""
+    if not path.is_file():
+        raise UsageError(f"session file {path} does not exist")
+    from assistant.tui.session_view import load_session
+
+    from assistant.storage.session_file import NotASessionFileError
+
+    try:
+        stored = load_session(path)
+    except NotASessionFileError:  # not HDF5, or HDF5 that mfma did not write
+        raise UsageError(f"{path} is not a session file written by mfma") from None
+    except Exception as exc:
+        from assistant.cli._common import one_line
+
+        raise UsageError(f"{path} cannot be read as a session file: {one_line(exc)}") from None
+    from assistant.tui.app import MfmApp
+
+    app = MfmApp(None, open_path=path, stored=stored)
+    app.run()
+    return int(app.return_code or 0)

@@ -108,6 +108,8 @@ def approach(controller, settings: ApproachSettings, *, limits: SafetyLimits | N
         result.z_m = z
         result.coarse_position_m = status.coarse_position_m
         result.coarse_travel_m = status.coarse_position_m - start
-        sink(Notice("info", f"engaged: Z extension {z * 1e6:.2f} µm of {z_range * 1e6:.1f} µm, "
-                            f"amplitude {amp * 1e3:.1f} mV (setpoint {settings.setpoint_v * 1e3:.1f} mV)"))
+        from assistant.formatting import quantity
+
+        sink(Notice("info", f"engaged: Z extension {quantity(z, 'm')} of {quantity(z_range, 'm')}, amplitude "
+                            f"{quantity(amp, 'V')} (setpoint {quantity(settings.setpoint_v, 'V')})"))
     return result

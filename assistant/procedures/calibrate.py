@@ -201,10 +201,10 @@ def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits
         qc = sw.compare_q(sweep_fit, fit)
         if not qc.consistent:
             note("warning", f"Q from the sweep ({sweep_fit.q:.1f} ± {sweep_fit.q_std:.1f}) and from the thermal "
-                            f"spectrum ({fit.q:.1f} ± {fit.q_std:.1f}) differ by {abs(qc.z_score):.1f} sigma")
+                            f"spectrum ({fit.q:.1f} ± {fit.q_std:.1f}) differ by {abs(qc.z_score):.1f} σ")
         else:
             note("info", f"Q: sweep {sweep_fit.q:.1f} ± {sweep_fit.q_std:.1f}, thermal {fit.q:.1f} ± "
-                         f"{fit.q_std:.1f} (consistent, {abs(qc.z_score):.1f} sigma)")
+                         f"{fit.q_std:.1f} (consistent, {abs(qc.z_score):.1f} σ)")
 
         length, width, dim_source = _dimensions(controller, settings)
         sader = None
@@ -215,7 +215,7 @@ def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits
             for w in sader.warnings:
                 note("warning", f"Sader: {w}")
             note("info", f"Sader k = {sader.k_n_per_m:.4g} ± {sader.k_std_n_per_m:.2g} N/m "
-                         f"(plan view {length * 1e6:g} x {width * 1e6:g} µm, {dim_source})")
+                         f"(plan view {length * 1e6:g} × {width * 1e6:g} µm, {dim_source})")
 
         contact = None
         user_invols = settings.invols_m_per_v
@@ -263,8 +263,11 @@ def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits
                                    "Sader method, or a measured sensitivity (--invols) for the thermal method")
 
         drive = _drive_setup(controller, settings, sweep_fit, invols, limits=limits)
-        note("info", f"drive {drive.frequency_hz:.1f} Hz at {drive.amplitude_v * 1e3:.2f} mV for "
-                     f"{drive.free_amplitude_m * 1e9:.1f} nm free amplitude; setpoint {drive.setpoint_v * 1e3:.1f} mV")
+        from assistant.formatting import quantity
+
+        note("info", f"drive {quantity(drive.frequency_hz, 'Hz', digits=6)} at {quantity(drive.amplitude_v, 'V')} "
+                     f"for a free amplitude of {quantity(drive.free_amplitude_m, 'm', digits=3)}; setpoint "
+                     f"{quantity(drive.setpoint_v, 'V')}")
         controller.drive_off()
     return CalibrationResult(thermal=thermal_result, sweep=sweep_fit, sader=sader, k_n_per_m=k, k_std_n_per_m=k_std,
                              k_source=k_source, invols_m_per_v=invols, invols_std_m_per_v=invols_std,

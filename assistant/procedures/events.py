@@ -27,10 +27,13 @@ class Progress:
 
 @dataclass(frozen=True)
 class Notice:
-    """A message for the user: level is "info", "warning" or "error"."""
+    """A message for the user: level is "info", "warning" or "error". ``kind`` marks a notice a renderer may
+    shorten: "stopped" is the safety guard's report that it made the stage safe after an error (whose text the
+    caller reports anyway)."""
 
     level: str
     text: str
+    kind: str = ""
 
 
 Event = Progress | Notice

@@ -105,7 +105,8 @@ def safety_guard(controller, *, sink: Sink = null_sink, save: Callable[[], None]
         except BaseException as safe_exc:  # the link may be gone: say so loudly, then carry on with the save
             sink(Notice("error", f"could not confirm a safe stage ({safe_exc}); check the instrument by hand"))
         else:
-            sink(Notice("warning", f"stopped ({type(exc).__name__}: {exc}); tip withdrawn, drive off, bias 0 V"))
+            sink(Notice("warning", f"stopped ({type(exc).__name__}: {exc}); tip withdrawn, drive off, bias 0 V",
+                        kind="stopped"))
         if save is not None:
             try:
                 save()

@@ -45,7 +45,7 @@ class SeriesSettings:
     @property
     def order(self) -> str:
         rep = ", repeat of the first height" if self.repeat_first else ""
-        bias = " x every bias" if self.biases_v else ""
+        bias = " × every bias" if self.biases_v else ""
         return f"per line: topography, then each height in increasing order{bias}{rep}"
 
     @property
@@ -68,7 +68,7 @@ class SeriesSettings:
         if h.size < 1:
             raise SeriesSettingsError("at least one lift height is needed")
         if not np.all(np.isfinite(h)) or np.any(h <= 0):
-            raise SeriesSettingsError(f"lift heights must be positive, got {[f'{x * 1e9:g}' for x in h]} nm")
+            raise SeriesSettingsError(f"lift heights must be positive, got {', '.join(f'{x * 1e9:g}' for x in h)} nm")
         if np.any(np.diff(h) <= 0):
             raise SeriesSettingsError("lift heights must be strictly increasing")
         top = min(limits.lift_height_max_m, z_range_m / 2 if z_range_m else math.inf)
@@ -82,9 +82,9 @@ class SeriesSettings:
             if len(set(self.biases_v)) != len(self.biases_v):
                 raise SeriesSettingsError("biases must be distinct")
         if self.pixels < 8:
-            raise SeriesSettingsError(f"pixels = {self.pixels} is below the minimum of 8")
+            raise SeriesSettingsError(f"{self.pixels} pixels per line is below the minimum of 8")
         if self.lines < 8:  # the decomposition needs images of at least 8 x 8
-            raise SeriesSettingsError(f"lines = {self.lines} is below the minimum of 8")
+            raise SeriesSettingsError(f"{self.lines} scan lines is below the minimum of 8")
         if not self.scan_size_m > 0:
             raise SeriesSettingsError(f"scan size {self.scan_size_m * 1e6:g} µm must be positive")
         if scan_size_max_m is not None and self.scan_size_m > scan_size_max_m:

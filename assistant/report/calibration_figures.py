@@ -13,6 +13,7 @@ from matplotlib.figure import Figure
 
 from assistant.analysis.sweep import SweepResult
 from assistant.analysis.thermal import ThermalResult
+from assistant.formatting import number, quantity
 
 __all__ = ["sweep_figure", "thermal_figure", "write_sweep_figure", "write_thermal_figure"]
 
@@ -56,32 +57,34 @@ def thermal_figure(result: ThermalResult) -> Figure:
         ax_all.loglog(f_all, p_all, color=_DATA, lw=0.7, label="measured (log-binned)")
         ax_all.loglog(f_model, model, color=_FIT, lw=1.2, label="fit (inside the window)")
         ax_all.axvspan(lo, hi, color=_WINDOW, alpha=0.15, label="fit window")
-        ax_all.legend(fontsize=8, loc="best")
+        ax_all.legend(fontsize=8, loc="upper center")  # the empty band between the 1/f noise and the peak
     else:
         ax_all.set_axis_off()
     ax_all.set_xlabel("frequency (Hz)")
     ax_all.set_ylabel("deflection PSD (V²/Hz)")
-    title = f"f0 = {result.f0_hz / 1e3:.4f} ± {result.f0_std_hz / 1e3:.4f} kHz, Q = {result.q:.1f} ± {result.q_std:.1f}"
+    title = f"f0 = {quantity(result.f0_hz, 'Hz', result.f0_std_hz)}, Q = {number(result.q, result.q_std)}"
     if result.k_n_per_m is not None:
-        title += f", k = {result.k_n_per_m:.4g} ± {result.k_std_n_per_m:.2g} N/m"
+        title += f", k = {quantity(result.k_n_per_m, 'N/m', result.k_std_n_per_m)}"
     if result.invols_m_per_v is not None:
-        title += f", InvOLS = {result.invols_m_per_v * 1e9:.4g} nm/V"
+        title += (f"\noptical-lever sensitivity (InvOLS) = "
+                  f"{quantity(result.invols_m_per_v * 1e9, 'nm/V', result.invols_std_m_per_v and result.invols_std_m_per_v * 1e9)}")
     ax_all.set_title(title, fontsize=9)
     block = max(1, fit.frequencies_hz.size // _MAX_POINTS)
     fw, pw = _block_mean(fit.frequencies_hz, block), _block_mean(fit.psd_v2_per_hz, block)
-    ax_fit.loglog(fw, pw, color=_DATA, lw=0.6, alpha=0.8, label="measured")
-    ax_fit.loglog(f_model, model, color=_FIT, lw=1.4, label="fit: oscillator + background")
-    ax_fit.set_xlim(lo, hi)
-    ax_fit.set_xlabel("frequency (Hz)")
+    # The fit window spans a few kHz around the peak: a linear axis in kHz reads better than decades of Hz.
+    ax_fit.semilogy(fw / 1e3, pw, color=_DATA, lw=0.6, alpha=0.8, label="measured")
+    ax_fit.semilogy(f_model / 1e3, model, color=_FIT, lw=1.4, label="fit: oscillator + background")
+    ax_fit.set_xlim(lo / 1e3, hi / 1e3)
+    ax_fit.set_xlabel("frequency (kHz)")
     ax_fit.set_ylabel("deflection PSD (V²/Hz)")
-    ax_fit.legend(fontsize=8, loc="lower left")
+    ax_fit.legend(fontsize=8, loc="upper left")  # the far wings are low: the top corners stay clear of data
     # Residual of a block mean of b bins has standard deviation 1/sqrt(b) in these units: rescale to 1.
     resid = _block_mean(fit.normalised_residuals(), block) * np.sqrt(block)
-    ax_res.semilogx(fw, resid, ".", ms=2, color=_DATA)
+    ax_res.plot(fw / 1e3, resid, ".", ms=2, color=_DATA)
     ax_res.axhline(0.0, color=_FIT, lw=1.0)
-    ax_res.set_xlim(lo, hi)
+    ax_res.set_xlim(lo / 1e3, hi / 1e3)
     ax_res.set_ylabel("residual (σ)")
-    ax_res.set_xlabel("frequency (Hz)")
+    ax_res.set_xlabel("frequency (kHz)")
     for ax in (ax_all, ax_fit, ax_res):
         ax.grid(True, which="both", alpha=0.25)
     return fig
@@ -101,10 +104,9 @@ def sweep_figure(result: SweepResult) -> Figure:
     axa.plot(f_khz, result.amplitude_v, ".", ms=3, color=_DATA, label="measured")
     axa.plot(fm / 1e3, am, color=_FIT, lw=1.2, label="fit: driven damped oscillator")
     axa.set_ylabel("amplitude (V)")
-    axa.set_title(f"f0 = {result.f0_hz / 1e3:.4f} ± {result.f0_std_hz / 1e3:.4f} kHz, "
-                  f"Q = {result.q:.1f} ± {result.q_std:.1f}, A(f0) = {result.amplitude_at_resonance_v:.4g} V",
-                  fontsize=9)
-    axa.legend(fontsize=8)
+    axa.set_title(f"f0 = {quantity(result.f0_hz, 'Hz', result.f0_std_hz)}, Q = {number(result.q, result.q_std)}, "
+                  f"amplitude at resonance {quantity(result.amplitude_at_resonance_v, 'V')}", fontsize=9)
+    axa.legend(fontsize=8, loc="upper left")
     axp.plot(f_khz, pd, ".", ms=3, color=_DATA)
     axp.plot(fm / 1e3, pm, color=_FIT, lw=1.2)
     axp.axhline(result.phase_offset_deg, color=_WINDOW, lw=0.8, ls="--")

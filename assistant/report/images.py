@@ -130,10 +130,12 @@ def shared_phase_limit(images: Sequence[np.ndarray]) -> float:
 
 def phase_figure(phase_deg: np.ndarray, *, heights_m: Sequence[float], scan_size_m: float,
                  repeat_phase_deg: np.ndarray | None = None, lines: int | None = None,
-                 limit_deg: float | None = None, title: str = "Phase") -> Figure:
+                 limit_deg: float | None = None, title: str = "Phase", per_height_scale: bool = False) -> Figure:
     """One panel per lift height (plus the repeat of the first height, if given) on one scale centred on 0.
 
-    ``phase_deg`` has shape (heights, lines, pixels). Dark is negative (attractive).
+    ``phase_deg`` has shape (heights, lines, pixels). Dark is negative (attractive). ``per_height_scale`` gives each
+    panel its own scale (still centred on zero) and colour bar: the fine contrast of a high lift shows, but colours
+    no longer compare between panels; the title says so.
     """
     stack = np.asarray(phase_deg, dtype=np.float64)
     if stack.ndim != 3 or stack.shape[0] != len(heights_m):
@@ -143,6 +145,8 @@ def phase_figure(phase_deg: np.ndarray, *, heights_m: Sequence[float], scan_size
         panels.append((_padded(repeat_phase_deg, lines), f"lift {heights_m[0] * 1e9:.4g} nm, repeat"))
     limit = limit_deg if limit_deg is not None else shared_phase_limit([p for p, _ in panels])
     norm = Normalize(-limit, limit)
+    if per_height_scale:
+        return _per_height_figure(panels, scan_size_m=scan_size_m, title=title)
     cols = min(len(panels), 4)
     rows = math.ceil(len(panels) / cols)
     fig = Figure(figsize=(2.6 * cols + 1.2, 2.6 * rows + 0.6), layout="constrained")
@@ -165,6 +169,28 @@ def phase_figure(phase_deg: np.ndarray, *, heights_m: Sequence[float], scan_size
     fig.suptitle(title)
     fig.colorbar(im, ax=axes.ravel().tolist(), label="phase (deg), dark = attractive", extend="both",
                  shrink=0.9)
+    return fig
+
+
+def _per_height_figure(panels, *, scan_size_m: float, title: str) -> Figure:
+    cols = min(len(panels), 4)
+    rows = math.ceil(len(panels) / cols)
+    fig = Figure(figsize=(3.3 * cols + 0.6, 2.9 * rows + 0.8), layout="constrained")
+    FigureCanvasAgg(fig)
+    axes = fig.subplots(rows, cols, squeeze=False)
+    cmap = phase_colormap()
+    for k, ax in enumerate(axes.ravel()):
+        if k >= len(panels):
+            ax.set_axis_off()
+            continue
+        image, label = panels[k]
+        limit = shared_phase_limit([image])
+        im = _draw(ax, image, size_um=scan_size_m * 1e6, cmap=cmap, norm=Normalize(-limit, limit))
+        ax.set_title(label, fontsize=10)
+        ax.set_xlabel("x (µm)")
+        ax.set_ylabel("y (µm)")
+        fig.colorbar(im, ax=ax, label="phase (deg)", extend="both", shrink=0.85)
+    fig.suptitle(f"{title}\neach lift height on its own colour scale; dark = attractive")
     return fig
 
 

@@ -43,36 +43,51 @@ def recommendation_title(a: SeriesAnalysis) -> str:
 
 
 def mean_figure(a: SeriesAnalysis) -> Figure:
-    """Image-mean phase (deg) against lift height (nm) with the fitted parts and 1-sigma bands."""
-    fig = _new_figure((6.4, 6.0))
-    ax, note = fig.subplots(2, 1, height_ratios=[4.2, 1.0])
+    """Image-mean phase (deg) against lift height (nm) with the fitted parts and 1-sigma bands, the recommended lift
+    marked, and a panel of the misfit (measured minus fit) with the measured error bars at their own scale (on the
+    main panel they are smaller than the markers)."""
+    fig = _new_figure((7.6, 7.2))
+    ax, ax_res, note = fig.subplots(3, 1, height_ratios=[4.0, 1.6, 1.0])
     h = a.heights_nm
     es, es_sd = a.electrostatic_mean_deg, a.electrostatic_mean_std_deg
     sr, sr_sd = a.short_range_mean_deg, a.short_range_mean_std_deg
     if es.ndim == 1:
-        ax.errorbar(h, a.mean_phase_deg, yerr=a.mean_phase_std_deg, fmt="o", color="k", ms=4,
-                    label="measured image mean")
-        ax.plot(h, es + sr, "-", color="0.3", label="fit: electrostatic + short-range")
+        ax.plot(h, es + sr, "-", color="0.2", lw=1.6, zorder=3, label="fit: electrostatic + short-range")
+        ax.errorbar(h, a.mean_phase_deg, yerr=a.mean_phase_std_deg, fmt="o", mfc="none", color="k", ms=6,
+                    capsize=3, zorder=4, label="measured image mean (±1σ)")
         ax.plot(h, es, "-", color="tab:blue", label="electrostatic")
         ax.fill_between(h, es - es_sd, es + es_sd, color="tab:blue", alpha=0.25, linewidth=0)
+        ax_res.errorbar(h, a.mean_phase_deg - (es + sr), yerr=a.mean_phase_std_deg, fmt="o", mfc="none",
+                        color="k", ms=4, capsize=3)
     else:
         colours = [f"C{i}" for i in range(es.shape[1])]
         for b, volts in enumerate(a.bias_v):
-            ax.errorbar(h, a.mean_phase_deg[:, b], yerr=a.mean_phase_std_deg[:, b], fmt="o", ms=4,
-                        color=colours[b], label=f"measured, {volts:+.3g} V")
-            ax.plot(h, es[:, b] + sr, "-", color=colours[b], linewidth=1)
+            ax.plot(h, es[:, b] + sr, "-", color=colours[b], lw=1.4, zorder=3)
+            ax.errorbar(h, a.mean_phase_deg[:, b], yerr=a.mean_phase_std_deg[:, b], fmt="o", mfc="none", ms=6,
+                        capsize=3, color=colours[b], zorder=4, label=f"measured at {volts:+.3g} V (±1σ)")
             ax.fill_between(h, es[:, b] - es_sd[:, b], es[:, b] + es_sd[:, b], color=colours[b], alpha=0.15,
                             linewidth=0)
-        ax.plot([], [], "-", color="0.3", label="fit: a(h) (V - V_cpd)^2 + short-range")
+            ax_res.errorbar(h * (1 + 0.01 * (b - (len(a.bias_v) - 1) / 2)),  # side by side, not on top
+                            a.mean_phase_deg[:, b] - (es[:, b] + sr), yerr=a.mean_phase_std_deg[:, b], fmt="o",
+                            mfc="none", ms=4, capsize=3, color=colours[b])
+        ax.plot([], [], "-", color="0.3", label="fit: a(h) (V − V_cpd)² + short-range")
     ax.plot(h, sr, "--", color="tab:red", label="short-range")
     ax.fill_between(h, sr - sr_sd, sr + sr_sd, color="tab:red", alpha=0.25, linewidth=0)
     ax.axhline(0.0, color="0.6", linewidth=0.8)
-    ax.set_xlabel("lift height (nm)")
-    ax.set_ylabel("image-mean phase (deg), negative = attractive")
-    ax.legend(fontsize=8, loc="lower right")
+    ax_res.axhline(0.0, color="0.6", linewidth=0.8)
+    lift = a.recommendation.lift_height_m
+    for axis in (ax, ax_res):
+        if lift is not None:
+            axis.axvline(lift * 1e9, color="tab:green", linestyle=":", lw=1.5)
+        axis.set_xlabel("lift height (nm)")
+    if lift is not None:
+        ax.plot([], [], ":", color="tab:green", lw=1.5, label=f"recommended lift {lift * 1e9:.4g} nm")
+    ax.set_ylabel("image-mean phase (deg)\nnegative = attractive")
+    ax_res.set_ylabel("measured − fit (deg)")
+    ax.legend(fontsize=8, loc="upper left", bbox_to_anchor=(1.01, 1.0), borderaxespad=0.0)  # beside, not on data
     text = a.recommendation.sentence + " " + a.separability_sentence
     note.set_axis_off()
-    note.text(0.0, 1.0, textwrap.fill(text, 95), transform=note.transAxes, va="top", ha="left", fontsize=7.5,
+    note.text(0.0, 1.0, textwrap.fill(text, 110), transform=note.transAxes, va="top", ha="left", fontsize=7.5,
               bbox={"boxstyle": "round", "facecolor": "white", "edgecolor": "0.6"})
     fig.suptitle(recommendation_title(a))
     return fig
@@ -105,6 +120,7 @@ def magnetic_figure(a: SeriesAnalysis) -> Figure:
 
 
 def _map_panel(fig, ax, image, *, size_um, title, cmap, limit, label):
+    """One phase map on a scale centred on zero from -limit to +limit (deg)."""
     im = ax.imshow(image, origin="lower", extent=(0, size_um[1], 0, size_um[0]), cmap=cmap,
                    norm=Normalize(-limit, limit), interpolation="nearest")
     ax.set_title(title, fontsize=9)
@@ -120,18 +136,25 @@ def _limit(img) -> float:
     return lim if lim > 0 else 1.0
 
 
-def maps_figure(a: SeriesAnalysis) -> Figure:
+def maps_figure(a: SeriesAnalysis, *, per_height_scale: bool = False) -> Figure:
     """Magnetic maps (deg) at three heights, the residual at the lowest height and the change map if any; a
-    dashed frame marks the interior that the residual (and, reflected-edge fit, the magnetic rms) is judged on."""
+    dashed frame marks the interior that the residual (and, reflected-edge fit, the magnetic rms) is judged on.
+
+    The magnetic maps share one colour scale unless ``per_height_scale``, which gives each its own (the title says
+    which). The change map is drawn only where the repeat changed beyond noise; otherwise the title says "no
+    change"."""
     n = len(a.heights_m)
     picks = sorted({0, n // 2, n - 1})
     panels = [(a.magnetic_deg[i], f"magnetic, lift {a.heights_nm[i]:.4g} nm", "magnetic phase (deg)")
               for i in picks]
     panels.append((a.residual_deg[0], f"residual, lift {a.heights_nm[0]:.4g} nm", "residual phase (deg)"))
+    changed = a.tip_change is not None and bool(np.any(a.tip_change.changed))
     if a.tip_change is not None:
-        panels.append((a.tip_change.difference_deg, "repeat - first pass", "phase change (deg)"))
+        verdict = (f"{a.tip_change.changed_fraction:.2%} changed beyond noise" if changed else
+                   "no change beyond noise")
+        panels.append((a.tip_change.difference_deg, f"repeat − first pass: {verdict}", "phase change (deg)"))
     cols = 3
-    rows = int(np.ceil((len(panels) + (a.tip_change is not None)) / cols))
+    rows = int(np.ceil((len(panels) + changed) / cols))
     fig = _new_figure((4.0 * cols, 3.4 * rows + 0.5))
     axes = fig.subplots(rows, cols, squeeze=False).ravel()
     r, c = a.magnetic_deg.shape[-2:]
@@ -140,14 +163,14 @@ def maps_figure(a: SeriesAnalysis) -> Figure:
     mag_limit = max(_limit(p[0]) for p in panels[:len(picks)])
     b = a.edge_band_px
     for k, (img, title, label) in enumerate(panels):
-        lim = mag_limit if k < len(picks) else _limit(img)
+        lim = (_limit(img) if per_height_scale else mag_limit) if k < len(picks) else _limit(img)
         _map_panel(fig, axes[k], img, size_um=size_um, title=title, cmap=cmap, limit=lim, label=label)
         if b and k <= len(picks):  # the interior over which the magnetic rms and the residual are judged
             y0, x0 = b * a.pixel_m[0] * 1e6, b * a.pixel_m[1] * 1e6
             axes[k].add_patch(Rectangle((x0, y0), size_um[1] - 2 * x0, size_um[0] - 2 * y0, fill=False,
                                         edgecolor="0.35", linestyle="--", linewidth=0.8))
     used = len(panels)
-    if a.tip_change is not None:
+    if changed:
         ax = axes[used]
         flag = ListedColormap([(0.92, 0.92, 0.92), (0.75, 0.1, 0.1)])
         ax.imshow(a.tip_change.changed.astype(float), origin="lower", extent=(0, size_um[1], 0, size_um[0]),
@@ -158,18 +181,22 @@ def maps_figure(a: SeriesAnalysis) -> Figure:
         used += 1
     for ax in axes[used:]:
         ax.set_axis_off()
-    fig.suptitle(recommendation_title(a) + "  |  dark = attractive (negative)")
+    scale = ("each magnetic map on its own colour scale" if per_height_scale else
+             "magnetic maps on one shared colour scale")
+    fig.suptitle(recommendation_title(a) + f"\ndark = attractive (negative); {scale}")
     return fig
 
 
-def series_figures(a: SeriesAnalysis) -> dict[str, Figure]:
+def series_figures(a: SeriesAnalysis, *, per_height_scale: bool = False) -> dict[str, Figure]:
     """All decomposition figures by file stem."""
     return {"decomposition_mean": mean_figure(a), "decomposition_magnetic": magnetic_figure(a),
-            "decomposition_maps": maps_figure(a)}
+            "decomposition_maps": maps_figure(a, per_height_scale=per_height_scale)}
 
 
-def write_series_figures(a: SeriesAnalysis, directory: str | Path, *, dpi: int = 120) -> list[Path]:
+def write_series_figures(a: SeriesAnalysis, directory: str | Path, *, dpi: int = 120,
+                         per_height_scale: bool = False) -> list[Path]:
     """Write every figure of :func:`series_figures` as PNG into ``directory``; returns the paths."""
     d = Path(directory)
     d.mkdir(parents=True, exist_ok=True)
-    return [save_png(fig, d / f"{stem}.png", dpi=dpi) for stem, fig in series_figures(a).items()]
+    return [save_png(fig, d / f"{stem}.png", dpi=dpi)
+            for stem, fig in series_figures(a, per_height_scale=per_height_scale).items()]

@@ -11,19 +11,19 @@ instead of stopping the report.
 from __future__ import annotations
 
 import importlib
-import json
-import math
 import os
+import time
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
+from assistant.formatting import yes_no
+from assistant.procedures.events import Progress, Sink, null_sink
+from assistant.report import sections
 from assistant.report.images import phase_figure, remove_plane, save_png, topography_figure
-from assistant.storage.session_file import Record, SeriesData, SessionFile, unit_for_name
-
-_MAX_LISTED = 64  # arrays up to this many values are written out in full
+from assistant.storage.session_file import Record, SeriesData, SessionFile
 
 
 @dataclass(frozen=True)
@@ -39,132 +39,26 @@ class ReportResult:
 # ---- numbers -------------------------------------------------------------------------------------------------
 def format_value(value: float, std: float | None = None) -> str:
     """``value ± std`` with the uncertainty to two significant digits and the value to the same place."""
-    if not math.isfinite(value):
-        return str(value)
-    if std is None or not math.isfinite(std) or std <= 0:
-        return f"{value:.6g}"
-    decimals = 1 - math.floor(math.log10(std))
-    if -6 <= decimals <= 6 and abs(value) < 1e7:
-        d = max(decimals, 0)
-        return f"{round(value, decimals):.{d}f} ± {round(std, decimals):.{d}f}"
-    exponent = math.floor(math.log10(abs(value))) if value != 0 else math.floor(math.log10(std))
-    scale = 10.0**exponent
-    d = max(decimals + exponent, 0)
-    return f"({value / scale:.{d}f} ± {std / scale:.{d}f})e{exponent:+d}"
+    from assistant.formatting import number
+
+    return number(value, std, digits=6)
 
 
-def _std_name(name: str, names: Mapping[str, object]) -> str | None:
-    """The uncertainty that goes with ``name``: ``k_n_per_m`` -> ``k_std_n_per_m``, ``q`` -> ``q_std``."""
-    tokens = name.split("_")
-    candidates = [f"{name}_std"] + ["_".join(tokens[:-n] + ["std"] + tokens[-n:]) for n in (1, 2, 3)
-                                    if len(tokens) > n]
-    return next((c for c in candidates if c in names and c != name), None)
-
-
-def _scalar_rows(scalars: Mapping[str, object], units: Mapping[str, str]) -> list[str]:
-    rows = ["| quantity | value | unit |", "|---|---|---|"]
-    paired = {s for n in scalars if (s := _std_name(n, scalars))}
-    for name, value in scalars.items():
-        if name in paired:
-            continue
-        unit = units.get(name, unit_for_name(name))
-        if isinstance(value, (bool, np.bool_)) or isinstance(value, str):
-            rows.append(f"| {name} | {value} | |")
-            continue
-        std_key = _std_name(name, scalars)
-        std = scalars.get(std_key) if std_key else None
-        shown = format_value(float(value), float(std) if isinstance(std, (int, float)) else None)
-        rows.append(f"| {name} | {shown} | {unit or '1'} |")
-    return rows if len(rows) > 2 else []
-
-
-def _array_lines(arrays: Mapping[str, np.ndarray], units: Mapping[str, str]) -> list[str]:
-    lines = []
-    paired = {s for n in arrays if (s := _std_name(n, arrays))}
-    for name, values in arrays.items():
-        if name in paired:
-            continue
-        unit = units.get(name, unit_for_name(name))
-        values = np.asarray(values, dtype=np.float64)
-        std_key = _std_name(name, arrays)
-        std = np.asarray(arrays[std_key], dtype=np.float64) if std_key else None
-        if values.size <= _MAX_LISTED:
-            if std is not None and std.shape == values.shape:
-                text = ", ".join(format_value(v, s) for v, s in zip(values.ravel(), std.ravel()))
-            else:
-                text = ", ".join(f"{v:.6g}" for v in values.ravel())
-            shape = "" if values.ndim <= 1 else f" (shape {values.shape}, row-major)"
-            lines.append(f"- {name} [{unit or '1'}]{shape}: {text}")
-        else:
-            finite = values[np.isfinite(values)]
-            span = f"{finite.min():.6g} .. {finite.max():.6g}" if finite.size else "no finite values"
-            lines.append(f"- {name} [{unit or '1'}]: {values.shape} values, {span}")
-    return lines
-
-
-def _record_section(title: str, record: Record) -> list[str]:
-    out = [f"### {title}", ""]
-    scalars = {k: v for k, v in record.scalars.items() if k not in ("auxiliary_signals",)}
-    out += _scalar_rows(scalars, record.units)
-    arrays = _array_lines(record.arrays, record.units)
-    if arrays:
-        out += ["", "Arrays:"] + arrays
-    return out + [""]
-
-
-# ---- series -------------------------------------------------------------------------------------------------
-def _series_section(data: SeriesData) -> list[str]:
-    heights = ", ".join(f"{h * 1e9:.4g}" for h in data.heights_m)
-    biases = "none" if data.biases_v is None else ", ".join(f"{b:.4g}" for b in data.biases_v)
-    status = "finished" if data.finished else "partial"
-    out = [f"### Series {data.name}", "",
-           f"- lift heights (nm): {heights}", f"- tip biases (V): {biases}",
-           f"- completed lines: {data.completed_lines} of {data.lines} ({status})",
-           f"- frame: {data.scan_size_m * 1e6:.4g} µm square, {data.pixels} pixels x {data.lines} lines, "
-           f"line rate {data.line_rate_hz:.4g} Hz, order {data.order}",
-           f"- repeat of the first height at the end of each line: {'yes' if data.repeat_first else 'no'}", ""]
-    if data.completed_lines == 0:
-        return out + ["No completed lines.", ""]
-    topo = remove_plane(data.topography_m) * 1e9
-    finite = topo[np.isfinite(topo)]
-    if finite.size:
-        out += [f"Topography after plane removal: rms {np.std(finite):.4g} nm, "
-                f"range {finite.min():.4g} .. {finite.max():.4g} nm.", ""]
-    out += ["Phase over the completed lines (deg):", "",
-            "| lift (nm) | bias (V) | mean | rms about mean | min | max | NaN pixels |",
-            "|---|---|---|---|---|---|---|"]
-    phase = data.phase_deg if data.biases_v is not None else data.phase_deg[:, None]
-    bias_labels = ["-"] if data.biases_v is None else [f"{b:.4g}" for b in data.biases_v]
-    for i, h in enumerate(data.heights_m):
-        for j, b in enumerate(bias_labels):
-            out.append(_stats_row(f"{h * 1e9:.4g}", b, phase[i, j]))
-    if data.repeat_phase_deg is not None:
-        out.append(_stats_row(f"{data.heights_m[0] * 1e9:.4g} (repeat)", "-", data.repeat_phase_deg))
-    return out + ["", "Series settings (JSON, as stored for a resume):", "", "```json",
-                  json.dumps(json.loads(data.settings_json), indent=1, sort_keys=True), "```", ""]
-
-
-def _stats_row(lift: str, bias: str, image: np.ndarray) -> str:
-    v = image[np.isfinite(image)]
-    nan = int(image.size - v.size)
-    if not v.size:
-        return f"| {lift} | {bias} | - | - | - | - | {nan} |"
-    return f"| {lift} | {bias} | {v.mean():.4g} | {v.std():.4g} | {v.min():.4g} | {v.max():.4g} | {nan} |"
-
-
-def _series_images(data: SeriesData, out_dir: Path) -> list[Path]:
+def _series_images(data: SeriesData, out_dir: Path, *, per_height_scale: bool = False) -> list[Path]:
     if data.completed_lines == 0:
         return []
     paths = [save_png(topography_figure(data.topography_m, scan_size_m=data.scan_size_m, lines=data.lines,
                                         title=f"{data.name}: topography"), out_dir / f"{data.name}_topography.png")]
     if data.biases_v is None:
         fig = phase_figure(data.phase_deg, heights_m=data.heights_m, scan_size_m=data.scan_size_m,
-                           repeat_phase_deg=data.repeat_phase_deg, lines=data.lines, title=f"{data.name}: phase")
+                           repeat_phase_deg=data.repeat_phase_deg, lines=data.lines, title=f"{data.name}: phase",
+                           per_height_scale=per_height_scale)
         paths.append(save_png(fig, out_dir / f"{data.name}_phase.png"))
         return paths
     for j, bias in enumerate(data.biases_v):
         fig = phase_figure(data.phase_deg[:, j], heights_m=data.heights_m, scan_size_m=data.scan_size_m,
-                           lines=data.lines, title=f"{data.name}: phase at tip bias {bias:+.3g} V")
+                           lines=data.lines, title=f"{data.name}: phase at tip bias {bias:+.3g} V",
+                           per_height_scale=per_height_scale)
         paths.append(save_png(fig, out_dir / f"{data.name}_phase_bias{j}.png"))
     return paths
 
@@ -257,7 +151,8 @@ def _thermal_result(record: Record):
 
 
 def _decomposition_figures(session: SessionFile, out_dir: Path, notes: list[str],
-                           analyses: Mapping[str, object] | None = None) -> list[Path]:
+                           analyses: Mapping[str, object] | None = None, *, per_height_scale: bool = False,
+                           computed: dict | None = None) -> list[Path]:
     mod = _import_figures("series_figures", notes)
     if mod is None:
         return []
@@ -279,58 +174,105 @@ def _decomposition_figures(session: SessionFile, out_dir: Path, notes: list[str]
                 from assistant.procedures.analyse import analyse_session_series
 
                 result = analyse_session_series(session, name, write=False)
-            mod.write_series_figures(result, target)
+            if computed is not None:
+                computed[name] = result
+            if per_height_scale:
+                mod.write_series_figures(result, target, per_height_scale=True)
+            else:
+                mod.write_series_figures(result, target)
         paths += _new_files(target, write, f"decomposition figures of {name!r}", notes)
     return paths
 
 
 # ---- the report -----------------------------------------------------------------------------------------------
 def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLike[str], *,
-                 analyses: Mapping[str, object] | None = None) -> ReportResult:
+                 analyses: Mapping[str, object] | None = None, sink: Sink = null_sink,
+                 per_height_scale: bool = False) -> ReportResult:
     """Write the figures a session file supports and ``summary.md`` into ``out_dir`` (created if needed).
 
     ``analyses`` maps series names to decompositions the caller already has, so they are not computed again.
+    ``sink`` receives ``Progress("report", done, total, "figure groups")`` as the figures are written.
+    ``per_height_scale`` gives each lift height's phase map its own colour scale (the captions say so).
     """
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     notes: list[str] = []
     paths: list[Path] = []
+    t0 = time.monotonic()
     with SessionFile.open(session_path, "r") as session:
+        names = session.series_names()
+        steps = 2 + len(names) + (1 if names else 0)
+        done = 0
+
+        def step(what: str) -> None:
+            nonlocal done
+            done += 1
+            sink(Progress("report", done, steps, "figure groups", time.monotonic() - t0, data={"step": what}))
+
+        sink(Progress("report", 0, steps, "figure groups", 0.0))
         info = session.info()
-        text = [f"# Session report: {Path(session_path).name}", "",
-                f"- format: {info.format} version {info.format_version}; software {info.software_version}",
-                f"- created (UTC): {info.created_utc}",
-                f"- controller: {info.controller_url}",
-                f"- session complete: {'yes' if info.complete else 'no (interrupted or still running)'}", ""]
-        if info.scenario_text is not None:
-            text += ["## Scenario of the simulated stage", "", "```toml", info.scenario_text.rstrip(), "```", ""]
         cals = session.read_calibrations()
+        stored = session.analysis_names()
+        series_data = {name: session.read_series(name) for name in names}
+        body: list[str] = []
         if cals:
-            text += ["## Probe calibrations", ""]
+            body += ["## Probe calibration", ""]
             for rec in cals:
-                text += _record_section(rec.path, rec)
+                body += sections.record_section(rec.path, rec.scalars, rec.arrays, rec.units)
         for title, rec in (("Resonance", session.read_resonance()), ("Approach", session.read_approach())):
             if rec is not None:
-                text += [f"## {title}", ""] + _record_section(rec.path, rec)
-        names = session.series_names()
+                body += [f"## {title}", ""] + sections.record_section(rec.path, rec.scalars, rec.arrays, rec.units)
         if names:
-            text += ["## Lift-height series", ""]
+            body += ["## Lift-height series", ""]
         for name in names:
-            data = session.read_series(name)
-            text += _series_section(data)
-            paths += _series_images(data, out)
-        stored = session.analysis_names()
-        if stored:
-            text += ["## Analysis", ""]
-            for name in stored:
-                text += _record_section(f"analysis/{name}", session.read_analysis(name))
+            data = series_data[name]
+            topo = remove_plane(data.topography_m) * 1e9 if data.completed_lines else None
+            body += sections.series_section(data, topo)
+            paths += _series_images(data, out, per_height_scale=per_height_scale)
+            step(f"phase maps of {name}")
+        analysed: list[tuple[str, dict]] = []
+        for name in stored:
+            rec = session.read_analysis(name)
+            analysed.append((name, {**rec.scalars, **rec.arrays}))
+        if analysed:
+            body += ["## Decomposition", ""]
+            for name, d in analysed:
+                grid = series_data[name].biases_v if name in series_data else None
+                body += sections.analysis_section(name, d, grid)
         paths += _calibration_figures(session, out, notes)
+        step("calibration figures")
         if names:
-            paths += _decomposition_figures(session, out, notes, analyses)
-    text += ["## Figures", ""] + [f"- {p.relative_to(out)}" for p in paths] + [""]
+            computed: dict = {}
+            paths += _decomposition_figures(session, out, notes, analyses, per_height_scale=per_height_scale,
+                                            computed=computed)
+            step("decomposition figures")
+            if not analysed:  # nothing stored, but decomposed for the figures: the results still open the summary
+                analysed = [(n, r.to_dict()) for n, r in computed.items() if hasattr(r, "to_dict")]
+        title = [f"# Session report: {Path(session_path).name}", ""]
+        title += sections.results_section(analysed, dict(cals[-1].scalars) if cals else None)
+        title += ["## Session", "",
+                  f"- file format: {info.format} version {info.format_version}; software {info.software_version}",
+                  f"- created (UTC): {info.created_utc}",
+                  f"- controller: {info.controller_url}",
+                  f"- session complete: {yes_no(info.complete)}" + ("" if info.complete else
+                                                                      " (interrupted or still running)"), ""]
+        appendix = []
+        if info.scenario_text is not None:
+            appendix += ["### Scenario of the simulated stage", "", "```toml", info.scenario_text.rstrip(), "```", ""]
+        for name in names:
+            appendix += sections.settings_appendix(series_data[name])
+    text = title + body + ["## Figures", ""]
+    for p in paths:
+        rel = p.relative_to(out).as_posix()
+        cap = sections.caption(rel, per_height_scale=per_height_scale)
+        text.append(f"- {rel}" + (f": {cap}" if cap else ""))
+    text.append("")
     if notes:
         text += ["## Notes", ""] + [f"- {n}" for n in notes] + [""]
+    if appendix:
+        text += ["## Appendix", ""] + appendix
     summary = "\n".join(text)
     summary_path = out / "summary.md"
     summary_path.write_text(summary, encoding="utf-8")
+    step("summary")
     return ReportResult(out_dir=out, paths=(*paths, summary_path), summary_text=summary, notes=tuple(notes))

@@ -12,17 +12,19 @@ from __future__ import annotations
 import threading
 from pathlib import Path
 
-from textual import work
+from textual import on, work
 from textual.app import App
 from textual.binding import Binding
-from textual.widgets import Footer, Static, TabbedContent, TabPane
+from textual.containers import Horizontal
+from textual.widgets import Button, Footer, Static, TabbedContent, TabPane
 
+from assistant.formatting import quantity
 from assistant.procedures.events import Cancelled, CancelToken, Notice
 from drivers.errors import Aborted
 from assistant.procedures.workflow import calibration_scalars
 from assistant.tui.bridge import (MessageSink, ProcedureEvent, SerialisedController, StatusChanged, StepFinished,
                                   WithdrawDone)
-from assistant.tui.screens import ConfirmQuit, HelpScreen
+from assistant.tui.screens import WITHDRAW_KEY, ConfirmQuit, HelpScreen
 from assistant.tui.session_view import load_session
 from assistant.tui.view_analysis import AnalysisView
 from assistant.tui.view_approach import ApproachView
@@ -43,17 +45,20 @@ class MfmApp(App[int]):
 
     TITLE = "mfm-assistant"
     CSS = """
-    #status { height: 2; padding: 0 1; background: $boost; }
+    #status-bar { height: 2; background: $boost; }
+    #status { height: 2; width: 1fr; padding: 0 1; }
+    #withdraw-button { height: 2; min-width: 12; border: none; margin: 0; text-style: bold; }
     TabbedContent { height: 1fr; }
     TabPane { padding: 0 1; }
     .buttons { height: 1; margin: 0 0 1 0; }
     .buttons Button { height: 1; min-width: 10; border: none; margin: 0 1 0 0; }
     """
     BINDINGS = [
-        Binding("ctrl+w", "withdraw", "WITHDRAW", priority=True),
-        Binding("w", "withdraw", "withdraw", show=False),
+        # The withdraw key works in every view and also while typing in a field (priority): a control chord that
+        # terminals send as one ASCII code, that no browser reserves (unlike ctrl+w, which closes a browser tab)
+        # and that no field uses for editing; the Withdraw button in the status bar does the same.
+        Binding(WITHDRAW_KEY, "withdraw", "WITHDRAW", priority=True),
         Binding("ctrl+x", "cancel", "cancel", priority=True),
-        Binding("x", "cancel", "cancel", show=False),
         *[Binding(str(i + 1), f"view('{key}')", title, show=False) for i, (key, title, _) in enumerate(VIEWS)],
         Binding("question_mark", "help", "help"),
         Binding("q", "quit", "quit"),
@@ -63,7 +68,7 @@ class MfmApp(App[int]):
 
     def __init__(self, controller=None, *, controller_url: str = "sim://", session_path: Path | None = None,
                  open_path: Path | None = None, limits=None, probe_record=None, scenario_text: str | None = None,
-                 poll_interval_s: float = 0.25) -> None:
+                 poll_interval_s: float = 0.25, stored=None) -> None:
         super().__init__()
         from assistant.procedures.guard import SafetyLimits
         from drivers.registry import redact
@@ -72,6 +77,7 @@ class MfmApp(App[int]):
         self.controller_url = redact(controller_url)
         self.limits = limits or SafetyLimits()
         self.open_path = Path(open_path) if open_path else None
+        self._stored = stored  # a StoredSession already read (mfma tui --open checks the file before the UI)
         self.session_path = Path(session_path) if session_path else None
         self._probe_record = probe_record
         self.poll_interval_s = poll_interval_s
@@ -93,7 +99,11 @@ class MfmApp(App[int]):
 
     # ---- layout ------------------------------------------------------------------------------------------
     def compose(self):
-        yield Static("", id="status")
+        with Horizontal(id="status-bar"):
+            yield Static("", id="status")
+            withdraw = Button("Withdraw", id="withdraw-button", variant="error")
+            withdraw.can_focus = False  # a click or the key, never a stray enter after tab
+            yield withdraw
         with TabbedContent(initial="probe"):
             for i, (key, title, cls) in enumerate(VIEWS):
                 with TabPane(f"{i + 1} {title}", id=key):
@@ -108,6 +118,8 @@ class MfmApp(App[int]):
         return [self.view(key) for key, _, _ in VIEWS]
 
     def on_mount(self) -> None:
+        if self.controller is None:
+            self.query_one("#withdraw-button").display = False  # a stored session: nothing to withdraw
         if self.controller is not None:
             self.view("approach").configure(travel_max_m=self.limits.coarse_travel_max_m,
                                             z_range_m=self.controller.limits.z_range_m)
@@ -125,7 +137,8 @@ class MfmApp(App[int]):
     def on_procedure_event(self, message: ProcedureEvent) -> None:
         ev = message.event
         if isinstance(ev, Notice):
-            self.say(ev.level, ev.text)
+            # the guard's stop notice repeats the error the step reports when it ends: say only what it did
+            self.say(ev.level, "stopped: tip withdrawn, drive off, bias 0 V" if ev.kind == "stopped" else ev.text)
             return
         for view in self.views:
             if ev.what in view.EVENTS:
@@ -139,7 +152,7 @@ class MfmApp(App[int]):
         elif isinstance(err, (Cancelled, Aborted)):
             self.say("warning", f"{step}: cancelled")
         else:
-            self.say("error", f"{step} failed: {type(err).__name__}: {err}")
+            self.say("error", f"{step} failed: {str(err).strip() or type(err).__name__}")
         for view in self.views:
             view.step_finished(step, message.result, err)
         self._update_status_line()
@@ -148,6 +161,8 @@ class MfmApp(App[int]):
     def on_status_changed(self, message: StatusChanged) -> None:
         if message.status is not None:
             self.last_status = message.status
+            for view in self.query("#view-approach"):  # none while the app shuts down
+                view.show_status(message.status)
         self.status_error = message.error
         self._update_status_line()
 
@@ -177,15 +192,18 @@ class MfmApp(App[int]):
                 state = "[b]withdrawn[/b]"
             else:
                 state = "[b reverse] NOT SAFE [/]"
-            z, bias = f"Z {st.z_m * 1e6:.3f} µm", f"bias {st.bias_v:+.2f} V"
+            z, bias = f"Z {quantity(st.z_m, 'm')}", f"bias {st.bias_v:+.2f} V"
         probe = self.probe_name or "—"
         first = " │ ".join(p for p in (self.controller_url if self.controller else "", f"probe {probe}", state, z,
                                       bias) if p)
         path = self.open_path or self.session_path
         run = f"[b]running: {self.busy}[/b] (ctrl+x cancel) │ " if self.busy else ""
+        if self.controller is None and self.open_path is not None:
+            run = "[b]read-only[/b] │ "
         err = f"status: {self.status_error} │ " if self.status_error else ""
         second = f"{run}{err}session {path.name if path else '—'}"
-        self.query_one("#status", Static).update(f"{first}\n{second}")
+        for status in self.query("#status").results(Static):  # none while the app shuts down
+            status.update(f"{first}\n{second}")
 
     def say(self, level: str, text: str) -> None:
         self.view("log").add(level, text)
@@ -194,7 +212,15 @@ class MfmApp(App[int]):
 
     # ---- actions --------------------------------------------------------------------------------------------
     def action_view(self, key: str) -> None:
+        # Leave the focused button first: a tabbed pane that keeps the focus switches itself back to its tab.
+        if self.focused is not None:
+            self.set_focus(None)
         self.query_one(TabbedContent).active = key
+
+    @on(Button.Pressed, "#withdraw-button")
+    def _withdraw_pressed(self, event: Button.Pressed) -> None:
+        event.stop()
+        self.action_withdraw()
 
     def action_help(self) -> None:
         if not isinstance(self.screen, HelpScreen):
@@ -282,10 +308,13 @@ class MfmApp(App[int]):
         if wf is None or wf.calibration is None or settings is None:
             self.say("error", "accept: no calibration of this session to record")
             return
-        if not settings.probe_name:
-            self.say("error", "accept: give the probe a name (Probe view) and calibrate again")
+        name = settings.probe_name or self.view("probe").text("probe-name")
+        if not name:  # the calibration stands; it only needs a name to be filed under
+            self.view("probe").ask_for_name()
             return
-        self._record_worker(settings.probe_name, calibration_scalars(wf.calibration, settings.probe_name))
+        self.probe_name = name
+        self._update_status_line()
+        self._record_worker(name, calibration_scalars(wf.calibration, name))
 
     def start_approach(self) -> None:
         wf = self.workflow
@@ -297,24 +326,34 @@ class MfmApp(App[int]):
                           scan_size_max_m=lim.scan_size_max_m if lim else None)
 
     def start_series(self, settings) -> None:
+        import dataclasses
+
         wf = self.workflow
+        if wf is not None:  # every series of the session gets its own group: series1, series2, ...
+            taken = set(wf.session.series_names())
+            n = 1
+            while f"series{n}" in taken:
+                n += 1
+            settings = dataclasses.replace(settings, name=f"series{n}")
         if self._run("series", lambda: wf.series(settings)):
             self.view("series").begin(heights_m=settings.heights_m, biases_v=settings.biases_v,
-                                      lines=settings.lines, pixels=settings.pixels)
+                                      lines=settings.lines, pixels=settings.pixels, scan_size_m=settings.scan_size_m)
 
     def start_analysis(self) -> None:
         if self.workflow is None and self.open_path is not None:
-            self._offline_worker("analyse", self.open_path)
+            self._offline_worker("analyze", self.open_path)
             return
         wf = self.workflow
-        self._run("analyse", lambda: wf.analyse())
+        self._run("analyze", lambda: wf.analyse())
 
     def start_report(self) -> None:
         if self.workflow is None and self.open_path is not None:
             self._offline_worker("report", self.open_path)
             return
+        from assistant.outputs import report_dir_for
+
         wf = self.workflow
-        out = self.session_path.parent / f"report-{self.session_path.stem}"
+        out = report_dir_for(self.session_path)
 
         def report():
             from assistant.report.summary import build_report
@@ -379,14 +418,15 @@ class MfmApp(App[int]):
     @work(thread=True, group="procedure", exit_on_error=False)
     def _offline_worker(self, step: str, path: Path) -> None:
         try:
-            if step == "analyse":
+            if step == "analyze":
                 from assistant.procedures.analyse import analyse_session_file
 
                 result = analyse_session_file(path, None)
             else:
+                from assistant.outputs import report_dir_for
                 from assistant.report.summary import build_report
 
-                result = build_report(path, path.parent / f"report-{path.stem}")
+                result = build_report(path, report_dir_for(path))
         except Exception as exc:
             self.post_message(StepFinished(step, None, exc))
             return
@@ -394,20 +434,11 @@ class MfmApp(App[int]):
 
     # ---- viewing a session file ---------------------------------------------------------------------------
     def _show_session_file(self, path: Path) -> None:
+        from assistant.tui.stored_view import show_stored
+
         try:
-            shown = load_session(path)
+            shown = self._stored if self._stored is not None else load_session(path)
         except Exception as exc:
             self.say("error", f"cannot open {path}: {exc}")
             return
-        if shown.probe_name:
-            self.probe_name = shown.probe_name
-        if shown.calibration is not None:
-            self.view("probe").show_summary(shown.calibration, live=False)
-            self.view("resonance").show_drive(shown.calibration)
-        if shown.series is not None:
-            self.view("series").load(shown.series)
-        if shown.analysis is not None:
-            self.view("analysis").show(shown.analysis, mean_phase_deg=shown.mean_phase_deg)
-        for text in shown.notes:
-            self.say("info", text)
-        self.action_view("series" if shown.series is not None else "probe")
+        show_stored(self, shown, path)

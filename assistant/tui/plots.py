@@ -51,7 +51,19 @@ def _si(value: float) -> str:
 
 
 def log_ticks(lo: float, hi: float) -> tuple[list[float], list[str]]:
-    """Decade ticks (positions in log10 units) and their SI labels for the range [lo, hi] of log10 values."""
+    """Ticks (positions in log10 units) and their SI labels for the range [lo, hi] of log10 values: decades, or,
+    for a range narrower than two decades, round values inside it (a fit window of 71-79 kHz gets 72k, 74k, ...)."""
+    if hi - lo < 2:
+        a, b = 10.0 ** lo, 10.0 ** hi
+        step = 10.0 ** np.floor(np.log10((b - a) / 2)) if b > a else 10.0 ** np.floor(lo)
+        for mult in (1, 2, 5, 10):
+            if (b - a) / (step * mult) <= 5:
+                step *= mult
+                break
+        values = np.arange(np.ceil(a / step) * step, b + 0.5 * step, step)
+        values = values[(values >= a) & (values <= b) & (values > 0)]
+        if values.size >= 2:
+            return [float(np.log10(v)) for v in values], [_si(float(v)) for v in values]
     decades = list(range(int(np.floor(lo)), int(np.ceil(hi)) + 1))
     if len(decades) > 6:
         decades = decades[:: int(np.ceil(len(decades) / 6))]

@@ -7,14 +7,21 @@ from textual.containers import Horizontal, Vertical
 from textual.screen import ModalScreen
 from textual.widgets import Button, Static
 
-HELP = """\
-[b]Keys[/b]  (ctrl+ keys work in every view, also while a procedure runs)
-  ctrl+w  WITHDRAW now: cancel, retract Z, drive off, bias 0 V  (or w)
-  ctrl+x  cancel the running procedure; its guard withdraws     (or x)
+#: The withdraw key. A control chord every terminal sends as one ASCII code (BEL), that no browser keeps for itself
+#: (browser-based terminals lose ctrl+w, ctrl+t and ctrl+n to the browser) and that no input field uses for
+#: editing, so it cannot be typed into a field by accident; it works in every view, also while typing.
+WITHDRAW_KEY = "ctrl+g"
+
+HELP = f"""\
+[b]Keys[/b]  (ctrl+ keys work in every view, also while typing in a field)
+  {WITHDRAW_KEY}  WITHDRAW now: cancel, retract Z, drive off, bias 0 V
+          (or the red Withdraw button, top right)
+  ctrl+x  cancel the running procedure; its guard withdraws
   1 … 6   views: 1 Probe 2 Resonance 3 Approach 4 Series 5 Analysis 6 Log
-          (or click a tab)
+          (or click a tab); in a field the digits are typed instead
+  esc     leave the field you are typing in: the number keys
+          switch views again
   tab     next field or button (shift+tab back); enter presses a button
-  esc     leave a field, so that the number keys switch views again
   ?       this help;  q or ctrl+q quit (asks first if the tip is engaged)
 
 [b]Images[/b]  one shared scale centred on zero for every height:

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -13,6 +14,11 @@ class StoredSession:
     """What the views show of a session file."""
 
     calibration: dict | None = None
+    calibration_arrays: dict = field(default_factory=dict)
+    resonance: object | None = None  # Record of the drive sweep
+    approach: object | None = None  # Record of the approach
+    series_settings: dict = field(default_factory=dict)  # the stored settings of the last series (JSON)
+    report_dir: Path | None = None  # its report folder, when one was written
     probe_name: str | None = None
     series: object | None = None  # SeriesData of the last series
     analysis: dict | None = None  # stored analysis of that series: scalars and arrays together
@@ -44,11 +50,18 @@ def load_session(path: str | Path) -> StoredSession:
         cals = sf.read_calibrations()
         if cals:
             out.calibration = dict(cals[-1].scalars)
+            out.calibration_arrays = dict(cals[-1].arrays)
             name = out.calibration.get("probe_name")
             out.probe_name = str(name) if name else None
+        out.resonance = sf.read_resonance()
+        out.approach = sf.read_approach()
         names = sf.series_names()
         if names:
             out.series = sf.read_series(names[-1])
+            try:
+                out.series_settings = json.loads(out.series.settings_json or "{}")
+            except ValueError:
+                out.series_settings = {}
             out.mean_phase_deg = image_means(out.series.phase_deg)
             out.notes.append(f"series {names[-1]}: {out.series.completed_lines} of {out.series.lines} lines, "
                              f"{len(out.series.heights_m)} heights")
@@ -57,4 +70,9 @@ def load_session(path: str | Path) -> StoredSession:
                 out.analysis = {**rec.scalars, **rec.arrays}
         if out.series is None:
             out.notes.append("the file holds no series")
+    from assistant.outputs import report_dir_for
+
+    report = report_dir_for(path)
+    if (report / "summary.md").is_file():
+        out.report_dir = report
     return out

@@ -4,12 +4,16 @@ recommended lift height and V_cpd, and where the report was written."""
 from __future__ import annotations
 
 import math
+from pathlib import Path
 
 import numpy as np
 from textual.containers import Horizontal, Vertical
+from rich.markup import escape
 from textual.widgets import Button, Static
 from textual_plotext import PlotextPlot
 
+from assistant.formatting import quantity
+from assistant.report.results import results_block
 from assistant.tui.plots import DATA, FIT, PART_A, PART_B, redraw
 from assistant.tui.view_base import View
 
@@ -33,7 +37,7 @@ def _num(d: dict, key: str) -> float | None:
 
 class AnalysisView(View):
     DEFAULT_CSS = """
-    AnalysisView #an-side { width: 34; }
+    AnalysisView #an-side { width: 36; padding-right: 2; }  /* clear of the tick labels */
     AnalysisView #an-plots { width: 1fr; }
     AnalysisView PlotextPlot { height: 1fr; min-height: 5; }
     AnalysisView #an-text { height: 1fr; }
@@ -44,14 +48,15 @@ class AnalysisView(View):
         self.result: dict | None = None
         self.mean_phase: np.ndarray | None = None
         self.report_dir: str | None = None
+        self.biases_v: list[float] | None = None
 
     def compose(self):
         with Horizontal():
             with Vertical(id="an-side"):
                 with Horizontal(classes="buttons"):
-                    yield Button("Analyse", id="analyse", variant="primary")
+                    yield Button("Analyze", id="analyse", variant="primary")
                     yield Button("Report", id="report")
-                yield Static("Run a series (4), then Analyse.", id="an-text")
+                yield Static("Run a series (4), then Analyze.", id="an-text")
             with Vertical(id="an-plots"):
                 yield PlotextPlot(id="an-mean")
                 yield PlotextPlot(id="an-rms")
@@ -64,9 +69,10 @@ class AnalysisView(View):
             event.stop()
             self.app.start_report()
 
-    def show(self, result: dict, *, mean_phase_deg=None) -> None:
+    def show(self, result: dict, *, mean_phase_deg=None, biases_v=None) -> None:
         """``result``: ``SeriesAnalysis.to_dict()`` or a stored analysis record's scalars and arrays."""
         self.result = dict(result)
+        self.biases_v = None if biases_v is None else [float(b) for b in biases_v]
         mp = _arr(self.result, "mean_phase_deg") if mean_phase_deg is None else np.asarray(mean_phase_deg, float)
         if mp is not None and mp.ndim == 2:  # bias grid: the bias-averaged mean against height
             mp = mp.mean(axis=1)
@@ -84,27 +90,20 @@ class AnalysisView(View):
     def step_finished(self, step: str, result, error) -> None:
         if error is not None:
             return
-        if step == "analyse":
-            self.show(result.to_dict(), mean_phase_deg=getattr(result, "mean_phase_deg", None))
+        if step == "analyze":
+            self.show(result.to_dict(), mean_phase_deg=getattr(result, "mean_phase_deg", None),
+                      biases_v=getattr(result, "bias_v", None))
         elif step == "report":
             self.set_report(str(getattr(result, "out_dir", result)))
 
     def _text(self) -> str:
         d = self.result or {}
-        rec = _num(d, "recommended_lift_nm")
-        cpd, cpd_std = _num(d, "cpd_v"), _num(d, "cpd_std_v")
-        lines = [f"recommended lift  {'—' if rec is None else f'{rec:.3g} nm'}",
-                 "V_cpd             " + ("— (no bias grid)" if cpd is None else
-                                          f"{cpd:.3f} ± {cpd_std:.2g} V" if cpd_std else f"{cpd:.3f} V")]
-        for key, label in (("recommendation", ""), ("separability", ""), ("noise_sentence", "")):
-            if isinstance(d.get(key), str) and d[key]:
-                lines.append(f"{label}{d[key]}")
-        res = _arr(d, "residual_rms_deg")
-        if res is not None:
-            lines.append("residual rms deg  " + ", ".join(f"{v:.2g}" for v in res.ravel()[:8]))
-        if d.get("tip_changed_sample") is not None:
-            lines.append(f"tip changed the sample: {'YES' if d['tip_changed_sample'] else 'no'}")
-        lines.append(f"report: {self.report_dir}" if self.report_dir else "report: not written yet (Report)")
+        names = {"Recommended lift height": "[b]lift[/b]", "Recommended tip bias": "[b]bias[/b]",
+                 "Noise": "[b]noise[/b]", "Warnings": "[b]warnings[/b]"}
+        lines = [f"{names.get(n, n)} {escape(t)}" for n, t in results_block(d)]
+        lines.insert(2, f"[b]report[/b] {escape(Path(self.report_dir).name)}/ (next to the session file)"
+                     if self.report_dir else
+                     "[b]report[/b] not written yet (Report)")  # after lift and bias: visible at 80 x 24
         return "\n".join(lines)
 
     def redraw(self) -> None:
@@ -121,25 +120,30 @@ class AnalysisView(View):
 
         def mean(plt):
             if mp is not None and mp.shape == h.shape:
-                plt.scatter(h, mp, color=DATA, marker="o", label="measured mean")
+                plt.scatter(h, mp, color=DATA, marker="o")
             if es is not None and es.shape == h.shape:
-                plt.plot(h, es, color=PART_A, label="electrostatic")
+                plt.plot(h, es, color=PART_A)
             if sr is not None and sr.shape == h.shape:
-                plt.plot(h, sr, color=PART_B, label="short-range")
+                plt.plot(h, sr, color=PART_B)
             if es is not None and sr is not None and es.shape == sr.shape == h.shape:
-                plt.plot(h, es + sr, color=FIT, label="sum")
-            plt.title("mean phase deg vs lift nm")
+                plt.plot(h, es + sr, color=FIT)
+            # the key in the title, not a legend box over the data
+            plt.title("image mean: o measured, fit = electrostatic + short-range")
+            plt.xlabel("lift height (nm)")
+            plt.ylabel("phase (°)")
 
         def rms_plot(plt):
             if rms is not None and rms.shape == h.shape:
-                plt.plot(h, rms, color=PART_A, marker="o", label="magnetic rms")
+                plt.plot(h, rms, color=PART_A, marker="o")
                 if rms_std is not None and rms_std.shape == h.shape:
                     plt.plot(h, rms + rms_std, color=DATA)
                     plt.plot(h, np.maximum(rms - rms_std, 0), color=DATA)
             rec = _num(d, "recommended_lift_nm")
             if rec is not None:
                 plt.vline(rec, color=FIT)
-            plt.title("magnetic rms deg vs lift nm" + (f"; lift {rec:.3g} nm" if rec else ""))
+            plt.title("magnetic rms" + (f", recommended lift {quantity(rec, 'nm')} (red)" if rec else ""))
+            plt.xlabel("lift height (nm)")
+            plt.ylabel("rms (°)")
 
         redraw(self.query_one("#an-mean", PlotextPlot), mean)
         redraw(self.query_one("#an-rms", PlotextPlot), rms_plot)

@@ -21,7 +21,9 @@ class LogView(View):
         self.entries: list[tuple[str, str]] = []
 
     def compose(self):
-        yield RichLog(wrap=True, markup=False, id="log")
+        # min_width: RichLog wraps at the larger of its width and min_width (78 by default), which cut long
+        # lines off at the right edge of an 80-column terminal
+        yield RichLog(wrap=True, markup=False, min_width=20, id="log")
 
     def add(self, level: str, text: str, *, clock=datetime.now) -> None:
         self.entries.append((level, text))

@@ -8,8 +8,9 @@ from textual.containers import Horizontal, Vertical
 from textual.widgets import Button, Static
 from textual_plotext import PlotextPlot
 
+from assistant.formatting import number, progress_text, quantity
 from assistant.tui.plots import DATA, FIT, decimate_log, log_ticks, redraw, to_log
-from assistant.tui.view_base import FieldError, View, fmt_unc
+from assistant.tui.view_base import FieldError, View
 from assistant.tui.widgets import Field
 
 
@@ -17,27 +18,27 @@ def summary_lines(s: dict) -> list[str]:
     """Readable lines from ``CalibrationResult.summary()`` (or a stored calibration record's scalars)."""
     g = s.get
     lines = [
-        f"k      {fmt_unc(g('k_n_per_m'), g('k_std_n_per_m'), 'N/m')}",
-        f"       from {g('k_source', '—')}",
-        f"InvOLS {fmt_unc(g('invols_nm_per_v'), g('invols_std_nm_per_v'), 'nm/V')}",
-        f"       from {g('invols_source', '—')}",
-        f"f0     {fmt_unc(g('f0_hz'), g('f0_std_hz'), 'Hz', 7)}  (thermal)",
-        f"Q      {fmt_unc(g('q'), g('q_std'), '', 4)}(thermal), {fmt_unc(g('sweep_q'), g('sweep_q_std'), '')}(sweep)",
+        f"spring constant k  {quantity(g('k_n_per_m'), 'N/m', g('k_std_n_per_m'))}",
+        f"  from {g('k_source', '—')}",
+        "optical-lever sensitivity (InvOLS)",
+        f"  {quantity(g('invols_nm_per_v'), 'nm/V', g('invols_std_nm_per_v'))}, from {g('invols_source', '—')}",
+        f"resonance f0  {quantity(g('f0_hz'), 'Hz', g('f0_std_hz'))} (thermal)",
+        f"Q  {number(g('q'), g('q_std'))} (thermal), {number(g('sweep_q'), g('sweep_q_std'))} (sweep)",
     ]
     if g("thermal_check_k_n_per_m") is not None:
         agree = "agrees" if g("thermal_check_agree") else "DISAGREES"
-        lines.append(f"check  thermal k {fmt_unc(g('thermal_check_k_n_per_m'), g('thermal_check_k_std_n_per_m'), 'N/m')}"
-                     f" {agree} ({g('thermal_check_difference_sigma', float('nan')):+.1f} σ)")
+        lines.append(f"check: thermal k {quantity(g('thermal_check_k_n_per_m'), 'N/m', g('thermal_check_k_std_n_per_m'))}"
+                     f" {agree} ({number(g('thermal_check_difference_sigma'), digits=2)} σ)")
     return lines
 
 
 class ProbeView(View):
     EVENTS = ("thermal record", "thermal spectrum", "thermal fit")
     DEFAULT_CSS = """
-    ProbeView #probe-left { width: 34; }
+    ProbeView #probe-left { width: 36; padding-right: 2; }  /* clear of the tick labels */
     ProbeView #probe-right { width: 1fr; }
     ProbeView #thermal-plot { height: 1fr; min-height: 6; }
-    ProbeView #probe-result { height: auto; max-height: 9; }
+    ProbeView #probe-result { height: auto; max-height: 12; }
     ProbeView #probe-progress { height: 1; }
     """
 
@@ -55,7 +56,7 @@ class ProbeView(View):
                 yield Field("probe name", id="probe-name", placeholder="e.g. lever-A3")
                 yield Field("length µm", id="probe-length", placeholder="plan view, Sader")
                 yield Field("width µm", id="probe-width", placeholder="plan view, Sader")
-                yield Field("temperature K", id="probe-temperature", placeholder="instrument sensor")
+                yield Field("temperature K", id="probe-temperature", placeholder="from sensor")
                 yield Field("thermal s", "2", id="probe-seconds")
                 with Horizontal(classes="buttons"):
                     yield Button("Calibrate", id="calibrate", variant="primary")
@@ -91,6 +92,14 @@ class ProbeView(View):
             event.stop()
             self.app.accept_calibration()
 
+    def ask_for_name(self) -> None:
+        """Accept was pressed without a probe name: ask for one where it is typed, and wait for it."""
+        self.query_one("#probe-hint", Static).update(
+            "[b]Name the probe[/b] in the field above (e.g. lever-A3), then press Accept again. The calibration "
+            "is kept; there is no need to calibrate again.")
+        self.app.say("warning", "accept: the probe needs a name; type it in the probe name field")
+        self.query_one("#probe-name").focus()
+
     def set_accepted(self, text: str) -> None:
         self.accepted = True
         self.query_one("#accept", Button).disabled = True
@@ -100,7 +109,7 @@ class ProbeView(View):
     def progress(self, event) -> None:
         if event.what == "thermal record":
             self.query_one("#probe-progress", Static).update(
-                f"thermal record {event.done:.2f} / {event.total:.2f} s")
+                progress_text("thermal record", event.done, event.total, "s"))
             return
         d = event.data
         if "frequency_hz" in d and "psd_v2_per_hz" in d:
@@ -109,7 +118,8 @@ class ProbeView(View):
             self.segments = int(d.get("segments", 0))
             self.fit = None
         elif event.what == "thermal fit":
-            self.fit = {"model": np.asarray(d["model_v2_per_hz"]), "f0_hz": d.get("f0_hz"), "q": d.get("q")}
+            self.fit = {"frequency_hz": np.asarray(d["frequency_hz"]), "model": np.asarray(d["model_v2_per_hz"]),
+                        "f0_hz": d.get("f0_hz"), "q": d.get("q")}
         self.mark_dirty()
 
     def step_finished(self, step: str, result, error) -> None:
@@ -134,17 +144,18 @@ class ProbeView(View):
         def draw(plt):
             x, y = decimate_log(f, p)
             lx, ly = to_log(x), to_log(y)
-            plt.plot(lx, ly, color=DATA, label="measured" if fit is not None else None)
-            if fit is not None:
-                xm, ym = decimate_log(f, fit["model"])
-                plt.plot(to_log(xm), to_log(ym), color=FIT, label="fit")
-                plt.title(f"thermal PSD, fit f0 {fit['f0_hz']:.6g} Hz, Q {fit['q']:.3g}")
+            plt.plot(lx, ly, color=DATA)
+            if fit is not None:  # the key is in the title: a legend box would sit on the data
+                xm, ym = decimate_log(fit["frequency_hz"], fit["model"])
+                plt.plot(to_log(xm), to_log(ym), color=FIT)
+                plt.title(f"fit (red): f0 {quantity(fit['f0_hz'], 'Hz')}, Q {number(fit['q'], digits=3)}")
                 ly = np.concatenate([ly, to_log(ym)])
             else:
-                plt.title(f"thermal PSD (V²/Hz), {self.segments} averages")
+                plt.title(f"thermal PSD, {self.segments} averages")
             if lx.size:
                 plt.xticks(*log_ticks(lx.min(), lx.max()))
                 plt.yticks(*log_ticks(ly.min(), ly.max()))
-            plt.xlabel("Hz")
+            plt.xlabel("frequency (Hz)")
+            plt.ylabel("PSD (V²/Hz)")
 
         redraw(self.query_one("#thermal-plot", PlotextPlot), draw)

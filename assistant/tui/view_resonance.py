@@ -8,8 +8,9 @@ from textual.containers import Horizontal, Vertical
 from textual.widgets import Static
 from textual_plotext import PlotextPlot
 
+from assistant.formatting import number, progress_text, quantity
 from assistant.tui.plots import DATA, FIT, decimate, redraw
-from assistant.tui.view_base import View, fmt_unc
+from assistant.tui.view_base import View
 from assistant.tui.widgets import Field
 
 
@@ -17,7 +18,7 @@ class ResonanceView(View):
     EVENTS = ("drive sweep", "sweep fit")
     DEFAULT_CSS = """
     ResonanceView #res-plots { width: 1fr; }
-    ResonanceView #res-side { width: 34; }
+    ResonanceView #res-side { width: 36; padding-left: 2; }
     ResonanceView PlotextPlot { height: 1fr; min-height: 5; }
     """
 
@@ -46,7 +47,8 @@ class ResonanceView(View):
 
     def progress(self, event) -> None:
         if event.what == "drive sweep":
-            self.query_one("#res-progress", Static).update(f"sweep {event.done:g} / {event.total:g} points")
+            self.query_one("#res-progress", Static).update(
+                progress_text("drive sweep", event.done, event.total, "points"))
             return
         d = event.data
         self.sweep = {k: np.asarray(d[k]) for k in ("frequency_hz", "amplitude_v", "phase_deg")}
@@ -64,16 +66,34 @@ class ResonanceView(View):
         self.show_drive(result.summary())
         self.mark_dirty()
 
+    def show_stored_sweep(self, arrays: dict) -> None:
+        """A stored drive sweep with the oscillator fitted to it again (``mfma tui --open``)."""
+        from assistant.analysis.sweep import fit_drive_sweep
+
+        f, a, p = (np.asarray(arrays[k], dtype=float) for k in ("frequency_hz", "amplitude_v", "phase_deg"))
+        self.sweep = {"frequency_hz": f, "amplitude_v": a, "phase_deg": p, "f0_hz": None, "q": None}
+        try:
+            fit = fit_drive_sweep(f, a, p)
+        except (ValueError, RuntimeError):
+            self.mark_dirty()
+            return
+        self.sweep["f0_hz"], self.sweep["q"] = fit.f0_hz, fit.q
+        fm = np.linspace(f.min(), f.max(), 300)
+        amp, phase = fit.model(fm)
+        self.model = (fm, np.asarray(amp), np.asarray(phase))
+        self.mark_dirty()
+
     def show_drive(self, s: dict) -> None:
         g = s.get
         lines = [
-            f"sweep f0  {fmt_unc(g('sweep_f0_hz'), g('sweep_f0_std_hz'), 'Hz', 7)}",
-            f"sweep Q   {fmt_unc(g('sweep_q'), g('sweep_q_std'), '')}",
-            f"drive     {g('drive_frequency_hz', float('nan')):.1f} Hz",
-            f"          {1e3 * g('drive_amplitude_v', float('nan')):.3f} mV",
-            f"free amp. {g('free_amplitude_nm', float('nan')):.1f} nm = {1e3 * g('free_amplitude_v', float('nan')):.1f} mV",
-            f"setpoint  {1e3 * g('setpoint_v', float('nan')):.1f} mV",
-            f"phase ref {g('phase_reference_deg', float('nan')):.2f}°",
+            f"sweep f0  {quantity(g('sweep_f0_hz'), 'Hz', g('sweep_f0_std_hz'))}",
+            f"sweep Q   {number(g('sweep_q'), g('sweep_q_std'))}",
+            f"drive     {quantity(g('drive_frequency_hz'), 'Hz', digits=6)}",
+            f"          {quantity(g('drive_amplitude_v'), 'V')}",
+            f"free amplitude {quantity(g('free_amplitude_nm'), 'nm', digits=3)}",
+            f"          = {quantity(g('free_amplitude_v'), 'V')} at the detector",
+            f"setpoint  {quantity(g('setpoint_v'), 'V')}",
+            f"phase reference {quantity(g('phase_reference_deg'), 'deg', digits=3)}",
         ]
         self.query_one("#res-drive", Static).update("\n".join(lines))
 
@@ -83,19 +103,21 @@ class ResonanceView(View):
         s, m = self.sweep, self.model
 
         def amplitude(plt):
-            x, y = decimate(s["frequency_hz"], s["amplitude_v"] * 1e3)
+            x, y = decimate(s["frequency_hz"] / 1e3, s["amplitude_v"] * 1e3)
             plt.scatter(x, y, color=DATA, marker="dot")
             if m is not None:
-                plt.plot(m[0], m[1] * 1e3, color=FIT)
-            plt.title(f"amplitude mV; f0 {s['f0_hz']:.6g} Hz, Q {s['q']:.3g}" if s.get("f0_hz") else "amplitude mV")
+                plt.plot(m[0] / 1e3, m[1] * 1e3, color=FIT)
+            plt.title(f"fit f0 {quantity(s['f0_hz'], 'Hz')}, Q {number(s['q'], digits=3)}" if s.get("f0_hz")
+                      else "drive sweep")
+            plt.ylabel("amplitude (mV)")
 
         def phase(plt):
-            x, y = decimate(s["frequency_hz"], s["phase_deg"])
+            x, y = decimate(s["frequency_hz"] / 1e3, s["phase_deg"])
             plt.scatter(x, y, color=DATA, marker="dot")
             if m is not None:
-                plt.plot(m[0], m[2], color=FIT)
-            plt.title("phase deg")
-            plt.xlabel("Hz")
+                plt.plot(m[0] / 1e3, m[2], color=FIT)
+            plt.ylabel("phase (°)")
+            plt.xlabel("frequency (kHz)")
 
         redraw(self.query_one("#sweep-amplitude", PlotextPlot), amplitude)
         redraw(self.query_one("#sweep-phase", PlotextPlot), phase)

@@ -6,10 +6,12 @@ from __future__ import annotations
 import time
 
 import numpy as np
-from textual.containers import Horizontal, HorizontalScroll, Vertical
-from textual.widgets import Button, Checkbox, Label, ProgressBar, Static
+from textual import on
+from textual.containers import Horizontal, Vertical, VerticalScroll
+from textual.widgets import Button, Checkbox, Input, Label, ProgressBar, Static
 from textual_plotext import PlotextPlot
 
+from assistant.formatting import duration, number_list
 from assistant.tui.colours import symmetric_limit
 from assistant.tui.plots import redraw
 from assistant.tui.view_base import FieldError, View
@@ -20,10 +22,12 @@ _LINE_COLOURS = ("blue", "cyan", "green", "orange", "red", "magenta", "yellow")
 
 
 class Preview(Vertical):
+    """One height's image with its lift height above it; previews share the width and grow with the terminal."""
+
     DEFAULT_CSS = """
-    Preview { width: 11; height: 7; }
-    Preview > Label { height: 1; }
-    Preview > HalfBlockImage { width: 10; height: 5; }
+    Preview { width: 1fr; min-width: 8; max-width: 48; height: 1fr; margin: 0 1 0 0; }
+    Preview > Label { height: 1; width: 1fr; }
+    Preview > HalfBlockImage { width: 1fr; height: 1fr; }
     """
 
     def __init__(self, title: str, index: int) -> None:
@@ -38,11 +42,12 @@ class Preview(Vertical):
 class SeriesView(View):
     EVENTS = ("series",)
     DEFAULT_CSS = """
-    SeriesView #series-top { height: 1fr; }
+    SeriesView #series-top { height: 3fr; min-height: 12; }
     SeriesView #series-form { width: 36; }
     SeriesView #series-live { width: 1fr; }
     SeriesView #series-line { height: 1fr; min-height: 4; }
-    SeriesView #series-previews { height: 7; }
+    SeriesView #series-previews { height: 2fr; min-height: 5; }
+    SeriesView #s-heights-echo { height: auto; color: $text-muted; }
     SeriesView #series-bar { height: 1; }
     SeriesView #series-message { height: auto; max-height: 3; }
     SeriesView Checkbox { height: 1; border: none; padding: 0; }
@@ -59,11 +64,16 @@ class SeriesView(View):
         self.remaining_s: float | None = None
         self.instrument_s: float | None = None
         self._previews_built_for: tuple | None = None
+        self.final_message: str | None = None  # how the last series ended; progress never overwrites it
 
     def compose(self):
         with Horizontal(id="series-top"):
-            with Vertical(id="series-form"):
-                yield Field("heights nm", "10,15,20,30,50,75,100", id="s-heights")
+            form = VerticalScroll(id="series-form")
+            form.can_focus = False  # tab goes straight to the fields; the wheel still scrolls it
+            with form:
+                yield Field("lift heights (nm), comma-separated", "10,15,20,30,50,75,100", id="s-heights",
+                            stacked=True)
+                yield Static(self._heights_echo("10,15,20,30,50,75,100"), id="s-heights-echo")
                 yield Field("biases V", "", id="s-biases", placeholder="none, or >= 3")
                 yield Field("scan size µm", "4", id="s-size")
                 yield Field("pixels", "128", id="s-pixels")
@@ -78,8 +88,26 @@ class SeriesView(View):
                 yield ProgressBar(total=1, show_eta=False, id="series-bar")
                 yield Static("no series running", id="series-status")
                 yield PlotextPlot(id="series-line")
-        yield HorizontalScroll(id="series-previews")
+        yield Horizontal(id="series-previews")
         yield ScaleKey(id="series-scale")
+
+    @staticmethod
+    def _heights_echo(text: str) -> str:
+        """The whole list read back, so a field scrolled to its end never looks like a 5 nm lift."""
+        try:
+            values = [float(t) for t in text.replace(";", ",").split(",") if t.strip()]
+        except ValueError:
+            return "not a list of numbers"
+        if not values:
+            return "no heights"
+        return f"{len(values)} height{'s' if len(values) > 1 else ''}: {number_list(values, 'nm')}"
+
+    @on(Input.Changed, "#s-heights")
+    def _heights_changed(self, event: Input.Changed) -> None:
+        self.query_one("#s-heights-echo", Static).update(self._heights_echo(event.value))
+
+    def show_message(self, text: str) -> None:
+        self.query_one("#series-message", Static).update(text)
 
     # settings ----------------------------------------------------------------------------------------
     def settings(self):
@@ -118,12 +146,17 @@ class SeriesView(View):
             self.app.start_series(s)
 
     # data ----------------------------------------------------------------------------------------------
-    def begin(self, *, heights_m, biases_v, lines: int, pixels: int) -> None:
+    scan_size_m = 4e-6
+
+    def begin(self, *, heights_m, biases_v, lines: int, pixels: int, scan_size_m: float | None = None) -> None:
+        if scan_size_m:
+            self.scan_size_m = float(scan_size_m)
         self.heights_m = tuple(float(h) for h in heights_m)
         self.biases_v = None if biases_v is None else tuple(float(b) for b in biases_v)
         self.phase = np.full((len(self.heights_m), lines, pixels), np.nan)
         self.lines_done, self.latest_row = 0, None
         self.remaining_s = self.instrument_s = None
+        self.final_message = None
         self._build_previews()
         bar = self.query_one("#series-bar", ProgressBar)
         bar.update(total=lines, progress=0)
@@ -134,7 +167,8 @@ class SeriesView(View):
         phase = np.asarray(data.phase_deg, dtype=float)
         if data.biases_v is not None and phase.ndim == 4:
             phase = phase[:, 0]
-        self.begin(heights_m=data.heights_m, biases_v=data.biases_v, lines=data.lines, pixels=data.pixels)
+        self.begin(heights_m=data.heights_m, biases_v=data.biases_v, lines=data.lines, pixels=data.pixels,
+                   scan_size_m=data.scan_size_m)
         self.phase[:, : phase.shape[1]] = phase
         self.lines_done = data.completed_lines
         self.latest_row = data.completed_lines - 1 if data.completed_lines else None
@@ -159,12 +193,13 @@ class SeriesView(View):
     def step_finished(self, step: str, result, error) -> None:
         if step != "series":
             return
-        status = self.query_one("#series-status", Static)
         if error is None:
-            status.update(f"series {result.name} done: {result.completed_lines} of {result.lines} lines "
-                          f"in {result.elapsed_s:.1f} s")
+            self.final_message = (f"{result.name} done: {result.completed_lines} of {result.lines} lines in "
+                                  f"{duration(result.elapsed_s)}")
         else:
-            status.update(f"series stopped after {self.lines_done} lines: {error}")
+            self.final_message = f"[b]series stopped after {self.lines_done} lines:[/b] {error}"
+        self.query_one("#series-status", Static).update(self.final_message)
+        self.mark_dirty()
 
     def _build_previews(self) -> None:
         key = (self.heights_m, self.biases_v)
@@ -175,9 +210,10 @@ class SeriesView(View):
 
     async def _rebuild_previews(self, key) -> None:
         # Removing and mounting must be awaited in turn: left pending together they can stall the app's queue.
-        box = self.query_one("#series-previews", HorizontalScroll)
+        box = self.query_one("#series-previews", Horizontal)
         await box.remove_children()
         await box.mount_all([Preview(f"{h * 1e9:g} nm", i) for i, h in enumerate(key[0])])
+        self.query_one("#series-previews").styles.overflow_x = "auto"
         self.mark_dirty()
 
     def redraw(self) -> None:
@@ -188,14 +224,14 @@ class SeriesView(View):
         for i, preview in enumerate(self.query(Preview)):
             if i < self.phase.shape[0]:
                 preview.query_one(HalfBlockImage).set_image(self.phase[i], limit)
-                preview.query_one(Label).update(f"{self.heights_m[i] * 1e9:g} nm {self.lines_done}/{lines}")
+                preview.query_one(Label).update(f"{self.heights_m[i] * 1e9:g} nm")
         self.query_one("#series-scale", ScaleKey).set_limit(limit)
         self.query_one("#series-bar", ProgressBar).update(total=lines, progress=self.lines_done)
-        rem = f", about {self.remaining_s:.0f} s left" if self.remaining_s is not None else ""
-        inst = f" (instrument time {self.instrument_s:.0f} s)" if self.instrument_s is not None else ""
+        rem = f", about {duration(self.remaining_s)} left" if self.remaining_s is not None else ""
+        inst = f" (instrument time {duration(self.instrument_s)})" if self.instrument_s is not None else ""
         bias = f"; previews at bias {self.biases_v[0]:g} V" if self.biases_v else ""
-        self.query_one("#series-status", Static).update(
-            f"line {self.lines_done} of {lines} at every height{rem}{inst}{bias}")
+        live = f"line {self.lines_done} of {lines} at every height{rem}{inst}{bias}"
+        self.query_one("#series-status", Static).update(self.final_message or live)
         if self.latest_row is None:
             return
         # plotext builds its whole canvas in Python on the UI thread: draw the latest line at most once a second
@@ -208,11 +244,14 @@ class SeriesView(View):
         row, heights = self.latest_row, self.heights_m
         phase = self.phase[:, row, :]
 
+        size_um = self.scan_size_m * 1e6
+
         def draw(plt):
-            x = np.arange(phase.shape[1])
+            x = (np.arange(phase.shape[1]) + 0.5) * size_um / phase.shape[1]
             for i in range(phase.shape[0]):
-                plt.plot(x, phase[i], color=_LINE_COLOURS[i % len(_LINE_COLOURS)],
-                         label=f"{heights[i] * 1e9:g}" if phase.shape[0] <= 4 else None)
-            plt.title(f"phase deg, line {row + 1}, all heights")
+                plt.plot(x, phase[i], color=_LINE_COLOURS[i % len(_LINE_COLOURS)])
+            plt.title(f"line {row + 1}, every height (lowest: blue)")
+            plt.xlabel("x (µm)")
+            plt.ylabel("phase (°)")
 
         redraw(self.query_one("#series-line", PlotextPlot), draw)

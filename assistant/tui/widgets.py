@@ -129,16 +129,27 @@ class ScaleKey(Widget):
 
 
 class Field(Horizontal):
-    """A label and a one-line input side by side (fits the 80 x 24 terminal)."""
+    """A label and a one-line input side by side (fits the 80 x 24 terminal); ``stacked`` puts the input on its
+    own line under the label, for values that would not fit beside it.
+
+    The input has no frame in either state, so its text stays visible when it has the focus (a framed one-line
+    input shows only its frame); the focused field is marked by its background and a bold label instead.
+    """
 
     DEFAULT_CSS = """
     Field { height: 1; }
+    Field.stacked { layout: vertical; height: 2; }
     Field > Label { width: 16; }
+    Field.stacked > Label { width: 1fr; }
     Field > Input { height: 1; border: none; padding: 0 1; width: 1fr; }
+    Field > Input:focus { border: none; background: $accent 35%; }
+    Field:focus-within > Label { text-style: bold; }
+    Field > Input:disabled { opacity: 0.85; }
     """
 
-    def __init__(self, label: str, value: str = "", *, id: str, placeholder: str = "") -> None:
-        super().__init__(id=f"{id}-field")
+    def __init__(self, label: str, value: str = "", *, id: str, placeholder: str = "", stacked: bool = False
+                 ) -> None:
+        super().__init__(id=f"{id}-field", classes="stacked" if stacked else None)
         self._label, self._value, self._input_id, self._placeholder = label, value, id, placeholder
 
     def compose(self):

@@ -57,8 +57,9 @@ def _to_json(v: object) -> object:
 
 def _from_json(v: object) -> object:
     if isinstance(v, dict):
-        if set(v) == {"$f"} and v["$f"] in _NONFINITE:
-            return _NONFINITE[v["$f"]]
+        tag = v.get("$f") if set(v) == {"$f"} else None
+        if isinstance(tag, str) and tag in _NONFINITE:  # any other value (a list, a number) is malformed
+            return _NONFINITE[tag]
         raise WireError(-104, "unexpected object in the arguments")
     if isinstance(v, list):
         return tuple(_from_json(x) for x in v)

@@ -123,7 +123,8 @@ def test_phase_relation_exact_arctan():
 def test_centre_gap_convention_and_errors():
     np.testing.assert_allclose(lm.centre_gap_m([10e-9, 20e-9], amplitude_m=5e-9), [15e-9, 25e-9])
     np.testing.assert_allclose(lm.centre_gap_m([10e-9], amplitude_m=5e-9, gap_offset_m=8e-9), [18e-9])
-    with pytest.raises(ValueError, match="closest approach"):
+    # said in the operator's terms: which lift height, what would happen, what to change
+    with pytest.raises(ValueError, match="at a lift height of 1 nm the tip would reach the surface.*larger lift"):
         lm.centre_gap_m([1e-9], amplitude_m=10e-9, gap_offset_m=5e-9)
     with pytest.raises(ValueError, match="gap_m"):
         lm.sphere_capacitance_f(-1e-9, radius_m=R)

@@ -174,7 +174,7 @@ def test_time_series_record_end_to_end():
     res = analyse_thermal_record(x.astype(np.float32), fs, invols_m_per_v=INVOLS, temperature_k=T_TRUE)
     d = res.to_dict()
     assert set(d) == {"f0_hz", "f0_std_hz", "q", "q_std", "peak_area_v2", "k_n_per_m", "k_std_n_per_m",
-                      "invols_nm_per_v", "temperature_k", "correction_factor"}
+                      "invols_nm_per_v", "invols_std_nm_per_v", "temperature_k", "correction_factor"}
     assert all(v is None or type(v) is float for v in d.values())
     assert d["invols_nm_per_v"] == pytest.approx(50.0)
     assert d["correction_factor"] == 0.817434

@@ -180,7 +180,7 @@ def tui_pilot(n: int, scenario: Path, workdir: Path) -> dict:
             app.start_series(sv.checked_settings())
             await pilot.pause(1.0 + 0.5 * k)
             t0 = time.monotonic()
-            await pilot.press("ctrl+w")
+            await pilot.press(_withdraw_key())
             while not app._withdraw_confirmed:
                 await pilot.pause(0.002)
             assert app.controller.status().safe
@@ -215,7 +215,7 @@ def tui_tmux(n: int, scenario: Path, workdir: Path, rng: random.Random) -> dict:
                 th.start()
                 time.sleep(rng.uniform(1.0, 2.5))
                 t0 = time.monotonic()
-                subprocess.run(["tmux", "send-keys", "-t", session, "C-w"], check=True)
+                subprocess.run(["tmux", "send-keys", "-t", session, _withdraw_key(tmux=True)], check=True)
                 watcher = threading.Thread(target=_wait_for_log, args=(session, k + 1, t0, shown))
                 watcher.start()
                 ok = ctl.status().safe  # queued behind the line on this client: answers once it stopped
@@ -237,6 +237,14 @@ def _wait_for_log(session: str, count: int, t0: float, times: list[float]) -> No
             times.append(time.monotonic() - t0)
             return
         time.sleep(0.005)
+
+
+def _withdraw_key(*, tmux: bool = False) -> str:
+    """The key the app binds to its withdraw action (Textual's name, or tmux's, e.g. ctrl+g -> C-g)."""
+    from assistant.tui.app import MfmApp
+
+    key = next(b.key for b in MfmApp.BINDINGS if b.action == "withdraw")
+    return key.replace("ctrl+", "C-") if tmux else key
 
 
 def _pane(session: str) -> str:
@@ -266,7 +274,7 @@ def cli_sigint(controller: str | None, scenario: Path, workdir: Path, delay_s: f
     proc.send_signal(signal.SIGINT)
     notice = None
     for line in proc.stderr:
-        if "stopped (KeyboardInterrupt" in line and notice is None:
+        if "stopped" in line and "withdrawn" in line and notice is None:
             notice = time.monotonic() - t0
     code = proc.wait(30)
     return notice, time.monotonic() - t0, code

@@ -80,7 +80,7 @@ def test_killed_server_ends_the_run_and_resume_finishes(tmp_path):
                                "--thermal-seconds", "0.5", "--controller", url],
                               cwd=tmp_path, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     for line in client.stderr:
-        if line.startswith("series:"):
+        if line.startswith("series "):  # the first plain progress line of the series stage
             break
     time.sleep(0.3)
     killed_at = time.monotonic()

@@ -102,6 +102,10 @@ def test_error_reply_round_trip_and_strict_json():
     (b'{"v":1,"session":"s","id":1,"cmd":"MOTion:Z","args":[1,2]}', -108),
     (b'{"v":1,"session":"s","id":1,"cmd":"MOTion:Z","args":[NaN]}', -104),
     (b'{"v":1,"session":"s","id":true,"cmd":"MOTion:Z","args":[1]}', -102),
+    # a non-finite marker whose value is not one of its three spellings (found by the long fuzz run)
+    (b'{"v":1,"session":"a","id":1,"cmd":"*IDN?","args":[{"$f":[]}]}', -104),
+    (b'{"v":1,"session":"a","id":1,"cmd":"MOTion:Z","args":[{"$f":{"x":1}}]}', -104),
+    (b'{"v":1,"session":"a","id":1,"cmd":"MOTion:Z","args":[{"$f":1.5}]}', -104),
 ])
 def test_bad_requests_have_their_codes(header, code):
     with pytest.raises(WireError) as err:

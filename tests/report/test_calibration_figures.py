@@ -47,12 +47,18 @@ def test_thermal_png(tmp_path, thermal_result):
     assert data[:8] == PNG_MAGIC and len(data) > 20_000
     fig = thermal_figure(thermal_result)
     ax_all, ax_fit, ax_res = fig.axes
-    for ax in (ax_all, ax_fit):
-        assert ax.get_xscale() == "log" and ax.get_yscale() == "log"
-        assert ax.get_xlabel() == "frequency (Hz)" and ax.get_ylabel() == "deflection PSD (V²/Hz)"
-    assert ax_res.get_xscale() == "log" and ax_res.get_ylabel() == "residual (σ)"
-    assert ax_res.get_xlabel() == "frequency (Hz)"
+    assert ax_all.get_xscale() == "log" and ax_all.get_yscale() == "log"
+    assert ax_all.get_xlabel() == "frequency (Hz)" and ax_all.get_ylabel() == "deflection PSD (V²/Hz)"
+    # the fit window is a few kHz wide: a linear axis in kHz, the PSD still on a log scale
+    assert ax_fit.get_xscale() == "linear" and ax_fit.get_yscale() == "log"
+    assert ax_fit.get_xlabel() == "frequency (kHz)" and ax_fit.get_ylabel() == "deflection PSD (V²/Hz)"
+    lo, hi = ax_fit.get_xlim()
+    assert lo == pytest.approx(thermal_result.fit.fit_range_hz[0] / 1e3)
+    assert lo < thermal_result.f0_hz / 1e3 < hi
+    assert ax_res.get_xscale() == "linear" and ax_res.get_ylabel() == "residual (σ)"
+    assert ax_res.get_xlabel() == "frequency (kHz)" and ax_res.get_xlim() == ax_fit.get_xlim()
     assert len(ax_fit.get_lines()) == 2
+    assert "e+" not in ax_all.get_title() and "kHz" in ax_all.get_title()
 
 
 def test_thermal_png_without_spectrum(tmp_path):

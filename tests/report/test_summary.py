@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import re
 import sys
 import types
 
@@ -20,7 +21,7 @@ CAL = {"k_n_per_m": 2.8012, "k_std_n_per_m": 0.0834, "f0_hz": 75012.31, "f0_std_
 
 @pytest.mark.parametrize("value, std, text", [
     (2.8012, 0.0834, "2.801 ± 0.083"), (75012.31, 2.13, "75012.3 ± 2.1"), (201.3, 4.2, "201.3 ± 4.2"),
-    (1234.5, 560.0, "1230 ± 560"), (3.0e-9, 1.04e-10, "(3.00 ± 0.10)e-9"), (0.31, 0.02, "0.310 ± 0.020"),
+    (1234.5, 560.0, "1230 ± 560"), (3.0e-9, 1.04e-10, "(3.00 ± 0.10) × 10⁻⁹"), (0.31, 0.02, "0.310 ± 0.020"),
     (295.15, None, "295.15"), (1.0, float("nan"), "1"), (-0.4, 0.0, "-0.4"),
 ])
 def test_format_value(value, std, text):
@@ -66,16 +67,23 @@ def test_report_figures_and_every_number(tmp_path, no_colleague_modules):
             assert p.read_bytes()[:8] == PNG
     text = (tmp_path / "out" / "summary.md").read_text(encoding="utf-8")
     assert text == result.summary_text
-    for line in ("| k_n_per_m | 2.801 ± 0.083 | N/m |", "| f0_hz | 75012.3 ± 2.1 | Hz |", "| q | 201.3 ± 4.2 | 1 |",
-                 "| invols_nm_per_v | 54.3 ± 1.2 | nm/V |", "| temperature_k | 295.15 | K |",
-                 "| k_source | thermal | |", "| cpd_v | 0.310 ± 0.020 | V |", "| recommended_lift_nm | 25 | nm |",
-                 "- magnetic_rms_deg [deg]: 1.500 ± 0.050, 1.000 ± 0.040, 0.500 ± 0.030",
-                 "- trace_z_m [m]: 0, 1.05e-06, 2.1e-06, 3.15e-06, 4.2e-06",
-                 "- completed lines: 24 of 32 (partial)", "- lift heights (nm): 10, 20, 40",
+    # readable names, the unit with the value (prefixed to suit it), ± for every uncertainty
+    for line in ("| spring constant k | 2.801 ± 0.083 N/m |", "| resonance f0 | 75.0123 ± 0.0021 kHz |",
+                 "| quality factor Q | 201.3 ± 4.2 |", "| optical-lever sensitivity (InvOLS) | 54.3 ± 1.2 nm/V |",
+                 "| temperature | 295.15 K |", "| k from | thermal |", "| engaged | yes |",
+                 "- **Recommended lift height:** 25 nm", "- **Recommended tip bias:** 310 ± 20 mV",
+                 "- magnetic rms: 1.500 ± 0.050°, 1.000 ± 0.040°, 0.500 ± 0.030°",
+                 "- trace: Z extension: 0, 1.05, 2.1, 3.15, 4.2 µm",
+                 "- completed lines: 24 of 32 (partial)", "- lift heights: 10, 20, 40 nm",
                  "quality_factor = 200", '"lines": 32'):
         assert line in text, line
+    assert text.index("## Results") < text.index("## Probe calibration")  # the results open the summary
     assert "k_std_n_per_m" not in text  # folded into the ± of k
-    assert "| 10 (repeat) | - |" in text and "session complete: no" in text
+    assert "| 10 (repeat) | — |" in text and "session complete: no" in text
+    tables = [row for row in text.splitlines() if row.startswith("| ")]
+    assert not [r for r in tables if re.match(r"\| [a-z0-9]+(_[a-z0-9]+)+ \|", r)], "snake_case key in a table"
+    assert not [r for r in tables if r.endswith("| 1 |")], "'1' as a unit"
+    assert "e-0" not in text and "e+0" not in text  # no e-notation
     assert len(result.notes) == 2 and all("skipped" in n for n in result.notes)
     assert "calibration_figures is not installed" in text
 
@@ -85,7 +93,7 @@ def test_bias_grid_gives_one_phase_figure_per_bias(tmp_path, no_colleague_module
     result = build_report(tmp_path / "b.h5", tmp_path / "out")
     names = sorted(p.name for p in result.paths)
     assert names == ["lift_phase_bias0.png", "lift_phase_bias1.png", "lift_topography.png", "summary.md"]
-    assert "| 20 | -1 |" in result.summary_text and "- tip biases (V): -1, 1" in result.summary_text
+    assert "| 20 | -1 |" in result.summary_text and "- tip biases: -1, 1 V" in result.summary_text
 
 
 def test_colleague_module_used_through_its_session_hook_and_failures_become_notes(tmp_path, monkeypatch):
@@ -117,7 +125,7 @@ def test_session_without_series_still_gets_a_summary(tmp_path, no_colleague_modu
         s.mark_complete()
     result = build_report(tmp_path / "e.h5", tmp_path / "deep" / "out")
     assert [p.name for p in result.paths] == ["summary.md"]
-    assert "| f0_hz | 13000 | Hz |" in result.summary_text and "session complete: yes" in result.summary_text
+    assert "| resonance f0 | 13 kHz |" in result.summary_text and "session complete: yes" in result.summary_text
 
 
 def test_calibration_figures_fallback_refits_the_stored_sweep_and_spectrum(tmp_path, monkeypatch):

@@ -16,6 +16,8 @@ from drivers.registry import open_controller
 from simulated_stage.clock import VirtualClock
 from simulated_stage.scenario import Scenario
 
+#: whichever key the app binds to its withdraw action
+WITHDRAW = next(b.key for b in MfmApp.BINDINGS if b.action == "withdraw")
 #: a small sample close to the tip: the approach is short and the field tables cheap
 SCENARIO = """
 name = "withdraw-now"
@@ -47,7 +49,7 @@ async def _withdraw_mid_line(tmp_path) -> tuple[float, float]:
         await pilot.pause(0.8)  # inside the first line (4 passes at 1 Hz, the repeat pass too)
         assert app.busy == "series" and sv.lines_done == 0
         t0 = time.monotonic()
-        await pilot.press("ctrl+w")
+        await pilot.press(WITHDRAW)
         while not app._withdraw_confirmed:
             assert time.monotonic() - t0 < 10, "no confirmed withdraw"
             await pilot.pause(0.005)

@@ -1,0 +1,192 @@
+"""The results block and the per-height tables of a decomposed lift-height series, for people.
+
+Works on the dictionary form of a decomposition (``SeriesAnalysis.to_dict()``, or a stored analysis record's
+scalars and arrays together: the keys are the same), so ``mfma analyze series``, ``summary.md`` and the terminal
+UI say the same thing in the same words. No matplotlib, no h5py: cheap to import from the command line.
+"""
+
+from __future__ import annotations
+
+import math
+
+from assistant.formatting import DASH, number, percent, quantity
+
+__all__ = ["results_block", "per_height_table", "bias_table", "render_table", "render_block"]
+
+
+def _list(d: dict, key: str) -> list | None:
+    v = d.get(key)
+    if v is None:
+        return None
+    try:
+        return [x for x in (v.tolist() if hasattr(v, "tolist") else list(v))]
+    except TypeError:
+        return None
+
+
+def _num(v) -> float | None:
+    try:
+        f = float(v)
+    except (TypeError, ValueError):
+        return None
+    return f if math.isfinite(f) else None
+
+
+def _index_of(heights: list, lift_nm: float) -> int | None:
+    for i, h in enumerate(heights):
+        if _num(h) is not None and abs(float(h) - lift_nm) <= 1e-6 * max(1.0, abs(lift_nm)):
+            return i
+    return None
+
+
+def _short_range_share(d: dict, i: int) -> str | None:
+    """|short-range mean| / magnetic rms at height ``i`` with its propagated uncertainty, as percent."""
+    sr, mag = _list(d, "short_range_mean_deg"), _list(d, "magnetic_rms_deg")
+    if sr is None or mag is None or i >= len(sr) or i >= len(mag):
+        return None
+    s, m = _num(sr[i]), _num(mag[i])
+    if s is None or m is None or m <= 0:
+        return None
+    sr_sd, mag_sd = _list(d, "short_range_mean_std_deg"), _list(d, "magnetic_rms_std_deg")
+    ssd = _num(sr_sd[i]) if sr_sd and i < len(sr_sd) else None
+    msd = _num(mag_sd[i]) if mag_sd and i < len(mag_sd) else None
+    frac = abs(s) / m
+    std = None
+    if ssd is not None and msd is not None:
+        std = math.hypot(ssd / m, abs(s) * msd / m**2)
+    return percent(frac, std)
+
+
+def _lift_text(d: dict) -> str:
+    rec = _num(d.get("recommended_lift_nm"))
+    heights = _list(d, "heights_nm") or []
+    if rec is None:
+        sentence = str(d.get("recommendation") or "")
+        reason = sentence.split(":", 1)[1].split(".")[0].strip() if ":" in sentence else ""
+        return "none: " + (reason or "no measured height meets every criterion")
+    text = quantity(rec, "nm")
+    i = _index_of(heights, rec)
+    if i is None:
+        return text
+    share = _short_range_share(d, i)
+    if share:
+        text += f" (short-range part there {share} of the magnetic rms)"
+    if i == 0:
+        return text + "; the lowest height measured, a lower one may also qualify"
+    below = quantity(heights[i - 1], "nm")
+    at_noise = _list(d, "residual_at_noise")
+    reasons = []
+    if at_noise is not None and i - 1 < len(at_noise) and not bool(at_noise[i - 1]):
+        reasons.append("continuation residual above noise")
+    share_below = _short_range_share(d, i - 1)
+    if share_below:
+        reasons.append(f"short-range part {share_below}")
+    return text + f"; {below} does not qualify" + (f" ({', '.join(reasons)})" if reasons else "")
+
+
+def _bias_text(d: dict) -> str:
+    cpd = _num(d.get("cpd_v"))
+    if cpd is None:
+        return "not measured (needs a bias grid of three or more biases)"
+    return f"{quantity(cpd, 'V', _num(d.get('cpd_std_v')))} (V_cpd: nulls the electrostatic part)"
+
+
+def _warnings(d: dict) -> list[str]:
+    out = []
+    if d.get("tip_changed_sample") is not None and bool(d["tip_changed_sample"]):
+        frac = _num(d.get("tip_changed_fraction"))
+        out.append("the tip changed the sample: " + (f"{percent(frac)} of the area changed between the first pass "
+                                                      "and its repeat" if frac is not None else "see the change map"))
+    sep = d.get("separable")
+    if sep is not None and not bool(sep) and d.get("separability"):
+        out.append(str(d["separability"]))
+    if d.get("edge_note"):
+        out.append(str(d["edge_note"]))
+    nan = _num(d.get("nan_pixels"))
+    if nan:
+        out.append(f"{nan:.0f} pixels without data were left out")
+    heights, at_noise = _list(d, "heights_nm"), _list(d, "residual_at_noise")
+    if heights and at_noise and len(heights) == len(at_noise):
+        bad = [quantity(h, "nm") for h, ok in zip(heights, at_noise) if not bool(ok)]
+        if bad:
+            out.append("continuation residual above noise at " + ", ".join(bad))
+    return out
+
+
+def results_block(d: dict) -> list[tuple[str, str]]:
+    """(name, text) pairs: recommended lift and bias with their uncertainties, the noise verdict, warnings."""
+    noise = d.get("noise_sentence") or d.get("noise_verdict") or DASH
+    warnings = _warnings(d)
+    return [("Recommended lift height", _lift_text(d)), ("Recommended tip bias", _bias_text(d)),
+            ("Noise", str(noise)), ("Warnings", "; ".join(w.rstrip(". ") for w in warnings) if warnings else "none")]
+
+
+def render_block(pairs: list[tuple[str, str]], *, markdown: bool) -> list[str]:
+    if markdown:
+        return [f"- **{name}:** {text}" for name, text in pairs]
+    width = max(len(n) for n, _ in pairs)
+    return [f"{name + ':':<{width + 1}} {text}" for name, text in pairs]
+
+
+def _cell(values, stds, i) -> str:
+    if values is None or i >= len(values):
+        return DASH
+    sd = _num(stds[i]) if stds is not None and i < len(stds) else None
+    return number(values[i], sd, digits=4)
+
+
+def per_height_table(d: dict) -> tuple[list[str], list[list[str]], list[str]]:
+    """Headers, rows and footnotes of the per-height table (lift, magnetic rms, parts, residual, noise)."""
+    heights = _list(d, "heights_nm") or []
+    es = _list(d, "electrostatic_mean_deg")
+    grid = bool(es) and isinstance(es[0], (list, tuple))
+    cols = [("magnetic rms (°)", "magnetic_rms_deg"), ("short-range mean (°)", "short_range_mean_deg")]
+    if not grid:
+        cols.append(("electrostatic mean (°)", "electrostatic_mean_deg"))
+    headers = ["lift (nm)"] + [c for c, _ in cols] + ["residual rms (°)", "noise (°)"]
+    at_noise = _list(d, "residual_at_noise")
+    res, noise = _list(d, "residual_rms_deg"), _list(d, "noise_deg")
+    rows, flagged = [], False
+    for i, h in enumerate(heights):
+        row = [number(h)]
+        for _, key in cols:
+            row.append(_cell(_list(d, key), _list(d, key.replace("_deg", "_std_deg")), i))
+        r = number(res[i], digits=2) if res and i < len(res) else DASH
+        if at_noise and i < len(at_noise) and not bool(at_noise[i]):
+            r += " *"
+            flagged = True
+        rows.append(row + [r, number(noise[i], digits=2) if noise and i < len(noise) else DASH])
+    notes = ["* continuation residual above noise at this height"] if flagged else []
+    return headers, rows, notes
+
+
+def bias_table(d: dict, biases_v=None) -> tuple[list[str], list[list[str]]] | None:
+    """Electrostatic mean (°) per lift height and tip bias (``biases_v``, V), for a bias grid; None without one."""
+    es = _list(d, "electrostatic_mean_deg")
+    if not es or not isinstance(es[0], (list, tuple)):
+        return None
+    sd = _list(d, "electrostatic_mean_std_deg")
+    heights = _list(d, "heights_nm") or []
+    biases = None if biases_v is None else [float(b) for b in biases_v]
+    n = len(es[0])
+    names = [quantity(b, "V", digits=3) for b in biases] if biases and len(biases) == n else \
+        [f"bias {j + 1}" for j in range(n)]
+    rows = []
+    for i, h in enumerate(heights):
+        row = [number(h)]
+        for j in range(n):
+            s = sd[i][j] if sd and i < len(sd) and j < len(sd[i]) else None
+            row.append(number(es[i][j], _num(s), digits=4) if i < len(es) else DASH)
+        rows.append(row)
+    return ["lift (nm)"] + [f"at {b}" for b in names], rows
+
+
+def render_table(headers: list[str], rows: list[list[str]], *, markdown: bool) -> list[str]:
+    """A table as Markdown or as aligned plain text (numbers right-aligned)."""
+    if markdown:
+        return (["| " + " | ".join(headers) + " |", "|" + "---|" * len(headers)]
+                + ["| " + " | ".join(r) + " |" for r in rows])
+    widths = [max(len(h), *(len(r[k]) for r in rows)) if rows else len(h) for k, h in enumerate(headers)]
+    lines = ["  ".join(h.rjust(w) for h, w in zip(headers, widths))]
+    lines += ["  ".join(c.rjust(w) for c, w in zip(r, widths)) for r in rows]
+    return lines
