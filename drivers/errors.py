@@ -72,3 +72,11 @@ class BadURL(ControllerError, ValueError):
 
 def _fmt(x: float | None) -> str:
     return "-inf" if x is None else f"{x:g}"
+
+
+class InsecureBind(ControllerError, PermissionError):
+    """Refusal to listen beyond loopback without CURVE keys."""
+
+
+class KeyFileError(ControllerError, OSError):
+    """A key file or key directory is missing, unreadable or not a CURVE key."""

@@ -13,7 +13,7 @@ from pathlib import Path
 import zmq
 import zmq.auth
 
-from drivers.errors import ControllerError
+from drivers.errors import KeyFileError
 
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")
 
@@ -22,10 +22,6 @@ HOW_TO_MAKE_KEYS = (
     "then start the server with --server-key DIR/SERVER.key_secret --allow ALLOWDIR, where ALLOWDIR holds "
     "the clients' NAME.key public files"
 )
-
-
-class KeyFileError(ControllerError, OSError):
-    """A key file or key directory is missing, unreadable or not a CURVE key."""
 
 
 def generate_keys(directory: str | os.PathLike, name: str) -> tuple[Path, Path]:

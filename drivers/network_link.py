@@ -28,7 +28,8 @@ from drivers import keys
 from drivers.errors import BadURL, LinkLost, LinkTimeout, ProtocolError
 from drivers.serial_link import LinkController, _no_extra, _options
 from drivers.wire import messages
-from drivers.wire.commands import Command, command, exception_for
+from drivers.wire.commands import Command, command
+from drivers.wire.error_map import exception_for
 
 _FAILED = {getattr(zmq, n) for n in ("EVENT_HANDSHAKE_FAILED_NO_DETAIL", "EVENT_HANDSHAKE_FAILED_PROTOCOL",
                                      "EVENT_HANDSHAKE_FAILED_AUTH") if hasattr(zmq, n)}
@@ -45,7 +46,7 @@ class NetworkController(LinkController):
         host = urlsplit(endpoint).hostname or ""
         if (server_key is None) != (client_key is None):
             raise BadURL("give both server=PUBLIC_KEY_FILE and client=SECRET_KEY_FILE, or neither")
-        from drivers.server import is_loopback
+        from drivers.registry import is_loopback
 
         if server_key is None and not is_loopback(host):
             raise BadURL(f"refusing to talk to {host} unencrypted; give server= and client= key files "

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import functools
 import importlib
+import ipaddress
 from dataclasses import dataclass
 from importlib.metadata import entry_points
 from urllib.parse import urlsplit
@@ -82,3 +83,13 @@ def redact(url: str) -> str:
         parts = parts._replace(query="&".join(kept))
     # geturl() drops an empty authority ("sim://" -> "sim:"), so rebuild only when something was hidden
     return url if parts == original else parts.geturl()
+
+
+def is_loopback(host: str) -> bool:
+    """Whether ``host`` (a name, an IPv4 or an IPv6 address, bracketed or not) is this machine's loopback."""
+    if host == "localhost":
+        return True
+    try:
+        return ipaddress.ip_address(host.strip("[]")).is_loopback
+    except ValueError:
+        return False

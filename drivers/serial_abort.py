@@ -13,7 +13,7 @@ import threading
 import time
 
 from drivers.errors import ControllerFault, LinkTimeout, ProtocolError
-from drivers.wire.commands import exception_for
+from drivers.wire.error_map import exception_for
 from drivers.wire.scpi import WireError, decode_answer, format_command, format_line, parse_reply
 
 

@@ -29,9 +29,10 @@ from urllib.parse import parse_qs, urlsplit, urlunsplit
 import numpy as np
 
 from drivers.base import Controller, LineData, LineSpec, Limits, Status, SweepData
-from drivers.serial_abort import StreamAbort
 from drivers.errors import Aborted, BadURL, LinkLost, LinkTimeout, ProtocolError
-from drivers.wire.commands import MAX_SWEEP_POINTS, Command, command, exception_for, line_args
+from drivers.serial_abort import StreamAbort
+from drivers.wire.commands import MAX_SWEEP_POINTS, Command, command, line_args
+from drivers.wire.error_map import exception_for
 from drivers.wire.scpi import (
     WireError, decode_answer, encode_params, format_command, format_line, parse_reply, reply_end,
 )

@@ -24,10 +24,11 @@ import numpy as np
 from drivers.base import (Capability, Controller, ControllerInfo, ForceCurve, LineData, Limits, LineSpec, PassData,
                           Status, SweepData)
 from drivers.errors import Aborted, BadURL, ControllerFault, LaserLost, LimitExceeded
+from drivers.fault_plan import STAGE_KINDS, FaultPlan
+from drivers.link_faults import gate_for
 from simulated_stage.clock import PACES, VirtualClock
-from simulated_stage.errors import ScenarioError, StageAborted, StageError, StageFault, StageLimitError
-from simulated_stage.faults import STAGE_KINDS, FaultPlan, FaultyStage, gate_for
-from simulated_stage.instrument import LASER_LOST
+from simulated_stage.errors import LASER_LOST, ScenarioError, StageAborted, StageError, StageFault, StageLimitError
+from simulated_stage.faults import FaultyStage
 from simulated_stage.scenario import Scenario, build_microscope, load_scenario
 
 _URL_KEYS = ("scenario", "seed", "pace", "line_rate")

@@ -2,6 +2,16 @@
 
 from __future__ import annotations
 
+#: Fault codes of the virtual controller (StageFault.code): positive, device-specific, as SCPI reserves the
+#: negative ones.
+INJECTED_ERROR_CODE = 301  # a fault the injector raises on purpose
+TIP_CRASH = 302
+NOT_ENGAGED = 303
+UNKNOWN_CHANNEL = 304
+BAD_REQUEST = 305
+LASER_LOST = 310  # physical or injected: the photodetector sum fell below its limit
+Z_JUMP_CODE = 320  # injected: the Z readback jumped
+
 
 class StageError(Exception):
     """Root of every error the simulated stage raises."""

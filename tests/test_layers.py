@@ -20,7 +20,7 @@ def test_import_contracts_hold():
 def test_analysis_imports_only_numpy_and_scipy():
     code = (
         "import sys, assistant.analysis as a, pkgutil, importlib\n"
-        "for m in pkgutil.iter_modules(a.__path__): importlib.import_module('assistant.analysis.' + m.name)\n"
+        "for m in pkgutil.walk_packages(a.__path__, 'assistant.analysis.'): importlib.import_module(m.name)\n"
         "bad = sorted(n for n in sys.modules if n.split('.')[0] in "
         "{'h5py','matplotlib','zmq','serial','textual','drivers','simulated_stage'})\n"
         "print(','.join(bad))\n"

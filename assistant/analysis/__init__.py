@@ -1,16 +1,8 @@
-"""Pure analysis functions on numpy arrays: spectra, thermal and Sader calibration, sweeps, force curves."""
+"""Pure analysis functions on numpy arrays, one folder per family; no I/O, usable from a notebook.
 
-from .air import air_density_kg_m3, air_viscosity_pa_s
-from .force_curve import ContactInvolsResult, ForceCurveError, contact_invols, stiff_sample_invols
-from .sader import (
-    SaderResult, hydrodynamic_circular, hydrodynamic_rectangular, omega_correction, sader_spring_constant,
-)
-from .spectra import SpectrumError, WelchAccumulator, WelchSpectrum, welch_variance_inflation
-from .sweep import (
-    QComparison, SweepFitError, SweepResult, compare_q, drive_amplitude_for_free_amplitude, drive_frequency,
-    fit_drive_sweep, oscillator_response, setpoint_from_ratio, sweep_response_v_per_v,
-)
-from .thermal import (
-    BOLTZMANN_J_PER_K, DETECTION_FACTORS, ThermalFit, ThermalFitError, ThermalResult, analyse_thermal_record,
-    calibrate_thermal, fit_thermal_spectrum, invols_from_thermal, oscillator_psd, spring_constant_from_thermal,
-)
+* :mod:`assistant.analysis.calibration` — the cantilever: thermal spectra, Sader, drive sweeps, force curves.
+* :mod:`assistant.analysis.lift_series` — the lift-height series: registration, Laplace continuation, image-mean
+  parts, noise floor, tip change and the recommended lift height (:func:`~.lift_series.analyse_series`).
+
+Importing this package imports no family: each family (and scipy with it) loads only when used.
+"""

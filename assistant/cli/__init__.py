@@ -28,17 +28,14 @@ def main(argv: list[str] | None = None) -> int:
     try:
         handler = getattr(importlib.import_module(f"assistant.cli.{module_name}"), func_name)
         return int(handler(args) or 0)
-    except KeyboardInterrupt:
-        sys.stderr.write("mfma: interrupted; the stage was withdrawn, drive off, bias 0 V\n")
-        return c.EXIT_INTERRUPTED
-    except BrokenPipeError:
-        return c.EXIT_RUNTIME
-    except Exception as exc:  # one line, no traceback; the exit code tells usage from runtime failures
-        code = c.classify(exc)
-        sys.stderr.write(f"mfma: error: {c.one_line(exc)}\n")
-        if getattr(args, "debug", False):
-            raise
-        return code
+    except (Exception, KeyboardInterrupt) as exc:  # one line, no traceback; the exit code says what kind
+        if isinstance(exc, KeyboardInterrupt):
+            sys.stderr.write("mfma: interrupted; the stage was withdrawn, drive off, bias 0 V\n")
+        elif not isinstance(exc, BrokenPipeError):
+            sys.stderr.write(f"mfma: error: {c.one_line(exc)}\n")
+            if getattr(args, "debug", False):
+                raise
+        return c.exit_code(exc)
 
 
 __all__ = ["main", "__version__"]

@@ -1,4 +1,4 @@
-"""Shared pieces of the command line: exit codes, error classification, JSON output, progress on stderr.
+"""Shared pieces of the command line: exit codes, JSON output, progress on stderr.
 
 Only the standard library is imported at module level so that ``mfma --help`` stays fast.
 """
@@ -6,41 +6,46 @@ Only the standard library is imported at module level so that ``mfma --help`` st
 from __future__ import annotations
 
 import argparse
+import functools
 import json
 import math
 import sys
 import time
 from typing import Any
 
+from assistant.errors import AssistantError
+
 EXIT_OK, EXIT_RUNTIME, EXIT_USAGE, EXIT_INTERRUPTED = 0, 1, 2, 130
 
 
-class UsageError(Exception):
+class UsageError(AssistantError, ValueError):
     """Bad input from the user: exit 2 with one line."""
 
 
-class RuntimeFailure(Exception):
-    """The work could not be done: exit 1 with one line."""
+@functools.cache
+def exit_codes() -> tuple[tuple[tuple[type[BaseException], ...], int], ...]:
+    """The one table from an exception escaping a command to the exit code: the first row that matches wins.
 
-
-def classify(exc: BaseException) -> int:
-    """Exit code for an exception escaping a command."""
+    Two roots reach the command line. Every error of the assistant (:class:`assistant.errors.AssistantError`)
+    also derives from the built-in exception of its meaning, and so does every error of the controller layer
+    (:class:`drivers.errors.ControllerError`); the controller root means a runtime failure, apart from bad input
+    and a set-up refused as asked, which are listed before it.
+    """
     from drivers import errors as de
 
-    if isinstance(exc, (UsageError, de.BadURL, de.UnknownScheme, de.LimitExceeded)):
-        return EXIT_USAGE
-    from drivers.keys import KeyFileError
-    from drivers.server import InsecureBind
+    return (
+        ((KeyboardInterrupt,), EXIT_INTERRUPTED),  # the stage was made safe on the way out
+        ((BrokenPipeError,), EXIT_RUNTIME),  # stdout closed by the reader: nothing to report
+        ((de.BadURL, de.UnknownScheme, de.LimitExceeded, de.InsecureBind, de.KeyFileError), EXIT_USAGE),
+        ((de.ControllerError,), EXIT_RUNTIME),
+        ((ValueError, FileNotFoundError, IsADirectoryError, NotADirectoryError, PermissionError), EXIT_USAGE),
+        ((BaseException,), EXIT_RUNTIME),
+    )
 
-    if isinstance(exc, (InsecureBind, KeyFileError)):  # a set-up refused as asked: no keys, a missing key file
-        return EXIT_USAGE
-    if isinstance(exc, de.ControllerError):
-        return EXIT_RUNTIME
-    if isinstance(exc, RuntimeFailure):
-        return EXIT_RUNTIME
-    if isinstance(exc, (ValueError, FileNotFoundError, IsADirectoryError, NotADirectoryError, PermissionError)):
-        return EXIT_USAGE
-    return EXIT_RUNTIME
+
+def exit_code(exc: BaseException) -> int:
+    """Exit code for an exception escaping a command (see :func:`exit_codes`)."""
+    return next(code for types, code in exit_codes() if isinstance(exc, types))
 
 
 def one_line(exc: BaseException) -> str:

@@ -112,7 +112,7 @@ def _load_record(p: Path, rate_hz: float | None):
 
 
 def thermal(args) -> int:
-    from assistant.analysis import thermal as th
+    from assistant.analysis.calibration import analyse_thermal_record, calibrate_thermal
 
     p = _existing(args.file)
     invols = args.invols * 1e-9 if args.invols else None
@@ -126,8 +126,8 @@ def thermal(args) -> int:
         result = _thermal_from_session(p, args, known)
     else:
         volts, rate = _load_record(p, args.rate)
-        fit = th.analyse_thermal_record(volts, rate, temperature_k=args.temperature_k, detection=args.detection).fit
-        result = th.calibrate_thermal(fit, temperature_k=args.temperature_k, detection=args.detection, **known)
+        fit = analyse_thermal_record(volts, rate, temperature_k=args.temperature_k, detection=args.detection).fit
+        result = calibrate_thermal(fit, temperature_k=args.temperature_k, detection=args.detection, **known)
     if args.plot:
         from assistant.report.calibration_figures import write_thermal_figure
 
@@ -170,8 +170,9 @@ def _png_path(text: str) -> Path:
 
 
 def _thermal_from_session(p: Path, args, known: dict):
-    from assistant.analysis import thermal as th
-    from assistant.storage.session_file import SessionFile
+    from assistant.analysis.calibration import calibrate_thermal
+    from assistant.procedures.analyse import stored_thermal_fit
+    from assistant.storage import SessionFile
 
     with SessionFile.open(p, "r") as sf:
         cals = sf.read_calibrations()
@@ -180,15 +181,13 @@ def _thermal_from_session(p: Path, args, known: dict):
     rec = cals[-1]
     if "spectrum_psd_v2_per_hz" not in rec.arrays:
         raise UsageError(f"{p}: the last calibration kept no thermal spectrum")
-    fit = th.fit_thermal_spectrum(rec.arrays["spectrum_frequency_hz"], rec.arrays["spectrum_psd_v2_per_hz"],
-                                  averages=float(rec.scalars["spectrum_segments"]),
-                                  variance_inflation=float(rec.scalars.get("spectrum_variance_inflation", 1.0)))
-    return th.calibrate_thermal(fit, temperature_k=args.temperature_k, detection=args.detection, **known)
+    return calibrate_thermal(stored_thermal_fit(rec), temperature_k=args.temperature_k, detection=args.detection,
+                             **known)
 
 
 # ---- sader ---------------------------------------------------------------------------------------------------
 def sader(args) -> int:
-    from assistant.analysis.sader import sader_spring_constant
+    from assistant.analysis.calibration.sader import sader_spring_constant
 
     r = sader_spring_constant(args.length_um * 1e-6, args.width_um * 1e-6, args.f0_hz, args.q,
                               temperature_k=args.temperature_k, pressure_pa=args.pressure_pa)
@@ -221,7 +220,7 @@ def _load_sweep(p: Path):
 
 
 def sweep(args) -> int:
-    from assistant.analysis.sweep import fit_drive_sweep
+    from assistant.analysis.calibration.sweep import fit_drive_sweep
 
     f, a, ph = _load_sweep(_existing(args.file))
     r = fit_drive_sweep(f, a, ph)

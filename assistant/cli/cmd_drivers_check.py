@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import sys
 
-from assistant.cli._common import UsageError, emit_json, emit_text
+from assistant.cli._common import EXIT_OK, EXIT_RUNTIME, UsageError, emit_json, emit_text
 
 
 def _pace_realtime(url: str) -> str:
@@ -65,7 +65,7 @@ def check(args) -> int:
         summary = (f"{len(result.checks) - len(failed)} of {len(result.checks)} checks passed at level "
                    f"{args.level}" + (f"; failed: {', '.join(failed)}" if failed else ""))
         emit_text(["", summary] + ([result.stopped] if result.stopped else []))
-    return 0 if result.passed else 1
+    return EXIT_OK if result.passed else EXIT_RUNTIME  # a broken promise is a runtime failure of the driver
 
 
 def new(args) -> int:
@@ -79,4 +79,4 @@ def new(args) -> int:
         "",
         f"next: pip install -e {args.directory} ; python -m pytest {args.directory}/tests   (it lists what to fill in)",
         f"then: mfma drivers check {args.name}://ADDRESS --level signals   (nothing moves at this level)"])
-    return 0
+    return EXIT_OK

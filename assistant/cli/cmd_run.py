@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import json
 import os
 from pathlib import Path
 
@@ -96,8 +95,7 @@ def _run(args, limits, progress) -> int:
                 analysis = wf.analyse()
             wf.session.mark_complete()
             wf.session.flush()
-            report = build_report(session_path, report_dir_for(session_path),
-                                  analyses={wf.series_settings.name: analysis}, sink=progress,
+            report = build_report(session_path, report_dir_for(session_path), sink=progress,
                                   per_height_scale=args.per_height_scale)
         except KeyboardInterrupt:
             _stop(ctl)  # Ctrl-C between two steps: no guard was running
@@ -108,44 +106,30 @@ def _run(args, limits, progress) -> int:
 
 
 def _resume(args, limits, progress) -> int:
-    from assistant.procedures.series import SeriesSettings
+    from assistant.procedures.workflow import ResumePlan, Workflow
     from assistant.report.summary import build_report
-    from assistant.procedures.workflow import Workflow, drive_from_json
-    from assistant.storage.session_file import SessionFile
-    from drivers.registry import redact, scheme_of
+    from drivers.registry import scheme_of
 
     path = Path(args.resume)
     if not path.is_file():
         raise UsageError(f"resume file {path} does not exist")
-    with SessionFile.open(path, "r") as sf:  # raises a clear error for files that are not session files
-        names = sf.series_names()
-        if not names:
-            raise UsageError(f"{path} has no series to resume")
-        data = sf.read_series(names[-1])
-        if data.finished:
-            raise UsageError(f"series {names[-1]!r} in {path} is already complete; nothing to resume")
-        stored = json.loads(data.settings_json)
-    drive = drive_from_json(stored.pop("drive"))
-    k, q, t = stored.pop("spring_constant_n_per_m"), stored.pop("quality_factor"), stored.pop("temperature_k")
-    settings = SeriesSettings.from_json(json.dumps(stored))
-    extra = {"pace": args.pace, "line_rate": settings.line_rate_hz} if scheme_of(args.controller) == "sim" else {}
+    plan = ResumePlan.read(path)
+    extra = {"pace": args.pace, "line_rate": plan.series.line_rate_hz} if scheme_of(args.controller) == "sim" else {}
     with open_controller_from_args(args, **extra) as ctl:
-        wf = Workflow(ctl, path, controller_url=redact(args.controller), limits=limits, sink=progress,
-                      fsync=args.fsync, before_write=_writer_hook(ctl))
-        wf._session = SessionFile.open(path, "a")
+        wf = Workflow.resume(ctl, plan, limits=limits, sink=progress, fsync=args.fsync,
+                             before_write=_writer_hook(ctl))
         try:
-            wf.restore_drive(drive, spring_constant_n_per_m=k, quality_factor=q, temperature_k=t)
             from assistant.procedures.events import Notice
 
-            progress(Notice("info", f"resuming {settings.name} at line {data.completed_lines + 1} of {data.lines}"))
+            progress(Notice("info", f"resuming {plan.series.name} at line {plan.completed_lines + 1} of "
+                                    f"{plan.series.lines}"))
             wf.approach()
-            wf.series(settings, resume=True)
+            wf.series(plan.series, resume=True)
             with progress.stage("analysis", "decomposing the series"):
                 analysis = wf.analyse()
             wf.session.mark_complete()
             wf.session.flush()
-            report = build_report(path, report_dir_for(path), analyses={wf.series_settings.name: analysis},
-                                  sink=progress, per_height_scale=args.per_height_scale)
+            report = build_report(path, report_dir_for(path), sink=progress, per_height_scale=args.per_height_scale)
         except KeyboardInterrupt:
             _stop(ctl)
             raise

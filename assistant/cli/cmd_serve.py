@@ -11,7 +11,7 @@ import threading
 def run(args) -> int:
     from drivers.registry import open_controller
     from drivers.server import serve
-    from simulated_stage.faults import FaultPlan
+    from drivers.fault_plan import FaultPlan
 
     options = {"pace": args.pace}
     if args.scenario:

@@ -38,7 +38,7 @@ def _open(path: Path) -> int:
         raise UsageError(f"session file {path} does not exist")
     from assistant.tui.session_view import load_session
 
-    from assistant.storage.session_file import NotASessionFileError
+    from assistant.storage import NotASessionFileError
 
     try:
         stored = load_session(path)

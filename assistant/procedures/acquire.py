@@ -7,12 +7,14 @@ from collections.abc import Callable, Iterator
 
 import numpy as np
 
+from assistant.errors import AssistantError
 from assistant.procedures.events import CancelToken, Progress, Sink, null_sink
 from assistant.procedures.guard import safety_guard
 from drivers.base import Capability, SweepData
+from drivers.errors import ProtocolError
 
 
-class AcquisitionError(ValueError):
+class AcquisitionError(AssistantError, ValueError):
     """Acquisition settings that cannot work (named quantity, value and limit)."""
 
 
@@ -108,5 +110,5 @@ def write_npy_stream(path, chunks: Iterator[np.ndarray], samples: int,
             if on_chunk is not None:
                 on_chunk(chunk)
     if written != samples:
-        raise RuntimeError(f"controller delivered {written} samples, {samples} were requested")
+        raise ProtocolError(f"controller delivered {written} samples, {samples} were requested")
     return written

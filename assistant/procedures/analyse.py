@@ -1,4 +1,5 @@
-"""Run the lift-series decomposition on stored data (a session file or a .npz stack) and store the result."""
+"""Analyses of stored data: the lift-series decomposition of a session file or a .npz stack (stored back into
+the session file), and the refit of a stored thermal spectrum."""
 
 from __future__ import annotations
 
@@ -7,46 +8,32 @@ from pathlib import Path
 
 import numpy as np
 
+from assistant.analysis.calibration import ThermalFit, WelchSpectrum, fit_thermal_spectrum
+from assistant.analysis.lift_series import (ProbeModel, SeriesAnalysis, SeriesInputError, analyse_series,
+                                            first_pass_gap_offset_m)
 from assistant.procedures.events import Notice, Sink, null_sink
 
 DEFAULT_TIP_RADIUS_M = 30e-9  # nominal apex radius of a magnetic-coated tip; a setting, not a measurement
 
 
-class SeriesInputError(ValueError):
-    """The stored series cannot be analysed (missing keys, too few completed lines)."""
-
-
-def _probe_inputs(settings: dict) -> dict:
+def stored_probe(settings: dict, *, line_rate_hz: float | None = None, pixels: int | None = None):
+    """The :class:`ProbeModel` of a series from its stored settings (the drive,
+    k, Q and temperature the workflow kept beside the series settings)."""
     drive = settings.get("drive") or {}
     amp = drive.get("free_amplitude_m")
     ratio = drive.get("setpoint_ratio")
-    out = {"spring_constant_n_per_m": settings.get("spring_constant_n_per_m"),
-           "quality_factor": settings.get("quality_factor"),
-           "temperature_k": settings.get("temperature_k") or 295.15,
-           "resonance_hz": drive.get("frequency_hz")}
-    if amp:
-        out["amplitude_m"] = float(amp)
-        if ratio:
-            # First pass: the feedback holds the oscillation centre one setpoint amplitude above the surface.
-            out["gap_offset_m"] = float(amp) * float(ratio)
-    return out
-
-
-def analyse_arrays(phase_deg: np.ndarray, *, heights_m, pixel_m: float | tuple[float, float], bias_v=None,
-                   repeat_phase_deg=None, line_rate_hz: float | None = None, pixels: int | None = None,
-                   short_range_fraction: float = 0.1, edge: str = "auto", **probe):
-    from assistant.analysis.series import analyse_series
-
-    bandwidth = None
+    fields = {"spring_constant_n_per_m": settings.get("spring_constant_n_per_m"),
+              "quality_factor": settings.get("quality_factor"),
+              "temperature_k": settings.get("temperature_k") or 295.15,
+              "resonance_hz": drive.get("frequency_hz"),
+              "tip_radius_m": DEFAULT_TIP_RADIUS_M}
     if line_rate_hz and pixels:
-        bandwidth = 0.5 * line_rate_hz * pixels  # one pixel dwell 1/(rate*pixels): Nyquist bandwidth
-    kwargs = {k: v for k, v in probe.items() if v is not None}
-    kwargs.setdefault("tip_radius_m", DEFAULT_TIP_RADIUS_M)
-    return analyse_series(np.asarray(phase_deg, dtype=float), heights_m=np.asarray(heights_m, dtype=float),
-                          pixel_m=pixel_m,  # a (row, column) pair: lines and pixels may differ
-                          bias_v=None if bias_v is None else np.asarray(bias_v, dtype=float),
-                          repeat_phase_deg=repeat_phase_deg, bandwidth_hz=bandwidth,
-                          short_range_fraction=short_range_fraction, edge=edge, **kwargs)
+        fields["bandwidth_hz"] = 0.5 * line_rate_hz * pixels  # one pixel dwell 1/(rate*pixels): Nyquist bandwidth
+    if amp:
+        fields["amplitude_m"] = float(amp)
+        if ratio:
+            fields["gap_offset_m"] = first_pass_gap_offset_m(amp, ratio)
+    return ProbeModel(**{k: v for k, v in fields.items() if v is not None})
 
 
 def analyse_session_series(session, name: str | None, *, sink: Sink = null_sink, short_range_fraction: float = 0.1,
@@ -61,18 +48,42 @@ def analyse_session_series(session, name: str | None, *, sink: Sink = null_sink,
     data = session.read_series(name)
     if data.completed_lines < 4:
         raise SeriesInputError(f"series {name!r} has {data.completed_lines} completed lines; need at least 4")
-    settings = json.loads(data.settings_json or "{}")
-    result = analyse_arrays(data.phase_deg, heights_m=data.heights_m,
-                            pixel_m=(data.scan_size_m / data.lines, data.scan_size_m / data.pixels),
-                            bias_v=data.biases_v, repeat_phase_deg=data.repeat_phase_deg,
-                            line_rate_hz=data.line_rate_hz, pixels=data.pixels,
-                            short_range_fraction=short_range_fraction, edge=edge, **_probe_inputs(settings))
+    probe = stored_probe(json.loads(data.settings_json or "{}"), line_rate_hz=data.line_rate_hz, pixels=data.pixels)
+    result = analyse_series(np.asarray(data.phase_deg, dtype=float), heights_m=np.asarray(data.heights_m, dtype=float),
+                            pixel_m=(data.scan_size_m / data.lines, data.scan_size_m / data.pixels),  # lines, pixels
+                            bias_v=None if data.biases_v is None else np.asarray(data.biases_v, dtype=float),
+                            repeat_phase_deg=data.repeat_phase_deg, probe=probe,
+                            short_range_fraction=short_range_fraction, edge=edge)
     if write:
         scalars, arrays = storage_form(result.to_dict())
-        session.write_analysis(name, scalars, arrays)
+        session.write_analysis(name, scalars, arrays, result=result.to_record())
     for text in getattr(result, "messages", ()):
         sink(Notice("info", text))
     return result
+
+
+def stored_series_analysis(session, name: str) -> SeriesAnalysis:
+    """The decomposition of series ``name`` as it was stored with the series; a series that was never analysed
+    (an interrupted run, or a file from before results were kept whole) is decomposed now, without writing."""
+    record = session.read_analysis_result(name)
+    if record is not None:
+        return SeriesAnalysis.from_record(record.scalars, record.arrays)
+    return analyse_session_series(session, name, write=False)
+
+
+def stored_thermal_fit(record) -> ThermalFit:
+    """Refit the thermal spectrum kept with a stored calibration record (its averaged spectrum and how it was
+    averaged), so that a figure or another conversion starts from the fit the calibration came from."""
+    s, a = record.scalars, record.arrays
+    f = a["spectrum_frequency_hz"]
+    # a one-sided spectrum runs from 0 to Nyquist in segment_length / 2 + 1 bins
+    spectrum = WelchSpectrum(f, a["spectrum_psd_v2_per_hz"],
+                             rate_hz=float(s.get("spectrum_rate_hz", 2.0 * f[-1])),
+                             segment_length=int(s.get("spectrum_segment_length", 2 * (f.size - 1))),
+                             n_segments=int(s["spectrum_segments"]),
+                             variance_inflation=float(s.get("spectrum_variance_inflation", 1.0)))
+    return fit_thermal_spectrum(spectrum.frequencies_hz, spectrum.psd_v2_per_hz, averages=spectrum.n_segments,
+                                variance_inflation=spectrum.variance_inflation, spectrum=spectrum)
 
 
 def storage_form(d: dict) -> tuple[dict, dict]:
@@ -137,19 +148,17 @@ def analyse_npz(path: Path, *, short_range_fraction: float = 0.1, edge: str = "a
     def scalar(key: str, factor: float = 1.0):
         return float(get[key]) * factor if key in get else None
 
-    from assistant.analysis.series import analyse_series
-
-    kwargs = {
+    fields = {
         "spring_constant_n_per_m": scalar("spring_constant_n_per_m"), "quality_factor": scalar("quality_factor"),
         "tip_radius_m": scalar("tip_radius_nm", 1e-9) or DEFAULT_TIP_RADIUS_M,
         "amplitude_m": scalar("amplitude_nm", 1e-9), "gap_offset_m": scalar("gap_offset_nm", 1e-9),
         "temperature_k": scalar("temperature_k"), "resonance_hz": scalar("resonance_hz"),
         "bandwidth_hz": scalar("bandwidth_hz"),
     }
-    kwargs = {k: v for k, v in kwargs.items() if v is not None}
+    probe = ProbeModel(**{k: v for k, v in fields.items() if v is not None})
     return analyse_series(np.asarray(get["phase_deg"], dtype=float),
                           heights_m=np.asarray(get["heights_nm"], dtype=float) * 1e-9,
                           pixel_m=_pixel_m(get["pixel_nm"], path),
                           bias_v=np.asarray(get["bias_v"], dtype=float) if "bias_v" in get else None,
-                          repeat_phase_deg=get.get("repeat_phase_deg"),
-                          short_range_fraction=short_range_fraction, edge=edge, **kwargs)
+                          repeat_phase_deg=get.get("repeat_phase_deg"), probe=probe,
+                          short_range_fraction=short_range_fraction, edge=edge)

@@ -8,12 +8,13 @@ from __future__ import annotations
 import time
 from dataclasses import dataclass, field
 
+from assistant.errors import AssistantError
 from assistant.procedures.events import CancelToken, Notice, Progress, Sink, null_sink
 from assistant.procedures.guard import SafetyLimits, safety_guard
 from drivers.base import Capability
 
 
-class NoSurfaceFound(RuntimeError):
+class NoSurfaceFound(AssistantError, RuntimeError):
     """The allowed coarse travel was used up without the amplitude reaching the setpoint."""
 
 

@@ -19,15 +19,15 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from assistant.analysis import thermal as th
-from assistant.analysis.spectra import WelchAccumulator
+from assistant.analysis import calibration as cal
+from assistant.errors import AssistantError
 from assistant.procedures.acquire import drive_sweep, thermal_chunks
 from assistant.procedures.events import CancelToken, Notice, Progress, Sink, null_sink
 from assistant.procedures.guard import SafetyLimits, safety_guard
 
 #: Ratio of true first-mode end displacement to the static-InvOLS reading (Butt & Jaschke 1995):
 #: chi = sqrt(0.970688 / 0.817434) = 1.0897.
-CHI_OPTICAL_LEVER = math.sqrt(th.DETECTION_FACTORS["displacement"] / th.DETECTION_FACTORS["optical-lever"])
+CHI_OPTICAL_LEVER = math.sqrt(cal.DETECTION_FACTORS["displacement"] / cal.DETECTION_FACTORS["optical-lever"])
 
 DEFAULT_TEMPERATURE_K = 295.15  # a typical lab (22 C) when nothing better is known
 
@@ -38,7 +38,7 @@ DISAGREEMENT_CAUSES = ("plan-view dimensions (length, width) off their nominal v
                        "pressure", "laser spot not at the free end", "a damaged or contaminated lever")
 
 
-class CalibrationError(ValueError):
+class CalibrationError(AssistantError, ValueError):
     """Calibration inputs that cannot work (missing dimensions with no other route to k, bad values)."""
 
 
@@ -89,9 +89,9 @@ class DriveSettings:
 
 @dataclass
 class CalibrationResult:
-    thermal: th.ThermalResult
-    sweep: object  # assistant.analysis.sweep fit result
-    sader: object | None  # assistant.analysis.sader result
+    thermal: cal.ThermalResult
+    sweep: object  # assistant.analysis.calibration.sweep fit result
+    sader: object | None  # assistant.analysis.calibration.sader result
     k_n_per_m: float
     k_std_n_per_m: float
     k_source: str
@@ -123,10 +123,10 @@ class CalibrationResult:
         return d
 
 
-def _thermal(controller, settings: CalibrationSettings, *, sink: Sink, cancel: CancelToken) -> th.ThermalFit:
+def _thermal(controller, settings: CalibrationSettings, *, sink: Sink, cancel: CancelToken) -> cal.ThermalFit:
     rate = settings.thermal_rate_hz or min(2e6, controller.limits.sample_rate_max_hz)
     samples = int(round(settings.thermal_seconds * rate))
-    acc = WelchAccumulator(rate, th.default_segment_length(samples))
+    acc = cal.WelchAccumulator(rate, cal.default_segment_length(samples))
     shown = 0.0
     t0 = time.monotonic()
     for chunk in thermal_chunks(controller, seconds=settings.thermal_seconds, rate_hz=rate, sink=sink, cancel=cancel):
@@ -139,8 +139,8 @@ def _thermal(controller, settings: CalibrationSettings, *, sink: Sink, cancel: C
                           data={"frequency_hz": spec.frequencies_hz, "psd_v2_per_hz": spec.psd_v2_per_hz,
                                 "segments": spec.n_segments}))
     spec = acc.result()
-    fit = th.fit_thermal_spectrum(spec.frequencies_hz, spec.psd_v2_per_hz, averages=spec.n_segments,
-                                  variance_inflation=spec.variance_inflation, spectrum=spec)
+    fit = cal.fit_thermal_spectrum(spec.frequencies_hz, spec.psd_v2_per_hz, averages=spec.n_segments,
+                                   variance_inflation=spec.variance_inflation, spectrum=spec)
     sink(Progress("thermal fit", 1, 1, "fit", time.monotonic() - t0,
                   data={"frequency_hz": fit.frequencies_hz, "psd_v2_per_hz": fit.psd_v2_per_hz,
                         "model_v2_per_hz": fit.model(fit.frequencies_hz), "f0_hz": fit.f0_hz, "q": fit.q}))
@@ -148,12 +148,10 @@ def _thermal(controller, settings: CalibrationSettings, *, sink: Sink, cancel: C
 
 
 def _sweep(controller, settings: CalibrationSettings, f0_hz: float, q: float, *, sink: Sink, cancel: CancelToken):
-    from assistant.analysis import sweep as sw
-
     half_width = 6.0 * f0_hz / q
     freqs = np.linspace(f0_hz - half_width, f0_hz + half_width, settings.sweep_points)
     data = drive_sweep(controller, freqs, settings.sweep_drive_v, sink=sink, cancel=cancel)
-    fit = sw.fit_drive_sweep(data.frequency_hz, data.amplitude_v, data.phase_deg)
+    fit = cal.fit_drive_sweep(data.frequency_hz, data.amplitude_v, data.phase_deg)
     sink(Progress("sweep fit", 1, 1, "fit", 0.0, data={"frequency_hz": data.frequency_hz,
                                                        "amplitude_v": data.amplitude_v, "phase_deg": data.phase_deg,
                                                        "f0_hz": fit.f0_hz, "q": fit.q}))
@@ -172,8 +170,6 @@ def _dimensions(controller, settings: CalibrationSettings) -> tuple[float | None
 def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits | None = None,
               sink: Sink = null_sink, cancel: CancelToken | None = None) -> CalibrationResult:
     """Run the whole calibration on a withdrawn stage. Runs inside the safety guard."""
-    from assistant.analysis import sader as sd
-    from assistant.analysis import sweep as sw
 
     settings.validate()
     limits = limits or SafetyLimits()
@@ -198,7 +194,7 @@ def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits
             note("warning", f"thermal fit: {w}")
         cancel.raise_if_set()
         sweep_data, sweep_fit = _sweep(controller, settings, fit.f0_hz, fit.q, sink=sink, cancel=cancel)
-        qc = sw.compare_q(sweep_fit, fit)
+        qc = cal.compare_q(sweep_fit, fit)
         if not qc.consistent:
             note("warning", f"Q from the sweep ({sweep_fit.q:.1f} ± {sweep_fit.q_std:.1f}) and from the thermal "
                             f"spectrum ({fit.q:.1f} ± {fit.q_std:.1f}) differ by {abs(qc.z_score):.1f} σ")
@@ -209,9 +205,9 @@ def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits
         length, width, dim_source = _dimensions(controller, settings)
         sader = None
         if length and width:
-            sader = sd.sader_spring_constant(length_m=length, width_m=width, f0_hz=fit.f0_hz, q=fit.q,
-                                             f0_std_hz=fit.f0_std_hz, q_std=fit.q_std,
-                                             temperature_k=settings.temperature_k, pressure_pa=settings.pressure_pa)
+            sader = cal.sader_spring_constant(length_m=length, width_m=width, f0_hz=fit.f0_hz, q=fit.q,
+                                              f0_std_hz=fit.f0_std_hz, q_std=fit.q_std,
+                                              temperature_k=settings.temperature_k, pressure_pa=settings.pressure_pa)
             for w in sader.warnings:
                 note("warning", f"Sader: {w}")
             note("info", f"Sader k = {sader.k_n_per_m:.4g} ± {sader.k_std_n_per_m:.2g} N/m "
@@ -230,9 +226,9 @@ def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits
         check = None
         if user_invols:
             source_inv = "force curve (contact)" if contact is not None else "entered by the user"
-            thermal_k = thermal_result = th.calibrate_thermal(fit, temperature_k=settings.temperature_k,
-                                                              invols_m_per_v=user_invols,
-                                                              invols_std_m_per_v=user_invols_std)
+            thermal_k = thermal_result = cal.calibrate_thermal(fit, temperature_k=settings.temperature_k,
+                                                               invols_m_per_v=user_invols,
+                                                               invols_std_m_per_v=user_invols_std)
             invols, invols_std, invols_source = user_invols, user_invols_std, source_inv
             if sader is not None:
                 k, k_std, k_source = sader.k_n_per_m, sader.k_std_n_per_m, "Sader method"
@@ -252,8 +248,8 @@ def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits
                 k, k_std, k_source = thermal_k.k_n_per_m, thermal_k.k_std_n_per_m, "thermal (with that InvOLS)"
         elif sader is not None:
             k, k_std, k_source = sader.k_n_per_m, sader.k_std_n_per_m, "Sader method"
-            thermal_result = th.calibrate_thermal(fit, temperature_k=settings.temperature_k, k_n_per_m=k,
-                                                  k_std_n_per_m=k_std)
+            thermal_result = cal.calibrate_thermal(fit, temperature_k=settings.temperature_k, k_n_per_m=k,
+                                                   k_std_n_per_m=k_std)
             invols, invols_std = thermal_result.invols_m_per_v, thermal_result.invols_std_m_per_v
             invols_source = "non-contact: thermal peak area with the Sader k (Higgins et al. 2006)"
             note("info", "non-contact path: k from Sader, InvOLS from the thermal spectrum — one k, no "
@@ -278,15 +274,14 @@ def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits
 def _drive_setup(controller, settings: CalibrationSettings, sweep_fit, invols_m_per_v: float, *,
                  limits: SafetyLimits) -> DriveSettings:
     """Drive amplitude for the requested free amplitude, through the sweep's response and InvOLS."""
-    from assistant.analysis import sweep as sw
 
     invols_dynamic = invols_m_per_v * CHI_OPTICAL_LEVER  # volts -> true first-mode displacement
-    frequency = sw.drive_frequency(sweep_fit)
-    response = sw.sweep_response_v_per_v(sweep_fit, frequency, drive_amplitude_v=settings.sweep_drive_v)
+    frequency = cal.drive_frequency(sweep_fit)
+    response = cal.sweep_response_v_per_v(sweep_fit, frequency, drive_amplitude_v=settings.sweep_drive_v)
     max_drive = min(limits.drive_amplitude_max_v, controller.limits.drive_max_v)
     try:
-        drive_v = sw.drive_amplitude_for_free_amplitude(settings.free_amplitude_m, invols_m_per_v=invols_dynamic,
-                                                        response_v_per_v=response, max_drive_v=max_drive)
+        drive_v = cal.drive_amplitude_for_free_amplitude(settings.free_amplitude_m, invols_m_per_v=invols_dynamic,
+                                                         response_v_per_v=response, max_drive_v=max_drive)
     except ValueError as exc:
         raise CalibrationError(str(exc)) from None
     controller.set_drive(frequency, drive_v)
@@ -297,7 +292,7 @@ def _drive_setup(controller, settings: CalibrationSettings, sweep_fit, invols_m_
     phase_ref = float(np.mean([r["phase_deg"] for r in reads]))
     return DriveSettings(frequency_hz=frequency, amplitude_v=drive_v, free_amplitude_v=free_v,
                          free_amplitude_m=free_v * invols_dynamic,
-                         setpoint_v=sw.setpoint_from_ratio(free_v, settings.setpoint_ratio),
+                         setpoint_v=cal.setpoint_from_ratio(free_v, settings.setpoint_ratio),
                          setpoint_ratio=settings.setpoint_ratio,
                          phase_reference_deg=phase_ref)
 
@@ -305,7 +300,6 @@ def _drive_setup(controller, settings: CalibrationSettings, sweep_fit, invols_m_
 def _contact_invols(controller, settings: CalibrationSettings, sweep_fit, *, limits: SafetyLimits, sink: Sink,
                     cancel: CancelToken):
     """Approach, take force curves on the surface, fit the contact slope, withdraw."""
-    from assistant.analysis import force_curve as fc
     from assistant.procedures.approach import ApproachSettings, approach
     from drivers.base import Capability
 
@@ -320,7 +314,7 @@ def _contact_invols(controller, settings: CalibrationSettings, sweep_fit, *, lim
     controller.drive_off()
     z_now = controller.status().z_m
     curve = controller.force_curve(min(z_now + 150e-9, controller.limits.z_range_m), 400)
-    result = fc.contact_invols(curve.z_m, curve.deflection_v, retract_z_m=curve.retract_z_m,
-                               retract_deflection_v=curve.retract_deflection_v)
+    result = cal.contact_invols(curve.z_m, curve.deflection_v, retract_z_m=curve.retract_z_m,
+                                retract_deflection_v=curve.retract_deflection_v)
     controller.withdraw()
     return result

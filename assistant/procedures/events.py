@@ -11,6 +11,8 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
 
+from assistant.errors import AssistantError
+
 
 @dataclass(frozen=True)
 class Progress:
@@ -44,7 +46,7 @@ def null_sink(event: Event) -> None:
     """A sink that discards everything."""
 
 
-class Cancelled(Exception):
+class Cancelled(AssistantError):
     """Raised inside a procedure when its cancel token was set."""
 
 

@@ -15,14 +15,15 @@ from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
 
+from assistant.errors import AssistantError
 from assistant.procedures.events import Notice, Sink, null_sink
 
 
-class SafetyError(RuntimeError):
+class SafetyError(AssistantError, RuntimeError):
     """A software safety limit would be crossed (the message names quantity, value and limit)."""
 
 
-class LimitsFileError(ValueError):
+class LimitsFileError(AssistantError, ValueError):
     """The limits file is unreadable or names an unknown key or an impossible value."""
 
 

@@ -14,14 +14,16 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
+from assistant.errors import AssistantError
 from assistant.procedures.events import CancelToken, Notice, Progress, Sink, null_sink
 from assistant.procedures.guard import SafetyLimits, safety_guard
 from drivers.base import Capability, LineData, LineSpec, PassData, SecondPass
+from drivers.errors import ProtocolError
 
 DEFAULT_HEIGHTS_M = (10e-9, 15e-9, 20e-9, 30e-9, 50e-9, 75e-9, 100e-9)
 
 
-class SeriesSettingsError(ValueError):
+class SeriesSettingsError(AssistantError, ValueError):
     """The series settings are inconsistent or outside a limit."""
 
 
@@ -93,12 +95,17 @@ class SeriesSettings:
         if not self.line_rate_hz > 0:
             raise SeriesSettingsError(f"line rate {self.line_rate_hz:g} Hz must be positive")
 
+    def to_dict(self) -> dict:
+        """Every field, as stored in the session file (JSON types)."""
+        return asdict(self)
+
     def to_json(self) -> str:
-        return json.dumps(asdict(self))
+        return json.dumps(self.to_dict())
 
     @classmethod
-    def from_json(cls, text: str) -> "SeriesSettings":
-        d = json.loads(text)
+    def from_dict(cls, d: dict) -> "SeriesSettings":
+        """The settings :meth:`to_dict` gave (lists become tuples again)."""
+        d = dict(d)
         d["heights_m"] = tuple(d["heights_m"])
         if d.get("biases_v") is not None:
             d["biases_v"] = tuple(d["biases_v"])
@@ -166,7 +173,7 @@ def _arrange(settings: SeriesSettings, data: LineData) -> tuple[np.ndarray, np.n
     nh = len(settings.heights_m)
     expected = nh * nb + (1 if settings.repeat_first else 0)
     if len(data.passes) != expected:
-        raise RuntimeError(f"controller returned {len(data.passes)} second passes, expected {expected}")
+        raise ProtocolError(f"controller returned {len(data.passes)} second passes, expected {expected}")
     ref = settings.phase_reference_deg
     phase = np.array([p.phase_deg for p in data.passes[: nh * nb]], dtype=float) - ref
     amp = np.array([p.amplitude_v for p in data.passes[: nh * nb]], dtype=float)

@@ -3,7 +3,7 @@ from the session file, with ``assistant.report.summary.build_report``).
 
 The command line (``mfma run``) calls the steps in order; the terminal UI calls them one at a time from its
 views. Both go through this class, so there is one code path. Each step writes what it measured to the
-session file before returning.
+session file before returning. An interrupted session is continued with :meth:`Workflow.resume`.
 """
 
 from __future__ import annotations
@@ -15,6 +15,7 @@ from datetime import datetime, timezone
 from pathlib import Path
 
 from assistant import __version__
+from assistant.errors import AssistantError
 from assistant.procedures.approach import ApproachResult, ApproachSettings, approach
 from assistant.procedures.calibrate import CalibrationResult, CalibrationSettings, DriveSettings, calibrate
 from assistant.procedures.events import CancelToken, Notice, Sink, null_sink
@@ -22,8 +23,40 @@ from assistant.procedures.guard import SafetyLimits, safety_guard
 from assistant.procedures.series import SeriesResult, SeriesSettings, run_series
 
 
-class WorkflowError(RuntimeError):
+#: What the workflow stores beside the series settings, so that a resume needs no new calibration.
+CALIBRATION_KEYS = ("drive", "spring_constant_n_per_m", "quality_factor", "temperature_k")
+
+
+class WorkflowError(AssistantError, RuntimeError):
     """A step was asked for before the step it needs (e.g. a series before the approach)."""
+
+
+@dataclass(frozen=True)
+class ResumePlan:
+    """What continuing an interrupted session needs, read from its file before any controller is opened: the
+    unfinished series' settings and the calibration stored with them."""
+
+    path: Path
+    series: SeriesSettings
+    completed_lines: int
+    drive: DriveSettings
+    spring_constant_n_per_m: float
+    quality_factor: float
+    temperature_k: float
+
+    @classmethod
+    def read(cls, path: str | Path) -> "ResumePlan":
+        """Read the plan; a file without series or with its last series finished is refused."""
+        from assistant.storage import SessionFile, resume_point
+
+        with SessionFile.open(path, "r") as sf:  # raises a clear error for files that are not session files
+            point = resume_point(sf)
+        stored = point.settings
+        return cls(path=Path(path), completed_lines=point.completed_lines,
+                   series=SeriesSettings.from_dict({k: v for k, v in stored.items() if k not in CALIBRATION_KEYS}),
+                   drive=DriveSettings(**{k: float(v) for k, v in stored["drive"].items()}),
+                   spring_constant_n_per_m=stored["spring_constant_n_per_m"],
+                   quality_factor=stored["quality_factor"], temperature_k=stored["temperature_k"])
 
 
 @dataclass
@@ -104,13 +137,20 @@ class Workflow:
                 self.sink(Notice("warning", f"probe record: {w}"))
         return result
 
-    def restore_drive(self, drive: DriveSettings, *, spring_constant_n_per_m: float, quality_factor: float,
-                      temperature_k: float) -> None:
-        """Use a stored calibration (resume) instead of calibrating again."""
-        self.drive = drive
-        self.spring_constant_n_per_m = spring_constant_n_per_m
-        self.quality_factor = quality_factor
-        self.temperature_k = temperature_k
+    @classmethod
+    def resume(cls, controller, plan: ResumePlan, **options) -> "Workflow":
+        """A workflow that continues the session of ``plan`` (:meth:`ResumePlan.read`): its file reopened for
+        writing, the stored drive, k, Q and temperature instead of a new calibration. Go on with
+        :meth:`approach` and ``series(plan.series, resume=True)``. ``options`` as for the constructor."""
+        from assistant.storage import SessionFile
+
+        wf = cls(controller, plan.path, **options)
+        wf._session = SessionFile.open(plan.path, "a", fsync=wf.fsync)
+        wf.drive = plan.drive
+        wf.spring_constant_n_per_m = plan.spring_constant_n_per_m
+        wf.quality_factor = plan.quality_factor
+        wf.temperature_k = plan.temperature_k
+        return wf
 
     def approach(self) -> ApproachResult:
         if self.drive is None:
@@ -136,12 +176,14 @@ class Workflow:
                           scan_size_max_m=self.controller.limits.scan_size_max_m)
         self.series_settings = settings
         if resume:
-            writer = self.session.open_series_for_resume(settings.name, before_write=self.before_write)
+            from assistant.storage import resume_writer
+
+            writer = resume_writer(self.session, settings.name, before_write=self.before_write)
         else:
             writer = self.session.create_series(
                 settings.name, heights_m=settings.heights_m, biases_v=settings.biases_v, lines=settings.lines,
                 pixels=settings.pixels, scan_size_m=settings.scan_size_m, line_rate_hz=settings.line_rate_hz,
-                order=settings.order, repeat_first=settings.repeat_first, settings_json=self._settings_json(settings),
+                order=settings.order, repeat_first=settings.repeat_first, settings_json=self._stored_settings(settings),
                 before_write=self.before_write)
         start = writer.completed_lines
         res = run_series(self.controller, settings, writer, limits=self.limits, sink=self.sink, cancel=self.cancel,
@@ -149,14 +191,11 @@ class Workflow:
         self.series_result = res
         return res
 
-    def _settings_json(self, settings: SeriesSettings) -> str:
-        d = json.loads(settings.to_json())
-        if self.drive is not None:
-            d["drive"] = self.drive.__dict__
-        d["spring_constant_n_per_m"] = self.spring_constant_n_per_m
-        d["quality_factor"] = self.quality_factor
-        d["temperature_k"] = self.temperature_k
-        return json.dumps(d)
+    def _stored_settings(self, settings: SeriesSettings) -> str:
+        """The series settings and the calibration they were taken with, as the session file keeps them."""
+        drive = {"drive": dataclasses.asdict(self.drive)} if self.drive is not None else {}
+        return json.dumps({**settings.to_dict(), **drive, "spring_constant_n_per_m": self.spring_constant_n_per_m,
+                           "quality_factor": self.quality_factor, "temperature_k": self.temperature_k})
 
     def analyse(self, name: str | None = None):
         """Decompose the series (from the session file, so a resumed or reopened session works the same)."""
@@ -179,7 +218,3 @@ def calibration_scalars(result: CalibrationResult, probe_name: str | None, *, no
     d["probe_name"] = probe_name or "unnamed"
     d["calibrated_utc"] = (now or datetime.now(timezone.utc)).isoformat(timespec="seconds")
     return d
-
-
-def drive_from_json(d: dict) -> DriveSettings:
-    return DriveSettings(**{k: float(v) for k, v in d.items()})

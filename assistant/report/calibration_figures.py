@@ -11,8 +11,8 @@ import numpy as np
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
-from assistant.analysis.sweep import SweepResult
-from assistant.analysis.thermal import ThermalResult
+from assistant.analysis.calibration.sweep import SweepResult
+from assistant.analysis.calibration.thermal import ThermalResult
 from assistant.formatting import number, quantity
 
 __all__ = ["sweep_figure", "thermal_figure", "write_sweep_figure", "write_thermal_figure"]

@@ -1,10 +1,7 @@
 """Topography and phase images of a lift-height series (matplotlib object API on the Agg canvas).
 
-Phase uses one diverging map, built here in CIELAB, on a single scale shared by every lift height and centred
-on zero. Its lightness rises steadily from the most negative to the most positive value, so an attractive
-(negative) phase is *dark*, as the trade reads MFM images; the two signs also differ in hue (blue below zero,
-yellow ochre above) with the chroma growing with |phase|, and zero is a neutral grey. Lightness and chroma change
-linearly, so equal steps in phase are equal steps in CIELAB colour difference on each side of zero.
+Phase uses the project's diverging map (:mod:`assistant.report.colours`) on a single scale shared by every lift
+height and centred on zero, dark = negative = attractive.
 Topography uses matplotlib's perceptually uniform sequential ``viridis``, whose green-teal middle keeps it
 from being mistaken for a phase image.
 Pixels without data (lines not yet scanned, NaN readings) are left transparent over a grey hatch.
@@ -24,43 +21,14 @@ from matplotlib.colors import Colormap, ListedColormap, Normalize
 from matplotlib.figure import Figure
 from matplotlib.patches import Rectangle
 
-# CIE 1931 XYZ of the D65 white and the XYZ -> linear sRGB matrix, IEC 61966-2-1:1999 (sRGB).
-_WHITE_D65 = np.array([0.95047, 1.0, 1.08883])
-_XYZ_TO_SRGB = np.array([[3.2406, -1.5372, -0.4986], [-0.9689, 1.8758, 0.0415], [0.0557, -0.2040, 1.0570]])
-
-PHASE_L_RANGE = (20.0, 90.0)  # CIELAB lightness at -limit and +limit
-PHASE_HUES_DEG = (290.0, 90.0)  # CIELAB hue angle below zero (blue) and above (yellow ochre)
-PHASE_CHROMA_MAX = 42.0  # chroma at +-limit, just inside the sRGB gamut on both sides (44 is the edge)
-
-
-def lab_to_srgb(lab: np.ndarray) -> np.ndarray:
-    """CIELAB (D65) to gamma-encoded sRGB in [0, 1] before clipping; shape (..., 3) in and out.
-
-    CIE 15:2004 (CIELAB inverse) and IEC 61966-2-1:1999 (sRGB primaries and transfer function).
-    """
-    lab = np.asarray(lab, dtype=np.float64)
-    fy = (lab[..., 0] + 16.0) / 116.0
-    f = np.stack([fy + lab[..., 1] / 500.0, fy, fy - lab[..., 2] / 200.0], axis=-1)
-    delta = 6.0 / 29.0
-    xyz = np.where(f > delta, f**3, 3 * delta**2 * (f - 4.0 / 29.0)) * _WHITE_D65
-    linear = xyz @ _XYZ_TO_SRGB.T
-    return np.where(linear <= 0.0031308, 12.92 * linear, 1.055 * np.abs(linear) ** (1 / 2.4) * np.sign(linear)
-                    - 0.055)
-
-
-def phase_lab(n: int = 256) -> np.ndarray:
-    """The CIELAB colours of the phase map, from -limit to +limit; shape (n, 3)."""
-    t = np.linspace(-1.0, 1.0, n)
-    lo, hi = PHASE_L_RANGE
-    lightness = 0.5 * (lo + hi) + 0.5 * (hi - lo) * t
-    chroma = PHASE_CHROMA_MAX * np.abs(t)
-    hue = np.radians(np.where(t < 0, PHASE_HUES_DEG[0], PHASE_HUES_DEG[1]))
-    return np.stack([lightness, chroma * np.cos(hue), chroma * np.sin(hue)], axis=-1)
+from assistant.errors import InputError
+from assistant.report.colours import phase_rgb, symmetric_limit
 
 
 def phase_colormap(n: int = 256) -> Colormap:
-    """Diverging map for phase: dark blue (negative, attractive), grey at zero, light yellow ochre (positive)."""
-    cmap = ListedColormap(np.clip(lab_to_srgb(phase_lab(n)), 0.0, 1.0), name="mfma_phase")
+    """The phase map (:mod:`assistant.report.colours`) for matplotlib: dark blue (negative, attractive), grey at
+    zero, light yellow ochre (positive); pixels without data transparent."""
+    cmap = ListedColormap(phase_rgb(n), name="mfma_phase")
     return cmap.with_extremes(bad=(0.0, 0.0, 0.0, 0.0))
 
 
@@ -120,14 +88,6 @@ def topography_figure(topography_m: np.ndarray, *, scan_size_m: float, lines: in
     return fig
 
 
-def shared_phase_limit(images: Sequence[np.ndarray]) -> float:
-    """Half-range of the shared phase scale: the 99.5th percentile of |phase| over all images (deg)."""
-    values = np.concatenate([np.abs(np.asarray(a, dtype=np.float64)).ravel() for a in images])
-    values = values[np.isfinite(values)]
-    limit = float(np.percentile(values, 99.5)) if values.size else 0.0
-    return limit if limit > 0 else 1.0
-
-
 def phase_figure(phase_deg: np.ndarray, *, heights_m: Sequence[float], scan_size_m: float,
                  repeat_phase_deg: np.ndarray | None = None, lines: int | None = None,
                  limit_deg: float | None = None, title: str = "Phase", per_height_scale: bool = False) -> Figure:
@@ -139,11 +99,11 @@ def phase_figure(phase_deg: np.ndarray, *, heights_m: Sequence[float], scan_size
     """
     stack = np.asarray(phase_deg, dtype=np.float64)
     if stack.ndim != 3 or stack.shape[0] != len(heights_m):
-        raise ValueError(f"phase_deg must have shape (heights={len(heights_m)}, lines, pixels), got {stack.shape}")
+        raise InputError(f"phase_deg must have shape (heights={len(heights_m)}, lines, pixels), got {stack.shape}")
     panels = [(_padded(img, lines), f"lift {h * 1e9:.4g} nm") for img, h in zip(stack, heights_m)]
     if repeat_phase_deg is not None:
         panels.append((_padded(repeat_phase_deg, lines), f"lift {heights_m[0] * 1e9:.4g} nm, repeat"))
-    limit = limit_deg if limit_deg is not None else shared_phase_limit([p for p, _ in panels])
+    limit = limit_deg if limit_deg is not None else symmetric_limit([p for p, _ in panels])
     norm = Normalize(-limit, limit)
     if per_height_scale:
         return _per_height_figure(panels, scan_size_m=scan_size_m, title=title)
@@ -184,7 +144,7 @@ def _per_height_figure(panels, *, scan_size_m: float, title: str) -> Figure:
             ax.set_axis_off()
             continue
         image, label = panels[k]
-        limit = shared_phase_limit([image])
+        limit = symmetric_limit(image)
         im = _draw(ax, image, size_um=scan_size_m * 1e6, cmap=cmap, norm=Normalize(-limit, limit))
         ax.set_title(label, fontsize=10)
         ax.set_xlabel("x (µm)")

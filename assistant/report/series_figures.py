@@ -5,7 +5,7 @@
 * ``magnetic_figure``: magnetic rms against height with its error bars, the noise of each height and the
   shortest resolved period;
 * ``maps_figure``: the denoised magnetic image at the lowest, middle and highest height, the continuation
-  residual at the lowest height and, with a repeated first pass, the change map. Phase maps use the report's
+  residual at the lowest height and, with a repeated first pass, the change map. Phase maps use the project's
   CIELAB diverging map (dark = negative = attractive, neutral grey at zero) on a scale centred on zero.
 
 The recommendation is in every figure's title and in a text box of the mean figure.
@@ -22,7 +22,8 @@ from matplotlib.colors import ListedColormap, Normalize
 from matplotlib.figure import Figure
 from matplotlib.patches import Rectangle
 
-from assistant.analysis.series import SeriesAnalysis
+from assistant.analysis.lift_series import SeriesAnalysis
+from assistant.report.colours import symmetric_limit
 from assistant.report.images import phase_colormap, save_png
 
 __all__ = ["mean_figure", "magnetic_figure", "maps_figure", "series_figures", "write_series_figures",
@@ -129,13 +130,6 @@ def _map_panel(fig, ax, image, *, size_um, title, cmap, limit, label):
     fig.colorbar(im, ax=ax, label=label, shrink=0.85)
 
 
-def _limit(img) -> float:
-    v = np.abs(np.asarray(img, float))
-    v = v[np.isfinite(v)]
-    lim = float(np.percentile(v, 99.5)) if v.size else 0.0
-    return lim if lim > 0 else 1.0
-
-
 def maps_figure(a: SeriesAnalysis, *, per_height_scale: bool = False) -> Figure:
     """Magnetic maps (deg) at three heights, the residual at the lowest height and the change map if any; a
     dashed frame marks the interior that the residual (and, reflected-edge fit, the magnetic rms) is judged on.
@@ -160,10 +154,10 @@ def maps_figure(a: SeriesAnalysis, *, per_height_scale: bool = False) -> Figure:
     r, c = a.magnetic_deg.shape[-2:]
     size_um = (r * a.pixel_m[0] * 1e6, c * a.pixel_m[1] * 1e6)
     cmap = phase_colormap()
-    mag_limit = max(_limit(p[0]) for p in panels[:len(picks)])
+    mag_limit = max(symmetric_limit(p[0]) for p in panels[:len(picks)])
     b = a.edge_band_px
     for k, (img, title, label) in enumerate(panels):
-        lim = (_limit(img) if per_height_scale else mag_limit) if k < len(picks) else _limit(img)
+        lim = (symmetric_limit(img) if per_height_scale else mag_limit) if k < len(picks) else symmetric_limit(img)
         _map_panel(fig, axes[k], img, size_um=size_um, title=title, cmap=cmap, limit=lim, label=label)
         if b and k <= len(picks):  # the interior over which the magnetic rms and the residual are judged
             y0, x0 = b * a.pixel_m[0] * 1e6, b * a.pixel_m[1] * 1e6

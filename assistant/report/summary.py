@@ -1,29 +1,27 @@
 """The session report: PNG figures and ``summary.md`` with every stored number, its unit and uncertainty.
 
-Figures of the calibration and of the decomposition come from ``assistant.report.calibration_figures`` and
-``assistant.report.series_figures``. Each is used through ``figures_from_session(session, out_dir) ->
-list[Path]`` when it offers that; otherwise through the figure functions it is known to offer
-(``write_thermal_figure`` or ``thermal_figure``, ``write_sweep_figure`` or ``sweep_figure``,
-``write_series_figures``). A missing module or a failing figure is written down as a note in the summary
-instead of stopping the report.
+Everything comes from the session file. Figures of the calibration are drawn by
+:mod:`assistant.report.calibration_figures` from the stored spectrum and sweep (refitted, as the calibration
+fitted them); figures of the decomposition by :mod:`assistant.report.series_figures` from the decomposition
+stored with each series, or, for a series never analysed (an interrupted run), from a decomposition computed
+now and not written. A failing figure is written down as a note in the summary instead of stopping the report.
 """
 
 from __future__ import annotations
 
-import importlib
 import os
 import time
-from collections.abc import Callable, Mapping
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
-
-import numpy as np
 
 from assistant.formatting import yes_no
 from assistant.procedures.events import Progress, Sink, null_sink
 from assistant.report import sections
+from assistant.report.calibration_figures import write_sweep_figure, write_thermal_figure
 from assistant.report.images import phase_figure, remove_plane, save_png, topography_figure
-from assistant.storage.session_file import Record, SeriesData, SessionFile
+from assistant.report.series_figures import write_series_figures
+from assistant.storage import Record, SeriesData, SessionFile
 
 
 @dataclass(frozen=True)
@@ -63,134 +61,81 @@ def _series_images(data: SeriesData, out_dir: Path, *, per_height_scale: bool = 
     return paths
 
 
-# ---- colleagues' figure modules -------------------------------------------------------------------------------
-def _import_figures(module: str, notes: list[str]):
-    name = f"assistant.report.{module}"
+# ---- figures of the calibration and of the decomposition --------------------------------------------------
+def _figures(what: str, notes: list[str], write: Callable[[], Path | list[Path]]) -> list[Path]:
+    """The files a figure writer wrote (sorted), or none and a note when it failed: one figure must not cost the
+    whole report."""
     try:
-        return importlib.import_module(name)
-    except ModuleNotFoundError as exc:
-        if exc.name != name:
-            raise
-        notes.append(f"{name} is not installed: its figures were skipped")
-        return None
-
-
-def _new_files(directory: Path, action: Callable[[], object], what: str, notes: list[str]) -> list[Path]:
-    """Run a figure writer; the files it added under ``directory`` (whatever it returns), or a note on failure."""
-    def stamps() -> dict[Path, int]:
-        return {p: p.stat().st_mtime_ns for p in directory.rglob("*") if p.is_file()}
-
-    before = stamps()
-    try:
-        action()
-    except Exception as exc:  # one figure must not cost the whole report; the note says what went wrong
+        written = write()
+    except Exception as exc:
         notes.append(f"{what} failed: {type(exc).__name__}: {exc}")
-    return sorted(p for p, stamp in stamps().items() if before.get(p) != stamp)  # new or rewritten
-
-
-def _figure_writer(mod, base: str) -> Callable[[object, Path], object] | None:
-    """``write_<base>(result, path)`` if the module has it, else ``<base>(result) -> Figure`` saved as PNG."""
-    if hasattr(mod, f"write_{base}"):
-        return getattr(mod, f"write_{base}")
-    if hasattr(mod, base):
-        return lambda result, path: save_png(getattr(mod, base)(result), path)
-    return None
+        return []
+    return sorted([written] if isinstance(written, Path) else written)
 
 
 def _calibration_figures(session: SessionFile, out_dir: Path, notes: list[str]) -> list[Path]:
-    mod = _import_figures("calibration_figures", notes)
-    if mod is None:
-        return []
-    if hasattr(mod, "figures_from_session"):
-        return _new_files(out_dir, lambda: mod.figures_from_session(session, out_dir), "calibration figures", notes)
+    from assistant.analysis.calibration import fit_drive_sweep
+
     paths: list[Path] = []
     cals = session.read_calibrations()
-    thermal = _figure_writer(mod, "thermal_figure")
-    if cals and thermal is not None and "spectrum_psd_v2_per_hz" in cals[-1].arrays:
-        paths += _new_files(out_dir, lambda: thermal(_thermal_result(cals[-1]), out_dir / "thermal.png"),
-                            "thermal spectrum figure", notes)
+    if cals and "spectrum_psd_v2_per_hz" in cals[-1].arrays:
+        paths += _figures("thermal spectrum figure", notes,
+                          lambda: write_thermal_figure(_thermal_result(cals[-1]), out_dir / "thermal.png"))
     resonance = session.read_resonance()
-    sweep = _figure_writer(mod, "sweep_figure")
-    if resonance is not None and sweep is not None and "frequency_hz" in resonance.arrays:
-        def write_sweep() -> None:
-            from assistant.analysis.sweep import fit_drive_sweep
-
-            a = resonance.arrays
-            sweep(fit_drive_sweep(a["frequency_hz"], a["amplitude_v"], a["phase_deg"]), out_dir / "sweep.png")
-        paths += _new_files(out_dir, write_sweep, "resonance sweep figure", notes)
+    if resonance is not None and "frequency_hz" in resonance.arrays:
+        a = resonance.arrays
+        paths += _figures("resonance sweep figure", notes, lambda: write_sweep_figure(
+            fit_drive_sweep(a["frequency_hz"], a["amplitude_v"], a["phase_deg"]), out_dir / "sweep.png"))
     return paths
 
 
 def _thermal_result(record: Record):
-    """Refit the stored thermal spectrum so the calibration figure shows the fit the numbers came from.
+    """The stored calibration's thermal result, refitted so the figure shows the fit the numbers came from.
 
     The route of the stored calibration is kept: on the non-contact path k came from Sader and InvOLS from this
     spectrum, so the figure converts with that k (showing a thermal k there would be circular).
     """
-    from assistant.analysis import thermal as th
-    from assistant.analysis.spectra import WelchSpectrum
+    from assistant.analysis.calibration import calibrate_thermal
+    from assistant.procedures.analyse import stored_thermal_fit
 
-    s, a = record.scalars, record.arrays
-    f = a["spectrum_frequency_hz"]
-    # a one-sided spectrum runs from 0 to Nyquist in segment_length / 2 + 1 bins
-    spectrum = WelchSpectrum(f, a["spectrum_psd_v2_per_hz"],
-                             rate_hz=float(s.get("spectrum_rate_hz", 2.0 * f[-1])),
-                             segment_length=int(s.get("spectrum_segment_length", 2 * (f.size - 1))),
-                             n_segments=int(s["spectrum_segments"]),
-                             variance_inflation=float(s.get("spectrum_variance_inflation", 1.0)))
-    fit = th.fit_thermal_spectrum(spectrum.frequencies_hz, spectrum.psd_v2_per_hz, averages=spectrum.n_segments,
-                                  variance_inflation=spectrum.variance_inflation, spectrum=spectrum)
+    s = record.scalars
+    fit = stored_thermal_fit(record)
     temperature = float(s.get("temperature_k", 298.15))
     if str(s.get("invols_source", "")).startswith("non-contact") and "k_n_per_m" in s:
-        return th.calibrate_thermal(fit, temperature_k=temperature, k_n_per_m=float(s["k_n_per_m"]),
-                                    k_std_n_per_m=float(s.get("k_std_n_per_m", 0.0)))
+        return calibrate_thermal(fit, temperature_k=temperature, k_n_per_m=float(s["k_n_per_m"]),
+                                 k_std_n_per_m=float(s.get("k_std_n_per_m", 0.0)))
     invols = s.get("invols_nm_per_v")
-    return th.calibrate_thermal(fit, temperature_k=temperature,
-                                invols_m_per_v=None if invols is None else float(invols) * 1e-9,
-                                invols_std_m_per_v=float(s.get("invols_std_nm_per_v", 0.0)) * 1e-9)
+    return calibrate_thermal(fit, temperature_k=temperature,
+                             invols_m_per_v=None if invols is None else float(invols) * 1e-9,
+                             invols_std_m_per_v=float(s.get("invols_std_nm_per_v", 0.0)) * 1e-9)
 
 
-def _decomposition_figures(session: SessionFile, out_dir: Path, notes: list[str],
-                           analyses: Mapping[str, object] | None = None, *, per_height_scale: bool = False,
+def _decomposition_figures(session: SessionFile, out_dir: Path, notes: list[str], *, per_height_scale: bool = False,
                            computed: dict | None = None) -> list[Path]:
-    mod = _import_figures("series_figures", notes)
-    if mod is None:
-        return []
-    if hasattr(mod, "figures_from_session"):
-        return _new_files(out_dir, lambda: mod.figures_from_session(session, out_dir), "series figures", notes)
-    if not hasattr(mod, "write_series_figures"):
-        notes.append("assistant.report.series_figures offers neither figures_from_session nor "
-                     "write_series_figures: decomposition figures were skipped")
-        return []
+    """The decomposition figures of every series, from the decomposition stored with it (computed now for a
+    series that has none); ``computed`` receives the decompositions that were computed here."""
+    from assistant.procedures.analyse import stored_series_analysis
+
     paths: list[Path] = []
     names = session.series_names()
     for name in names:
         target = out_dir if len(names) == 1 else out_dir / f"{name}_decomposition"
         target.mkdir(exist_ok=True)
 
-        def write(name: str = name, target: Path = target) -> None:
-            result = (analyses or {}).get(name)
-            if result is None:  # not handed in by the caller: decompose the stored series again
-                from assistant.procedures.analyse import analyse_session_series
-
-                result = analyse_session_series(session, name, write=False)
-            if computed is not None:
+        def write(name: str = name, target: Path = target) -> list[Path]:
+            result = stored_series_analysis(session, name)
+            if computed is not None and name not in session.analysis_names():
                 computed[name] = result
-            if per_height_scale:
-                mod.write_series_figures(result, target, per_height_scale=True)
-            else:
-                mod.write_series_figures(result, target)
-        paths += _new_files(target, write, f"decomposition figures of {name!r}", notes)
+            return write_series_figures(result, target, per_height_scale=per_height_scale)
+        paths += _figures(f"decomposition figures of {name!r}", notes, write)
     return paths
 
 
 # ---- the report -----------------------------------------------------------------------------------------------
-def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLike[str], *,
-                 analyses: Mapping[str, object] | None = None, sink: Sink = null_sink,
+def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLike[str], *, sink: Sink = null_sink,
                  per_height_scale: bool = False) -> ReportResult:
     """Write the figures a session file supports and ``summary.md`` into ``out_dir`` (created if needed).
 
-    ``analyses`` maps series names to decompositions the caller already has, so they are not computed again.
     ``sink`` receives ``Progress("report", done, total, "figure groups")`` as the figures are written.
     ``per_height_scale`` gives each lift height's phase map its own colour scale (the captions say so).
     """
@@ -243,7 +188,7 @@ def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLik
         step("calibration figures")
         if names:
             computed: dict = {}
-            paths += _decomposition_figures(session, out, notes, analyses, per_height_scale=per_height_scale,
+            paths += _decomposition_figures(session, out, notes, per_height_scale=per_height_scale,
                                             computed=computed)
             step("decomposition figures")
             if not analysed:  # nothing stored, but decomposed for the figures: the results still open the summary

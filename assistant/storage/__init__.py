@@ -1,7 +1,8 @@
-"""Storage: the crash-safe HDF5 session file and the per-probe calibration record."""
+"""Storage: the crash-safe HDF5 session file (the file, its series group, resume) and the per-probe calibration
+record."""
 
 from assistant.storage.probe_record import ProbeRecord, ProbeRecordError, default_data_dir
-from assistant.storage.session_file import (
+from assistant.storage.records import (
     FORMAT_NAME,
     FORMAT_VERSION,
     FinishedSeriesError,
@@ -9,9 +10,6 @@ from assistant.storage.session_file import (
     NotASessionFileError,
     Record,
     SessionBusyError,
-    SeriesData,
-    SeriesWriter,
-    SessionFile,
     SessionFileError,
     SessionInfo,
     SessionWriteError,
@@ -19,10 +17,13 @@ from assistant.storage.session_file import (
     redact_controller_url,
     unit_for_name,
 )
+from assistant.storage.resume import ResumePoint, resume_point, resume_writer
+from assistant.storage.series_group import SeriesData, SeriesWriter
+from assistant.storage.session_file import SessionFile
 
 __all__ = [
     "FORMAT_NAME", "FORMAT_VERSION", "FinishedSeriesError", "FormatVersionError", "NotASessionFileError",
-    "ProbeRecord", "ProbeRecordError", "Record", "SeriesData", "SeriesWriter", "SessionBusyError", "SessionFile",
-    "SessionFileError", "SessionInfo", "SessionWriteError", "UnwritablePathError", "default_data_dir",
-    "redact_controller_url", "unit_for_name",
+    "ProbeRecord", "ProbeRecordError", "Record", "ResumePoint", "SeriesData", "SeriesWriter", "SessionBusyError",
+    "SessionFile", "SessionFileError", "SessionInfo", "SessionWriteError", "UnwritablePathError", "default_data_dir",
+    "redact_controller_url", "resume_point", "resume_writer", "unit_for_name",
 ]

@@ -18,13 +18,15 @@ from typing import Any
 
 import platformdirs
 
+from assistant.errors import AssistantError
+
 ENV_DATA_DIR = "MFMA_DATA_DIR"
 RECORD_FORMAT = "mfm-assistant-probe-record"
 RECORD_VERSION = 1
 _FILE_NAME = "probe_record.json"
 
 
-class ProbeRecordError(ValueError):
+class ProbeRecordError(AssistantError, ValueError):
     """The probe record cannot be read or a calibration cannot be added; the message names the problem."""
 
 

@@ -16,280 +16,36 @@ Layout (NeXus NXdata attributes so general-purpose HDF5 viewers plot the images)
     series/<name>/          NXdata: topography_m (lines, pixels); phase_deg, amplitude_v (heights, [biases,]
                             lines, pixels); optional frequency_shift_hz, repeat_phase_deg (lines, pixels);
                             axes lift_height_m, [tip_bias_v,] y_m, x_m; sub-group topography/ (NXdata view)
-    analysis/<name>/        decomposition results: scalars as attributes, arrays as datasets
+    analysis/<name>/        decomposition results: scalars as attributes, arrays as datasets; result/ the whole
+                            result as computed (every field, dtypes kept), from which the report draws
+
+The series group is :mod:`assistant.storage.series_group`, the records and errors
+:mod:`assistant.storage.records`, and continuing an interrupted series :mod:`assistant.storage.resume`.
 """
 
 from __future__ import annotations
 
-import json
 import os
-from collections.abc import Callable, Iterator, Mapping, Sequence
+from collections.abc import Iterator, Mapping, Sequence
 from contextlib import contextmanager
-from dataclasses import dataclass
 from datetime import datetime, timezone
 from pathlib import Path
 from typing import Literal
-from urllib.parse import parse_qsl, urlencode, urlsplit, urlunsplit
 
 import h5py
 import numpy as np
 
-FORMAT_NAME = "mfm-assistant-session"
-FORMAT_VERSION = 1
+from assistant.storage.records import (FORMAT_NAME, FORMAT_VERSION, MAX_ATTR_TEXT, FormatVersionError,
+                                       NotASessionFileError, Record, Scalar, SessionBusyError, SessionFileError,
+                                       SessionInfo, SessionWriteError, UnwritablePathError, check_name,
+                                       checked_record, fill_group, read_record, redact_controller_url)
+from assistant.storage.series_group import (BeforeWrite, SeriesData, SeriesWriter, checked_series_arguments,
+                                            new_series_group, read_series)
 
+__all__ = ["SessionFile"]
 
-# ---- errors ---------------------------------------------------------------------------------------------
-class SessionFileError(ValueError):
-    """Root of the session-file errors; each message is one line naming the file and the problem."""
-
-
-class NotASessionFileError(SessionFileError):
-    """The path is missing, not HDF5, or an HDF5 file of some other kind."""
-
-
-class FormatVersionError(SessionFileError):
-    """A session file of a format version this software does not read."""
-
-
-class FinishedSeriesError(SessionFileError):
-    """A resume or a write was asked of a series whose lines are all written."""
-
-
-class UnwritablePathError(SessionFileError):
-    """The file cannot be created or opened for writing."""
-
-
-class SessionBusyError(SessionFileError):
-    """Another process has the file open for writing (HDF5 file locking refused to open it)."""
-
-
-class SessionWriteError(OSError):
-    """Writing to the file failed (typically a full disk). Every line counted in ``completed_lines`` before
-    the failure stays readable; close the file (further writes are refused) and reopen it to resume."""
-
-
-# ---- results of reading ----------------------------------------------------------------------------------
-@dataclass(frozen=True)
-class SessionInfo:
-    """The root attributes of a session file."""
-
-    format: str
-    format_version: int
-    software_version: str
-    created_utc: str
-    controller_url: str
-    scenario_text: str | None
-    complete: bool
-
-
-@dataclass(frozen=True)
-class Record:
-    """A stored group (calibration, resonance, approach, analysis): scalars, arrays, and the unit of each."""
-
-    path: str
-    scalars: dict[str, float | int | str | bool]
-    arrays: dict[str, np.ndarray]
-    units: dict[str, str]
-
-
-@dataclass(frozen=True)
-class SeriesData:
-    """One lift-height series as stored, cut to its completed lines (SI units; phase in degrees)."""
-
-    name: str
-    topography_m: np.ndarray  # (completed_lines, pixels)
-    phase_deg: np.ndarray  # (heights, [biases,] completed_lines, pixels)
-    amplitude_v: np.ndarray
-    frequency_shift_hz: np.ndarray | None
-    repeat_phase_deg: np.ndarray | None  # (completed_lines, pixels): first height again at each line's end
-    heights_m: np.ndarray
-    biases_v: np.ndarray | None  # None: no bias grid
-    completed_lines: int
-    lines: int
-    pixels: int
-    scan_size_m: float
-    line_rate_hz: float
-    order: str
-    repeat_first: bool
-    settings_json: str
-
-    @property
-    def finished(self) -> bool:
-        return self.completed_lines >= self.lines
-
-
-# ---- units from name suffixes -----------------------------------------------------------------------------
-_UNIT_SUFFIXES: tuple[tuple[tuple[str, ...], str], ...] = (
-    (("n", "per", "m"), "N/m"), (("nm", "per", "v"), "nm/V"), (("m", "per", "v"), "m/V"),
-    (("v2", "per", "hz"), "V^2/Hz"), (("m2", "per", "hz"), "m^2/Hz"), (("m", "per", "s"), "m/s"),
-    (("ka", "per", "m"), "kA/m"), (("kg", "per", "m3"), "kg/m^3"), (("kg", "m3"), "kg/m^3"), (("pa", "s"), "Pa s"),
-    (("a", "m2"), "A m^2"), (("per", "m"), "1/m"), (("per", "s"), "1/s"), (("hz",), "Hz"), (("m",), "m"),
-    (("nm",), "nm"), (("um",), "um"), (("v",), "V"), (("v2",), "V^2"), (("deg",), "deg"), (("rad",), "rad"),
-    (("s",), "s"), (("k",), "K"), (("pa",), "Pa"), (("n",), "N"), (("j",), "J"), (("px",), "pixel"),
-)
-
-
-def unit_for_name(name: str) -> str:
-    """The unit a name's suffix states (``k_n_per_m`` -> ``"N/m"``); ``""`` (dimensionless) when none does."""
-    tokens = tuple(name.lower().split("_"))
-    for suffix, unit in _UNIT_SUFFIXES:
-        if len(tokens) > len(suffix) and tokens[-len(suffix):] == suffix:
-            return unit
-    return ""
-
-
-# ---- controller URL without secrets ------------------------------------------------------------------------
-_SECRET_KEYS = ("key", "secret", "password", "passwd", "token", "client", "server", "auth", "cert")
-_SECRET_ENDINGS = (".key", ".key_secret", ".pem", ".secret")
-
-
-def redact_controller_url(url: str) -> str:
-    """``url`` with user info removed and query values that name keys or secrets replaced by ``REDACTED``."""
-    parts = urlsplit(url)
-    netloc = parts.netloc.rsplit("@", 1)[-1]
-    query = []
-    for key, value in parse_qsl(parts.query, keep_blank_values=True):
-        looks_secret = any(s in key.lower() for s in _SECRET_KEYS) or value.lower().endswith(_SECRET_ENDINGS) \
-            or "secret" in value.lower()
-        query.append((key, "REDACTED" if looks_secret and value else value))
-    text = f"{parts.scheme}://{netloc}{parts.path}" if "://" in url else urlunsplit(
-        (parts.scheme, netloc, parts.path, "", ""))
-    return text + (f"?{urlencode(query, safe='/:.-_~')}" if query else "")
-
-
-BeforeWrite = Callable[[int], None]
-Scalar = float | int | str | bool
-_MAX_ATTR_TEXT = 48_000  # attributes in the default format live in the object header (64 KiB limit)
-
-
-_RESERVED = frozenset({"NX_class", "scalar_units", "signal", "axes", "default", "auxiliary_signals"})
-
-
-def _plain_scalars(scalars: Mapping[str, Scalar]) -> dict[str, Scalar]:
-    out: dict[str, Scalar] = {}
-    for name, value in scalars.items():
-        if not isinstance(name, str) or not name or name in _RESERVED:
-            raise SessionFileError(f"scalar name {name!r} is empty, not a string or reserved ({sorted(_RESERVED)})")
-        if isinstance(value, (bool, np.bool_)):
-            out[name] = bool(value)
-        elif isinstance(value, str):
-            out[name] = value
-        elif isinstance(value, (int, np.integer)):
-            out[name] = int(value)
-        elif isinstance(value, (float, np.floating)):
-            out[name] = float(value)
-        else:
-            raise SessionFileError(f"scalar {name!r} must be a float, int, str or bool, got {type(value).__name__}")
-    return out
-
-
-def _plain_arrays(arrays: Mapping[str, np.ndarray]) -> dict[str, np.ndarray]:
-    out = {}
-    for name, values in arrays.items():
-        _check_name(name)
-        data = np.asarray(values)
-        if data.dtype.kind not in "fiub":
-            raise SessionFileError(f"array {name!r} must be numeric, got dtype {data.dtype}")
-        out[name] = data.astype(np.float64, copy=False) if data.dtype.kind == "f" else data
-    return out
-
-
-def _read_record(group: h5py.Group) -> Record:
-    units = json.loads(group.attrs.get("scalar_units", "{}"))
-    scalars: dict[str, Scalar] = {}
-    for name, value in group.attrs.items():
-        if name in _RESERVED or name.endswith("_indices"):
-            continue
-        if isinstance(value, bytes):
-            value = value.decode()
-        elif isinstance(value, np.generic):
-            value = value.item()
-        scalars[name] = value
-    arrays: dict[str, np.ndarray] = {}
-    for name, item in group.items():
-        if isinstance(item, h5py.Dataset):
-            arrays[name] = item[()]
-            units[name] = str(item.attrs.get("units", ""))
-    return Record(path=group.name.lstrip("/"), scalars=scalars, arrays=arrays, units=units)
-
-
-class SeriesWriter:
-    """Writes the lines of one lift-height series, in order, flushing after each line."""
-
-    def __init__(self, session: "SessionFile", group: h5py.Group, *, before_write: BeforeWrite | None) -> None:
-        self._session = session
-        self._group = group
-        self._before_write = before_write
-        self.name: str = group.name.rsplit("/", 1)[-1]
-        self.lines: int = int(group.attrs["lines"])
-        self.pixels: int = int(group.attrs["pixels"])
-        self.settings_json: str = str(group.attrs["settings_json"])
-        self._pass_shape: tuple[int, ...] = group["phase_deg"].shape[:-2] + (self.pixels,)
-        self._has_fshift = "frequency_shift_hz" in group
-        self._has_repeat = "repeat_phase_deg" in group
-        # opened once: looking a dataset up by name costs about as much as writing one line of it
-        self._datasets = {name: group[name] for name in ("topography_m", "phase_deg", "amplitude_v",
-                                                         "frequency_shift_hz", "repeat_phase_deg") if name in group}
-
-    @property
-    def completed_lines(self) -> int:
-        return int(self._group.attrs["completed_lines"])
-
-    def write_line(self, index: int, *, topography_m: np.ndarray, phase_deg: np.ndarray, amplitude_v: np.ndarray,
-                   frequency_shift_hz: np.ndarray | None = None, repeat_phase_deg: np.ndarray | None = None) -> None:
-        """Write scan line ``index`` (must be the next one), bump ``completed_lines`` and flush.
-
-        ``phase_deg`` and ``amplitude_v`` have shape (heights, pixels) or (heights, biases, pixels).
-        An OSError (a full disk, or one raised by ``before_write``) leaves every earlier line readable.
-        """
-        done = self.completed_lines
-        if index != done:
-            raise SessionFileError(f"series {self.name!r}: line index {index} is not the next line ({done})")
-        if index >= self.lines:
-            raise FinishedSeriesError(f"series {self.name!r}: line index {index} beyond the {self.lines} lines")
-        topo = self._check("topography_m", topography_m, (self.pixels,))
-        phase = self._check("phase_deg", phase_deg, self._pass_shape)
-        amp = self._check("amplitude_v", amplitude_v, self._pass_shape)
-        # a controller may report frequency shift without the series having declared it: keep it, do not fail
-        fshift = self._optional("frequency_shift_hz", frequency_shift_hz, self._has_fshift or
-                                frequency_shift_hz is not None, self._pass_shape)
-        repeat = self._optional("repeat_phase_deg", repeat_phase_deg, self._has_repeat, (self.pixels,))
-        self._session._check_usable()
-        if self._before_write is not None:
-            self._before_write(index)
-        g, ds = self._group, self._datasets
-        try:
-            if fshift is not None and not self._has_fshift:
-                _line_dataset(g, "frequency_shift_hz", ds["phase_deg"].shape)
-                g.attrs["auxiliary_signals"] = ["amplitude_v", "frequency_shift_hz"]
-                ds["frequency_shift_hz"] = g["frequency_shift_hz"]
-                self._has_fshift = True
-            ds["topography_m"][index, :] = topo
-            ds["phase_deg"][..., index, :] = phase
-            ds["amplitude_v"][..., index, :] = amp
-            if fshift is not None:
-                ds["frequency_shift_hz"][..., index, :] = fshift
-            if repeat is not None:
-                ds["repeat_phase_deg"][index, :] = repeat
-            # the counter goes last: a kill before the flush below leaves the old count, the new line ignored
-            g.attrs.modify("completed_lines", np.int64(index + 1))
-            self._session.flush()
-        except (OSError, ValueError, RuntimeError) as exc:  # h5py reports a full disk as any of these
-            raise self._session._failed(f"line {index} of series {self.name!r}", exc) from exc
-
-    def _check(self, name: str, values: np.ndarray, shape: tuple[int, ...]) -> np.ndarray:
-        data = np.asarray(values, dtype=np.float64)
-        if data.shape != shape:
-            raise SessionFileError(f"series {self.name!r}: {name} has shape {data.shape}, expected {shape}")
-        return data
-
-    def _optional(self, name: str, values: np.ndarray | None, declared: bool,
-                  shape: tuple[int, ...]) -> np.ndarray | None:
-        if declared and values is None:
-            raise SessionFileError(f"series {self.name!r}: {name} was declared for this series but not given")
-        if not declared and values is not None:
-            raise SessionFileError(f"series {self.name!r}: {name} given but the series was created without it")
-        return None if values is None else self._check(name, values, shape)
+#: The subgroup of ``analysis/<name>/`` that holds the whole result as computed.
+RESULT_GROUP = "result"
 
 
 class SessionFile:
@@ -305,12 +61,13 @@ class SessionFile:
     @classmethod
     def create(cls, path: str | os.PathLike[str], *, controller_url: str, scenario_text: str | None = None,
                software_version: str, fsync: bool = False, now: datetime | None = None) -> "SessionFile":
-        """Create a new session file; refuses to overwrite an existing file."""
+        """Create a new session file; refuses to overwrite an existing file. ``controller_url`` is stored
+        without secrets."""
         path = Path(path)
         if path.exists():
             raise UnwritablePathError(f"session file {str(path)!r} already exists; choose a new name")
-        if scenario_text is not None and len(scenario_text.encode()) > _MAX_ATTR_TEXT:
-            raise SessionFileError(f"scenario text is {len(scenario_text.encode())} bytes; limit {_MAX_ATTR_TEXT}")
+        if scenario_text is not None and len(scenario_text.encode()) > MAX_ATTR_TEXT:
+            raise SessionFileError(f"scenario text is {len(scenario_text.encode())} bytes; limit {MAX_ATTR_TEXT}")
         try:
             h5 = h5py.File(path, "w-")
         except OSError as exc:
@@ -342,31 +99,7 @@ class SessionFile:
         """Open an existing session file for reading (``"r"``) or to add to it (``"a"``)."""
         if mode not in ("r", "a"):
             raise SessionFileError(f"mode must be 'r' or 'a', got {mode!r}")
-        path = Path(path)
-        if not path.is_file():
-            raise NotASessionFileError(f"{str(path)!r} does not exist or is not a file")
-        try:
-            h5 = h5py.File(path, "r+" if mode == "a" else "r")
-        except OSError as exc:
-            if "unable to lock file" in str(exc):
-                raise SessionBusyError(f"session file {str(path)!r} is open for writing by another process "
-                                       "(a run in progress?); wait for it to finish") from exc
-            if mode == "a" and not os.access(path, os.W_OK):
-                raise UnwritablePathError(f"session file {str(path)!r} is not writable") from exc
-            raise NotASessionFileError(f"{str(path)!r} is not an HDF5 session file ({exc})") from exc
-        try:
-            fmt = h5.attrs.get("format")
-            if fmt != FORMAT_NAME:
-                raise NotASessionFileError(f"{str(path)!r} is not a session file (format {fmt!r}, "
-                                           f"expected {FORMAT_NAME!r})")
-            version = int(h5.attrs.get("format_version", -1))
-            if version != FORMAT_VERSION:
-                raise FormatVersionError(f"{str(path)!r} has session format version {version}; "
-                                         f"this software reads version {FORMAT_VERSION}")
-        except BaseException:
-            h5.close()
-            raise
-        return cls(h5, fsync=fsync)
+        return cls(_open_h5(Path(path), mode), fsync=fsync)
 
     def __enter__(self) -> "SessionFile":
         return self
@@ -392,12 +125,15 @@ class SessionFile:
         if self._fsync:
             os.fsync(self._h5.id.get_vfd_handle())
 
-    def _check_usable(self) -> None:
+    # ---- failed writes (also for the group writers) --------------------------------------------------
+    def check_usable(self) -> None:
+        """Refuse to write after a failed write (the HDF5 state is no longer trustworthy)."""
         if self._broken is not None:
             raise SessionWriteError(f"an earlier write to {str(self.path)!r} failed ({self._broken}); "
                                     "close the file and reopen it with mode 'a' to resume")
 
-    def _failed(self, what: str, exc: BaseException) -> SessionWriteError:
+    def failed(self, what: str, exc: BaseException) -> SessionWriteError:
+        """Mark the file broken by a failed write of ``what``; the error to raise."""
         self._broken = f"{what}: {exc}".splitlines()[0]
         errno = exc.errno if isinstance(exc, OSError) else None
         return SessionWriteError(errno, f"writing {what} to {str(self.path)!r} failed: {self._broken}; "
@@ -405,14 +141,14 @@ class SessionFile:
 
     @contextmanager
     def _writing(self, what: str) -> Iterator[None]:
-        self._check_usable()
+        self.check_usable()
         try:
             yield
             self.flush()
         except SessionFileError:
             raise
         except (OSError, ValueError, RuntimeError) as exc:  # h5py reports a full disk as any of these
-            raise self._failed(what, exc) from exc
+            raise self.failed(what, exc) from exc
 
     # ---- writing records -----------------------------------------------------------------------------
     def write_calibration(self, scalars: Mapping[str, Scalar], arrays: Mapping[str, np.ndarray] | None = None, *,
@@ -422,72 +158,59 @@ class SessionFile:
         Scalar and array names carry their unit as a suffix (``k_n_per_m``, ``psd_v2_per_hz``).
         ``plot=(signal, axis)`` names the array to show first in a viewer and its axis array.
         """
-        record = self._checked(scalars, arrays, plot)
+        record = checked_record(scalars, arrays, plot)
         with self._writing("a calibration"):
             parent = self._h5.require_group("probe")
             parent.attrs["NX_class"] = "NXcollection"
             group = parent.create_group(str(len(parent)))
-            self._fill(group, *record)
+            fill_group(group, *record)
         return group.name.lstrip("/")
 
     def write_resonance(self, scalars: Mapping[str, Scalar], arrays: Mapping[str, np.ndarray] | None = None, *,
                         plot: tuple[str, str] | None = None) -> None:
         """Store the resonance sweep and its fit as ``resonance/`` (replacing an earlier one)."""
-        record = self._checked(scalars, arrays, plot)
+        record = checked_record(scalars, arrays, plot)
         with self._writing("the resonance"):
-            self._fill(self._fresh_group("resonance"), *record)
+            fill_group(self._fresh_group("resonance"), *record)
 
     def write_approach(self, scalars: Mapping[str, Scalar], arrays: Mapping[str, np.ndarray] | None = None, *,
                        plot: tuple[str, str] | None = None) -> None:
         """Store the approach trace and result as ``approach/`` (replacing an earlier one)."""
-        record = self._checked(scalars, arrays, plot)
+        record = checked_record(scalars, arrays, plot)
         with self._writing("the approach"):
-            self._fill(self._fresh_group("approach"), *record)
+            fill_group(self._fresh_group("approach"), *record)
 
-    def write_analysis(self, name: str, scalars: Mapping[str, Scalar],
-                       arrays: Mapping[str, np.ndarray] | None = None) -> None:
-        """Store decomposition results as ``analysis/<name>/`` (replacing earlier results of that name)."""
-        _check_name(name)
-        record = self._checked(scalars, arrays, None)
+    def write_analysis(self, name: str, scalars: Mapping[str, Scalar], arrays: Mapping[str, np.ndarray] | None = None,
+                       *, result: tuple[Mapping[str, Scalar], Mapping[str, np.ndarray]] | None = None) -> None:
+        """Store decomposition results as ``analysis/<name>/`` (replacing earlier results of that name).
+
+        ``result``: the whole result as (scalars, arrays), kept in ``analysis/<name>/result`` with the arrays'
+        dtypes, so that it can be read back exactly (:meth:`read_analysis_result`).
+        """
+        check_name(name)
+        record = checked_record(scalars, arrays, None)
+        whole = None if result is None else checked_record(*result, keep_dtype=True)
         with self._writing(f"analysis {name!r}"):
             parent = self._h5.require_group("analysis")
             parent.attrs["NX_class"] = "NXcollection"
             if name in parent:
                 del parent[name]
-            self._fill(parent.create_group(name), *record)
+            group = parent.create_group(name)
+            fill_group(group, *record)
+            if whole is not None:
+                fill_group(group.create_group(RESULT_GROUP), *whole)
 
-    def mark_complete(self) -> None:
-        """Mark the session as finished normally."""
+    def mark_complete(self, complete: bool = True) -> None:
+        """Mark the session as finished normally (or, resuming it, as not finished again)."""
+        if not complete and not bool(self._h5.attrs.get("complete", False)):
+            return  # already marked unfinished: nothing to write
         with self._writing("the complete flag"):
-            self._h5.attrs["complete"] = True
+            self._h5.attrs["complete"] = complete
 
     def _fresh_group(self, name: str) -> h5py.Group:
         if name in self._h5:
             del self._h5[name]
         return self._h5.create_group(name)
-
-    @staticmethod
-    def _checked(scalars: Mapping[str, Scalar], arrays: Mapping[str, np.ndarray] | None,
-                 plot: tuple[str, str] | None) -> tuple[dict[str, Scalar], dict[str, np.ndarray], tuple | None]:
-        """Validate everything before the file is touched, so a bad argument leaves no half-written group."""
-        plain_scalars, plain_arrays = _plain_scalars(scalars), _plain_arrays(arrays or {})
-        for part in plot or ():
-            if part not in plain_arrays:
-                raise SessionFileError(f"plot names {part!r}, which is not among the arrays {sorted(plain_arrays)}")
-        return plain_scalars, plain_arrays, plot
-
-    @staticmethod
-    def _fill(group: h5py.Group, scalars: dict[str, Scalar], arrays: dict[str, np.ndarray],
-              plot: tuple[str, str] | None) -> None:
-        group.attrs.update(scalars)
-        units = {k: unit_for_name(k) for k, v in scalars.items() if not isinstance(v, (str, bool))}
-        group.attrs["scalar_units"] = json.dumps(units, sort_keys=True)
-        for name, data in arrays.items():
-            group.create_dataset(name, data=data, dtype=data.dtype).attrs["units"] = unit_for_name(name)
-        group.attrs["NX_class"] = "NXcollection" if plot is None else "NXdata"
-        if plot is not None:
-            group.attrs["signal"] = plot[0]
-            group.attrs["axes"] = [plot[1]]
 
     # ---- series --------------------------------------------------------------------------------------
     def create_series(self, name: str, *, heights_m: Sequence[float], biases_v: Sequence[float] | None, lines: int,
@@ -501,79 +224,21 @@ class SessionFile:
         ``frequency_shift=True`` allocates ``frequency_shift_hz`` now; otherwise it is added at the first line
         that carries it.
         """
-        _check_name(name)
-        heights = np.asarray(heights_m, dtype=np.float64)
-        if heights.ndim != 1 or heights.size == 0 or not np.all(np.isfinite(heights)):
-            raise SessionFileError(f"heights_m must be a non-empty 1-D array of finite values, got {heights_m!r}")
-        for label, value in (("lines", lines), ("pixels", pixels)):
-            if int(value) != value or value < 1:
-                raise SessionFileError(f"{label} must be a positive integer, got {value!r}")
-        for label, value in (("scan_size_m", scan_size_m), ("line_rate_hz", line_rate_hz)):
-            if not (np.isfinite(value) and value > 0):
-                raise SessionFileError(f"{label} must be positive and finite, got {value!r}")
-        try:
-            json.loads(settings_json)
-        except (TypeError, ValueError) as exc:
-            raise SessionFileError(f"settings_json is not valid JSON: {exc}") from exc
-        biases = None if biases_v is None or len(biases_v) == 0 else np.asarray(biases_v, dtype=np.float64)
-        if biases is not None and (biases.ndim != 1 or not np.all(np.isfinite(biases))):
-            raise SessionFileError(f"biases_v must be a 1-D sequence of finite values or None, got {biases_v!r}")
+        heights, biases = checked_series_arguments(name, heights_m, biases_v, lines=lines, pixels=pixels,
+                                                   scan_size_m=scan_size_m, line_rate_hz=line_rate_hz,
+                                                   settings_json=settings_json)
         if name in self.series_names():
             raise SessionFileError(f"series {name!r} already exists in {str(self.path)!r}; resume it instead")
         with self._writing(f"series {name!r}"):
-            g = self._new_series_group(name, heights, biases, lines=int(lines), pixels=int(pixels),
-                                       scan_size_m=float(scan_size_m), line_rate_hz=float(line_rate_hz),
-                                       order=order, repeat_first=repeat_first, settings_json=settings_json,
-                                       frequency_shift=frequency_shift)
+            g = new_series_group(self._h5, name, heights, biases, lines=int(lines), pixels=int(pixels),
+                                 scan_size_m=float(scan_size_m), line_rate_hz=float(line_rate_hz), order=order,
+                                 repeat_first=repeat_first, settings_json=settings_json,
+                                 frequency_shift=frequency_shift)
         return SeriesWriter(self, g, before_write=before_write)
 
-    def _new_series_group(self, name: str, heights: np.ndarray, biases: np.ndarray | None, *, lines: int,
-                          pixels: int, scan_size_m: float, line_rate_hz: float, order: str, repeat_first: bool,
-                          settings_json: str, frequency_shift: bool) -> h5py.Group:
-        series_root = self._h5.require_group("series")
-        g = series_root.create_group(name)
-        lead = (heights.size,) if biases is None else (heights.size, biases.size)
-        pass_names = ["phase_deg", "amplitude_v"] + (["frequency_shift_hz"] if frequency_shift else [])
-        for ds_name in pass_names:
-            _line_dataset(g, ds_name, lead + (lines, pixels))
-        _line_dataset(g, "topography_m", (lines, pixels))
-        if repeat_first:
-            _line_dataset(g, "repeat_phase_deg", (lines, pixels))
-        _axis(g, "lift_height_m", heights, "m")
-        if biases is not None:
-            _axis(g, "tip_bias_v", biases, "V")
-        _axis(g, "y_m", np.arange(lines) * (scan_size_m / lines), "m")
-        _axis(g, "x_m", np.arange(pixels) * (scan_size_m / pixels), "m")
-        axes = ["lift_height_m"] + (["tip_bias_v"] if biases is not None else []) + ["y_m", "x_m"]
-        g.attrs.update({
-            "NX_class": "NXdata", "signal": "phase_deg", "axes": axes,
-            "auxiliary_signals": [n for n in pass_names if n != "phase_deg"],
-            "heights_nm": heights * 1e9, "bias_v": np.array([] if biases is None else biases, dtype=np.float64),
-            "completed_lines": np.int64(0), "lines": np.int64(lines), "pixels": np.int64(pixels),
-            "scan_size_m": float(scan_size_m), "line_rate_hz": float(line_rate_hz), "order": order,
-            "repeat_first": bool(repeat_first), "settings_json": settings_json,
-        })
-        for i, axis in enumerate(axes):
-            g.attrs[f"{axis}_indices"] = np.int64(i)
-        topo_view = g.create_group("topography")
-        topo_view.attrs.update({"NX_class": "NXdata", "signal": "topography_m", "axes": ["y_m", "x_m"]})
-        for linked in ("topography_m", "y_m", "x_m"):
-            topo_view[linked] = g[linked]  # hard links: no copy, no extra writes per line
-        series_root.attrs["NX_class"] = "NXentry"
-        series_root.attrs["default"] = name
-        self._h5.attrs["default"] = "series"
-        return g
-
-    def open_series_for_resume(self, name: str, *, before_write: BeforeWrite | None = None) -> SeriesWriter:
-        """A writer that continues ``series/<name>`` at its next line; refuses a finished series."""
-        g = self._series_group(name)
-        done, lines = int(g.attrs["completed_lines"]), int(g.attrs["lines"])
-        if done >= lines:
-            raise FinishedSeriesError(f"series {name!r} is finished ({done} of {lines} lines); nothing to resume")
-        if bool(self._h5.attrs.get("complete", False)):
-            with self._writing("the complete flag"):
-                self._h5.attrs["complete"] = False
-        return SeriesWriter(self, g, before_write=before_write)
+    def series_writer(self, name: str, *, before_write: BeforeWrite | None = None) -> SeriesWriter:
+        """A writer of the existing ``series/<name>`` at its next line (see :mod:`assistant.storage.resume`)."""
+        return SeriesWriter(self, self._series_group(name), before_write=before_write)
 
     # ---- reading -------------------------------------------------------------------------------------
     def info(self) -> SessionInfo:
@@ -590,32 +255,20 @@ class SessionFile:
 
     def read_series(self, name: str) -> SeriesData:
         """Arrays and attributes of ``series/<name>``, holding only the completed lines."""
-        g = self._series_group(name)
-        n = int(g.attrs["completed_lines"])
-        biases = np.asarray(g.attrs["bias_v"], dtype=np.float64)
-        optional = {k: (g[k][..., :n, :] if k in g else None) for k in ("frequency_shift_hz", "repeat_phase_deg")}
-        return SeriesData(
-            name=name, topography_m=g["topography_m"][:n, :], phase_deg=g["phase_deg"][..., :n, :],
-            amplitude_v=g["amplitude_v"][..., :n, :], frequency_shift_hz=optional["frequency_shift_hz"],
-            repeat_phase_deg=optional["repeat_phase_deg"], heights_m=g["lift_height_m"][()],
-            biases_v=g["tip_bias_v"][()] if "tip_bias_v" in g else (biases if biases.size else None),
-            completed_lines=n, lines=int(g.attrs["lines"]), pixels=int(g.attrs["pixels"]),
-            scan_size_m=float(g.attrs["scan_size_m"]), line_rate_hz=float(g.attrs["line_rate_hz"]),
-            order=str(g.attrs["order"]), repeat_first=bool(g.attrs["repeat_first"]),
-            settings_json=str(g.attrs["settings_json"]))
+        return read_series(self._series_group(name), name)
 
     def read_calibrations(self) -> list[Record]:
         """Every ``probe/<n>`` record, oldest first."""
         if "probe" not in self._h5:
             return []
         parent = self._h5["probe"]
-        return [_read_record(parent[k]) for k in sorted(parent, key=int)]
+        return [read_record(parent[k]) for k in sorted(parent, key=int)]
 
     def read_resonance(self) -> Record | None:
-        return _read_record(self._h5["resonance"]) if "resonance" in self._h5 else None
+        return read_record(self._h5["resonance"]) if "resonance" in self._h5 else None
 
     def read_approach(self) -> Record | None:
-        return _read_record(self._h5["approach"]) if "approach" in self._h5 else None
+        return read_record(self._h5["approach"]) if "approach" in self._h5 else None
 
     def analysis_names(self) -> list[str]:
         return sorted(self._h5["analysis"]) if "analysis" in self._h5 else []
@@ -623,7 +276,13 @@ class SessionFile:
     def read_analysis(self, name: str) -> Record:
         if name not in self.analysis_names():
             raise SessionFileError(f"no analysis {name!r} in {str(self.path)!r}; have {self.analysis_names()}")
-        return _read_record(self._h5["analysis"][name])
+        return read_record(self._h5["analysis"][name])
+
+    def read_analysis_result(self, name: str) -> Record | None:
+        """The whole result stored with analysis ``name`` (None when there is no such analysis or it was stored
+        without its result)."""
+        group = self._h5["analysis"].get(name) if "analysis" in self._h5 else None
+        return None if group is None or RESULT_GROUP not in group else read_record(group[RESULT_GROUP])
 
     def _series_group(self, name: str) -> h5py.Group:
         if name not in self.series_names():
@@ -631,20 +290,29 @@ class SessionFile:
         return self._h5["series"][name]
 
 
-def _check_name(name: str) -> None:
-    if not name or "/" in name or name.startswith(".") or name != name.strip():
-        raise SessionFileError(f"name {name!r} must be non-empty, without '/', leading dot or spaces at the ends")
-
-
-def _line_dataset(group: h5py.Group, name: str, shape: tuple[int, ...]) -> None:
-    # one chunk holds one scan line of every height/bias; all chunks allocated now (see module docstring)
-    dcpl = h5py.h5p.create(h5py.h5p.DATASET_CREATE)
-    dcpl.set_alloc_time(h5py.h5d.ALLOC_TIME_EARLY)
-    chunks = shape[:-2] + (1, shape[-1])
-    ds = group.create_dataset(name, shape=shape, dtype=np.float64, chunks=chunks, fillvalue=np.nan, dcpl=dcpl)
-    ds.attrs["units"] = unit_for_name(name)
-
-
-def _axis(group: h5py.Group, name: str, values: np.ndarray, units: str) -> None:
-    ds = group.create_dataset(name, data=np.asarray(values, dtype=np.float64), dtype=np.float64)
-    ds.attrs["units"] = units
+def _open_h5(path: Path, mode: str) -> h5py.File:
+    """The HDF5 file of an existing session file, checked to be one of a version this software reads."""
+    if not path.is_file():
+        raise NotASessionFileError(f"{str(path)!r} does not exist or is not a file")
+    try:
+        h5 = h5py.File(path, "r+" if mode == "a" else "r")
+    except OSError as exc:
+        if "unable to lock file" in str(exc):
+            raise SessionBusyError(f"session file {str(path)!r} is open for writing by another process "
+                                   "(a run in progress?); wait for it to finish") from exc
+        if mode == "a" and not os.access(path, os.W_OK):
+            raise UnwritablePathError(f"session file {str(path)!r} is not writable") from exc
+        raise NotASessionFileError(f"{str(path)!r} is not an HDF5 session file ({exc})") from exc
+    try:
+        fmt = h5.attrs.get("format")
+        if fmt != FORMAT_NAME:
+            raise NotASessionFileError(f"{str(path)!r} is not a session file (format {fmt!r}, "
+                                       f"expected {FORMAT_NAME!r})")
+        version = int(h5.attrs.get("format_version", -1))
+        if version != FORMAT_VERSION:
+            raise FormatVersionError(f"{str(path)!r} has session format version {version}; "
+                                     f"this software reads version {FORMAT_VERSION}")
+    except BaseException:
+        h5.close()
+        raise
+    return h5

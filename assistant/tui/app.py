@@ -2,9 +2,10 @@
 always pulls the tip back.
 
 Thin by design: every step is a :class:`assistant.procedures.workflow.Workflow` method (the same code path as
-``mfma run``), run in a thread worker; its events reach the UI thread as messages. The controller is shared by
-the running step, the status poller and the withdraw key through :class:`SerialisedController`; the withdraw
-key's ``abort()`` goes past its lock and stops the controller call in flight.
+``mfma run``), run in a thread worker (:mod:`assistant.tui.steps`); its events reach the UI thread as messages.
+The controller is shared by the running step, the status poller and the withdraw key through
+:class:`SerialisedController`; the withdraw key's ``abort()`` goes past its lock and stops the controller call in
+flight. This module is the app itself: layout, messages, status line and keys.
 """
 
 from __future__ import annotations
@@ -12,34 +13,34 @@ from __future__ import annotations
 import threading
 from pathlib import Path
 
-from textual import on, work
+from textual import on
 from textual.app import App
 from textual.binding import Binding
 from textual.containers import Horizontal
 from textual.widgets import Button, Footer, Static, TabbedContent, TabPane
 
+from assistant.errors import InputError
 from assistant.formatting import quantity
-from assistant.procedures.events import Cancelled, CancelToken, Notice
-from drivers.errors import Aborted
-from assistant.procedures.workflow import calibration_scalars
+from assistant.procedures.events import Cancelled, Notice
 from assistant.tui.bridge import (MessageSink, ProcedureEvent, SerialisedController, StatusChanged, StepFinished,
                                   WithdrawDone)
 from assistant.tui.screens import WITHDRAW_KEY, ConfirmQuit, HelpScreen
 from assistant.tui.session_view import load_session
+from assistant.tui.steps import StepRunner
 from assistant.tui.view_analysis import AnalysisView
 from assistant.tui.view_approach import ApproachView
-from assistant.tui.view_base import FieldError
 from assistant.tui.view_log import LogView
 from assistant.tui.view_probe import ProbeView
 from assistant.tui.view_resonance import ResonanceView
 from assistant.tui.view_series import SeriesView
+from drivers.errors import Aborted
 
 VIEWS = (("probe", "Probe", ProbeView), ("resonance", "Resonance", ResonanceView),
          ("approach", "Approach", ApproachView), ("series", "Series", SeriesView),
          ("analysis", "Analysis", AnalysisView), ("log", "Log", LogView))
 
 
-class MfmApp(App[int]):
+class MfmApp(StepRunner, App[int]):
     """``MfmApp(controller, session_path=...)`` for a live session; ``MfmApp(None, open_path=...)`` to view a
     session file. ``probe_record`` is a :class:`ProbeRecord` (default: the user's)."""
 
@@ -86,7 +87,7 @@ class MfmApp(App[int]):
             from assistant.procedures.workflow import Workflow
 
             if self.session_path is None:
-                raise ValueError("a live session needs session_path")
+                raise InputError("a live session needs session_path")
             self.workflow = Workflow(self.controller, self.session_path, controller_url=self.controller_url,
                                      scenario_text=scenario_text, limits=self.limits, sink=MessageSink(self))
         self.busy: str | None = None
@@ -270,167 +271,6 @@ class MfmApp(App[int]):
         if self._quit_pending and self._withdraw_confirmed and self.busy is None:
             self._stop_poll.set()
             self.exit(0)
-
-    # ---- intents from the views --------------------------------------------------------------------------
-    def _run(self, step: str, fn) -> bool:
-        if self.workflow is None:
-            self.say("error", f"{step}: no controller (viewing a session file)")
-            return False
-        if self.busy:
-            self.say("warning", f"{step}: {self.busy} is still running; cancel it first (ctrl+x)")
-            return False
-        self.busy = step
-        self.workflow.cancel = CancelToken()  # a fresh token: the last cancel must not stop this step
-        self._step_worker(step, fn)
-        self._update_status_line()
-        return True
-
-    def start_calibration(self) -> None:
-        from assistant.procedures.calibrate import CalibrationError
-
-        res = self.view("resonance")
-        try:
-            settings = self.view("probe").calibration_settings(free_amplitude_m=res.free_amplitude_m(),
-                                                               setpoint_ratio=res.setpoint_ratio())
-            settings.validate()
-        except (FieldError, CalibrationError) as exc:
-            self.say("error", f"calibration: {exc}")
-            return
-        wf = self.workflow
-        if self._run("calibrate", lambda: wf.calibrate(settings)):
-            self._calibration_settings = settings
-            self.probe_name = settings.probe_name
-            self._update_status_line()
-
-    def accept_calibration(self) -> None:
-        wf = self.workflow
-        settings = getattr(self, "_calibration_settings", None)
-        if wf is None or wf.calibration is None or settings is None:
-            self.say("error", "accept: no calibration of this session to record")
-            return
-        name = settings.probe_name or self.view("probe").text("probe-name")
-        if not name:  # the calibration stands; it only needs a name to be filed under
-            self.view("probe").ask_for_name()
-            return
-        self.probe_name = name
-        self._update_status_line()
-        self._record_worker(name, calibration_scalars(wf.calibration, name))
-
-    def start_approach(self) -> None:
-        wf = self.workflow
-        self._run("approach", lambda: wf.approach())
-
-    def validate_series(self, settings) -> None:
-        lim = self.controller.limits if self.controller is not None else None
-        settings.validate(self.limits, z_range_m=lim.z_range_m if lim else None,
-                          scan_size_max_m=lim.scan_size_max_m if lim else None)
-
-    def start_series(self, settings) -> None:
-        import dataclasses
-
-        wf = self.workflow
-        if wf is not None:  # every series of the session gets its own group: series1, series2, ...
-            taken = set(wf.session.series_names())
-            n = 1
-            while f"series{n}" in taken:
-                n += 1
-            settings = dataclasses.replace(settings, name=f"series{n}")
-        if self._run("series", lambda: wf.series(settings)):
-            self.view("series").begin(heights_m=settings.heights_m, biases_v=settings.biases_v,
-                                      lines=settings.lines, pixels=settings.pixels, scan_size_m=settings.scan_size_m)
-
-    def start_analysis(self) -> None:
-        if self.workflow is None and self.open_path is not None:
-            self._offline_worker("analyze", self.open_path)
-            return
-        wf = self.workflow
-        self._run("analyze", lambda: wf.analyse())
-
-    def start_report(self) -> None:
-        if self.workflow is None and self.open_path is not None:
-            self._offline_worker("report", self.open_path)
-            return
-        from assistant.outputs import report_dir_for
-
-        wf = self.workflow
-        out = report_dir_for(self.session_path)
-
-        def report():
-            from assistant.report.summary import build_report
-
-            wf.session.flush()  # the report reads the session file; the workflow keeps it open for writing
-            analyses = {wf.series_settings.name: wf.analysis} if wf.analysis is not None and wf.series_settings else None
-            return build_report(wf.session_path, out, analyses=analyses)
-
-        self._run("report", report)
-
-    # ---- workers --------------------------------------------------------------------------------------------
-    @work(thread=True, group="procedure", exit_on_error=False)
-    def _step_worker(self, step: str, fn) -> None:
-        try:
-            result = fn()
-        except BaseException as exc:  # the step's guard already made the stage safe; report and carry on
-            self.post_message(StepFinished(step, None, exc))
-            return
-        self.post_message(StepFinished(step, result))
-
-    @work(thread=True, group="safety", exit_on_error=False)
-    def _withdraw_worker(self) -> None:
-        try:
-            self.workflow.withdraw()
-            status = self.controller.status()
-        except Exception as exc:
-            self.post_message(WithdrawDone(None, f"{type(exc).__name__}: {exc}"))
-            return
-        self.post_message(StatusChanged(status))
-        self.post_message(WithdrawDone(status.safe))
-
-    @work(thread=True, group="poll", exit_on_error=False)
-    def _poll_worker(self) -> None:
-        while not self._stop_poll.wait(self.poll_interval_s):
-            if not self.is_running or self._closed:  # the app ended without unmounting cleanly (a crash)
-                return
-            try:
-                status = self.controller.try_status(0.05)
-            except Exception as exc:
-                self.post_message(StatusChanged(None, f"{type(exc).__name__}: {exc}"))
-                continue
-            if status is not None:
-                self.post_message(StatusChanged(status))
-
-    @work(thread=True, group="record", exit_on_error=False)
-    def _record_worker(self, name: str, entry: dict) -> None:
-        try:
-            record = self._probe_record
-            if record is None:
-                from assistant.storage.probe_record import ProbeRecord
-
-                record = ProbeRecord()
-            warnings = record.add(name, entry)
-        except Exception as exc:
-            self.post_message(ProcedureEvent(Notice("error", f"probe record: {exc}")))
-            return
-        for w in warnings:
-            self.post_message(ProcedureEvent(Notice("warning", f"probe record: {w}")))
-        self.post_message(ProcedureEvent(Notice("info", f"probe record: calibration of {name!r} stored")))
-        self.call_from_thread(self.view("probe").set_accepted, f"Stored in the probe record as {name!r}.")
-
-    @work(thread=True, group="procedure", exit_on_error=False)
-    def _offline_worker(self, step: str, path: Path) -> None:
-        try:
-            if step == "analyze":
-                from assistant.procedures.analyse import analyse_session_file
-
-                result = analyse_session_file(path, None)
-            else:
-                from assistant.outputs import report_dir_for
-                from assistant.report.summary import build_report
-
-                result = build_report(path, report_dir_for(path))
-        except Exception as exc:
-            self.post_message(StepFinished(step, None, exc))
-            return
-        self.post_message(StepFinished(step, result))
 
     # ---- viewing a session file ---------------------------------------------------------------------------
     def _show_session_file(self, path: Path) -> None:

@@ -7,8 +7,10 @@ import math
 from textual.containers import Container
 from textual.widgets import Input
 
+from assistant.errors import AssistantError
 
-class FieldError(ValueError):
+
+class FieldError(AssistantError, ValueError):
     """A form field holds something that is not the number asked for."""
 
 

@@ -68,7 +68,7 @@ class ResonanceView(View):
 
     def show_stored_sweep(self, arrays: dict) -> None:
         """A stored drive sweep with the oscillator fitted to it again (``mfma tui --open``)."""
-        from assistant.analysis.sweep import fit_drive_sweep
+        from assistant.analysis.calibration import fit_drive_sweep
 
         f, a, p = (np.asarray(arrays[k], dtype=float) for k in ("frequency_hz", "amplitude_v", "phase_deg"))
         self.sweep = {"frequency_hz": f, "amplitude_v": a, "phase_deg": p, "f0_hz": None, "q": None}

@@ -14,11 +14,13 @@ import re
 from pathlib import Path
 from string import Template
 
+from drivers.errors import ControllerError
+
 _NAME = re.compile(r"^[a-z][a-z0-9_]{0,30}$")
 
 
-class SkeletonError(ValueError):
-    """The name or the folder cannot be used."""
+class SkeletonError(ControllerError, ValueError):
+    """The name or the folder cannot be used (bad input: the command line reports it as a usage error)."""
 
 
 def names(name: str) -> dict[str, str]:

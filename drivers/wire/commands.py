@@ -13,7 +13,6 @@ Kinds: ``float``, ``int``, ``bool``, ``opt_float`` (None = keep the present valu
 from __future__ import annotations
 
 import dataclasses
-import math
 import re
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -26,7 +25,8 @@ from drivers.base import (
     Status, SweepData,
 )
 from drivers.errors import LimitExceeded
-from drivers.wire.scpi import WireError
+from drivers.wire.checks import within
+from drivers.wire.scpi import NAME, WireError
 
 Bounds = Callable[[Limits], tuple[float | None, float | None]]
 
@@ -40,9 +40,6 @@ MAX_COARSE_STEPS = 100_000
 MAX_SAMPLES = 1 << 34
 MAX_CHUNK = 1 << 20
 MAX_SWEEP_POINTS = 2048  # per request; the client drivers split longer sweeps
-MAX_LIST = 4096  # values in any list argument
-#: Device-dependent (positive) error code of a call stopped by an abort; the client raises ``Aborted`` for it.
-ABORTED_CODE = 280
 
 
 @dataclass(frozen=True)
@@ -100,8 +97,8 @@ def _check_passes(lim: Limits, args: tuple) -> None:
     if len(flat) // 2 > MAX_PASSES:
         raise LimitExceeded("second passes", len(flat) // 2, 0, MAX_PASSES, "")
     for lift, bias in zip(flat[0::2], flat[1::2]):
-        _within("lift_height_m", lift, 0.0, lim.z_range_m, "m")
-        _within("bias_v", bias, -lim.bias_max_v, lim.bias_max_v, "V")
+        within("lift_height_m", lift, 0.0, lim.z_range_m, "m")
+        within("bias_v", bias, -lim.bias_max_v, lim.bias_max_v, "V")
 
 
 def _check_sweep(lim: Limits, args: tuple) -> None:
@@ -109,7 +106,7 @@ def _check_sweep(lim: Limits, args: tuple) -> None:
     if not 1 <= len(freqs) <= MAX_SWEEP_POINTS:
         raise LimitExceeded("sweep points", len(freqs), 1, MAX_SWEEP_POINTS, "")
     for f in freqs:
-        _within("frequency_hz", f, 0.0, lim.frequency_max_hz, "Hz")
+        within("frequency_hz", f, 0.0, lim.frequency_max_hz, "Hz")
 
 
 def _line_spec(args: tuple) -> LineSpec:
@@ -179,7 +176,7 @@ def _hint_invoke(c: Controller, args: tuple) -> tuple:
     # "name=value" items: the interface lets a controller name any quantity it knows about the probe
     hint = c.probe_hint() or {}
     return (tuple(f"{k}={float(v)!r}" for k, v in sorted(hint.items())
-                  if _NAME.match(str(k)) and v is not None),)
+                  if NAME.match(str(k)) and v is not None),)
 
 
 def _hint_unpack(args: tuple, f: tuple) -> dict[str, float] | None:
@@ -332,132 +329,3 @@ def resolve(header: str, query: bool) -> Command:
 def command(spelling: str) -> Command:
     """Look a command up by its canonical spelling, e.g. ``"MOTion:Z"`` or ``"STATus?"``."""
     return BY_HEADER[spelling]
-
-
-# ---- argument checks (both codecs deliver Python values; these are the server's gate) --------------------
-
-_NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]{0,63}$")
-
-
-def check_types(cmd: Command, args: tuple) -> tuple:
-    """Validate decoded argument values against the command's kinds; returns them normalised.
-
-    Raises :class:`WireError`: -109 missing, -108 too many, -104 wrong type.
-    """
-    if not isinstance(args, tuple):
-        raise WireError(-104, "arguments must be a sequence")
-    if len(args) < len(cmd.params):
-        raise WireError(-109, f"{cmd.spelling} needs {', '.join(p.name for p in cmd.params)}")
-    if len(args) > len(cmd.params):
-        raise WireError(-108, f"{cmd.spelling} takes {len(cmd.params)} parameters, got {len(args)}")
-    return tuple(check_value(p.kind, v, p.name) for p, v in zip(cmd.params, args))
-
-
-def check_value(kind: str, v: Any, name: str) -> Any:
-    if kind.endswith("*"):
-        if not isinstance(v, (tuple, list)):
-            raise WireError(-104, f"{name} must be a list")
-        if len(v) > MAX_LIST:
-            raise WireError(-223, f"{name} has {len(v)} values, more than {MAX_LIST}")
-        return tuple(check_value(kind[:-2], x, name) for x in v)
-    if kind == "float":
-        if isinstance(v, bool) or not isinstance(v, (int, float)):
-            raise WireError(-104, f"{name} must be a number")
-        return float(v)
-    if kind == "opt_float":
-        return None if v is None else check_value("float", v, name)
-    if kind == "int":
-        if isinstance(v, bool) or not isinstance(v, int):
-            raise WireError(-104, f"{name} must be an integer")
-        return int(v)
-    if kind == "bool":
-        if not isinstance(v, bool):
-            raise WireError(-104, f"{name} must be a boolean")
-        return v
-    if kind == "name":
-        if not isinstance(v, str) or not _NAME.match(v):
-            raise WireError(-104, f"{name} must be a name of letters, digits and _")
-        return v
-    if kind in ("str", "text"):
-        if not isinstance(v, str) or len(v) > 1024 or any(not 32 <= ord(c) < 127 for c in v):
-            raise WireError(-104, f"{name} must be printable ASCII text of at most 1024 characters")
-        return v
-    raise WireError(-104, f"{name}: unknown kind {kind}")
-
-
-def check_limits(cmd: Command, args: tuple, limits: Limits) -> None:
-    """Refuse anything outside the hard limits (NaN and infinities included): raises LimitExceeded."""
-    for p, v in zip(cmd.params, args):
-        if p.bounds is not None and v is not None:
-            low, high = p.bounds(limits)
-            _within(p.name, v, low, high, p.unit)
-        elif p.kind in ("float", "opt_float") and v is not None and not math.isfinite(v):
-            raise LimitExceeded(p.name, v, None, None, p.unit)
-    if cmd.check is not None:
-        cmd.check(limits, args)
-
-
-def _within(name: str, v: float, low: float | None, high: float | None, unit: str) -> None:
-    ok = math.isfinite(v) and (low is None or v >= low) and (high is None or v <= high)
-    if not ok:
-        raise LimitExceeded(name, v, low, high, unit)
-
-
-# ---- errors across the wire -----------------------------------------------------------------------------
-
-_LIMIT_TEXT = re.compile(r"^(.+?) = (\S+) (\S*) ?is outside the allowed range \[(\S+), (\S+)\] ?(\S*)$")
-
-
-def error_for(exc: BaseException) -> tuple[int, str]:
-    """The SCPI code and message that report ``exc`` to a client. Never includes anything but the error."""
-    from drivers import errors as e
-
-    if isinstance(exc, WireError):
-        return exc.code, str(exc)
-    if isinstance(exc, e.LimitExceeded):
-        return -222, f"Data out of range;{exc}"
-    if isinstance(exc, e.CapabilityMissing):
-        return -241, f"Hardware missing;{exc}"
-    if isinstance(exc, e.Aborted):
-        return ABORTED_CODE, f"Aborted;{exc}"
-    if isinstance(exc, e.ControllerFault):
-        plain = re.sub(r"^controller fault -?\d+: ", "", str(exc))  # the receiving end adds it again
-        if isinstance(exc, e.LaserLost):
-            return -231, f"Data questionable;{exc.code};{plain}"
-        code = exc.code if isinstance(exc.code, int) and exc.code != 0 and -999 <= exc.code <= 32767 else -300
-        return code, f"Device-specific error;{plain}"
-    if isinstance(exc, (e.LinkTimeout, e.LinkLost)):
-        return -240, f"Hardware error;{type(exc).__name__}: {exc}"
-    if isinstance(exc, e.ControllerError):
-        return -200, f"Execution error;{type(exc).__name__}: {exc}"
-    if isinstance(exc, (ValueError, TypeError)):
-        return -224, f"Illegal parameter value;{type(exc).__name__}: {str(exc)[:200]}"
-    return -200, f"Execution error;{type(exc).__name__}: {str(exc)[:200]}"
-
-
-def exception_for(code: int, message: str) -> Exception:
-    """The client-side exception for an error reported by the server (inverse of :func:`error_for`)."""
-    from drivers import errors as e
-
-    _, _, info = message.partition(";")
-    info = info or message
-    if code == -222:
-        m = _LIMIT_TEXT.match(info)
-        if m:
-            q, v, unit, lo, hi, _ = m.groups()
-            to_f = lambda t: None if t in ("-inf", "inf") else float(t)  # noqa: E731
-            try:
-                return e.LimitExceeded(q, float(v), to_f(lo), to_f(hi), unit)
-            except ValueError:
-                pass
-        return e.ControllerFault(code, info)
-    if code == -241:
-        return e.CapabilityMissing(info)
-    if code == ABORTED_CODE:
-        return e.Aborted(info)
-    if code == -231:
-        m = re.match(r"^(-?\d{1,6});(.*)$", info, re.S)
-        return e.LaserLost(int(m.group(1)), m.group(2)) if m else e.LaserLost(code, info)
-    if -199 <= code <= -100:
-        return WireError(code, info)
-    return e.ControllerFault(code, info)

@@ -20,7 +20,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from drivers.wire.commands import BY_HEADER, Command, check_types, check_value
+from drivers.wire.checks import check_types, check_value
+from drivers.wire.commands import BY_HEADER, Command
 from drivers.wire.scpi import WireError
 
 VERSION = 1

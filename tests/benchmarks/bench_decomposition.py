@@ -23,10 +23,10 @@ import warnings
 import numpy as np
 from scipy.optimize import curve_fit
 
-from assistant.analysis import decomposition as dec
-from assistant.analysis.continuation_reflect import fit_continuation_reflect
-from assistant.analysis.series import analyse_series
-from tests.analysis.synthetic_series import build_series
+from assistant.analysis import lift_series as dec
+from assistant.analysis.lift_series.reflected import fit_continuation_reflected
+from assistant.analysis.lift_series.decomposition import analyse_series
+from tests.analysis.lift_series.synthetic_series import build_series
 
 HEIGHTS = np.array([20, 30, 40, 55, 70, 90, 110, 140]) * 1e-9
 
@@ -57,13 +57,13 @@ def run() -> dict:
                      margin_px=64, drift_px=np.c_[np.linspace(0, 1.5, 8), np.linspace(0, -1.0, 8)])
     stack = s.phase_deg
     band = int(np.ceil((HEIGHTS[-1] - HEIGHTS[0]) / s.pixel_m)) + 4  # as analyse_series chooses it
-    noise = fit_continuation_reflect(stack, heights_m=HEIGHTS, pixel_m=s.pixel_m, interior_px=band).noise_std
+    noise = fit_continuation_reflected(stack, heights_m=HEIGHTS, pixel_m=s.pixel_m, interior_px=band).noise_std
     (ours, ours_med), (weighted, _), (plain, plain_med), (periodic, _) = _interleaved([
-        lambda: fit_continuation_reflect(stack, heights_m=HEIGHTS, pixel_m=s.pixel_m, interior_px=band),
-        lambda: fit_continuation_reflect(stack, heights_m=HEIGHTS, pixel_m=s.pixel_m, interior_px=band,
+        lambda: fit_continuation_reflected(stack, heights_m=HEIGHTS, pixel_m=s.pixel_m, interior_px=band),
+        lambda: fit_continuation_reflected(stack, heights_m=HEIGHTS, pixel_m=s.pixel_m, interior_px=band,
                                          noise_std=noise),
         lambda: _plain_numpy(stack, HEIGHTS, s.pixel_m),
-        lambda: dec.fit_continuation(stack, heights_m=HEIGHTS, pixel_m=s.pixel_m)])
+        lambda: dec.fit_continuation_periodic(stack, heights_m=HEIGHTS, pixel_m=s.pixel_m)])
     fits = []
     ((windowed, windowed_med),) = _interleaved([
         lambda: fits.append(dec.fit_continuation_windowed(stack, heights_m=HEIGHTS, pixel_m=s.pixel_m))], repeats=3)

@@ -15,7 +15,8 @@ import numpy as np
 import scipy.optimize
 import scipy.signal
 
-from assistant.analysis.thermal import BOLTZMANN_J_PER_K, analyse_thermal_record, default_segment_length
+from assistant.analysis.constants import BOLTZMANN_J_PER_K
+from assistant.analysis.calibration import analyse_thermal_record, default_segment_length
 
 FS, N, F0, Q, K, T, INVOLS = 2e6, 2**24, 75e3, 200.0, 2.8, 298.15, 50e-9
 

@@ -13,7 +13,8 @@ import time
 
 import numpy as np
 
-from assistant.analysis.thermal import BOLTZMANN_J_PER_K, analyse_thermal_record
+from assistant.analysis.constants import BOLTZMANN_J_PER_K
+from assistant.analysis.calibration import analyse_thermal_record
 
 CASES = {  # name: (f0 [Hz], Q, rate [Hz], samples)
     "75kHz_Q200": (75e3, 200.0, 1e6, 2**22),

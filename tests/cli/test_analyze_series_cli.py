@@ -12,7 +12,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from tests.analysis import synthetic_series as synthetic
+from tests.analysis.lift_series import synthetic_series as synthetic
 
 KEYS = ("heights_nm", "magnetic_rms_deg", "electrostatic_mean_deg", "short_range_mean_deg", "residual_rms_deg",
         "drift_px", "cpd_v", "recommended_lift_nm")

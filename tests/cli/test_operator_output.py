@@ -70,7 +70,7 @@ def _thermal_csv(path, *, bad_line=None):
 
 
 def test_thermal_and_sweep_plots_are_written(tmp_path, capsys):
-    from assistant.analysis.sweep import oscillator_response
+    from assistant.analysis.calibration import oscillator_response
 
     f = np.linspace(74e3, 76e3, 201)
     amp, phase = oscillator_response(f, f0_hz=75e3, q=200.0, amplitude_at_resonance_v=0.02, phase_offset_deg=-5.0)
@@ -80,8 +80,8 @@ def test_thermal_and_sweep_plots_are_written(tmp_path, capsys):
     out = capsys.readouterr().out
     assert "resonance f0: 75" in out and "kHz" in out and (tmp_path / "sw.png").read_bytes()[:8] == PNG
     # a thermal record of a lever (Nørrelykke & Flyvbjerg 2011 exact sampling, as the stage does) is costly; the
-    # session route reads a stored spectrum instead: an oscillator PSD (its formula in assistant.analysis.thermal)
-    from assistant.analysis.thermal import oscillator_psd
+    # session route reads a stored spectrum instead: an oscillator PSD (its formula in assistant.analysis.calibration.thermal_fit)
+    from assistant.analysis.calibration import oscillator_psd
     from assistant.storage import SessionFile
 
     fs = np.linspace(0, 1e6, 2**15 + 1)

@@ -18,8 +18,7 @@ from drivers.base import (
     Capability, Controller, ControllerInfo, ForceCurve, LineData, LineSpec, Limits, PassData, Status, SweepData,
 )
 from drivers.errors import ControllerFault, LaserLost
-from simulated_stage.errors import StageFault
-from simulated_stage.faults import LASER_LOSS_CODE
+from simulated_stage.errors import LASER_LOST, StageFault
 
 ROOT = Path(__file__).resolve().parents[2]
 
@@ -99,7 +98,7 @@ class FakeController(Controller):
         try:
             return getattr(self.stage, name)(*args)
         except StageFault as exc:
-            if exc.code == LASER_LOSS_CODE:
+            if exc.code == LASER_LOST:
                 raise LaserLost(exc.code, str(exc)) from exc
             raise ControllerFault(exc.code, str(exc)) from exc
 

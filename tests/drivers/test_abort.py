@@ -23,7 +23,7 @@ from drivers.base import LineSpec, SecondPass  # noqa: E402
 from drivers.conformance.trials import engage  # noqa: E402
 from drivers.errors import Aborted  # noqa: E402
 from drivers.registry import open_controller  # noqa: E402
-from drivers.server_inflight import is_abort_line  # noqa: E402
+from drivers.server.inflight import is_abort_line  # noqa: E402
 
 pytestmark = pytest.mark.timeout(60)
 BOUND_S = 1.0
@@ -149,7 +149,7 @@ def test_abort_lines_are_recognised_by_their_first_command(line, yes):
 
 
 def test_server_watchdog_aborts_a_command_that_overruns():
-    from drivers.server import Dispatcher, _Session
+    from drivers.server import Dispatcher, Session
     from drivers.wire.commands import command
 
     class Clock:
@@ -160,7 +160,7 @@ def test_server_watchdog_aborts_a_command_that_overruns():
 
     clock, sim = Clock(), kit_controller()
     d = Dispatcher(sim, watchdog_s=1.0, clock=clock)
-    d.watch.begin(command("SCAN:LINE?"), (0.0, 0.0, 1e-6, 8, 1.0, (20e-9, 0.0)), sim.limits, _Session())
+    d.watch.begin(command("SCAN:LINE?"), (0.0, 0.0, 1e-6, 8, 1.0, (20e-9, 0.0)), sim.limits, Session())
     # expected 2 * (1 + 1) / 1 Hz = 4 s; overdue after twice that, the clients' 2 s timeout and the 1 s limit
     clock.t = 10.9
     assert not d.watch.overrun()

@@ -18,10 +18,10 @@ sys.path.insert(0, str(Path(__file__).parent))
 from link_fakes import FakeController, ToyStage  # noqa: E402
 
 from drivers.errors import ControllerFault, LaserLost  # noqa: E402
-from simulated_stage.errors import ScenarioError, StageFault  # noqa: E402
-from simulated_stage.faults import (  # noqa: E402
-    LASER_LOSS_CODE, STAGE_KINDS, Z_JUMP_CODE, FaultPlan, FaultyStage, gate_for,
-)
+from drivers.fault_plan import STAGE_KINDS, FaultPlan  # noqa: E402
+from drivers.link_faults import gate_for  # noqa: E402
+from simulated_stage.errors import LASER_LOST, Z_JUMP_CODE, ScenarioError, StageFault  # noqa: E402
+from simulated_stage.faults import FaultyStage  # noqa: E402
 
 ROOT = Path(__file__).resolve().parents[2]
 
@@ -110,7 +110,7 @@ def test_laser_loss_raises_and_persists_until_restored_but_safety_calls_work():
     proxy.set_bias(3.0)
     with pytest.raises(StageFault) as err:
         proxy.read(["sum_v"])
-    assert err.value.code == LASER_LOSS_CODE and "sum" in str(err.value)
+    assert err.value.code == LASER_LOST and "sum" in str(err.value)
     with pytest.raises(StageFault):
         proxy.move_z(1e-6)
     proxy.withdraw()

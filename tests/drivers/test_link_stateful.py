@@ -23,7 +23,8 @@ from link_fakes import FakeController, ThreadServer, ToyStage, connect  # noqa: 
 
 from drivers.base import LineSpec, SecondPass  # noqa: E402
 from drivers.errors import CapabilityMissing, ControllerError, LimitExceeded  # noqa: E402
-from simulated_stage.faults import STAGE_KINDS, Fault, FaultPlan, FaultyStage  # noqa: E402
+from drivers.fault_plan import STAGE_KINDS, Fault, FaultPlan  # noqa: E402
+from simulated_stage.faults import FaultyStage  # noqa: E402
 
 def link_faults(scale: float) -> tuple[Fault, ...]:
     """Link faults; those that cost a client timeout are kept rare in the default run to keep it fast."""
@@ -191,11 +192,11 @@ class SimLinkMachine(LinkMachine):
 
     def _truth(self):
         s = self.stage
-        return s.z.position_m, s.bias_v, s.drive_amplitude_v if s.drive_on else 0.0
+        return s.z.position_m, s.bias_v, s.lockin.amplitude_v if s.lockin.on else 0.0
 
     def _snapshot(self):
         s = self.stage
-        return (s.z.position_m, s.bias_v, s.drive_on, s.drive_frequency_hz, s.drive_amplitude_v, s.feedback_on,
+        return (s.z.position_m, s.bias_v, s.lockin.on, s.lockin.frequency_hz, s.lockin.amplitude_v, s.feedback.on,
                 s.coarse.position_m)
 
 

@@ -20,7 +20,7 @@ from drivers.base import LineSpec, SecondPass  # noqa: E402
 from drivers.errors import BadURL, LimitExceeded, LinkLost, LinkTimeout, ProtocolError  # noqa: E402
 from drivers.network_link import NetworkController  # noqa: E402
 from drivers.registry import open_controller  # noqa: E402
-from simulated_stage.faults import FaultPlan  # noqa: E402
+from drivers.fault_plan import FaultPlan  # noqa: E402
 
 pytestmark = pytest.mark.timeout(60)
 FIRST = OPEN_REQUESTS["zmq"]  # requests made while opening
@@ -168,7 +168,8 @@ def test_simulated_controller_over_the_link(transport):
 
     from drivers.errors import LaserLost
     from drivers.simulated import SimulatedController
-    from simulated_stage.faults import STAGE_KINDS, FaultyStage
+    from drivers.fault_plan import STAGE_KINDS
+    from simulated_stage.faults import FaultyStage
     from simulated_stage.scenario import build_microscope, load_scenario
 
     scenario = load_scenario("default")

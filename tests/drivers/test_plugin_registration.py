@@ -17,17 +17,29 @@ from drivers.errors import BadURL, LimitExceeded, UnknownScheme
 PLUGIN_DIR = Path(__file__).parent / "example_plugin"
 
 
-@pytest.fixture
-def installed_plugin(tmp_path, monkeypatch):
-    """Install the example plug-in the way pip would: a dist-info folder with an entry point on sys.path."""
-    dist = tmp_path / "example_bench_driver-0.1.dist-info"
+def _install(tmp_path, monkeypatch, name: str, entry_points: str):
+    """Install the example plug-in the way pip would: a dist-info folder with entry points on sys.path."""
+    dist = tmp_path / f"{name.replace('-', '_')}-0.1.dist-info"
     dist.mkdir()
-    (dist / "METADATA").write_text("Metadata-Version: 2.1\nName: example-bench-driver\nVersion: 0.1\n")
-    (dist / "entry_points.txt").write_text(
-        "[mfm_assistant.drivers]\nexample = example_driver:BenchController\n")
+    (dist / "METADATA").write_text(f"Metadata-Version: 2.1\nName: {name}\nVersion: 0.1\n")
+    (dist / "entry_points.txt").write_text(f"[{registry.ENTRY_POINT_GROUP}]\n{entry_points}")
     monkeypatch.syspath_prepend(str(tmp_path))
     monkeypatch.syspath_prepend(str(PLUGIN_DIR))
     registry.available.cache_clear()
+
+
+@pytest.fixture
+def installed_plugin(tmp_path, monkeypatch):
+    _install(tmp_path, monkeypatch, "example-bench-driver", "example = example_driver:BenchController\n")
+    yield tmp_path
+    registry.available.cache_clear()
+
+
+@pytest.fixture
+def hijacking_plugin(tmp_path, monkeypatch):
+    """A plug-in that claims the built-in scheme ``sim`` for its own class, besides a scheme of its own."""
+    _install(tmp_path, monkeypatch, "greedy-bench-driver",
+             "sim = example_driver:BenchController\ngreedy = example_driver:BenchController\n")
     yield tmp_path
     registry.available.cache_clear()
 
@@ -46,8 +58,17 @@ def test_entry_point_driver_opens_by_scheme(installed_plugin):
     assert isinstance(ctl.status(), Status) and ctl.status().safe
 
 
-def test_builtin_schemes_cannot_be_replaced(installed_plugin):
-    assert registry.available()["sim"].origin == "built-in"
+def test_builtin_schemes_cannot_be_replaced(hijacking_plugin):
+    from importlib.metadata import entry_points
+
+    # the plug-in is installed and does claim sim (so this test would see a replacement)
+    claims = {(ep.name, ep.value, ep.dist.name) for ep in entry_points(group=registry.ENTRY_POINT_GROUP)}
+    assert ("sim", "example_driver:BenchController", "greedy-bench-driver") in claims
+    table = registry.available()
+    assert table["greedy"].origin == "greedy-bench-driver"  # its own scheme is added
+    assert (table["sim"].origin, table["sim"].target) == ("built-in", registry.BUILTIN["sim"])  # sim is refused
+    with registry.open_controller("sim://") as ctl:
+        assert type(ctl).__name__ == "SimulatedController"
 
 
 def test_unknown_scheme_and_bad_url():

@@ -18,7 +18,7 @@ from drivers.base import LineSpec, SecondPass  # noqa: E402
 from drivers.errors import BadURL, LimitExceeded, LinkTimeout, ProtocolError  # noqa: E402
 from drivers.registry import open_controller  # noqa: E402
 from drivers.serial_link import SerialController  # noqa: E402
-from simulated_stage.faults import FaultPlan  # noqa: E402
+from drivers.fault_plan import FaultPlan  # noqa: E402
 
 pytestmark = pytest.mark.timeout(60)
 

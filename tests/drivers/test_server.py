@@ -12,9 +12,11 @@ import pytest
 sys.path.insert(0, str(Path(__file__).parent))
 from link_fakes import FakeController, ThreadServer, ToyStage  # noqa: E402
 
-from drivers.server import Dispatcher, InsecureBind, _Session, is_loopback, serve  # noqa: E402
+from drivers.registry import is_loopback  # noqa: E402
+from drivers.server import Dispatcher, InsecureBind, Session, serve  # noqa: E402
 from drivers.wire import scpi  # noqa: E402
-from simulated_stage.faults import STAGE_KINDS, FaultPlan, FaultyStage  # noqa: E402
+from drivers.fault_plan import STAGE_KINDS, FaultPlan  # noqa: E402
+from simulated_stage.faults import FaultyStage  # noqa: E402
 
 
 def _line(d, session, text):
@@ -23,7 +25,7 @@ def _line(d, session, text):
 
 def test_hostile_values_never_reach_the_controller():
     fake = FakeController()
-    d, s = Dispatcher(fake, watchdog_s=None), _Session()
+    d, s = Dispatcher(fake, watchdog_s=None), Session()
     for text in ("MOT:Z 1", "MOT:Z -1e-9", "MOT:Z NAN", "MOT:Z INF", "BIAS:VOLT 10.000001", "BIAS:VOLT -1e300",
                  "DRIV:SET 1e5,5", "DRIV:SET -1,0.1", "SCAN:LINE? 0,0,1e-6,16,1,1e-3,0", "SCAN:LINE? 0,0,1e-6,16,1,2e-8,20",
                  "MOT:XY 1,1", "FEED:SET 1,NAN,DEF,DEF", "FEED:SET 1,DEF,-1,DEF", "MOT:COAR 1000000"):
@@ -37,7 +39,7 @@ def test_hostile_values_never_reach_the_controller():
 
 def test_at_the_limits_the_command_runs():
     fake = FakeController()
-    d, s = Dispatcher(fake, watchdog_s=None), _Session()
+    d, s = Dispatcher(fake, watchdog_s=None), Session()
     _line(d, s, f"MOT:Z {fake.limits.z_range_m!r};BIAS:VOLT -{fake.limits.bias_max_v!r}")
     assert s.errors.pop() == (0, "No error")
     assert fake.stage.z_m == fake.limits.z_range_m and fake.stage.bias_v == -fake.limits.bias_max_v
@@ -48,7 +50,7 @@ def test_a_controller_fault_leaves_the_stage_safe_and_is_reported():
     proxy = FaultyStage(stage, FaultPlan.from_specs(["error_code:after=0:code=333:methods=scan"])
                         .schedule(STAGE_KINDS))
     fake = FakeController(proxy)
-    d, s = Dispatcher(fake, watchdog_s=None), _Session()
+    d, s = Dispatcher(fake, watchdog_s=None), Session()
     _line(d, s, "FEED:SET 1,DEF,DEF,DEF;BIAS:VOLT 2;DRIV:SET 7e4,0.1")
     assert fake.status().engaged
     assert _line(d, s, "SCAN:LINE? 0,0,1e-6,16,1,2e-8,0") is None
@@ -62,14 +64,14 @@ def test_unexpected_exceptions_are_execution_errors():
         def read(self, channels):
             raise ZeroDivisionError("boom")
 
-    d, s = Dispatcher(Broken(), watchdog_s=None), _Session()
+    d, s = Dispatcher(Broken(), watchdog_s=None), Session()
     _line(d, s, "MEAS:READ? sum_v")
     code, message = s.errors.pop()
     assert code == -200 and "ZeroDivisionError" in message
 
 
 def test_deflection_record_without_start_is_a_settings_conflict():
-    d, s = Dispatcher(FakeController(), watchdog_s=None), _Session()
+    d, s = Dispatcher(FakeController(), watchdog_s=None), Session()
     _line(d, s, "ACQ:DEFL:NEXT?")
     assert s.errors.pop()[0] == -221
 
@@ -125,7 +127,7 @@ def test_unknown_transport():
 
 
 def test_error_queue_is_per_stream_session_and_bounded():
-    d, s = Dispatcher(FakeController(), watchdog_s=None), _Session()
+    d, s = Dispatcher(FakeController(), watchdog_s=None), Session()
     for _ in range(100):
         _line(d, s, "NOPE")
     assert len(s.errors) == 32
@@ -146,7 +148,7 @@ LINE_JUNK = st.binary(max_size=200) | st.lists(st.sampled_from(
 @given(st.lists(LINE_JUNK, min_size=1, max_size=5))
 def test_dispatcher_survives_any_lines(lines):
     fake = FakeController()
-    d, s = Dispatcher(fake, watchdog_s=None), _Session()
+    d, s = Dispatcher(fake, watchdog_s=None), Session()
     for line in lines:
         reply = d.handle_line(line.replace(b"\n", b" "), s)
         assert reply is None or reply.endswith(b"\n")

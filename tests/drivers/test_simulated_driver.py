@@ -10,7 +10,7 @@ from drivers.errors import BadURL, ControllerError, ControllerFault, LaserLost, 
 from drivers.registry import open_controller
 from drivers.simulated import SimulatedController
 from simulated_stage.clock import VirtualClock
-from simulated_stage.instrument import NOT_ENGAGED
+from simulated_stage.errors import NOT_ENGAGED
 from tests.simulated_stage.fake_sample import FlatSample
 
 

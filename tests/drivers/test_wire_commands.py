@@ -10,7 +10,9 @@ import pytest
 
 from drivers.base import Controller, Limits
 from drivers.errors import CapabilityMissing, ControllerFault, LaserLost, LimitExceeded
-from drivers.wire.commands import COMMANDS, check_limits, check_types, command, error_for, exception_for
+from drivers.wire.checks import check_limits, check_types
+from drivers.wire.commands import COMMANDS, command
+from drivers.wire.error_map import error_for, exception_for
 from drivers.wire.scpi import WireError
 
 

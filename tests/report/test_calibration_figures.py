@@ -5,8 +5,8 @@ import sys
 import numpy as np
 import pytest
 
-from assistant.analysis.sweep import fit_drive_sweep, oscillator_response
-from assistant.analysis.thermal import analyse_thermal_record, calibrate_thermal, fit_thermal_spectrum
+from assistant.analysis.calibration.sweep import fit_drive_sweep, oscillator_response
+from assistant.analysis.calibration import analyse_thermal_record, calibrate_thermal, fit_thermal_spectrum
 from assistant.report.calibration_figures import (
     sweep_figure, thermal_figure, write_sweep_figure, write_thermal_figure,
 )

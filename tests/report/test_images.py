@@ -11,7 +11,7 @@ import pytest
 from matplotlib.image import AxesImage
 
 import assistant
-from assistant.report import images
+from assistant.report import colours, images
 
 # ---- independent forward conversion sRGB -> CIELAB for the checks (IEC 61966-2-1:1999; CIE 15:2004) -----
 _SRGB_TO_XYZ = np.array([[0.4124, 0.3576, 0.1805], [0.2126, 0.7152, 0.0722], [0.0193, 0.1192, 0.9505]])
@@ -30,20 +30,20 @@ def _srgb_to_lab(rgb: np.ndarray) -> np.ndarray:
 def test_lab_to_srgb_reference_colours():
     # sRGB red (1, 0, 0) is CIELAB (53.2408, 80.0925, 67.2032) under D65 (value from memory, as tabulated from
     # the IEC 61966-2-1 primaries); white and black are exact.
-    np.testing.assert_allclose(images.lab_to_srgb([53.2408, 80.0925, 67.2032]), [1, 0, 0], atol=2e-3)
-    np.testing.assert_allclose(images.lab_to_srgb([100, 0, 0]), [1, 1, 1], atol=2e-4)
-    np.testing.assert_allclose(images.lab_to_srgb([0, 0, 0]), [0, 0, 0], atol=1e-12)
+    np.testing.assert_allclose(colours.lab_to_srgb([53.2408, 80.0925, 67.2032]), [1, 0, 0], atol=2e-3)
+    np.testing.assert_allclose(colours.lab_to_srgb([100, 0, 0]), [1, 1, 1], atol=2e-4)
+    np.testing.assert_allclose(colours.lab_to_srgb([0, 0, 0]), [0, 0, 0], atol=1e-12)
     # grey 0.5: Y from the sRGB transfer function, L* = 116 Y^(1/3) - 16 (CIE 15:2004)
     y = ((0.5 + 0.055) / 1.055) ** 2.4
-    np.testing.assert_allclose(images.lab_to_srgb([116 * np.cbrt(y) - 16, 0, 0]), [0.5] * 3, atol=2e-4)
+    np.testing.assert_allclose(colours.lab_to_srgb([116 * np.cbrt(y) - 16, 0, 0]), [0.5] * 3, atol=2e-4)
     # round trip through the independent forward conversion
     rng = np.random.default_rng(3)
     rgb = rng.uniform(0.05, 0.95, (50, 3))
-    np.testing.assert_allclose(images.lab_to_srgb(_srgb_to_lab(rgb)), rgb, atol=2e-3)
+    np.testing.assert_allclose(colours.lab_to_srgb(_srgb_to_lab(rgb)), rgb, atol=2e-3)
 
 
 def test_phase_map_dark_negative_neutral_zero_and_uniform_steps():
-    raw = images.lab_to_srgb(images.phase_lab(257))
+    raw = colours.lab_to_srgb(colours.phase_lab(257))
     assert raw.min() >= 0.0 and raw.max() <= 1.0  # no clipping anywhere: the map is what was designed
     rgb = images.phase_colormap(257)(np.linspace(0, 1, 257))[:, :3]
     lab = _srgb_to_lab(rgb)

@@ -8,9 +8,9 @@ import pytest
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.image import AxesImage
 
-from assistant.analysis.series import analyse_series
+from assistant.analysis.lift_series.decomposition import analyse_series
 from assistant.report import series_figures as sf
-from tests.analysis.synthetic_series import build_series
+from tests.analysis.lift_series.synthetic_series import build_series
 
 HEIGHTS = np.array([10, 14, 18, 24, 30, 40]) * 1e-9
 UNIT = re.compile(r"\((deg|nm|µm|V)\)")

@@ -4,12 +4,11 @@ from __future__ import annotations
 
 import json
 import re
-import sys
-import types
 
 import numpy as np
 import pytest
 
+from assistant.report import summary
 from assistant.report.summary import build_report, format_value
 from assistant.storage import SessionFile
 
@@ -26,13 +25,6 @@ CAL = {"k_n_per_m": 2.8012, "k_std_n_per_m": 0.0834, "f0_hz": 75012.31, "f0_std_
 ])
 def test_format_value(value, std, text):
     assert format_value(value, std) == text
-
-
-@pytest.fixture
-def no_colleague_modules(monkeypatch):
-    # whether or not colleagues' figure modules are installed, these tests see them absent
-    monkeypatch.setitem(sys.modules, "assistant.report.calibration_figures", None)
-    monkeypatch.setitem(sys.modules, "assistant.report.series_figures", None)
 
 
 def _session(path, *, biases=None, lines_done=24):
@@ -56,11 +48,22 @@ def _session(path, *, biases=None, lines_done=24):
                           "magnetic_rms_std_deg": np.array([0.05, 0.04, 0.03])})
 
 
-def test_report_figures_and_every_number(tmp_path, no_colleague_modules):
+def _quick_series_figures(result, directory, **options):
+    # stand-ins for the decomposition figures (drawn for real in test_series_figures): the file names only
+    paths = [directory / f"decomposition_{stem}.png" for stem in ("mean", "magnetic", "maps")]
+    for path in paths:
+        path.write_bytes(PNG)
+    return paths
+
+
+def test_report_figures_and_every_number(tmp_path, monkeypatch):
     _session(tmp_path / "s.h5")
+    monkeypatch.setattr(summary, "write_series_figures", _quick_series_figures)
     result = build_report(tmp_path / "s.h5", tmp_path / "out")
     names = sorted(p.name for p in result.paths)
-    assert names == ["lift_phase.png", "lift_topography.png", "summary.md"]
+    # no decomposition stored with the series (a hand-made record): the figures come from one computed now
+    assert names == ["decomposition_magnetic.png", "decomposition_maps.png", "decomposition_mean.png",
+                     "lift_phase.png", "lift_topography.png", "summary.md"]
     for p in result.paths:
         assert p.is_file()
         if p.suffix == ".png":
@@ -84,42 +87,53 @@ def test_report_figures_and_every_number(tmp_path, no_colleague_modules):
     assert not [r for r in tables if re.match(r"\| [a-z0-9]+(_[a-z0-9]+)+ \|", r)], "snake_case key in a table"
     assert not [r for r in tables if r.endswith("| 1 |")], "'1' as a unit"
     assert "e-0" not in text and "e+0" not in text  # no e-notation
-    assert len(result.notes) == 2 and all("skipped" in n for n in result.notes)
-    assert "calibration_figures is not installed" in text
+    assert result.notes == ()
 
 
-def test_bias_grid_gives_one_phase_figure_per_bias(tmp_path, no_colleague_modules):
+def test_bias_grid_gives_one_phase_figure_per_bias(tmp_path):
     _session(tmp_path / "b.h5", biases=[-1.0, 1.0], lines_done=5)
     result = build_report(tmp_path / "b.h5", tmp_path / "out")
     names = sorted(p.name for p in result.paths)
     assert names == ["lift_phase_bias0.png", "lift_phase_bias1.png", "lift_topography.png", "summary.md"]
     assert "| 20 | -1 |" in result.summary_text and "- tip biases: -1, 1 V" in result.summary_text
+    # five lines are too few to decompose: no decomposition figures, and the summary says why
+    assert result.notes == ("decomposition figures of 'lift' failed: ImageShapeError: images must be at least "
+                            "8 x 8 pixels, got (5, 32)",)
 
 
-def test_colleague_module_used_through_its_session_hook_and_failures_become_notes(tmp_path, monkeypatch):
-    _session(tmp_path / "s.h5", lines_done=4)
-    calls = []
+def test_a_failing_figure_becomes_a_note(tmp_path, monkeypatch):
+    _session(tmp_path / "s.h5", lines_done=8)
 
-    def figures_from_session(session, out_dir):
-        calls.append(session.series_names())
-        (out_dir / "thermal_fit.png").write_bytes(PNG)
-        return [out_dir / "thermal_fit.png"]
+    def broken(result, directory, **options):
+        raise RuntimeError("disk on fire")
 
-    def broken(session, out_dir):
-        raise RuntimeError("no decomposition stored")
-
-    monkeypatch.setitem(sys.modules, "assistant.report.calibration_figures",
-                        types.SimpleNamespace(figures_from_session=figures_from_session))
-    monkeypatch.setitem(sys.modules, "assistant.report.series_figures",
-                        types.SimpleNamespace(figures_from_session=broken))
+    monkeypatch.setattr(summary, "write_series_figures", broken)
     result = build_report(tmp_path / "s.h5", tmp_path / "out")
-    assert calls == [["lift"]]
-    assert "thermal_fit.png" in [p.name for p in result.paths]
-    assert result.notes == ("series figures failed: RuntimeError: no decomposition stored",)
-    assert "- thermal_fit.png" in result.summary_text
+    assert result.notes == ("decomposition figures of 'lift' failed: RuntimeError: disk on fire",)
+    assert sorted(p.name for p in result.paths) == ["lift_phase.png", "lift_topography.png", "summary.md"]
+    assert "- disk on fire" not in result.summary_text and "RuntimeError: disk on fire" in result.summary_text
 
 
-def test_session_without_series_still_gets_a_summary(tmp_path, no_colleague_modules):
+def test_the_report_draws_the_stored_decomposition_without_computing_it_again(tmp_path, monkeypatch):
+    from assistant.procedures import analyse
+
+    _session(tmp_path / "s.h5")
+    with SessionFile.open(tmp_path / "s.h5", "a") as s:
+        stored = analyse.analyse_session_series(s, "lift")
+    drawn = []
+    monkeypatch.setattr(summary, "write_series_figures", lambda result, directory, **o: drawn.append(result) or [])
+
+    def no_second_decomposition(*args, **kwargs):
+        raise AssertionError("the report decomposed the series again")
+
+    monkeypatch.setattr(analyse, "analyse_series", no_second_decomposition)
+    result = build_report(tmp_path / "s.h5", tmp_path / "out")
+    assert result.notes == () and len(drawn) == 1
+    np.testing.assert_array_equal(drawn[0].magnetic_deg, stored.magnetic_deg)
+    assert drawn[0].recommendation.sentence == stored.recommendation.sentence
+
+
+def test_session_without_series_still_gets_a_summary(tmp_path):
     with SessionFile.create(tmp_path / "e.h5", controller_url="sim://", software_version="0.1.0") as s:
         s.write_calibration({"f0_hz": 13000.0})
         s.mark_complete()
@@ -128,9 +142,9 @@ def test_session_without_series_still_gets_a_summary(tmp_path, no_colleague_modu
     assert "| resonance f0 | 13 kHz |" in result.summary_text and "session complete: yes" in result.summary_text
 
 
-def test_calibration_figures_fallback_refits_the_stored_sweep_and_spectrum(tmp_path, monkeypatch):
-    from assistant.analysis.sweep import oscillator_response
-    from assistant.analysis.thermal import oscillator_psd
+def test_calibration_figures_refit_the_stored_sweep_and_spectrum(tmp_path, monkeypatch):
+    from assistant.analysis.calibration.sweep import oscillator_response
+    from assistant.analysis.calibration import oscillator_psd
 
     f = np.linspace(74e3, 76e3, 201)
     amp, phase = oscillator_response(f, f0_hz=75e3, q=200.0, amplitude_at_resonance_v=0.02, phase_offset_deg=-5.0)
@@ -146,14 +160,15 @@ def test_calibration_figures_fallback_refits_the_stored_sweep_and_spectrum(tmp_p
     def write_thermal_figure(result, path):
         seen["thermal"] = result
         path.write_bytes(PNG)
+        return path
 
     def write_sweep_figure(result, path):
         seen["sweep"] = result
         path.write_bytes(PNG)
+        return path
 
-    monkeypatch.setitem(sys.modules, "assistant.report.calibration_figures", types.SimpleNamespace(
-        write_thermal_figure=write_thermal_figure, write_sweep_figure=write_sweep_figure))
-    monkeypatch.setitem(sys.modules, "assistant.report.series_figures", None)
+    monkeypatch.setattr(summary, "write_thermal_figure", write_thermal_figure)
+    monkeypatch.setattr(summary, "write_sweep_figure", write_sweep_figure)
     result = build_report(tmp_path / "c.h5", tmp_path / "out")
     assert sorted(p.name for p in result.paths) == ["summary.md", "sweep.png", "thermal.png"]
     assert seen["sweep"].f0_hz == pytest.approx(75e3, rel=1e-6) and seen["sweep"].q == pytest.approx(200, rel=1e-4)
@@ -162,16 +177,10 @@ def test_calibration_figures_fallback_refits_the_stored_sweep_and_spectrum(tmp_p
 
 
 def test_second_report_into_the_same_folder_lists_the_same_files(tmp_path, monkeypatch):
-    with SessionFile.create(tmp_path / "s.h5", controller_url="sim://", software_version="0.1.0") as s:
-        s.write_calibration(CAL)
+    _session(tmp_path / "s.h5", lines_done=8)
 
-    def figures_from_session(session, out_dir):
-        (out_dir / "extra.png").write_bytes(PNG)
-
-    monkeypatch.setitem(sys.modules, "assistant.report.calibration_figures",
-                        types.SimpleNamespace(figures_from_session=figures_from_session))
-    monkeypatch.setitem(sys.modules, "assistant.report.series_figures", None)
+    monkeypatch.setattr(summary, "write_series_figures", _quick_series_figures)
     first = build_report(tmp_path / "s.h5", tmp_path / "out")
     second = build_report(tmp_path / "s.h5", tmp_path / "out")
     assert [p.name for p in first.paths] == [p.name for p in second.paths]
-    assert "extra.png" in [p.name for p in second.paths]
+    assert "decomposition_maps.png" in [p.name for p in second.paths]

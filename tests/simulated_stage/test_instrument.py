@@ -13,7 +13,8 @@ from scipy.optimize import curve_fit
 from scipy.signal import welch
 
 from simulated_stage.errors import StageFault, StageLimitError
-from simulated_stage.instrument import LASER_LOST, NOT_ENGAGED, driven_response
+from simulated_stage.errors import LASER_LOST, NOT_ENGAGED
+from simulated_stage.lockin import driven_response
 from simulated_stage.scenario import Scenario, build_microscope, load_scenario
 from tests.simulated_stage.fake_sample import FlatSample
 
@@ -103,7 +104,7 @@ def test_sweep_follows_driven_oscillator_with_offset():
     # lock-in noise: thermal PSD of the oscillator plus detector white noise, in a first-order low-pass of
     # noise-equivalent bandwidth 1/(4 tau); each quadrature has variance 2 S B
     s_th = 2 * KB * T / (math.pi * K * F0 * Q) / ((1 - (f / F0) ** 2) ** 2 + (f / (F0 * Q)) ** 2)
-    sigma = np.sqrt(2 * (s_th + (2e-6 / vm.volts_per_m) ** 2) / (4 * vm.lockin_time_constant_s))
+    sigma = np.sqrt(2 * (s_th + (2e-6 / vm.volts_per_m) ** 2) / (4 * vm.lockin.time_constant_s))
     assert np.all(np.abs(sweep.amplitude_v / vm.volts_per_m - amp) < 5 * sigma)
     assert np.all(np.abs(sweep.phase_deg - (90.0 - np.degrees(lag) - 12.0)) < np.degrees(5 * sigma / amp))
     z = (sweep.amplitude_v / vm.volts_per_m - amp) / sigma
@@ -123,7 +124,7 @@ def test_second_pass_phase_noise_is_the_thermal_limit():
     # Q dF'/k; <z_osc^2> = A^2 / 2 for the peak amplitude A. B: lock-in (ENBW 1/(4 tau)) then the pixel
     # average (1/(2 dwell)) combined as 1/(4 tau + 2 dwell), the stage's documented rule of thumb.
     dwell = 0.5 / (rate * n)
-    bandwidth = 1.0 / (4 * vm.lockin_time_constant_s + 2 * dwell)
+    bandwidth = 1.0 / (4 * vm.lockin.time_constant_s + 2 * dwell)
     amp = 20e-9
     dfp = math.sqrt(4 * K * KB * T * bandwidth / (2 * math.pi * F0 * Q * amp**2 / 2))
     expected_deg = math.degrees(Q * dfp / K)
@@ -221,7 +222,7 @@ def test_tip_exposure_on_every_pass():
     assert np.all(sample.exposure_log[0] < 1e-9)  # tapping: the closest approach touches the surface
     # closest approach of the second passes: the centre gap (setpoint gap + lift) minus the free amplitude
     free = float(vm.free_amplitude_m())
-    d_sp = vm._setpoint_gap_m(free, vm.setpoint_v / vm.volts_per_m)
+    d_sp = vm.feedback.setpoint_gap_m(free, vm.feedback.setpoint_v / vm.volts_per_m)
     np.testing.assert_allclose([e.mean() for e in sample.exposure_log[1:]], np.array([20e-9, 50e-9]) + d_sp - free,
                                atol=0.5e-9)
 
@@ -377,11 +378,11 @@ def test_feedback_without_setpoint_refused():
     vm.set_drive(F0, 0.2)
     with pytest.raises(StageFault, match="setpoint"):
         vm.set_feedback(True)
-    assert not vm.feedback_on and vm.z.position_m == 0.0
+    assert not vm.feedback.on and vm.z.position_m == 0.0
 
 
 def test_coarse_step_into_the_surface_is_a_crash():
-    from simulated_stage.instrument import TIP_CRASH
+    from simulated_stage.errors import TIP_CRASH
 
     vm = make()
     engage(vm)
@@ -409,12 +410,11 @@ def test_default_feedback_is_stable(rate_hz, pixels):
     vm = make()
     engage(vm)
     free = float(vm.free_amplitude_m())
-    sp = vm.setpoint_v / vm.volts_per_m
-    d_sp = vm._setpoint_gap_m(free, sp)
-    p = vm.config.tapping_sharpness
-    slope = free ** (p + 1) / (d_sp**p + free**p) ** (1 + 1 / p)
+    d_sp = vm.feedback.setpoint_gap_m(free, vm.feedback.setpoint_v / vm.volts_per_m)
+    slope = vm.feedback.gap_slope(free, d_sp)
     dt = 0.5 / (rate_hz * pixels * vm.config.servo_oversample)
-    _, _, den = vm._loop(dt, slope)
+    _, _, den = vm.feedback.loop(dt, slope, amplitude_time_s=vm.lockin.amplitude_time_s,
+                                  lockin_time_constant_s=vm.lockin.time_constant_s)
     assert np.max(np.abs(np.roots(den))) < 1.0
 
 
@@ -426,10 +426,10 @@ def test_discrete_loop_stability_agrees_with_routh_hurwitz(i_gain):
     vm = make()
     engage(vm)
     vm.set_feedback(True, i_gain=i_gain)
-    g, kp = 0.5, vm.p_gain
-    tau_a, tau_l = 2 * Q / (2 * math.pi * F0), vm.lockin_time_constant_s
+    g, kp = 0.5, vm.feedback.p_gain
+    tau_a, tau_l = 2 * Q / (2 * math.pi * F0), vm.lockin.time_constant_s
     stable = (tau_a + tau_l) * (1 + g * kp) > tau_a * tau_l * g * i_gain
     for dt in (1e-6, 1e-4, 1e-2):
-        _, _, den = vm._loop(dt, g)
+        _, _, den = vm.feedback.loop(dt, g, amplitude_time_s=tau_a, lockin_time_constant_s=tau_l)
         assert (np.max(np.abs(np.roots(den))) < 1.0) == stable
 

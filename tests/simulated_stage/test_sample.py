@@ -113,7 +113,7 @@ def test_height_expansion_between_nodes_is_accurate():
     probe_high = 50e-9 * np.exp(0.045)
     gap_high = probe_high - 30e-9
     approx = expanded.interaction(x, 0.0, gap_high, bias_v=0.3, amplitude_m=10e-9)
-    assert len(expanded._nodes) == 1
+    assert len(expanded.magnetic.nodes) == 1
     exact = build_sample(spec, TipSpec()).interaction(x, 0.0, gap_high, bias_v=0.3, amplitude_m=10e-9)
     scale = np.abs(exact.magnetic_gradient_n_per_m).max()
     err_g = np.abs(approx.magnetic_gradient_n_per_m - exact.magnetic_gradient_n_per_m).max() / scale
@@ -157,7 +157,7 @@ def test_rare_outliers_borrow_a_node_with_bounded_error():
     gaps = np.full(x.shape, 20e-9)
     gaps[::50] = 50e-9 * np.exp(0.14) - 30e-9
     out = sample.interaction(x, 0.0, gaps, bias_v=0.3, amplitude_m=10e-9)
-    assert len(sample._nodes) == 1
+    assert len(sample.magnetic.nodes) == 1
     exact = build_sample(spec, TipSpec()).interaction(x[::50], 0.0, gaps[::50], bias_v=0.3, amplitude_m=10e-9)
     err = np.abs(out.magnetic_gradient_n_per_m[::50] - exact.magnetic_gradient_n_per_m).max()
     # measured: 1.5e-2 of the largest value at 14 % (4.9e-3 at 10 %)
@@ -165,7 +165,7 @@ def test_rare_outliers_borrow_a_node_with_bounded_error():
     # when many points sit that far away, they get a node of their own
     gaps[::2] = 50e-9 * np.exp(0.14) - 30e-9
     sample.interaction(x, 0.0, gaps, bias_v=0.3, amplitude_m=10e-9)
-    assert len(sample._nodes) == 2
+    assert len(sample.magnetic.nodes) == 2
 
 
 def test_single_point_reads_are_summed_directly_and_agree_with_the_maps():
@@ -174,9 +174,9 @@ def test_single_point_reads_are_summed_directly_and_agree_with_the_maps():
     x = mg.pixel_centres_m(sample.n, sample.pixel_m)[100:120] + 3.3e-9  # between pixel centres
     single = np.array([sample.interaction(np.array([xi]), 5e-9, np.array([40e-9]), bias_v=0.3,
                                           amplitude_m=10e-9).magnetic_gradient_n_per_m[0] for xi in x])
-    assert len(sample._nodes) == 0
+    assert len(sample.magnetic.nodes) == 0
     line = sample.interaction(x, 5e-9, 40e-9, bias_v=0.3, amplitude_m=10e-9).magnetic_gradient_n_per_m
-    assert len(sample._nodes) == 1
+    assert len(sample.magnetic.nodes) == 1
     # Off the pixel centres the direct sum is the band-limited (trigonometric) interpolant, exact here since
     # exp(-k z) leaves nothing at the grid's Nyquist frequency; the maps use cubic splines. Measured
     # difference 1.4e-4 of the largest value: the spline interpolation error at 40 nm with 10 nm pixels.
@@ -186,7 +186,7 @@ def test_single_point_reads_are_summed_directly_and_agree_with_the_maps():
     sample = build_sample(SampleSpec(pattern="oop_tracks", roughness_nm=0.0, **SMALL), TipSpec())
     single = np.array([sample.interaction(np.array([xi]), 5e-9, np.array([40e-9]), bias_v=0.3,
                                           amplitude_m=10e-9).magnetic_gradient_n_per_m[0] for xi in centres])
-    assert len(sample._nodes) == 0
+    assert len(sample.magnetic.nodes) == 0
     line = sample.interaction(centres, 5e-9, 40e-9, bias_v=0.3, amplitude_m=10e-9).magnetic_gradient_n_per_m
     np.testing.assert_allclose(single, line, rtol=0, atol=1e-6 * np.abs(line).max())
 
@@ -197,7 +197,7 @@ def test_two_lift_heights_in_one_call_get_one_node_each():
     x = np.linspace(-1e-6, 1e-6, 256)
     gaps = np.stack([np.full(256, 20e-9), np.full(256, 60e-9)])
     sample.interaction(np.stack([x, x]), np.zeros((2, 256)), gaps, bias_v=0.0, amplitude_m=20e-9)
-    heights = sorted(z for _, z in sample._nodes)
+    heights = sorted(z for _, z in sample.magnetic.nodes)
     assert len(heights) == 2  # probe heights 50 and 90 nm, up to roughness (0.5 nm rms) and the 0.5 % grid
     assert heights[0] == pytest.approx(50e-9, rel=0.02) and heights[1] == pytest.approx(90e-9, rel=0.02)
 
@@ -206,9 +206,9 @@ def test_a_parked_tip_gets_a_map_after_repeated_reads():
     sample = build_sample(SampleSpec(**SMALL), TipSpec())
     for _ in range(20):
         sample.interaction(np.array([0.0]), 0.0, np.array([30e-9]), bias_v=0.0, amplitude_m=10e-9)
-    assert len(sample._nodes) == 0
+    assert len(sample.magnetic.nodes) == 0
     sample.interaction(np.array([0.0]), 0.0, np.array([30e-9]), bias_v=0.0, amplitude_m=10e-9)
-    assert len(sample._nodes) == 1
+    assert len(sample.magnetic.nodes) == 1
 
 
 def test_cache_budget_keeps_the_heights_in_use():
@@ -220,5 +220,5 @@ def test_cache_budget_keeps_the_heights_in_use():
             sample.interaction(x, 0.0, gap, bias_v=0.0, amplitude_m=10e-9)
     sample.interaction(x, 0.0, 150e-9, bias_v=0.0, amplitude_m=10e-9)
     sample.interaction(x, 0.0, 20e-9, bias_v=0.0, amplitude_m=10e-9)
-    heights = sorted(round(z * 1e9) for _, z in sample._nodes)
+    heights = sorted(round(z * 1e9) for _, z in sample.magnetic.nodes)
     assert len(heights) == 2 and heights[0] == 50 and heights[1] in (89, 90, 91)

@@ -60,7 +60,7 @@ def test_interaction_cost_per_line_and_height_with_a_warm_cache():
     assert per_call_s < 1e-3
     assert per_height_joint_s < 1e-3
     assert warm_up_s < 20.0
-    assert len(sample._nodes) <= 2 * len(HEIGHTS)
+    assert len(sample.magnetic.nodes) <= 2 * len(HEIGHTS)
 
 
 @pytest.mark.slow

@@ -130,11 +130,10 @@ def test_cached_maps_are_updated_in_place_after_switching():
     gaps = np.array([10e-9, 40e-9, 100e-9])
     before = [sample.interaction(xx, 0.1e-6, g, bias_v=0.3, amplitude_m=10e-9) for g in gaps]
     assert sample.expose(xx, np.full_like(xx, 0.1e-6), np.full_like(xx, 1e-9)) > 0
-    nodes = len(sample._nodes)
+    nodes = len(sample.magnetic.nodes)
     updated = [sample.interaction(xx, 0.1e-6, g, bias_v=0.3, amplitude_m=10e-9) for g in gaps]
-    assert len(sample._nodes) == nodes  # no rebuild was needed
-    sample._nodes.clear()
-    sample._stray = None
+    assert len(sample.magnetic.nodes) == nodes  # no rebuild was needed
+    sample.magnetic.clear()
     rebuilt = [sample.interaction(xx, 0.1e-6, g, bias_v=0.3, amplitude_m=10e-9) for g in gaps]
     for b, u, r in zip(before, updated, rebuilt):
         change = np.abs(r.magnetic_gradient_n_per_m - b.magnetic_gradient_n_per_m).max()

@@ -18,6 +18,7 @@ from assistant.storage import (
     SessionFileError,
     UnwritablePathError,
     redact_controller_url,
+    resume_writer,
     unit_for_name,
 )
 
@@ -145,7 +146,7 @@ def test_resume_continues_and_refuses_finished_series(tmp_path):
             w.write_line(i, **_line(i))
         s.mark_complete()
     with SessionFile.open(path, "a") as s:
-        w = s.open_series_for_resume("s1")
+        w = resume_writer(s, "s1")
         assert w.completed_lines == 2 and json.loads(w.settings_json) == {"lines": LINES}
         assert s.info().complete is False  # reopened work is not finished until marked again
         with pytest.raises(SessionFileError, match="line index 3 is not the next line"):
@@ -155,7 +156,7 @@ def test_resume_continues_and_refuses_finished_series(tmp_path):
         with pytest.raises(FinishedSeriesError):
             w.write_line(LINES, **_line(LINES))
         with pytest.raises(FinishedSeriesError, match="is finished"):
-            s.open_series_for_resume("s1")
+            resume_writer(s, "s1")
         with pytest.raises(SessionFileError, match="already exists"):
             _series(s)
     with SessionFile.open(path) as s:
@@ -281,3 +282,22 @@ def test_bad_arguments_leave_no_half_written_group(session):
                               line_rate_hz=1.0, order="o", repeat_first=False, settings_json="{}")
     assert session.read_calibrations() == [] and session.read_resonance() is None
     assert session.read_approach() is None and session.series_names() == []
+
+
+def test_a_stored_result_reads_back_exactly(tmp_path):
+    # what the report draws from: every value and dtype as written, apart from the summary the group lists
+    from tests.analysis.lift_series.test_result import _analysis, assert_same_result
+    from assistant.analysis.lift_series import SeriesAnalysis
+
+    result = _analysis()
+    path = tmp_path / "a.h5"
+    with SessionFile.create(path, controller_url="sim://", software_version="0.1.0") as s:
+        s.write_analysis("s1", {"recommended_lift_nm": 30.0}, {"magnetic_rms_deg": [1.0, 0.5]},
+                         result=result.to_record())
+        s.write_analysis("s2", {"recommended_lift_nm": 30.0})
+    with SessionFile.open(path) as s:
+        summary = s.read_analysis("s1")
+        assert set(summary.arrays) == {"magnetic_rms_deg"} and set(summary.scalars) == {"recommended_lift_nm"}
+        stored = s.read_analysis_result("s1")
+        assert s.read_analysis_result("s2") is None and s.read_analysis_result("s3") is None
+    assert_same_result(SeriesAnalysis.from_record(stored.scalars, stored.arrays), result)

@@ -30,7 +30,7 @@ REPO = str(Path(assistant.__file__).resolve().parents[1])
 # each one on stdout after write_line returned (that is, after the flush).
 WRITER = r"""
 import sys, numpy as np
-from assistant.storage import SessionFile
+from assistant.storage import SessionFile, resume_writer
 path, mode, lines, pixels, heights = sys.argv[1], sys.argv[2], *map(int, sys.argv[3:6])
 def line(i):
     rng = np.random.default_rng([2024, i])
@@ -43,7 +43,7 @@ if mode == "create":
                         repeat_first=True, settings_json='{"seed": 2024}')
 else:
     s = SessionFile.open(path, "a")
-    w = s.open_series_for_resume("s")
+    w = resume_writer(s, "s")
 print("start", w.completed_lines, flush=True)
 for i in range(w.completed_lines, lines):
     w.write_line(i, **line(i))
@@ -181,10 +181,10 @@ def test_full_disk_refuses_further_writes_and_keeps_every_line(tmp_path):
         g = f["series/s"]
         assert g.attrs["completed_lines"] == 5
         np.testing.assert_array_equal(g["phase_deg"][0, :5, 0], [0, 1, 2, 3, 4])
-    from assistant.storage import SessionFile
+    from assistant.storage import SessionFile, resume_writer
 
     with SessionFile.open(path, "a") as s:  # space is back: the resume carries on
-        w = s.open_series_for_resume("s")
+        w = resume_writer(s, "s")
         for i in range(5, 12):
             w.write_line(i, topography_m=np.full(64, float(i)), phase_deg=np.full((2, 64), float(i)),
                          amplitude_v=np.ones((2, 64)))

@@ -1,8 +1,10 @@
-"""The preview colour scale: diverging about zero, dark = negative, monotone in lightness."""
+"""The preview colour scale: the report's phase map, diverging about zero, dark = negative, monotone in
+lightness."""
 
 import numpy as np
 
-from assistant.tui.colours import LEVELS, diverging_scale, oklab_to_srgb, quantise_symmetric, symmetric_limit
+from assistant.report.colours import phase_rgb
+from assistant.tui.colours import LEVELS, diverging_scale, quantise_symmetric, symmetric_limit
 from assistant.tui.widgets import resample_nearest
 
 
@@ -13,9 +15,8 @@ def _relative_luminance(rgb255):
     return lin @ np.array([0.2126, 0.7152, 0.0722])
 
 
-def test_oklab_white_and_black():
-    # Oklab L=1, a=b=0 is sRGB white and L=0 black (Ottosson 2020, definition of the space; from memory).
-    np.testing.assert_allclose(oklab_to_srgb(np.array([[1.0, 0, 0], [0.0, 0, 0]])), [[1, 1, 1], [0, 0, 0]], atol=2e-4)
+def test_the_previews_use_the_reports_phase_map():
+    np.testing.assert_array_equal(diverging_scale(17), np.round(phase_rgb(17) * 255).astype(int))
 
 
 def test_scale_is_dark_for_negative_and_monotone():

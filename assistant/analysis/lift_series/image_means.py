@@ -1,0 +1,181 @@
+"""Fits of the image mean of every height: the electrostatic and the short-range part.
+
+A magnetic film large compared with the scan has no magnetic mean, so the mean of each image is
+electrostatic plus short-range. Heights only: a weighted linear fit of two shapes (amplitude-weighted
+``1/2 C''(z)`` and the Hamaker sphere gradient, from :mod:`.image_mean_models`). Bias grid: a parabola in V
+per height with a common vertex V_cpd. Signal units as in :mod:`.continuation`.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import optimize
+
+__all__ = ["MeanFit", "fit_mean_heights", "fit_mean_bias_grid"]
+
+
+@dataclass(frozen=True)
+class MeanFit:
+    """Electrostatic and short-range parts of the image mean (signal units s).
+
+    Attributes
+    ----------
+    electrostatic, electrostatic_std : ndarray (H,) or (H, B)
+    short_range, short_range_std : ndarray (H,)
+    correlation : ndarray (H,)
+        Correlation coefficient of the two parts at each height (bias grid: at the first bias).
+    parameters, covariance : ndarray
+        Heights only: (amplitude of the electrostatic shape, amplitude of the short-range shape).
+        Bias grid: (V_cpd, a_1..a_H, c_1..c_H).
+    separable : bool
+        Whether the data separate the two parts (see the fitting functions).
+    sentence : str
+    cpd_v, cpd_std_v : float or None
+        Bias grid only.
+    reduced_chi2 : float
+    """
+
+    electrostatic: np.ndarray
+    electrostatic_std: np.ndarray
+    short_range: np.ndarray
+    short_range_std: np.ndarray
+    correlation: np.ndarray
+    parameters: np.ndarray
+    covariance: np.ndarray
+    separable: bool
+    sentence: str
+    cpd_v: float | None
+    cpd_std_v: float | None
+    reduced_chi2: float
+
+
+def fit_mean_heights(mean, mean_std, *, electrostatic_shape, short_range_shape, heights_m,
+                     separation_tolerance: float = 0.2, attractive_sign: float = 1.0) -> MeanFit:
+    """Fit the image mean per height as ``alpha * e(h) + beta * s(h)`` (weighted linear least squares).
+
+    ``e`` is the amplitude-weighted ``1/2 C''`` of the tip (electrostatic, times (V - V_cpd)^2 = alpha) and
+    ``s`` the amplitude-weighted Hamaker sphere gradient per unit Hamaker constant (beta = H), both in
+    signal units per unit parameter. Both forces attract (Hudlet et al. 1998; Hamaker 1937), so
+    ``alpha`` and ``beta`` are held to the sign ``attractive_sign`` (+1 for force gradients, -1 for phase):
+    a part that would come out repulsive is held at zero (non-negative least squares) and the sentence says
+    so. The covariance is scaled by the reduced chi-square when it exceeds 1 (Birge ratio); a part held at
+    zero keeps the standard error of the free fit. The parts count as separable when each part's standard
+    error at the lowest height is at most ``separation_tolerance`` times the total mean there.
+    """
+    y = np.asarray(mean, float)
+    sd = np.asarray(mean_std, float)
+    e = np.asarray(electrostatic_shape, float)
+    s = np.asarray(short_range_shape, float)
+    sign = 1.0 if attractive_sign >= 0 else -1.0
+    # columns scaled to unit first value (conditioning) and to the attractive sign (non-negativity)
+    scale = sign * np.array([1.0 / e[0], 1.0 / s[0]])
+    x = np.stack([e, s], axis=1) * scale[None] / sd[:, None]
+    yw = y / sd
+    coef_free = np.linalg.lstsq(x, yw, rcond=None)[0]
+    coef, _ = optimize.nnls(x, yw)
+    held = coef <= 0.0
+    dof = max(len(y) - 2, 1)
+    red = float(np.sum((x @ coef - yw) ** 2)) / dof
+    cov = np.linalg.inv(x.T @ x) * max(red, 1.0)
+    if held.any() and not held.all():
+        j = int(np.nonzero(~held)[0][0])  # the free part alone
+        cov_j = max(red, 1.0) / float(x[:, j] @ x[:, j])
+        cov = np.diag(np.diag(cov))
+        cov[j, j] = cov_j
+    params = coef * scale
+    pcov = cov * np.outer(scale, scale)
+    es = params[0] * e
+    sr = params[1] * s
+    es_sd = np.sqrt(pcov[0, 0]) * np.abs(e)
+    sr_sd = np.sqrt(pcov[1, 1]) * np.abs(s)
+    free_cov = np.linalg.inv(x.T @ x)
+    corr_p = float(free_cov[0, 1] / np.sqrt(free_cov[0, 0] * free_cov[1, 1]))
+    corr = np.full(len(y), corr_p)
+    total = abs(es[0] + sr[0])
+    worst = max(es_sd[0], sr_sd[0])
+    separable = bool(worst <= separation_tolerance * total)
+    h_nm = float(np.asarray(heights_m)[0]) * 1e9
+    if separable:
+        sentence = (f"The heights separate the electrostatic and short-range parts (correlation {corr_p:+.2f}; "
+                    f"at {h_nm:.4g} nm each part is known to within {worst / max(total, 1e-300):.1%} of the mean).")
+    else:
+        sentence = (f"The heights alone cannot separate the electrostatic and short-range parts: their "
+                    f"correlation is {corr_p:+.2f} and at {h_nm:.4g} nm the split is uncertain by "
+                    f"{worst / max(total, 1e-300):.0%} of the mean; only their sum is reliable. Measure at three "
+                    "or more tip biases to separate them.")
+    names = ("electrostatic", "short-range")
+    for k in np.nonzero(held & (coef_free < 0))[0]:
+        sentence += f" The free fit made the {names[k]} part repulsive, which it cannot be: it is held at zero."
+    return MeanFit(es, es_sd, sr, sr_sd, corr, params, pcov, separable, sentence, None, None, red)
+
+
+def _vertex_chi2(v0, volts, y, w):
+    d = (volts - v0) ** 2  # (B,)
+    # per height closed-form 2x2 weighted least squares for (a_h, c_h)
+    s00 = (w * d * d).sum(axis=1)
+    s01 = (w * d).sum(axis=1)
+    s11 = w.sum(axis=1)
+    t0 = (w * d * y).sum(axis=1)
+    t1 = (w * y).sum(axis=1)
+    det = s00 * s11 - s01**2
+    a = (s11 * t0 - s01 * t1) / det
+    c = (s00 * t1 - s01 * t0) / det
+    r = y - a[:, None] * d[None] - c[:, None]
+    return float((w * r * r).sum()), a, c
+
+
+def fit_mean_bias_grid(mean, mean_std, *, bias_v) -> MeanFit:
+    """Fit the image mean at each height as ``a_h (V - V_cpd)^2 + c_h`` with one common vertex V_cpd.
+
+    The electrostatic force gradient is ``1/2 C''(z) (V - V_cpd)^2`` (quadratic in bias, minimal at the
+    contact potential; Hudlet et al. 1998, Eur. Phys. J. B 2, 5): the parabola separates it exactly, and the
+    remainder ``c_h`` at V_cpd is the short-range (bias-independent) part. V_cpd is found by profiling the
+    chi-square; the covariance of all parameters comes from the Jacobian, scaled by the reduced chi-square
+    when above 1.
+
+    Parameters
+    ----------
+    mean, mean_std : ndarray (H, B)
+        Image mean and its standard error per height and bias [s].
+    bias_v : array_like (B,)
+        Tip biases [V], at least three distinct values.
+    """
+    y = np.asarray(mean, float)
+    sd = np.asarray(mean_std, float)
+    volts = np.asarray(bias_v, float)
+    w = 1.0 / sd**2
+    nh, nb = y.shape
+    span = volts.max() - volts.min()
+    grid = np.linspace(volts.min() - span, volts.max() + span, 401)
+    chis = np.array([_vertex_chi2(g, volts, y, w)[0] for g in grid])  # 1-D scan of the single nonlinear parameter
+    k = int(np.argmin(chis))
+    lo, hi = grid[max(k - 1, 0)], grid[min(k + 1, len(grid) - 1)]
+    res = optimize.minimize_scalar(lambda v: _vertex_chi2(v, volts, y, w)[0], bounds=(lo, hi), method="bounded",
+                                   options={"xatol": 1e-10 * max(span, 1e-12)})
+    v0 = float(res.x)
+    chi2, a, c = _vertex_chi2(v0, volts, y, w)
+    d = (volts - v0) ** 2
+    jac = np.zeros((nh, nb, 2 * nh + 1))
+    jac[:, :, 0] = -2.0 * a[:, None] * (volts - v0)[None]
+    idx = np.arange(nh)
+    jac[idx, :, 1 + idx] = d[None]
+    jac[idx, :, 1 + nh + idx] = 1.0
+    jw = (jac * np.sqrt(w)[..., None]).reshape(nh * nb, -1)
+    dof = max(nh * nb - (2 * nh + 1), 1)
+    red = chi2 / dof
+    cov = np.linalg.pinv(jw.T @ jw) * max(red, 1.0)
+    es = a[:, None] * d[None]
+    g_v0 = -2.0 * a[:, None] * (volts - v0)[None]
+    var_es = (g_v0**2 * cov[0, 0] + d[None] ** 2 * cov[1 + idx, 1 + idx][:, None]
+              + 2.0 * g_v0 * d[None] * cov[0, 1 + idx][:, None])
+    es_sd = np.sqrt(np.clip(var_es, 0.0, None))
+    sr_sd = np.sqrt(cov[1 + nh + idx, 1 + nh + idx])
+    cov_ec = g_v0[:, 0] * cov[0, 1 + nh + idx] + d[0] * cov[1 + idx, 1 + nh + idx]
+    corr = cov_ec / np.where(es_sd[:, 0] * sr_sd > 0, es_sd[:, 0] * sr_sd, 1.0)
+    params = np.concatenate([[v0], a, c])
+    cpd_sd = float(np.sqrt(cov[0, 0]))
+    sentence = (f"The bias grid ({nb} biases) separates the electrostatic part: V_cpd = {v0:.4g} ± {cpd_sd:.2g} V; "
+                "the remainder at V_cpd is short-range.")
+    return MeanFit(es, es_sd, c, sr_sd, corr, params, cov, True, sentence, v0, cpd_sd, red)

@@ -1,0 +1,111 @@
+"""Tip-induced changes of the sample: compare a repeated first-height pass with the original.
+
+Where each scan line repeats the first lift height at its end, any difference beyond noise between the two
+passes happened while the tip scanned the other heights, and did not reverse: the tip changed the sample
+(for example switched domains with its stray field).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import ndimage
+
+from assistant.errors import InputError
+
+__all__ = ["TipChange", "detect_tip_change"]
+
+_MAD_TO_STD = 1.482602218505602  # 1/Phi^-1(3/4), Gaussian consistency factor of the median absolute deviation
+
+
+@dataclass(frozen=True)
+class TipChange:
+    """Result of :func:`detect_tip_change`.
+
+    Attributes
+    ----------
+    difference_deg : ndarray (rows, cols)
+        Repeat minus first pass, its median removed [deg]; NaN where either is missing.
+    changed : ndarray of bool (rows, cols)
+        Pixels changed beyond noise (in connected regions of at least ``min_region_px``).
+    changed_fraction : float
+    noise_deg : float
+        Per-pixel noise of one pass from the difference (robust, difference std / sqrt(2)) [deg].
+    offset_deg : float
+        Median difference (a uniform shift, e.g. a drifting phase reference; not counted as a change) [deg].
+    irreversible : bool
+        True when any region changed.
+    sentence : str
+    """
+
+    difference_deg: np.ndarray
+    changed: np.ndarray
+    changed_fraction: float
+    noise_deg: float
+    offset_deg: float
+    irreversible: bool
+    sentence: str
+
+
+def detect_tip_change(first_deg: np.ndarray, repeat_deg: np.ndarray, *, noise_deg: float | None = None,
+                      threshold: float = 5.0, smooth_px: int = 3, min_region_px: int = 4) -> TipChange:
+    """Flag irreversible changes between a first pass and its repeat.
+
+    The difference is box-smoothed over ``smooth_px`` pixels (extended changes stand out better than single
+    noisy pixels). Its noise: with ``noise_deg`` (per-pixel noise of one pass, known independently, e.g.
+    from the lift-series fit) that of the difference of two passes, ``sqrt(2) noise_deg``, averaged over
+    the box; otherwise the median absolute deviation scaled to a Gaussian std, which is robust to the
+    changed pixels only while they are fewer than half: a tip that rewrites most of the scan inflates it to
+    the size of the change itself and hides it, so pass ``noise_deg`` whenever it is known. Pixels beyond
+    ``threshold`` noise std that form connected regions of at least ``min_region_px`` pixels are flagged.
+    Thresholds: common practice, no source.
+    """
+    a = np.asarray(first_deg, float)
+    b = np.asarray(repeat_deg, float)
+    if a.shape != b.shape:
+        raise InputError(f"repeat image shape {b.shape} differs from the first-height image {a.shape}")
+    d = b - a
+    ok = np.isfinite(d)
+    if not np.any(ok):
+        raise InputError("repeat and first pass share no valid pixel")
+    offset = float(np.median(d[ok]))
+    d = d - offset
+    filled = np.where(ok, d, 0.0)
+    if smooth_px > 1:
+        num = ndimage.uniform_filter(filled, size=smooth_px, mode="wrap")
+        den = ndimage.uniform_filter(ok.astype(float), size=smooth_px, mode="wrap")
+        sm = np.where(den > 0, num / np.where(den > 0, den, 1.0), 0.0)
+    else:
+        sm = filled
+    quiet = ok
+    for _ in range(3):  # re-estimate the noise away from what was flagged: a large change inflates the MAD
+        if noise_deg is None:
+            raw_noise = _MAD_TO_STD * float(np.median(np.abs(d[quiet])))
+            sm_noise = _MAD_TO_STD * float(np.median(np.abs(sm[quiet])))
+        else:
+            raw_noise = np.sqrt(2.0) * float(noise_deg)
+            sm_noise = raw_noise / max(int(smooth_px), 1)  # mean of smooth_px^2 independent pixels
+        hot = ok & (np.abs(sm) > threshold * max(sm_noise, 1e-300))
+        labels, n = ndimage.label(hot)
+        if n:
+            sizes = np.bincount(labels.ravel())
+            keep = sizes >= min_region_px
+            keep[0] = False
+            changed = keep[labels]
+        else:
+            changed = hot
+        grown = ndimage.binary_dilation(changed, iterations=max(smooth_px, 1)) if changed.any() else changed
+        if noise_deg is not None or not changed.any() or (ok & ~grown).sum() < 0.25 * ok.sum():
+            break
+        quiet = ok & ~grown
+    frac = float(changed.sum() / ok.sum())
+    noise = raw_noise / np.sqrt(2.0)
+    irreversible = bool(changed.any())
+    if irreversible:
+        sentence = (f"The tip changed the sample: {frac:.2%} of the first-height image differs beyond noise "
+                    f"({threshold:g} × {sm_noise:.2g}° after {smooth_px} px smoothing) between the first pass and "
+                    "its repeat; the change did not reverse.")
+    else:
+        sentence = "No change beyond noise between the first pass and its repeat: the tip left the sample as it was."
+    return TipChange(np.where(ok, d, np.nan), changed, frac, noise, offset, irreversible, sentence)

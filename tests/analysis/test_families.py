@@ -1,0 +1,104 @@
+"""The analysis families: each keeps its private names to itself, and none loads a heavy module at import."""
+
+from __future__ import annotations
+
+import ast
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+ROOT = Path(__file__).resolve().parents[2]
+ANALYSIS = ROOT / "assistant" / "analysis"
+HEAVY = ("scipy.signal", "scipy.stats", "matplotlib", "h5py", "textual")
+
+
+def families() -> list[str]:
+    return sorted(p.parent.name for p in ANALYSIS.glob("*/__init__.py"))
+
+
+def _module_name(path: Path) -> str:
+    parts = path.relative_to(ROOT).with_suffix("").parts
+    return ".".join(parts[:-1] if parts[-1] == "__init__" else parts)
+
+
+def _family_of(module: str) -> str | None:
+    parts = module.split(".")
+    return parts[2] if len(parts) > 2 and parts[:2] == ["assistant", "analysis"] and parts[2] in families() else None
+
+
+def foreign_private_names(source: str, module: str, *, is_package: bool = False) -> list[str]:
+    """``module.name`` for every underscore name that ``module`` takes from another analysis family: imported by
+    name, or read as an attribute of another family's module imported under an alias."""
+    own = _family_of(module)
+    package = module if is_package else module.rsplit(".", 1)[0]
+    found, aliases = [], {}
+    for node in ast.walk(ast.parse(source)):
+        if isinstance(node, ast.ImportFrom):
+            base = node.module or ""
+            if node.level:
+                anchor = package.split(".")[: len(package.split(".")) - node.level + 1]
+                base = ".".join(anchor + ([base] if base else []))
+            for alias in node.names:
+                target = f"{base}.{alias.name}"
+                fam = _family_of(base) or _family_of(target)
+                if fam is None or fam == own:
+                    continue
+                if alias.name.startswith("_"):
+                    found.append(target)
+                aliases[alias.asname or alias.name] = target
+        elif isinstance(node, ast.Import):
+            for alias in node.names:
+                if _family_of(alias.name) not in (None, own):
+                    aliases[alias.asname or alias.name.split(".")[0]] = alias.name
+    for node in ast.walk(ast.parse(source)):
+        if isinstance(node, ast.Attribute) and node.attr.startswith("_") and not node.attr.startswith("__"):
+            chain = []
+            value = node.value
+            while isinstance(value, ast.Attribute):
+                chain.append(value.attr)
+                value = value.value
+            if isinstance(value, ast.Name) and value.id in aliases:
+                found.append(".".join([aliases[value.id], *reversed(chain), node.attr]))
+    return found
+
+
+def test_there_are_families_to_check():
+    assert {"calibration", "lift_series"} <= set(families())
+
+
+def test_the_check_finds_a_foreign_private_name():
+    # the check itself, on made-up modules of the lift_series family
+    mod = "assistant.analysis.lift_series.example"
+    assert foreign_private_names("from ..calibration.thermal_fit import _find_peak\n", mod) == [
+        "assistant.analysis.calibration.thermal_fit._find_peak"]
+    assert foreign_private_names("from assistant.analysis.calibration import thermal_fit as tf\nx = tf._Peak\n",
+                                 mod) == ["assistant.analysis.calibration.thermal_fit._Peak"]
+    assert foreign_private_names("import assistant.analysis.calibration.spectra as s\ns._BATCH_SAMPLES\n", mod) == [
+        "assistant.analysis.calibration.spectra._BATCH_SAMPLES"]
+    assert foreign_private_names("from .frequencies import pixel_pair_m\nfrom ._x import _y\n", mod) == []
+    assert foreign_private_names("from ..calibration import fit_drive_sweep\n", mod) == []
+
+
+@pytest.mark.parametrize("family", families())
+def test_no_family_imports_another_familys_private_names(family):
+    bad = []
+    for path in sorted((ANALYSIS / family).rglob("*.py")):
+        bad += foreign_private_names(path.read_text(encoding="utf-8"), _module_name(path),
+                                     is_package=path.name == "__init__.py")
+    assert bad == []
+
+
+def test_importing_a_family_loads_no_heavy_module():
+    code = ("import sys, assistant.analysis, assistant.analysis.lift_series, assistant.analysis.calibration\n"
+            f"print(','.join(m for m in {HEAVY!r} if m in sys.modules))\n")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=ROOT, check=True)
+    assert out.stdout.strip() == ""
+
+
+def test_the_package_imports_no_family():
+    code = ("import sys, assistant.analysis\n"
+            "print(','.join(m for m in sys.modules if m.startswith('assistant.analysis.')))\n")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=ROOT, check=True)
+    assert out.stdout.strip() == ""
