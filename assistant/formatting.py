@@ -24,7 +24,7 @@ import math
 import numbers
 
 __all__ = ["quantity", "number", "percent", "ratio", "yes_no", "duration", "progress_text", "number_list",
-           "unit_text", "DASH"]
+           "span", "unit_text", "DASH"]
 
 DASH = "—"  # shown for a value that is unknown or not measured
 
@@ -215,3 +215,10 @@ def number_list(values, unit: str = "", *, digits: int = 4) -> str:
     written = unit_text(written)
     text = ", ".join(items)
     return f"{text}{written}" if written == "°" else (f"{text} {written}" if written else text)
+
+
+def span(low, high, unit: str = "", *, digits: int = 3) -> str:
+    """A range of values in one unit, written once: ``35.4–213 nm`` (an en dash between the ends)."""
+    text = f"{number(low, digits=digits)}–{number(high, digits=digits)}"
+    written = unit_text(unit)
+    return f"{text} {written}" if written else text

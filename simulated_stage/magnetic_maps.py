@@ -126,6 +126,21 @@ class MagneticProbeMaps:
             for key in keys:
                 self.nodes[key][:, r0:r1 + 2 * h, c0:c1 + 2 * h] += self._node_maps(local, *key)
 
+    def true_hz_a_per_m(self, x_m: np.ndarray, y_m: np.ndarray, height_m: float) -> np.ndarray:
+        """The film's stray field H_z [A/m] at points (x, y) [m] in the sample frame, ``height_m`` above the film's
+        top surface (z away from the sample).
+
+        For tests of field maps only: no instrument can report this, so it is not part of the controller interface
+        (tests reach it as ``controller.stage.sample``). Exact per Fourier component (the spectrum the interaction
+        uses), interpolated between the film's pixel centres by cubic splines.
+        """
+        if not (math.isfinite(height_m) and height_m >= 0.0):
+            raise ValueError(f"height_m = {height_m!r} must be finite and >= 0")
+        x, y = np.broadcast_arrays(np.asarray(x_m, float), np.asarray(y_m, float))
+        stray = self._stray_field()
+        coefficients = stray.to_map(stray.base * np.exp(-stray.k * height_m), spline=True)
+        return magnetism.sample_map(coefficients, x, y, pixel_m=self.pixel_m, n=self.n, halo_px=_HALO_PX, order=3)
+
     def at(self, x: np.ndarray, y: np.ndarray, zp: np.ndarray, amp: float) -> tuple[np.ndarray, np.ndarray]:
         """Oscillation-averaged magnetic force and gradient at probe heights ``zp`` above the film's top [N, N/m]."""
         shape = zp.shape

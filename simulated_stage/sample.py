@@ -198,6 +198,11 @@ class Sample:
             self._tables[amp] = (es, sr, induced)
         return self._tables[amp]
 
+    def true_hz_a_per_m(self, x_m: np.ndarray, y_m: np.ndarray, height_m: float) -> np.ndarray:
+        """The film's H_z [A/m] at (x, y) [m], ``height_m`` above its top: for tests of field maps only (see
+        :meth:`MagneticProbeMaps.true_hz_a_per_m`; no instrument reports it, so no controller method does)."""
+        return self.magnetic.true_hz_a_per_m(x_m, y_m, height_m)
+
     # ------------------------------------------------------------------------------------------- expose
     def expose(self, x_m: np.ndarray, y_m: np.ndarray, gap_m: np.ndarray) -> int:
         """Irreversible switching under the tip: pixels whose magnetisation axis sees a tip field above the

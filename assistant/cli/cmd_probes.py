@@ -13,18 +13,40 @@ def run(args) -> int:
         if args.name not in record.names():
             raise UsageError(f"no probe named {args.name!r} in the record ({record.path})")
         history = record.history(args.name)
+        transfers = record.tip_transfers(args.name)
         if args.json:
-            emit_json({"probe": args.name, "history": history})
+            emit_json({"probe": args.name, "history": history, "tip_transfer": transfers})
         else:
             emit_text([f"{args.name}: {len(history)} calibration(s)"] + [
                 f"  {h.get('calibrated_utc', '?')}  k = {h.get('k_n_per_m', float('nan')):.4g} N/m  "
                 f"f0 = {h.get('f0_hz', float('nan')):.1f} Hz  Q = {h.get('q', float('nan')):.1f}  "
-                f"InvOLS = {h.get('invols_nm_per_v', float('nan')):.2f} nm/V" for h in history])
+                f"InvOLS = {h.get('invols_nm_per_v', float('nan')):.2f} nm/V" for h in history]
+                + _transfer_lines(transfers))
         return 0
     names = record.names()
     if args.json:
-        emit_json({"record": str(record.path), "probes": {n: len(record.history(n)) for n in names}})
+        emit_json({"record": str(record.path), "probes": {n: len(record.history(n)) for n in names},
+                   "tip_transfer": {n: len(record.tip_transfers(n)) for n in names if record.tip_transfers(n)}})
     else:
-        emit_text([f"probe record: {record.path}"] + [f"  {n}: {len(record.history(n))} calibration(s)"
-                                                     for n in names] or ["  (empty)"])
+        emit_text([f"probe record: {record.path}"] + [
+            f"  {n}: {len(record.history(n))} calibration(s)"
+            + (f", {len(record.tip_transfers(n))} tip transfer function(s)" if record.tip_transfers(n) else "")
+            for n in names] or ["  (empty)"])
     return 0
+
+
+def _transfer_lines(transfers: list[dict]) -> list[str]:
+    """One line per stored TTF: date, reference, band, point-probe numbers."""
+    if not transfers:
+        return []
+    from assistant.formatting import number, quantity, span
+
+    lines = [f"{len(transfers)} tip transfer function(s) (quantitative MFM; newest last):"]
+    for t in transfers:
+        band = span(*t["band_nm"], "nm") if t.get("band_nm") else "?"
+        m, q, d = t.get("dipole_a_m2"), t.get("monopole_a_m"), t.get("offset_nm")
+        pp = (f"m = {number(m, digits=3)} A m², q = {number(q, digits=3)} A m, offset {quantity(d, 'nm', digits=3)}"
+              if None not in (m, q, d) else "no point probe")
+        lines.append(f"  {t.get('recorded_utc', '?')}  band {band}  {pp}  "
+                     f"reference {t.get('reference', '?')}  file {t.get('file', '?')}")
+    return lines

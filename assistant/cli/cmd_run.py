@@ -5,7 +5,7 @@ from __future__ import annotations
 import os
 from pathlib import Path
 
-from assistant.cli._common import UsageError, emit_json, emit_text, open_controller_from_args
+from assistant.cli._common import EXIT_OK, EXIT_RUNTIME, UsageError, emit_json, emit_text, open_controller_from_args
 from assistant.outputs import new_session_path, report_dir_for
 
 
@@ -59,18 +59,51 @@ def _writer_hook(ctl):
     return ctl.writer_fault_hook() if isinstance(ctl, SimulatedController) else None
 
 
+def _field_map_tip(args):
+    """With ``--field-map``: the probe's newest stored TTF, checked before anything moves (exit 2 if none)."""
+    if not getattr(args, "field_map", False):
+        return None
+    if not args.probe:
+        raise UsageError("--field-map needs --probe NAME (the probe whose stored TTF maps the field)")
+    from assistant.procedures.quantitative import resolve_tip
+    from assistant.procedures.quantitative_inputs import QuantitativeInputError
+    from assistant.storage.probe_record import ProbeRecord
+
+    try:
+        return resolve_tip(tip_path=None, probe=args.probe, record=ProbeRecord())
+    except QuantitativeInputError as exc:
+        raise UsageError(str(exc)) from None
+
+
+def _field_map_step(wf, tip) -> str | None:
+    """The optional field map after the analysis. A TTF that does not fit this session (e.g. the calibration found
+    the probe changed) leaves the session and report complete: the text returned is reported by ``_finish``, once,
+    at the end, and the command exits 1."""
+    if tip is None:
+        return None
+    from assistant.procedures.quantitative_inputs import QuantitativeInputError
+    from assistant.storage.probe_record import ProbeRecord
+
+    try:
+        wf.field_map(tip, record=ProbeRecord())
+    except QuantitativeInputError as exc:
+        return f"field map not made: {exc}"
+    return None
+
+
 def run(args) -> int:
     from assistant.cli.progress import StageProgress
     from assistant.procedures.guard import load_limits
 
     limits = load_limits(args.limits)
+    tip = _field_map_tip(args)
     with StageProgress() as progress:
         if args.resume:
-            return _resume(args, limits, progress)
-        return _run(args, limits, progress)
+            return _resume(args, limits, progress, tip)
+        return _run(args, limits, progress, tip)
 
 
-def _run(args, limits, progress) -> int:
+def _run(args, limits, progress, tip=None) -> int:
     from assistant.procedures.workflow import Workflow
     from assistant.report.summary import build_report
     from drivers.registry import redact, scheme_of
@@ -93,6 +126,7 @@ def _run(args, limits, progress) -> int:
             wf.series(series_settings)
             with progress.stage("analysis", "decomposing the series"):
                 analysis = wf.analyse()
+            field_map_error = _field_map_step(wf, tip)
             wf.session.mark_complete()
             wf.session.flush()
             report = build_report(session_path, report_dir_for(session_path), sink=progress,
@@ -102,10 +136,10 @@ def _run(args, limits, progress) -> int:
             raise
         finally:
             wf.close()
-    return _finish(args, session_path, report, wf, analysis)
+    return _finish(args, session_path, report, wf, analysis, field_map_error)
 
 
-def _resume(args, limits, progress) -> int:
+def _resume(args, limits, progress, tip=None) -> int:
     from assistant.procedures.workflow import ResumePlan, Workflow
     from assistant.report.summary import build_report
     from drivers.registry import scheme_of
@@ -127,6 +161,7 @@ def _resume(args, limits, progress) -> int:
             wf.series(plan.series, resume=True)
             with progress.stage("analysis", "decomposing the series"):
                 analysis = wf.analyse()
+            field_map_error = _field_map_step(wf, tip)
             wf.session.mark_complete()
             wf.session.flush()
             report = build_report(path, report_dir_for(path), sink=progress, per_height_scale=args.per_height_scale)
@@ -135,7 +170,7 @@ def _resume(args, limits, progress) -> int:
             raise
         finally:
             wf.close()
-    return _finish(args, path, report, wf, analysis)
+    return _finish(args, path, report, wf, analysis, field_map_error)
 
 
 def _stop(ctl) -> None:
@@ -149,7 +184,7 @@ def _stop(ctl) -> None:
         sys.stderr.write(f"mfma: could not confirm a safe stage ({exc}); check the instrument by hand\n")
 
 
-def _finish(args, session_path: Path, report, wf, analysis) -> int:
+def _finish(args, session_path: Path, report, wf, analysis, field_map_error: str | None = None) -> int:
     cal = wf.calibration
     calib = ({"k_n_per_m": cal.k_n_per_m, "k_std_n_per_m": cal.k_std_n_per_m, "f0_hz": cal.thermal.f0_hz,
               "q": cal.thermal.q, "invols_nm_per_v": cal.invols_m_per_v * 1e9} if cal is not None else
@@ -163,10 +198,13 @@ def _finish(args, session_path: Path, report, wf, analysis) -> int:
                    "completed_lines": wf.series_result.completed_lines},
         "analysis": analysis.to_dict() if analysis is not None else None,
     }
+    if wf.field_map_result is not None or field_map_error:
+        summary["field_map"] = wf.field_map_result.summary if wf.field_map_result is not None else None
+        summary["field_map_error"] = field_map_error
     if args.json:
         emit_json(summary)
-        return 0
-    from assistant.formatting import number, number_list, quantity
+        return _field_map_verdict(field_map_error)
+    from assistant.formatting import number, number_list, quantity, span
     from assistant.report.results import render_block, results_block
 
     a = summary["analysis"] or {}
@@ -176,9 +214,24 @@ def _finish(args, session_path: Path, report, wf, analysis) -> int:
         cal_text += f", optical-lever sensitivity {quantity(calib['invols_nm_per_v'], 'nm/V')}"
     heights = number_list(summary["series"]["heights_nm"], "nm")
     pairs = results_block(a) if a else [("Analysis", "none")]
+    fmap = summary.get("field_map")
+    if fmap:
+        pairs.append(("Field map", f"μ0 Hz rms {number(fmap['mu0_hz_rms_mt'], digits=3)} mT at "
+                                   f"{quantity(fmap['height_nm'], 'nm', digits=3)} (periods "
+                                   f"{span(*fmap['band_nm'], 'nm')}), stored in the session file as field_map/"))
     emit_text(render_block(pairs + [
         ("Calibration", cal_text),
         ("Series", f"{wf.series_result.completed_lines} lines at {len(s.heights_m)} lift heights ({heights})"
          + (f" × {len(s.biases_v)} biases" if s.biases_v else "")),
         ("Session file", str(session_path)), ("Report", str(report.out_dir))], markdown=False))
-    return 0
+    return _field_map_verdict(field_map_error)
+
+
+def _field_map_verdict(error: str | None) -> int:
+    """A refused field map is the one failure that leaves the session and its report complete: said once, last."""
+    if not error:
+        return EXIT_OK
+    import sys
+
+    sys.stderr.write(f"mfma: error: {error}\n")
+    return EXIT_RUNTIME

@@ -9,6 +9,15 @@ from assistant import __version__
 from assistant.cli._common import add_controller_options, number_list, positive, scenario_names
 
 
+class _Formatter(argparse.HelpFormatter):
+    """Help text wrapped at spaces only: a name such as ``reference-film`` is never split at its hyphen."""
+
+    def _split_lines(self, text: str, width: int) -> list[str]:
+        import textwrap
+
+        return textwrap.wrap(self._whitespace_matcher.sub(" ", text).strip(), width, break_on_hyphens=False)
+
+
 class _Parser(argparse.ArgumentParser):
     """argparse with a one-line error message and exit status 2.
 
@@ -17,6 +26,10 @@ class _Parser(argparse.ArgumentParser):
     """
 
     argv: list[str] = []  # the arguments being parsed, for the hint (set by the top-level parser)
+
+    def __init__(self, *args, **kwargs) -> None:
+        kwargs.setdefault("formatter_class", _Formatter)
+        super().__init__(*args, **kwargs)
 
     def parse_known_args(self, args=None, namespace=None):  # type: ignore[override]
         if self.prog == "mfma":
@@ -158,6 +171,8 @@ def build_parser() -> argparse.ArgumentParser:
     _json(p)
     p.set_defaults(handler="cmd_analyze:series")
 
+    _quantitative_parsers(ana)
+
     # ---- calibrate, probes --------------------------------------------------------------------------------
     p = sub.add_parser("calibrate", help="calibrate the mounted probe: resonance, Q, k (Sader), optical-lever "
                                          "sensitivity")
@@ -197,6 +212,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--resume", metavar="FILE.h5", help="continue an interrupted session file")
     p.add_argument("--limits", metavar="FILE.toml", help="software safety limits (TOML; see DEVELOPERS.md)")
     p.add_argument("--fsync", action="store_true", help="fsync the session file after every line")
+    p.add_argument("--field-map", action="store_true",
+                   help="also map the stray field at the recommended height with the probe's stored TTF (--probe)")
     _per_height(p)
     _json(p)
     p.set_defaults(handler="cmd_run:run")
@@ -241,6 +258,39 @@ def build_parser() -> argparse.ArgumentParser:
                    help="show a stored session file read-only: its settings, plots and report; no controller")
     p.set_defaults(handler="cmd_tui:run")
     return top
+
+
+def _quantitative_parsers(ana) -> None:
+    """``analyze tip`` and ``analyze field`` (quantitative MFM)."""
+    images = ("phase_deg (rows, cols) with lift_nm, or a stack with heights_nm; pixel_nm, spring_constant_n_per_m, "
+              "quality_factor, optional amplitude_nm, gap_offset_nm")
+    p = ana.add_parser("tip", help="calibrate the tip transfer function (TTF) on an image of a reference film")
+    p.add_argument("reference", help=f"reference image: .npz ({images}) or a session file (.h5)")
+    p.add_argument("--ms-ka-per-m", type=float, required=True, metavar="MS",
+                   help="the reference film's (effective) saturation magnetisation in kA/m")
+    p.add_argument("--thickness-nm", type=float, required=True, metavar="T", help="its magnetic thickness in nm")
+    p.add_argument("--ms-std-ka-per-m", type=positive(allow_zero=True), metavar="S",
+                   help="standard uncertainty of Ms in kA/m (default 5 %% of Ms)")
+    p.add_argument("--thickness-std-nm", type=positive(allow_zero=True), metavar="S",
+                   help="standard uncertainty of the thickness in nm (default 5 %%)")
+    p.add_argument("--probe", metavar="NAME", help="store the TTF in the probe record under this probe")
+    p.add_argument("--tip-moment", choices=("up", "down"), default="up",
+                   help="tip magnetised along +z, away from the sample (default), or down")
+    p.add_argument("--out", required=True, metavar="TIP.npz", help="tip file to write")
+    p.add_argument("--plots", metavar="DIR", help="also write the TTF and reference-pattern figures to DIR")
+    _json(p)
+    p.set_defaults(handler="cmd_quantitative:tip")
+    p = ana.add_parser("field", help="map the stray field Hz of a sample with a calibrated TTF")
+    p.add_argument("image", help=f"image of the sample: .npz ({images}) or a session file (.h5)")
+    p.add_argument("--tip", metavar="TIP.npz", help="tip file from mfma analyze tip")
+    p.add_argument("--probe", metavar="NAME", help="use the newest TTF stored for this probe")
+    p.add_argument("--height-nm", type=float, metavar="H",
+                   help="plane of the map above the sample in nm (default: the measurement plane; higher planes by "
+                        "continuation)")
+    p.add_argument("--out", required=True, metavar="FIELD.npz", help="field file to write")
+    p.add_argument("--plots", metavar="DIR", help="also write the field-map figures to DIR")
+    _json(p)
+    p.set_defaults(handler="cmd_quantitative:field")
 
 
 def _json(p: argparse.ArgumentParser) -> None:

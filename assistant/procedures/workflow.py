@@ -80,6 +80,7 @@ class Workflow:
     series_result: SeriesResult | None = None
     analysis: object | None = None
     probe_warnings: list[str] = field(default_factory=list)
+    field_map_result: object | None = None
     _session: object | None = None
 
     # ---- session file --------------------------------------------------------------------------------
@@ -206,6 +207,17 @@ class Workflow:
             self.controller.make_safe()  # the scan is over: nothing needs the tip near the surface now
         self.analysis = analyse_session_series(self.session, name, sink=self.sink)
         return self.analysis
+
+    def field_map(self, tip, *, record=None, name: str | None = None):
+        """Quantitative MFM: map the stray field of the series at its recommended height with the TTF of ``tip``
+        (a tip file, e.g. the probe's newest from the probe record) and store it as ``field_map/<series>``."""
+        from assistant.procedures.quantitative import field_map_for_session
+
+        name = name or (self.series_settings.name if self.series_settings else None)
+        self.field_map_result = field_map_for_session(self.session, tip, series=name, record=record)
+        for text in self.field_map_result.summary["warnings"]:
+            self.sink(Notice("warning", f"field map: {text}"))
+        return self.field_map_result
 
 
 def calibration_scalars(result: CalibrationResult, probe_name: str | None, *, now: datetime | None = None) -> dict:

@@ -64,13 +64,23 @@ NAMES: dict[str, tuple[str, str]] = {
     "noise_verdict": ("noise verdict", ""), "noise_sentence": ("noise", ""), "nan_pixels": ("pixels without data", ""),
     "signal_space": ("fitted quantity", ""), "tip_changed_sample": ("tip changed the sample", ""),
     "tip_changed_fraction": ("area changed by the tip", ""),
+    # stray-field map (quantitative MFM)
+    "height_nm": ("plane of the map above the sample", "nm"),
+    "measurement_plane_nm": ("measurement plane (closest approach of the tip)", "nm"),
+    "pixel_row_nm": ("pixel spacing between lines", "nm"), "pixel_col_nm": ("pixel spacing along a line", "nm"),
+    "band_short_nm": ("valid band: shortest period", "nm"), "band_long_nm": ("valid band: longest period", "nm"),
+    "margin_px": ("edge margin", "px"), "hz_a_per_m": ("stray field Hz", "A/m"),
+    "hz_std_a_per_m": ("standard uncertainty of Hz", "A/m"), "hz_rms_a_per_m": ("stray field Hz rms", "A/m"),
+    "hz_min_a_per_m": ("stray field Hz minimum", "A/m"), "hz_max_a_per_m": ("stray field Hz maximum", "A/m"),
+    "tip_file": ("tip file (TTF)", ""), "tip_created_utc": ("TTF made (UTC)", ""), "probe": ("probe", ""),
 }
 
 #: Keys stored as 1/0 that mean yes/no.
 FLAGS = frozenset({"engaged", "separable", "tip_changed_sample", "thermal_check_agree", "residual_at_noise",
                    "complete", "repeat_first"})
 
-_SUFFIX_UNITS = ((("n", "per", "m"), "N/m"), (("nm", "per", "v"), "nm/V"), (("v2", "per", "hz"), "V^2/Hz"),
+_SUFFIX_UNITS = ((("n", "per", "m"), "N/m"), (("a", "per", "m"), "A/m"), (("n", "per", "a"), "N/A"),
+                 (("nm", "per", "v"), "nm/V"), (("v2", "per", "hz"), "V^2/Hz"),
                  (("kg", "m3"), "kg/m^3"), (("pa", "s"), "Pa s"), (("hz",), "Hz"), (("nm",), "nm"), (("m",), "m"),
                  (("v",), "V"), (("deg",), "deg"), (("s",), "s"), (("k",), "K"), (("px",), "px"), (("utc",), ""))
 

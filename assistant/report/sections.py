@@ -199,6 +199,10 @@ def caption(file_name: str, *, per_height_scale: bool) -> str:
         return "magnetic rms, noise and residual against lift height; shortest resolved period"
     if stem == "decomposition_maps":
         return f"magnetic maps at three heights ({scale}), the residual, and the change map of the repeat"
+    if stem.startswith("field_map"):
+        return "stray field μ0 Hz (red: pointing away from the sample) and its standard uncertainty; edge margin dashed"
+    if stem == "ttf":
+        return "tip transfer function against spatial period with its uncertainty, valid band and point-probe fit"
     return ""
 
 

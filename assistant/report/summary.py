@@ -4,7 +4,8 @@ Everything comes from the session file. Figures of the calibration are drawn by
 :mod:`assistant.report.calibration_figures` from the stored spectrum and sweep (refitted, as the calibration
 fitted them); figures of the decomposition by :mod:`assistant.report.series_figures` from the decomposition
 stored with each series, or, for a series never analysed (an interrupted run), from a decomposition computed
-now and not written. A failing figure is written down as a note in the summary instead of stopping the report.
+now and not written; stray-field maps by :mod:`assistant.report.field_figures` from the maps stored in
+``field_map/``. A failing figure is written down as a note in the summary instead of stopping the report.
 """
 
 from __future__ import annotations
@@ -17,7 +18,7 @@ from pathlib import Path
 
 from assistant.formatting import yes_no
 from assistant.procedures.events import Progress, Sink, null_sink
-from assistant.report import sections
+from assistant.report import field_figures, sections
 from assistant.report.calibration_figures import write_sweep_figure, write_thermal_figure
 from assistant.report.images import phase_figure, remove_plane, save_png, topography_figure
 from assistant.report.series_figures import write_series_figures
@@ -131,6 +132,11 @@ def _decomposition_figures(session: SessionFile, out_dir: Path, notes: list[str]
     return paths
 
 
+def _field_map_figures(session: SessionFile, out_dir: Path, notes: list[str]) -> list[Path]:
+    """The stray-field maps stored in the session (and the TTF that made the last one, if its tip file is there)."""
+    return _figures("field-map figures", notes, lambda: field_figures.figures_from_session(session, out_dir))
+
+
 # ---- the report -----------------------------------------------------------------------------------------------
 def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLike[str], *, sink: Sink = null_sink,
                  per_height_scale: bool = False) -> ReportResult:
@@ -147,6 +153,8 @@ def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLik
     with SessionFile.open(session_path, "r") as session:
         names = session.series_names()
         steps = 2 + len(names) + (1 if names else 0)
+        maps = session.field_map_names()
+        steps += 1 if maps else 0
         done = 0
 
         def step(what: str) -> None:
@@ -193,6 +201,15 @@ def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLik
             step("decomposition figures")
             if not analysed:  # nothing stored, but decomposed for the figures: the results still open the summary
                 analysed = [(n, r.to_dict()) for n, r in computed.items() if hasattr(r, "to_dict")]
+        if maps:
+            body += ["## Stray-field maps (quantitative MFM)", "",
+                     "Hz in A/m (μ0 Hz in mT in the figure); z away from the sample; the measurement plane is the "
+                     "closest approach of the oscillating tip.", ""]
+            for name in maps:
+                rec = session.read_field_map(name)
+                body += sections.record_section(f"field_map/{name}", rec.scalars, rec.arrays, rec.units)
+            paths += _field_map_figures(session, out, notes)
+            step("field-map figures")
         title = [f"# Session report: {Path(session_path).name}", ""]
         title += sections.results_section(analysed, dict(cals[-1].scalars) if cals else None)
         title += ["## Session", "",

@@ -24,6 +24,7 @@ ENV_DATA_DIR = "MFMA_DATA_DIR"
 RECORD_FORMAT = "mfm-assistant-probe-record"
 RECORD_VERSION = 1
 _FILE_NAME = "probe_record.json"
+TRANSFER_KEY = "tip_transfer"
 
 
 class ProbeRecordError(AssistantError, ValueError):
@@ -43,8 +44,55 @@ def _number(calibration: Mapping[str, Any], key: str) -> float | None:
     return float(value)
 
 
-class ProbeRecord:
-    """Calibration history of every probe, oldest entry first.
+class TipTransferRecord:
+    """Mixin of :class:`ProbeRecord`: each probe's tip transfer functions (TTF), newest last.
+
+    The JSON record keeps, per TTF, its date, reference, band and point-probe numbers under ``tip_transfer``;
+    the arrays (the TTF profile, its band and uncertainty, the reference image and pattern) stay in the tip file
+    written by ``mfma analyze tip``, copied next to the record as ``tip_transfer/<probe>/<date>.npz`` so the
+    record does not depend on where the user kept the original.
+    """
+
+    def tip_transfers(self, name: str) -> list[dict[str, Any]]:
+        """The TTFs stored for probe ``name``, oldest first (empty if none)."""
+        return [dict(e) for e in self._load_doc().get(TRANSFER_KEY, {}).get(name, [])]
+
+    def tip_transfer_file(self, entry: Mapping[str, Any]) -> Path:
+        """The stored tip file of a TTF entry."""
+        return self.directory / str(entry["file"])
+
+    def add_tip_transfer(self, probe_name: str, tip_file: str | os.PathLike[str], summary: Mapping[str, Any], *,
+                         now: datetime | None = None) -> dict[str, Any]:
+        """Copy ``tip_file`` next to the record and add an entry with ``summary`` (JSON values); returns it."""
+        import shutil
+
+        if not isinstance(probe_name, str) or not probe_name.strip():
+            raise ProbeRecordError(f"probe name must be a non-empty string, got {probe_name!r}")
+        stamp = (now or datetime.now(timezone.utc)).astimezone(timezone.utc)
+        iso = stamp.isoformat(timespec="seconds").replace("+00:00", "Z")
+        safe = "".join(c if c.isalnum() or c in "-_." else "_" for c in probe_name)
+        relative = Path(TRANSFER_KEY) / safe / f"{stamp.strftime('%Y%m%dT%H%M%SZ')}.npz"
+        entry = {key: _plain(v) for key, v in summary.items()}
+        entry.update(recorded_utc=iso, file=relative.as_posix())
+        try:
+            json.dumps(entry, allow_nan=False)
+        except (TypeError, ValueError) as exc:
+            raise ProbeRecordError(f"TTF summary of {probe_name!r} is not plain JSON data: {exc}") from exc
+        doc = self._load_doc()
+        probes, transfers = doc.get("probes", {}), dict(doc.get(TRANSFER_KEY, {}))
+        target = self.directory / relative
+        try:
+            target.parent.mkdir(parents=True, exist_ok=True)
+            shutil.copyfile(tip_file, target)
+        except OSError as exc:
+            raise ProbeRecordError(f"cannot store the tip file in {str(target.parent)!r}: {exc}") from exc
+        transfers[probe_name] = [*transfers.get(probe_name, []), entry]
+        self._save(probes, transfers)
+        return entry
+
+
+class ProbeRecord(TipTransferRecord):
+    """Calibration history of every probe, oldest entry first, and each probe's TTFs (:class:`TipTransferRecord`).
 
     A change of k or f0 since the last session is reported when it exceeds ``coverage`` times the combined
     standard uncertainty of the two calibrations *and* a relative floor (``k_floor``, ``f0_floor``). The floor
@@ -61,6 +109,9 @@ class ProbeRecord:
 
     # ---- reading -------------------------------------------------------------------------------------
     def _load(self) -> dict[str, list[dict[str, Any]]]:
+        return self._load_doc().get("probes", {})
+
+    def _load_doc(self) -> dict[str, Any]:
         if not self.path.exists():
             return {}
         try:
@@ -73,14 +124,15 @@ class ProbeRecord:
         if doc.get("version") != RECORD_VERSION:
             raise ProbeRecordError(f"probe record {str(self.path)!r} has version {doc.get('version')!r}; "
                                    f"this software reads version {RECORD_VERSION}")
-        probes = doc.get("probes", {})
-        if not isinstance(probes, dict):
-            raise ProbeRecordError(f"probe record {str(self.path)!r}: 'probes' is not a mapping")
-        return probes
+        for key in ("probes", TRANSFER_KEY):
+            if not isinstance(doc.get(key, {}), dict):
+                raise ProbeRecordError(f"probe record {str(self.path)!r}: {key!r} is not a mapping")
+        return doc
 
     def names(self) -> list[str]:
-        """Names of every recorded probe, sorted."""
-        return sorted(self._load())
+        """Names of every recorded probe (calibrated, or with a stored TTF), sorted."""
+        doc = self._load_doc()
+        return sorted(set(doc.get("probes", {})) | set(doc.get(TRANSFER_KEY, {})))
 
     def history(self, name: str) -> list[dict[str, Any]]:
         """The calibrations of probe ``name``, oldest first (empty if the probe is unknown)."""
@@ -112,6 +164,10 @@ class ProbeRecord:
         self._save(probes)
         return warnings
 
+    def changes(self, probe: str, old: Mapping[str, Any], new: Mapping[str, Any]) -> list[str]:
+        """Warnings when k or f0 moved from calibration ``old`` to ``new`` beyond the record's limits."""
+        return self._compare(probe, old, new)
+
     def _compare(self, probe: str, old: Mapping[str, Any], new: Mapping[str, Any]) -> list[str]:
         warnings = []
         checks = (("k", "k_n_per_m", "k_std_n_per_m", "N/m"), ("f0", "f0_hz", "f0_std_hz", "Hz"))
@@ -133,8 +189,13 @@ class ProbeRecord:
                             f"{_likely_cause(label, change)}")
         return warnings
 
-    def _save(self, probes: dict[str, list[dict[str, Any]]]) -> None:
+    def _save(self, probes: dict[str, list[dict[str, Any]]],
+              transfers: dict[str, list[dict[str, Any]]] | None = None) -> None:
+        if transfers is None:
+            transfers = self._load_doc().get(TRANSFER_KEY, {})
         doc = {"format": RECORD_FORMAT, "version": RECORD_VERSION, "probes": probes}
+        if transfers:
+            doc[TRANSFER_KEY] = transfers
         try:
             self.directory.mkdir(parents=True, exist_ok=True)
             fd, tmp = tempfile.mkstemp(prefix=".probe_record.", suffix=".tmp", dir=self.directory)

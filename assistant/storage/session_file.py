@@ -18,9 +18,12 @@ Layout (NeXus NXdata attributes so general-purpose HDF5 viewers plot the images)
                             axes lift_height_m, [tip_bias_v,] y_m, x_m; sub-group topography/ (NXdata view)
     analysis/<name>/        decomposition results: scalars as attributes, arrays as datasets; result/ the whole
                             result as computed (every field, dtypes kept), from which the report draws
+    field_map/<name>/       stray-field map of series <name> (quantitative MFM): hz_a_per_m, hz_std_a_per_m
+                            (rows, cols), scalars (height_nm, pixel spacing, band, the TTF used) as attributes
 
 The series group is :mod:`assistant.storage.series_group`, the records and errors
-:mod:`assistant.storage.records`, and continuing an interrupted series :mod:`assistant.storage.resume`.
+:mod:`assistant.storage.records`, continuing an interrupted series :mod:`assistant.storage.resume`, and the
+stray-field maps :mod:`assistant.storage.field_map_group`.
 """
 
 from __future__ import annotations
@@ -35,6 +38,7 @@ from typing import Literal
 import h5py
 import numpy as np
 
+from assistant.storage.field_map_group import FieldMapGroups
 from assistant.storage.records import (FORMAT_NAME, FORMAT_VERSION, MAX_ATTR_TEXT, FormatVersionError,
                                        NotASessionFileError, Record, Scalar, SessionBusyError, SessionFileError,
                                        SessionInfo, SessionWriteError, UnwritablePathError, check_name,
@@ -48,8 +52,9 @@ __all__ = ["SessionFile"]
 RESULT_GROUP = "result"
 
 
-class SessionFile:
-    """An open session file. Create with :meth:`create`, reopen with :meth:`open`; use as a context manager."""
+class SessionFile(FieldMapGroups):
+    """An open session file. Create with :meth:`create`, reopen with :meth:`open`; use as a context manager.
+    The stray-field maps of quantitative MFM are written and read by :class:`FieldMapGroups`."""
 
     def __init__(self, h5: h5py.File, *, fsync: bool) -> None:
         self._h5 = h5

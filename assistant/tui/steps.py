@@ -95,6 +95,12 @@ class StepRunner:
         wf = self.workflow
         self._run("analyze", lambda: wf.analyse())
 
+    def start_field_map(self) -> None:
+        """Quantitative MFM: map the series' stray field with the probe's stored TTF (see ``tui/field_map.py``)."""
+        from assistant.tui.field_map import start_field_map
+
+        start_field_map(self)
+
     def start_report(self) -> None:
         if self.workflow is None and self.open_path is not None:
             self._offline_worker("report", self.open_path)
@@ -164,9 +170,13 @@ class StepRunner:
         self.call_from_thread(self.view("probe").set_accepted, f"Stored in the probe record as {name!r}.")
 
     @work(thread=True, group="procedure", exit_on_error=False)
-    def _offline_worker(self, step: str, path: Path) -> None:
+    def _offline_worker(self, step: str, path: Path, *extra) -> None:
         try:
-            if step == "analyze":
+            if step == "field map":
+                from assistant.tui.field_map import offline_field_map
+
+                result = offline_field_map(path, *extra)
+            elif step == "analyze":
                 from assistant.procedures.analyse import analyse_session_file
 
                 result = analyse_session_file(path, None)

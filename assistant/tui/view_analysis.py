@@ -12,7 +12,7 @@ from rich.markup import escape
 from textual.widgets import Button, Static
 from textual_plotext import PlotextPlot
 
-from assistant.formatting import quantity
+from assistant.formatting import number, quantity, span
 from assistant.report.results import results_block
 from assistant.tui.plots import DATA, FIT, PART_A, PART_B, redraw
 from assistant.tui.view_base import View
@@ -48,6 +48,7 @@ class AnalysisView(View):
         self.result: dict | None = None
         self.mean_phase: np.ndarray | None = None
         self.report_dir: str | None = None
+        self.field_map: dict | None = None
         self.biases_v: list[float] | None = None
 
     def compose(self):
@@ -56,6 +57,7 @@ class AnalysisView(View):
                 with Horizontal(classes="buttons"):
                     yield Button("Analyze", id="analyse", variant="primary")
                     yield Button("Report", id="report")
+                    yield Button("Field map", id="fieldmap")
                 yield Static("Run a series (4), then Analyze.", id="an-text")
             with Vertical(id="an-plots"):
                 yield PlotextPlot(id="an-mean")
@@ -68,6 +70,9 @@ class AnalysisView(View):
         elif event.button.id == "report":
             event.stop()
             self.app.start_report()
+        elif event.button.id == "fieldmap":
+            event.stop()
+            self.app.start_field_map()
 
     def show(self, result: dict, *, mean_phase_deg=None, biases_v=None) -> None:
         """``result``: ``SeriesAnalysis.to_dict()`` or a stored analysis record's scalars and arrays."""
@@ -95,6 +100,9 @@ class AnalysisView(View):
                       biases_v=getattr(result, "bias_v", None))
         elif step == "report":
             self.set_report(str(getattr(result, "out_dir", result)))
+        elif step == "field map":
+            self.field_map = getattr(result, "summary", None)
+            self.query_one("#an-text", Static).update(self._text())
 
     def _text(self) -> str:
         d = self.result or {}
@@ -104,6 +112,13 @@ class AnalysisView(View):
         lines.insert(2, f"[b]report[/b] {escape(Path(self.report_dir).name)}/ (next to the session file)"
                      if self.report_dir else
                      "[b]report[/b] not written yet (Report)")  # after lift and bias: visible at 80 x 24
+        fm = self.field_map
+        if fm:
+            where = "stored as field_map/" if not fm.get("field_file") else "in the report folder"
+            lines.insert(3, escape(f"field map: μ0 Hz rms {number(fm['mu0_hz_rms_mt'], digits=3)} mT at "
+                                   f"{quantity(fm['height_nm'], 'nm', digits=3)} (periods "
+                                   f"{span(*fm['band_nm'], 'nm')}; {where})"))
+            lines += [escape(f"  warning: {w}") for w in fm.get("warnings", [])]
         return "\n".join(lines)
 
     def redraw(self) -> None:
