@@ -32,11 +32,12 @@ _PREFIXES = {-12: "p", -9: "n", -6: "µ", -3: "m", 0: "", 3: "k", 6: "M", 9: "G"
 # Units that take an SI prefix, with the exponents allowed for each (a lift height reads in nm or µm, never in
 # pm or km; a frequency in Hz, kHz or MHz, never in mHz).
 _SCALED = {"Hz": (0, 3, 6, 9), "m": (-9, -6, -3, 0), "V": (-9, -6, -3, 0), "s": (-6, -3, 0),
-           "N": (-12, -9, -6, -3, 0), "A": (-12, -9, -6, -3, 0), "Pa·s": (-6, -3, 0), "W": (-9, -6, -3, 0)}
+           "N": (-12, -9, -6, -3, 0), "A": (-12, -9, -6, -3, 0), "Pa·s": (-6, -3, 0), "W": (-9, -6, -3, 0),
+           "A/m": (0, 3, 6)}
 _ZERO_EXPONENT = {"m": -6}
 # Spellings we accept for a unit, as (factor to the base unit, base unit).
 _ALIASES = {"nm": (1e-9, "m"), "um": (1e-6, "m"), "µm": (1e-6, "m"), "mm": (1e-3, "m"), "kHz": (1e3, "Hz"),
-            "MHz": (1e6, "Hz"), "mV": (1e-3, "V"), "ms": (1e-3, "s"), "Pa s": (1.0, "Pa·s")}
+            "MHz": (1e6, "Hz"), "mV": (1e-3, "V"), "ms": (1e-3, "s"), "Pa s": (1.0, "Pa·s"), "kA/m": (1e3, "A/m")}
 # How a unit is written (storage spells powers with ^; the degree sign joins the number).
 _SPELLING = {"V^2/Hz": "V²/Hz", "m^2/Hz": "m²/Hz", "kg/m^3": "kg/m³", "A m^2": "A·m²", "V^2": "V²", "deg": "°",
              "um": "µm", "1": "", "pixel": "px"}

@@ -35,6 +35,7 @@ class Capability(str, enum.Enum):
     Z_SENSOR = "z_sensor"  # closed-loop Z readback in read("z_m")
     FORCE_CURVE = "force_curve"  # force_curve() for contact sensitivity
     FREQUENCY_SHIFT = "frequency_shift"  # second passes also report frequency_shift_hz
+    APPLIED_FIELD = "applied_field"  # an electromagnet under the sample: set_field, read_field
 
 
 @dataclass(frozen=True)
@@ -60,6 +61,9 @@ class Limits:
     scan_size_max_m: float = 90e-6
     sample_rate_max_hz: float = 5e6
     frequency_max_hz: float = 2e6
+    field_max_a_per_m: float = 0.0  # |applied field| limit of the magnet (0: no magnet)
+    field_ramp_a_per_m_per_s: float = 10e3  # how fast the magnet's field may change
+    field_settle_s: float = 1.0  # wait after a ramp before the field counts as steady
 
 
 @dataclass(frozen=True)
@@ -164,6 +168,9 @@ class Controller(abc.ABC):
     info: ControllerInfo
     capabilities: frozenset[Capability]
     limits: Limits
+    #: Axis of the applied field (``Capability.APPLIED_FIELD``): "z" is out of plane, +z away from the sample.
+    #: The only axis the procedures support so far; an in-plane magnet would declare "x" or "y".
+    field_axis: str = "z"
 
     @classmethod
     @abc.abstractmethod
@@ -238,6 +245,24 @@ class Controller(abc.ABC):
             return
         raise self._missing(Capability.BIAS)
 
+    def set_field(self, field_a_per_m: float) -> None:
+        """Ramp the applied field to ``field_a_per_m`` [A/m] along the magnet's axis and return once it has
+        settled (ramp at ``limits.field_ramp_a_per_m_per_s``, then ``limits.field_settle_s``).
+
+        Needs :attr:`Capability.APPLIED_FIELD`; setting 0 is always allowed. The magnet's axis is a property of
+        the instrument (out-of-plane, +z away from the sample, for the magnets supported so far).
+        """
+        if field_a_per_m == 0.0:
+            return
+        raise self._missing(Capability.APPLIED_FIELD)
+
+    def read_field(self) -> float:
+        """The applied field as measured now [A/m] (a Hall probe or the coil current times its calibration).
+
+        Needs :attr:`Capability.APPLIED_FIELD`.
+        """
+        raise self._missing(Capability.APPLIED_FIELD)
+
     @abc.abstractmethod
     def status(self) -> Status:
         """A snapshot of the instrument's state."""
@@ -271,11 +296,15 @@ class Controller(abc.ABC):
     def zero_applied_field(self) -> None:
         """Bring an applied (electromagnet) field to zero. Part of :meth:`make_safe` and :meth:`abort`.
 
-        Nothing to do for a controller without a magnet; one that can apply a field implements this.
+        With :attr:`Capability.APPLIED_FIELD`, ``set_field(0.0)`` (the magnet's ramp and settle); nothing to do
+        for a controller without a magnet.
         """
+        if Capability.APPLIED_FIELD in getattr(self, "capabilities", ()):
+            self.set_field(0.0)
 
     def make_safe(self) -> None:
-        """Withdraw, drive off, bias zero, applied field zero: each attempted even if an earlier one fails."""
+        """Withdraw, drive off, bias zero and, with a magnet, field zero: each attempted even if an earlier one
+        fails."""
         errors: list[BaseException] = []
         for action in safe_steps(self):
             try:

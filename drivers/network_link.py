@@ -179,6 +179,7 @@ class NetworkController(LinkController):
             raise ProtocolError(f"abort reply id {rep.id} does not match request id {rid}")
         if not rep.ok:
             raise exception_for(rep.code, rep.message)
+        self._field_is_zero()
 
     def _wait(self, sock: zmq.Socket, timeout_s: float) -> tuple[list[bytes] | None, str | None]:
         poller = zmq.Poller()

@@ -19,8 +19,8 @@ from drivers.wire.scpi import WireError, decode_answer, format_command, format_l
 
 class StreamAbort:
     """Mixed into the serial client: needs ``_io`` (a lock held per transaction), ``_write``, ``_read_reply``,
-    ``_tokens``, ``_acks`` (token -> [Event, (code, message) or None]), ``_inflight_transfer_s`` and
-    ``_abort_wait_s``."""
+    ``_tokens``, ``_acks`` (token -> [Event, (code, message) or None]), ``_inflight_transfer_s``,
+    ``_abort_wait_s`` and ``_field_is_zero``."""
 
     def abort(self) -> None:
         """Stop the command in flight (from any thread) and make the stage safe; returns once confirmed."""
@@ -46,10 +46,12 @@ class StreamAbort:
         if entry[1] is None:  # the echo was seen during a resynchronisation, its status was not
             if not self.status().safe:
                 raise ControllerFault(-300, "abort sent, but the stage does not report safe")
+            self._field_is_zero()
             return
         code, message = entry[1]
         if code != 0:
             raise exception_for(code, message)
+        self._field_is_zero()
 
     def _take_ack(self, message: bytes) -> bool:
         """If ``message`` is the echo of an abort line, record its error status and say so."""

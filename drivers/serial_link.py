@@ -7,10 +7,8 @@ and checks for a complete reply (``read_until`` alone returns silently on a time
 garbled reply the link is resynchronised with an echo token before it is used again. Only commands marked
 safe to repeat are retried.
 
-``abort()`` may come from another thread while a command is in flight: it writes the line
-``ABORt;SYSTem:ERRor?;SYSTem:ECHO? "abortN"``, which the server handles ahead of the running command, and
-returns once the echo comes back (it follows the reply of the command it stopped). Whichever thread is reading
-replies at that moment takes the echo out of the stream.
+``abort()`` may come from another thread while a command is in flight: a line of its own that the server
+handles ahead of the running command (:mod:`drivers.serial_abort`).
 
 :class:`LinkController` here holds the part shared with the network driver: every Controller method as one
 command of ``drivers.wire.commands``.
@@ -28,10 +26,10 @@ from urllib.parse import parse_qs, urlsplit, urlunsplit
 
 import numpy as np
 
-from drivers.base import Controller, LineData, LineSpec, Limits, Status, SweepData
+from drivers.base import Capability, Controller, LineData, LineSpec, Limits, Status, SweepData
 from drivers.errors import Aborted, BadURL, LinkLost, LinkTimeout, ProtocolError
 from drivers.serial_abort import StreamAbort
-from drivers.wire.commands import MAX_SWEEP_POINTS, Command, command, line_args
+from drivers.wire.commands import MAX_SWEEP_POINTS, Command, command, line_args, ramp_s
 from drivers.wire.error_map import exception_for
 from drivers.wire.scpi import (
     WireError, decode_answer, encode_params, format_command, format_line, parse_reply, reply_end,
@@ -55,10 +53,16 @@ class LinkController(Controller):
         """Extra time the link itself needs for this command's data (none for fast links)."""
         return 0.0
 
-    def _call(self, spelling: str, *args: object) -> object:
+    #: The magnet's field as this client last set or read it [A/m]; a field change, and making the stage safe,
+    #: wait for the ramp from it. None after a lost reply to a field change (the magnet may be anywhere on its
+    #: way). A field another client left on is not known: a ramp longer than allowed for ends in a timeout and,
+    #: these commands being safe to repeat, a retry that finds the magnet there.
+    _field_a_per_m: float | None = 0.0
+
+    def _call(self, spelling: str, *args: object, extra_s: float = 0.0) -> object:
         cmd = command(spelling)
         limits = getattr(self, "limits", Limits())
-        extra = cmd.expected_s(args, limits) if cmd.expected_s is not None else 0.0
+        extra = (cmd.expected_s(args, limits) if cmd.expected_s is not None else 0.0) + extra_s
         fields = self._transact(cmd, args, self.timeout_s + extra + self._transfer_s(cmd, args))
         return cmd.unpack(args, fields) if cmd.unpack is not None else None
 
@@ -134,15 +138,44 @@ class LinkController(Controller):
     def status(self) -> Status:
         return self._call("STATus?")  # type: ignore[return-value]
 
+    def set_field(self, field_a_per_m: float) -> None:
+        if field_a_per_m == 0.0 and not self.has(Capability.APPLIED_FIELD):
+            return  # zero is always allowed, even without a magnet (the base class's promise)
+        if self._field_a_per_m is None:
+            self.read_field()
+        wait = ramp_s(self.limits, float(self._field_a_per_m), float(field_a_per_m))
+        self._field_a_per_m = None  # unknown until the reply: a lost one leaves the magnet anywhere on its way
+        self._call("MAGNet:FIELd", float(field_a_per_m), extra_s=wait)
+        self._field_a_per_m = float(field_a_per_m)
+
+    def read_field(self) -> float:
+        value = self._call("MAGNet:FIELd?")
+        self._field_a_per_m = float(value)  # type: ignore[arg-type]
+        return value  # type: ignore[return-value]
+
     def probe_hint(self) -> dict[str, float] | None:
         return self._call("SYSTem:PROBe?")  # type: ignore[return-value]
 
     def make_safe(self) -> None:
-        """Withdraw, drive off, bias zero in one command; the server attempts each step even if one fails."""
-        self._call("SYSTem:SAFE")
+        """Withdraw, drive off, bias zero (and field zero with a magnet) in one command; the server attempts each
+        step even if one fails. The reply may take the magnet's ramp back from the last field set here."""
+        self._call("SYSTem:SAFE", extra_s=self._field_home_s())
+        self._field_is_zero()
 
     def zero_applied_field(self) -> None:
-        self._call("FIELd:ZERO")
+        self._call("FIELd:ZERO", extra_s=self._field_home_s())
+        self._field_is_zero()
+
+    def _field_home_s(self) -> float:
+        """The magnet's ramp to 0 from the field last set here (after a lost reply: the whole range) [s]."""
+        if not self.has(Capability.APPLIED_FIELD):
+            return 0.0
+        lim, last = getattr(self, "limits", Limits()), self._field_a_per_m
+        return ramp_s(lim, lim.field_max_a_per_m if last is None else last, 0.0)
+
+    def _field_is_zero(self) -> None:  # after a confirmed make-safe or abort
+        if self.has(Capability.APPLIED_FIELD):
+            self._field_a_per_m = 0.0
 
     def server_watchdog_s(self) -> float | None:
         """The server's silence limit [s]: it makes the stage safe when the client says nothing that long while
@@ -154,9 +187,9 @@ class LinkController(Controller):
             raise Aborted(f"{what} stopped by abort")
 
     def _abort_wait_s(self) -> float:
-        """How long an abort may take to be confirmed: the link's timeout plus a full retraction."""
+        """How long an abort may take: the link's timeout, a full retraction and the magnet's ramp to 0."""
         limits = getattr(self, "limits", Limits())
-        return self.timeout_s + limits.z_range_m / limits.z_speed_max_m_per_s
+        return self.timeout_s + limits.z_range_m / limits.z_speed_max_m_per_s + self._field_home_s()
 
 
 def _no_extra(options: dict[str, object], scheme: str) -> None:

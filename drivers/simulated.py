@@ -80,6 +80,8 @@ class SimulatedController(Controller):
         self.default_line_rate_hz = default_line_rate_hz
         known = {f.name for f in fields(Limits)}  # the stage may know more limits than the interface
         self.limits = Limits(**{k: v for k, v in asdict(stage.limits).items() if k in known})
+        if self.limits.field_max_a_per_m <= 0:  # a scenario without a magnet under the sample
+            self.capabilities = frozenset(Capability) - {Capability.APPLIED_FIELD}
         name = scenario.name if scenario is not None else "custom"
         self.info = ControllerInfo("mfm-assistant", "virtual microscope", f"sim-{name}-{seed}", "1.0")
         self._closed = False
@@ -234,7 +236,8 @@ class SimulatedController(Controller):
         self.stage.set_bias(float(bias_v))
 
     def abort(self) -> None:
-        """Interrupt the call in flight at its next step of virtual time, then withdraw, drive off, bias 0 V."""
+        """Interrupt the call in flight at its next step of virtual time, then withdraw, drive off, bias 0 V and,
+        with a magnet, field 0 (an interrupted field ramp leaves the field where it was before that ramp)."""
         self._aborts += 1
         clock = getattr(self.stage, "clock", None)
         if clock is not None:
@@ -243,6 +246,14 @@ class SimulatedController(Controller):
             if clock is not None:
                 clock.resume()
             self.make_safe()
+
+    @_mapped
+    def set_field(self, field_a_per_m: float) -> None:
+        self.stage.set_field(float(field_a_per_m))
+
+    @_mapped
+    def read_field(self) -> float:
+        return float(self.stage.read_field())
 
     def status(self) -> Status:
         with self._lock:

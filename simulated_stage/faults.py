@@ -75,8 +75,8 @@ class FaultyStage:
             return attr
 
         def call(*args: Any, **kwargs: Any) -> Any:
-            if name == "set_bias" and (list(args) + list(kwargs.values()))[:1] == [0.0]:
-                return attr(*args, **kwargs)  # zero bias is part of making the stage safe: never faults
+            if name in ("set_bias", "set_field") and (list(args) + list(kwargs.values()))[:1] == [0.0]:
+                return attr(*args, **kwargs)  # zero bias and field are part of making the stage safe: never fault
             faults = self._schedule.next_call(name)
             for f in faults:
                 if f.kind == "error_code":

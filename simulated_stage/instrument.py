@@ -3,8 +3,9 @@
 The parts, each with its physics and sources: the drive and the lock-in (:mod:`simulated_stage.lockin`), the
 amplitude feedback and its tapping model (:mod:`simulated_stage.feedback`), two-pass lines
 (:mod:`simulated_stage.two_pass`), force curves (:mod:`simulated_stage.force_curve`), raw deflection records
-(:mod:`simulated_stage.deflection_record`) and what they return (:mod:`simulated_stage.results`). This module
-holds the state they share and the controller-like methods: signals, drive, motion, feedback, status.
+(:mod:`simulated_stage.deflection_record`), the magnet under the sample (:mod:`simulated_stage.magnet`) and what
+they return (:mod:`simulated_stage.results`). This module holds the state they share and the controller-like
+methods: signals, drive, motion, feedback, status.
 """
 
 from __future__ import annotations
@@ -22,6 +23,7 @@ from simulated_stage.feedback import AmplitudeFeedback
 from simulated_stage.force_curve import force_curve
 from simulated_stage.lever import Lever
 from simulated_stage.lockin import LockIn
+from simulated_stage.magnet import Electromagnet, MagnetConfig, MagnetControl
 from simulated_stage.optical_lever import OpticalLever
 from simulated_stage.results import ForceCurveResult, LineResult, StageStatus, SweepResult
 from simulated_stage.scanner import CoarseMotor, XYScanner, ZPiezo
@@ -44,6 +46,9 @@ class StageLimits:
     scan_size_max_m: float = 90e-6
     sample_rate_max_hz: float = 5e6
     frequency_max_hz: float = 2e6
+    field_max_a_per_m: float = 800e3
+    field_ramp_a_per_m_per_s: float = 50e3
+    field_settle_s: float = 2.0
 
 
 @dataclass(frozen=True)
@@ -66,9 +71,10 @@ class InstrumentConfig:
     crash_depth_m: float = 20e-9  # a centre gap below minus this with the feedback off is a crash
     sum_min_v: float = 0.5  # the laser counts as lost below this sum signal
     detector: OpticalLever = OpticalLever()
+    field_noise_a_per_m: float = 50.0  # rms of one reading of the magnet's field sensor
 
 
-class VirtualMicroscope:
+class VirtualMicroscope(MagnetControl):
     """A simulated MFM: every reading is physics plus noise, every action costs virtual time.
 
     Parameters
@@ -109,6 +115,8 @@ class VirtualMicroscope:
         self.laser_fraction = 1.0
         self.faults: list[str] = []
         self._recorder = DeflectionRecorder(self)
+        self.magnet = Electromagnet(MagnetConfig(lim.field_max_a_per_m, lim.field_ramp_a_per_m_per_s,
+                                                 lim.field_settle_s, config.field_noise_a_per_m), self.clock)
 
     # ---- state the parts share -----------------------------------------------------------------------
     @property

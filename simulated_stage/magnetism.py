@@ -89,7 +89,8 @@ def _track_data(n: int, pixel_m: float, period_m: float, rng: np.random.Generato
 
 
 def pattern_maps(pattern: str, *, n: int, pixel_m: float, period_m: float, transition_m: float,
-                 ms_a_per_m: float, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+                 ms_a_per_m: float, rng: np.random.Generator,
+                 tracks=None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Magnetisation maps (M_x, M_z) [A/m] and the topographic feature mask (0..1) of a film pattern.
 
     Patterns: ``oop_tracks`` (perpendicular written tracks, tanh transitions, DC-erased guard bands),
@@ -97,6 +98,8 @@ def pattern_maps(pattern: str, *, n: int, pixel_m: float, period_m: float, trans
     dots of diameter p/2 on a square lattice of period p, random polarity), ``random_domains`` (smoothed
     Gaussian random field of correlation length ~p/4 thresholded, tanh walls), ``stripes`` (square wave along
     x, domain centred at x = 0 positive, exact cell averages, sharp walls), ``uniform`` (+M_z everywhere).
+    With ``tracks`` (a :class:`simulated_stage.recording.TrackLayout`) the two track patterns follow that layout
+    instead: bit length, pitch, width, write jitter, erase bands and old data (:mod:`simulated_stage.recording`).
     """
     x = pixel_centres_m(n, pixel_m)
     zeros = np.zeros((n, n))
@@ -105,6 +108,14 @@ def pattern_maps(pattern: str, *, n: int, pixel_m: float, period_m: float, trans
     if pattern == "stripes":
         row = _square_wave_cell_average(x, pixel_m, period_m)
         return zeros, np.broadcast_to(row * ms_a_per_m, (n, n)).copy(), zeros
+    if pattern in ("oop_tracks", "inplane_bits") and tracks is not None:
+        from simulated_stage.recording import written_tracks
+
+        shape = "tanh" if pattern == "oop_tracks" else "arctan"
+        m, mask = written_tracks(n, pixel_m, tracks, transition_m=max(transition_m, 0.25 * pixel_m), shape=shape,
+                                 rng=rng)
+        m = m * ms_a_per_m
+        return (zeros, m, mask) if pattern == "oop_tracks" else (m, zeros, mask)
     if pattern in ("oop_tracks", "inplane_bits"):
         sign, mask = _track_data(n, pixel_m, period_m, rng)
         shape = "tanh" if pattern == "oop_tracks" else "arctan"

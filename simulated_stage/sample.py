@@ -8,7 +8,8 @@ Sign convention: F > 0 repulsive, F' = dF/dz (attractive and strengthening on ap
 
 Caches:
 * the magnetic point-probe interaction from cached spline maps of the film's field
-  (:mod:`simulated_stage.magnetic_maps`), updated in place when ``expose`` switches pixels;
+  (:mod:`simulated_stage.magnetic_maps`), updated in place when ``expose`` switches pixels and dropped when the
+  applied field (``apply_field``, the magnet's) switches elements all over the film;
 * per amplitude (rounded to 4 significant digits), spline tables of the oscillation-averaged
   electrostatic (per V^2), short-range and induced (susceptibility) forces and gradients versus gap.
 """
@@ -24,6 +25,7 @@ import numpy as np
 from simulated_stage import magnetism
 from simulated_stage.averaging import AveragedTable
 from simulated_stage.contact import ShortRangeForce, reduced_modulus_pa
+from simulated_stage.dots import DotElements, tip_direction
 from simulated_stage.electrostatics import TipCapacitance
 from simulated_stage.errors import ScenarioError
 from simulated_stage.magnetic_maps import MagneticProbeMaps
@@ -41,7 +43,8 @@ class SampleSpec:
     transition_width_nm: float = 20.0
     saturation_magnetisation_ka_per_m: float = 800.0
     thickness_nm: float = 20.0
-    coercive_field_ka_per_m: float = 200.0
+    coercive_field_ka_per_m: float = 200.0  # dots: the mean of their switching fields
+    switching_field_spread_ka_per_m: float = 0.0  # dots: standard deviation of their switching fields
     susceptibility: float = 0.0
     extent_um: float = 20.0
     pixel_nm: float = 10.0
@@ -52,6 +55,13 @@ class SampleSpec:
     hamaker_j: float = 1e-19
     youngs_modulus_gpa: float = 150.0
     seed: int = 1
+    # written-track layout of the two track patterns (0: the layout that follows from period_nm)
+    bit_length_nm: float = 0.0
+    track_pitch_nm: float = 0.0
+    track_width_nm: float = 0.0
+    jitter_nm: float = 0.0
+    erase_band_nm: float = 0.0
+    old_data_bit_nm: float = 0.0
 
     def __post_init__(self) -> None:
         s = "sample"
@@ -64,6 +74,7 @@ class SampleSpec:
         check_range(s, "saturation_magnetisation_ka_per_m", self.saturation_magnetisation_ka_per_m, 0.0, 3000.0)
         check_range(s, "thickness_nm", self.thickness_nm, 0.0, 1e4, low_open=True)
         check_range(s, "coercive_field_ka_per_m", self.coercive_field_ka_per_m, 0.0, 1e5, low_open=True)
+        check_range(s, "switching_field_spread_ka_per_m", self.switching_field_spread_ka_per_m, 0.0, 1e4)
         check_range(s, "susceptibility", self.susceptibility, 0.0, 1.0)
         check_range(s, "extent_um", self.extent_um, 16 * self.pixel_nm * 1e-3, _MAX_PIXELS * self.pixel_nm * 1e-3)
         check_range(s, "roughness_nm", self.roughness_nm, 0.0, 100.0)
@@ -73,6 +84,35 @@ class SampleSpec:
         check_range(s, "hamaker_j", self.hamaker_j, 0.0, 1e-17)
         check_range(s, "youngs_modulus_gpa", self.youngs_modulus_gpa, 0.0, 2000.0, low_open=True)
         check_range(s, "seed", self.seed, 0, 2**63 - 1)
+        self._check_tracks()
+
+    def _check_tracks(self) -> None:
+        s = "sample"
+        extra = {k: getattr(self, k) for k in ("track_pitch_nm", "track_width_nm", "jitter_nm", "erase_band_nm",
+                                               "old_data_bit_nm")}
+        if self.bit_length_nm == 0.0:
+            given = [k for k, v in extra.items() if v != 0.0]
+            if given:
+                raise ScenarioError(f"[sample] {given[0]} needs bit_length_nm (the written-track layout)")
+            return
+        if self.pattern not in ("oop_tracks", "inplane_bits"):
+            raise ScenarioError(f"[sample] bit_length_nm applies to the patterns oop_tracks and inplane_bits, "
+                                f"not {self.pattern!r}")
+        check_range(s, "bit_length_nm", self.bit_length_nm, 2.0 * self.pixel_nm, 1e5)
+        check_range(s, "track_pitch_nm", self.track_pitch_nm, 4.0 * self.pixel_nm, self.extent_um * 1e3)
+        check_range(s, "track_width_nm", self.track_width_nm, 2.0 * self.pixel_nm, self.track_pitch_nm)
+        check_range(s, "jitter_nm", self.jitter_nm, 0.0, 0.25 * self.bit_length_nm)
+        check_range(s, "erase_band_nm", self.erase_band_nm, 0.0, 0.5 * (self.track_pitch_nm - self.track_width_nm))
+        check_range(s, "old_data_bit_nm", self.old_data_bit_nm, 0.0, 1e5)
+
+    def track_layout(self):
+        """The written-track layout in metres, or None for the layout that follows from ``period_nm``."""
+        if self.bit_length_nm == 0.0:
+            return None
+        from simulated_stage.recording import TrackLayout
+
+        return TrackLayout(self.bit_length_nm * 1e-9, self.track_pitch_nm * 1e-9, self.track_width_nm * 1e-9,
+                           self.jitter_nm * 1e-9, self.erase_band_nm * 1e-9, self.old_data_bit_nm * 1e-9)
 
     @classmethod
     def from_table(cls, table: Mapping[str, Any]) -> "SampleSpec":
@@ -107,9 +147,17 @@ class Sample:
         mx, mz, features = magnetism.pattern_maps(
             spec.pattern, n=self.n, pixel_m=self.pixel_m, period_m=spec.period_nm * 1e-9,
             transition_m=spec.transition_width_nm * 1e-9,
-            ms_a_per_m=spec.saturation_magnetisation_ka_per_m * 1e3, rng=np.random.default_rng(pattern_seed))
+            ms_a_per_m=spec.saturation_magnetisation_ka_per_m * 1e3, rng=np.random.default_rng(pattern_seed),
+            tracks=spec.track_layout())
         self._mx, self._mz = mx, mz
         self._in_plane = bool(np.any(mx))  # in-plane films switch along x, the others along z
+        self._dots = None if spec.pattern != "dots" else DotElements(
+            mz, pixel_m=self.pixel_m, period_m=spec.period_nm * 1e-9,
+            switching_mean_a_per_m=spec.coercive_field_ka_per_m * 1e3,
+            switching_spread_a_per_m=spec.switching_field_spread_ka_per_m * 1e3,
+            rng=np.random.default_rng(np.random.SeedSequence(spec.seed).spawn(3)[2]))
+        self._applied_a_per_m = 0.0  # uniform field of the magnet along +z
+        self._tip_sign = 1.0  # -1 once the tip's coating has reversed
         rough = magnetism.roughness_map(self.n, self.pixel_m, spec.roughness_nm * 1e-9,
                                         np.random.default_rng(rough_seed))
         self._topography = rough + spec.feature_height_nm * 1e-9 * features
@@ -165,6 +213,8 @@ class Sample:
         f_sr, g_sr = sr_table(gap)
         zp = np.maximum(self.probe_height_m(x, y, gap), amp + 1e-9)
         f_mag, g_mag = self.magnetic.at(x, y, zp, amp)
+        if self._tip_sign < 0:  # the interaction is linear in the tip's moment and charge
+            f_mag, g_mag = -f_mag, -g_mag
         if induced_table is not None:
             f_ind, g_ind = induced_table(zp)
             f_mag, g_mag = f_mag + f_ind, g_mag + g_ind
@@ -212,8 +262,14 @@ class Sample:
         x, y, gap = np.broadcast_arrays(np.asarray(x_m, float), np.asarray(y_m, float),
                                         np.asarray(gap_m, float))
         x, y, gap = x.ravel(), y.ravel(), gap.ravel()
+        m, q = self.tip.moment_a_m2 * self._tip_sign, self.tip.monopole_a_m * self._tip_sign
+        if self._dots is not None:  # single-domain dots reverse as a whole (simulated_stage.dots)
+            pix, old = self._dots.expose(x, y, self.probe_height_m(x, y, gap), field_a_per_m=self._applied_a_per_m,
+                                         moment_a_m2=m, monopole_a_m=q)
+            return self._switched(pix, old)
         hc = self.spec.coercive_field_ka_per_m * 1e3
-        reach = field_reach_m(self.tip.moment_a_m2, self.tip.monopole_a_m, hc)
+        h_app = 0.0 if self._in_plane else self._applied_a_per_m  # the magnet's field is along z
+        reach = field_reach_m(m, q, max(hc - abs(h_app), 1e-3 * hc))
         zp = np.maximum(self.probe_height_m(x, y, gap), 1e-10)
         near = zp < reach
         if not near.any():
@@ -230,9 +286,9 @@ class Sample:
         xc = (jj + 0.5) * self.pixel_m - half
         yc = (ii + 0.5) * self.pixel_m - half
         hx, _, hz = point_probe_field(xc - x[:, None], yc - y[:, None], np.broadcast_to(zp[:, None], xc.shape),
-                                      moment_a_m2=self.tip.moment_a_m2, monopole_a_m=self.tip.monopole_a_m)
+                                      moment_a_m2=m, monopole_a_m=q)
         in_plane = self._in_plane
-        h_axis = hx if in_plane else hz
+        h_axis = hx if in_plane else hz + h_app
         strong = inside & (np.abs(h_axis) > hc)
         if not strong.any():
             return 0
@@ -250,6 +306,41 @@ class Sample:
             self._version += 1
             self.magnetic.switched(pix[flip], current[flip], in_plane)
         return count
+
+    # ------------------------------------------------------------------------------------- applied field
+    def apply_field(self, field_a_per_m: float) -> int:
+        """A uniform applied field along +z [A/m] (the magnet's): the tip's coating reverses past its coercive
+        field, dots past their own switching fields, any other out-of-plane film as a whole past its coercive
+        field (an in-plane film does not respond to it). Returns the number of pixels reversed."""
+        h = float(field_a_per_m)
+        self._applied_a_per_m = h
+        base = np.sign(self.tip.moment_a_m2) or -np.sign(self.tip.monopole_a_m) or 1.0  # q < 0 when m > 0
+        self._tip_sign = base * tip_direction(base * self._tip_sign, h, self.tip.coercive_field_ka_per_m * 1e3)
+        if self._dots is not None:
+            return self._switched(*self._dots.apply_field(h), bulk=True)
+        if self._in_plane or not abs(h) > self.spec.coercive_field_ka_per_m * 1e3:
+            return 0
+        flat = self._mz.reshape(-1)
+        pix = np.flatnonzero(flat * h < 0.0)
+        old = flat[pix].copy()
+        flat[pix] = -old
+        return self._switched(pix, old, bulk=True)
+
+    @property
+    def tip_reversed(self) -> bool:
+        """Whether the tip's coating points against its scenario moment (reversed by the applied field)."""
+        return self._tip_sign < 0
+
+    def _switched(self, pixels: np.ndarray, old_values: np.ndarray, *, bulk: bool = False) -> int:
+        """Bring the caches up to date after a switch; a field step's switching (``bulk``) is spread over the
+        whole film, where updating every cached node costs more than building again the few the next lines use."""
+        if pixels.size:
+            self._version += 1
+            if bulk:
+                self.magnetic.clear()
+            else:
+                self.magnetic.switched(pixels, old_values, False)
+        return int(pixels.size)
 
 
 def _amplitude_key(amplitude_m: float) -> float:

@@ -91,6 +91,10 @@ class InstrumentSpec:
     sum_v: float = _field(4.0, 0.1, 20.0)
     sum_min_v: float = _field(0.5, 0.0, 20.0)
     saturation_v: float = _field(10.0, 0.1, 100.0)
+    magnet_max_ka_per_m: float = _field(800.0, 0.0, 1e4)  # 0: no magnet under the sample
+    magnet_ramp_ka_per_m_per_s: float = _field(50.0, 0.01, 1e4)
+    magnet_settle_s: float = _field(2.0, 0.0, 600.0)
+    magnet_noise_ka_per_m: float = _field(0.05, 0.0, 100.0)
 
 
 def _spec(cls: type, table: Any, section: str) -> Any:
@@ -190,7 +194,9 @@ class Scenario:
             z_range_m=i.z_range_um / 1e6, z_speed_max_m_per_s=i.z_speed_um_per_s / 1e6, bias_max_v=i.bias_max_v,
             drive_max_v=i.drive_max_v, coarse_travel_max_m=i.coarse_travel_mm / 1e3,
             coarse_step_m=i.coarse_step_nm / 1e9, scan_size_max_m=i.scan_size_max_um / 1e6,
-            sample_rate_max_hz=i.sample_rate_max_hz, frequency_max_hz=i.frequency_max_hz)
+            sample_rate_max_hz=i.sample_rate_max_hz, frequency_max_hz=i.frequency_max_hz,
+            field_max_a_per_m=i.magnet_max_ka_per_m * 1e3, field_ramp_a_per_m_per_s=i.magnet_ramp_ka_per_m_per_s * 1e3,
+            field_settle_s=i.magnet_settle_s)
         detector = OpticalLever(invols_m_per_v=p.invols_nm_per_v / 1e9,
                                 white_noise_v_per_rthz=i.detector_noise_uv_per_rthz / 1e6,
                                 flicker_v_per_rthz_at_1hz=i.flicker_uv_per_rthz_at_1hz / 1e6,
@@ -202,7 +208,7 @@ class Scenario:
             phase_offset_deg=i.phase_offset_deg, lockin_time_constant_s=i.lockin_time_constant_ms / 1e3,
             p_gain=i.p_gain, i_gain_per_s=i.i_gain_per_s, servo_oversample=i.servo_oversample,
             tapping_sharpness=i.tapping_sharpness, crash_depth_m=i.crash_depth_nm / 1e9, sum_min_v=i.sum_min_v,
-            detector=detector)
+            detector=detector, field_noise_a_per_m=i.magnet_noise_ka_per_m * 1e3)
 
 
 def builtin_scenarios() -> tuple[str, ...]:

@@ -59,6 +59,8 @@ class TipSpec:
     monopole_a_m: float = 0.0
     effective_distance_nm: float = 30.0
     youngs_modulus_gpa: float = 169.0
+    coercive_field_ka_per_m: float = 300.0  # the coating's moment reverses when an applied field opposes it more
+
 
     def __post_init__(self) -> None:
         s = "tip"
@@ -69,6 +71,7 @@ class TipSpec:
         check_range(s, "monopole_a_m", self.monopole_a_m, -1e-4, 1e-4)
         check_range(s, "effective_distance_nm", self.effective_distance_nm, 0.0, 2000.0)
         check_range(s, "youngs_modulus_gpa", self.youngs_modulus_gpa, 0.1, 2000.0, low_open=True)
+        check_range(s, "coercive_field_ka_per_m", self.coercive_field_ka_per_m, 0.0, 1e5, low_open=True)
 
     @classmethod
     def from_table(cls, table: Mapping[str, Any]) -> "TipSpec":

@@ -37,6 +37,7 @@ def test_every_error_of_the_assistant_has_the_one_root_and_a_builtin_meaning():
     ("assistant.cli._common:UsageError", 2), ("assistant.storage:NotASessionFileError", 2),
     ("assistant.storage:SessionWriteError", 1), ("assistant.procedures.guard:SafetyError", 1),
     ("assistant.analysis.lift_series:SeriesInputError", 2), ("assistant.procedures.events:Cancelled", 1),
+    ("assistant.analysis.field_series:LoopInputError", 2), ("assistant.procedures.field_series:MagnetFault", 1),
     ("drivers.errors:BadURL", 2), ("drivers.errors:LimitExceeded", 2), ("drivers.errors:InsecureBind", 2),
     ("drivers.errors:KeyFileError", 2), ("drivers.errors:LinkLost", 1), ("drivers.errors:ProtocolError", 1),
     ("drivers.fault_plan:FaultPlanError", 2), ("builtins:FileNotFoundError", 2), ("builtins:RuntimeError", 1),

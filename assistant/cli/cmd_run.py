@@ -1,4 +1,5 @@
-"""``mfma run``: the whole session headless — calibrate, approach, series, analysis, report."""
+"""``mfma run``: the whole session headless — calibrate, approach, series, analysis, report (a field series with
+``--fields-ka-per-m``: :mod:`assistant.cli.cmd_run_fields`)."""
 
 from __future__ import annotations
 
@@ -59,6 +60,9 @@ def _writer_hook(ctl):
     return ctl.writer_fault_hook() if isinstance(ctl, SimulatedController) else None
 
 
+_FIELD_MAP_NEEDS_LIFT_SERIES = "--field-map maps the stray field of a lift series; a field series has none to map"
+
+
 def _field_map_tip(args):
     """With ``--field-map``: the probe's newest stored TTF, checked before anything moves (exit 2 if none)."""
     if not getattr(args, "field_map", False):
@@ -96,10 +100,16 @@ def run(args) -> int:
     from assistant.procedures.guard import load_limits
 
     limits = load_limits(args.limits)
+    if args.field_map and args.fields_ka_per_m is not None and not args.resume:
+        raise UsageError(_FIELD_MAP_NEEDS_LIFT_SERIES)
     tip = _field_map_tip(args)
     with StageProgress() as progress:
         if args.resume:
             return _resume(args, limits, progress, tip)
+        if args.fields_ka_per_m is not None:
+            from assistant.cli.cmd_run_fields import run_fields
+
+            return run_fields(args, limits, progress)
         return _run(args, limits, progress, tip)
 
 
@@ -148,6 +158,12 @@ def _resume(args, limits, progress, tip=None) -> int:
     if not path.is_file():
         raise UsageError(f"resume file {path} does not exist")
     plan = ResumePlan.read(path)
+    if plan.is_field_series:
+        from assistant.cli.cmd_run_fields import resume_fields
+
+        if tip is not None:
+            raise UsageError(_FIELD_MAP_NEEDS_LIFT_SERIES)
+        return resume_fields(args, plan, limits, progress)
     extra = {"pace": args.pace, "line_rate": plan.series.line_rate_hz} if scheme_of(args.controller) == "sim" else {}
     with open_controller_from_args(args, **extra) as ctl:
         wf = Workflow.resume(ctl, plan, limits=limits, sink=progress, fsync=args.fsync,
@@ -155,8 +171,7 @@ def _resume(args, limits, progress, tip=None) -> int:
         try:
             from assistant.procedures.events import Notice
 
-            progress(Notice("info", f"resuming {plan.series.name} at line {plan.completed_lines + 1} of "
-                                    f"{plan.series.lines}"))
+            progress(Notice("info", f"resuming {plan.series.name} at {plan.where}"))
             wf.approach()
             wf.series(plan.series, resume=True)
             with progress.stage("analysis", "decomposing the series"):

@@ -170,6 +170,29 @@ def build_parser() -> argparse.ArgumentParser:
     _per_height(p)
     _json(p)
     p.set_defaults(handler="cmd_analyze:series")
+    p = ana.add_parser("loop", help="switching fields, loop, coercive field and switching-field spread of a field "
+                                    "series")
+    p.add_argument("file", help=".npz (phase_deg (fields, rows, cols), field_ka_per_m (fields,), pixel_nm, optional "
+                                "topography_m (rows, cols)) or a session file (.h5)")
+    p.add_argument("--field-series", metavar="NAME", help="field series inside a session file (default: the last)")
+    p.add_argument("--tip-moment", choices=("up", "down"), default="up",
+                   help="the tip's magnetisation at the first step: along +z (up, default) or -z")
+    p.add_argument("--plots", metavar="DIR", help="also write the loop figures to DIR")
+    _json(p)
+    p.set_defaults(handler="cmd_analyze_loop:run")
+
+    p = ana.add_parser("image", help="magnetisation orientation and recorded-track metrics of one image")
+    p.add_argument("file", help=".npz (phase_deg (rows, cols), pixel_nm as one spacing or [row, col], optional "
+                                "lift_nm) or a session file (.h5): one height of a series")
+    p.add_argument("--series", metavar="NAME", help="series name inside a session file (default: the last)")
+    p.add_argument("--height-nm", type=float, metavar="NM", help="the height of the series to analyse (default: "
+                   "the lowest where the tip-sample interaction is negligible)")
+    p.add_argument("--thickness-nm", type=float, metavar="NM", help="film thickness (default: fitted)")
+    p.add_argument("--tip-offset-nm", type=float, metavar="NM", help="the tip as a point dipole this far behind "
+                   "the apex (e.g. from a tip calibration): taken off the transition width")
+    p.add_argument("--plots", metavar="DIR", help="also write the transition map and the jitter histogram to DIR")
+    _json(p)
+    p.set_defaults(handler="cmd_analyze_image:run")
 
     _quantitative_parsers(ana)
 
@@ -203,6 +226,9 @@ def build_parser() -> argparse.ArgumentParser:
                                                                      f"{MIN_LINES})")
     p.add_argument("--size-um", type=positive(), default=4.0, metavar="UM", help="scan size in µm (default 4)")
     p.add_argument("--no-repeat", action="store_true", help="do not repeat the first height at the end of lines")
+    p.add_argument("--fields-ka-per-m", metavar="LIST|START:STOP:STEP",
+                   help="a field series instead of a lift series: applied fields in kA/m, as a list or as "
+                        "START:STOP:STEP (from START to STOP and back); one lift height (--heights, default 50 nm)")
     p.add_argument("--pace", choices=("fast", "realtime"), default="fast",
                    help="simulated stage only: fast (virtual clock, default) or realtime (waits as an instrument "
                         "would)")

@@ -19,7 +19,8 @@ from assistant.formatting import duration, progress_text
 #: The stage each procedure step belongs to (a step not listed is a stage of its own).
 STAGE_OF = {"thermal record": "calibration", "thermal spectrum": "calibration", "thermal fit": "calibration",
             "drive sweep": "calibration", "sweep fit": "calibration", "force curve": "calibration",
-            "approach": "approach", "series": "series", "analysis": "analysis", "report": "report"}
+            "approach": "approach", "series": "series", "analysis": "analysis", "report": "report",
+            "field series": "field series"}
 
 
 def event_text(event) -> str:
@@ -37,8 +38,8 @@ def event_text(event) -> str:
 
 def notice_text(notice) -> str:
     """A Notice as one line; the safety guard's stop notice says only what it did (the error comes once, later)."""
-    if getattr(notice, "kind", "") == "stopped":
-        return "stopped: tip withdrawn, drive off, bias 0 V"
+    if getattr(notice, "kind", "") == "stopped":  # what the guard did: after the error's own text
+        return "stopped: " + notice.text.rsplit("); ", 1)[-1]
     mark = {"warning": "warning: ", "error": "error: "}.get(notice.level, "")
     return mark + notice.text
 

@@ -87,10 +87,11 @@ def stored_thermal_fit(record) -> ThermalFit:
 
 
 def storage_form(d: dict) -> tuple[dict, dict]:
-    """Split a result dict into scalar attributes and array datasets for the session file (None dropped)."""
+    """Split a result dict into scalar attributes and array datasets for the session file (None, text lists and
+    empty lists dropped: an empty list of notes is no array)."""
     scalars, arrays = {}, {}
     for key, value in d.items():
-        if value is None:
+        if value is None or (isinstance(value, (list, tuple)) and not value):
             continue
         if isinstance(value, (list, tuple, np.ndarray)):
             arr = np.asarray(value, dtype=float) if not _is_text(value) else None

@@ -1,8 +1,8 @@
 """The safety guard every procedure runs inside, and the software limits it enforces.
 
 Whatever goes wrong (an exception, a cancel, Ctrl-C), the guard leaves the instrument withdrawn, with the drive
-off and the bias at zero, lets the procedure save what it has, reports, and re-raises. The software limits here
-sit *inside* the controller's hard limits; both are checked.
+off, the bias at zero and any applied field at zero, lets the procedure save what it has, reports, and re-raises.
+The software limits here sit *inside* the controller's hard limits; both are checked.
 """
 
 from __future__ import annotations
@@ -37,6 +37,7 @@ class SafetyLimits:
     min_sum_v: float = 0.5  # photodetector sum below this means the laser is off the lever
     lift_height_max_m: float = 2e-6
     drive_amplitude_max_v: float = 1.0
+    field_max_a_per_m: float = 2e6  # |applied field|; the magnet's own limit applies as well
 
     def check_bias(self, bias_v: float) -> None:
         if not abs(bias_v) <= self.bias_max_v:
@@ -53,6 +54,13 @@ class SafetyLimits:
             raise SafetyError(
                 f"drive amplitude {amplitude_v:g} V outside [0, {self.drive_amplitude_max_v:g}] V"
             )
+
+    def check_field(self, field_a_per_m: float) -> None:
+        if not abs(field_a_per_m) <= self.field_max_a_per_m:
+            from assistant.formatting import quantity
+
+            raise SafetyError(f"applied field {quantity(field_a_per_m, 'A/m')} exceeds the software limit of "
+                              f"±{quantity(self.field_max_a_per_m, 'A/m')}")
 
     def check_sum(self, sum_v: float) -> None:
         if not sum_v >= self.min_sum_v:  # also catches NaN
@@ -106,7 +114,8 @@ def safety_guard(controller, *, sink: Sink = null_sink, save: Callable[[], None]
         except BaseException as safe_exc:  # the link may be gone: say so loudly, then carry on with the save
             sink(Notice("error", f"could not confirm a safe stage ({safe_exc}); check the instrument by hand"))
         else:
-            sink(Notice("warning", f"stopped ({type(exc).__name__}: {exc}); tip withdrawn, drive off, bias 0 V",
+            field = ", field 0" if _has_magnet(controller) else ""
+            sink(Notice("warning", f"stopped ({type(exc).__name__}: {exc}); tip withdrawn, drive off, bias 0 V{field}",
                         kind="stopped"))
         if save is not None:
             try:
@@ -121,3 +130,12 @@ def stop_now(controller) -> None:
     command still running (on a link, a command the client gave up on may still run), else ``make_safe()``."""
     abort = getattr(controller, "abort", None)
     (abort if callable(abort) else controller.make_safe)()
+
+
+def _has_magnet(controller) -> bool:
+    from drivers.base import Capability
+
+    try:
+        return bool(controller.has(Capability.APPLIED_FIELD))
+    except Exception:
+        return False

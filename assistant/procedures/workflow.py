@@ -1,5 +1,5 @@
-"""A whole session, step by step: calibrate, approach, series, analyse (the report is built by the caller
-from the session file, with ``assistant.report.summary.build_report``).
+"""A whole session, step by step: calibrate, approach, series (or field series), analyse (the report is built
+by the caller from the session file, with ``assistant.report.summary.build_report``).
 
 The command line (``mfma run``) calls the steps in order; the terminal UI calls them one at a time from its
 views. Both go through this class, so there is one code path. Each step writes what it measured to the
@@ -19,6 +19,8 @@ from assistant.errors import AssistantError
 from assistant.procedures.approach import ApproachResult, ApproachSettings, approach
 from assistant.procedures.calibrate import CalibrationResult, CalibrationSettings, DriveSettings, calibrate
 from assistant.procedures.events import CancelToken, Notice, Sink, null_sink
+from assistant.procedures.field_series import (FieldSeriesResult, FieldSeriesSettings, check_controller,
+                                               run_field_series)
 from assistant.procedures.guard import SafetyLimits, safety_guard
 from assistant.procedures.series import SeriesResult, SeriesSettings, run_series
 
@@ -34,10 +36,11 @@ class WorkflowError(AssistantError, RuntimeError):
 @dataclass(frozen=True)
 class ResumePlan:
     """What continuing an interrupted session needs, read from its file before any controller is opened: the
-    unfinished series' settings and the calibration stored with them."""
+    unfinished series' settings (a lift series, or a field series: :attr:`is_field_series`) and the calibration
+    stored with them. ``completed_lines`` counts the lines of every field step of a field series."""
 
     path: Path
-    series: SeriesSettings
+    series: SeriesSettings | FieldSeriesSettings
     completed_lines: int
     drive: DriveSettings
     spring_constant_n_per_m: float
@@ -48,15 +51,30 @@ class ResumePlan:
     def read(cls, path: str | Path) -> "ResumePlan":
         """Read the plan; a file without series or with its last series finished is refused."""
         from assistant.storage import SessionFile, resume_point
+        from assistant.storage.resume import FIELD_SERIES
 
         with SessionFile.open(path, "r") as sf:  # raises a clear error for files that are not session files
             point = resume_point(sf)
         stored = point.settings
+        kind = FieldSeriesSettings if point.kind == FIELD_SERIES else SeriesSettings
         return cls(path=Path(path), completed_lines=point.completed_lines,
-                   series=SeriesSettings.from_dict({k: v for k, v in stored.items() if k not in CALIBRATION_KEYS}),
+                   series=kind.from_dict({k: v for k, v in stored.items() if k not in CALIBRATION_KEYS}),
                    drive=DriveSettings(**{k: float(v) for k, v in stored["drive"].items()}),
                    spring_constant_n_per_m=stored["spring_constant_n_per_m"],
                    quality_factor=stored["quality_factor"], temperature_k=stored["temperature_k"])
+
+    @property
+    def is_field_series(self) -> bool:
+        return isinstance(self.series, FieldSeriesSettings)
+
+    @property
+    def where(self) -> str:
+        """Where the series goes on, in words (``line 5 of 32``; ``field step 4 of 9, line 17 of 24``)."""
+        if self.is_field_series:
+            step, line = divmod(self.completed_lines, self.series.lines)
+            steps = len(self.series.fields_a_per_m)
+            return f"field step {step + 1} of {steps}, line {line + 1} of {self.series.lines}"
+        return f"line {self.completed_lines + 1} of {self.series.lines}"
 
 
 @dataclass
@@ -81,6 +99,9 @@ class Workflow:
     analysis: object | None = None
     probe_warnings: list[str] = field(default_factory=list)
     field_map_result: object | None = None
+    field_settings: FieldSeriesSettings | None = None
+    field_result: FieldSeriesResult | None = None
+    loop_analysis: object | None = None
     _session: object | None = None
 
     # ---- session file --------------------------------------------------------------------------------
@@ -102,7 +123,8 @@ class Workflow:
 
     def withdraw(self) -> None:
         """Make the stage safe now: stop the controller call in flight (``abort()``, from any thread), withdraw,
-        drive off, bias zero. The running step then ends with ``drivers.errors.Aborted`` through its guard."""
+        drive off, bias zero and, with a magnet, field zero. The running step then ends with
+        ``drivers.errors.Aborted`` through its guard."""
         from assistant.procedures.guard import stop_now
 
         stop_now(self.controller)
@@ -142,7 +164,8 @@ class Workflow:
     def resume(cls, controller, plan: ResumePlan, **options) -> "Workflow":
         """A workflow that continues the session of ``plan`` (:meth:`ResumePlan.read`): its file reopened for
         writing, the stored drive, k, Q and temperature instead of a new calibration. Go on with
-        :meth:`approach` and ``series(plan.series, resume=True)``. ``options`` as for the constructor."""
+        :meth:`approach` and ``series(plan.series, resume=True)``, or ``field_series(plan.series, resume=True)``
+        when ``plan.is_field_series``. ``options`` as for the constructor."""
         from assistant.storage import SessionFile
 
         wf = cls(controller, plan.path, **options)
@@ -192,7 +215,7 @@ class Workflow:
         self.series_result = res
         return res
 
-    def _stored_settings(self, settings: SeriesSettings) -> str:
+    def _stored_settings(self, settings: SeriesSettings | FieldSeriesSettings) -> str:
         """The series settings and the calibration they were taken with, as the session file keeps them."""
         drive = {"drive": dataclasses.asdict(self.drive)} if self.drive is not None else {}
         return json.dumps({**settings.to_dict(), **drive, "spring_constant_n_per_m": self.spring_constant_n_per_m,
@@ -218,6 +241,40 @@ class Workflow:
         for text in self.field_map_result.summary["warnings"]:
             self.sink(Notice("warning", f"field map: {text}"))
         return self.field_map_result
+
+    def field_series(self, settings: FieldSeriesSettings, *, resume: bool = False) -> FieldSeriesResult:
+        """Image every field step of ``settings`` at one lift height; the field ends at zero (and goes to zero
+        through the safety guard on any stop). A resume retraces the fields' turning points first."""
+        if self.approach_result is None or not self.approach_result.engaged:
+            raise WorkflowError("approach first: the field series needs an engaged tip")
+        if self.drive is not None and settings.phase_reference_deg == 0.0:
+            settings = dataclasses.replace(settings, phase_reference_deg=self.drive.phase_reference_deg)
+        check_controller(self.controller, settings, self.limits)  # before the file gets a group for it
+        self.field_settings = settings
+        if resume:
+            from assistant.storage import resume_field_writer
+
+            writer = resume_field_writer(self.session, settings.name, before_write=self.before_write)
+        else:
+            writer = self.session.create_field_series(
+                settings.name, fields_a_per_m=settings.fields_a_per_m, lines=settings.lines,
+                pixels=settings.pixels, scan_size_m=settings.scan_size_m, line_rate_hz=settings.line_rate_hz,
+                lift_height_m=settings.lift_height_m, repeat_first=settings.repeat_first, order=settings.order,
+                settings_json=self._stored_settings(settings), field_axis=settings.field_axis,
+                before_write=self.before_write)
+        self.field_result = run_field_series(self.controller, settings, writer, limits=self.limits, sink=self.sink,
+                                             cancel=self.cancel)
+        return self.field_result
+
+    def analyse_loop(self, name: str | None = None):
+        """Switching fields and the loop of the field series (from the session file, stored back into it)."""
+        from assistant.procedures.analyse_loop import analyse_stored
+
+        name = name or (self.field_settings.name if self.field_settings else None)
+        with safety_guard(self.controller, sink=self.sink):
+            self.controller.make_safe()  # the images are taken: nothing needs the tip, the drive or the field now
+        self.loop_analysis = analyse_stored(self.session, name, sink=self.sink)
+        return self.loop_analysis
 
 
 def calibration_scalars(result: CalibrationResult, probe_name: str | None, *, now: datetime | None = None) -> dict:

@@ -64,6 +64,11 @@ NAMES: dict[str, tuple[str, str]] = {
     "noise_verdict": ("noise verdict", ""), "noise_sentence": ("noise", ""), "nan_pixels": ("pixels without data", ""),
     "signal_space": ("fitted quantity", ""), "tip_changed_sample": ("tip changed the sample", ""),
     "tip_changed_fraction": ("area changed by the tip", ""),
+    "interaction_regime": ("tip-sample interaction", ""), "interaction_evidence": ("tip-sample interaction", ""),
+    "interaction_negligible": ("tip-sample interaction negligible", ""),
+    "negligible_from_nm": ("tip-sample interaction negligible from", "nm"),
+    "even_attraction_mean_deg": ("attraction in the image mean beyond van der Waals, either polarity", "deg"),
+    "even_attraction_lateral_deg": ("attraction in the residual that follows |magnetic contrast|", "deg"),
     # stray-field map (quantitative MFM)
     "height_nm": ("plane of the map above the sample", "nm"),
     "measurement_plane_nm": ("measurement plane (closest approach of the tip)", "nm"),
@@ -77,7 +82,7 @@ NAMES: dict[str, tuple[str, str]] = {
 
 #: Keys stored as 1/0 that mean yes/no.
 FLAGS = frozenset({"engaged", "separable", "tip_changed_sample", "thermal_check_agree", "residual_at_noise",
-                   "complete", "repeat_first"})
+                   "complete", "repeat_first", "interaction_negligible"})
 
 _SUFFIX_UNITS = ((("n", "per", "m"), "N/m"), (("a", "per", "m"), "A/m"), (("n", "per", "a"), "N/A"),
                  (("nm", "per", "v"), "nm/V"), (("v2", "per", "hz"), "V^2/Hz"),

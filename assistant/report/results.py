@@ -63,6 +63,9 @@ def _lift_text(d: dict) -> str:
     if rec is None:
         sentence = str(d.get("recommendation") or "")
         reason = sentence.split(":", 1)[1].split(".")[0].strip() if ":" in sentence else ""
+        regime = d.get("interaction_regime")
+        if not reason and regime in ("reversible", "irreversible"):
+            reason = f"the tip-sample interaction is {regime} at every measured height"
         return "none: " + (reason or "no measured height meets every criterion")
     text = quantity(rec, "nm")
     i = _index_of(heights, rec)
@@ -81,6 +84,9 @@ def _lift_text(d: dict) -> str:
     share_below = _short_range_share(d, i - 1)
     if share_below:
         reasons.append(f"short-range part {share_below}")
+    negligible = _list(d, "interaction_negligible")
+    if negligible is not None and i - 1 < len(negligible) and not bool(negligible[i - 1]):
+        reasons.append("tip-sample interaction not negligible")
     return text + f"; {below} does not qualify" + (f" ({', '.join(reasons)})" if reasons else "")
 
 
@@ -113,12 +119,23 @@ def _warnings(d: dict) -> list[str]:
     return out
 
 
+def _interaction_text(d: dict) -> str | None:
+    """The tip-sample interaction regime with its evidence (a sentence that starts with the regime's name)."""
+    regime, evidence = d.get("interaction_regime"), d.get("interaction_evidence")
+    if not regime:
+        return None
+    return str(evidence) if evidence else str(regime)
+
+
 def results_block(d: dict) -> list[tuple[str, str]]:
-    """(name, text) pairs: recommended lift and bias with their uncertainties, the noise verdict, warnings."""
+    """(name, text) pairs: recommended lift and bias with their uncertainties, the tip-sample interaction regime,
+    the noise verdict, warnings."""
     noise = d.get("noise_sentence") or d.get("noise_verdict") or DASH
     warnings = _warnings(d)
-    return [("Recommended lift height", _lift_text(d)), ("Recommended tip bias", _bias_text(d)),
-            ("Noise", str(noise)), ("Warnings", "; ".join(w.rstrip(". ") for w in warnings) if warnings else "none")]
+    interaction = _interaction_text(d)
+    return [("Recommended lift height", _lift_text(d)), ("Recommended tip bias", _bias_text(d))] + (
+        [("Tip-sample interaction", interaction)] if interaction else []) + [
+        ("Noise", str(noise)), ("Warnings", "; ".join(w.rstrip(". ") for w in warnings) if warnings else "none")]
 
 
 def render_block(pairs: list[tuple[str, str]], *, markdown: bool) -> list[str]:

@@ -132,7 +132,7 @@ _IN_TABLES = {"heights_nm", "magnetic_rms_deg", "magnetic_rms_std_deg", "short_r
               "short_range_mean_std_deg", "electrostatic_mean_deg", "electrostatic_mean_std_deg", "residual_rms_deg",
               "noise_deg", "residual_at_noise"}
 _IN_RESULTS = {"recommended_lift_nm", "recommended_bias_v", "cpd_v", "cpd_std_v", "noise_sentence",
-               "tip_changed_sample"}
+               "tip_changed_sample", "interaction_evidence"}
 
 
 def analysis_section(name: str, d: Mapping[str, object], biases_v=None) -> list[str]:
@@ -199,6 +199,17 @@ def caption(file_name: str, *, per_height_scale: bool) -> str:
         return "magnetic rms, noise and residual against lift height; shortest resolved period"
     if stem == "decomposition_maps":
         return f"magnetic maps at three heights ({scale}), the residual, and the change map of the repeat"
+    if stem.endswith("media_transition_map"):
+        return "the image the media section read, with each track's written edges (dashed), its bit-cell grid (grey " \
+               "ticks) and every transition coloured by its deviation from that grid"
+    if stem.endswith("media_jitter_histogram"):
+        return "deviations of the transitions from their tracks' bit-cell grids, with the normal density of the jitter"
+    if stem.endswith("_loop"):
+        return "field series: net moment of the elements against the field, and their switching fields"
+    if stem.endswith("_elements"):
+        return "field series: each element coloured by its switching field, descending and ascending branch"
+    if stem.endswith("_field_steps"):
+        return "field series: phase over the field steps on one colour scale; dark = attractive"
     if stem.startswith("field_map"):
         return "stray field μ0 Hz (red: pointing away from the sample) and its standard uncertainty; edge margin dashed"
     if stem == "ttf":

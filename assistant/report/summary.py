@@ -4,8 +4,12 @@ Everything comes from the session file. Figures of the calibration are drawn by
 :mod:`assistant.report.calibration_figures` from the stored spectrum and sweep (refitted, as the calibration
 fitted them); figures of the decomposition by :mod:`assistant.report.series_figures` from the decomposition
 stored with each series, or, for a series never analysed (an interrupted run), from a decomposition computed
-now and not written; stray-field maps by :mod:`assistant.report.field_figures` from the maps stored in
-``field_map/``. A failing figure is written down as a note in the summary instead of stopping the report.
+now and not written; field series likewise through :mod:`assistant.report.loop_report` and
+:mod:`assistant.report.loop_figures` from their stored loop analysis; stray-field maps by
+:mod:`assistant.report.field_figures` from the maps stored in ``field_map/``. The media section
+(:mod:`assistant.report.media_report`) reads each series' image at the height the stored decomposition chose and
+reports its orientation and recorded tracks. A failing figure is written down as a note in the summary instead of
+stopping the report.
 """
 
 from __future__ import annotations
@@ -21,6 +25,8 @@ from assistant.procedures.events import Progress, Sink, null_sink
 from assistant.report import field_figures, sections
 from assistant.report.calibration_figures import write_sweep_figure, write_thermal_figure
 from assistant.report.images import phase_figure, remove_plane, save_png, topography_figure
+from assistant.report.loop_report import field_series_report
+from assistant.report.media_report import media_section
 from assistant.report.series_figures import write_series_figures
 from assistant.storage import Record, SeriesData, SessionFile
 
@@ -152,7 +158,8 @@ def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLik
     t0 = time.monotonic()
     with SessionFile.open(session_path, "r") as session:
         names = session.series_names()
-        steps = 2 + len(names) + (1 if names else 0)
+        field_names = session.field_series_names()
+        steps = 2 + len(names) + (2 if names else 0) + (1 if field_names else 0)
         maps = session.field_map_names()
         steps += 1 if maps else 0
         done = 0
@@ -183,8 +190,15 @@ def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLik
             body += sections.series_section(data, topo)
             paths += _series_images(data, out, per_height_scale=per_height_scale)
             step(f"phase maps of {name}")
+        if field_names:
+            more_text, more_paths, loop_results = field_series_report(session, out, notes)
+            body += more_text
+            paths += more_paths
+            step("field-series figures")
         analysed: list[tuple[str, dict]] = []
         for name in stored:
+            if name in field_names:  # a loop analysis: in the field-series section above
+                continue
             rec = session.read_analysis(name)
             analysed.append((name, {**rec.scalars, **rec.arrays}))
         if analysed:
@@ -201,6 +215,10 @@ def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLik
             step("decomposition figures")
             if not analysed:  # nothing stored, but decomposed for the figures: the results still open the summary
                 analysed = [(n, r.to_dict()) for n, r in computed.items() if hasattr(r, "to_dict")]
+            media_text, media_paths = media_section(session_path, out, notes)
+            body += media_text
+            paths += media_paths
+            step("media")
         if maps:
             body += ["## Stray-field maps (quantitative MFM)", "",
                      "Hz in A/m (μ0 Hz in mT in the figure); z away from the sample; the measurement plane is the "
@@ -211,7 +229,11 @@ def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLik
             paths += _field_map_figures(session, out, notes)
             step("field-map figures")
         title = [f"# Session report: {Path(session_path).name}", ""]
-        title += sections.results_section(analysed, dict(cals[-1].scalars) if cals else None)
+        results = sections.results_section(analysed, dict(cals[-1].scalars) if cals else None)
+        if field_names:  # the loops lead; without a lift series there is no decomposition to miss
+            rest = [ln for ln in results[2:] if names or "Decomposition:" not in ln]
+            results = results[:2] + loop_results + [ln for i, ln in enumerate(rest) if ln or (i and rest[i - 1])]
+        title += results
         title += ["## Session", "",
                   f"- file format: {info.format} version {info.format_version}; software {info.software_version}",
                   f"- created (UTC): {info.created_utc}",

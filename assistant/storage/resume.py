@@ -1,8 +1,9 @@
 """Continuing an interrupted session: where its last series stopped, and a writer that goes on from there.
 
-A run that was killed (or lost its link, or filled the disk) leaves a session file whose last series has fewer
-``completed_lines`` than ``lines``; every counted line is intact. :func:`resume_point` reads what a resume
-needs (the series, its stored settings and the next line); :func:`resume_writer` continues the series.
+A run that was killed (or lost its link, or filled the disk) leaves a session file whose last series (a lift
+series in ``series/`` or a field series in ``field_series/``) has fewer ``completed_lines`` than it planned; every
+counted line is intact. :func:`resume_point` reads what a resume needs (which series, its stored settings and the
+next line); :func:`resume_writer` and :func:`resume_field_writer` continue the series.
 """
 
 from __future__ import annotations
@@ -10,35 +11,52 @@ from __future__ import annotations
 import json
 from dataclasses import dataclass
 
+from assistant.storage.field_series_group import FieldSeriesWriter
 from assistant.storage.records import FinishedSeriesError, SessionFileError
 from assistant.storage.series_group import BeforeWrite, SeriesWriter
 
-__all__ = ["ResumePoint", "resume_point", "resume_writer"]
+__all__ = ["ResumePoint", "resume_field_writer", "resume_point", "resume_writer"]
+
+#: ``ResumePoint.kind`` of a lift series (``series/``) and of a field series (``field_series/``).
+LIFT_SERIES, FIELD_SERIES = "series", "field_series"
 
 
 @dataclass(frozen=True)
 class ResumePoint:
-    """The series to continue: its name, lines done of all, and its settings as stored (parsed JSON)."""
+    """The series to continue: its name, lines done of all (over every field step for a field series), its
+    settings as stored (parsed JSON), and its kind (:data:`LIFT_SERIES` or :data:`FIELD_SERIES`)."""
 
     series_name: str
     completed_lines: int
     lines: int
     settings: dict
+    kind: str = LIFT_SERIES
 
 
 def resume_point(session) -> ResumePoint:
     """Where the last series of ``session`` (a :class:`~assistant.storage.session_file.SessionFile`) stopped.
 
-    Raises :class:`SessionFileError` for a file without series and :class:`FinishedSeriesError` when the last
-    series is complete (nothing to resume).
+    An unfinished lift series is continued first; otherwise the last field series, if it is unfinished. Raises
+    :class:`SessionFileError` for a file without series and :class:`FinishedSeriesError` when the last series is
+    complete (nothing to resume).
     """
-    names = session.series_names()
-    if not names:
+    names, field_names = session.series_names(), session.field_series_names()
+    if not names and not field_names:
         raise SessionFileError(f"{session.path} has no series to resume")
-    data = session.read_series(names[-1])
-    if data.finished:
-        raise FinishedSeriesError(f"series {names[-1]!r} in {session.path} is already complete; nothing to resume")
-    return ResumePoint(names[-1], data.completed_lines, data.lines, json.loads(data.settings_json))
+    if names:
+        data = session.read_series(names[-1])
+        if not data.finished:
+            return ResumePoint(names[-1], data.completed_lines, data.lines, json.loads(data.settings_json))
+    if field_names:
+        fs = session.read_field_series(field_names[-1])
+        if not fs.finished:
+            return ResumePoint(field_names[-1], fs.completed_lines, fs.fields * fs.lines,
+                               json.loads(fs.settings_json), FIELD_SERIES)
+    last = f"series {names[-1]!r}" if names else f"field series {field_names[-1]!r}"
+    if names and field_names:
+        last = f"series {names[-1]!r} and field series {field_names[-1]!r}"
+    raise FinishedSeriesError(f"{last} in {session.path} {'are' if names and field_names else 'is'} already "
+                              f"complete; nothing to resume")
 
 
 def resume_writer(session, name: str, *, before_write: BeforeWrite | None = None) -> SeriesWriter:
@@ -48,5 +66,16 @@ def resume_writer(session, name: str, *, before_write: BeforeWrite | None = None
     done, lines = writer.completed_lines, writer.lines
     if done >= lines:
         raise FinishedSeriesError(f"series {name!r} is finished ({done} of {lines} lines); nothing to resume")
+    session.mark_complete(False)
+    return writer
+
+
+def resume_field_writer(session, name: str, *, before_write: BeforeWrite | None = None) -> FieldSeriesWriter:
+    """A writer that continues ``field_series/<name>`` at its next line; refuses a finished field series. The
+    session is marked as not complete while the series goes on."""
+    writer = session.field_series_writer(name, before_write=before_write)
+    done, total = writer.completed_lines, writer.fields * writer.lines
+    if done >= total:
+        raise FinishedSeriesError(f"field series {name!r} is finished ({done} of {total} lines); nothing to resume")
     session.mark_complete(False)
     return writer

@@ -16,14 +16,16 @@ Layout (NeXus NXdata attributes so general-purpose HDF5 viewers plot the images)
     series/<name>/          NXdata: topography_m (lines, pixels); phase_deg, amplitude_v (heights, [biases,]
                             lines, pixels); optional frequency_shift_hz, repeat_phase_deg (lines, pixels);
                             axes lift_height_m, [tip_bias_v,] y_m, x_m; sub-group topography/ (NXdata view)
-    analysis/<name>/        decomposition results: scalars as attributes, arrays as datasets; result/ the whole
-                            result as computed (every field, dtypes kept), from which the report draws
+    field_series/<name>/    NXdata: one image per applied-field step (see assistant.storage.field_series_group)
+    analysis/<name>/        decomposition (or loop) results: scalars as attributes, arrays as datasets; result/
+                            the whole result as computed (every field, dtypes kept), from which the report draws
     field_map/<name>/       stray-field map of series <name> (quantitative MFM): hz_a_per_m, hz_std_a_per_m
                             (rows, cols), scalars (height_nm, pixel spacing, band, the TTF used) as attributes
 
-The series group is :mod:`assistant.storage.series_group`, the records and errors
-:mod:`assistant.storage.records`, continuing an interrupted series :mod:`assistant.storage.resume`, and the
-stray-field maps :mod:`assistant.storage.field_map_group`.
+The series group is :mod:`assistant.storage.series_group`, the field series
+:mod:`assistant.storage.field_series_group`, the records and errors :mod:`assistant.storage.records`, continuing
+an interrupted series :mod:`assistant.storage.resume`, and the stray-field maps
+:mod:`assistant.storage.field_map_group`.
 """
 
 from __future__ import annotations
@@ -39,6 +41,7 @@ import h5py
 import numpy as np
 
 from assistant.storage.field_map_group import FieldMapGroups
+from assistant.storage.field_series_group import FieldSeriesGroups
 from assistant.storage.records import (FORMAT_NAME, FORMAT_VERSION, MAX_ATTR_TEXT, FormatVersionError,
                                        NotASessionFileError, Record, Scalar, SessionBusyError, SessionFileError,
                                        SessionInfo, SessionWriteError, UnwritablePathError, check_name,
@@ -52,9 +55,10 @@ __all__ = ["SessionFile"]
 RESULT_GROUP = "result"
 
 
-class SessionFile(FieldMapGroups):
+class SessionFile(FieldMapGroups, FieldSeriesGroups):
     """An open session file. Create with :meth:`create`, reopen with :meth:`open`; use as a context manager.
-    The stray-field maps of quantitative MFM are written and read by :class:`FieldMapGroups`."""
+    The stray-field maps of quantitative MFM are written and read by :class:`FieldMapGroups`, the field series by
+    :class:`FieldSeriesGroups`."""
 
     def __init__(self, h5: h5py.File, *, fsync: bool) -> None:
         self._h5 = h5

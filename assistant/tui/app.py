@@ -24,11 +24,13 @@ from assistant.formatting import quantity
 from assistant.procedures.events import Cancelled, Notice
 from assistant.tui.bridge import (MessageSink, ProcedureEvent, SerialisedController, StatusChanged, StepFinished,
                                   WithdrawDone)
+from assistant.tui.fields_actions import FieldSeriesActions
 from assistant.tui.screens import WITHDRAW_KEY, ConfirmQuit, HelpScreen
 from assistant.tui.session_view import load_session
 from assistant.tui.steps import StepRunner
 from assistant.tui.view_analysis import AnalysisView
 from assistant.tui.view_approach import ApproachView
+from assistant.tui.view_fields import FieldSeriesView
 from assistant.tui.view_log import LogView
 from assistant.tui.view_probe import ProbeView
 from assistant.tui.view_resonance import ResonanceView
@@ -37,10 +39,10 @@ from drivers.errors import Aborted
 
 VIEWS = (("probe", "Probe", ProbeView), ("resonance", "Resonance", ResonanceView),
          ("approach", "Approach", ApproachView), ("series", "Series", SeriesView),
-         ("analysis", "Analysis", AnalysisView), ("log", "Log", LogView))
+         ("analysis", "Analysis", AnalysisView), ("log", "Log", LogView), ("fields", "Fields", FieldSeriesView))
 
 
-class MfmApp(StepRunner, App[int]):
+class MfmApp(FieldSeriesActions, StepRunner, App[int]):
     """``MfmApp(controller, session_path=...)`` for a live session; ``MfmApp(None, open_path=...)`` to view a
     session file. ``probe_record`` is a :class:`ProbeRecord` (default: the user's)."""
 
@@ -139,7 +141,7 @@ class MfmApp(StepRunner, App[int]):
         ev = message.event
         if isinstance(ev, Notice):
             # the guard's stop notice repeats the error the step reports when it ends: say only what it did
-            self.say(ev.level, "stopped: tip withdrawn, drive off, bias 0 V" if ev.kind == "stopped" else ev.text)
+            self.say(ev.level, f"stopped: {safe_words(self.controller)}" if ev.kind == "stopped" else ev.text)
             return
         for view in self.views:
             if ev.what in view.EVENTS:
@@ -171,7 +173,9 @@ class MfmApp(StepRunner, App[int]):
         if message.error:
             self.say("error", f"withdraw: {message.error}; check the instrument by hand")
         elif message.safe:
-            self.say("info", "withdrawn: tip retracted, drive off, bias 0 V (confirmed by status)")
+            words = safe_words(self.controller)
+            how = "status and the field reading" if words.endswith("field 0") else "status"
+            self.say("info", f"withdrawn: {words} (confirmed by {how})")
         else:
             self.say("error", "withdraw sent but status does not report a safe stage; check the instrument")
         self._withdraw_confirmed = bool(message.safe)
@@ -282,3 +286,12 @@ class MfmApp(StepRunner, App[int]):
             self.say("error", f"cannot open {path}: {exc}")
             return
         show_stored(self, shown, path)
+        self.show_field_series_file(path)
+
+
+def safe_words(controller) -> str:
+    """What a safe stop leaves, as the operator reads it (the field as well when there is a magnet)."""
+    from drivers.base import Capability
+
+    caps = getattr(controller, "capabilities", ())  # an attribute: no call, so no wait for the controller's lock
+    return "tip withdrawn, drive off, bias 0 V" + (", field 0" if Capability.APPLIED_FIELD in caps else "")

@@ -45,7 +45,8 @@ class StatusChanged(Message):
 
 
 class WithdrawDone(Message):
-    """The withdraw key's make-safe finished; ``safe`` is the confirmed state from ``status()``."""
+    """The withdraw key's make-safe finished; ``safe`` is the confirmed state from ``status()`` (and, with a
+    magnet, a field reading within 1 % of its range of 0)."""
 
     def __init__(self, safe: bool | None, error: str | None = None) -> None:
         super().__init__()

@@ -14,10 +14,10 @@ WITHDRAW_KEY = "ctrl+g"
 
 HELP = f"""\
 [b]Keys[/b]  (ctrl+ keys work in every view, also while typing in a field)
-  {WITHDRAW_KEY}  WITHDRAW now: cancel, retract Z, drive off, bias 0 V
+  {WITHDRAW_KEY}  WITHDRAW now: cancel, retract Z, drive off, bias 0 V, field 0
           (or the red Withdraw button, top right)
   ctrl+x  cancel the running procedure; its guard withdraws
-  1 … 6   views: 1 Probe 2 Resonance 3 Approach 4 Series 5 Analysis 6 Log
+  1 … 7   views: 1 Probe 2 Resonance 3 Approach 4 Series 5 Analysis 6 Log 7 Fields
           (or click a tab); in a field the digits are typed instead
   esc     leave the field you are typing in: the number keys
           switch views again

@@ -101,7 +101,7 @@ Fill in every method that raises NotImplementedError. The promises (checked by `
 * Declare in ``capabilities`` exactly what you implement; an undeclared optional method keeps the base
   class's version, which refuses with CapabilityMissing.
 * ``abort()`` may come from another thread while a call runs: stop that call (it raises Aborted), withdraw,
-  drive off, bias 0 V, and return within 200 ms.
+  drive off, bias 0 V, and return within 200 ms (with a field on, once the magnet has ramped to 0).
 """
 
 from __future__ import annotations
@@ -122,7 +122,7 @@ class $cls(Controller):
 
     #: What you implement beyond the required methods; add flags as you write the optional methods below
     #: (Capability.THERMAL_RECORD, DRIVE_SWEEP, TWO_PASS_LINE, BIAS, COARSE_MOTOR, Z_SENSOR, FORCE_CURVE,
-    #: FREQUENCY_SHIFT). Nothing is declared until it works.
+    #: FREQUENCY_SHIFT, APPLIED_FIELD). Nothing is declared until it works.
     capabilities: frozenset[Capability] = frozenset()
 
     def __init__(self, address: str) -> None:
@@ -207,7 +207,8 @@ class $cls(Controller):
     # step_coarse(steps)                              COARSE_MOTOR: positive steps approach the sample
     # force_curve(z_stop_m, points)                   FORCE_CURVE
     # abort()                                         override when a call can take long (it must stop it)
-    # zero_applied_field()                            when your instrument can apply a magnetic field
+    # set_field(field_a_per_m), read_field()          APPLIED_FIELD: ramp, settle, then return; 0 always allowed
+    #                                                 (make_safe() and abort() then set the field to 0)
 '''
 
 TEST = '''"""The mfm-assistant conformance kit at the ``signals`` level against $cls (nothing moves at this level).

@@ -3,10 +3,10 @@
 It checks every argument against the controller's hard limits itself, answers bad input through the error queue
 (stream) or an error reply (network), executes a retried network request once (request ids, remembered per
 session), makes the stage safe after any controller fault, and runs a watchdog that withdraws the tip, switches
-the drive off and sets the bias to zero when a client falls silent while the tip is near the surface. The
-transports run the commands in a worker thread (:mod:`.inflight`), so an abort request is handled ahead of a long
-command in flight, and the watchdog acts through the controller's ``abort()`` and also aborts a command that
-overruns its expected time.
+the drive off and sets the bias (and a magnet's field) to zero when a client falls silent while the tip is near the
+surface or a magnet is left on. The transports run the commands in a worker thread (:mod:`.inflight`), so an abort
+request is handled ahead of a long command in flight, and the watchdog acts through the controller's ``abort()``
+and also aborts a command that overruns its expected time.
 """
 
 from __future__ import annotations
@@ -19,7 +19,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from drivers.base import Controller
+from drivers.base import Capability, Controller
 from drivers.errors import Aborted, CapabilityMissing, LimitExceeded
 from drivers.server import inflight
 from drivers.wire import messages
@@ -71,6 +71,8 @@ class Dispatcher:
             return (args[0],)
         if h == "SYSTem:WATChdog":  # the silence limit, 0 when the watchdog is off
             return (float(self.watchdog_s or 0.0),)
+        if h == "ABORt" and self.watch.take_ahead():  # carried out by the serving loop already: the stage is safe
+            return ()
         c = self.controller
         if cmd.capability is not None and not c.has(cmd.capability):
             raise CapabilityMissing(f"{type(c).__name__} does not offer {cmd.capability.value}")
@@ -163,7 +165,7 @@ class Dispatcher:
         self._watchdog_armed = True
 
     def watchdog(self) -> bool:
-        """Withdraw, drive off, bias zero if the client is silent too long with the tip near the surface."""
+        """Make the stage safe if the client is silent too long with the tip near the surface or a field on."""
         if self.watchdog_s is None or not self._watchdog_armed:
             return False
         silent = self.clock() - self.last_activity
@@ -173,16 +175,27 @@ class Dispatcher:
         try:
             s = self.controller.status()
             # Near the surface: engaged, or the feedback or the Z piezo could bring the tip down. A withdrawn
-            # stage with the drive on (a client thinking between sweeps) is left alone.
-            at_risk = s.engaged or s.feedback_on or s.z_m > 0.0
+            # stage with the drive on (a client thinking between sweeps) is left alone; a magnet left on is not.
+            at_risk = s.engaged or s.feedback_on or s.z_m > 0.0 or _field_on(self.controller)
         except Exception:
             at_risk = True
         if not at_risk:
             return False
         self.watch.abort(f"watchdog: client silent for {silent:.2f} s (limit {self.watchdog_s:.2f} s) with the "
-                         f"tip engaged; withdrawing, drive off, bias zero")
+                         f"tip engaged or a field on; withdrawing, drive off, bias zero, field zero")
         self.watchdog_trips += 1
         return True
 
 
 _ANY = Command("", False, (), (), False)
+
+
+def _field_on(controller: Controller) -> bool:
+    """Whether a magnet holds a field above 1 % of its range (its sensor's noise stays well below that)."""
+    if not controller.has(Capability.APPLIED_FIELD):
+        return False
+    try:
+        field = controller.read_field()
+    except CapabilityMissing:  # declared but not offered after all: there is no field to leave on
+        return False
+    return abs(field) > 0.01 * controller.limits.field_max_a_per_m

@@ -19,6 +19,8 @@ import time
 from collections.abc import Callable
 from dataclasses import dataclass
 
+from drivers.wire.commands import ramp_s
+
 log = logging.getLogger(__name__)
 
 
@@ -51,6 +53,7 @@ class CommandWatch:
         self.current: InFlight | None = None
         self._overdue_handled: InFlight | None = None
         self.aborts = 0
+        self.done_ahead = False  # set by the worker while it runs an abort line the loop already carried out
 
     def begin(self, cmd, args: tuple, limits, session) -> None:
         expected = expected_s(cmd, args, limits, session)
@@ -73,6 +76,12 @@ class CommandWatch:
             return False
         return True
 
+    def take_ahead(self) -> bool:
+        """For the dispatcher about to run an ``ABORt``: True (once) if it leads a line whose abort the serving
+        loop already carried out, so that the stage is made safe (and a field ramped to 0) once per request."""
+        done, self.done_ahead = self.done_ahead, False
+        return done
+
     def overrun(self) -> bool:
         """Abort the command in flight once if it is overdue. True if it did."""
         cur = self.current
@@ -84,6 +93,10 @@ class CommandWatch:
         return True
 
 
+#: Commands that may ramp a magnet (a field change, or making the stage safe, which sets the field to 0).
+_FIELD_RAMPS = ("MAGNet:FIELd", "SYSTem:SAFE", "FIELd:ZERO", "ABORt")
+
+
 def expected_s(cmd, args: tuple, limits, session) -> float | None:
     """How long a command may take on the instrument [s]; None if unknown (no overrun watch)."""
     if cmd.header == "ACQuire:DEFLection:STARt":
@@ -91,10 +104,14 @@ def expected_s(cmd, args: tuple, limits, session) -> float | None:
         return 0.0
     if cmd.header == "ACQuire:DEFLection:NEXT":
         return getattr(session, "chunk_s", None)
+    ramp = 0.0
+    if cmd.header in _FIELD_RAMPS and not cmd.query:
+        # where the field is now is not known here: allow the longest ramp, end to end (0 without a magnet)
+        ramp = ramp_s(limits, -limits.field_max_a_per_m, limits.field_max_a_per_m)
     if cmd.expected_s is None:
-        return 0.0
+        return ramp
     try:
-        return float(cmd.expected_s(args, limits))
+        return float(cmd.expected_s(args, limits)) + ramp
     except Exception:
         return None
 
@@ -170,11 +187,15 @@ def is_abort_line(line: bytes) -> bool:
 
 def submit_line(d, worker: Worker, line: bytes, run: Callable[[], None]) -> None:
     """Queue a request line; an abort line first stops the command in flight, here and now."""
-    if is_abort_line(line) and worker.busy:
-        d.watch.abort("abort request")  # the queued line runs ABORt again (at once: the stage is safe) and answers
+    # the queued line then only answers (errors, echo); after a failed abort its ABORt runs again and reports
+    ahead = is_abort_line(line) and worker.busy and d.watch.abort("abort request")
 
     def job() -> None:
-        run()
+        d.watch.done_ahead = ahead  # only this worker runs lines, one at a time: the line's leading ABORt takes it
+        try:
+            run()
+        finally:
+            d.watch.done_ahead = False
         d.activity()  # a client waiting for a long command was not silent meanwhile
 
     worker.submit(job)

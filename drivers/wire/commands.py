@@ -80,6 +80,14 @@ _Z = _range(lambda l: 0.0, lambda l: l.z_range_m)
 _BIAS = _range(lambda l: -l.bias_max_v, lambda l: l.bias_max_v)
 _XY = _range(lambda l: -l.scan_size_max_m, lambda l: l.scan_size_max_m)
 _FREQ = _range(lambda l: 0.0, lambda l: l.frequency_max_hz)
+_FIELD = _range(lambda l: -l.field_max_a_per_m, lambda l: l.field_max_a_per_m)
+
+
+def ramp_s(lim: Limits, from_a_per_m: float, to_a_per_m: float) -> float:
+    """How long the magnet needs to go from one field to another and settle [s] (0 for no change)."""
+    if from_a_per_m == to_a_per_m:
+        return 0.0
+    return abs(to_a_per_m - from_a_per_m) / max(lim.field_ramp_a_per_m_per_s, 1e-9) + lim.field_settle_s
 
 
 def _fixed(lo: float | None, hi: float | None) -> Bounds:
@@ -280,6 +288,11 @@ COMMANDS: tuple[Command, ...] = (
             invoke=lambda c, a: (c.set_bias(a[0]), ())[1]),
     Command("STATus", True, (), ("bool", "float", "float", "float", "bool", "float", "float", "bool", "strs*"),
             True, "status", invoke=_status_invoke, unpack=_status_unpack),
+    # applied field (an absolute target: repeating it leaves the magnet where one run would)
+    Command("MAGNet:FIELd", False, (_P("field_a_per_m", "float", _FIELD, "A/m"),), (), True, "set_field",
+            Capability.APPLIED_FIELD, invoke=lambda c, a: (c.set_field(a[0]), ())[1]),  # clients time the ramp
+    Command("MAGNet:FIELd", True, (), ("float",), True, "read_field", Capability.APPLIED_FIELD,
+            invoke=lambda c, a: (float(c.read_field()),), unpack=lambda a, f: f[0]),
 )
 
 

@@ -65,7 +65,7 @@ def foreign_private_names(source: str, module: str, *, is_package: bool = False)
 
 
 def test_there_are_families_to_check():
-    assert {"calibration", "lift_series", "quantitative"} <= set(families())
+    assert {"calibration", "lift_series", "media", "quantitative", "field_series"} <= set(families())
 
 
 def test_the_check_finds_a_foreign_private_name():

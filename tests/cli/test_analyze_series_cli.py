@@ -49,6 +49,9 @@ def test_json_contract_and_recovered_parts(tmp_path, bias_series):
     for key in KEYS:
         assert key in d, key
     assert d["heights_nm"] == pytest.approx(list(s.heights_m * 1e9))
+    # a hard synthetic film with no tip-induced term, no repeat pass: negligible, and the evidence says what
+    # could not be checked
+    assert d["interaction_regime"] == "negligible" and "no repeat pass" in d["interaction_evidence"]
     # the same tolerances as the analysis tests: magnetic within 5 % (about the mean, over the region the
     # estimator reports it on: the interior for the reflected-edge fit, the whole scan for the windowed one),
     # V_cpd within 20 mV

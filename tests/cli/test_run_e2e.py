@@ -41,6 +41,8 @@ def test_json_summary_has_the_contract_keys(finished_run):
     for key in ("heights_nm", "magnetic_rms_deg", "electrostatic_mean_deg", "short_range_mean_deg",
                 "residual_rms_deg", "drift_px", "cpd_v", "recommended_lift_nm"):
         assert key in a
+    # the default film is hard: the tip neither rewrites it nor pulls on it
+    assert a["interaction_regime"] == "negligible", a["interaction_evidence"]
 
 
 def test_session_file_opens_plainly_and_is_complete(finished_run):
@@ -61,7 +63,10 @@ def test_report_folder_has_figures_and_summary(finished_run):
     report = cwd / d["report_dir"]
     pngs = sorted(p.name for p in report.rglob("*.png"))
     assert len(pngs) >= 4, pngs
-    assert (report / "summary.md").read_text().count("N/m") >= 1
+    summary = (report / "summary.md").read_text()
+    assert summary.count("N/m") >= 1
+    # the default film is a coupon with written tracks: the media section reads them
+    assert "## Media: orientation and recorded tracks" in summary and "Tip-sample interaction" in summary
 
 
 def _start(cwd: Path, *argv: str) -> subprocess.Popen:

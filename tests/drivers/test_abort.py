@@ -169,3 +169,95 @@ def test_server_watchdog_aborts_a_command_that_overruns():
     assert not d.watch.overrun()  # once per command
     d.watch.end()
     assert d.watch.aborts == 1
+
+
+# ---- with a magnet: abort() is a make-safe, so the field goes to 0 as well ------------------------------------
+
+@pytest.mark.parametrize("transport", [None, "zmq", "serial"])
+def test_abort_brings_an_applied_field_to_zero_and_the_client_knows(transport):
+    from link_fakes import connect
+
+    from drivers.simulated import SimulatedController
+
+    sim = SimulatedController.from_url("sim://?pace=fast", seed=1)  # the default stage has a magnet
+    if transport is None:
+        sim.set_field(200e3)
+        sim.abort()
+        assert abs(sim.read_field()) < 1e3 and sim.status().safe
+        return
+    with ThreadServer(sim, transport=transport, watchdog_s=None) as srv, connect(srv.announcement) as ctl:
+        ctl.set_field(200e3)
+        ctl.abort()
+        assert abs(sim.read_field()) < 1e3 and sim.status().safe
+        # the client times its next field change from 0, not from the 200 kA/m it set before the abort
+        assert ctl._field_a_per_m == 0.0
+
+
+def test_server_overrun_watch_allows_a_magnet_its_longest_ramp():
+    from link_fakes import FakeController
+
+    from drivers.base import Limits
+    from drivers.server import Dispatcher, Session
+    from drivers.wire.commands import command
+
+    class Clock:
+        t = 0.0
+
+        def __call__(self):
+            return self.t
+
+    clock = Clock()
+    lim = Limits(field_max_a_per_m=500e3, field_ramp_a_per_m_per_s=50e3, field_settle_s=1.0)
+    d = Dispatcher(FakeController(), watchdog_s=1.0, clock=clock)
+    for spelling, args in (("MAGNet:FIELd", (100e3,)), ("SYSTem:SAFE", ())):
+        d.watch.begin(command(spelling), args, lim, Session())
+        # the server does not know the field: the longest ramp is -500 to +500 kA/m, 20 s plus 1 s settling; overdue
+        # after twice that, the clients' 2 s timeout and the 1 s watchdog limit: 45 s
+        clock.t += 44.9
+        assert not d.watch.overrun(), spelling
+        clock.t += 0.2
+        assert d.watch.overrun(), spelling
+        d.watch.end()
+
+
+@pytest.mark.parametrize("transport", [None, "zmq", "serial"])
+def test_abort_and_make_safe_zero_the_field_once_through_the_one_hook(transport):
+    from link_fakes import connect
+
+    from assistant.procedures.guard import safety_guard
+    from drivers.simulated import SimulatedController
+
+    class Counting(SimulatedController):
+        """Counts the field step of a make-safe and every field change under it."""
+
+        def __init__(self, *args, **kwargs):
+            super().__init__(*args, **kwargs)
+            self.zeroings, self.set_calls = 0, []
+
+        def zero_applied_field(self):
+            self.zeroings += 1
+            super().zero_applied_field()
+
+        def set_field(self, field_a_per_m):
+            self.set_calls.append(field_a_per_m)
+            super().set_field(field_a_per_m)
+
+    sim = Counting.from_url("sim://?pace=fast", seed=1)
+
+    def each_stop(ctl):
+        for name, stop in (("abort", ctl.abort), ("make_safe", ctl.make_safe), ("guard", None)):
+            ctl.set_field(100e3)
+            sim.zeroings, sim.set_calls = 0, []
+            if stop is None:  # a procedure's guard on an error: one stop, not one per layer
+                with pytest.raises(RuntimeError), safety_guard(ctl):
+                    raise RuntimeError("a step failed")
+            else:
+                stop()
+            assert (sim.zeroings, sim.set_calls) == (1, [0.0]), name
+            assert abs(sim.read_field()) < 1e3 and sim.status().safe, name
+
+    if transport is None:
+        each_stop(sim)
+        return
+    with ThreadServer(sim, transport=transport, watchdog_s=None) as srv, connect(srv.announcement) as ctl:
+        each_stop(ctl)

@@ -49,6 +49,10 @@ def test_the_stored_decomposition_comes_back_without_a_second_fit(session_path, 
             analyse.analyse_session_series(s, "nope")
     assert stored.to_dict() == fresh.to_dict()
     np.testing.assert_array_equal(stored.magnetic_deg, fresh.magnetic_deg)
+    # the interaction regime is stored with the rest, its text notes too
+    assert stored.interaction is not None and stored.interaction.regime == fresh.interaction.regime
+    assert stored.interaction.notes == fresh.interaction.notes and isinstance(stored.interaction.notes, tuple)
+    np.testing.assert_array_equal(stored.interaction.negligible_at, fresh.interaction.negligible_at)
 
 
 def test_the_refit_of_the_stored_spectrum_is_the_calibrations_fit(session_path):
@@ -76,6 +80,6 @@ def test_npz_stacks_name_what_is_wrong(tmp_path):
 
 def test_storage_form_keeps_numbers_and_drops_text_lists():
     scalars, arrays = analyse.storage_form({"a_deg": [1.0, 2.0], "ok": True, "n": 3, "s": "x", "none": None,
-                                             "mixed": [1.0, None], "words": ["a"]})
+                                             "mixed": [1.0, None], "words": ["a"], "no_notes": []})
     assert scalars == {"ok": 1, "n": 3, "s": "x"} and list(arrays) == ["a_deg"]
     assert json.dumps(scalars)

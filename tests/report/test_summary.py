@@ -131,6 +131,9 @@ def test_the_report_draws_the_stored_decomposition_without_computing_it_again(tm
     assert result.notes == () and len(drawn) == 1
     np.testing.assert_array_equal(drawn[0].magnetic_deg, stored.magnetic_deg)
     assert drawn[0].recommendation.sentence == stored.recommendation.sentence
+    # the tip-sample interaction regime is stored and shown among the results
+    assert drawn[0].interaction.evidence == stored.interaction.evidence
+    assert f"- **Tip-sample interaction:** {stored.interaction.evidence}" in result.summary_text
 
 
 def test_session_without_series_still_gets_a_summary(tmp_path):

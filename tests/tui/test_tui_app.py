@@ -260,7 +260,7 @@ async def test_cancel_stops_the_series_through_its_guard(tmp_path):
         texts = [text for _, text in app.view("log").entries]
         assert "series: cancelled" in texts
         # the safety guard's notice says what it did; the cause ("cancelled") is said once, by the step
-        assert "stopped: tip withdrawn, drive off, bias 0 V" in texts
+        assert "stopped: tip withdrawn, drive off, bias 0 V, field 0" in texts  # the default stage has a magnet
         assert app.controller.status().safe and sv.lines_done < 64
 
 

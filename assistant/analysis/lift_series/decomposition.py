@@ -7,7 +7,8 @@ itself (small-angle approximation); reported parts are the phase each alone woul
 
 Steps: registration (:mod:`.registration`), the magnetic part by Laplace continuation, the image means
 (:mod:`.image_means`), the noise against the thermal limit (:mod:`.noise_floor`), the tip change
-(:mod:`.tip_change`) and the advice (:mod:`.recommend`).
+(:mod:`.tip_change`), the advice (:mod:`.recommend`), and last the tip-sample interaction regime
+(:mod:`.interaction_regime`), which keeps the advice to heights where the regime is negligible.
 
 Edges: a real scan is a window onto an unbounded field, not a period of it. Three estimators:
 
@@ -42,6 +43,7 @@ from .errors import (HeightsMismatchError, HeightsNotIncreasingError, ImageShape
 from .frequencies import pixel_pair_m
 from .image_mean_models import image_mean_shapes
 from .image_means import MeanFit, fit_mean_bias_grid, fit_mean_heights
+from .interaction_regime import classify_interaction, recommendation_with_regime
 from .noise_floor import noise_verdict, periodic_component_of, white_noise_std
 from .periodic import fit_with_drift_periodic
 from .phase import SignalSpace
@@ -126,15 +128,24 @@ def analyse_series(phase_deg, *, heights_m, pixel_m, bias_v=None, repeat_phase_d
                        max_phase_deg)
     inputs = (phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe, options)
     if edge != "auto":
-        return _decompose(*inputs, edge=edge)
+        return _with_regime(_decompose(*inputs, edge=edge), phase_deg, repeat_phase_deg, probe)
     fast = _decompose(*inputs, edge="reflect")
     heights = _reflection_mattered(fast)
     if not heights:
-        return fast
+        return _with_regime(fast, phase_deg, repeat_phase_deg, probe)
     exact = _decompose(*inputs, edge="window")
     note = ("The reflected-edge fit left a residual above noise at " + ", ".join(f"{x:.4g}" for x in heights)
             + " nm, where the other criteria hold; the windowed fit, exact up to the edges, was used instead.")
-    return dataclasses.replace(exact, edge_note=note)
+    return _with_regime(dataclasses.replace(exact, edge_note=note), phase_deg, repeat_phase_deg, probe)
+
+
+def _with_regime(a: SeriesAnalysis, phase_deg, repeat_phase_deg, probe: ProbeModel) -> SeriesAnalysis:
+    """Name the tip-sample interaction regime and restrict the advice to heights where it is negligible. The
+    regime's repeat verdict becomes ``tip_change`` (kept once: the regime is stored without it)."""
+    regime = classify_interaction(a, phase_deg, repeat_phase_deg=repeat_phase_deg, probe=probe)
+    return dataclasses.replace(a, interaction=dataclasses.replace(regime, tip_change=None),
+                               tip_change=regime.tip_change,
+                               recommendation=recommendation_with_regime(a.recommendation, regime))
 
 
 def _reflection_mattered(a: SeriesAnalysis) -> list[float]:

@@ -3,12 +3,14 @@
 from __future__ import annotations
 
 import dataclasses
+import json
 import types
 import typing
 from dataclasses import dataclass
 
 import numpy as np
 
+from .interaction_regime import InteractionRegime
 from .noise_floor import NoiseVerdict
 from .recommend import Recommendation
 from .tip_change import TipChange
@@ -33,7 +35,8 @@ class SeriesAnalysis:
     (``residual_rms_interior_deg``) with what that reference noise alone would leave
     (``expected_residual_rms_deg``), within ``residual_tolerance``. With ``edge="reflect"`` the magnetic
     rms is taken over that interior too. ``drift_px`` is (H, 2) or
-    (H, B, 2), ``[drow, dcol]`` displacement of the content relative to the first image.
+    (H, B, 2), ``[drow, dcol]`` displacement of the content relative to the first image. ``interaction`` is the
+    tip-sample interaction regime (:mod:`.interaction_regime`); its repeat verdict is ``tip_change``.
     """
 
     heights_m: np.ndarray
@@ -71,6 +74,7 @@ class SeriesAnalysis:
     signal_space: str                   # "gradient" (k and Q given) or "phase"
     fitted_parameters: dict
     edge_note: str = ""                 # why the estimator differs from the default's first choice
+    interaction: InteractionRegime | None = None  # tip-sample interaction regime (set by analyse_series)
 
     @property
     def heights_nm(self) -> np.ndarray:
@@ -84,6 +88,8 @@ class SeriesAnalysis:
             out.append(self.tip_change.sentence)
         if self.edge_note:
             out.append(self.edge_note)
+        if self.interaction is not None:
+            out.append(self.interaction.evidence)
         return tuple(out)
 
     def to_dict(self) -> dict:
@@ -130,6 +136,8 @@ class SeriesAnalysis:
         }
         if self.drift_px.ndim == 3:
             out["drift_px_per_bias"] = lst(self.drift_px)
+        if self.interaction is not None:
+            out.update(self.interaction.to_dict())
         return out
 
     def to_record(self) -> tuple[dict, dict]:
@@ -159,6 +167,8 @@ def _put(name: str, value, scalars: dict, arrays: dict) -> None:
     elif isinstance(value, dict):
         for key, item in value.items():
             _put(f"{name}.{key}", item, scalars, arrays)
+    elif isinstance(value, (tuple, list)) and value and all(isinstance(v, str) for v in value):
+        scalars[name] = json.dumps(list(value))  # text items (notes): one JSON text, read back as a tuple
     elif isinstance(value, (np.ndarray, tuple, list)):
         arrays[name] = np.asarray(value)
     else:
@@ -177,7 +187,7 @@ def _build(cls, prefix: str, scalars: dict, arrays: dict):
         if name in arrays:
             values[f.name] = tuple(arrays[name].tolist()) if kind is tuple else arrays[name]
         elif name in scalars:
-            values[f.name] = scalars[name]
+            values[f.name] = tuple(json.loads(scalars[name])) if kind is tuple else scalars[name]
         elif dataclasses.is_dataclass(kind) and any(k.startswith(nested) for k in (*scalars, *arrays)):
             values[f.name] = _build(kind, nested, scalars, arrays)
         elif kind is dict:

@@ -1,0 +1,15 @@
+"""Media family: what the contrast says about the magnetisation, and metrics of recorded tracks.
+
+``orientation`` (in-plane / out-of-plane from the phase relation of the image and its Hilbert transform),
+``tracks`` (tracks, transitions, bit-cell grid, jitter, transition width, erase bands), with their parts
+``local_phase``, ``transfer``, ``transitions``, ``bit_grid`` and ``track_layout``; ``errors``. numpy and scipy
+only; the noise estimate is the lift-series family's (``white_noise_std``).
+"""
+
+from .errors import MediaInputError, TooFewPixelsPerBitError
+from .orientation import Orientation, magnetisation_orientation
+from .tracks import TrackAnalysis, TrackResult, analyse_tracks
+from .transfer import point_probe_transfer
+
+__all__ = ["Orientation", "magnetisation_orientation", "MediaInputError", "TooFewPixelsPerBitError",
+           "TrackAnalysis", "TrackResult", "analyse_tracks", "point_probe_transfer"]

@@ -1,0 +1,156 @@
+"""Track metrics from the fitted transitions: bit length, jitter, pitch, width, erase band, transition width.
+
+Bit length: the tracks' bit lengths weighted by their standard errors, the standard error widened by the tracks'
+scatter when it exceeds them. Jitter: the deviations from each track's grid pooled (two grid parameters per track
+out of the degrees of freedom), then the fit's own position noise taken out: each deviation has variance
+J^2 + s_i^2 (s_i its position's standard error), solved for J by weighted moments (iterated). Pitch: the median
+spacing of complete tracks' centres. Width: the mean of complete tracks' widths.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .bit_grid import BitGrid, fit_bit_grid
+from .tracks import TrackAnalysis, TrackResult, no_tracks, raise_too_few
+
+
+def jitter_without_position_noise(dev: np.ndarray, sd: np.ndarray, dof_factor: float = 1.0) -> float:
+    """J with Var(dev_i) = J^2 + sd_i^2: weighted moment equation, weights 1 / (J^2 + sd_i^2)^2, iterated."""
+    d2 = dev**2 * dof_factor
+    s2 = sd**2
+    j2 = max(float(np.mean(d2 - s2)), 0.0)
+    for _ in range(20):
+        w = 1.0 / (j2 + s2 + 1e-300) ** 2
+        new = max(float(np.sum(w * (d2 - s2)) / np.sum(w)), 0.0)
+        if abs(new - j2) <= 1e-6 * max(j2, 1e-300):
+            j2 = new
+            break
+        j2 = new
+    return float(np.sqrt(j2))
+
+
+def _closer_to_clock(positions: np.ndarray, grid: BitGrid | None, hint: float) -> BitGrid | None:
+    if grid is not None and abs(grid.bit_length / hint - 1) <= 0.02:
+        return grid
+    again = fit_bit_grid(positions, bit_length_hint=hint)
+    if grid is None or (again is not None and again.jitter <= grid.jitter):
+        return again
+    return grid
+
+
+def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix, shape, along_rows, skew, px_down,
+               px_across, lift_m, have_tip, min_pixels_per_bit, cores=None) -> TrackAnalysis:
+    grids: list[BitGrid | None] = []
+    for _, f in fits:  # cells shorter than 2 pixels cannot be resolved: no shorter grid is considered
+        grids.append(fit_bit_grid(f.positions_px[f.interior], min_bit=2.0))
+    found = [g for g in grids if g is not None]
+    if not found:
+        return no_tracks(orient, pix, shape, "Tracks were found but no bit-cell grid fits their transitions: the "
+                          "media metrics are null.")
+    # the tracks of one image share the write clock: a track whose cell differs from it (a few transitions can
+    # fit a wrong cell) is fitted again near it, and the better grid stays
+    # the clock: the cell of the track whose profile the model explains best
+    quality = [f.residual_rms / max(float(f.noise), 1e-300) if g is not None else np.inf
+               for (_, f), g in zip(fits, grids)]
+    hint = float(grids[int(np.argmin(quality))].bit_length)
+    grids = [_closer_to_clock(f.positions_px[f.interior], g, hint) for (_, f), g in zip(fits, grids)]
+    if hint < min_pixels_per_bit:
+        raise_too_few(hint * px_down, px_down, min_pixels_per_bit)
+    # tracks whose cell still disagrees with the clock by more than 10 % (a track whose fit went wrong
+    # and placed transitions where there are none) are left out of the combined numbers, and said so; their
+    # deviations are not shown as such
+    agree = [g is not None and abs(g.bit_length / hint - 1) <= 0.1 for g in grids]
+    results = []
+    for i, ((band, f), g) in enumerate(zip(fits, grids)):
+        sel = f.interior
+        pos = (f.positions_px[sel] + 0.5) * px_down
+        dev = g.deviations * px_down if g is not None and agree[i] else np.full(pos.size, np.nan)
+        centre = None if band.centre is None else (band.centre + 0.5) * px_across
+        edges = tuple(None if e is None else (e + 0.5) * px_across for e in (band.lower, band.upper))
+        results.append(TrackResult(
+            i, centre, None if band.width is None else band.width * px_across, edges,
+            None if g is None else g.bit_length * px_down, None if g is None else g.bit_length_std * px_down,
+            None if g is None else (g.phase + 0.5) * px_down, None if g is None else g.jitter * px_down,
+            pos, f.positions_std_px[sel] * px_down, dev, f.signs[sel], f.width_px * px_down,
+            None if g is None else g.off_grid,
+            None if not cores or id(band) not in cores else ((cores[id(band)][0] + 0.5) * px_across,
+                                                               cores[id(band)][1] * px_across)))
+    good = [(r, g) for (r, g), ok in zip(zip(results, grids), agree) if ok and np.isfinite(g.bit_length_std)
+            and g.bit_length_std > 0]
+    outliers = [r.index for r, ok, g in zip(results, agree, grids) if not ok and g is not None]
+    if not good:
+        return no_tracks(orient, pix, shape, "Tracks were found but no bit-cell grid fits their transitions: the "
+                         "media metrics are null.")
+    b = np.array([r.bit_length_m for r, _ in good])
+    s = np.array([r.bit_length_std_m for r, _ in good])
+    wts = 1.0 / s**2
+    bit = float(np.sum(wts * b) / np.sum(wts))
+    bit_sd = float(1.0 / np.sqrt(np.sum(wts)))
+    if b.size > 1:  # the tracks' scatter, when it exceeds what their standard errors allow
+        chi2 = float(np.sum(wts * (b - bit) ** 2) / (b.size - 1))
+        bit_sd *= max(1.0, np.sqrt(chi2))
+    on = [~g.off_grid for _, g in good]
+    dev_all = np.concatenate([g.deviations[o] for (_, g), o in zip(good, on)]) * px_down
+    sd_all = np.concatenate([r.positions_std_m[o] for (r, _), o in zip(good, on)])
+    dof_factor = dev_all.size / max(sum(max(int(o.sum()) - 2, 1) for o in on), 1)
+    raw = float(np.sqrt(np.mean(dev_all**2) * dof_factor))
+    jitter = jitter_without_position_noise(dev_all, sd_all, dof_factor)
+    pos_noise = float(np.sqrt(np.mean(sd_all**2))) if sd_all.size else 0.0
+    n_off = int(sum(int(g.off_grid.sum()) for _, g in good))
+    shift = np.concatenate([(f.detected_px[f.interior] - f.positions_px[f.interior])
+                            for (_, f), ok in zip(fits, agree) if ok]) * px_down
+    inter = float(np.sqrt(np.mean(shift**2))) if shift.size else None
+    complete = [bd for bd in layout.tracks if bd.complete]  # every track band, with or without fitted transitions
+    centres = np.array([bd.centre for bd in complete]) * px_across
+    widths = np.array([bd.width for bd in complete]) * px_across
+    pitch = pitch_sd = None
+    if centres.size >= 2:
+        d = np.diff(np.sort(centres))
+        pitch = float(np.median(d))
+        pitch_sd = float(np.std(d, ddof=1) / np.sqrt(d.size)) if d.size > 1 else None
+    width = float(widths.mean()) if widths.size else None
+    width_sd = float(widths.std(ddof=1) / np.sqrt(widths.size)) if widths.size > 1 else None
+    erase = float(np.mean(layout.erase_bands_px)) * px_across if layout.erase_bands_px else None
+    # the shape was fitted on one track (the others hold it, unless their own fit had to move it): w and its
+    # standard error from a freely shaped track whose grid agrees with the clock
+    free = [f for (_, f), ok in zip(fits, agree) if ok and f.width_std_px > 0]
+    shaped = min(free, key=lambda f: f.width_std_px) if free else max((f for _, f in fits),
+                                                                       key=lambda f: f.width_std_px)
+    w_m = shaped.width_px * px_down
+    a, a_sd = shaped.along_px, shaped.along_std_px
+    separated = (a is not None and a_sd is not None and np.isfinite(a_sd) and a > 2 * a_sd
+                 and a < 0.85 * shaped.width_px)
+    if separated:  # the track's finite width told the arctan parameter from the spacing and the tip
+        tw, tw_sd, includes_tip = a * px_down, a_sd * px_down, False
+    else:
+        tw, tw_sd, includes_tip = w_m - (lift_m or 0.0), shaped.width_std_px * px_down, not have_tip
+    sentences = [f"{len(results)} track(s) along the {'rows' if along_rows else 'columns'}, {sum(r.positions_m.size for r in results)} "
+                 f"transitions placed by one joint fit per track ({model_orientation} transition model"
+                 + (", chosen by the fit" if model_chosen_by_fit else "") + ")."]
+    sentences.append(f"Bit length {bit * 1e9:.4g} ± {bit_sd * 1e9:.2g} nm; jitter {jitter * 1e9:.3g} nm rms about "
+                     f"the grid ({raw * 1e9:.3g} nm before taking out the position noise of {pos_noise * 1e9:.2g} nm)"
+                     + (f"; {n_off} transition(s) more than 30 % of a cell off the grid left out." if n_off else "."))
+    if outliers:
+        sentences.append(f"Track(s) {', '.join(str(i) for i in outliers)}: their transitions fit another cell than "
+                         "the other tracks' (a fit gone wrong); left out of the combined numbers.")
+    if inter is not None:
+        sentences.append(f"Neighbouring transitions pulled the detected positions by {inter * 1e9:.2g} nm rms; the "
+                         "joint fit removes that interaction (exact for a linear response).")
+    if pitch is None:
+        sentences.append("Track pitch: fewer than two complete tracks in the image.")
+    if erase is None:
+        sentences.append("Erase band: no side band of old data beside the tracks, so it cannot be told from the "
+                         "guard band.")
+    if separated:
+        sentences.append(f"Transition width (arctan parameter) {tw * 1e9:.3g} ± {tw_sd * 1e9:.2g} nm, told from the "
+                         f"spacing and the tip ({(w_m - tw) * 1e9:.3g} nm together) by the track's finite width: the "
+                         "arctan smooths along the track only, the spacing in every direction.")
+    else:
+        lift_txt = "the lift height taken off" if lift_m else "no lift height given, so it is included"
+        sentences.append(f"Transition width (arctan parameter) {tw * 1e9:.3g} nm, {lift_txt}"
+                         + ("; it still includes the tip's effective offset (give the tip's transfer function to "
+                            "take it off): an upper bound." if includes_tip else "; tip transfer function taken off."))
+    return TrackAnalysis(orient, True, tuple(sentences), along_rows, pix, shape, skew, tuple(results), bit, bit_sd,
+                         pitch, pitch_sd, width, width_sd, jitter, raw, pos_noise, inter, tw, tw_sd, includes_tip,
+                         erase, layout.activity)

@@ -1,0 +1,153 @@
+"""``mfma run --fields-ka-per-m LIST|START:STOP:STEP``: calibrate, approach once, image every field step at one
+lift height, analyse the loop, write the report. ``mfma run --resume FILE`` on a session whose field series was
+interrupted continues it (``cmd_run`` reads the :class:`~assistant.procedures.workflow.ResumePlan` and hands a
+field series over to :func:`resume_fields`)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from assistant.cli._common import UsageError, emit_json, emit_text, open_controller_from_args
+
+DEFAULT_LIFT_NM = 50.0
+_RUN_DEFAULT_BIASES = [-0.5, 0.0, 0.5, 1.0]  # ``mfma run``'s bias grid for a lift series; a field series takes one bias
+
+
+def field_settings(args):
+    from assistant.procedures.field_series import FieldSeriesSettings, parse_fields_ka_per_m
+
+    fields = parse_fields_ka_per_m(args.fields_ka_per_m)
+    heights = args.heights or [DEFAULT_LIFT_NM]
+    if len(heights) != 1:
+        raise UsageError(f"--heights: a field series images at one lift height, got {len(heights)}")
+    biases = list(args.biases)
+    if biases == _RUN_DEFAULT_BIASES:
+        bias = 0.0
+    elif len(biases) == 1:
+        bias = biases[0]
+    else:
+        raise UsageError(f"--biases: a field series images at one tip bias, got {len(biases)}")
+    return FieldSeriesSettings(fields_a_per_m=tuple(f * 1e3 for f in fields), lift_height_m=heights[0] * 1e-9,
+                               bias_v=bias, lines=args.lines, pixels=args.pixels, scan_size_m=args.size_um * 1e-6,
+                               line_rate_hz=args.line_rate, repeat_first=not args.no_repeat)
+
+
+def run_fields(args, limits, progress) -> int:
+    """A new session: calibrate, approach, the field series, its loop analysis, the report."""
+    from assistant.cli.cmd_run import _scenario_text, _stop, _writable_dir, _writer_hook, calibration_settings
+    from assistant.outputs import new_session_path, report_dir_for
+    from assistant.procedures.field_series import check_controller
+    from assistant.procedures.workflow import Workflow
+    from assistant.report.summary import build_report
+    from drivers.registry import redact, scheme_of
+
+    out = _writable_dir(args.out)
+    settings = field_settings(args)
+    settings.validate(limits)
+    cal_settings = calibration_settings(args)
+    cal_settings.validate()
+    session_path = new_session_path(out)
+    extra = {"pace": args.pace, "line_rate": args.line_rate} if scheme_of(args.controller) == "sim" else {}
+    with open_controller_from_args(args, **extra) as ctl:
+        check_controller(ctl, settings, limits)  # the magnet and its limits, before anything moves
+        wf = Workflow(ctl, session_path, controller_url=redact(args.controller), scenario_text=_scenario_text(ctl),
+                      limits=limits, sink=progress, fsync=args.fsync, before_write=_writer_hook(ctl))
+        try:
+            from assistant.storage.probe_record import ProbeRecord
+
+            wf.calibrate(cal_settings, probe_record=ProbeRecord() if args.probe else None)
+            wf.approach()
+            wf.field_series(settings)
+            analysis = _analysed(wf, progress, session_path)
+            wf.session.mark_complete()
+            wf.session.flush()
+            report = build_report(session_path, report_dir_for(session_path), sink=progress)
+        except KeyboardInterrupt:
+            _stop(ctl)  # Ctrl-C between two steps (the tip engaged after the approach): no guard was running
+            raise
+        finally:
+            wf.close()
+    return _finish(args, session_path, report, wf, analysis)
+
+
+def resume_fields(args, plan, limits, progress) -> int:
+    """Continue the interrupted field series of ``plan`` (a field series' ResumePlan) through the workflow's
+    resume: the stored calibration, a new approach, the turning points retraced, the remaining steps."""
+    from assistant.cli.cmd_run import _stop, _writer_hook
+    from assistant.outputs import report_dir_for
+    from assistant.procedures.events import Notice
+    from assistant.procedures.field_series import check_controller
+    from assistant.procedures.workflow import Workflow
+    from assistant.report.summary import build_report
+    from drivers.registry import scheme_of
+
+    settings = plan.series
+    extra = {"pace": args.pace, "line_rate": settings.line_rate_hz} if scheme_of(args.controller) == "sim" else {}
+    with open_controller_from_args(args, **extra) as ctl:
+        check_controller(ctl, settings, limits)
+        wf = Workflow.resume(ctl, plan, limits=limits, sink=progress, fsync=args.fsync,
+                             before_write=_writer_hook(ctl))
+        try:
+            progress(Notice("info", f"resuming {settings.name} at {plan.where}"))
+            wf.approach()
+            wf.field_series(settings, resume=True)
+            analysis = _analysed(wf, progress, plan.path)
+            wf.session.mark_complete()
+            wf.session.flush()
+            report = build_report(plan.path, report_dir_for(plan.path), sink=progress)
+        except KeyboardInterrupt:
+            _stop(ctl)
+            raise
+        finally:
+            wf.close()
+    return _finish(args, plan.path, report, wf, analysis)
+
+
+def _analysed(wf, progress, session_path: Path):
+    """The loop analysis; stacks it cannot read (no elements in them) are bad input, the images kept."""
+    from assistant.analysis.field_series import LoopInputError
+
+    try:
+        with progress.stage("analysis", "switching fields and the loop"):
+            return wf.analyse_loop()
+    except LoopInputError as exc:
+        raise UsageError(f"{exc}; the images are kept in {session_path}") from None
+
+
+def _finish(args, session_path: Path, report, wf, analysis) -> int:
+    cal = wf.calibration
+    calib = ({"k_n_per_m": cal.k_n_per_m, "k_std_n_per_m": cal.k_std_n_per_m, "f0_hz": cal.thermal.f0_hz,
+              "q": cal.thermal.q, "invols_nm_per_v": cal.invols_m_per_v * 1e9} if cal is not None else
+             {"k_n_per_m": wf.spring_constant_n_per_m, "k_std_n_per_m": None, "f0_hz": wf.drive.frequency_hz,
+              "q": wf.quality_factor, "invols_nm_per_v": None})
+    s, res = wf.field_settings, wf.field_result
+    loop = analysis.to_dict()
+    summary = {
+        "session_file": str(session_path), "report_dir": str(report.out_dir), "calibration": calib,
+        "field_series": {"name": s.name, "fields_ka_per_m": [round(h / 1e3, 6) for h in s.fields_a_per_m],
+                         "lift_height_nm": round(s.lift_height_m * 1e9, 6), "completed_steps": res.completed_steps,
+                         "lines": s.lines},
+        "loop": loop,
+    }
+    if args.json:
+        emit_json(summary)
+        return 0
+    from assistant.formatting import number, quantity
+    from assistant.report.results import render_block
+
+    ka = lambda key: None if loop[key] is None else loop[key] * 1e3  # noqa: E731  (A/m for quantity)
+    rev = loop["tip_reversals_ka_per_m"]
+    pairs = [
+        ("Coercive field", quantity(ka("coercive_field_ka_per_m"), "A/m", ka("coercive_field_std_ka_per_m"))),
+        ("Switching-field spread", quantity(ka("sfd_sigma_ka_per_m"), "A/m")
+         if loop["sfd_sigma_ka_per_m"] is not None else "not resolved by the field steps"),
+        ("Elements", f"{loop['dots']} ({analysis.elements.source})"),
+        ("Tip reversals", ", ".join(quantity(h * 1e3, "A/m") for h in rev) if rev else "none"),
+        ("Switched by the tip", ", ".join(map(str, loop["tip_switched_elements"])) or "none"),
+        ("Calibration", f"k {quantity(calib['k_n_per_m'], 'N/m', calib['k_std_n_per_m'])}, "
+                        f"f0 {quantity(calib['f0_hz'], 'Hz')}, Q {number(calib['q'], digits=3)}"),
+        ("Field series",
+         f"{res.completed_steps} field steps × {s.lines} lines at {quantity(s.lift_height_m, 'm')} lift"),
+        ("Session file", str(session_path)), ("Report", str(report.out_dir))]
+    emit_text(render_block(pairs, markdown=False) + [f"note: {n}" for n in analysis.notes[1:]])
+    return 0
