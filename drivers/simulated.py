@@ -249,10 +249,15 @@ class SimulatedController(Controller):
 
     @_mapped
     def set_field(self, field_a_per_m: float) -> None:
+        if not self.has(Capability.APPLIED_FIELD):  # a scenario without a magnet: the interface's promise
+            super().set_field(field_a_per_m)
+            return
         self.stage.set_field(float(field_a_per_m))
 
     @_mapped
     def read_field(self) -> float:
+        if not self.has(Capability.APPLIED_FIELD):
+            return super().read_field()
         return float(self.stage.read_field())
 
     def status(self) -> Status:

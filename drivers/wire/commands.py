@@ -84,8 +84,9 @@ _FIELD = _range(lambda l: -l.field_max_a_per_m, lambda l: l.field_max_a_per_m)
 
 
 def ramp_s(lim: Limits, from_a_per_m: float, to_a_per_m: float) -> float:
-    """How long the magnet needs to go from one field to another and settle [s] (0 for no change)."""
-    if from_a_per_m == to_a_per_m:
+    """How long the magnet needs to go from one field to another and settle [s] (0 for no change, and for a
+    target beyond the magnet's limit or not finite, which is refused before anything is set)."""
+    if from_a_per_m == to_a_per_m or not abs(to_a_per_m) <= lim.field_max_a_per_m:  # also catches NaN
         return 0.0
     return abs(to_a_per_m - from_a_per_m) / max(lim.field_ramp_a_per_m_per_s, 1e-9) + lim.field_settle_s
 
