@@ -1,8 +1,9 @@
 """The driver conformance kit: does a :class:`drivers.base.Controller` keep the interface's promises?
 
 SI units, limits refused rather than clipped, withdraw always allowed and idempotent, errors on the tree,
-capabilities that match what is implemented, an ``abort()`` that stops a long call at once. The checks come in
-levels, each including the ones before it:
+capabilities that match what is implemented, an ``abort()`` that stops a long call at once, and a magnet's field
+back at 0 after ``make_safe()`` and ``abort()`` (:mod:`.checks_field`). The checks come in levels, each including
+the ones before it:
 
 ``identity``  info, capabilities, limits, URL; nothing is called that acts on the instrument
 ``signals``   readings, drive, records, sweeps, capabilities, and safety without motion (the default)
@@ -11,8 +12,8 @@ levels, each including the ones before it:
 
 ``run_checks(controller, level=..., url=..., confirm=...)`` returns a :class:`KitResult`; ``mfma drivers check
 URL`` is its command line, and ``mfma drivers new NAME DIR`` writes a plug-in skeleton whose test runs the kit.
-Whatever happens, the stage is left safe (``abort()``, else each safe step on its own), and the last check,
-``end.safe``, says whether status confirms it.
+Whatever happens, the stage is left safe (``abort()``, else each safe step on its own; a field still on is set to
+0 directly), and the last check, ``end.safe``, says whether status and the field reading confirm it.
 """
 
 from drivers.conformance.kit import LEVELS, PLANS, Check, KitResult

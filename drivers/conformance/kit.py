@@ -12,7 +12,7 @@ import time
 from collections.abc import Callable
 from dataclasses import asdict, dataclass, field
 
-from drivers.base import Controller, safe_steps
+from drivers.base import Capability, Controller, safe_steps
 
 #: The levels, each including the ones before it. Nothing moves below ``motion``; nothing approaches a surface
 #: below ``engaged``.
@@ -23,14 +23,19 @@ PLANS = {
     "motion": ("move the Z piezo between 0 and at most a fifth of its range at the speed limit (and withdraw "
                "during a move), move the scanner by at most 1 µm from the centre, and step the coarse motor a few "
                "steps towards the sample and back. The tip must be well clear of the surface: at least one Z "
-               "range plus 1 µm. Nothing approaches the surface."),
+               "range plus 1 µm. Nothing approaches the surface. With a magnet (applied_field): apply a field of "
+               "5 % of its range, at most 40 kA/m (50 mT), bring it back to 0 with make_safe(), then apply it "
+               "with the opposite sign and abort() the ramp back through 0; keep magnetic media and delicate "
+               "samples away."),
     "engaged": ("approach the surface under amplitude feedback (coarse steps no longer than the Z range just "
                 "searched), scan one short line with two second passes at a safe lift height, stop a second line "
                 "in the middle with abort(), and over a link stay silent until the server's watchdog acts. "
                 "The tip touches the surface in tapping contact; use a sample and a tip you can spare."),
 }
 
-ABORT_LIMIT_S = 0.2  # abort() must return within this [s]
+ABORT_LIMIT_S = 0.2  # abort() must return within this [s] (plus a magnet's ramp to 0 when a field is on)
+#: A magnet's field counts as 0 within this fraction of its range (the server's watchdog uses the same threshold)
+FIELD_ZERO_FRACTION = 0.01
 
 
 class Fail(Exception):
@@ -82,19 +87,41 @@ class Kit:
 
 
 def make_safe(ctl: Controller) -> list[str]:
-    """Stop and make safe by every route there is: abort(), then each safe step alone. Returns the failures."""
+    """Stop and make safe by every route there is: abort(), then each safe step alone, and a field still on set
+    to 0 directly. Returns the failures."""
     try:
         ctl.abort()
-        return []
-    except Exception:
-        pass  # try each step on its own, and report those
-    problems: list[str] = []
-    for step, what in zip(safe_steps(ctl), ("withdraw", "drive off", "bias 0 V", "field 0")):
-        try:
-            step()
-        except Exception as exc:
-            problems.append(f"{what}: {type(exc).__name__}: {exc}")
+        problems: list[str] = []
+    except Exception:  # try each step on its own, and report those
+        problems = []
+        for step, what in zip(safe_steps(ctl), ("withdraw", "drive off", "bias 0 V", "field 0")):
+            try:
+                step()
+            except Exception as exc:
+                problems.append(f"{what}: {type(exc).__name__}: {exc}")
+    try:
+        if field_left_on(ctl) is not None:  # a driver whose make-safe forgets its magnet: the kit's last resort
+            ctl.set_field(0.0)
+            left = field_left_on(ctl)
+            if left is not None:
+                problems.append(f"field 0: set_field(0) left the field reading {left:g} A/m")
+    except Exception as exc:
+        problems.append(f"field 0: {type(exc).__name__}: {exc}")
     return problems
+
+
+def field_tolerance_a_per_m(ctl: Controller) -> float:
+    """How far from its target a magnet's reading may be [A/m]: 1 % of its range."""
+    return FIELD_ZERO_FRACTION * ctl.limits.field_max_a_per_m
+
+
+def field_left_on(ctl: Controller) -> float | None:
+    """The field a declared magnet reads [A/m] if it is not 0 (within :func:`field_tolerance_a_per_m`); None
+    when it is 0 or there is no magnet."""
+    if not ctl.has(Capability.APPLIED_FIELD):
+        return None
+    field_a_per_m = float(ctl.read_field())
+    return None if abs(field_a_per_m) <= field_tolerance_a_per_m(ctl) else field_a_per_m
 
 
 def run_level_checks(kit: Kit, level: str, checks: list[tuple[str, Callable[[Kit], str]]], result: KitResult,
@@ -133,12 +160,12 @@ def run(controller: Controller, *, level: str = "signals", url: str | None = Non
     ``confirm(level, plan)`` is asked before each level that moves anything (``motion``, ``engaged``); without
     it those levels do not run. ``progress`` sees each check as it finishes.
     """
-    from drivers.conformance import checks_motion, checks_signals
+    from drivers.conformance import checks_field, checks_motion, checks_signals
 
     if level not in LEVELS:
         raise ValueError(f"level {level!r} is not one of {', '.join(LEVELS)}")
-    groups = {"identity": checks_signals.IDENTITY, "signals": checks_signals.SIGNALS,
-              "motion": checks_motion.MOTION, "engaged": checks_motion.ENGAGED}
+    groups = {"identity": checks_signals.IDENTITY, "signals": checks_signals.SIGNALS + checks_field.SIGNALS,
+              "motion": checks_motion.MOTION + checks_field.MOTION, "engaged": checks_motion.ENGAGED}
     result = KitResult(url, level)
     kit = Kit(controller, url)
     progress = progress or (lambda check: None)
@@ -162,13 +189,19 @@ def _end_safe(ctl: Controller, level: str) -> Check:
     problems = make_safe(ctl)
     try:
         s = ctl.status()
+        field = field_left_on(ctl)
     except Exception as exc:
-        return Check("end.safe", level, False, _sentence(f"status() raised {type(exc).__name__} ({exc}) after "
-                                                         f"making the stage safe: check the instrument by hand"))
-    if problems or not s.safe:
+        return Check("end.safe", level, False, _sentence(f"status() or read_field() raised {type(exc).__name__} "
+                                                         f"({exc}) after making the stage safe: check the "
+                                                         f"instrument by hand"))
+    if problems or not s.safe or field is not None:
         why = "; ".join(problems) or (f"status reports engaged={s.engaged}, feedback_on={s.feedback_on}, "
-                                      f"z_m={s.z_m:g}, drive_on={s.drive_on}, bias_v={s.bias_v:g}")
+                                      f"z_m={s.z_m:g}, drive_on={s.drive_on}, bias_v={s.bias_v:g}, and the "
+                                      f"field reads {field or 0.0:g} A/m")
         return Check("end.safe", level, False, _sentence(f"the stage did not end safe: {why}"))
+    if ctl.has(Capability.APPLIED_FIELD):
+        return Check("end.safe", level, True, "The stage ended withdrawn, with the drive off, the bias at 0 V "
+                                              "(confirmed by status()) and the field at 0 (read_field()).")
     return Check("end.safe", level, True, "The stage ended withdrawn, with the drive off and the bias at 0 V "
                                           "(confirmed by status()).")
 

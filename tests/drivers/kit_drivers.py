@@ -3,7 +3,9 @@ controller interface (on purpose) on top of the simulated driver.
 
 The stage: the default lever, a 3 µm stripe sample at 20 nm pixels (cheap field tables) and the surface 4 µm
 below the retracted tip, so the kit's approach finds it with the Z piezo alone; realtime pace, so that the
-kit's timing checks mean something.
+kit's timing checks mean something. Its magnet (invented values) takes 0.15 s, ramp and settling, to set the kit's
+40 kA/m test field and 0.25 s to reverse it (the ramp the kit aborts after 0.1 s): short enough for the suite;
+``magnet="fast"`` (for drivers that set fields they should not) or ``"none"`` change that.
 """
 
 from __future__ import annotations
@@ -21,20 +23,31 @@ KIT_SCENARIO = """
 name = "kit"
 [instrument]
 start_gap_um = START_GAP_UM
+MAGNET
 [sample]
 pattern = "stripes"
 period_nm = 400.0
 extent_um = 3.0
 pixel_nm = 20.0
-""".replace("START_GAP_UM", "4.0")
+"""
+#: [instrument] lines of the magnet: max field [kA/m], ramp [kA/m/s], settling [s]
+MAGNETS = {"kit": (800.0, 400.0, 0.05), "fast": (800.0, 1e4, 0.01), "none": (0.0, 50.0, 0.0)}
+
+
+def kit_scenario(*, start_gap_um: float = 4.0, magnet: str = "kit") -> str:
+    top, ramp, settle = MAGNETS[magnet]
+    lines = (f"magnet_max_ka_per_m = {top}\nmagnet_ramp_ka_per_m_per_s = {ramp}\n"
+             f"magnet_settle_s = {settle}")
+    return KIT_SCENARIO.replace("START_GAP_UM", f"{start_gap_um}").replace("MAGNET", lines)
 
 
 def kit_controller(cls: type[SimulatedController] = SimulatedController, *, stage=None, seed: int = 3,
-                   start_gap_um: float = 4.0):
+                   start_gap_um: float = 4.0, magnet: str = "kit"):
     """A simulated controller (or a broken subclass) at realtime pace; pass ``stage`` to reuse one.
-    ``start_gap_um``: the surface below the retracted tip (the kit's motion level wants more than the Z range)."""
+    ``start_gap_um``: the surface below the retracted tip (the kit's motion level wants more than the Z range);
+    ``magnet``: a key of :data:`MAGNETS`."""
     if stage is None:
-        text = KIT_SCENARIO.replace("start_gap_um = 4.0", f"start_gap_um = {start_gap_um}")
+        text = kit_scenario(start_gap_um=start_gap_um, magnet=magnet)
         return cls.from_url("sim://?pace=realtime", scenario=Scenario.from_text(text), seed=seed)
     return cls(stage, seed=seed)
 
@@ -148,19 +161,41 @@ class IgnoresZSpeed(SimulatedController):
             self.stage.z.position_m = float(z_m)
 
 
-#: broken driver -> the level that shows it, and the checks that must fail: the check of the promise broken
-#: first, then those that fail because of it (a clipped bias also takes an infinite one; a sweep that is not
-#: there cannot be aborted either; a Z move that does not take time is over before it can be aborted)
+class ClipsField(SimulatedController):
+    """Clips the applied field to the magnet's limit instead of refusing (and sets it)."""
+
+    def set_field(self, field_a_per_m):
+        lim = self.limits.field_max_a_per_m
+        if math.isfinite(field_a_per_m):
+            field_a_per_m = min(max(field_a_per_m, -lim), lim)
+        super().set_field(field_a_per_m)
+
+
+class KeepsFieldOnSafe(SimulatedController):
+    """make_safe() and abort() forget the magnet: its field step does nothing."""
+
+    def zero_applied_field(self):
+        pass
+
+
+#: broken driver -> the level that shows it, the stage it runs on (``signals``: near the surface, fast magnet;
+#: ``motion``: room to move, no magnet; ``motion_magnet``: room to move, the kit magnet) and the checks that must
+#: fail: the check of the promise broken first, then those that fail because of it (a clipped bias also takes an
+#: infinite one; a sweep that is not there cannot be aborted either; a Z move that does not take time is over before
+#: it can be aborted; an abort is a make-safe)
 BROKEN = {
-    ClipsBias: ("signals", {"safety.bias_limit", "safety.nonfinite"}),
-    DriveLimitAsValueError: ("signals", {"safety.drive_limits", "safety.nonfinite"}),
-    SecondWithdrawRaises: ("signals", {"safety.withdraw_twice"}),
-    DeclaresSweepItLacks: ("signals", {"signals.capabilities_declared", "signals.sweep", "safety.abort_sweep"}),
-    LimitsInNanometres: ("signals", {"identity.limits"}),
-    IgnoresAbort: ("signals", {"safety.abort_sweep", "safety.abort_record"}),
-    AcceptsNaNBias: ("signals", {"safety.nonfinite"}),
-    UndeclaredSweepNotClean: ("signals", {"signals.capabilities_undeclared"}),
-    ReadsPhaseAsFloat32: ("signals", {"signals.read"}),
-    ClipsZ: ("motion", {"motion.z_limit_high", "safety.z_limit_low", "motion.nonfinite"}),
-    IgnoresZSpeed: ("motion", {"motion.z_move", "motion.withdraw_wins"}),
+    ClipsBias: ("signals", "signals", {"safety.bias_limit", "safety.nonfinite"}),
+    DriveLimitAsValueError: ("signals", "signals", {"safety.drive_limits", "safety.nonfinite"}),
+    SecondWithdrawRaises: ("signals", "signals", {"safety.withdraw_twice"}),
+    DeclaresSweepItLacks: ("signals", "signals", {"signals.capabilities_declared", "signals.sweep",
+                                                  "safety.abort_sweep"}),
+    LimitsInNanometres: ("signals", "signals", {"identity.limits"}),
+    IgnoresAbort: ("signals", "signals", {"safety.abort_sweep", "safety.abort_record"}),
+    AcceptsNaNBias: ("signals", "signals", {"safety.nonfinite"}),
+    UndeclaredSweepNotClean: ("signals", "signals", {"signals.capabilities_undeclared"}),
+    ReadsPhaseAsFloat32: ("signals", "signals", {"signals.read"}),
+    ClipsField: ("signals", "signals", {"field.limits"}),
+    ClipsZ: ("motion", "motion", {"motion.z_limit_high", "safety.z_limit_low", "motion.nonfinite"}),
+    IgnoresZSpeed: ("motion", "motion", {"motion.z_move", "motion.withdraw_wins"}),
+    KeepsFieldOnSafe: ("motion", "motion_magnet", {"field.make_safe", "field.abort"}),
 }

@@ -10,7 +10,7 @@ from pathlib import Path
 import pytest
 
 sys.path.insert(0, str(Path(__file__).parent))
-from kit_drivers import BROKEN, KIT_SCENARIO, kit_controller  # noqa: E402
+from kit_drivers import BROKEN, kit_controller, kit_scenario  # noqa: E402
 from link_fakes import ThreadServer  # noqa: E402
 
 from assistant.cli import main  # noqa: E402
@@ -24,7 +24,7 @@ EXPECTED = {"identity.info", "identity.limits", "identity.url", "signals.read", 
             "signals.sweep", "signals.capabilities_declared", "safety.bias_limit", "safety.nonfinite",
             "safety.withdraw_twice", "safety.abort_sweep", "safety.abort_record", "motion.z_move",
             "motion.withdraw_wins", "motion.coarse", "engaged.approach", "engaged.line", "engaged.abort_mid_line",
-            "end.safe"}
+            "field.limits", "field.make_safe", "field.abort", "end.safe"}
 
 
 def _yes(level: str, plan: str) -> bool:
@@ -62,14 +62,16 @@ def test_links_pass_every_level_and_their_watchdog_acts(transport):
 
 @pytest.fixture(scope="module")
 def stages():
-    """One stage for the broken drivers of each level: near the surface, and with room to move."""
-    return {"signals": kit_controller().stage, "motion": kit_controller(start_gap_um=12.0).stage}
+    """The stages of the broken drivers: near the surface, and with room to move (with and without a magnet)."""
+    return {"signals": kit_controller(magnet="fast").stage,
+            "motion": kit_controller(start_gap_um=12.0, magnet="none").stage,
+            "motion_magnet": kit_controller(start_gap_um=12.0).stage}
 
 
 @pytest.mark.parametrize("cls", list(BROKEN), ids=lambda c: c.__name__)
 def test_each_broken_driver_is_caught_by_the_check_of_its_promise(cls, stages):
-    level, expected = BROKEN[cls]
-    result = run_checks(kit_controller(cls, stage=stages[level]), level=level, confirm=_yes)
+    level, stage, expected = BROKEN[cls]
+    result = run_checks(kit_controller(cls, stage=stages[stage]), level=level, confirm=_yes)
     assert set(result.failed()) == expected, _explain(result)
     assert result.checks[-1].name == "end.safe" and result.checks[-1].passed
     assert not result.passed and result.stopped is None
@@ -80,8 +82,19 @@ def test_each_broken_driver_is_caught_by_the_check_of_its_promise(cls, stages):
 @pytest.fixture
 def kit_url(tmp_path) -> str:
     path = tmp_path / "kit.toml"
-    path.write_text(KIT_SCENARIO)
+    path.write_text(kit_scenario())
     return f"sim://?scenario={path}"
+
+
+def test_without_a_magnet_the_field_methods_refuse_and_zero_is_allowed(stages):
+    from drivers.conformance import checks_field
+    from drivers.conformance.kit import Kit, NotApplicable
+
+    kit = Kit(kit_controller(stage=stages["motion"]))
+    assert "CapabilityMissing" in checks_field.undeclared(kit)
+    for check in (checks_field.limits, checks_field.make_safe, checks_field.abort_ramp):
+        with pytest.raises(NotApplicable):
+            check(kit)
 
 
 def test_cli_identity_level_json(kit_url, capsys):

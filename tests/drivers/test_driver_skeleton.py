@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 
 sys.path.insert(0, str(Path(__file__).parent))
-from kit_drivers import KIT_SCENARIO  # noqa: E402
+from kit_drivers import kit_scenario  # noqa: E402
 
 from assistant.cli import main  # noqa: E402
 from drivers import registry  # noqa: E402
@@ -28,7 +28,7 @@ FILLED_IN = f'''
 from drivers.simulated import SimulatedController
 from simulated_stage.scenario import Scenario
 
-SCENARIO = """{KIT_SCENARIO}"""
+SCENARIO = """{kit_scenario()}"""
 
 
 class MylabController(SimulatedController):
