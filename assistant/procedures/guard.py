@@ -127,9 +127,32 @@ def safety_guard(controller, *, sink: Sink = null_sink, save: Callable[[], None]
 
 def stop_now(controller) -> None:
     """Stop whatever the controller is doing and make the stage safe: ``abort()``, which does not queue behind a
-    command still running (on a link, a command the client gave up on may still run), else ``make_safe()``."""
+    command still running (on a link, a command the client gave up on may still run), else ``make_safe()``.
+
+    A further Ctrl-C while this runs does not cut it short (it would leave, say, the drive on after the withdraw):
+    in the main thread SIGINT is held for the duration; the stop is already what it asks for."""
     abort = getattr(controller, "abort", None)
-    (abort if callable(abort) else controller.make_safe)()
+    with _sigint_held():
+        (abort if callable(abort) else controller.make_safe)()
+
+
+@contextlib.contextmanager
+def _sigint_held() -> Iterator[None]:
+    import signal
+    import threading
+
+    if threading.current_thread() is not threading.main_thread():
+        yield  # signals are delivered to the main thread only
+        return
+    previous = signal.getsignal(signal.SIGINT)
+    if previous is None:  # installed outside Python: cannot be put back
+        yield
+        return
+    signal.signal(signal.SIGINT, lambda signum, frame: None)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, previous)
 
 
 def _has_magnet(controller) -> bool:

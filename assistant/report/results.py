@@ -39,6 +39,22 @@ def _index_of(heights: list, lift_nm: float) -> int | None:
     return None
 
 
+def _whole_std(d: dict, key: str) -> list | None:
+    """Standard error and model uncertainty of ``key`` in quadrature, element by element (the model part may be
+    missing: then the standard error alone)."""
+    sd, model = _list(d, key.replace("_deg", "_std_deg")), _list(d, key.replace("_deg", "_model_std_deg"))
+    if sd is None or model is None or len(sd) != len(model):
+        return sd
+
+    def both(a, b):
+        if isinstance(a, (list, tuple)):
+            return [both(x, y) for x, y in zip(a, b)]
+        x, y = _num(a), _num(b)
+        return None if x is None else math.hypot(x, y or 0.0)
+
+    return both(sd, model)
+
+
 def _short_range_share(d: dict, i: int) -> str | None:
     """|short-range mean| / magnetic rms at height ``i`` with its propagated uncertainty, as percent."""
     sr, mag = _list(d, "short_range_mean_deg"), _list(d, "magnetic_rms_deg")
@@ -47,7 +63,7 @@ def _short_range_share(d: dict, i: int) -> str | None:
     s, m = _num(sr[i]), _num(mag[i])
     if s is None or m is None or m <= 0:
         return None
-    sr_sd, mag_sd = _list(d, "short_range_mean_std_deg"), _list(d, "magnetic_rms_std_deg")
+    sr_sd, mag_sd = _whole_std(d, "short_range_mean_deg"), _list(d, "magnetic_rms_std_deg")
     ssd = _num(sr_sd[i]) if sr_sd and i < len(sr_sd) else None
     msd = _num(mag_sd[i]) if mag_sd and i < len(mag_sd) else None
     frac = abs(s) / m
@@ -60,6 +76,9 @@ def _short_range_share(d: dict, i: int) -> str | None:
 def _lift_text(d: dict) -> str:
     rec = _num(d.get("recommended_lift_nm"))
     heights = _list(d, "heights_nm") or []
+    if d.get("kind") == "imaging":  # one or two heights: no recommendation is claimed
+        return (f"not given: it needs at least 3 lift heights, this series has {len(heights)} "
+                "(the images and their noise are reported)")
     if rec is None:
         sentence = str(d.get("recommendation") or "")
         reason = sentence.split(":", 1)[1].split(".")[0].strip() if ":" in sentence else ""
@@ -92,6 +111,8 @@ def _lift_text(d: dict) -> str:
 
 def _bias_text(d: dict) -> str:
     cpd = _num(d.get("cpd_v"))
+    if cpd is None and d.get("cpd_sentence"):  # a bias grid whose image mean did not vary beyond noise
+        return "not determined: " + str(d["cpd_sentence"]).rstrip(". ")
     if cpd is None:
         return "not measured (needs a bias grid of three or more biases)"
     return f"{quantity(cpd, 'V', _num(d.get('cpd_std_v')))} (V_cpd: nulls the electrostatic part)"
@@ -108,6 +129,14 @@ def _warnings(d: dict) -> list[str]:
         out.append(str(d["separability"]))
     if d.get("edge_note"):
         out.append(str(d["edge_note"]))
+    assumed = d.get("assumed") or {}
+    if isinstance(assumed, str):  # stored as JSON text
+        import json
+
+        assumed = json.loads(assumed)
+    if assumed:
+        out.append("not stated in the data, assumed: " + ", ".join(
+            f"amplitude {quantity(v, 'nm')}" if k == "amplitude_nm" else f"gap offset {v}" for k, v in assumed.items()))
     nan = _num(d.get("nan_pixels"))
     if nan:
         out.append(f"{nan:.0f} pixels without data were left out")
@@ -153,11 +182,15 @@ def _cell(values, stds, i) -> str:
 
 
 def per_height_table(d: dict) -> tuple[list[str], list[list[str]], list[str]]:
-    """Headers, rows and footnotes of the per-height table (lift, magnetic rms, parts, residual, noise)."""
+    """Headers, rows and footnotes of the per-height table (lift, magnetic rms, the measured non-magnetic mean and
+    its parts, residual, noise). The parts carry their whole uncertainty (noise and model)."""
     heights = _list(d, "heights_nm") or []
     es = _list(d, "electrostatic_mean_deg")
     grid = bool(es) and isinstance(es[0], (list, tuple))
-    cols = [("magnetic rms (°)", "magnetic_rms_deg"), ("short-range mean (°)", "short_range_mean_deg")]
+    cols = [("magnetic rms (°)", "magnetic_rms_deg")]
+    if not grid and d.get("nonmagnetic_mean_deg") is not None:
+        cols.append(("non-magnetic mean (°)", "nonmagnetic_mean_deg"))
+    cols.append(("short-range mean (°)", "short_range_mean_deg"))
     if not grid:
         cols.append(("electrostatic mean (°)", "electrostatic_mean_deg"))
     headers = ["lift (nm)"] + [c for c, _ in cols] + ["residual rms (°)", "noise (°)"]
@@ -167,7 +200,7 @@ def per_height_table(d: dict) -> tuple[list[str], list[list[str]], list[str]]:
     for i, h in enumerate(heights):
         row = [number(h)]
         for _, key in cols:
-            row.append(_cell(_list(d, key), _list(d, key.replace("_deg", "_std_deg")), i))
+            row.append(_cell(_list(d, key), _whole_std(d, key), i))
         r = number(res[i], digits=2) if res and i < len(res) else DASH
         if at_noise and i < len(at_noise) and not bool(at_noise[i]):
             r += " *"

@@ -43,22 +43,30 @@ def recommendation_title(a: SeriesAnalysis) -> str:
     return f"Recommended: {lift}{bias}"
 
 
+def _whole(std, model_std):
+    """Noise and model uncertainty in quadrature (the model part may be missing)."""
+    return std if model_std is None else np.hypot(std, model_std)
+
+
 def mean_figure(a: SeriesAnalysis) -> Figure:
     """Image-mean phase (deg) against lift height (nm) with the fitted parts and 1-sigma bands, the recommended lift
     marked, and a panel of the misfit (measured minus fit) with the measured error bars at their own scale (on the
     main panel they are smaller than the markers)."""
-    fig = _new_figure((7.6, 7.2))
-    ax, ax_res, note = fig.subplots(3, 1, height_ratios=[4.0, 1.6, 1.0])
+    fig = _new_figure((7.6, 8.0))
+    ax, ax_res, note = fig.subplots(3, 1, height_ratios=[4.0, 1.6, 1.8])
     h = a.heights_nm
-    es, es_sd = a.electrostatic_mean_deg, a.electrostatic_mean_std_deg
-    sr, sr_sd = a.short_range_mean_deg, a.short_range_mean_std_deg
+    # the parts' bands: noise and model uncertainty together (the split depends on the tip)
+    es, es_sd = a.electrostatic_mean_deg, _whole(a.electrostatic_mean_std_deg, a.electrostatic_mean_model_std_deg)
+    sr, sr_sd = a.short_range_mean_deg, _whole(a.short_range_mean_std_deg, a.short_range_mean_model_std_deg)
     if es.ndim == 1:
-        ax.plot(h, es + sr, "-", color="0.2", lw=1.6, zorder=3, label="fit: electrostatic + short-range")
+        # the parts add up to the measured total; the tip models' own fit shows how well they describe it
+        fit = es + sr if a.mean_model_fit_deg is None else a.mean_model_fit_deg
+        ax.plot(h, fit, "-", color="0.2", lw=1.6, zorder=3, label="tip-model fit (averaged over tips)")
         ax.errorbar(h, a.mean_phase_deg, yerr=a.mean_phase_std_deg, fmt="o", mfc="none", color="k", ms=6,
                     capsize=3, zorder=4, label="measured image mean (±1σ)")
-        ax.plot(h, es, "-", color="tab:blue", label="electrostatic")
+        ax.plot(h, es, "-", color="tab:blue", label="electrostatic (±1σ with model)")
         ax.fill_between(h, es - es_sd, es + es_sd, color="tab:blue", alpha=0.25, linewidth=0)
-        ax_res.errorbar(h, a.mean_phase_deg - (es + sr), yerr=a.mean_phase_std_deg, fmt="o", mfc="none",
+        ax_res.errorbar(h, a.mean_phase_deg - fit, yerr=a.mean_phase_std_deg, fmt="o", mfc="none",
                         color="k", ms=4, capsize=3)
     else:
         colours = [f"C{i}" for i in range(es.shape[1])]
@@ -72,7 +80,7 @@ def mean_figure(a: SeriesAnalysis) -> Figure:
                             a.mean_phase_deg[:, b] - (es[:, b] + sr), yerr=a.mean_phase_std_deg[:, b], fmt="o",
                             mfc="none", ms=4, capsize=3, color=colours[b])
         ax.plot([], [], "-", color="0.3", label="fit: a(h) (V − V_cpd)² + short-range")
-    ax.plot(h, sr, "--", color="tab:red", label="short-range")
+    ax.plot(h, sr, "--", color="tab:red", label="short-range (±1σ with model)")
     ax.fill_between(h, sr - sr_sd, sr + sr_sd, color="tab:red", alpha=0.25, linewidth=0)
     ax.axhline(0.0, color="0.6", linewidth=0.8)
     ax_res.axhline(0.0, color="0.6", linewidth=0.8)
@@ -84,7 +92,7 @@ def mean_figure(a: SeriesAnalysis) -> Figure:
     if lift is not None:
         ax.plot([], [], ":", color="tab:green", lw=1.5, label=f"recommended lift {lift * 1e9:.4g} nm")
     ax.set_ylabel("image-mean phase (deg)\nnegative = attractive")
-    ax_res.set_ylabel("measured − fit (deg)")
+    ax_res.set_ylabel("measured − model (deg)")
     ax.legend(fontsize=8, loc="upper left", bbox_to_anchor=(1.01, 1.0), borderaxespad=0.0)  # beside, not on data
     text = a.recommendation.sentence + " " + a.separability_sentence
     note.set_axis_off()

@@ -289,13 +289,14 @@ def image_mean_shapes(heights_m, probe: ProbeModel) -> tuple[np.ndarray, np.ndar
 
     Raises ``ValueError`` where the closest approach of the oscillation would reach the surface.
     """
-    dc = centre_gap_m(heights_m, amplitude_m=probe.amplitude_m, gap_offset_m=probe.gap_offset_m)
+    amplitude = probe.amplitude_or_assumed_m
+    dc = centre_gap_m(heights_m, amplitude_m=amplitude, gap_offset_m=probe.gap_offset_m)
     electrostatic = amplitude_weighted(
         lambda z: 0.5 * tip_capacitance_second_derivative_f_per_m2(
             z, radius_m=probe.tip_radius_m, cone_half_angle_deg=probe.cone_half_angle_deg,
             cone_height_m=probe.cone_height_m),
-        dc, amplitude_m=probe.amplitude_m)
+        dc, amplitude_m=amplitude)
     short_range = amplitude_weighted(
         lambda z: vdw_sphere_gradient_n_per_m(z, hamaker_j=1.0, radius_m=probe.tip_radius_m), dc,
-        amplitude_m=probe.amplitude_m)
+        amplitude_m=amplitude)
     return electrostatic, short_range

@@ -130,10 +130,11 @@ class InteractionRegime:
 def _vdw_bound_deg(heights_m, probe: ProbeModel, hamaker_max_j: float) -> np.ndarray:
     """Magnitude of the phase van der Waals could give at ``hamaker_max_j`` (full sphere-plane form,
     Hamaker 1937; oscillation-averaged, Giessibl 2001) [deg], positive."""
-    dc = centre_gap_m(heights_m, amplitude_m=probe.amplitude_m, gap_offset_m=probe.gap_offset_m)
+    amplitude = probe.amplitude_or_assumed_m
+    dc = centre_gap_m(heights_m, amplitude_m=amplitude, gap_offset_m=probe.gap_offset_m)
     g = amplitude_weighted(lambda z: vdw_sphere_gradient_n_per_m(z, hamaker_j=hamaker_max_j,
                                                                  radius_m=probe.tip_radius_m),
-                           dc, amplitude_m=probe.amplitude_m)
+                           dc, amplitude_m=amplitude)
     return -phase_deg_from_gradient(g, spring_constant_n_per_m=probe.spring_constant_n_per_m,
                                     quality_factor=probe.quality_factor)
 

@@ -4,7 +4,10 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-__all__ = ["ProbeModel"]
+__all__ = ["ProbeModel", "ASSUMED_AMPLITUDE_M", "TIP_RADIUS_REL_STD"]
+
+ASSUMED_AMPLITUDE_M = 10e-9     # peak amplitude assumed where none is given (rule of thumb for MFM, no source)
+TIP_RADIUS_REL_STD = 1.0 / 3.0  # relative uncertainty of a nominal tip radius (rule of thumb, no source)
 
 
 @dataclass(frozen=True)
@@ -21,13 +24,19 @@ class ProbeModel:
     temperature_k : float
         Temperature [K] of the thermal noise limit.
     tip_radius_m, cone_half_angle_deg, cone_height_m : float
-        Tip geometry of the electrostatic shape (exact sphere + Hudlet cone; ``cone_half_angle_deg=None``:
-        no cone) and of the van der Waals sphere.
-    amplitude_m : float
-        Peak oscillation amplitude [m] (finite-amplitude weighting, Giessibl 2001).
+        Nominal tip geometry of the electrostatic shape (exact sphere + Hudlet cone; ``cone_half_angle_deg=None``:
+        no cone) and of the van der Waals sphere. The split of the image means is averaged over tips with a
+        cone and without and radii ``tip_radius_rel_std`` either side (:mod:`.mean_parts`).
+    tip_radius_rel_std : float
+        Relative uncertainty of ``tip_radius_m``.
+    amplitude_m : float, optional
+        Peak oscillation amplitude [m] (finite-amplitude weighting, Giessibl 2001). None: not known;
+        :data:`ASSUMED_AMPLITUDE_M` is assumed, the split of the image means is taken over half to twice it,
+        and the output says so.
     gap_offset_m : float, optional
-        Oscillation centre above the surface at zero lift [m]; None: ``amplitude_m`` (closest approach =
-        lift height). :func:`~.image_mean_models.first_pass_gap_offset_m` gives it from the setpoint.
+        Oscillation centre above the surface at zero lift [m]; None: not known; the amplitude (closest
+        approach = lift height) is assumed and offsets down to half the amplitude enter the split's
+        uncertainty. :func:`~.image_mean_models.first_pass_gap_offset_m` gives it from the setpoint.
     """
 
     spring_constant_n_per_m: float | None = None
@@ -38,5 +47,11 @@ class ProbeModel:
     tip_radius_m: float = 30e-9
     cone_half_angle_deg: float | None = 15.0
     cone_height_m: float = 10e-6
-    amplitude_m: float = 10e-9
+    amplitude_m: float | None = None
     gap_offset_m: float | None = None
+    tip_radius_rel_std: float = TIP_RADIUS_REL_STD
+
+    @property
+    def amplitude_or_assumed_m(self) -> float:
+        """The amplitude, or :data:`ASSUMED_AMPLITUDE_M` where it was not given."""
+        return ASSUMED_AMPLITUDE_M if self.amplitude_m is None else self.amplitude_m

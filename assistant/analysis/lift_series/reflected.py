@@ -29,8 +29,9 @@ from assistant.errors import InputError
 
 from .continuation import ContinuationFit
 from .frequencies import alias_axes_for, dct_alias_frequencies, pixel_pair_m
+from .standard_errors import interior_power_variance
 
-__all__ = ["fit_continuation_reflected"]
+__all__ = ["fit_continuation_reflected", "interior_cell_weights"]
 
 
 def _solve_cells(e, w, f, ridge, out=None):
@@ -80,6 +81,9 @@ def _interior_cell_weights(shape, band):
     return np.multiply.outer(*factors).ravel()
 
 
+interior_cell_weights = _interior_cell_weights
+
+
 def _moment_matrix(w, hat, cell_w, n, work=None):
     """``M`` with ``E[mean interior residual power of height h] = sum_j M_hj sigma_j^2``, white noise, any weights.
 
@@ -103,6 +107,14 @@ def _moment_matrix(w, hat, cell_w, n, work=None):
     return m / n
 
 
+def _leverage(w, hat, cell_w):
+    """Diagonal of the moment matrix's leverage term, ``sum_q cw L_hh`` per height (see :func:`_moment_matrix`)."""
+    cw = cell_w[1:]
+    if isinstance(hat, tuple):
+        return w * np.einsum("hq,q->h", hat[0][:, 1:], cw)
+    return np.einsum("hhq,q->h", hat[..., 1:], cw)
+
+
 def _noise_from_moments(m, r2):
     """Noise variance of every height from the interior residual powers ``r2`` and ``E r2 = M sigma^2``.
 
@@ -110,14 +122,19 @@ def _noise_from_moments(m, r2):
     (with alias fields on a simulated series of seven heights it alternated between heights at 2-4x the
     noise and heights at the floor). Instead: every height's noise as if all were alike, ``r2_h / sum_j M_hj``, then, where the
     height's own noise makes at least half of its expected residual, one step that takes the others' share
-    out, ``(r2_h - sum_{j != h} M_hj s_j^2) / M_hh``. The lowest height, whose residual is mostly the other
-    heights' noise continued down, keeps the first estimate.
+    out, ``(r2_h - sum_{j != h} M_hj s_j^2) / M_hh``, blended in smoothly as that share grows from 40 to 60 %.
+    The lowest height, whose residual is mostly the other heights' noise continued down, keeps the first
+    estimate.
     """
     alike = r2 / np.maximum(m.sum(axis=1), 1e-30)
     own = np.diag(m) * alike
     cross = m @ alike - own
-    refined = (r2 - cross) / np.maximum(np.diag(m), 1e-30)
-    return np.where((own >= 0.5 * (own + cross)) & (refined > 0), refined, alike)
+    refined = np.maximum((r2 - cross) / np.maximum(np.diag(m), 1e-30), 0.0)
+    # blended, not switched, by the share of the height's own noise (from 40 % to 60 %): a switch made the
+    # estimate jump with the noise draw
+    share = own / np.maximum(own + cross, 1e-300)
+    t = np.clip((share - 0.4) / 0.2, 0.0, 1.0)
+    return alike + t * (refined - alike)
 
 
 def _variances(w, sigma2, hat, g0, work=None):
@@ -134,7 +151,8 @@ def _variances(w, sigma2, hat, g0, work=None):
 def fit_continuation_reflected(stack: np.ndarray, *, heights_m, pixel_m, valid: np.ndarray | None = None,
                              interior_px: int = 0, alias_axes="auto", alias_ridge: float = 1e-4,
                              max_weight_ratio: float = 10.0, n_fill: int = 8,
-                             noise_std: np.ndarray | None = None) -> ContinuationFit:
+                             noise_std: np.ndarray | None = None, noise_known: bool = False,
+                             noise_dof=None, rms_std: bool = True, weight_std=None) -> ContinuationFit:
     """Joint Laplace continuation of an aligned stack in the cosine basis of its reflected scan.
 
     One closed-form pass per spatial frequency, and the noise of every height estimated from the interior
@@ -171,6 +189,20 @@ def fit_continuation_reflected(stack: np.ndarray, *, heights_m, pixel_m, valid: 
         Largest number of fill-and-refit rounds with masked pixels.
     noise_std : ndarray (H,), optional
         Noise of every height from an earlier fit, for the weights ``1 / noise_std^2``; default equal.
+    noise_known : bool
+        ``noise_std`` is the noise itself, measured independently of this fit (for example by
+        :func:`~assistant.analysis.lift_series.image_noise.band_noise_variance`): it is used for the statistics as well
+        and the moment estimate is skipped; masked pixels are then filled and refitted exactly ``n_fill``
+        times, so the result is a smooth function of the data.
+    noise_dof : float, optional
+        Degrees of freedom behind the noise variance, one estimate for all heights (``Cov(sigma_h^2, sigma_j^2)
+        = sigma_h^2 sigma_j^2 / noise_dof``): the uncertainty of the debiasing then enters ``magnetic_rms_std``.
+    weight_std : ndarray (H,), optional
+        With ``noise_known``: weigh the heights by ``1 / weight_std^2`` instead of ``1 / noise_std^2`` (for
+        example a noise estimate shrunk towards the series' common level); the statistics keep ``noise_std``.
+    rms_std : bool
+        Compute ``magnetic_rms_std`` (one more transform of the stack); NaN otherwise, for fits whose
+        statistics are not reported (the drift rounds before the last).
 
     Returns
     -------
@@ -228,13 +260,15 @@ def fit_continuation_reflected(stack: np.ndarray, *, heights_m, pixel_m, valid: 
         return _solve_cells(e, w.astype(np.float32), f, ridge, buffers)
 
     f = transform(work)
+    if noise_known and noise_std is None:
+        raise InputError("noise_known needs noise_std")
     if noise_std is None:
         w = np.ones(nh)
     else:
         s2 = np.asarray(noise_std, dtype=float) ** 2
         if s2.shape != (nh,) or not np.all(s2 > 0):
             raise InputError(f"noise_std must be {nh} values > 0, got {noise_std!r}")
-        w = 1.0 / s2
+        w = 1.0 / s2 if weight_std is None else 1.0 / np.asarray(weight_std, dtype=float) ** 2
     rounds = 1 if complete else max(int(n_fill), 1)
     sigma2 = np.ones(nh)
     for round_ in range(rounds):
@@ -248,12 +282,15 @@ def fit_continuation_reflected(stack: np.ndarray, *, heights_m, pixel_m, valid: 
         rs = resid[:, b:rows - b, b:cols - b] if complete else np.where(stats, resid, 0.0)
         r2 = np.einsum("hij,hij->h", rs, rs) / n_stats
         m = _moment_matrix(w, hat, cell_w, n, spare)
-        sol = _noise_from_moments(m, r2)
-        # floor: a misfit can drive one height's moment estimate to zero or below
-        pos = sol[sol > 0]
-        floor = np.median(pos) / max_weight_ratio if pos.size else 1e-12 * max(float(r2.max()), 1e-300)
-        new = np.maximum(sol, floor)
-        settled = round_ > 0 and bool(np.all(np.abs(new - sigma2) <= 1e-2 * new))
+        if noise_known:
+            new, settled = s2, False
+        else:
+            sol = _noise_from_moments(m, r2)
+            # floor: a misfit can drive one height's moment estimate to zero or below
+            pos = sol[sol > 0]
+            floor = np.median(pos) / max_weight_ratio if pos.size else 1e-12 * max(float(r2.max()), 1e-300)
+            new = np.maximum(sol, floor)
+            settled = round_ > 0 and bool(np.all(np.abs(new - sigma2) <= 1e-2 * new))
         sigma2 = new
         if settled or round_ == rounds - 1:
             break
@@ -268,20 +305,20 @@ def fit_continuation_reflected(stack: np.ndarray, *, heights_m, pixel_m, valid: 
     expected = np.sqrt(np.clip(m @ sigma2, 0.0, None))
 
     # noise-debiased power of the fitted map: each model cell ~ N(mu, v)
+    jac = _moment_matrix(w, hat, cell_w, n, spare)  # off the diagonal: d(noise power of h) / d sigma_j^2
+    jac[np.diag_indices(nh)] -= (float(cell_w[1:].sum()) - 2.0 * _leverage(w, hat, cell_w)) / n
     v, var_amp = _variances(w, sigma2, hat, g0, spare)
     v[:, 0] = 0.0  # the DC cell is not fitted
-    p2 = np.square(pred, out=buffers[1] if buffers else None)  # pred is no longer needed
     # over the interior, like the residual: the noise part from the cells (its covariance is diagonal
     # there), the map's own power from the map
     noise_power = np.einsum("hq,q->h", v, cell_w) / n
     core = model[:, b:rows - b, b:cols - b]
     power = np.var(core, axis=(1, 2)) - noise_power
-    p2 -= v
-    c = np.maximum(p2, 0.0, out=p2)  # noise-debiased power per cell
-    c *= 2.0
-    c += v
-    c *= v  # v (2 c + v): the variance of each cell's power
-    var_power = 2.0 * np.einsum("hq,q->h", c, cell_w * cell_w) / n**2
+    # first-order variance over the interior (standard_errors); with a measured noise, its own uncertainty too
+    # one noise level for the series: the estimates of all heights move together
+    var_noise = None if noise_dof is None else np.outer(sigma2, sigma2) / np.asarray(noise_dof, float)
+    var_power = (interior_power_variance(model, v, cell_w, b, noise_power_jacobian=jac, noise_variance_var=var_noise)
+                 if rms_std else np.full(nh, np.nan))
     rms = np.sqrt(np.clip(power, 0.0, None))
     rms_std = np.where(rms > 0, np.sqrt(var_power) / (2.0 * np.where(rms > 0, rms, 1.0)), var_power**0.25)
     return ContinuationFit(amplitude=amp[0].reshape(rows, cols), model=model, residual=resid,

@@ -72,30 +72,42 @@ def _gauss_newton_steps(aligned, valid, model, height_index, band):
     """One Gauss-Newton step of every image's drift from the interior residual against the model [px].
 
     With the drift off by e, the aligned image is ``ref(x - e) ~ model - e . grad(model)``, so
-    ``e = -(J^T J)^-1 J^T r`` with ``J = grad(model)`` and ``r`` the residual about its mean.
+    ``e = -(J^T J)^-1 J^T r`` with ``J = grad(model)`` and ``r`` the residual about its mean (both over the
+    image's valid interior pixels). All images at once, with ``einsum`` (the BLAS dot products of a loop over
+    images spun the thread pool and took half the analysis on two loaded cores).
     """
     n, rows, cols = aligned.shape
-    core = (slice(band, rows - band), slice(band, cols - band))
-    grads = [np.gradient(m) for m in model]  # per height: (d/drow, d/dcol), central differences
+    core = (slice(None), slice(band, rows - band), slice(band, cols - band))
+    hi = np.asarray(height_index, int)
+    gy, gx = np.gradient(np.asarray(model), axis=(1, 2))  # central differences, per height
+    gy, gx = gy[core][hi], gx[core][hi]
+    r = aligned[core] - np.asarray(model)[core][hi]
+    w = np.asarray(valid, bool)[core].astype(r.dtype)
+    cnt = np.einsum("jab->j", w)
+    ok = cnt >= 16
+    cnt = np.maximum(cnt, 1.0)
+
+    def centred_dot(a, b):
+        # sum over valid pixels of (a - mean a)(b - mean b)
+        return (np.einsum("jab,jab,jab->j", w, a, b, dtype=np.float64)
+                - np.einsum("jab,jab->j", w, a, dtype=np.float64) * np.einsum("jab,jab->j", w, b, dtype=np.float64)
+                / cnt)
+
+    a11, a12, a22 = centred_dot(gy, gy), centred_dot(gy, gx), centred_dot(gx, gx)
+    b1, b2 = -centred_dot(gy, r), -centred_dot(gx, r)
+    det = a11 * a22 - a12**2
+    good = ok & (det > 1e-12 * np.maximum(a11 * a22, 1e-300))
+    det = np.where(good, det, 1.0)
     steps = np.zeros((n, 2))
-    for i in range(n):  # loop over images; each is vectorised
-        m = valid[i][core]
-        if m.sum() < 16:
-            continue
-        gy, gx = (g[core][m] for g in grads[height_index[i]])
-        r = (aligned[i][core] - model[height_index[i]][core])[m]
-        r = r - r.mean()
-        gy, gx = gy - gy.mean(), gx - gx.mean()
-        a = np.array([[gy @ gy, gy @ gx], [gy @ gx, gx @ gx]])
-        rhs = -np.array([gy @ r, gx @ r])
-        if np.linalg.det(a) > 1e-12 * max(a[0, 0] * a[1, 1], 1e-300):
-            steps[i] = np.clip(np.linalg.solve(a, rhs), -0.5, 0.5)
-    return steps
+    steps[:, 0] = np.where(good, (a22 * b1 - a12 * b2) / det, 0.0)
+    steps[:, 1] = np.where(good, (a11 * b2 - a12 * b1) / det, 0.0)
+    return np.clip(steps, -0.5, 0.5)
 
 
 def fit_with_drift_reflected(images: np.ndarray, valid: np.ndarray, drift_px: np.ndarray, *, heights_m, pixel_m,
-                           nb: int = 1, interior_px: int = 0, refine: bool = True, max_rounds: int = 8,
-                           tol_px: float = 0.005) -> tuple[ContinuationFit, np.ndarray, np.ndarray, np.ndarray]:
+                             nb: int = 1, interior_px: int = 0, refine: bool = True, max_rounds: int = 8,
+                             tol_px: float = 0.005, noise_std: np.ndarray | None = None, noise_dof=None,
+                             weight_std=None) -> tuple[ContinuationFit, np.ndarray, np.ndarray, np.ndarray]:
     """Align, fit the reflected-edge continuation, and refine the drift until it settles.
 
     The first fit weighs the heights equally, every later one by the noise the fit before it found (see
@@ -122,6 +134,15 @@ def fit_with_drift_reflected(images: np.ndarray, valid: np.ndarray, drift_px: np
         Largest number of drift steps (each followed by a fit).
     tol_px : float
         Stop once no image's step exceeds this [px].
+    noise_std : ndarray (H,), optional
+        Noise of every height's (bias-averaged) image, measured independently of the fit: every fit is weighted
+        by it and uses it for its statistics (``noise_known``), so the weights do not change from round to
+        round and the result does not depend on how many rounds ran once the drift has settled.
+    noise_dof : float or ndarray (H,), optional
+        Degrees of freedom of that noise estimate (see
+        :func:`~.reflected.fit_continuation_reflected`).
+    weight_std : ndarray (H,), optional
+        With ``noise_std``: the noise the heights are weighted by, if not that one.
 
     Returns
     -------
@@ -133,21 +154,29 @@ def fit_with_drift_reflected(images: np.ndarray, valid: np.ndarray, drift_px: np
     drift = np.array(drift_px, dtype=float, copy=True)
     drift[0] = 0.0
 
-    def align_and_fit(noise=None):
+    known = noise_std is not None
+
+    def align_and_fit(noise=None, final=True):
         aligned, ok = reflect_align(images, valid, drift)
         hstack, hvalid = average_biases(aligned, ok, nh, nb)
         fit = fit_continuation_reflected(hstack, heights_m=heights_m, pixel_m=pixel_m, valid=hvalid,
-                                       interior_px=interior_px, noise_std=noise)
+                                         interior_px=interior_px, noise_std=noise_std if known else noise,
+                                         noise_known=known, noise_dof=noise_dof if known else None,
+                                         rms_std=final, weight_std=weight_std if known else None)
         return fit, aligned, ok
 
-    # the first fit weighs the heights equally, every later one by the noise the one before found
-    fit, aligned, ok = align_and_fit()
-    for _ in range(max(int(max_rounds), 1) if refine and nimg > 1 else 0):
+    # without a measured noise: the first fit weighs the heights equally, every later one by the noise the one
+    # before found
+    rounds = max(int(max_rounds), 1) if refine and nimg > 1 else 0
+    fit, aligned, ok = align_and_fit(final=not (known and rounds))
+    for round_ in range(rounds):
         steps = _gauss_newton_steps(aligned, ok, fit.model, hi, interior_px)
         steps -= steps[0]  # the model follows the majority of images; the first image keeps the frame
         drift += steps
-        fit, aligned, ok = align_and_fit(fit.noise_std)
-        if np.abs(steps).max() < tol_px:
+        last = bool(np.abs(steps).max() < tol_px) or round_ == rounds - 1
+        fit, aligned, ok = align_and_fit(fit.noise_std, final=last or not known)
+        if last:
             break
-    fit, aligned, ok = align_and_fit(fit.noise_std)
+    if not known:
+        fit, aligned, ok = align_and_fit(fit.noise_std)
     return fit, drift, aligned, ok

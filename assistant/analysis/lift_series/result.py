@@ -27,7 +27,12 @@ class SeriesAnalysis:
     the denoised magnetic image at each height with the fit noise subtracted in quadrature;
     ``magnetic_deg`` are those images (H, rows, cols) in the first height's frame. ``electrostatic_mean_deg``
     is (H,) or, with a bias grid, (H, B); ``short_range_mean_deg`` (H,) is the bias-independent remainder.
-    ``*_std_*`` are standard errors (covariances scaled by the reduced chi-square when above one);
+    ``*_std_*`` are standard errors: what the noise alone makes the estimate scatter by over repeats with fresh
+    noise (first-order propagation, checked by Monte Carlo; see ``error_method``); ``*_model_std_*`` the model
+    uncertainty of the image-mean parts (the magnetic window mean, the Birge excess, the spread over tip
+    models; :mod:`.mean_parts`), to be combined with the standard error in quadrature.
+    ``nonmagnetic_mean_deg`` is the measured image mean, of which the electrostatic and short-range parts
+    are the split (heights only: they add up to it; ``mean_model_fit_deg`` is the tip models' own fit).
     ``part_correlation`` is the correlation of the two mean parts at each height. ``noise_deg`` is the
     per-pixel noise of each height's (bias-averaged) image from the fit, ``reference_noise_deg`` an
     independent estimate for one image (repeat pass, else the highest frequencies of the top height).
@@ -73,7 +78,25 @@ class SeriesAnalysis:
     nan_pixels: int
     signal_space: str                   # "gradient" (k and Q given) or "phase"
     fitted_parameters: dict
-    edge_note: str = ""                 # why the estimator differs from the default's first choice
+    edge_note: str = ""                 # what the geometry means for the estimator (small scans)
+    drift_std_px: np.ndarray | None = None          # standard error of drift_px, same shape
+    drift_mean_std_px: np.ndarray | None = None     # (H, 2): of the drift averaged over biases
+    nonmagnetic_mean_deg: np.ndarray | None = None  # measured, (H,) or (H, B)
+    nonmagnetic_mean_std_deg: np.ndarray | None = None
+    nonmagnetic_mean_model_std_deg: np.ndarray | None = None  # the magnetic window mean left in it
+    electrostatic_mean_model_std_deg: np.ndarray | None = None
+    short_range_mean_model_std_deg: np.ndarray | None = None
+    mean_model_fit_deg: np.ndarray | None = None    # (H,) the tip models' averaged fit of the total
+    mean_model_reduced_chi2: float | None = None
+    mean_model_birge_ratio: float | None = None
+    cpd_model_std_v: float | None = None
+    tip_models: dict = dataclasses.field(default_factory=dict)  # one array per field over the tip models (cone
+    #                                                             NaN = none); empty with a bias grid
+    assumed: dict = dataclasses.field(default_factory=dict)     # values not in the data that were assumed
+    split_vs_amplitude: dict = dataclasses.field(default_factory=dict)  # the split at the smallest and largest
+    #                                                                     amplitude considered, where assumed
+    alias_axes: tuple = ()              # axes with alias fields, decided from the pixel spacing and lowest height
+    error_method: str = ""              # how the standard errors were obtained and checked
     interaction: InteractionRegime | None = None  # tip-sample interaction regime (set by analyse_series)
 
     @property
@@ -111,6 +134,22 @@ class SeriesAnalysis:
             "drift_px": lst(drift),
             "cpd_v": self.cpd_v,
             "cpd_std_v": self.cpd_std_v,
+            "cpd_model_std_v": self.cpd_model_std_v,
+            "drift_std_px": _maybe(self.drift_mean_std_px),
+            "nonmagnetic_mean_deg": _maybe(self.nonmagnetic_mean_deg),
+            "nonmagnetic_mean_std_deg": _maybe(self.nonmagnetic_mean_std_deg),
+            "nonmagnetic_mean_model_std_deg": _maybe(self.nonmagnetic_mean_model_std_deg),
+            "electrostatic_mean_model_std_deg": _maybe(self.electrostatic_mean_model_std_deg),
+            "short_range_mean_model_std_deg": _maybe(self.short_range_mean_model_std_deg),
+            "mean_model_fit_deg": _maybe(self.mean_model_fit_deg),
+            "mean_model_reduced_chi2": self.mean_model_reduced_chi2,
+            "mean_model_birge_ratio": self.mean_model_birge_ratio,
+            "tip_models": _rows(self.tip_models),
+            "assumed": dict(self.assumed or {}),
+            "split_vs_amplitude": {k: np.asarray(v).tolist() for k, v in self.split_vs_amplitude.items()}
+            if self.split_vs_amplitude else None,
+            "alias_axes": [int(x) for x in self.alias_axes],
+            "error_method": self.error_method,
             "recommended_lift_nm": None if rec.lift_height_m is None else round(rec.lift_height_m * 1e9, 9),
             "recommended_bias_v": rec.bias_v,
             "recommendation": rec.sentence,
@@ -136,6 +175,8 @@ class SeriesAnalysis:
         }
         if self.drift_px.ndim == 3:
             out["drift_px_per_bias"] = lst(self.drift_px)
+            if self.drift_std_px is not None:
+                out["drift_std_px_per_bias"] = lst(self.drift_std_px)
         if self.interaction is not None:
             out.update(self.interaction.to_dict())
         return out
@@ -152,6 +193,24 @@ class SeriesAnalysis:
     def from_record(cls, scalars: dict, arrays: dict) -> "SeriesAnalysis":
         """The result :meth:`to_record` described."""
         return _build(cls, "", scalars, arrays)
+
+
+def _maybe(a):
+    return None if a is None else np.asarray(a, float).tolist()
+
+
+def _rows(columns: dict | None) -> list[dict]:
+    """The tip models as one dict per model, from one array per field (NaN cone angle: no cone)."""
+    if not columns:
+        return []
+    keys = list(columns)
+    out = []
+    for i in range(len(np.atleast_1d(columns[keys[0]]))):
+        row = {k: float(np.atleast_1d(columns[k])[i]) for k in keys}
+        if "cone_half_angle_deg" in row and not np.isfinite(row["cone_half_angle_deg"]):
+            row["cone_half_angle_deg"] = None
+        out.append(row)
+    return out
 
 
 def _flatten(obj, prefix: str, scalars: dict, arrays: dict) -> None:

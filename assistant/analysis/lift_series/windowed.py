@@ -38,7 +38,8 @@ def fit_continuation_windowed(images: np.ndarray, *, heights_m, pixel_m, height_
                               valid: np.ndarray | None = None, pad_px=None, ridge: float = 1e-4,
                               tol: float = 1e-4, max_iter: int = 200, n_reweight: int = 10,
                               max_weight_ratio: float = 10.0, refine_drift: bool = True,
-                              alias_axes="auto", alias_ridge: float = 1e-3) -> ContinuationFit:
+                              alias_axes="auto", alias_ridge: float = 1e-3, noise_std=None,
+                              drift_tol_px: float = 1e-3) -> ContinuationFit:
     """Laplace continuation of a scan that is a window onto a larger field (no periodicity assumed).
 
     The unknown is the magnetic image ``U`` at the first height on a grid padded by ``pad_px`` on every
@@ -95,6 +96,11 @@ def fit_continuation_windowed(images: np.ndarray, *, heights_m, pixel_m, height_
         Axes (0 = rows, 1 = columns) with alias fields.
     alias_ridge : float
         Penalty on the alias fields relative to the mean image weight.
+    noise_std : array_like (H,), optional
+        Noise of one image at every height, measured independently of the fit: the weights stay
+        ``1 / noise_std^2`` and the rounds only refine the drift, until no step exceeds ``drift_tol_px``.
+    drift_tol_px : float
+        Drift steps [px] below which the rounds stop.
 
     Returns
     -------
@@ -171,7 +177,8 @@ def fit_continuation_windowed(images: np.ndarray, *, heights_m, pixel_m, height_
         spec = sp_fft.fft(sp_fft.rfft(r_w, n=big_c, axis=-1), n=big_r, axis=-2, overwrite_x=True)
         return sp_fft.irfft2(np.einsum("kjab,jab->kab", gc, spec), s=shape, axes=(-2, -1))
 
-    sigma2 = np.ones(nh)
+    known = noise_std is not None
+    sigma2 = np.asarray(noise_std, dtype=float) ** 2 if known else np.ones(nh)
     x = np.zeros((nk,) + shape)
     total_iter = 0
     q_win, _, cw = rfft_wavenumbers((rows, cols), (pr, pc))
@@ -225,12 +232,15 @@ def fit_continuation_windowed(images: np.ndarray, *, heights_m, pixel_m, height_
         w_h = per_h / sigma2
         _, lev, _ = _window_statistics(e_win, cwv, w_h, n, [0.0] + [alias_ridge * float(w_h.mean())] * (nk - 1))
         lev_img = lev / np.maximum(per_h, 1.0)  # leverage of one image of the height
-        new = r2 / np.clip(1.0 - lev_img, 1e-3, None)
-        floor = np.median(new[new > 0]) / max_weight_ratio if np.any(new > 0) else 1e-300
-        new = np.maximum(new, floor)
-        settled = bool(np.all(np.abs(new - sigma2) <= 1e-2 * new))
-        sigma2 = new
-        if settled and round_ > 0 and last_step < 1e-3:
+        if known:
+            settled = True
+        else:
+            new = r2 / np.clip(1.0 - lev_img, 1e-3, None)
+            floor = np.median(new[new > 0]) / max_weight_ratio if np.any(new > 0) else 1e-300
+            new = np.maximum(new, floor)
+            settled = bool(np.all(np.abs(new - sigma2) <= 1e-2 * new))
+            sigma2 = new
+        if settled and round_ > 0 and last_step < drift_tol_px:
             break
         step = np.zeros((nj, 2))
         if refine_drift and nj > 1 and round_ < n_rounds - 1:

@@ -8,8 +8,9 @@ differences, scipy.integrate.quad), not with the project's analysis or simulator
   Wallace 1951, Bell Syst. Tech. J. 30, 1145; from memory) and a point-dipole tip (Hartmann 1999,
   Annu. Rev. Mater. Sci. 29, 53) sitting ``delta`` behind the apex feels ``F' = mu0 m q^2 H_z``;
 * electrostatic: the exact sphere-plane capacitance series (Smythe 1968, Static and Dynamic Electricity),
-  ``C''`` by a five-point finite difference, optionally the cone term of Hudlet et al. 1998
-  (Eur. Phys. J. B 2, 5), also differentiated numerically; ``F' = 1/2 C'' (V - V_cpd)^2``;
+  ``C''`` by a five-point finite difference, or (``apex="hudlet"``) the apex term of Hudlet et al. 1998
+  (Eur. Phys. J. B 2, 5), optionally with their cone term, both differentiated numerically;
+  ``F' = 1/2 C'' (V - V_cpd)^2``;
 * short range: the full non-retarded Hamaker sphere-plane force (Hamaker 1937, Physica 4, 1058),
   differentiated numerically;
 * finite amplitude: the Giessibl 2001 (Appl. Phys. Lett. 78, 123) weighting by quadrature for the mean parts
@@ -60,6 +61,13 @@ def cone_capacitance_gradient(z, radius, half_angle_deg, height):
     force = -np.pi * EPS0 / np.log(np.tan(t / 2)) ** 2 * (
         np.log(height / u) - 1 + radius * np.cos(t) ** 2 / np.sin(t) / u)
     return 2.0 * force
+
+
+def hudlet_apex_capacitance_gradient(z, radius, half_angle_deg):
+    """dC/dz of the Hudlet et al. 1998 apex term, F_apex = -pi eps0 V^2 R^2 (1 - sin t) / (z (z + R (1 - sin t)))
+    = 1/2 dC/dz V^2 with V = 1 [F/m] (formula from memory)."""
+    a = radius * (1.0 - np.sin(np.radians(half_angle_deg)))
+    return 2.0 * (-np.pi * EPS0 * radius * a / (z * (z + a)))
 
 
 def vdw_force(z, hamaker, radius):
@@ -117,9 +125,11 @@ def build_series(*, rows=128, cols=128, pixel_m=10e-9, heights_m=(20e-9, 30e-9, 
                  applied_bias_v=0.0, cpd_v=0.35, hamaker_j=1e-19, tip_radius_m=30e-9, cone_half_angle_deg=15.0,
                  cone_height_m=10e-6, amplitude_m=10e-9, gap_offset_m=None, spring_constant_n_per_m=2.8,
                  quality_factor=200.0, resonance_hz=75e3, repeat=False, flip_disk=None, nan_fraction=0.0,
-                 margin_px=0, seed=0):
+                 margin_px=0, apex="sphere", seed=0):
     """Build a synthetic series; ``drift_px`` (H, 2) or (H, B, 2) in the analysis convention.
 
+    ``apex``: "sphere" (exact image series) or "hudlet" (the Hudlet et al. apex term, with their cone when
+    ``cone_half_angle_deg`` is given; its half angle also enters the apex term, 0 without a cone).
     ``margin_px`` > 0 makes the scan a non-periodic window: the film, its field and the drift are computed
     on a periodic grid ``margin_px`` larger on every side and only the central ``rows x cols`` are kept
     (a real scan is a crop of an unbounded field). Every returned map and truth refers to that window.
@@ -160,6 +170,9 @@ def build_series(*, rows=128, cols=128, pixel_m=10e-9, heights_m=(20e-9, 30e-9, 
     g_mag = magnetic_gradient(mz)
     # mean parts
     def c2(z):
+        if apex == "hudlet":
+            angle = 0.0 if cone_half_angle_deg is None else cone_half_angle_deg
+            return first_derivative(lambda zz: hudlet_apex_capacitance_gradient(zz, tip_radius_m, angle), z)
         return second_derivative(lambda zz: sphere_capacitance(zz, tip_radius_m), z)
 
     def c2_total(z):
@@ -222,7 +235,7 @@ def build_series(*, rows=128, cols=128, pixel_m=10e-9, heights_m=(20e-9, 30e-9, 
             repeat_img, changed, clean_change = (a[win] for a in (repeat_img, changed, clean_change))
     mag_phase = to_phase(g_mag)
     kwargs = dict(spring_constant_n_per_m=k, quality_factor=q_f, resonance_hz=resonance_hz, tip_radius_m=tip_radius_m,
-                  amplitude_m=amplitude_m, gap_offset_m=gap_offset_m, cone_half_angle_deg=cone_half_angle_deg,
+                  amplitude_m=amplitude_m, gap_offset_m=gap_off, cone_half_angle_deg=cone_half_angle_deg,
                   cone_height_m=cone_height_m)
     phase = images if bias_v is not None else images[:, 0]
     es_deg = to_phase(g_es) if bias_v is not None else to_phase(g_es[:, 0])
