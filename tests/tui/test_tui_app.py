@@ -168,6 +168,7 @@ async def test_calibration_shows_its_result_and_is_accepted(tmp_path):
         assert "probe lever-T1" in screen_text(app)
 
 
+@pytest.mark.alone  # it times the UI thread: a parallel worker's test would take the CPU it measures
 @run_async
 async def test_short_series_fills_previews_and_matches_the_session_file(tmp_path):
     from assistant.storage.session_file import SessionFile
