@@ -155,7 +155,8 @@ CHANNELS = ("deflection_v", "sum_v", "amplitude_v", "phase_deg", "z_m", "frequen
 
 
 class Controller(abc.ABC):
-    """Abstract microscope controller. Synchronous; one caller at a time.
+    """Abstract microscope controller. Synchronous; one caller at a time, except :meth:`abort`, which any
+    thread may call at any moment.
 
     Subclasses set ``info``, ``capabilities`` and ``limits`` and implement the abstract methods. Optional
     methods raise :class:`drivers.errors.CapabilityMissing` unless the matching capability is declared.
@@ -277,23 +278,43 @@ class Controller(abc.ABC):
         Nominal means the maker's number, never a calibration."""
         return None
 
-    # ---- helpers --------------------------------------------------------------------------------------
+    # ---- safety ---------------------------------------------------------------------------------------
+    def abort(self) -> None:
+        """Stop whatever runs now and make the stage safe; return once it is safe.
+
+        The one method that may be called from another thread while a call is in flight (the withdraw key of
+        a user interface, Ctrl-C, a server's watchdog). The interrupted call raises
+        :class:`drivers.errors.Aborted`. Afterwards the tip is withdrawn, the drive off, the bias 0 V and any
+        applied field 0 (the steps of :meth:`make_safe`, each attempted even if one fails). Idempotent: on a
+        stage that is already safe and idle it returns at once. It must not wait for a long call (a scan line,
+        a sweep, a record) to finish: drivers whose calls take long override this so that it interrupts them
+        (``mfma drivers check`` times it). This default only makes the stage safe, which is enough for a
+        driver whose every call is short.
+        """
+        self.make_safe()
+
+    def zero_applied_field(self) -> None:
+        """Bring an applied (electromagnet) field to zero. Part of :meth:`make_safe` and :meth:`abort`.
+
+        With :attr:`Capability.APPLIED_FIELD`, ``set_field(0.0)`` (the magnet's ramp and settle); nothing to do
+        for a controller without a magnet.
+        """
+        if Capability.APPLIED_FIELD in getattr(self, "capabilities", ()):
+            self.set_field(0.0)
+
     def make_safe(self) -> None:
         """Withdraw, drive off, bias zero and, with a magnet, field zero: each attempted even if an earlier one
         fails."""
         errors: list[BaseException] = []
-
-        def field_to_zero() -> None:
-            if Capability.APPLIED_FIELD in getattr(self, "capabilities", ()):
-                self.set_field(0.0)
-
-        for action in (self.withdraw, self.drive_off, lambda: self.set_bias(0.0), field_to_zero):
+        for action in safe_steps(self):
             try:
                 action()
             except Exception as exc:  # keep going: every step that can succeed must
                 errors.append(exc)
         if errors:
             raise errors[0]
+
+    # ---- helpers --------------------------------------------------------------------------------------
 
     def has(self, capability: Capability) -> bool:
         return capability in self.capabilities
@@ -308,3 +329,12 @@ class Controller(abc.ABC):
 
     def __exit__(self, *exc: object) -> None:
         self.close()
+
+
+def safe_steps(controller: object) -> list:
+    """The actions that leave a stage safe, in order: withdraw, drive off, bias 0 V, applied field 0."""
+    steps = [controller.withdraw, controller.drive_off, lambda: controller.set_bias(0.0)]  # type: ignore[attr-defined]
+    zero_field = getattr(controller, "zero_applied_field", None)
+    if callable(zero_field):
+        steps.append(zero_field)
+    return steps

@@ -47,6 +47,17 @@ class ControllerFault(ControllerError, RuntimeError):
         super().__init__(f"controller fault {code}: {message}")
 
 
+class Aborted(ControllerError, RuntimeError):
+    """The call was stopped by :meth:`drivers.base.Controller.abort` (from another thread, a link's abort
+    request or a server's watchdog); the stage was then made safe.
+
+    A RuntimeError on purpose: not an ``InterruptedError`` (an OSError meaning EINTR, which I/O code retries or
+    ignores), not a ``TimeoutError``/``ConnectionError`` (links retry those), not a ``ValueError`` (bad input),
+    and not a ``BaseException`` such as KeyboardInterrupt (servers and workers must report it like any failed
+    call and keep serving). It is not a :class:`ControllerFault` either: the instrument reported nothing wrong.
+    """
+
+
 class LaserLost(ControllerFault):
     """The photodetector sum signal dropped below its limit: the laser no longer reaches the detector."""
 

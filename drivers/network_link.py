@@ -8,11 +8,16 @@ A REQ socket with a deadline on every request: a REQ socket whose reply never ca
 timeout it is closed with linger 0 and a new one connects. Requests carry a session token and a counter;
 a retry reuses the id and the server answers it from memory, so a retried motion runs once. A socket
 monitor turns a vanished server or a refused CURVE handshake into :class:`LinkLost` at once.
+
+``abort()`` may come from another thread while a command is in flight: it sends ``ABORt`` from a socket of its
+own, and the server answers it ahead of the running command once the stage is safe.
 """
 
 from __future__ import annotations
 
+import itertools
 import secrets
+import threading
 import time
 from urllib.parse import urlsplit
 
@@ -23,7 +28,7 @@ from drivers import keys
 from drivers.errors import BadURL, LinkLost, LinkTimeout, ProtocolError
 from drivers.serial_link import LinkController, _no_extra, _options
 from drivers.wire import messages
-from drivers.wire.commands import Command
+from drivers.wire.commands import Command, command
 from drivers.wire.error_map import exception_for
 
 _FAILED = {getattr(zmq, n) for n in ("EVENT_HANDSHAKE_FAILED_NO_DETAIL", "EVENT_HANDSHAKE_FAILED_PROTOCOL",
@@ -56,6 +61,8 @@ class NetworkController(LinkController):
         self._monitor: zmq.Socket | None = None
         self._session = secrets.token_hex(8)
         self._next_id = 0
+        self._abort_ids = itertools.count(1)
+        self._io = threading.Lock()  # one request on the main socket at a time, whichever thread asks
         try:
             self._identify()
         except Exception:
@@ -79,13 +86,17 @@ class NetworkController(LinkController):
                    retries=int(opts.get("retries", 2)))
 
     # ---- sockets -------------------------------------------------------------------------------------
-    def _connect(self) -> zmq.Socket:
+    def _req_socket(self) -> zmq.Socket:
         sock = self._ctx.socket(zmq.REQ)
         sock.setsockopt(zmq.LINGER, 0)
         if self.endpoint.startswith("tcp://["):
             sock.setsockopt(zmq.IPV6, 1)
         if self._curve is not None:
             sock.curve_serverkey, sock.curve_publickey, sock.curve_secretkey = self._curve
+        return sock
+
+    def _connect(self) -> zmq.Socket:
+        sock = self._req_socket()
         self._monitor = sock.get_monitor_socket(zmq.EVENT_DISCONNECTED | _mask(_FAILED))
         sock.connect(self.endpoint)
         self._sock = sock
@@ -108,6 +119,10 @@ class NetworkController(LinkController):
         self._ctx.term()
 
     def _transact(self, cmd: Command, args: tuple, timeout_s: float) -> tuple:
+        with self._io:
+            return self._exchange(cmd, args, timeout_s)
+
+    def _exchange(self, cmd: Command, args: tuple, timeout_s: float) -> tuple:
         self._next_id += 1
         frames = messages.encode_request(messages.Request(self._session, self._next_id, cmd, args))
         attempts = 1 + (self.retries if cmd.safe_to_repeat else 0)
@@ -118,7 +133,11 @@ class NetworkController(LinkController):
                 sock.send_multipart(frames, flags=zmq.NOBLOCK)
             except zmq.Again:
                 pass  # not connected yet: REQ queues nothing, the poll below times out like a lost request
-            reply, lost = self._wait(sock, timeout_s)
+            try:
+                reply, lost = self._wait(sock, timeout_s)
+            except BaseException:
+                self._drop()  # interrupted (Ctrl-C): this REQ socket would still expect the reply
+                raise
             if lost is not None:
                 self._drop()
                 raise LinkLost(f"{lost} ({self.endpoint}) during {cmd.spelling}")
@@ -139,6 +158,28 @@ class NetworkController(LinkController):
             return rep.fields
         assert last is not None
         raise last
+
+    def abort(self) -> None:
+        """Stop the command in flight (from any thread) and make the stage safe, over a socket of its own."""
+        self._aborts += 1
+        cmd = command("ABORt")
+        rid = next(self._abort_ids)
+        frames = messages.encode_request(messages.Request(f"{self._session}-abort", rid, cmd, ()))
+        wait_s = self._abort_wait_s()
+        sock = self._req_socket()
+        try:
+            sock.connect(self.endpoint)
+            sock.send_multipart(frames)
+            if not sock.poll(int(wait_s * 1000)):
+                raise LinkTimeout(f"abort not confirmed by {self.endpoint} within {wait_s:.2f} s")
+            rep = messages.decode_reply(cmd, sock.recv_multipart())
+        finally:
+            sock.close(0)
+        if rep.id != rid:
+            raise ProtocolError(f"abort reply id {rep.id} does not match request id {rid}")
+        if not rep.ok:
+            raise exception_for(rep.code, rep.message)
+        self._field_is_zero()
 
     def _wait(self, sock: zmq.Socket, timeout_s: float) -> tuple[list[bytes] | None, str | None]:
         poller = zmq.Poller()

@@ -7,6 +7,9 @@ and checks for a complete reply (``read_until`` alone returns silently on a time
 garbled reply the link is resynchronised with an echo token before it is used again. Only commands marked
 safe to repeat are retried.
 
+``abort()`` may come from another thread while a command is in flight: a line of its own that the server
+handles ahead of the running command (:mod:`drivers.serial_abort`).
+
 :class:`LinkController` here holds the part shared with the network driver: every Controller method as one
 command of ``drivers.wire.commands``.
 """
@@ -16,6 +19,7 @@ from __future__ import annotations
 import abc
 import itertools
 import select
+import threading
 import time
 from collections.abc import Iterator, Sequence
 from urllib.parse import parse_qs, urlsplit, urlunsplit
@@ -23,7 +27,8 @@ from urllib.parse import parse_qs, urlsplit, urlunsplit
 import numpy as np
 
 from drivers.base import Capability, Controller, LineData, LineSpec, Limits, Status, SweepData
-from drivers.errors import BadURL, LinkLost, LinkTimeout, ProtocolError
+from drivers.errors import Aborted, BadURL, LinkLost, LinkTimeout, ProtocolError
+from drivers.serial_abort import StreamAbort
 from drivers.wire.commands import MAX_SWEEP_POINTS, Command, command, line_args, ramp_s
 from drivers.wire.error_map import exception_for
 from drivers.wire.scpi import (
@@ -37,6 +42,8 @@ class LinkController(Controller):
     timeout_s: float = 2.0
     #: Deflection samples asked for per request; links with little bandwidth lower it.
     chunk_limit: int = 1 << 18
+    #: Counts abort() calls: a record or a split sweep in progress stops at its next request after one.
+    _aborts: int = 0
 
     @abc.abstractmethod
     def _transact(self, cmd: Command, args: tuple, timeout_s: float) -> tuple:
@@ -70,10 +77,12 @@ class LinkController(Controller):
 
     def record_deflection(self, samples: int, rate_hz: float, *, chunk: int = 1 << 18) -> Iterator[np.ndarray]:
         chunk = max(1, min(int(chunk), self.chunk_limit))
+        aborts = self._aborts
         self._call("ACQuire:DEFLection:STARt", int(samples), float(rate_hz), chunk)
         got = 0
         cmd = command("ACQuire:DEFLection:NEXT?")
         while got < samples:
+            self._not_aborted_since(aborts, "deflection record")
             wait = self.timeout_s + chunk / rate_hz + self._transfer_s(cmd, (chunk,))
             part = cmd.unpack((), self._transact(cmd, (), wait))  # type: ignore[misc]
             if not len(part):
@@ -92,7 +101,9 @@ class LinkController(Controller):
 
     def sweep(self, frequencies_hz: np.ndarray, amplitude_v: float, *, settle_s: float | None = None) -> SweepData:
         f = np.asarray(frequencies_hz, float).ravel()
-        parts = [self._call("DRIVe:SWEep?", float(amplitude_v), None if settle_s is None else float(settle_s),
+        aborts = self._aborts
+        parts = [self._not_aborted_since(aborts, "sweep") or
+                 self._call("DRIVe:SWEep?", float(amplitude_v), None if settle_s is None else float(settle_s),
                             tuple(float(x) for x in f[i:i + MAX_SWEEP_POINTS]))
                  for i in range(0, max(len(f), 1), MAX_SWEEP_POINTS)]
         return SweepData(*(np.concatenate([getattr(p, k) for p in parts])  # type: ignore[arg-type]
@@ -148,14 +159,37 @@ class LinkController(Controller):
     def make_safe(self) -> None:
         """Withdraw, drive off, bias zero (and field zero with a magnet) in one command; the server attempts each
         step even if one fails. The reply may take the magnet's ramp back from the last field set here."""
-        lim = getattr(self, "limits", Limits())
-        last = self._field_a_per_m
-        # a field left anywhere by a lost reply: allow a ramp over the whole range
-        wait = ramp_s(lim, lim.field_max_a_per_m if last is None else last, 0.0) if self.has(
-            Capability.APPLIED_FIELD) else 0.0
-        self._call("SYSTem:SAFE", extra_s=wait)
+        self._call("SYSTem:SAFE", extra_s=self._field_home_s())
+        self._field_is_zero()
+
+    def zero_applied_field(self) -> None:
+        self._call("FIELd:ZERO", extra_s=self._field_home_s())
+        self._field_is_zero()
+
+    def _field_home_s(self) -> float:
+        """The magnet's ramp to 0 from the field last set here (after a lost reply: the whole range) [s]."""
+        if not self.has(Capability.APPLIED_FIELD):
+            return 0.0
+        lim, last = getattr(self, "limits", Limits()), self._field_a_per_m
+        return ramp_s(lim, lim.field_max_a_per_m if last is None else last, 0.0)
+
+    def _field_is_zero(self) -> None:  # after a confirmed make-safe or abort
         if self.has(Capability.APPLIED_FIELD):
             self._field_a_per_m = 0.0
+
+    def server_watchdog_s(self) -> float | None:
+        """The server's silence limit [s]: it makes the stage safe when the client says nothing that long while
+        the tip is near the surface; None if its watchdog is off."""
+        return self._call("SYSTem:WATChdog?")  # type: ignore[return-value]
+
+    def _not_aborted_since(self, aborts: int, what: str) -> None:
+        if self._aborts != aborts:
+            raise Aborted(f"{what} stopped by abort")
+
+    def _abort_wait_s(self) -> float:
+        """How long an abort may take: the link's timeout, a full retraction and the magnet's ramp to 0."""
+        limits = getattr(self, "limits", Limits())
+        return self.timeout_s + limits.z_range_m / limits.z_speed_max_m_per_s + self._field_home_s()
 
 
 def _no_extra(options: dict[str, object], scheme: str) -> None:
@@ -181,7 +215,7 @@ def _options(query: str, allowed: dict[str, type]) -> dict[str, object]:
     return out
 
 
-class SerialController(LinkController):
+class SerialController(StreamAbort, LinkController):
     """A controller at the far end of a serial line (or anything pyserial opens), speaking our SCPI tree."""
 
     schemes = ("serial", "socket")
@@ -193,6 +227,10 @@ class SerialController(LinkController):
         self.chunk_limit = 4096  # 16 kB per request: about 1.4 s at 115200 baud
         self._tokens = itertools.count(1)
         self._pending = bytearray()
+        self._io = threading.Lock()  # held by the thread that exchanges a request and reads its reply
+        self._write_lock = threading.Lock()  # whole lines only, whichever thread writes
+        self._acks: dict[str, list] = {}  # abort echo token -> [threading.Event, (code, message) or None]
+        self._inflight_transfer_s = 0.0
         try:
             # Reads never block inside pyserial (timeout 0, set once: changing it reconfigures a real port);
             # _read_some waits on the descriptor itself, so bulk replies come in as large reads.
@@ -240,8 +278,9 @@ class SerialController(LinkController):
         import serial
 
         try:
-            self._port.write(data)
-            self._port.flush()
+            with self._write_lock:
+                self._port.write(data)
+                self._port.flush()
         except (serial.SerialException, OSError) as exc:
             raise LinkLost(f"write to {self.port_name} failed: {exc}") from None
 
@@ -263,14 +302,20 @@ class SerialController(LinkController):
         except (serial.SerialException, OSError) as exc:
             raise LinkLost(f"read from {self.port_name} failed: {exc}") from None
 
-    def _read_reply(self, timeout_s: float, what: str) -> bytes:
+    def _read_reply(self, timeout_s: float, what: str, *, until=None) -> bytes | None:
+        """The next reply message; abort echoes are taken out on the way. With ``until`` (a callable), returns
+        None as soon as it is true after an echo."""
         deadline = time.monotonic() + timeout_s
         buf = self._pending
         while True:
             end = reply_end(bytes(buf))
             if end is not None:
                 message = bytes(buf[:end])
-                self._pending = bytearray(buf[end:])
+                self._pending = buf = bytearray(buf[end:])
+                if self._take_ack(message):
+                    if until is not None and until():
+                        return None
+                    continue
                 return message
             left = deadline - time.monotonic()
             if left <= 0:
@@ -294,6 +339,7 @@ class SerialController(LinkController):
             seen += self._read_some(deadline - time.monotonic())
             at = seen.find(marker)
             if at >= 0:
+                self._echoes_in(bytes(seen[:at]))
                 self._pending = bytearray(seen[at + len(marker):])
                 self._dirty = False
                 return
@@ -305,6 +351,19 @@ class SerialController(LinkController):
     _dirty = False
 
     def _transact(self, cmd: Command, args: tuple, timeout_s: float) -> tuple:
+        with self._io:
+            self._inflight_transfer_s = self._transfer_s(cmd, args)
+            try:
+                return self._exchange(cmd, args, timeout_s)
+            except BaseException as exc:
+                if not isinstance(exc, Exception):  # Ctrl-C while the reply was on its way
+                    self._dirty = True
+                raise
+            finally:
+                if self._acks:
+                    self._collect_acks(time.monotonic() + self._abort_wait_s())
+
+    def _exchange(self, cmd: Command, args: tuple, timeout_s: float) -> tuple:
         kinds = tuple(p.kind for p in cmd.params)
         line = format_line([b"*CLS", format_command(cmd.spelling, encode_params(kinds, args)), b"SYST:ERR?"])
         attempts = 1 + (self.retries if cmd.safe_to_repeat else 0)

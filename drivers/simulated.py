@@ -4,11 +4,16 @@ URL form: ``sim://?scenario=NAME_OR_FILE&seed=N&pace=fast|realtime&line_rate=HZ`
 ``scenario`` and ``seed`` may also be passed as keyword options, which win over the URL). ``line_rate`` is the
 line rate used when a LineSpec asks for ``line_rate_hz <= 0``. Errors of the stage are mapped onto the
 controller error tree; every reply is in SI units.
+
+Every call holds one lock on the stage; :meth:`SimulatedController.abort` interrupts the stage's clock, so the
+call in flight stops at its next step (a servo sample of a scan line, a point of a sweep, a sample of a record)
+and raises :class:`drivers.errors.Aborted`, then makes the stage safe under the lock.
 """
 
 from __future__ import annotations
 
 import functools
+import threading
 from collections.abc import Iterator, Sequence
 from dataclasses import asdict, fields
 from typing import Any
@@ -18,15 +23,16 @@ import numpy as np
 
 from drivers.base import (Capability, Controller, ControllerInfo, ForceCurve, LineData, Limits, LineSpec, PassData,
                           Status, SweepData)
-from drivers.errors import BadURL, ControllerFault, LaserLost, LimitExceeded
+from drivers.errors import Aborted, BadURL, ControllerFault, LaserLost, LimitExceeded
 from drivers.fault_plan import STAGE_KINDS, FaultPlan
 from drivers.link_faults import gate_for
 from simulated_stage.clock import PACES, VirtualClock
-from simulated_stage.errors import LASER_LOST, ScenarioError, StageError, StageFault, StageLimitError
+from simulated_stage.errors import LASER_LOST, ScenarioError, StageAborted, StageError, StageFault, StageLimitError
 from simulated_stage.faults import FaultyStage
 from simulated_stage.scenario import Scenario, build_microscope, load_scenario
 
 _URL_KEYS = ("scenario", "seed", "pace", "line_rate")
+_MAX_LAG_S = 0.005  # realtime pace: host time lost before a call is not caught up beyond this
 STAGE_ERROR_CODE = -300  # SCPI "device-specific error" for stage errors without a code of their own
 
 
@@ -35,10 +41,14 @@ def _mapped(method):
 
     @functools.wraps(method)
     def call(self, *args, **kwargs):
-        try:
-            return method(self, *args, **kwargs)
-        except StageError as exc:
-            raise _translated(exc) from exc
+        with self._lock:
+            clock = getattr(self.stage, "clock", None)
+            if clock is not None:
+                clock.begin()  # realtime: this call takes its own duration, whatever the host did before
+            try:
+                return method(self, *args, **kwargs)
+            except StageError as exc:
+                raise _translated(exc) from exc
 
     return call
 
@@ -47,6 +57,8 @@ def _translated(exc: StageError) -> Exception:
     """The driver-level error for a stage error."""
     if isinstance(exc, StageLimitError):
         return LimitExceeded(exc.quantity, exc.value, exc.low, exc.high, exc.unit)
+    if isinstance(exc, StageAborted):
+        return Aborted(f"stopped by abort: {exc}")
     if isinstance(exc, StageFault):
         cls = LaserLost if exc.code == LASER_LOST else ControllerFault
         return cls(exc.code, str(exc).split(": ", 1)[-1])
@@ -73,6 +85,8 @@ class SimulatedController(Controller):
         name = scenario.name if scenario is not None else "custom"
         self.info = ControllerInfo("mfm-assistant", "virtual microscope", f"sim-{name}-{seed}", "1.0")
         self._closed = False
+        self._lock = threading.RLock()  # one call at a time; abort() waits here for the interrupted call
+        self._aborts = 0  # counts abort() calls: a record in progress stops at its next chunk
         #: the scenario's fault plan (link and writing-side faults are applied by the server and the session
         #: writer; the stage-level ones are already wrapped around ``stage``)
         self.fault_plan: FaultPlan | None = None
@@ -121,7 +135,8 @@ class SimulatedController(Controller):
         try:
             if not isinstance(scenario, Scenario):
                 scenario = load_scenario(str(scenario))
-            clock = merged.get("clock") or VirtualClock(pace)
+            # realtime: every call takes its own duration, so the stage can be timed from outside
+            clock = merged.get("clock") or VirtualClock(pace, max_lag_s=_MAX_LAG_S)
             stage = build_microscope(scenario, seed=seed, clock=clock, sample=merged.get("sample"))
             plan = FaultPlan.from_table(scenario.faults) if scenario.faults else None
             extra = merged.get("faults")  # a FaultPlan handed in by a caller (e.g. ``mfma serve --faults``)
@@ -146,13 +161,17 @@ class SimulatedController(Controller):
 
     def _chunks(self, source: Iterator[np.ndarray]) -> Iterator[np.ndarray]:
         it = iter(source)
+        aborts = self._aborts
         while True:
-            try:
-                chunk = next(it)
-            except StopIteration:
-                return
-            except StageError as exc:
-                raise _translated(exc) from exc
+            with self._lock:
+                if self._aborts != aborts:  # the record was stopped between two chunks
+                    raise Aborted("deflection record stopped by abort")
+                try:
+                    chunk = next(it)
+                except StopIteration:
+                    return
+                except StageError as exc:
+                    raise _translated(exc) from exc
             yield chunk
 
     # ---- drive and lock-in ---------------------------------------------------------------------------
@@ -187,7 +206,8 @@ class SimulatedController(Controller):
         self.stage.move_xy(float(x_m), float(y_m))
 
     def withdraw(self) -> None:
-        self.stage.withdraw()  # the stage's withdraw never raises
+        with self._lock:
+            self.stage.withdraw()  # the stage's withdraw never raises
 
     @_mapped
     def set_feedback(self, enabled: bool, *, setpoint_v: float | None = None, p_gain: float | None = None,
@@ -215,16 +235,34 @@ class SimulatedController(Controller):
     def set_bias(self, bias_v: float) -> None:
         self.stage.set_bias(float(bias_v))
 
+    def abort(self) -> None:
+        """Interrupt the call in flight at its next step of virtual time, then withdraw, drive off, bias 0 V and,
+        with a magnet, field 0 (an interrupted field ramp leaves the field where it was before that ramp)."""
+        self._aborts += 1
+        clock = getattr(self.stage, "clock", None)
+        if clock is not None:
+            clock.interrupt()
+        with self._lock:  # the interrupted call has returned (or none was running)
+            if clock is not None:
+                clock.resume()
+            self.make_safe()
+
     @_mapped
     def set_field(self, field_a_per_m: float) -> None:
+        if not self.has(Capability.APPLIED_FIELD):  # a scenario without a magnet: the interface's promise
+            super().set_field(field_a_per_m)
+            return
         self.stage.set_field(float(field_a_per_m))
 
     @_mapped
     def read_field(self) -> float:
+        if not self.has(Capability.APPLIED_FIELD):
+            return super().read_field()
         return float(self.stage.read_field())
 
     def status(self) -> Status:
-        s = self.stage.status()
+        with self._lock:
+            s = self.stage.status()
         return Status(bool(s.engaged), float(s.z_m), float(s.coarse_position_m), float(s.bias_v), bool(s.drive_on),
                       float(s.drive_frequency_hz), float(s.drive_amplitude_v), bool(s.feedback_on), tuple(s.faults))
 

@@ -58,6 +58,6 @@ class DeflectionRecorder:
                 v += a * np.cos(2 * np.pi * lockin.frequency_hz * t - float(lag))
             if v.max() > sat or v.min() < -sat:
                 scope.detector.clip(v)
-            scope.clock.advance(n / rate_hz)
+            scope.clock.advance(n / rate_hz, step_s=1.0 / rate_hz)
             done += n
             yield v

@@ -35,3 +35,7 @@ class StageFault(StageError, RuntimeError):
     def __init__(self, code: int, message: str) -> None:
         self.code = code
         super().__init__(f"stage fault {code}: {message}")
+
+
+class StageAborted(StageError, RuntimeError):
+    """The running action was stopped on request (see ``VirtualClock.interrupt``); nothing after the stop ran."""

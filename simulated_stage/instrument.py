@@ -265,7 +265,7 @@ class VirtualMicroscope(MagnetControl):
     def withdraw(self) -> None:
         """Feedback off and Z fully retracted. Always allowed, idempotent, never raises."""
         self.feedback.on = False
-        self.clock.advance(self.z.position_m / self.z.speed_max_m_per_s)
+        self.clock.advance(self.z.withdraw_time_s(), interruptible=False)
         self.z.position_m = 0.0
 
     def set_feedback(self, enabled: bool, *, setpoint_v: float | None = None, p_gain: float | None = None,

@@ -22,12 +22,20 @@ def _check(quantity: str, value: float, low: float, high: float, unit: str) -> f
 
 
 class ZPiezo:
-    """Z piezo with a travel range, a speed limit and a noisy position sensor."""
+    """Z piezo with a travel range, a speed limit and a noisy position sensor.
 
-    def __init__(self, *, range_m: float, speed_max_m_per_s: float, sensor_noise_m: float) -> None:
+    The speed limit applies to moves the controller makes towards the sample and back under its own control.
+    A withdraw instead steps the piezo voltage to the retracted end: moving away from the surface cannot
+    crash the tip, so only the piezo's own response limits it, modelled as ``retract_time_s`` for the full
+    range (a few milliseconds for a scanner with a Z resonance of a few kHz; a model, no source).
+    """
+
+    def __init__(self, *, range_m: float, speed_max_m_per_s: float, sensor_noise_m: float,
+                 retract_time_s: float = 5e-3) -> None:
         self.range_m = range_m
         self.speed_max_m_per_s = speed_max_m_per_s
         self.sensor_noise_m = sensor_noise_m
+        self.retract_time_s = retract_time_s
         self.position_m = 0.0
 
     def check(self, z_m: float) -> float:
@@ -36,6 +44,10 @@ class ZPiezo:
     def move_time_s(self, z_m: float) -> float:
         """Time a move to ``z_m`` takes at the speed limit [s] (the target is checked first)."""
         return abs(self.check(z_m) - self.position_m) / self.speed_max_m_per_s
+
+    def withdraw_time_s(self) -> float:
+        """Time a full retraction from the present extension takes [s]."""
+        return self.retract_time_s * self.position_m / self.range_m
 
     def sensor_m(self, rng: np.random.Generator, true_m: np.ndarray | float | None = None) -> np.ndarray | float:
         """Z sensor reading of ``true_m`` (default: the present position) with its white noise."""

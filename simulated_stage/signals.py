@@ -84,7 +84,7 @@ def sweep(scope, frequencies_hz: np.ndarray, amplitude_v: float, *, settle_s: fl
     amp_meas, dphi = lockin.readout(amp, sigma, scope.rng)
     phase = lockin.phase_deg(lag, dphi)
     settle = 5 * max(lockin.time_constant_s, lockin.amplitude_time_s) if settle_s is None else float(settle_s)
-    scope.clock.advance(settle * f.size)
+    scope.clock.advance(settle * f.size, step_s=settle)
     lockin.frequency_hz = float(f[-1])
     scope.settle()
     return SweepResult(f, amp_meas * scope.volts_per_m, phase)

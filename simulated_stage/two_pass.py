@@ -68,7 +68,7 @@ def scan_line(scope, *, y_m: float, x_start_m: float, length_m: float, pixels: i
     results: list[PassResult] = []
     if passes:
         results = _second_passes(scope, passes, u_px, x_px, y_m, t0, line_rate_hz, dwell, gap0, free, sigma)
-    scope.clock.advance((1 + len(passes)) / line_rate_hz)
+    scope.clock.advance((1 + len(passes)) / line_rate_hz, step_s=dt)  # an abort stops at a servo step
     scope.xy.move(float(x_px[-1]), y_m)
     scope.settle()
     return LineResult(topography, amp_err_v, results)

@@ -30,7 +30,8 @@ def main(argv: list[str] | None = None) -> int:
         return int(handler(args) or 0)
     except (Exception, KeyboardInterrupt) as exc:  # one line, no traceback; the exit code says what kind
         if isinstance(exc, KeyboardInterrupt):
-            sys.stderr.write("mfma: interrupted; the stage was withdrawn, drive off, bias 0 V\n")
+            sys.stderr.write("mfma: interrupted; the stage was made safe (tip withdrawn, drive off, bias 0 V, "
+                             "any applied field 0)\n")
         elif not isinstance(exc, BrokenPipeError):
             sys.stderr.write(f"mfma: error: {c.one_line(exc)}\n")
             if getattr(args, "debug", False):

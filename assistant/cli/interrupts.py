@@ -5,6 +5,11 @@ its libraries, that can be inside library code that catches the exception and ca
 go on to calibrate and approach although it was asked to stop (seen about once in a dozen Ctrl-C trials sent in
 the first seconds of ``mfma run``). :func:`remember_interrupts` installs a handler that also sets a latch, and
 the command checks the latch before each step that moves the stage.
+
+There is one way a Ctrl-C stops the stage: ``KeyboardInterrupt`` (raised by the handler or by a latch check)
+reaches :func:`assistant.procedures.guard.stop_now`, which calls the controller's ``abort()``. Inside a step the
+step's safety guard does it; between two steps (no guard running, e.g. the tip engaged after the approach)
+:func:`stop_on_interrupt` around everything done with the open controller does it.
 """
 
 from __future__ import annotations
@@ -47,3 +52,21 @@ def remember_interrupts() -> Iterator[InterruptLatch]:
     finally:
         if installed:
             signal.signal(signal.SIGINT, signal.default_int_handler)
+
+
+@contextlib.contextmanager
+def stop_on_interrupt(controller) -> Iterator[None]:
+    """A ``KeyboardInterrupt`` anywhere in the block stops the stage through ``abort()`` and is re-raised (the
+    command then exits 130). A stop that cannot be confirmed is said on stderr."""
+    try:
+        yield
+    except KeyboardInterrupt:
+        from assistant.procedures.guard import stop_now
+
+        try:
+            stop_now(controller)
+        except Exception as exc:
+            import sys
+
+            sys.stderr.write(f"mfma: could not confirm a safe stage ({exc}); check the instrument by hand\n")
+        raise

@@ -71,9 +71,23 @@ def build_parser() -> argparse.ArgumentParser:
     top.add_argument("--debug", action="store_true", help=argparse.SUPPRESS)
     sub = top.add_subparsers(title="commands", metavar="COMMAND", parser_class=_Parser)
 
-    p = sub.add_parser("drivers", help="list installed controller plug-ins and their URL schemes")
+    p = sub.add_parser("drivers", help="list installed controller plug-ins and their URL schemes; check a driver "
+                                       "(check URL) or start one (new NAME DIR)")
     _json(p)
     p.set_defaults(handler="cmd_drivers:run")
+    verbs = p.add_subparsers(title="verbs (none: list the plug-ins)", metavar="VERB", parser_class=_Parser)
+    q = verbs.add_parser("check", help="run the conformance kit against a controller driver")
+    q.add_argument("url", metavar="URL", help="controller URL, e.g. sim://, mylab://..., zmq+tcp://HOST:PORT")
+    q.add_argument("--level", choices=("identity", "signals", "motion", "engaged"), default="signals",
+                   help="how far to go; each level includes those before it: identity, signals (default; nothing "
+                        "moves), motion (moves clear of the surface), engaged (approaches the surface)")
+    q.add_argument("--yes", action="store_true", help="do not ask before the levels that move the stage")
+    _json(q)
+    q.set_defaults(handler="cmd_drivers_check:check")
+    q = verbs.add_parser("new", help="write a package skeleton for a lab's own controller driver")
+    q.add_argument("name", help="driver name: lower-case letters, digits and _ (also the URL scheme)")
+    q.add_argument("directory", metavar="DIR", help="folder to create (must not exist or be empty)")
+    q.set_defaults(handler="cmd_drivers_check:new")
 
     # ---- acquire ----------------------------------------------------------------------------------------
     acq = sub.add_parser("acquire", help="record raw data from a controller").add_subparsers(

@@ -110,7 +110,7 @@ def safety_guard(controller, *, sink: Sink = null_sink, save: Callable[[], None]
         yield
     except BaseException as exc:
         try:
-            controller.make_safe()
+            stop_now(controller)
         except BaseException as safe_exc:  # the link may be gone: say so loudly, then carry on with the save
             sink(Notice("error", f"could not confirm a safe stage ({safe_exc}); check the instrument by hand"))
         else:
@@ -123,6 +123,36 @@ def safety_guard(controller, *, sink: Sink = null_sink, save: Callable[[], None]
             except Exception as save_exc:
                 sink(Notice("error", f"could not save after the stop: {save_exc}"))
         raise
+
+
+def stop_now(controller) -> None:
+    """Stop whatever the controller is doing and make the stage safe: ``abort()``, which does not queue behind a
+    command still running (on a link, a command the client gave up on may still run), else ``make_safe()``.
+
+    A further Ctrl-C while this runs does not cut it short (it would leave, say, the drive on after the withdraw):
+    in the main thread SIGINT is held for the duration; the stop is already what it asks for."""
+    abort = getattr(controller, "abort", None)
+    with _sigint_held():
+        (abort if callable(abort) else controller.make_safe)()
+
+
+@contextlib.contextmanager
+def _sigint_held() -> Iterator[None]:
+    import signal
+    import threading
+
+    if threading.current_thread() is not threading.main_thread():
+        yield  # signals are delivered to the main thread only
+        return
+    previous = signal.getsignal(signal.SIGINT)
+    if previous is None:  # installed outside Python: cannot be put back
+        yield
+        return
+    signal.signal(signal.SIGINT, lambda signum, frame: None)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, previous)
 
 
 def _has_magnet(controller) -> bool:

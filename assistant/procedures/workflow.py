@@ -123,8 +123,12 @@ class Workflow:
             self._session = None
 
     def withdraw(self) -> None:
-        """Make the stage safe now (withdraw, drive off, bias zero)."""
-        self.controller.make_safe()
+        """Make the stage safe now: stop the controller call in flight (``abort()``, from any thread), withdraw,
+        drive off, bias zero and, with a magnet, field zero. The running step then ends with
+        ``drivers.errors.Aborted`` through its guard."""
+        from assistant.procedures.guard import stop_now
+
+        stop_now(self.controller)
 
     # ---- steps ------------------------------------------------------------------------------------------
     def calibrate(self, settings: CalibrationSettings, *, probe_record=None) -> CalibrationResult:

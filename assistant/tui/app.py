@@ -4,7 +4,8 @@ always pulls the tip back.
 Thin by design: every step is a :class:`assistant.procedures.workflow.Workflow` method (the same code path as
 ``mfma run``), run in a thread worker (:mod:`assistant.tui.steps`); its events reach the UI thread as messages.
 The controller is shared by the running step, the status poller and the withdraw key through
-:class:`SerialisedController`. This module is the app itself: layout, messages, status line and keys.
+:class:`SerialisedController`; the withdraw key's ``abort()`` goes past its lock and stops the controller call in
+flight. This module is the app itself: layout, messages, status line and keys.
 """
 
 from __future__ import annotations
@@ -34,6 +35,7 @@ from assistant.tui.view_log import LogView
 from assistant.tui.view_probe import ProbeView
 from assistant.tui.view_resonance import ResonanceView
 from assistant.tui.view_series import SeriesView
+from drivers.errors import Aborted
 
 VIEWS = (("probe", "Probe", ProbeView), ("resonance", "Resonance", ResonanceView),
          ("approach", "Approach", ApproachView), ("series", "Series", SeriesView),
@@ -139,7 +141,7 @@ class MfmApp(FieldSeriesActions, StepRunner, App[int]):
         ev = message.event
         if isinstance(ev, Notice):
             # the guard's stop notice repeats the error the step reports when it ends: say only what it did
-            self.say(ev.level, "stopped: tip withdrawn, drive off, bias 0 V" if ev.kind == "stopped" else ev.text)
+            self.say(ev.level, f"stopped: {safe_words(self.controller)}" if ev.kind == "stopped" else ev.text)
             return
         for view in self.views:
             if ev.what in view.EVENTS:
@@ -150,7 +152,7 @@ class MfmApp(FieldSeriesActions, StepRunner, App[int]):
         step, err = message.step, message.error
         if err is None:
             self.say("info", f"{step}: done")
-        elif isinstance(err, Cancelled):
+        elif isinstance(err, (Cancelled, Aborted)):
             self.say("warning", f"{step}: cancelled")
         else:
             self.say("error", f"{step} failed: {str(err).strip() or type(err).__name__}")
@@ -171,7 +173,9 @@ class MfmApp(FieldSeriesActions, StepRunner, App[int]):
         if message.error:
             self.say("error", f"withdraw: {message.error}; check the instrument by hand")
         elif message.safe:
-            self.say("info", "withdrawn: tip retracted, drive off, bias 0 V (confirmed by status)")
+            words = safe_words(self.controller)
+            how = "status and the field reading" if words.endswith("field 0") else "status"
+            self.say("info", f"withdrawn: {words} (confirmed by {how})")
         else:
             self.say("error", "withdraw sent but status does not report a safe stage; check the instrument")
         self._withdraw_confirmed = bool(message.safe)
@@ -283,3 +287,11 @@ class MfmApp(FieldSeriesActions, StepRunner, App[int]):
             return
         show_stored(self, shown, path)
         self.show_field_series_file(path)
+
+
+def safe_words(controller) -> str:
+    """What a safe stop leaves, as the operator reads it (the field as well when there is a magnet)."""
+    from drivers.base import Capability
+
+    caps = getattr(controller, "capabilities", ())  # an attribute: no call, so no wait for the controller's lock
+    return "tip withdrawn, drive off, bias 0 V" + (", field 0" if Capability.APPLIED_FIELD in caps else "")

@@ -2,9 +2,10 @@
 
 The controller interface is synchronous and "one caller at a time". The app talks to it from three places
 (the running procedure, the status poller and the withdraw key), so every call goes through
-:class:`SerialisedController`, which holds one re-entrant lock per call. The withdraw therefore waits for
-the controller call in progress (one scan line at most), never for the whole procedure: the cancel token is
-set first, so the procedure stops at its next check and its safety guard withdraws as well.
+:class:`SerialisedController`, which holds one re-entrant lock per call, except ``abort()``: the interface
+allows it from any thread while a call is in flight, so the withdraw key does not wait for the call in
+progress (a scan line) but stops it. The cancel token is set as well, and the stopped procedure's safety
+guard confirms the safe state.
 """
 
 from __future__ import annotations
@@ -44,7 +45,8 @@ class StatusChanged(Message):
 
 
 class WithdrawDone(Message):
-    """The withdraw key's make-safe finished; ``safe`` is the confirmed state from ``status()``."""
+    """The withdraw key's make-safe finished; ``safe`` is the confirmed state from ``status()`` (and, with a
+    magnet, a field reading within 1 % of its range of 0)."""
 
     def __init__(self, safe: bool | None, error: str | None = None) -> None:
         super().__init__()
@@ -90,6 +92,10 @@ class SerialisedController:
 
         locked.__name__ = name
         return locked
+
+    def abort(self) -> None:
+        """Straight to the controller, without the lock: it stops the call that holds the lock."""
+        self._inner.abort()
 
     def try_status(self, timeout_s: float):
         if not self._lock.acquire(timeout=timeout_s):

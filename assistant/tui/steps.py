@@ -136,14 +136,19 @@ class StepRunner:
 
     @work(thread=True, group="safety", exit_on_error=False)
     def _withdraw_worker(self) -> None:
+        from drivers.base import Capability
+
         try:
             self.workflow.withdraw()
             status = self.controller.status()
+            field_off = True
+            if Capability.APPLIED_FIELD in getattr(self.controller, "capabilities", ()):  # the magnet's sensor
+                field_off = abs(self.controller.read_field()) <= 0.01 * self.controller.limits.field_max_a_per_m
         except Exception as exc:
             self.post_message(WithdrawDone(None, f"{type(exc).__name__}: {exc}"))
             return
         self.post_message(StatusChanged(status))
-        self.post_message(WithdrawDone(status.safe))
+        self.post_message(WithdrawDone(status.safe and field_off))
 
     @work(thread=True, group="poll", exit_on_error=False)
     def _poll_worker(self) -> None:

@@ -4,7 +4,9 @@ It checks every argument against the controller's hard limits itself, answers ba
 (stream) or an error reply (network), executes a retried network request once (request ids, remembered per
 session), makes the stage safe after any controller fault, and runs a watchdog that withdraws the tip, switches
 the drive off and sets the bias (and a magnet's field) to zero when a client falls silent while the tip is near the
-surface or a magnet is left on.
+surface or a magnet is left on. The transports run the commands in a worker thread (:mod:`.inflight`), so an abort
+request is handled ahead of a long command in flight, and the watchdog acts through the controller's ``abort()``
+and also aborts a command that overruns its expected time.
 """
 
 from __future__ import annotations
@@ -18,7 +20,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from drivers.base import Capability, Controller
-from drivers.errors import CapabilityMissing, LimitExceeded
+from drivers.errors import Aborted, CapabilityMissing, LimitExceeded
+from drivers.server import inflight
 from drivers.wire import messages
 from drivers.wire.checks import check_limits, check_types
 from drivers.wire.commands import Command, resolve
@@ -52,6 +55,7 @@ class Dispatcher:
         self._watchdog_armed = True
         self.watchdog_trips = 0
         self.sessions: OrderedDict[str, Session] = OrderedDict()
+        self.watch = inflight.CommandWatch(controller, watchdog_s, clock)  # the command in flight
 
     # ---- one command ---------------------------------------------------------------------------------
     def execute(self, cmd: Command, args: tuple, session: Session) -> tuple:
@@ -65,10 +69,15 @@ class Dispatcher:
             return session.errors.pop()
         if h == "SYSTem:ECHO":
             return (args[0],)
+        if h == "SYSTem:WATChdog":  # the silence limit, 0 when the watchdog is off
+            return (float(self.watchdog_s or 0.0),)
+        if h == "ABORt" and self.watch.take_ahead():  # carried out by the serving loop already: the stage is safe
+            return ()
         c = self.controller
         if cmd.capability is not None and not c.has(cmd.capability):
             raise CapabilityMissing(f"{type(c).__name__} does not offer {cmd.capability.value}")
         check_limits(cmd, args, c.limits)
+        self.watch.begin(cmd, args, c.limits, session)
         try:
             if h == "ACQuire:DEFLection:STARt":
                 session.deflection = iter(c.record_deflection(args[0], args[1], chunk=args[2]))
@@ -83,13 +92,15 @@ class Dispatcher:
                 return (np.asarray(chunk, np.float32),)
             assert cmd.invoke is not None
             return cmd.invoke(c, args)
-        except (LimitExceeded, CapabilityMissing, WireError):
-            raise  # refused before anything moved
+        except (LimitExceeded, CapabilityMissing, WireError, Aborted):
+            raise  # refused before anything moved, or stopped by an abort that made the stage safe
         except Exception as exc:
             # A controller that failed mid-operation may have left the tip down or the drive on.
             log.warning("%s failed (%s); making the stage safe", cmd.spelling, type(exc).__name__)
             self.safe_stage()
             raise
+        finally:
+            self.watch.end()
 
     def safe_stage(self) -> None:
         try:
@@ -170,9 +181,8 @@ class Dispatcher:
             at_risk = True
         if not at_risk:
             return False
-        log.warning("watchdog: client silent for %.2f s (limit %.2f s) with the tip engaged or a field on; "
-                    "withdrawing, drive off, bias zero, field zero", silent, self.watchdog_s)
-        self.safe_stage()
+        self.watch.abort(f"watchdog: client silent for {silent:.2f} s (limit {self.watchdog_s:.2f} s) with the "
+                         f"tip engaged or a field on; withdrawing, drive off, bias zero, field zero")
         self.watchdog_trips += 1
         return True
 

@@ -1,8 +1,11 @@
 """The serial-style byte-stream transport of the server: a new pseudo-terminal, or a loopback TCP socket for
-pyserial's ``socket://`` URLs. One SCPI line per request; bad lines are answered through the error queue."""
+pyserial's ``socket://`` URLs. One SCPI line per request; bad lines are answered through the error queue. The
+lines run in order in a worker thread (:mod:`.inflight`) that writes the replies; a line that begins with ``ABORt``
+first stops the command in flight, here in the reading loop."""
 
 from __future__ import annotations
 
+import functools
 import logging
 import os
 import select
@@ -16,6 +19,7 @@ from urllib.parse import urlsplit
 from drivers.errors import ControllerError, InsecureBind
 from drivers.link_faults import LinkFaults
 from drivers.registry import is_loopback
+from drivers.server import inflight
 from drivers.server.dispatch import Dispatcher, Session
 from drivers.wire.scpi import MAX_LINE, WireError
 
@@ -48,6 +52,7 @@ def serve_stream(d: Dispatcher, lf: LinkFaults, bind: str | None, announce: Call
     session = Session()
     buf = bytearray()
     discarding = False
+    worker = inflight.Worker("stream-requests")
     try:
         while not stop.is_set():
             watch = [conn_fd] if conn_fd is not None else [listener.fileno()]  # type: ignore[union-attr]
@@ -70,6 +75,9 @@ def serve_stream(d: Dispatcher, lf: LinkFaults, bind: str | None, announce: Call
                 if chunk == b"":  # peer gone (socket) or pty failure
                     if listener is None:
                         raise ControllerError("pseudo-terminal failed")
+                    if worker.busy:  # nobody can take the reply of what runs: stop it
+                        d.watch.abort("the client left during a command")
+                        worker.wait_idle(10.0)
                     conn.close()  # type: ignore[union-attr]
                     conn_fd = None
                     continue
@@ -80,8 +88,9 @@ def serve_stream(d: Dispatcher, lf: LinkFaults, bind: str | None, announce: Call
                         nl = buf.find(b"\n")
                         if nl < 0:
                             if len(buf) >= MAX_LINE and not discarding:
-                                session.errors.push_error(WireError(
-                                    -363, f"line longer than {MAX_LINE - 1} bytes discarded"))
+                                worker.submit(functools.partial(  # in turn with the lines before it
+                                    session.errors.push_error,
+                                    WireError(-363, f"line longer than {MAX_LINE - 1} bytes discarded")))
                                 discarding = True
                             if discarding:
                                 buf.clear()
@@ -90,10 +99,11 @@ def serve_stream(d: Dispatcher, lf: LinkFaults, bind: str | None, announce: Call
                         if discarding:
                             discarding = False
                             continue
-                        _stream_line(d, lf, session, line, conn_fd)
-                        d.activity()  # a client waiting for a long command was not silent meanwhile
-            d.watchdog()
+                        inflight.submit_line(d, worker, line, functools.partial(
+                            _stream_line, d, lf, session, line, conn_fd))
+            inflight.watch(d, worker)
     finally:
+        inflight.stop_worker(d, worker, "the server is stopping")
         for fd in keep:
             os.close(fd)
         if listener is not None:

@@ -1,8 +1,12 @@
 """The ZeroMQ transport of the server: a ROUTER socket for REQ clients, JSON header frame plus raw array frames,
-loopback by default and CURVE-encrypted with an allow list of client keys beyond it."""
+loopback by default and CURVE-encrypted with an allow list of client keys beyond it. Requests run in a worker
+thread (:mod:`.inflight`) whose replies the loop sends through an outbox (only the loop touches the ROUTER
+socket); an abort request, from any client socket, is answered by the loop at once, ahead of the command in
+flight."""
 
 from __future__ import annotations
 
+import functools
 import logging
 import threading
 from collections.abc import Callable
@@ -11,6 +15,7 @@ from urllib.parse import urlsplit
 from drivers.errors import InsecureBind
 from drivers.link_faults import LinkFaults
 from drivers.registry import is_loopback
+from drivers.server import inflight
 from drivers.server.dispatch import Dispatcher
 
 log = logging.getLogger(__name__)
@@ -51,6 +56,7 @@ def serve_zmq(d: Dispatcher, lf: LinkFaults, bind: str | None, server_key: str |
     ctx = zmq.Context()
     auth = None
     sock = None
+    worker = outbox = None
     try:
         if curve:
             # Without an authenticator on this very context, CURVE would admit any client key pair.
@@ -70,21 +76,35 @@ def serve_zmq(d: Dispatcher, lf: LinkFaults, bind: str | None, server_key: str |
         actual = sock.getsockopt_string(zmq.LAST_ENDPOINT)
         log.info("serving on %s (%s)", actual, f"CURVE, {n_keys} client keys" if curve else "loopback, plain")
         announce({"endpoint": actual})
+        worker, outbox = inflight.Worker("zmq-requests"), inflight.Outbox(ctx)
         poller = zmq.Poller()
         poller.register(sock, zmq.POLLIN)
+        poller.register(outbox.receiver, zmq.POLLIN)
         while not stop.is_set():
-            if poller.poll(int(poll_s * 1000)):
+            ready = dict(poller.poll(int(poll_s * 1000)))
+            if outbox.receiver in ready:
+                outbox.forward(sock)
+            if sock in ready:
                 msg = sock.recv_multipart()
                 d.activity()
-                _zmq_message(d, lf, sock, msg)
-                d.activity()  # a client waiting for a long command was not silent meanwhile
-            d.watchdog()
+                if not inflight.handle_zmq_abort(d, sock, msg):  # an abort goes ahead of the command in flight
+                    worker.submit(functools.partial(_zmq_job, d, lf, outbox, msg))
+            inflight.watch(d, worker)
     finally:
+        if worker is not None:
+            inflight.stop_worker(d, worker, "the server is stopping")
+            outbox.forward(sock)
+            outbox.close()
         if sock is not None:
             sock.close(0)
         if auth is not None:
             auth.stop()
         ctx.term()
+
+
+def _zmq_job(d: Dispatcher, lf: LinkFaults, outbox, msg: list[bytes]) -> None:
+    _zmq_message(d, lf, outbox, msg)  # the outbox stands in for the socket: the loop sends the reply
+    d.activity()  # a client waiting for a long command was not silent meanwhile
 
 
 def _zmq_message(d: Dispatcher, lf: LinkFaults, sock, msg: list[bytes]) -> None:

@@ -84,8 +84,9 @@ _FIELD = _range(lambda l: -l.field_max_a_per_m, lambda l: l.field_max_a_per_m)
 
 
 def ramp_s(lim: Limits, from_a_per_m: float, to_a_per_m: float) -> float:
-    """How long the magnet needs to go from one field to another and settle [s] (0 for no change)."""
-    if from_a_per_m == to_a_per_m:
+    """How long the magnet needs to go from one field to another and settle [s] (0 for no change, and for a
+    target beyond the magnet's limit or not finite, which is refused before anything is set)."""
+    if from_a_per_m == to_a_per_m or not abs(to_a_per_m) <= lim.field_max_a_per_m:  # also catches NaN
         return 0.0
     return abs(to_a_per_m - from_a_per_m) / max(lim.field_ramp_a_per_m_per_s, 1e-9) + lim.field_settle_s
 
@@ -214,6 +215,7 @@ COMMANDS: tuple[Command, ...] = (
     # answered by the server itself
     Command("SYSTem:ERRor", True, (), ("int", "str"), False, unpack=lambda a, f: f),
     Command("SYSTem:ECHO", True, (_P("token", "str"),), ("str",), True, unpack=lambda a, f: f[0]),
+    Command("SYSTem:WATChdog", True, (), ("float",), True, unpack=lambda a, f: f[0] if f[0] > 0 else None),
     # identity and limits
     Command("SYSTem:CAPabilities", True, (), ("names*",), True, "capabilities",
             invoke=lambda c, a: (tuple(sorted(x.value for x in c.capabilities)),),
@@ -224,6 +226,10 @@ COMMANDS: tuple[Command, ...] = (
     Command("SYSTem:PROBe", True, (), ("strs*",), True, "probe_hint",
             invoke=_hint_invoke, unpack=_hint_unpack),
     Command("SYSTem:SAFE", False, (), (), True, "make_safe", invoke=lambda c, a: (c.make_safe(), ())[1]),
+    # stop what runs and make safe: the servers handle it ahead of the command in flight (SCPI's ABORt)
+    Command("ABORt", False, (), (), True, "abort", invoke=lambda c, a: (c.abort(), ())[1]),
+    Command("FIELd:ZERO", False, (), (), True, "zero_applied_field",
+            invoke=lambda c, a: (c.zero_applied_field(), ())[1]),
     # signals
     Command("MEASure:READ", True, (_P("channels", "names*"),), ("floats*",), True, "read",
             invoke=_read_invoke, unpack=lambda a, f: dict(zip(a[0], f[0]))),

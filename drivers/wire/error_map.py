@@ -1,6 +1,6 @@
 """Errors across the wire: the SCPI code and message that report an exception to a client, and the exception a
 client raises again for them (the same types on both ends: -222 LimitExceeded with its fields, -241
-CapabilityMissing, -231 LaserLost, positive codes ControllerFault, -1xx ProtocolError)."""
+CapabilityMissing, -231 LaserLost, 280 Aborted, other positive codes ControllerFault, -1xx ProtocolError)."""
 
 from __future__ import annotations
 
@@ -8,7 +8,10 @@ import re
 
 from drivers.wire.scpi import WireError
 
-__all__ = ["error_for", "exception_for"]
+__all__ = ["ABORTED_CODE", "error_for", "exception_for"]
+
+#: Device-dependent (positive) error code of a call stopped by an abort; the client raises ``Aborted`` for it.
+ABORTED_CODE = 280
 
 _LIMIT_TEXT = re.compile(r"^(.+?) = (\S+) (\S*) ?is outside the allowed range \[(\S+), (\S+)\] ?(\S*)$")
 
@@ -23,6 +26,8 @@ def error_for(exc: BaseException) -> tuple[int, str]:
         return -222, f"Data out of range;{exc}"
     if isinstance(exc, e.CapabilityMissing):
         return -241, f"Hardware missing;{exc}"
+    if isinstance(exc, e.Aborted):
+        return ABORTED_CODE, f"Aborted;{exc}"
     if isinstance(exc, e.ControllerFault):
         plain = re.sub(r"^controller fault -?\d+: ", "", str(exc))  # the receiving end adds it again
         if isinstance(exc, e.LaserLost):
@@ -56,6 +61,8 @@ def exception_for(code: int, message: str) -> Exception:
         return e.ControllerFault(code, info)
     if code == -241:
         return e.CapabilityMissing(info)
+    if code == ABORTED_CODE:
+        return e.Aborted(info)
     if code == -231:
         m = re.match(r"^(-?\d{1,6});(.*)$", info, re.S)
         return e.LaserLost(int(m.group(1)), m.group(2)) if m else e.LaserLost(code, info)

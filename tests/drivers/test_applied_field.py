@@ -67,6 +67,7 @@ def test_field_beyond_the_magnet_is_refused_by_the_command_table(value):
     check_limits(cmd, (-500e3,), LIM)
     assert cmd.safe_to_repeat and cmd.capability is Capability.APPLIED_FIELD
     assert ramp_s(LIM, -500e3, 500e3) == pytest.approx(2 * 500e3 / 50e3 + 1.0) and ramp_s(LIM, 1.0, 1.0) == 0.0
+    assert ramp_s(LIM, 0.0, value) == 0.0  # refused before anything is set: a client waits for no ramp (NaN: none)
 
 
 def test_server_refuses_out_of_range_fields_before_the_controller_sees_them():

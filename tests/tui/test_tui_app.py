@@ -168,6 +168,7 @@ async def test_calibration_shows_its_result_and_is_accepted(tmp_path):
         assert "probe lever-T1" in screen_text(app)
 
 
+@pytest.mark.alone  # it times the UI thread: a parallel worker's test would take the CPU it measures
 @run_async
 async def test_short_series_fills_previews_and_matches_the_session_file(tmp_path):
     from assistant.storage.session_file import SessionFile
@@ -260,7 +261,7 @@ async def test_cancel_stops_the_series_through_its_guard(tmp_path):
         texts = [text for _, text in app.view("log").entries]
         assert "series: cancelled" in texts
         # the safety guard's notice says what it did; the cause ("cancelled") is said once, by the step
-        assert "stopped: tip withdrawn, drive off, bias 0 V" in texts
+        assert "stopped: tip withdrawn, drive off, bias 0 V, field 0" in texts  # the default stage has a magnet
         assert app.controller.status().safe and sv.lines_done < 64
 
 

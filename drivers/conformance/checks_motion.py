@@ -1,0 +1,239 @@
+"""Checks that move the stage: ``motion`` (clear of the surface) and ``engaged`` (on it).
+
+Sizes: Z moves of at most a fifth of the range, XY moves of 0.5 µm about the centre, five coarse steps; the
+engaged line is 1 µm long with 32 pixels, its second passes at a lift of 100 nm (well above the tapping
+amplitude of an MFM lever: common practice, no source), and the approach may use at most 300 µm of coarse
+travel (or the controller's own travel limit if that is shorter).
+"""
+
+from __future__ import annotations
+
+import math
+import time
+
+import numpy as np
+
+from drivers.base import Capability, LineData, LineSpec, SecondPass
+from drivers.conformance.kit import Fail, Kit, NotApplicable, Timer
+from drivers.conformance.trials import abort_during, capability_missing, engage, refused, status_of
+
+LIFT_M = 100e-9
+TRAVEL_MAX_M = 300e-6
+SPEED_TOLERANCE = 0.1  # a move may look up to 10 % faster than the limit (clock granularity)
+
+
+# ---- motion --------------------------------------------------------------------------------------------------
+
+def z_limit_high(kit: Kit) -> str:
+    ctl = kit.controller
+    z = ctl.limits.z_range_m * (1 + 1e-3)
+    refused(lambda: ctl.move_z(z), f"move_z({z:g} m) beyond the Z range")
+    got = status_of(ctl).z_m
+    if got != 0.0:
+        raise Fail(f"move_z({z:g} m) was refused, yet status reports Z at {got:g} m (clipped?)")
+    return f"Z just beyond its range ({z:g} m) refused, Z stayed at 0"
+
+
+def xy_limits(kit: Kit) -> str:
+    ctl, size = kit.controller, kit.controller.limits.scan_size_max_m
+    over = size * (1 + 1e-2)
+    for x, y in ((over, 0.0), (0.0, -over)):
+        refused(lambda: ctl.move_xy(x, y), f"move_xy({x:g} m, {y:g} m) beyond the scan range")
+    said = f"XY positions {over:g} m from the centre refused"
+    if ctl.has(Capability.TWO_PASS_LINE):
+        spec = LineSpec(0.0, -over / 2, over, 8, 1.0, (SecondPass(LIFT_M),))
+        refused(lambda: ctl.scan_line(spec), f"scan_line of length {over:g} m beyond the scan size {size:g} m")
+        said += f"; a line {over:g} m long refused"
+    return said
+
+
+def nonfinite_motion(kit: Kit) -> str:
+    ctl = kit.controller
+    calls = [(f"move_z({v})", lambda v=v: ctl.move_z(v)) for v in (math.nan, math.inf)]
+    calls += [(f"move_xy({x}, {y})", lambda x=x, y=y: ctl.move_xy(x, y)) for x, y in ((math.nan, 0.0),
+                                                                                      (0.0, -math.inf))]
+    for what, call in calls:
+        refused(call, what)
+    if status_of(ctl).z_m != 0.0:
+        raise Fail("a refused non-finite move left Z away from 0")
+    return "NaN and infinite Z and XY targets refused; Z stayed at 0"
+
+
+def undeclared_moving(kit: Kit) -> str:
+    ctl = kit.controller
+    tried = []
+    if not ctl.has(Capability.COARSE_MOTOR):
+        capability_missing(lambda: ctl.step_coarse(-1), "step_coarse without coarse_motor")
+        tried.append("step_coarse")
+    if not ctl.has(Capability.FORCE_CURVE):
+        capability_missing(lambda: ctl.force_curve(0.0, 2), "force_curve without force_curve")
+        tried.append("force_curve")
+    if not ctl.has(Capability.TWO_PASS_LINE):
+        capability_missing(lambda: ctl.scan_line(LineSpec(0.0, 0.0, 0.0, 2, 1.0)), "scan_line without two_pass_line")
+        tried.append("scan_line")
+    if not tried:
+        raise NotApplicable
+    return f"undeclared {', '.join(tried)} refused with CapabilityMissing"
+
+
+def _move_z_timed(ctl, z: float) -> tuple[float, float]:
+    start = status_of(ctl).z_m
+    t = Timer()
+    ctl.move_z(z)
+    return t(), abs(z - start)
+
+
+def z_move(kit: Kit) -> str:
+    ctl, lim = kit.controller, kit.controller.limits
+    dz = min(0.2 * lim.z_range_m, 4e-6, lim.z_speed_max_m_per_s * 0.5)
+    out_s, _ = _move_z_timed(ctl, dz)
+    s = status_of(ctl)
+    sensor = ctl.read(["z_m"])["z_m"]
+    back_s, _ = _move_z_timed(ctl, 0.0)
+    least = dz / lim.z_speed_max_m_per_s * (1 - SPEED_TOLERANCE)
+    for what, took in (("out", out_s), ("back", back_s)):
+        if took < least:
+            raise Fail(f"Z moved {dz * 1e6:.2f} µm {what} in {took * 1e3:.1f} ms: {dz / max(took, 1e-9) * 1e6:.0f} "
+                       f"µm/s, above the speed limit {lim.z_speed_max_m_per_s * 1e6:g} µm/s (a stage without "
+                       f"wall-clock time, such as a simulated one at fast pace, cannot pass this)")
+    tol = max(0.02 * dz, 5e-9)
+    for what, got in (("status().z_m", s.z_m), ("read z_m", sensor)):
+        if not abs(got - dz) <= tol:
+            raise Fail(f"after move_z({dz:g} m) {what} reads {got:g} (m?), expected {dz:g} m within {tol:g} m")
+    if status_of(ctl).z_m != 0.0:
+        raise Fail("after move_z(0) status does not report Z at 0")
+    return (f"Z to {dz * 1e6:.2f} µm in {out_s * 1e3:.0f} ms and back in {back_s * 1e3:.0f} ms (limit "
+            f"{lim.z_speed_max_m_per_s * 1e6:g} µm/s, at least {least * 1e3:.0f} ms each way); status and sensor "
+            f"read {s.z_m * 1e6:.3f} and {sensor * 1e6:.3f} µm")
+
+
+def xy_move(kit: Kit) -> str:
+    ctl = kit.controller
+    for x, y in ((0.5e-6, -0.5e-6), (-0.5e-6, 0.5e-6), (0.0, 0.0)):
+        ctl.move_xy(x, y)
+    return "the scanner moved to (0.5, -0.5) µm, (-0.5, 0.5) µm and back to the centre"
+
+
+def withdraw_wins(kit: Kit) -> str:
+    ctl, lim = kit.controller, kit.controller.limits
+    dz = min(0.2 * lim.z_range_m, lim.z_speed_max_m_per_s * 2.0)
+    nominal = dz / lim.z_speed_max_m_per_s
+    trial = abort_during(ctl, lambda: ctl.move_z(dz), f"Z move of {dz * 1e6:.2f} µm", nominal,
+                         after_s=min(0.05, nominal / 4))
+    said = trial.judge(ctl)
+    time.sleep(0.05)
+    z = status_of(ctl).z_m
+    if z != 0.0:
+        raise Fail(f"50 ms after the abort Z is at {z:g} m: the move carried on after the withdraw")
+    return said + "; Z stayed at 0 afterwards"
+
+
+def coarse(kit: Kit) -> str:
+    ctl, lim = kit.controller, kit.controller.limits
+    if not ctl.has(Capability.COARSE_MOTOR):
+        raise NotApplicable
+    p0 = status_of(ctl).coarse_position_m
+    ctl.step_coarse(5)
+    p1 = status_of(ctl).coarse_position_m
+    ctl.step_coarse(-5)
+    p2 = status_of(ctl).coarse_position_m
+    nominal = 5 * lim.coarse_step_m
+    if not 0.5 * nominal <= p1 - p0 <= 1.5 * nominal:
+        raise Fail(f"5 coarse steps towards the sample changed coarse_position_m by {p1 - p0:g}, expected about "
+                   f"{nominal:g} m (positive = towards the sample)")
+    if not abs(p2 - p0) <= 0.5 * nominal:
+        raise Fail(f"5 steps forward and 5 back left the coarse position {p2 - p0:g} m from the start")
+    return f"5 coarse steps moved {(p1 - p0) * 1e9:.0f} nm towards the sample (nominal {nominal * 1e9:.0f} nm) and back"
+
+
+MOTION = [("motion.z_limit_high", z_limit_high), ("motion.xy_limits", xy_limits),
+          ("motion.nonfinite", nonfinite_motion), ("motion.capabilities_undeclared", undeclared_moving),
+          ("motion.z_move", z_move), ("motion.xy_move", xy_move), ("motion.withdraw_wins", withdraw_wins),
+          ("motion.coarse", coarse)]
+
+
+# ---- engaged -------------------------------------------------------------------------------------------------
+
+def approach(kit: Kit) -> str:
+    ctl = kit.controller
+    try:
+        return engage(ctl, kit.notes, travel_max_m=min(TRAVEL_MAX_M, ctl.limits.coarse_travel_max_m))
+    finally:
+        kit.notes["engaged"] = status_of(ctl).engaged
+        if not kit.notes["engaged"]:
+            kit.settle()
+
+
+def _engaged(kit: Kit) -> None:
+    if not kit.notes.get("engaged"):
+        raise Fail("not engaged: the approach did not succeed")
+    if not kit.controller.has(Capability.TWO_PASS_LINE):
+        raise NotApplicable
+
+
+def line(kit: Kit) -> str:
+    _engaged(kit)
+    ctl = kit.controller
+    px = 32
+    spec = LineSpec(0.0, -0.5e-6, 1e-6, px, 8.0, (SecondPass(LIFT_M), SecondPass(LIFT_M)))
+    data = ctl.scan_line(spec)
+    if not isinstance(data, LineData):
+        raise Fail(f"scan_line returned {type(data).__name__}, not LineData")
+    topo, err = np.asarray(data.topography_m), np.asarray(data.amplitude_error_v)
+    if topo.shape != (px,) or err.shape != (px,) or len(data.passes) != 2:
+        raise Fail(f"a {px}-pixel line with 2 second passes gave topography {topo.shape}, amplitude error "
+                   f"{err.shape}, {len(data.passes)} passes")
+    z_range = ctl.limits.z_range_m
+    if not (np.isfinite(topo).all() and np.abs(topo).max() <= 10 * z_range and np.ptp(topo) < 0.5 * z_range):
+        raise Fail(f"topography_m spans {np.nanmin(topo):g} .. {np.nanmax(topo):g}: not metres of a surface?")
+    for k, p in enumerate(data.passes):
+        ph, amp = np.asarray(p.phase_deg), np.asarray(p.amplitude_v)
+        if ph.shape != (px,) or amp.shape != (px,) or p.lift_height_m != LIFT_M or p.bias_v != 0.0:
+            raise Fail(f"pass {k}: phase {ph.shape}, amplitude {amp.shape}, lift {p.lift_height_m:g} m, bias "
+                       f"{p.bias_v:g} V; asked {px} pixels at {LIFT_M:g} m, 0 V")
+        if not (np.isfinite(ph).all() and np.abs(ph).max() <= 180 and np.isfinite(amp).all() and (amp >= 0).all()):
+            raise Fail(f"pass {k}: phase outside ±180° or amplitude negative or not finite")
+        df = p.frequency_shift_hz
+        if ctl.has(Capability.FREQUENCY_SHIFT) and (df is None or np.asarray(df).shape != (px,)
+                                                    or not np.isfinite(df).all()):
+            raise Fail(f"pass {k}: frequency_shift declared but the pass carries {df!r:.60}")
+    gap = float(np.mean(data.passes[1].phase_deg) - np.mean(data.passes[0].phase_deg))
+    return (f"one line of {px} pixels with two passes at {LIFT_M * 1e9:.0f} nm: shapes as asked, topography "
+            f"{np.ptp(topo) * 1e9:.2f} nm peak to peak, phase within ±180°, the repeat's mean within "
+            f"{abs(gap):.3f}° of the first pass")
+
+
+def abort_mid_line(kit: Kit) -> str:
+    _engaged(kit)
+    ctl = kit.controller
+    passes = (SecondPass(LIFT_M),) * 3
+    rate = 2.0
+    spec = LineSpec(0.0, -0.5e-6, 1e-6, 32, rate, passes)
+    said = abort_during(ctl, lambda: ctl.scan_line(spec), "scan line", (1 + len(passes)) / rate).judge(ctl)
+    kit.notes["engaged"] = False
+    return said
+
+
+def watchdog(kit: Kit) -> str:
+    ctl = kit.controller
+    limit_of = getattr(ctl, "server_watchdog_s", None)
+    if not callable(limit_of):
+        raise NotApplicable
+    limit = limit_of()
+    if limit is None:
+        raise Fail("the server's watchdog is off: nothing withdraws the tip if this client falls silent")
+    if limit > 60:
+        raise Fail(f"the server's watchdog waits {limit:g} s, longer than this kit waits (60 s)")
+    engage(ctl, kit.notes, travel_max_m=min(TRAVEL_MAX_M, ctl.limits.coarse_travel_max_m))
+    silent = limit + max(0.25, 0.2 * limit)  # the server looks every few tens of ms
+    time.sleep(silent)
+    s = status_of(ctl)
+    if not s.safe:
+        raise Fail(f"engaged, then silent for {silent:.1f} s (server watchdog {limit:g} s): status still reports "
+                   f"engaged={s.engaged}, z_m={s.z_m:g}, drive_on={s.drive_on}")
+    return (f"engaged, then silent for {silent:.1f} s: the server's watchdog ({limit:g} s) had withdrawn the tip, "
+            f"switched the drive off and set the bias to 0 V")
+
+
+ENGAGED = [("engaged.approach", approach), ("engaged.line", line), ("engaged.abort_mid_line", abort_mid_line),
+           ("engaged.watchdog", watchdog)]

@@ -1,0 +1,68 @@
+"""The withdraw key acts at once: pressed in the middle of a scan line at realtime pace (lines of 4 s), the stage
+reports withdrawn, drive off and bias 0 V well before the line would have ended.
+
+The bound is generous (1 s) for a shared machine; ``python tests/benchmarks/run.py abort`` measures the figure.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import time
+
+from assistant.procedures.calibrate import CalibrationSettings
+from assistant.storage.probe_record import ProbeRecord
+from assistant.tui.app import MfmApp
+from drivers.registry import open_controller
+from simulated_stage.clock import VirtualClock
+from simulated_stage.scenario import Scenario
+
+#: whichever key the app binds to its withdraw action
+WITHDRAW = next(b.key for b in MfmApp.BINDINGS if b.action == "withdraw")
+#: a small sample close to the tip: the approach is short and the field tables cheap
+SCENARIO = """
+name = "withdraw-now"
+[instrument]
+start_gap_um = 7.0
+[sample]
+pattern = "stripes"
+period_nm = 400.0
+extent_um = 3.0
+pixel_nm = 20.0
+"""
+
+
+async def _withdraw_mid_line(tmp_path) -> tuple[float, float]:
+    clock = VirtualClock("fast", max_lag_s=0.005)
+    ctl = open_controller("sim://", scenario=Scenario.from_text(SCENARIO), clock=clock, seed=5)
+    app = MfmApp(ctl, session_path=tmp_path / "s.h5", probe_record=ProbeRecord(tmp_path / "record"),
+                 poll_interval_s=0.1)
+    app.workflow.calibrate(CalibrationSettings(thermal_seconds=0.2))  # at fast pace, before the UI starts
+    app.workflow.approach()
+    clock.set_pace("realtime")
+    async with app.run_test(size=(80, 24)) as pilot:
+        sv = app.view("series")
+        sv.query_one("#s-heights").value = "20,40,80"
+        sv.query_one("#s-lines").value = "8"
+        sv.query_one("#s-pixels").value = "16"
+        sv.query_one("#s-rate").value = "1"
+        app.start_series(sv.checked_settings())
+        await pilot.pause(0.8)  # inside the first line (4 passes at 1 Hz, the repeat pass too)
+        assert app.busy == "series" and sv.lines_done == 0
+        t0 = time.monotonic()
+        await pilot.press(WITHDRAW)
+        while not app._withdraw_confirmed:
+            assert time.monotonic() - t0 < 10, "no confirmed withdraw"
+            await pilot.pause(0.005)
+        confirmed = time.monotonic() - t0
+        while app.busy:
+            await pilot.pause(0.01)
+        step_ended = time.monotonic() - t0
+        assert app.controller.status().safe and sv.lines_done == 0
+        texts = [text for _, text in app.view("log").entries]
+        assert "series: cancelled" in texts and any("confirmed by status" in t for t in texts)
+    return confirmed, step_ended
+
+
+def test_withdraw_key_mid_line_at_realtime_pace(tmp_path):
+    confirmed, step_ended = asyncio.run(_withdraw_mid_line(tmp_path))
+    assert confirmed < 1.0 and step_ended < 2.0, (confirmed, step_ended)
