@@ -11,7 +11,7 @@ from __future__ import annotations
 import functools
 from collections.abc import Iterator, Sequence
 from dataclasses import asdict, fields
-from typing import Any
+from typing import TYPE_CHECKING, Any
 from urllib.parse import parse_qs, urlsplit
 
 import numpy as np
@@ -24,7 +24,9 @@ from drivers.link_faults import gate_for
 from simulated_stage.clock import PACES, VirtualClock
 from simulated_stage.errors import LASER_LOST, ScenarioError, StageError, StageFault, StageLimitError
 from simulated_stage.faults import FaultyStage
-from simulated_stage.scenario import Scenario, build_microscope, load_scenario
+
+if TYPE_CHECKING:  # the stage's physics (scipy) loads when a controller is opened, not with the plug-in
+    from simulated_stage.scenario import Scenario
 
 _URL_KEYS = ("scenario", "seed", "pace", "line_rate")
 STAGE_ERROR_CODE = -300  # SCPI "device-specific error" for stage errors without a code of their own
@@ -118,6 +120,8 @@ class SimulatedController(Controller):
         if not 0 < line_rate <= 1000:
             raise BadURL(f"line_rate = {line_rate:g} Hz is outside (0, 1000] Hz")
         scenario = merged.get("scenario", "default")
+        from simulated_stage.scenario import Scenario, build_microscope, load_scenario
+
         try:
             if not isinstance(scenario, Scenario):
                 scenario = load_scenario(str(scenario))
