@@ -21,9 +21,8 @@ from textual.widgets import Button, Footer, Static, TabbedContent, TabPane
 from assistant.errors import InputError
 from assistant.formatting import quantity
 from assistant.procedures.events import Cancelled, Notice
+from assistant.tui.bridge import ProcedureEvent, StatusChanged, StepFinished, WithdrawDone
 from assistant.tui.connect import DeferredConnection
-from assistant.tui.bridge import (MessageSink, ProcedureEvent, SerialisedController, StatusChanged, StepFinished,
-                                  WithdrawDone)
 from assistant.tui.fields_actions import FieldSeriesActions
 from assistant.tui.screens import WITHDRAW_KEY, ConfirmQuit, HelpScreen
 from assistant.tui.session_view import load_session
@@ -97,18 +96,6 @@ class MfmApp(DeferredConnection, FieldSeriesActions, StepRunner, App[int]):
         self._stop_poll = threading.Event()
         self._quit_pending = False
         self._withdraw_confirmed = False
-
-    def attach_controller(self, controller, *, scenario_text: str | None = None) -> None:
-        from assistant.procedures.workflow import Workflow
-
-        self.controller = SerialisedController(controller)
-        self.workflow = Workflow(self.controller, self.session_path, controller_url=self.controller_url,
-                                 scenario_text=scenario_text, limits=self.limits, sink=MessageSink(self))
-
-    def controller_live(self) -> None:
-        self.view("approach").configure(travel_max_m=self.limits.coarse_travel_max_m,
-                                        z_range_m=self.controller.limits.z_range_m)
-        self._poll_worker()
 
     # ---- layout ------------------------------------------------------------------------------------------
     def compose(self):

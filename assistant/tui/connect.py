@@ -14,6 +14,8 @@ from __future__ import annotations
 
 import threading
 
+from assistant.tui.bridge import MessageSink, SerialisedController
+
 
 class DeferredConnection:
     """Mixin of :class:`assistant.tui.app.MfmApp` for a controller opened after the first screen."""
@@ -22,6 +24,20 @@ class DeferredConnection:
     _connected = None  # the controller the thread opened (unwrapped), for mfma tui to make safe and close
     _connect_error: BaseException | None = None
     _withdraw_on_connect = False
+
+    def attach_controller(self, controller, *, scenario_text: str | None = None) -> None:
+        """The controller (shared through :class:`SerialisedController`) and the workflow over it."""
+        from assistant.procedures.workflow import Workflow
+
+        self.controller = SerialisedController(controller)
+        self.workflow = Workflow(self.controller, self.session_path, controller_url=self.controller_url,
+                                 scenario_text=scenario_text, limits=self.limits, sink=MessageSink(self))
+
+    def controller_live(self) -> None:
+        """Once mounted with a controller: the approach view learns its limits and the status poll starts."""
+        self.view("approach").configure(travel_max_m=self.limits.coarse_travel_max_m,
+                                        z_range_m=self.controller.limits.z_range_m)
+        self._poll_worker()
 
     @property
     def connecting(self) -> bool:
