@@ -55,8 +55,8 @@ def targets_table(table: list[dict], results: dict) -> str:
              f"{results['load_average_1min_end']:.1f} at the end; {results['cpus']} cpus)"]
     for t in table:
         unit = t["unit"]
-        value = f"{t['value']:.3g} {unit}".strip()
-        limit = f"{t['target']:.3g} {unit}".strip()
+        value = f"{t['value']:.4g} {unit}".strip()
+        limit = f"{t['target']:.4g} {unit}".strip()
         share = t["value"] / t["target"] if t["target"] else float("nan")
         lines.append(f"  {t['what']:<{width}} {value:>12}  target <= {limit:<10} {share:6.2f} of it  "
                      f"{'met' if t['met'] else 'MISSED'}")
