@@ -1,10 +1,10 @@
 """The terminal UI's first screen (target: drawn within 1 s of start), measured in a real terminal.
 
-``mfma tui`` on the simulated stage starts in a detached tmux session of 120 x 40 cells on a server of its own
-(a socket in a temporary folder, so no one else's sessions are touched); the pane is read every 20 ms until the
-first screen is there: the tab bar (``1 Probe``) and the footer's withdraw key. The time is from just before tmux is asked to
-start the command to the first read that shows both; the median of the runs is the figure. The session is then
-killed with its server (the simulated stage has nothing to withdraw).
+``mfma tui`` on the simulated stage starts in a detached tmux session of 120 x 40 cells on a server of its own (a
+socket in a temporary folder, so no one else's sessions are touched); the pane is read every 20 ms until the first
+screen is there: the tab bar (``1 Probe``) and the footer's withdraw key. The time is from just before tmux is
+asked to start the command to the first read that shows both; the median of the runs is the figure. The session is
+then killed with its server (the simulated stage has nothing to withdraw).
 
 ``MFMA_BENCH_RUNS`` sets the number of runs (default 3).
 """
