@@ -250,6 +250,7 @@ def series(args) -> int:
     from assistant.procedures.analyse import analyse_npz, analyse_session_file
 
     p = _existing(args.file)
+    _refuse_short_series(p, args.series)  # before any work: one or two heights cannot be decomposed
     with StageProgress() as progress:
         with progress.stage("analysis", f"decomposing {p.name}"):
             if _is_hdf5(p):
@@ -277,6 +278,35 @@ def series(args) -> int:
             lines += ["", f"figures in {args.plots}: " + ", ".join(p.name for p in written)]
         emit_text(lines)
     return 0
+
+
+def _refuse_short_series(p: Path, name: str | None) -> None:
+    """Exit 2 with the plain sentence when the series has fewer heights than the decomposition needs."""
+    import numpy as np
+
+    from assistant.analysis.imaging import DECOMPOSITION_MIN_HEIGHTS, decomposition_needs
+
+    if _is_hdf5(p):
+        from assistant.storage.session_file import SessionFile
+
+        with SessionFile.open(p, "r") as sf:
+            names = sf.series_names()
+            if not names or (name is not None and name not in names):
+                return  # the analysis names the problem
+            n = sf.read_series(name or names[-1]).heights_m.size
+    elif p.suffix.lower() == ".npz":
+        try:
+            with np.load(p, allow_pickle=False) as z:
+                if "heights_nm" not in z.files:
+                    return
+                n = np.atleast_1d(z["heights_nm"]).size
+        except (OSError, ValueError):
+            return
+    else:
+        return
+    if n < DECOMPOSITION_MIN_HEIGHTS:
+        raise UsageError(f"{p}: {decomposition_needs(n)} `mfma report` shows what the series does tell "
+                         "(images, noise, repeat check, V_cpd of a bias grid).")
 
 
 def series_text(d: dict, *, biases_v=None) -> list[str]:

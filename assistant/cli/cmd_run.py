@@ -38,9 +38,7 @@ def _series_settings(args):
 
     heights = tuple(h * 1e-9 for h in args.heights) if args.heights else DEFAULT_HEIGHTS_M
     biases = tuple(args.biases)
-    if len(biases) == 2:
-        raise UsageError("--biases: give one bias (no grid) or at least three biases for a bias grid, got two")
-    grid = biases if len(biases) >= 3 else None
+    grid = biases if len(biases) >= 2 else None  # two only with one or two heights (checked with the plan)
     return SeriesSettings(heights_m=heights, biases_v=grid, bias_v=biases[0] if grid is None else 0.0,
                           lines=args.lines, pixels=args.pixels,
                           scan_size_m=args.size_um * 1e-6, line_rate_hz=args.line_rate,
@@ -58,6 +56,32 @@ def _writer_hook(ctl):
     from drivers.simulated import SimulatedController
 
     return ctl.writer_fault_hook() if isinstance(ctl, SimulatedController) else None
+
+
+def _plan(settings, limits, *, controller=None, sink=None):
+    """The checks before the stage moves (settings alone, then with the controller's limits and capabilities)."""
+    from assistant.procedures.events import Notice
+    from assistant.procedures.preflight import check_series_plan
+
+    plan = check_series_plan(settings, limits=limits, controller=controller)
+    if sink is not None:
+        sink(Notice("info", "this series gives " + plan.sentence[0].lower() + plan.sentence[1:]))
+    return plan
+
+
+def resume_controller_options(args, plan) -> dict:
+    """Options for the controller a resume opens: on the simulated stage its pace, the series' line rate and,
+    unless ``--scenario`` names another, the scenario the file was recorded on."""
+    from drivers.registry import scheme_of
+
+    if scheme_of(args.controller) != "sim":
+        return {}
+    extra = {"pace": args.pace, "line_rate": plan.series.line_rate_hz}
+    if not args.scenario and plan.scenario_text:
+        from simulated_stage.scenario import Scenario
+
+        extra["scenario"] = Scenario.from_text(plan.scenario_text, name="stored")
+    return extra
 
 
 _FIELD_MAP_NEEDS_LIFT_SERIES = "--field-map maps the stray field of a lift series; a field series has none to map"
@@ -96,44 +120,54 @@ def _field_map_step(wf, tip) -> str | None:
 
 
 def run(args) -> int:
+    from assistant.cli.interrupts import remember_interrupts
     from assistant.cli.progress import StageProgress
     from assistant.procedures.guard import load_limits
 
-    limits = load_limits(args.limits)
-    if args.field_map and args.fields_ka_per_m is not None and not args.resume:
-        raise UsageError(_FIELD_MAP_NEEDS_LIFT_SERIES)
-    tip = _field_map_tip(args)
-    with StageProgress() as progress:
-        if args.resume:
-            return _resume(args, limits, progress, tip)
-        if args.fields_ka_per_m is not None:
-            from assistant.cli.cmd_run_fields import run_fields
+    with remember_interrupts() as latch:  # a Ctrl-C while the libraries load is honoured before any motion
+        limits = load_limits(args.limits)
+        if args.field_map and args.fields_ka_per_m is not None and not args.resume:
+            raise UsageError(_FIELD_MAP_NEEDS_LIFT_SERIES)
+        tip = _field_map_tip(args)
+        with StageProgress() as progress:
+            if args.resume:
+                return _resume(args, limits, progress, latch, tip)
+            if args.fields_ka_per_m is not None:
+                from assistant.cli.cmd_run_fields import run_fields
 
-            return run_fields(args, limits, progress)
-        return _run(args, limits, progress, tip)
+                return run_fields(args, limits, progress, latch)
+            return _run(args, limits, progress, latch, tip)
 
 
-def _run(args, limits, progress, tip=None) -> int:
+def _run(args, limits, progress, latch, tip=None) -> int:
+    from assistant.procedures.resume import run_plan_json
     from assistant.procedures.workflow import Workflow
     from assistant.report.summary import build_report
     from drivers.registry import redact, scheme_of
 
-    out = _writable_dir(args.out)
     series_settings = _series_settings(args)
-    series_settings.validate(limits)
+    _plan(series_settings, limits)
     cal_settings = calibration_settings(args)
     cal_settings.validate()
+    out = _writable_dir(args.out)
     session_path = new_session_path(out)
     extra = {"pace": args.pace, "line_rate": args.line_rate} if scheme_of(args.controller) == "sim" else {}
     with open_controller_from_args(args, **extra) as ctl:
+        _plan(series_settings, limits, controller=ctl, sink=progress)  # before the first motion
         wf = Workflow(ctl, session_path, controller_url=redact(args.controller), scenario_text=_scenario_text(ctl),
                       limits=limits, sink=progress, fsync=args.fsync, before_write=_writer_hook(ctl))
         try:
             from assistant.storage.probe_record import ProbeRecord
 
+            # the plan goes first, so a run stopped at any moment leaves a file that can be resumed
+            wf.session.write_run_plan(run_plan_json(series_settings, cal_settings, probe_record=bool(args.probe)))
+            latch.check()
             wf.calibrate(cal_settings, probe_record=ProbeRecord() if args.probe else None)
+            latch.check()
             wf.approach()
+            latch.check()
             wf.series(series_settings)
+            latch.check()
             with progress.stage("analysis", "decomposing the series"):
                 analysis = wf.analyse()
             field_map_error = _field_map_step(wf, tip)
@@ -146,31 +180,43 @@ def _run(args, limits, progress, tip=None) -> int:
     return _finish(args, session_path, report, wf, analysis, field_map_error)
 
 
-def _resume(args, limits, progress, tip=None) -> int:
-    from assistant.procedures.workflow import ResumePlan, Workflow
+def _resume(args, limits, progress, latch, tip=None) -> int:
+    from assistant.procedures.events import Notice
+    from assistant.procedures.resume import read_resume_plan, reestablish_drive
+    from assistant.procedures.workflow import Workflow
     from assistant.report.summary import build_report
-    from drivers.registry import scheme_of
 
-    path = Path(args.resume)
-    if not path.is_file():
-        raise UsageError(f"resume file {path} does not exist")
-    plan = ResumePlan.read(path)
+    plan = read_resume_plan(args.resume)  # what is left: start, scan or analyse (see procedures/resume.py)
     if plan.is_field_series:
         from assistant.cli.cmd_run_fields import resume_fields
 
         if tip is not None:
             raise UsageError(_FIELD_MAP_NEEDS_LIFT_SERIES)
-        return resume_fields(args, plan, limits, progress)
-    extra = {"pace": args.pace, "line_rate": plan.series.line_rate_hz} if scheme_of(args.controller) == "sim" else {}
+        return resume_fields(args, plan, limits, progress, latch)
+    path, settings = plan.path, plan.series
+    if plan.stage == "analyse":  # every line is written: analyse and report, no instrument needed
+        return _finish_stored(args, plan, progress, tip)
+    _plan(settings, limits)
+    extra = resume_controller_options(args, plan)
     with open_controller_from_args(args, **extra) as ctl:
+        _plan(settings, limits, controller=ctl)  # before the first motion
         wf = Workflow.resume(ctl, plan, limits=limits, sink=progress, fsync=args.fsync,
                              before_write=_writer_hook(ctl))
         try:
-            from assistant.procedures.events import Notice
+            latch.check()
+            if plan.stage == "start":
+                from assistant.storage.probe_record import ProbeRecord
 
-            progress(Notice("info", f"resuming {plan.series.name} at {plan.where}"))
+                progress(Notice("info", f"resuming {path.name}: stopped before its series began; starting it"))
+                wf.calibrate(plan.calibration, probe_record=ProbeRecord() if plan.probe_record else None)
+            else:
+                progress(Notice("info", f"resuming {settings.name} at {plan.where}"))
+                reestablish_drive(ctl, plan.drive, limits=limits, sink=progress, cancel=wf.cancel)
+            latch.check()
             wf.approach()
-            wf.series(plan.series, resume=True)
+            latch.check()
+            wf.series(settings, resume=plan.stage == "scan")
+            latch.check()
             with progress.stage("analysis", "decomposing the series"):
                 analysis = wf.analyse()
             field_map_error = _field_map_step(wf, tip)
@@ -182,11 +228,37 @@ def _resume(args, limits, progress, tip=None) -> int:
     return _finish(args, path, report, wf, analysis, field_map_error)
 
 
+def _finish_stored(args, plan, progress, tip=None) -> int:
+    """The series was complete when the run stopped: the analysis, the report and the complete flag."""
+    from assistant.procedures.analyse import analyse_session_series
+    from assistant.procedures.events import Notice
+    from assistant.procedures.series import SeriesResult
+    from assistant.procedures.workflow import Workflow
+    from assistant.report.summary import build_report
+
+    path, s = plan.path, plan.series
+    progress(Notice("info", f"resuming {path.name}: every line is written; analyzing and reporting"))
+    wf = Workflow.resume(None, plan, sink=progress, fsync=args.fsync)
+    try:
+        wf.series_settings = s
+        wf.series_result = SeriesResult(s.name, s.heights_m, plan.completed_lines, s.lines, 0.0)
+        with progress.stage("analysis", "decomposing the series"):
+            analysis = wf.analysis = analyse_session_series(wf.session, s.name, sink=progress)
+        field_map_error = _field_map_step(wf, tip)
+        wf.session.mark_complete()
+        wf.session.flush()
+        report = build_report(path, report_dir_for(path), sink=progress, per_height_scale=args.per_height_scale)
+    finally:
+        wf.close()
+    return _finish(args, path, report, wf, analysis, field_map_error)
+
+
 def _finish(args, session_path: Path, report, wf, analysis, field_map_error: str | None = None) -> int:
     cal = wf.calibration
     calib = ({"k_n_per_m": cal.k_n_per_m, "k_std_n_per_m": cal.k_std_n_per_m, "f0_hz": cal.thermal.f0_hz,
               "q": cal.thermal.q, "invols_nm_per_v": cal.invols_m_per_v * 1e9} if cal is not None else
-             {"k_n_per_m": wf.spring_constant_n_per_m, "k_std_n_per_m": None, "f0_hz": wf.drive.frequency_hz,
+             {"k_n_per_m": wf.spring_constant_n_per_m, "k_std_n_per_m": None,
+              "f0_hz": wf.drive.frequency_hz if wf.drive is not None else None,
               "q": wf.quality_factor, "invols_nm_per_v": None})
     s = wf.series_settings
     summary = {
@@ -219,7 +291,8 @@ def _finish(args, session_path: Path, report, wf, analysis, field_map_error: str
                                    f"{span(*fmap['band_nm'], 'nm')}), stored in the session file as field_map/"))
     emit_text(render_block(pairs + [
         ("Calibration", cal_text),
-        ("Series", f"{wf.series_result.completed_lines} lines at {len(s.heights_m)} lift heights ({heights})"
+        ("Series", f"{wf.series_result.completed_lines} lines at {len(s.heights_m)} lift "
+                   f"height{'s' if len(s.heights_m) != 1 else ''} ({heights})"
          + (f" × {len(s.biases_v)} biases" if s.biases_v else "")),
         ("Session file", str(session_path)), ("Report", str(report.out_dir))], markdown=False))
     return _field_map_verdict(field_map_error)

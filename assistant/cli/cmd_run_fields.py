@@ -1,7 +1,7 @@
 """``mfma run --fields-ka-per-m LIST|START:STOP:STEP``: calibrate, approach once, image every field step at one
 lift height, analyse the loop, write the report. ``mfma run --resume FILE`` on a session whose field series was
-interrupted continues it (``cmd_run`` reads the :class:`~assistant.procedures.workflow.ResumePlan` and hands a
-field series over to :func:`resume_fields`)."""
+interrupted continues it at whatever moment it stopped (``cmd_run`` reads the
+:class:`~assistant.procedures.workflow.ResumePlan` and hands a field series over to :func:`resume_fields`)."""
 
 from __future__ import annotations
 
@@ -32,11 +32,19 @@ def field_settings(args):
                                line_rate_hz=args.line_rate, repeat_first=not args.no_repeat)
 
 
-def run_fields(args, limits, progress) -> int:
-    """A new session: calibrate, approach, the field series, its loop analysis, the report."""
+def _check(latch) -> None:
+    """A Ctrl-C remembered by ``mfma run``'s latch stops the run before the next step that moves the stage."""
+    if latch is not None:
+        latch.check()
+
+
+def run_fields(args, limits, progress, latch=None) -> int:
+    """A new session: calibrate, approach, the field series, its loop analysis, the report. The run plan is kept
+    in the file first, so a run stopped at any moment can be resumed."""
     from assistant.cli.cmd_run import _scenario_text, _writable_dir, _writer_hook, calibration_settings
     from assistant.outputs import new_session_path, report_dir_for
     from assistant.procedures.field_series import check_controller
+    from assistant.procedures.resume import run_plan_json
     from assistant.procedures.workflow import Workflow
     from assistant.report.summary import build_report
     from drivers.registry import redact, scheme_of
@@ -55,9 +63,14 @@ def run_fields(args, limits, progress) -> int:
         try:
             from assistant.storage.probe_record import ProbeRecord
 
+            wf.session.write_run_plan(run_plan_json(settings, cal_settings, probe_record=bool(args.probe)))
+            _check(latch)
             wf.calibrate(cal_settings, probe_record=ProbeRecord() if args.probe else None)
+            _check(latch)
             wf.approach()
+            _check(latch)
             wf.field_series(settings)
+            _check(latch)
             analysis = _analysed(wf, progress, session_path)
             wf.session.mark_complete()
             wf.session.flush()
@@ -67,33 +80,79 @@ def run_fields(args, limits, progress) -> int:
     return _finish(args, session_path, report, wf, analysis)
 
 
-def resume_fields(args, plan, limits, progress) -> int:
+def resume_fields(args, plan, limits, progress, latch=None) -> int:
     """Continue the interrupted field series of ``plan`` (a field series' ResumePlan) through the workflow's
-    resume: the stored calibration, a new approach, the turning points retraced, the remaining steps."""
-    from assistant.cli.cmd_run import _writer_hook
+    resume, at the stage the file says is left: ``start`` (calibrate first), ``scan`` (the stored drive
+    re-established, a new approach, the turning points retraced, the remaining steps) or ``analyse`` (every line
+    written: the loop analysis and the report, no instrument)."""
+    from assistant.cli.cmd_run import _writer_hook, resume_controller_options
     from assistant.outputs import report_dir_for
     from assistant.procedures.events import Notice
     from assistant.procedures.field_series import check_controller
+    from assistant.procedures.resume import reestablish_drive
     from assistant.procedures.workflow import Workflow
     from assistant.report.summary import build_report
-    from drivers.registry import scheme_of
 
     settings = plan.series
-    extra = {"pace": args.pace, "line_rate": settings.line_rate_hz} if scheme_of(args.controller) == "sim" else {}
-    with open_controller_from_args(args, **extra) as ctl:
+    if plan.stage == "analyse":
+        return _finish_stored(args, plan, progress)
+    settings.validate(limits)
+    with open_controller_from_args(args, **resume_controller_options(args, plan)) as ctl:
         check_controller(ctl, settings, limits)
         wf = Workflow.resume(ctl, plan, limits=limits, sink=progress, fsync=args.fsync,
                              before_write=_writer_hook(ctl))
         try:
-            progress(Notice("info", f"resuming {settings.name} at {plan.where}"))
+            _check(latch)
+            if plan.stage == "start":
+                from assistant.storage.probe_record import ProbeRecord
+
+                progress(Notice("info", f"resuming {plan.path.name}: stopped before its field series began; "
+                                        "starting it"))
+                wf.calibrate(plan.calibration, probe_record=ProbeRecord() if plan.probe_record else None)
+            else:
+                progress(Notice("info", f"resuming {settings.name} at {plan.where}"))
+                reestablish_drive(ctl, plan.drive, limits=limits, sink=progress, cancel=wf.cancel)
+            _check(latch)
             wf.approach()
-            wf.field_series(settings, resume=True)
+            _check(latch)
+            wf.field_series(settings, resume=plan.stage == "scan")
+            _check(latch)
             analysis = _analysed(wf, progress, plan.path)
             wf.session.mark_complete()
             wf.session.flush()
             report = build_report(plan.path, report_dir_for(plan.path), sink=progress)
         finally:
             wf.close()
+    return _finish(args, plan.path, report, wf, analysis)
+
+
+def _finish_stored(args, plan, progress) -> int:
+    """Every line of the field series was written when the run stopped: the loop analysis, the report and the
+    complete flag, without an instrument."""
+    from assistant.analysis.field_series import LoopInputError
+    from assistant.outputs import report_dir_for
+    from assistant.procedures.analyse_loop import analyse_stored
+    from assistant.procedures.events import Notice
+    from assistant.procedures.field_series import FieldSeriesResult
+    from assistant.procedures.workflow import Workflow
+    from assistant.report.summary import build_report
+
+    s = plan.series
+    progress(Notice("info", f"resuming {plan.path.name}: every line is written; analyzing and reporting"))
+    wf = Workflow.resume(None, plan, sink=progress, fsync=args.fsync)
+    try:
+        wf.field_settings = s
+        wf.field_result = FieldSeriesResult(s.name, s.fields_a_per_m, [], plan.completed_lines, s.lines, 0.0)
+        try:
+            with progress.stage("analysis", "switching fields and the loop"):
+                analysis = wf.loop_analysis = analyse_stored(wf.session, s.name, sink=progress)
+        except LoopInputError as exc:
+            raise UsageError(f"{exc}; the images are kept in {plan.path}") from None
+        wf.session.mark_complete()
+        wf.session.flush()
+        report = build_report(plan.path, report_dir_for(plan.path), sink=progress)
+    finally:
+        wf.close()
     return _finish(args, plan.path, report, wf, analysis)
 
 
@@ -112,7 +171,8 @@ def _finish(args, session_path: Path, report, wf, analysis) -> int:
     cal = wf.calibration
     calib = ({"k_n_per_m": cal.k_n_per_m, "k_std_n_per_m": cal.k_std_n_per_m, "f0_hz": cal.thermal.f0_hz,
               "q": cal.thermal.q, "invols_nm_per_v": cal.invols_m_per_v * 1e9} if cal is not None else
-             {"k_n_per_m": wf.spring_constant_n_per_m, "k_std_n_per_m": None, "f0_hz": wf.drive.frequency_hz,
+             {"k_n_per_m": wf.spring_constant_n_per_m, "k_std_n_per_m": None,
+              "f0_hz": wf.drive.frequency_hz if wf.drive is not None else None,
               "q": wf.quality_factor, "invols_nm_per_v": None})
     s, res = wf.field_settings, wf.field_result
     loop = analysis.to_dict()

@@ -200,11 +200,13 @@ def build_parser() -> argparse.ArgumentParser:
     add_controller_options(p)
     _calibration_options(p)
     p.add_argument("--heights", type=number_list, metavar="NM,...", help="lift heights in nm "
-                   "(default 10,15,20,30,50,75,100)")
+                   "(default 10,15,20,30,50,75,100); one or two give the images, their noise and V_cpd, three or "
+                   "more also the decomposition and a recommended lift height")
     p.add_argument("--biases", type=number_list, metavar="V,...", default=[-0.5, 0.0, 0.5, 1.0],
                    help="tip biases in V: three or more make a bias grid at every height, which separates the "
                         "electrostatic part and finds V_cpd (default -0.5,0,0.5,1); one value: every second pass "
-                        "at that bias, no grid. A list that starts with a minus sign needs '=': --biases=-1,0,1")
+                        "at that bias, no grid; two: images at both (one or two heights only). A list that starts "
+                        "with a minus sign needs '=': --biases=-1,0,1")
     p.add_argument("--lines", type=positive(int), default=32,
                    help=f"scan lines (default 32, at least {MIN_LINES}; the decomposition needs "
                         f"{MIN_LINES_ANALYSIS} completed lines)")

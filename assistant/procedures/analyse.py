@@ -9,6 +9,7 @@ from pathlib import Path
 import numpy as np
 
 from assistant.analysis.calibration import ThermalFit, WelchSpectrum, fit_thermal_spectrum
+from assistant.analysis.imaging import DECOMPOSITION_MIN_HEIGHTS, ImagingAnalysis, analyse_imaging
 from assistant.analysis.lift_series import (ProbeModel, SeriesAnalysis, SeriesInputError, analyse_series,
                                             first_pass_gap_offset_m)
 from assistant.procedures.events import Notice, Sink, null_sink
@@ -48,23 +49,45 @@ def analyse_session_series(session, name: str | None, *, sink: Sink = null_sink,
     data = session.read_series(name)
     if data.completed_lines < 4:
         raise SeriesInputError(f"series {name!r} has {data.completed_lines} completed lines; need at least 4")
-    probe = stored_probe(json.loads(data.settings_json or "{}"), line_rate_hz=data.line_rate_hz, pixels=data.pixels)
-    result = analyse_series(np.asarray(data.phase_deg, dtype=float), heights_m=np.asarray(data.heights_m, dtype=float),
-                            pixel_m=(data.scan_size_m / data.lines, data.scan_size_m / data.pixels),  # lines, pixels
-                            bias_v=None if data.biases_v is None else np.asarray(data.biases_v, dtype=float),
-                            repeat_phase_deg=data.repeat_phase_deg, probe=probe,
-                            short_range_fraction=short_range_fraction, edge=edge)
+    settings = json.loads(data.settings_json or "{}")
+    if data.heights_m.size < DECOMPOSITION_MIN_HEIGHTS:  # one or two heights: what they tell, no decomposition
+        result = analyse_imaging_series(data, settings)
+    else:
+        probe = stored_probe(settings, line_rate_hz=data.line_rate_hz, pixels=data.pixels)
+        result = analyse_series(np.asarray(data.phase_deg, dtype=float),
+                                heights_m=np.asarray(data.heights_m, dtype=float),
+                                pixel_m=(data.scan_size_m / data.lines, data.scan_size_m / data.pixels),
+                                bias_v=None if data.biases_v is None else np.asarray(data.biases_v, dtype=float),
+                                repeat_phase_deg=data.repeat_phase_deg, probe=probe,
+                                short_range_fraction=short_range_fraction, edge=edge)
     if write:
         scalars, arrays = storage_form(result.to_dict())
-        session.write_analysis(name, scalars, arrays, result=result.to_record())
+        # the whole decomposition is kept for the report; the imaging result is recomputed in milliseconds
+        whole = result.to_record() if isinstance(result, SeriesAnalysis) else None
+        session.write_analysis(name, scalars, arrays, result=whole)
     for text in getattr(result, "messages", ()):
         sink(Notice("info", text))
     return result
 
 
-def stored_series_analysis(session, name: str) -> SeriesAnalysis:
+def analyse_imaging_series(data, settings: dict) -> ImagingAnalysis:
+    """One or two lift heights (a ``SeriesData``): image statistics, noise, repeat check, V_cpd of a bias grid.
+    k, Q, f0, the free amplitude and the temperature come from the stored settings; what was not stored is not
+    assumed (the noise then has no thermal verdict)."""
+    drive = settings.get("drive") or {}
+    known = {"spring_constant_n_per_m": settings.get("spring_constant_n_per_m"),
+             "quality_factor": settings.get("quality_factor"), "resonance_hz": drive.get("frequency_hz"),
+             "amplitude_m": drive.get("free_amplitude_m"), "temperature_k": settings.get("temperature_k")}
+    return analyse_imaging(data.phase_deg, heights_m=data.heights_m, bias_v=data.biases_v,
+                           repeat_phase_deg=data.repeat_phase_deg,
+                           bandwidth_hz=0.5 * data.line_rate_hz * data.pixels,  # Nyquist of one pixel's dwell
+                           **{k: float(v) for k, v in known.items() if v is not None})
+
+
+def stored_series_analysis(session, name: str) -> SeriesAnalysis | ImagingAnalysis:
     """The decomposition of series ``name`` as it was stored with the series; a series that was never analysed
-    (an interrupted run, or a file from before results were kept whole) is decomposed now, without writing."""
+    (an interrupted run, or a file from before results were kept whole) is decomposed now, without writing. A
+    series of one or two heights gives its :class:`ImagingAnalysis` (computed now: it takes milliseconds)."""
     record = session.read_analysis_result(name)
     if record is not None:
         return SeriesAnalysis.from_record(record.scalars, record.arrays)

@@ -18,6 +18,13 @@ class NoSurfaceFound(AssistantError, RuntimeError):
     """The allowed coarse travel was used up without the amplitude reaching the setpoint."""
 
 
+class ApproachSettingsError(AssistantError, ValueError):
+    """The drive and setpoint cannot engage this lever (found before any coarse motion)."""
+
+
+_RETRACTED = 0.02  # Z below this fraction of its range counts as pulled back by the feedback (rule of thumb)
+
+
 @dataclass(frozen=True)
 class ApproachSettings:
     drive_frequency_hz: float
@@ -73,6 +80,12 @@ def approach(controller, settings: ApproachSettings, *, limits: SafetyLimits | N
             cancel.raise_if_set()
             limits.check_sum(controller.read(["sum_v"])["sum_v"])
             holds, z, amp = _engaged_reading(controller, settings)
+            if holds and z < _RETRACTED * z_range and amp < (1.0 - 2.0 * settings.tolerance) * settings.setpoint_v:
+                # the feedback pulled Z all the way back although nothing is near: the free lever does not reach
+                # the setpoint, so "in reach" would be a misreading (a drive that no longer fits the lever)
+                raise ApproachSettingsError(
+                    f"the feedback retracted Z fully with the amplitude at {amp * 1e3:.1f} mV, below the setpoint "
+                    f"{settings.setpoint_v * 1e3:.1f} mV: the drive does not fit this lever; calibrate again")
             pos = controller.status().coarse_position_m
             result.cycles += 1
             result.trace_coarse_m.append(pos)
@@ -93,6 +106,8 @@ def approach(controller, settings: ApproachSettings, *, limits: SafetyLimits | N
         # Re-centre: retract, move coarse by the distance between found Z and mid-range, re-engage.
         mid = 0.5 * z_range
         steps = int(round((z - mid) / step_m))
+        # never retract the motor past its origin as the controller reports it (coarse position >= 0)
+        steps = max(steps, -int(controller.status().coarse_position_m / step_m))
         if steps != 0:
             controller.set_feedback(False)
             controller.withdraw()

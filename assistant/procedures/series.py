@@ -33,7 +33,7 @@ class SeriesSettings:
 
     name: str = "series1"
     heights_m: tuple[float, ...] = DEFAULT_HEIGHTS_M
-    biases_v: tuple[float, ...] | None = None  # a bias grid (>= 3 biases) at every height, or None
+    biases_v: tuple[float, ...] | None = None  # biases at every height (>= 3 for a decomposition), or None
     bias_v: float = 0.0  # the tip bias of every second pass when there is no grid
     lines: int = 32
     pixels: int = 128
@@ -79,8 +79,15 @@ class SeriesSettings:
         for b in self.biases_v or (self.bias_v,):
             limits.check_bias(b)
         if self.biases_v is not None:
-            if len(self.biases_v) < 3:
-                raise SeriesSettingsError(f"a bias grid needs at least three biases, got {len(self.biases_v)}")
+            from assistant.analysis.imaging import DECOMPOSITION_MIN_HEIGHTS
+
+            if len(self.biases_v) < 2:
+                raise SeriesSettingsError(f"a list of biases needs at least two, got {len(self.biases_v)}; "
+                                          "give a single bias as bias_v")
+            if len(self.biases_v) < 3 and len(self.heights_m) >= DECOMPOSITION_MIN_HEIGHTS:
+                # the decomposition fits the image mean with one bias, or as a parabola in bias (three or more)
+                raise SeriesSettingsError(f"with {len(self.heights_m)} lift heights a bias grid needs at least "
+                                          f"three biases, got {len(self.biases_v)}: give one bias, or three or more")
             if len(set(self.biases_v)) != len(self.biases_v):
                 raise SeriesSettingsError("biases must be distinct")
         if self.pixels < 8:

@@ -35,33 +35,34 @@ class WorkflowError(AssistantError, RuntimeError):
 
 @dataclass(frozen=True)
 class ResumePlan:
-    """What continuing an interrupted session needs, read from its file before any controller is opened: the
-    unfinished series' settings (a lift series, or a field series: :attr:`is_field_series`) and the calibration
-    stored with them. ``completed_lines`` counts the lines of every field step of a field series."""
+    """What continuing an interrupted session needs, read from its file before any controller is opened.
+
+    ``stage`` says what is left (:func:`assistant.procedures.resume.read_resume_plan` decides it): ``"start"``
+    (stopped before its series began: the run plan's ``calibration`` and ``series``), ``"scan"`` (the unfinished
+    series, with the drive, k, Q and temperature stored with it) or ``"analyse"`` (every line written, the
+    analysis and the report not). The series is a lift series or a field series (:attr:`is_field_series`);
+    ``completed_lines`` counts the lines of every field step of a field series. ``scenario_text`` is the
+    simulated stage's scenario the file was recorded on.
+    """
 
     path: Path
     series: SeriesSettings | FieldSeriesSettings
     completed_lines: int
-    drive: DriveSettings
-    spring_constant_n_per_m: float
-    quality_factor: float
+    drive: DriveSettings | None
+    spring_constant_n_per_m: float | None
+    quality_factor: float | None
     temperature_k: float
+    stage: str = "scan"
+    calibration: CalibrationSettings | None = None
+    probe_record: bool = False
+    scenario_text: str | None = None
 
     @classmethod
     def read(cls, path: str | Path) -> "ResumePlan":
-        """Read the plan; a file without series or with its last series finished is refused."""
-        from assistant.storage import SessionFile, resume_point
-        from assistant.storage.resume import FIELD_SERIES
+        """Read the plan; a complete session, or a file with neither a series nor a run plan, is refused."""
+        from assistant.procedures.resume import read_resume_plan
 
-        with SessionFile.open(path, "r") as sf:  # raises a clear error for files that are not session files
-            point = resume_point(sf)
-        stored = point.settings
-        kind = FieldSeriesSettings if point.kind == FIELD_SERIES else SeriesSettings
-        return cls(path=Path(path), completed_lines=point.completed_lines,
-                   series=kind.from_dict({k: v for k, v in stored.items() if k not in CALIBRATION_KEYS}),
-                   drive=DriveSettings(**{k: float(v) for k, v in stored["drive"].items()}),
-                   spring_constant_n_per_m=stored["spring_constant_n_per_m"],
-                   quality_factor=stored["quality_factor"], temperature_k=stored["temperature_k"])
+        return read_resume_plan(path)
 
     @property
     def is_field_series(self) -> bool:
@@ -166,7 +167,7 @@ class Workflow:
 
         wf = cls(controller, plan.path, **options)
         wf._session = SessionFile.open(plan.path, "a", fsync=wf.fsync)
-        wf.drive = plan.drive
+        wf.drive = plan.drive  # None at the "start" stage: calibrate first
         wf.spring_constant_n_per_m = plan.spring_constant_n_per_m
         wf.quality_factor = plan.quality_factor
         wf.temperature_k = plan.temperature_k

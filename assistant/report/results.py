@@ -76,6 +76,9 @@ def _short_range_share(d: dict, i: int) -> str | None:
 def _lift_text(d: dict) -> str:
     rec = _num(d.get("recommended_lift_nm"))
     heights = _list(d, "heights_nm") or []
+    if d.get("kind") == "imaging":  # one or two heights: no recommendation is claimed
+        return (f"not given: it needs at least 3 lift heights, this series has {len(heights)} "
+                "(the images and their noise are reported)")
     if rec is None:
         sentence = str(d.get("recommendation") or "")
         reason = sentence.split(":", 1)[1].split(".")[0].strip() if ":" in sentence else ""
@@ -108,6 +111,8 @@ def _lift_text(d: dict) -> str:
 
 def _bias_text(d: dict) -> str:
     cpd = _num(d.get("cpd_v"))
+    if cpd is None and d.get("cpd_sentence"):  # a bias grid whose image mean did not vary beyond noise
+        return "not determined: " + str(d["cpd_sentence"]).rstrip(". ")
     if cpd is None:
         return "not measured (needs a bias grid of three or more biases)"
     return f"{quantity(cpd, 'V', _num(d.get('cpd_std_v')))} (V_cpd: nulls the electrostatic part)"

@@ -192,6 +192,11 @@ def caption(file_name: str, *, per_height_scale: bool) -> str:
         return "topography (first pass), plane removed"
     if "_phase" in stem:
         return f"second-pass phase, {scale}; dark = attractive"
+    if stem.endswith("_second_passes"):
+        return ("every second pass (each lift height and tip bias) on one phase scale centred on zero, the repeat "
+                "of the first height, repeat minus first pass, and the second-pass amplitude")
+    if stem.endswith("_bias_parabola"):
+        return "image-mean phase against tip bias with the fitted parabola; its vertex is V_cpd"
     if stem == "decomposition_mean":
         return "image-mean phase against lift height with the fitted electrostatic and short-range parts; " \
                "the recommended lift is marked"

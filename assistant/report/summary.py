@@ -23,7 +23,9 @@ from pathlib import Path
 from assistant.formatting import yes_no
 from assistant.procedures.events import Progress, Sink, null_sink
 from assistant.report import field_figures, sections
+from assistant.report.imaging_sections import imaging_section
 from assistant.report.calibration_figures import write_sweep_figure, write_thermal_figure
+from assistant.report.imaging_figures import write_imaging_figures
 from assistant.report.images import phase_figure, remove_plane, save_png, topography_figure
 from assistant.report.loop_report import field_series_report
 from assistant.report.media_report import media_section
@@ -54,6 +56,8 @@ def _series_images(data: SeriesData, out_dir: Path, *, per_height_scale: bool = 
         return []
     paths = [save_png(topography_figure(data.topography_m, scan_size_m=data.scan_size_m, lines=data.lines,
                                         title=f"{data.name}: topography"), out_dir / f"{data.name}_topography.png")]
+    if len(data.heights_m) < 3:  # one or two heights: the imaging overview shows every image on one scale
+        return paths
     if data.biases_v is None:
         fig = phase_figure(data.phase_deg, heights_m=data.heights_m, scan_size_m=data.scan_size_m,
                            repeat_phase_deg=data.repeat_phase_deg, lines=data.lines, title=f"{data.name}: phase",
@@ -133,6 +137,8 @@ def _decomposition_figures(session: SessionFile, out_dir: Path, notes: list[str]
             result = stored_series_analysis(session, name)
             if computed is not None and name not in session.analysis_names():
                 computed[name] = result
+            if getattr(result, "kind", None) == "imaging":  # one or two heights: no decomposition to draw
+                return write_imaging_figures(result, session.read_series(name), target)
             return write_series_figures(result, target, per_height_scale=per_height_scale)
         paths += _figures(f"decomposition figures of {name!r}", notes, write)
     return paths
@@ -202,9 +208,12 @@ def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLik
             rec = session.read_analysis(name)
             analysed.append((name, {**rec.scalars, **rec.arrays}))
         if analysed:
-            body += ["## Decomposition", ""]
+            body += ["## Decomposition" if all(d.get("kind") != "imaging" for _, d in analysed) else "## Analysis", ""]
             for name, d in analysed:
                 grid = series_data[name].biases_v if name in series_data else None
+                if d.get("kind") == "imaging":  # one or two heights: what was measured, no decomposition
+                    body += imaging_section(name, d)
+                    continue
                 body += sections.analysis_section(name, d, grid)
         paths += _calibration_figures(session, out, notes)
         step("calibration figures")

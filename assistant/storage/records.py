@@ -59,6 +59,7 @@ class SessionInfo:
     controller_url: str
     scenario_text: str | None
     complete: bool
+    run_plan_json: str | None = None  # what mfma run was asked to do, kept before anything moved
 
 
 @dataclass(frozen=True)

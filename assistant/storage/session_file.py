@@ -57,8 +57,7 @@ RESULT_GROUP = "result"
 
 class SessionFile(FieldMapGroups, FieldSeriesGroups):
     """An open session file. Create with :meth:`create`, reopen with :meth:`open`; use as a context manager.
-    The stray-field maps of quantitative MFM are written and read by :class:`FieldMapGroups`, the field series by
-    :class:`FieldSeriesGroups`."""
+    Stray-field maps are kept by :class:`FieldMapGroups`, field series by :class:`FieldSeriesGroups`."""
 
     def __init__(self, h5: h5py.File, *, fsync: bool) -> None:
         self._h5 = h5
@@ -209,6 +208,14 @@ class SessionFile(FieldMapGroups, FieldSeriesGroups):
             if whole is not None:
                 fill_group(group.create_group(RESULT_GROUP), *whole)
 
+    def write_run_plan(self, plan_json: str) -> None:
+        """Keep what the run was asked to do (JSON) as the root attribute ``run_plan_json`` (``info()`` reads it),
+        so that a run stopped before its series began can still be resumed."""
+        if len(plan_json.encode()) > MAX_ATTR_TEXT:
+            raise SessionFileError(f"run plan is {len(plan_json.encode())} bytes; limit {MAX_ATTR_TEXT}")
+        with self._writing("the run plan"):
+            self._h5.attrs["run_plan_json"] = plan_json
+
     def mark_complete(self, complete: bool = True) -> None:
         """Mark the session as finished normally (or, resuming it, as not finished again)."""
         if not complete and not bool(self._h5.attrs.get("complete", False)):
@@ -257,7 +264,8 @@ class SessionFile(FieldMapGroups, FieldSeriesGroups):
                            software_version=str(a["software_version"]), created_utc=str(a["created_utc"]),
                            controller_url=str(a["controller_url"]),
                            scenario_text=None if scenario is None else str(scenario),
-                           complete=bool(a["complete"]))
+                           complete=bool(a["complete"]),
+                           run_plan_json=None if a.get("run_plan_json") is None else str(a["run_plan_json"]))
 
     def series_names(self) -> list[str]:
         return sorted(self._h5["series"]) if "series" in self._h5 else []

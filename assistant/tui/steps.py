@@ -72,19 +72,25 @@ class StepRunner:
         wf = self.workflow
         self._run("approach", lambda: wf.approach())
 
-    def validate_series(self, settings) -> None:
-        lim = self.controller.limits if self.controller is not None else None
-        settings.validate(self.limits, z_range_m=lim.z_range_m if lim else None,
-                          scan_size_max_m=lim.scan_size_max_m if lim else None)
+    def validate_series(self, settings):
+        """The checks ``mfma run`` makes before the stage moves (limits, capabilities, a free series name);
+        returns the plan, which says what the series will give."""
+        from assistant.procedures.preflight import check_series_plan
+
+        return check_series_plan(settings, limits=self.limits, controller=self.controller,
+                                 existing_series=self.series_names(), approach=False)
+
+    def series_names(self) -> list[str]:
+        """Series already in the session file (none before the first step wrote it)."""
+        wf = self.workflow
+        return wf.session.series_names() if wf is not None and wf.session_path.exists() else []
 
     def start_series(self, settings) -> None:
+        from assistant.procedures.preflight import free_series_name
+
         wf = self.workflow
         if wf is not None:  # every series of the session gets its own group: series1, series2, ...
-            taken = set(wf.session.series_names())
-            n = 1
-            while f"series{n}" in taken:
-                n += 1
-            settings = dataclasses.replace(settings, name=f"series{n}")
+            settings = dataclasses.replace(settings, name=free_series_name(self.series_names()))
         if self._run("series", lambda: wf.series(settings)):
             self.view("series").begin(heights_m=settings.heights_m, biases_v=settings.biases_v,
                                       lines=settings.lines, pixels=settings.pixels, scan_size_m=settings.scan_size_m)

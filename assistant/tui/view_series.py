@@ -14,7 +14,7 @@ from textual_plotext import PlotextPlot
 from assistant.formatting import duration, number_list
 from assistant.tui.colours import symmetric_limit
 from assistant.tui.plots import redraw
-from assistant.tui.view_base import FieldError, View
+from assistant.tui.view_base import View
 from assistant.tui.widgets import Field, HalfBlockImage, ScaleKey
 
 LINE_PLOT_INTERVAL_S = 1.0
@@ -64,6 +64,7 @@ class SeriesView(View):
         self.remaining_s: float | None = None
         self.instrument_s: float | None = None
         self._previews_built_for: tuple | None = None
+        self.plan_sentence = ""
         self.final_message: str | None = None  # how the last series ended; progress never overwrites it
 
     def compose(self):
@@ -111,11 +112,13 @@ class SeriesView(View):
 
     # settings ----------------------------------------------------------------------------------------
     def settings(self):
+        from assistant.procedures.preflight import free_series_name
         from assistant.procedures.series import SeriesSettings
 
         heights = self.numbers("s-heights", "heights")
         biases = self.numbers("s-biases", "biases", optional=True)
         return SeriesSettings(
+            name=free_series_name(self.app.series_names()),  # series1, then series2, ... in one session file
             heights_m=tuple(h * 1e-9 for h in heights), biases_v=biases,
             lines=int(self.number("s-lines", "lines", integer=True)),
             pixels=int(self.number("s-pixels", "pixels", integer=True)),
@@ -126,9 +129,7 @@ class SeriesView(View):
     def checked_settings(self):
         """Settings from the form, validated as the procedure will validate them; raises with the reason."""
         s = self.settings()
-        self.app.validate_series(s)
-        if s.biases_v is not None and len(s.biases_v) < 3:
-            raise FieldError(f"biases: a bias grid needs at least three biases, got {len(s.biases_v)}")
+        self.plan_sentence = self.app.validate_series(s).sentence
         return s
 
     def on_button_pressed(self, event: Button.Pressed) -> None:
@@ -141,7 +142,7 @@ class SeriesView(View):
         except ValueError as exc:  # FieldError and SeriesSettingsError both are ValueErrors
             msg.update(f"[b]not valid:[/b] {exc}")
             return
-        msg.update(f"ok: {len(s.passes)} second passes per line; {s.order}")
+        msg.update(f"ok: {len(s.passes)} second passes per line. {self.plan_sentence}")
         if event.button.id == "series-start":
             self.app.start_series(s)
 

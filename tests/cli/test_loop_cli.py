@@ -179,7 +179,7 @@ def _partial_session(tmp_path: Path, scenario: Path, stop_after_lines: int) -> P
     return path
 
 
-def test_run_resume_finishes_an_interrupted_field_series(tmp_path, capsys):
+def test_run_resume_finishes_an_interrupted_field_series(tmp_path, capsys, monkeypatch):
     import h5py
 
     scenario = tmp_path / "dots.toml"
@@ -198,10 +198,17 @@ def test_run_resume_finishes_an_interrupted_field_series(tmp_path, capsys):
     d = json.loads(out)
     assert d["field_series"]["completed_steps"] == 9 and d["loop"]["tip_reversals_ka_per_m"] == [-225.0, 225.0]
     assert "resuming" in err and "retracing the fields 450" in err
-    with h5py.File(path, "r") as f:
+    with h5py.File(path, "r+") as f:
         g = f["field_series/fields1"]
         assert int(g.attrs["completed_lines"]) == 72 and bool(f.attrs["complete"])
         assert g["phase_deg"][:3].tobytes() == before.tobytes()
+        f.attrs["complete"] = False  # as if stopped while the report was written: only the analysis is left
+    from matplotlib.figure import Figure
+
+    monkeypatch.setattr(Figure, "savefig", lambda self, *a, **k: None)  # drawn above; the stage is under test here
+    code, out, err = _run(["run", "--resume", str(path), "--controller", "sim://?scenario=nowhere", "--json"], capsys)
+    assert code == 0 and "every line is written" in err, err  # no instrument is opened for it
+    assert json.loads(out)["loop"]["tip_reversals_ka_per_m"] == [-225.0, 225.0]
 
 
 @pytest.mark.slow

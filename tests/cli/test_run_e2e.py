@@ -14,6 +14,8 @@ import h5py
 import numpy as np
 import pytest
 
+from assistant.cli import main
+
 SMALL = ["--lines", "12", "--pixels", "64", "--heights", "10,20,40,80", "--thermal-seconds", "0.5"]
 # a lighter run for the repeated kill test: one bias, three heights
 KILL = ["--lines", "12", "--pixels", "32", "--heights", "10,20,40", "--biases", "0", "--thermal-seconds", "0.5"]
@@ -77,52 +79,85 @@ def _start(cwd: Path, *argv: str) -> subprocess.Popen:
 def _wait_for_series(proc: subprocess.Popen, timeout_s: float = 120) -> None:
     t0 = time.monotonic()
     for line in proc.stderr:
-        if line.startswith("series:") or "series: " in line:
+        if line.startswith("series ") and " of " in line:  # "series 1 of 12 lines", the plain progress line
             return
         assert time.monotonic() - t0 < timeout_s, "series never started"
     raise AssertionError(f"run ended before the series: {proc.wait()}")
 
 
-def test_sigkill_at_random_moments_then_resume_keeps_every_line(tmp_path):
+# The report's scenario: a lever that is not the default one, nothing else (a small sample and a coarse motor that
+# starts 12 µm from the surface only keep the stray-field maps and the realtime approach short). Resuming a file recorded on it drove a new default stage with the stored drive and failed in the
+# approach ("coarse position = -5.0e-06 m is outside the allowed range").
+PROBE_ONLY = """[probe]
+spring_constant_n_per_m = 2.2
+resonance_hz = 71000
+quality_factor = 210
+invols_nm_per_v = 62
+
+[environment]
+temperature_k = 296
+
+[instrument]
+start_gap_um = 12.0
+
+[sample]
+extent_um = 6.0
+pixel_nm = 20.0
+"""
+
+
+def test_sigkill_mid_series_then_resume_keeps_every_line(tmp_path, capsys, monkeypatch):
+    # one kill in the default suite; tests/cli/test_kill_resume.py (slow) draws many, by SIGKILL and Ctrl-C, at
+    # both paces, on sim:// and over both links, at moments from the start-up to the report
+    from tests.cli.kill_resume import without_pngs
+
+    without_pngs(monkeypatch)
+    scenario = tmp_path / "probe.toml"
+    scenario.write_text(PROBE_ONLY)
     rng = np.random.default_rng(2024)
-    for attempt in range(3):
-        cwd = tmp_path / f"kill{attempt}"
-        cwd.mkdir()
-        # realtime pace so the series takes a few seconds: 12 lines x 5 passes at 20 lines/s per pass
-        proc = _start(cwd, "run", *KILL, "--seed", "3", "--pace", "realtime", "--line-rate", "20")
-        _wait_for_series(proc)
-        time.sleep(float(rng.uniform(0.0, 1.2)))
-        os.kill(proc.pid, signal.SIGKILL)
-        proc.wait()
-        session = next((cwd / "mfma-out").glob("session-*.h5"))
-        with h5py.File(session, "r") as f:  # opens plainly after the kill
-            s = f["series/series1"]
-            done = int(s.attrs["completed_lines"])
-            before = s["phase_deg"][..., :done, :].copy()
-            topo = s["topography/topography_m"][:done, :].copy() if "topography" in s else None
-            assert np.all(np.isfinite(before))
-        if done == 12:
-            continue  # finished before the kill: nothing to resume
-        res = mfma("run", "--resume", str(session), "--seed", "3", cwd=cwd)
-        assert res.returncode == 0, res.stderr
-        with h5py.File(session, "r") as f:
-            s = f["series/series1"]
-            assert int(s.attrs["completed_lines"]) == 12 and bool(f.attrs["complete"])
-            assert s["phase_deg"][..., :done, :].tobytes() == before.tobytes()
-            if topo is not None:
-                assert s["topography/topography_m"][:done, :].tobytes() == topo.tobytes()
-            assert np.all(np.isfinite(s["phase_deg"][...]))
-        again = mfma("run", "--resume", str(session), cwd=cwd)
-        assert again.returncode == 2 and "already complete" in again.stderr
+    # realtime pace: 20 lines x 5 passes at 20 lines/s, 5 s
+    proc = _start(tmp_path, "run", *KILL, "--lines", "20", "--scenario", str(scenario), "--pace", "realtime",
+                  "--line-rate", "20")
+    for line in proc.stderr:  # the tip engaged: the series starts now (notices are written at once)
+        if line.startswith("engaged:"):
+            break
+    time.sleep(float(rng.uniform(0.5, 2.5)))
+    os.kill(proc.pid, signal.SIGKILL)
+    proc.wait()
+    session = next((tmp_path / "mfma-out").glob("session-*.h5"))
+    with h5py.File(session, "r") as f:  # opens plainly after the kill
+        s = f["series/series1"]
+        done = int(s.attrs["completed_lines"])
+        before = {k: s[k][..., :done, :].copy() for k in ("phase_deg", "amplitude_v", "topography_m")}
+        assert all(np.all(np.isfinite(v)) for v in before.values())
+    assert 0 < done < 20
+    # resumed in this process, without --scenario: the stage is rebuilt from the scenario stored in the file
+    assert main(["run", "--resume", str(session)]) == 0, capsys.readouterr().err
+    assert "drive re-established" in capsys.readouterr().err
+    with h5py.File(session, "r") as f:
+        s = f["series/series1"]
+        assert int(s.attrs["completed_lines"]) == 20 and bool(f.attrs["complete"])
+        for key, old in before.items():
+            assert s[key][..., :done, :].tobytes() == old.tobytes()
+        assert np.all(np.isfinite(s["phase_deg"][...]))
+    assert main(["run", "--resume", str(session)]) == 2
+    assert "already complete" in capsys.readouterr().err
 
 
 def test_ctrl_c_withdraws_and_exits_130(tmp_path):
-    proc = _start(tmp_path, "run", *KILL, "--pace", "realtime", "--line-rate", "20")
+    # 64 lines x 5 passes at 10 lines/s: the series lasts 32 s, so the Ctrl-C sent after its first line always
+    # lands in it (the stage's realtime clock no longer runs the series at full speed after a slow start)
+    from tests.cli.kill_resume import quick_scenario  # a one-cycle approach: the series starts sooner
+
+    proc = _start(tmp_path, "run", *KILL, "--lines", "64", "--scenario", str(quick_scenario(tmp_path)),
+                  "--pace", "realtime", "--line-rate", "10")
     _wait_for_series(proc)
     proc.send_signal(signal.SIGINT)
     _, err = proc.communicate(timeout=60)
     assert proc.returncode == 130, err
     assert "withdrawn" in err
+    with h5py.File(next((tmp_path / "mfma-out").glob("session-*.h5")), "r") as f:
+        assert 0 < int(f["series/series1"].attrs["completed_lines"]) < 64
 
 
 @pytest.mark.parametrize("argv, needle", [
@@ -136,23 +171,25 @@ def test_ctrl_c_withdraws_and_exits_130(tmp_path):
     (["--resume", "nothing.h5"], "does not exist"),
     (["--scenario", "no-such-scenario"], "no-such-scenario"),
 ])
-def test_bad_input_exit_2(tmp_path, argv, needle):
-    out = mfma("run", *argv, cwd=tmp_path)
-    assert out.returncode == 2, out.stderr
-    assert needle in out.stderr and "Traceback" not in out.stderr
-    assert len(out.stderr.strip().splitlines()) == 1
+def test_bad_input_exit_2(tmp_path, capsys, argv, needle):
+    out = tmp_path / "out"
+    assert main(["run", *argv, "--out", str(out)]) == 2  # in this process: the checks need no interpreter start
+    err = capsys.readouterr().err
+    assert needle in err and "Traceback" not in err
+    assert len(err.strip().splitlines()) == 1
+    assert not out.exists() or not any(out.iterdir())  # nothing written before the checks
 
 
-def test_resume_rejects_a_file_that_is_not_a_session(tmp_path):
+def test_resume_rejects_a_file_that_is_not_a_session(tmp_path, capsys):
     bogus = tmp_path / "bogus.h5"
     with h5py.File(bogus, "w") as f:
         f["x"] = np.arange(3)
-    out = mfma("run", "--resume", str(bogus), cwd=tmp_path)
-    assert out.returncode == 2 and "session" in out.stderr.lower()
+    assert main(["run", "--resume", str(bogus)]) == 2
+    assert "session" in capsys.readouterr().err.lower()
 
 
-def test_unwritable_output_folder(tmp_path):
+def test_unwritable_output_folder(tmp_path, capsys):
     blocker = tmp_path / "file"
     blocker.write_text("")
-    out = mfma("run", "--out", str(blocker / "sub"), cwd=tmp_path)
-    assert out.returncode == 2 and "output folder" in out.stderr
+    assert main(["run", "--out", str(blocker / "sub")]) == 2
+    assert "output folder" in capsys.readouterr().err

@@ -67,7 +67,7 @@ def test_interaction_cost_per_line_and_height_with_a_warm_cache():
 def test_node_build_cost_on_the_padded_grid():
     sample = build_sample(SampleSpec(), TipSpec())
     sample.interaction(np.zeros(4), 0.0, 50e-9, bias_v=0.0, amplitude_m=10e-9)  # spectrum and weights
-    assert sample._stray_field().shape == (2048, 2048)
+    assert sample.magnetic._stray_field().shape == (2048, 2048)
     start = time.perf_counter()
     sample.interaction(np.zeros(4), 0.0, 90e-9, bias_v=0.0, amplitude_m=10e-9)
     node_s = time.perf_counter() - start

@@ -224,13 +224,15 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
                      for sig_i, ok_i in zip(sig.reshape(nh * nb, rows, cols), okf)])
     phase_var = image_var.reshape(nh, nb)[-1] / gain.reshape(nh, nb)[-1]  # per bias, from the top height
     if len(alias_axes) == 2 and repeat_phase_deg is not None:
-        # with both axes aliased no band is free of signal: the difference of the first pass and its repeat is
-        # (robust median-based estimate, about 37 % efficient)
+        # with both axes aliased no band is free of signal: the first pass minus its repeat is (a robust
+        # median-based estimate, about 37 % efficient); identical passes (noise-free data) keep the band's
         rep = np.asarray(repeat_phase_deg, float)
-        phase_var = np.full(nb, detect_tip_change(stack[0] if not grid else stack[0, 0],
-                                                  rep[0] if rep.ndim == 3 else rep).noise_deg ** 2)
-        dof = 0.37 * rows * cols
+        first = stack[0] if not grid else stack[0, 0]
+        rep_var = detect_tip_change(first, rep[0] if rep.ndim == 3 else rep).noise_deg ** 2
+        if rep_var > 0:
+            phase_var, dof = np.full(nb, rep_var), 0.37 * rows * cols
     image_var = np.tile(phase_var, nh) * gain
+    image_var = np.maximum(image_var, 1e-24 * float(np.mean(centred**2)) + 1e-300)  # noise-free data: finite weights
     fit, drift, aligned, valid = _fit_magnetic(src, okf, h, pixel_m, nb=nb, edge=edge, band=band, options=options,
                                                image_var=image_var, dof=dof)
     drift_cov = None

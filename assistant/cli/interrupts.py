@@ -1,0 +1,49 @@
+"""A Ctrl-C is never lost between the start of a command and the first motion.
+
+Python turns SIGINT into ``KeyboardInterrupt`` wherever the main thread happens to be. While a command imports
+its libraries, that can be inside library code that catches the exception and carries on, and the run would then
+go on to calibrate and approach although it was asked to stop (seen about once in a dozen Ctrl-C trials sent in
+the first seconds of ``mfma run``). :func:`remember_interrupts` installs a handler that also sets a latch, and
+the command checks the latch before each step that moves the stage.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import signal
+import threading
+from collections.abc import Iterator
+
+
+class InterruptLatch:
+    """Set by SIGINT; :meth:`check` raises ``KeyboardInterrupt`` once it is set."""
+
+    def __init__(self) -> None:
+        self._event = threading.Event()
+
+    def handler(self, signum, frame) -> None:
+        self._event.set()
+        raise KeyboardInterrupt
+
+    def is_set(self) -> bool:
+        return self._event.is_set()
+
+    def check(self) -> None:
+        if self._event.is_set():
+            raise KeyboardInterrupt
+
+
+@contextlib.contextmanager
+def remember_interrupts() -> Iterator[InterruptLatch]:
+    """Install the latching SIGINT handler for the block (only over Python's default one, and only in the main
+    thread); the previous handler is restored on the way out."""
+    latch = InterruptLatch()
+    installed = (threading.current_thread() is threading.main_thread()
+                 and signal.getsignal(signal.SIGINT) is signal.default_int_handler)
+    if installed:
+        signal.signal(signal.SIGINT, latch.handler)
+    try:
+        yield latch
+    finally:
+        if installed:
+            signal.signal(signal.SIGINT, signal.default_int_handler)
