@@ -66,3 +66,32 @@ def panel_grid(fig: Figure, rows: int, cols: int, *, title_lines: int = 1, inner
     cax = fig.add_axes(((x0 + grid_w + BAR_PAD_IN) / width, (y0 + (grid_h - bar_h) / 2) / height,
                         BAR_WIDTH_IN / width, bar_h / height))
     return axes, cax
+
+
+CELL_LEFT_IN = 0.7  # y tick labels and label of each panel
+CELL_BOTTOM_IN = 0.55  # x tick labels and label of each panel
+CELL_BAR_PAD_IN = 0.12
+CELL_BAR_LABELS_IN = 0.85
+
+
+def panels_with_bars(fig: Figure, rows: int, cols: int, *, title_lines: int = 2, bar_fraction: float = 0.85
+                     ) -> tuple[np.ndarray, np.ndarray]:
+    """``rows`` × ``cols`` square axes, each with its own colour-bar axes on its right, every panel labelled on
+    both axes; returns the panels and the bars as flat object arrays in reading order."""
+    width, height = fig.get_size_inches()
+    top = SUPTITLE_IN * title_lines
+    cell_w, cell_h = width / cols, (height - top) / rows
+    side = min(cell_w - CELL_LEFT_IN - CELL_BAR_PAD_IN - BAR_WIDTH_IN - CELL_BAR_LABELS_IN,
+               cell_h - CELL_BOTTOM_IN - TITLE_IN)
+    if side <= 0:
+        raise ValueError(f"a {width:.3g} × {height:.3g} in figure has no room for {rows} × {cols} panels")
+    axes, bars = [], []
+    for r in range(rows):
+        for c in range(cols):
+            x = c * cell_w + CELL_LEFT_IN
+            y = (rows - 1 - r) * cell_h + CELL_BOTTOM_IN + (cell_h - CELL_BOTTOM_IN - TITLE_IN - side) / 2
+            axes.append(fig.add_axes((x / width, y / height, side / width, side / height)))
+            bar_h = side * bar_fraction
+            bars.append(fig.add_axes(((x + side + CELL_BAR_PAD_IN) / width, (y + (side - bar_h) / 2) / height,
+                                      BAR_WIDTH_IN / width, bar_h / height)))
+    return np.array(axes, dtype=object), np.array(bars, dtype=object)
