@@ -49,6 +49,15 @@ _PRELOAD = ["assistant.report.series_images", "assistant.report.calibration_figu
             "assistant.report.series_figures", "assistant.report.imaging_figures"]
 
 
+def _preload_finds_this_package() -> bool:
+    """Whether the fork server would import this very package. Python 3.11's server starts with the current
+    folder first on its path (not this process's path), so in a checkout of another version its preload would
+    import that version's modules and the workers could not find ours; there the workers import for themselves."""
+    here = Path(__file__).resolve().parents[1]
+    there = Path.cwd() / here.name
+    return not there.exists() or there.resolve() == here
+
+
 class Job:
     """One figure writer: what it draws (for the note), and its outcome once known."""
 
@@ -92,7 +101,7 @@ class FigureJobs:
 
             context = multiprocessing.get_context("forkserver")
             # the server imports matplotlib and the figure modules once; each worker is a fork of it
-            context.set_forkserver_preload(_PRELOAD)
+            context.set_forkserver_preload(_PRELOAD if _preload_finds_this_package() else [])
             self._pool = ProcessPoolExecutor(self.processes, mp_context=context)
         return self._pool
 

@@ -6,6 +6,10 @@ stage, the session file) and "other" the rest. The largest phase is named with i
 split (figure drawing and PNG writing by matplotlib against the rest) comes from a profile of the same run.
 Target (from the first measurement on this machine, 8.4 s of a 14.4 s run at load ~3 on 2 cores): the report
 phase halved. ``MFMA_BENCH_RUNS`` runs are made (default 1; the figures are medians).
+
+``MFMA_BENCH_PROFILE=0`` times the run without the profile: the profiler slows only code in this process, so
+with figures drawn by worker processes (``MFMA_REPORT_PROCESSES``) a profiled run would flatter the workers.
+The processes the report used are printed beside the phases.
 """
 
 from __future__ import annotations
@@ -55,20 +59,25 @@ def _one_run(folder: Path) -> dict:
     for name in ("calibrate", "approach", "series", "analyse"):
         timed(wf_module.Workflow, name, name)
     timed(summary, "build_report", "report")
-    profile = cProfile.Profile()
+    profiled = os.environ.get("MFMA_BENCH_PROFILE", "1") != "0"
+    profile = cProfile.Profile() if profiled else None
     os.environ["MFMA_DATA_DIR"], os.environ["MFMA_CONFIG_DIR"] = str(folder / "data"), str(folder / "config")
     t0 = time.perf_counter()
     try:
         with contextlib.redirect_stdout(io.StringIO()), contextlib.redirect_stderr(io.StringIO()):
-            profile.enable()
+            if profile is not None:
+                profile.enable()
             main(["run", "--seed", "1", "--out", str(folder / "out"), "--json"])
-            profile.disable()
+            if profile is not None:
+                profile.disable()
     finally:
         for owner, name, original in patched:
             setattr(owner, name, original)
     total = time.perf_counter() - t0
-    stats = pstats.Stats(profile)
-    savefig = sum(v[3] for k, v in stats.stats.items() if k[2] == "savefig" and "matplotlib" in k[0])
+    savefig = float("nan")
+    if profile is not None:
+        stats = pstats.Stats(profile)
+        savefig = sum(v[3] for k, v in stats.stats.items() if k[2] == "savefig" and "matplotlib" in k[0])
     phases = {k: v for k, v in spent.items() if not k.startswith("_")}
     phases["start"] = spent.get("_first_calibrate", t0) - t0
     phases["other"] = total - sum(phases.values())
@@ -83,7 +92,12 @@ def run() -> dict:
     total = statistics.median(r["total_s"] for r in results)
     top = max(phases, key=phases.get)
     report = phases["report"]
-    return {"total_s": total, "phases_s": phases, "dominating_phase": top, "dominating_share": phases[top] / total,
+    try:
+        from assistant.report.figure_jobs import report_processes
+        processes = report_processes()
+    except ImportError:  # a tree from before the figure jobs: always this process
+        processes = 1
+    return {"total_s": total, "phases_s": phases, "report_processes": processes, "dominating_phase": top, "dominating_share": phases[top] / total,
             "report_in_matplotlib_savefig_s": statistics.median(r["report_savefig_s"] for r in results),
             "load_average_1min": load_average(),
             "targets": [target(f"mfma run: report phase (dominating: {top}, {phases[top] / total:.0%} of "

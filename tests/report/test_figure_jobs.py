@@ -56,3 +56,12 @@ def test_processes_from_the_environment(monkeypatch):
     assert report_processes() == 3
     monkeypatch.delenv("MFMA_REPORT_PROCESSES")
     assert 1 <= report_processes() <= 2
+
+
+def test_the_fork_server_preloads_only_where_it_would_import_this_package(tmp_path, monkeypatch):
+    from assistant.report import figure_jobs
+
+    monkeypatch.chdir(tmp_path)
+    assert figure_jobs._preload_finds_this_package()
+    (tmp_path / "assistant").mkdir()  # a checkout of another version in the current folder
+    assert not figure_jobs._preload_finds_this_package()
