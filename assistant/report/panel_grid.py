@@ -95,3 +95,14 @@ def panels_with_bars(fig: Figure, rows: int, cols: int, *, title_lines: int = 2,
             bars.append(fig.add_axes(((x + side + CELL_BAR_PAD_IN) / width, (y + (side - bar_h) / 2) / height,
                                       BAR_WIDTH_IN / width, bar_h / height)))
     return np.array(axes, dtype=object), np.array(bars, dtype=object)
+
+
+def fixed_margins(fig: Figure, *, left: float = 0.95, right: float = 0.25, bottom: float = 0.55, top: float = 0.6,
+                  hspace: float = 0.75) -> None:
+    """Stacked line plots at margins given in inches (``hspace``: between panels, for a title and x labels)
+    instead of a layout engine; call after the axes exist."""
+    width, height = fig.get_size_inches()
+    rows = max(1, len([ax for ax in fig.axes if ax.get_subplotspec() is not None]))
+    panel = (height - top - bottom - (rows - 1) * hspace) / rows
+    fig.subplots_adjust(left=left / width, right=1 - right / width, bottom=bottom / height, top=1 - top / height,
+                        hspace=hspace / max(panel, 1e-3))
