@@ -25,7 +25,7 @@ from matplotlib.patches import Rectangle
 from assistant.analysis.lift_series import SeriesAnalysis
 from assistant.report.colours import symmetric_limit
 from assistant.report.images import phase_colormap, save_png
-from assistant.report.panel_grid import panels_with_bars
+from assistant.report.panel_grid import fixed_margins, panels_with_bars
 
 __all__ = ["mean_figure", "magnetic_figure", "maps_figure", "series_figures", "write_series_figures",
            "recommendation_title"]
@@ -105,8 +105,10 @@ def mean_figure(a: SeriesAnalysis) -> Figure:
 
 def magnetic_figure(a: SeriesAnalysis) -> Figure:
     """Magnetic rms (deg) and shortest resolved period (nm) against lift height (nm)."""
-    fig = _new_figure((6.4, 6.0))
+    fig = Figure(figsize=(6.4, 6.0))  # fixed margins (.panel_grid): no layout pass
+    FigureCanvasAgg(fig)
     ax, ax2 = fig.subplots(2, 1, sharex=True)
+    fixed_margins(fig, left=0.9, top=0.45, hspace=0.2)
     h = a.heights_nm
     ax.errorbar(h, a.magnetic_rms_deg, yerr=a.magnetic_rms_std_deg, fmt="o-", color="k", ms=4, capsize=2,
                 label="magnetic rms (joint fit" + (", interior)" if a.edge == "reflect" else ")"))
