@@ -8,11 +8,12 @@ calling process: a job's ``prepare`` step (reading, refitting) runs here and han
 to the writer, so no HDF5 handle ever crosses a process boundary, and the workers are forked from the clean
 server rather than from this process (which may hold open files and threads).
 
-The number of processes is ``MFMA_REPORT_PROCESSES`` if set (1 draws everything in this process). Otherwise two
-workers draw when the machine has a core to spare (the one-minute load average at least one below the number of
-cores), and this process draws alone when it has not: on a busy machine the workers only compete for the same
-cores and add their start-up (a fork server importing matplotlib, about a second). As with any ``forkserver`` or
-``spawn`` pool, a script that builds a report must guard its entry point with ``if __name__ == "__main__"``.
+The number of processes is ``MFMA_REPORT_PROCESSES`` (default 1: everything drawn in this process). Measured on two
+cores for the default run's ten figures, two workers were no faster than one process, whether the machine was busy
+or nearly idle (2.3-2.6 s against 2.3-2.5 s): their start (a fork server importing matplotlib and scipy, about a
+second) takes what the second core gives back. They can pay for reports with many more figures. As with any
+``forkserver`` or ``spawn`` pool, a script that builds a report must guard its entry point with
+``if __name__ == "__main__"``.
 """
 
 from __future__ import annotations
@@ -23,24 +24,15 @@ from concurrent.futures import BrokenExecutor, Future, ProcessPoolExecutor
 from pathlib import Path
 
 PROCESSES_ENV = "MFMA_REPORT_PROCESSES"
-_MAX_PROCESSES = 2  # the figures of one report keep two workers busy; more only adds start-up cost
 
 
 def report_processes() -> int:
-    """Worker processes for the figures: ``MFMA_REPORT_PROCESSES`` if set, else min(2, cores) with a core to spare
-    and 1 (this process) without."""
+    """Worker processes for the figures: ``MFMA_REPORT_PROCESSES`` if set, else 1 (this process)."""
     text = os.environ.get(PROCESSES_ENV, "").strip()
-    if text:
-        try:
-            return max(1, int(text))
-        except ValueError:
-            return 1
-    cores = os.cpu_count() or 1
     try:
-        spare = cores - os.getloadavg()[0]
-    except OSError:  # no load average on this system
-        spare = 0.0
-    return max(1, min(_MAX_PROCESSES, cores)) if spare >= 1.0 else 1
+        return max(1, int(text)) if text else 1
+    except ValueError:
+        return 1
 
 
 Writer = Callable[..., "Path | list[Path]"]
