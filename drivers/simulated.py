@@ -16,7 +16,7 @@ import functools
 import threading
 from collections.abc import Iterator, Sequence
 from dataclasses import asdict, fields
-from typing import Any
+from typing import TYPE_CHECKING, Any
 from urllib.parse import parse_qs, urlsplit
 
 import numpy as np
@@ -29,7 +29,9 @@ from drivers.link_faults import gate_for
 from simulated_stage.clock import PACES, VirtualClock
 from simulated_stage.errors import LASER_LOST, ScenarioError, StageAborted, StageError, StageFault, StageLimitError
 from simulated_stage.faults import FaultyStage
-from simulated_stage.scenario import Scenario, build_microscope, load_scenario
+
+if TYPE_CHECKING:  # the stage's physics (scipy) loads when a controller is opened, not with the plug-in
+    from simulated_stage.scenario import Scenario
 
 _URL_KEYS = ("scenario", "seed", "pace", "line_rate")
 _MAX_LAG_S = 0.005  # realtime pace: host time lost before a call is not caught up beyond this
@@ -132,6 +134,8 @@ class SimulatedController(Controller):
         if not 0 < line_rate <= 1000:
             raise BadURL(f"line_rate = {line_rate:g} Hz is outside (0, 1000] Hz")
         scenario = merged.get("scenario", "default")
+        from simulated_stage.scenario import Scenario, build_microscope, load_scenario
+
         try:
             if not isinstance(scenario, Scenario):
                 scenario = load_scenario(str(scenario))

@@ -15,7 +15,6 @@ import functools
 import math
 
 import numpy as np
-from scipy.signal import cont2discrete, lfilter
 
 from simulated_stage.errors import StageLimitError
 
@@ -23,6 +22,8 @@ from simulated_stage.errors import StageLimitError
 @functools.lru_cache(maxsize=64)
 def _closed_loop(dt_s: float, slope: float, kp: float, ki: float, tau_a: float, tau_l: float
                  ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    from scipy.signal import cont2discrete  # scipy.signal takes ~1 s to import: only when the stage simulates
+
     # open loop L = slope (kp s + ki) / (s (1 + s tau_a)(1 + s tau_l)); Z/W = L / (1 + L),
     # E/W = slope s / (s (1 + s tau_a)(1 + s tau_l) + slope (kp s + ki))
     den = np.array([tau_a * tau_l, tau_a + tau_l, 1.0 + slope * kp, slope * ki])
@@ -96,6 +97,8 @@ class AmplitudeFeedback:
               ) -> tuple[np.ndarray, np.ndarray]:
         """Z extension along a line that asks for ``surface_m`` (per servo sample) and the amplitude error the
         controller sees [m], starting in equilibrium at the first sample."""
+        from scipy.signal import lfilter
+
         num_z, num_e, den = loop
         u = surface_m[0] + lfilter(num_z, den, surface_m - surface_m[0])
         u = np.clip(np.nan_to_num(u, nan=0.0, posinf=z_range_m, neginf=0.0), 0.0, z_range_m)

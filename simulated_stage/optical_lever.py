@@ -14,7 +14,6 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.signal import lfilter
 
 MODE1_DISPLACEMENT_FACTOR = 0.970688  # 12 / alpha1^4: first-mode share of the end-displacement variance
 MODE1_OPTICAL_LEVER_FACTOR = 0.817434  # the same with a statically calibrated optical lever
@@ -96,6 +95,7 @@ class FlickerNoise:
         self._current = float(self._state.sum())
 
     def _low_rate(self, count: int) -> np.ndarray:
+        from scipy.signal import lfilter  # scipy.signal takes ~1 s to import: only when the stage simulates
         out = np.zeros(count)
         u = self._rng.standard_normal((count, self._decay.size)).T  # sample-major: chunking-independent
         for i, a in enumerate(self._decay):

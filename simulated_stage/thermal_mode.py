@@ -19,7 +19,6 @@ from collections.abc import Iterator
 
 import numpy as np
 from scipy.linalg import cholesky, expm, solve_discrete_lyapunov
-from scipy.signal import lfilter
 
 KB = 1.380649e-23  # J/K, exact (SI 2019)
 
@@ -122,6 +121,7 @@ class ThermalMode:
 
     def next_chunk(self, samples: int) -> np.ndarray:
         """The next ``samples`` values of the record [m] (times ``output_gain``), continuing exactly."""
+        from scipy.signal import lfilter  # scipy.signal takes ~1 s to import: only when the stage simulates
         if self._u.size != samples:
             self._u = np.empty(samples)
         u = self._rng.standard_normal(out=self._u)

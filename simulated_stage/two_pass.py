@@ -13,7 +13,6 @@ import math
 from collections.abc import Sequence
 
 import numpy as np
-from scipy.signal import lfilter
 
 from simulated_stage.errors import BAD_REQUEST, NOT_ENGAGED, StageFault, StageLimitError
 from simulated_stage.results import LineResult, PassResult
@@ -75,6 +74,7 @@ def scan_line(scope, *, y_m: float, x_start_m: float, length_m: float, pixels: i
 
 
 def _second_passes(scope, passes, u_px, x_px, y_m, t0, line_rate_hz, dwell, gap0, free, sigma):
+    from scipy.signal import lfilter  # scipy.signal takes ~1 s to import: only when the stage simulates
     lockin = scope.lockin
     n, npass = x_px.size, len(passes)
     lifts = np.array([lp[0] for lp in passes], dtype=float)

@@ -1,5 +1,6 @@
-"""Tests marked ``alone`` run while no other test runs, also under pytest-xdist's parallel workers.
+"""Suite-wide settings: report figures drawn in-process, and tests marked ``alone``.
 
+Tests marked ``alone`` run while no other test runs, also under pytest-xdist's parallel workers.
 A few tests measure how this program behaves in time (the UI thread's responsiveness while a series runs in its
 worker): another worker's test on the same two cores takes the CPU from the process measured and says nothing
 about our code. Every test holds a shared lock on one file for its whole run (set-up, call, tear-down); an
@@ -17,6 +18,11 @@ import tempfile
 from pathlib import Path
 
 import pytest
+
+# Report figures are drawn in the test's own process (the default, pinned here against a developer's environment):
+# every core already runs a test worker, and tests replace figure writers in this process.
+# tests/report/test_figure_jobs.py covers the worker processes.
+os.environ.setdefault("MFMA_REPORT_PROCESSES", "1")
 
 _ENV = "MFMA_TESTS_LOCK_DIR"
 

@@ -15,20 +15,27 @@ def run(args) -> int:
         return _open(Path(args.open))
     limits = load_limits()
     session_path = new_session_path(args.out)
+    import contextlib
+
     from assistant.tui.app import MfmApp
 
-    with open_controller_from_args(args) as ctl:
-        app = MfmApp(ctl, controller_url=args.controller, session_path=session_path, limits=limits,
-                     scenario_text=getattr(ctl, "scenario_text", None))
-        app.run()
-        code = app.return_code  # 1 after a crash of the UI, whatever run() returned
-        # The app only exits on its own once the stage is confirmed safe; make sure of it on any other exit.
+    # The controller opens in a thread once the first screen is drawn (assistant.tui.connect); this stack closes
+    # it here, after the app, whatever happened.
+    with contextlib.ExitStack() as stack:
+        app = MfmApp(None, controller_url=args.controller, session_path=session_path, limits=limits,
+                     connect=lambda: stack.enter_context(open_controller_from_args(args)))
         try:
-            if not ctl.status().safe:
-                ctl.make_safe()
+            app.run()
+            code = app.return_code  # 1 after a crash of the UI, whatever run() returned
         finally:
-            if app.workflow is not None:
-                app.workflow.close()
+            ctl = app.connection_result(timeout_s=120.0)  # waits for the thread; raises what opening raised
+            # The app only exits on its own once the stage is confirmed safe; make sure of it on any other exit.
+            try:
+                if ctl is not None and not ctl.status().safe:
+                    ctl.make_safe()
+            finally:
+                if app.workflow is not None:
+                    app.workflow.close()
     return int(code or 0)
 
 

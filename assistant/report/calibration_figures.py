@@ -14,6 +14,7 @@ from matplotlib.figure import Figure
 from assistant.analysis.calibration.sweep import SweepResult
 from assistant.analysis.calibration.thermal import ThermalResult
 from assistant.formatting import number, quantity
+from assistant.report.panel_grid import fixed_margins
 
 __all__ = ["sweep_figure", "thermal_figure", "write_sweep_figure", "write_thermal_figure"]
 
@@ -46,9 +47,10 @@ def thermal_figure(result: ThermalResult) -> Figure:
     """Three panels: the whole spectrum (log-log) with the fit window shaded, the fit window with the
     fitted model (log-log), and the normalised residuals P/S - 1 in units of their standard deviation."""
     fit = result.fit
-    fig = Figure(figsize=(8.0, 8.5), layout="constrained")
+    fig = Figure(figsize=(8.0, 8.5))  # fixed margins (.panel_grid): no layout pass
     FigureCanvasAgg(fig)
     ax_all, ax_fit, ax_res = fig.subplots(3, 1, gridspec_kw={"height_ratios": [2, 2, 1]})
+    fixed_margins(fig, top=0.55, hspace=0.8)  # a title of two lines above the first panel
     lo, hi = fit.fit_range_hz
     f_model = np.geomspace(lo, hi, 3000)
     model = fit.model(f_model)
@@ -92,9 +94,10 @@ def thermal_figure(result: ThermalResult) -> Figure:
 
 def sweep_figure(result: SweepResult) -> Figure:
     """Amplitude and phase of a drive sweep with the fitted driven-oscillator model."""
-    fig = Figure(figsize=(8.0, 6.0), layout="constrained")
+    fig = Figure(figsize=(8.0, 6.0))  # fixed margins (.panel_grid): no layout pass
     FigureCanvasAgg(fig)
     axa, axp = fig.subplots(2, 1, sharex=True)
+    fixed_margins(fig, top=0.4, hspace=0.2)
     f_khz = result.frequencies_hz / 1e3
     fm = np.linspace(result.frequencies_hz[0], result.frequencies_hz[-1], 2000)
     am, pm = result.model(fm)

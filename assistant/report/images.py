@@ -23,6 +23,7 @@ from matplotlib.patches import Rectangle
 
 from assistant.errors import InputError
 from assistant.report.colours import phase_rgb, symmetric_limit
+from assistant.report.panel_grid import panel_grid
 
 
 def phase_colormap(n: int = 256) -> Colormap:
@@ -77,14 +78,15 @@ def topography_figure(topography_m: np.ndarray, *, scan_size_m: float, lines: in
     lo, hi = (np.percentile(finite, [0.5, 99.5]) if finite.size else (0.0, 1.0))
     if hi <= lo:
         lo, hi = lo - 0.5, hi + 0.5
-    fig = Figure(figsize=(5.2, 4.4), layout="constrained")
+    fig = Figure(figsize=(5.2, 4.4))  # axes placed at fixed margins: no layout pass (see .panel_grid)
     FigureCanvasAgg(fig)
-    ax = fig.add_subplot()
+    axes, cax = panel_grid(fig, 1, 1, title_lines=0, bar_fraction=1.0)
+    ax = axes[0, 0]
     im = _draw(ax, height_nm, size_um=scan_size_m * 1e6, cmap=topography_colormap(), norm=Normalize(lo, hi))
     ax.set_xlabel("x (µm)")
     ax.set_ylabel("y (µm)")
     ax.set_title(title)
-    fig.colorbar(im, ax=ax, label="height (nm), plane removed", extend="both")
+    fig.colorbar(im, cax=cax, label="height (nm), plane removed", extend="both")
     return fig
 
 
@@ -109,9 +111,9 @@ def phase_figure(phase_deg: np.ndarray, *, heights_m: Sequence[float], scan_size
         return _per_height_figure(panels, scan_size_m=scan_size_m, title=title)
     cols = min(len(panels), 4)
     rows = math.ceil(len(panels) / cols)
-    fig = Figure(figsize=(2.6 * cols + 1.2, 2.6 * rows + 0.6), layout="constrained")
+    fig = Figure(figsize=(2.6 * cols + 1.2, 2.6 * rows + 0.6))  # axes at fixed margins: no layout pass
     FigureCanvasAgg(fig)
-    axes = fig.subplots(rows, cols, squeeze=False, sharex=True, sharey=True)
+    axes, cax = panel_grid(fig, rows, cols, inner_xlabels=len(panels) < rows * cols)
     cmap = phase_colormap()
     im = None
     for k, ax in enumerate(axes.ravel()):
@@ -127,8 +129,7 @@ def phase_figure(phase_deg: np.ndarray, *, heights_m: Sequence[float], scan_size
             ax.set_xlabel("x (µm)")
             ax.tick_params(labelbottom=True)
     fig.suptitle(title)
-    fig.colorbar(im, ax=axes.ravel().tolist(), label="phase (deg), dark = attractive", extend="both",
-                 shrink=0.9)
+    fig.colorbar(im, cax=cax, label="phase (deg), dark = attractive", extend="both")
     return fig
 
 

@@ -25,6 +25,7 @@ from matplotlib.patches import Rectangle
 from assistant.analysis.lift_series import SeriesAnalysis
 from assistant.report.colours import symmetric_limit
 from assistant.report.images import phase_colormap, save_png
+from assistant.report.panel_grid import fixed_margins, panels_with_bars
 
 __all__ = ["mean_figure", "magnetic_figure", "maps_figure", "series_figures", "write_series_figures",
            "recommendation_title"]
@@ -104,8 +105,10 @@ def mean_figure(a: SeriesAnalysis) -> Figure:
 
 def magnetic_figure(a: SeriesAnalysis) -> Figure:
     """Magnetic rms (deg) and shortest resolved period (nm) against lift height (nm)."""
-    fig = _new_figure((6.4, 6.0))
+    fig = Figure(figsize=(6.4, 6.0))  # fixed margins (.panel_grid): no layout pass
+    FigureCanvasAgg(fig)
     ax, ax2 = fig.subplots(2, 1, sharex=True)
+    fixed_margins(fig, left=0.9, top=0.45, hspace=0.2)
     h = a.heights_nm
     ax.errorbar(h, a.magnetic_rms_deg, yerr=a.magnetic_rms_std_deg, fmt="o-", color="k", ms=4, capsize=2,
                 label="magnetic rms (joint fit" + (", interior)" if a.edge == "reflect" else ")"))
@@ -128,14 +131,17 @@ def magnetic_figure(a: SeriesAnalysis) -> Figure:
     return fig
 
 
-def _map_panel(fig, ax, image, *, size_um, title, cmap, limit, label):
-    """One phase map on a scale centred on zero from -limit to +limit (deg)."""
+def _map_panel(fig, ax, image, *, size_um, title, cmap, limit, label, cax=None):
+    """One phase map on a scale centred on zero from -limit to +limit (deg); its colour bar in ``cax`` if given."""
     im = ax.imshow(image, origin="lower", extent=(0, size_um[1], 0, size_um[0]), cmap=cmap,
                    norm=Normalize(-limit, limit), interpolation="nearest")
     ax.set_title(title, fontsize=9)
     ax.set_xlabel("x (µm)")
     ax.set_ylabel("y (µm)")
-    fig.colorbar(im, ax=ax, label=label, shrink=0.85)
+    if cax is None:
+        fig.colorbar(im, ax=ax, label=label, shrink=0.85)
+    else:
+        fig.colorbar(im, cax=cax, label=label)
 
 
 def maps_figure(a: SeriesAnalysis, *, per_height_scale: bool = False) -> Figure:
@@ -157,8 +163,9 @@ def maps_figure(a: SeriesAnalysis, *, per_height_scale: bool = False) -> Figure:
         panels.append((a.tip_change.difference_deg, f"repeat − first pass: {verdict}", "phase change (deg)"))
     cols = 3
     rows = int(np.ceil((len(panels) + changed) / cols))
-    fig = _new_figure((4.0 * cols, 3.4 * rows + 0.5))
-    axes = fig.subplots(rows, cols, squeeze=False).ravel()
+    fig = Figure(figsize=(4.0 * cols, 3.4 * rows + 0.5))  # axes at fixed margins: no layout pass (.panel_grid)
+    FigureCanvasAgg(fig)
+    axes, bars = panels_with_bars(fig, rows, cols, title_lines=2)
     r, c = a.magnetic_deg.shape[-2:]
     size_um = (r * a.pixel_m[0] * 1e6, c * a.pixel_m[1] * 1e6)
     cmap = phase_colormap()
@@ -166,7 +173,7 @@ def maps_figure(a: SeriesAnalysis, *, per_height_scale: bool = False) -> Figure:
     b = a.edge_band_px
     for k, (img, title, label) in enumerate(panels):
         lim = (symmetric_limit(img) if per_height_scale else mag_limit) if k < len(picks) else symmetric_limit(img)
-        _map_panel(fig, axes[k], img, size_um=size_um, title=title, cmap=cmap, limit=lim, label=label)
+        _map_panel(fig, axes[k], img, size_um=size_um, title=title, cmap=cmap, limit=lim, label=label, cax=bars[k])
         if b and k <= len(picks):  # the interior over which the magnetic rms and the residual are judged
             y0, x0 = b * a.pixel_m[0] * 1e6, b * a.pixel_m[1] * 1e6
             axes[k].add_patch(Rectangle((x0, y0), size_um[1] - 2 * x0, size_um[0] - 2 * y0, fill=False,
@@ -180,8 +187,9 @@ def maps_figure(a: SeriesAnalysis, *, per_height_scale: bool = False) -> Figure:
         ax.set_title(f"changed beyond noise ({a.tip_change.changed_fraction:.2%})", fontsize=9)
         ax.set_xlabel("x (µm)")
         ax.set_ylabel("y (µm)")
+        bars[used].set_axis_off()  # two colours named in the title: no colour bar
         used += 1
-    for ax in axes[used:]:
+    for ax in [*axes[used:], *bars[used:]]:
         ax.set_axis_off()
     scale = ("each magnetic map on its own colour scale" if per_height_scale else
              "magnetic maps on one shared colour scale")

@@ -16,7 +16,6 @@ from __future__ import annotations
 
 import os
 import time
-from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -26,10 +25,12 @@ from assistant.report import field_figures, sections
 from assistant.report.imaging_sections import imaging_section
 from assistant.report.calibration_figures import write_sweep_figure, write_thermal_figure
 from assistant.report.imaging_figures import write_imaging_figures
-from assistant.report.images import phase_figure, remove_plane, save_png, topography_figure
+from assistant.report.figure_jobs import FigureJobs, Job
+from assistant.report.images import remove_plane
 from assistant.report.loop_report import field_series_report
 from assistant.report.media_report import media_section
 from assistant.report.series_figures import write_series_figures
+from assistant.report.series_images import series_image_jobs
 from assistant.storage import Record, SeriesData, SessionFile
 
 
@@ -51,53 +52,29 @@ def format_value(value: float, std: float | None = None) -> str:
     return number(value, std, digits=6)
 
 
-def _series_images(data: SeriesData, out_dir: Path, *, per_height_scale: bool = False) -> list[Path]:
-    if data.completed_lines == 0:
-        return []
-    paths = [save_png(topography_figure(data.topography_m, scan_size_m=data.scan_size_m, lines=data.lines,
-                                        title=f"{data.name}: topography"), out_dir / f"{data.name}_topography.png")]
-    if len(data.heights_m) < 3:  # one or two heights: the imaging overview shows every image on one scale
-        return paths
-    if data.biases_v is None:
-        fig = phase_figure(data.phase_deg, heights_m=data.heights_m, scan_size_m=data.scan_size_m,
-                           repeat_phase_deg=data.repeat_phase_deg, lines=data.lines, title=f"{data.name}: phase",
-                           per_height_scale=per_height_scale)
-        paths.append(save_png(fig, out_dir / f"{data.name}_phase.png"))
-        return paths
-    for j, bias in enumerate(data.biases_v):
-        fig = phase_figure(data.phase_deg[:, j], heights_m=data.heights_m, scan_size_m=data.scan_size_m,
-                           lines=data.lines, title=f"{data.name}: phase at tip bias {bias:+.3g} V",
-                           per_height_scale=per_height_scale)
-        paths.append(save_png(fig, out_dir / f"{data.name}_phase_bias{j}.png"))
-    return paths
+def _series_images(data: SeriesData, out_dir: Path, jobs: FigureJobs, *, per_height_scale: bool = False
+                   ) -> list[Job]:
+    return [jobs.submit(what, lambda job=job: job)
+            for what, job in series_image_jobs(data, out_dir, per_height_scale=per_height_scale)]
 
 
 # ---- figures of the calibration and of the decomposition --------------------------------------------------
-def _figures(what: str, notes: list[str], write: Callable[[], Path | list[Path]]) -> list[Path]:
-    """The files a figure writer wrote (sorted), or none and a note when it failed: one figure must not cost the
-    whole report."""
-    try:
-        written = write()
-    except Exception as exc:
-        notes.append(f"{what} failed: {type(exc).__name__}: {exc}")
-        return []
-    return sorted([written] if isinstance(written, Path) else written)
-
-
-def _calibration_figures(session: SessionFile, out_dir: Path, notes: list[str]) -> list[Path]:
+def _calibration_figures(session: SessionFile, out_dir: Path, jobs: FigureJobs) -> list[Job]:
+    """The thermal spectrum and the drive sweep, refitted here from the stored records and drawn as jobs."""
     from assistant.analysis.calibration import fit_drive_sweep
 
-    paths: list[Path] = []
+    found: list[Job] = []
     cals = session.read_calibrations()
     if cals and "spectrum_psd_v2_per_hz" in cals[-1].arrays:
-        paths += _figures("thermal spectrum figure", notes,
-                          lambda: write_thermal_figure(_thermal_result(cals[-1]), out_dir / "thermal.png"))
+        found.append(jobs.submit("thermal spectrum figure", lambda: (
+            write_thermal_figure, (_thermal_result(cals[-1]), out_dir / "thermal.png"), {})))
     resonance = session.read_resonance()
     if resonance is not None and "frequency_hz" in resonance.arrays:
         a = resonance.arrays
-        paths += _figures("resonance sweep figure", notes, lambda: write_sweep_figure(
-            fit_drive_sweep(a["frequency_hz"], a["amplitude_v"], a["phase_deg"]), out_dir / "sweep.png"))
-    return paths
+        found.append(jobs.submit("resonance sweep figure", lambda: (
+            write_sweep_figure, (fit_drive_sweep(a["frequency_hz"], a["amplitude_v"], a["phase_deg"]),
+                                 out_dir / "sweep.png"), {})))
+    return found
 
 
 def _thermal_result(record: Record):
@@ -121,48 +98,57 @@ def _thermal_result(record: Record):
                              invols_std_m_per_v=float(s.get("invols_std_nm_per_v", 0.0)) * 1e-9)
 
 
-def _decomposition_figures(session: SessionFile, out_dir: Path, notes: list[str], *, per_height_scale: bool = False,
-                           computed: dict | None = None) -> list[Path]:
+def _decomposition_figures(session: SessionFile, out_dir: Path, jobs: FigureJobs, *, per_height_scale: bool = False,
+                           computed: dict | None = None) -> list[Job]:
     """The decomposition figures of every series, from the decomposition stored with it (computed now for a
     series that has none); ``computed`` receives the decompositions that were computed here."""
     from assistant.procedures.analyse import stored_series_analysis
 
-    paths: list[Path] = []
+    found: list[Job] = []
     names = session.series_names()
     for name in names:
         target = out_dir if len(names) == 1 else out_dir / f"{name}_decomposition"
         target.mkdir(exist_ok=True)
 
-        def write(name: str = name, target: Path = target) -> list[Path]:
+        def prepare(name: str = name, target: Path = target) -> tuple:
             result = stored_series_analysis(session, name)
             if computed is not None and name not in session.analysis_names():
                 computed[name] = result
             if getattr(result, "kind", None) == "imaging":  # one or two heights: no decomposition to draw
-                return write_imaging_figures(result, session.read_series(name), target)
-            return write_series_figures(result, target, per_height_scale=per_height_scale)
-        paths += _figures(f"decomposition figures of {name!r}", notes, write)
-    return paths
+                return write_imaging_figures, (result, session.read_series(name), target), {}
+            return write_series_figures, (result, target), {"per_height_scale": per_height_scale}
+        found.append(jobs.submit(f"decomposition figures of {name!r}", prepare))
+    return found
+
+
+def _resolved(jobs: FigureJobs, found: list[Job], notes: list[str]) -> list[Path]:
+    return [path for job in found for path in jobs.paths(job, notes)]
 
 
 def _field_map_figures(session: SessionFile, out_dir: Path, notes: list[str]) -> list[Path]:
-    """The stray-field maps stored in the session (and the TTF that made the last one, if its tip file is there)."""
-    return _figures("field-map figures", notes, lambda: field_figures.figures_from_session(session, out_dir))
+    """The stray-field maps stored in the session (and the TTF that made the last one, if its tip file is there),
+    drawn here: they read the session (and a tip file) as they go."""
+    here = FigureJobs(processes=1)
+    return here.paths(here.submit("field-map figures", lambda: (
+        field_figures.figures_from_session, (session, out_dir), {})), notes)
 
 
 # ---- the report -----------------------------------------------------------------------------------------------
 def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLike[str], *, sink: Sink = null_sink,
-                 per_height_scale: bool = False) -> ReportResult:
+                 per_height_scale: bool = False, processes: int | None = None) -> ReportResult:
     """Write the figures a session file supports and ``summary.md`` into ``out_dir`` (created if needed).
 
     ``sink`` receives ``Progress("report", done, total, "figure groups")`` as the figures are written.
     ``per_height_scale`` gives each lift height's phase map its own colour scale (the captions say so).
+    ``processes``: worker processes drawing the figures (None: :func:`.figure_jobs.report_processes`; 1 draws
+    them in this process).
     """
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     notes: list[str] = []
     paths: list[Path] = []
     t0 = time.monotonic()
-    with SessionFile.open(session_path, "r") as session:
+    with FigureJobs(processes) as jobs, SessionFile.open(session_path, "r") as session:
         names = session.series_names()
         field_names = session.field_series_names()
         steps = 2 + len(names) + (2 if names else 0) + (1 if field_names else 0)
@@ -180,6 +166,13 @@ def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLik
         cals = session.read_calibrations()
         stored = session.analysis_names()
         series_data = {name: session.read_series(name) for name in names}
+        # every figure job is sent off first (with worker processes they draw while the text is put together)
+        image_jobs = {name: _series_images(series_data[name], out, jobs, per_height_scale=per_height_scale)
+                      for name in names}
+        calibration_jobs = _calibration_figures(session, out, jobs)
+        computed: dict = {}
+        decomposition_jobs = (_decomposition_figures(session, out, jobs, per_height_scale=per_height_scale,
+                                                     computed=computed) if names else [])
         body: list[str] = []
         if cals:
             body += ["## Probe calibration", ""]
@@ -194,7 +187,7 @@ def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLik
             data = series_data[name]
             topo = remove_plane(data.topography_m) * 1e9 if data.completed_lines else None
             body += sections.series_section(data, topo)
-            paths += _series_images(data, out, per_height_scale=per_height_scale)
+            paths += _resolved(jobs, image_jobs[name], notes)
             step(f"phase maps of {name}")
         if field_names:
             more_text, more_paths, loop_results = field_series_report(session, out, notes)
@@ -215,12 +208,10 @@ def build_report(session_path: str | os.PathLike[str], out_dir: str | os.PathLik
                     body += imaging_section(name, d)
                     continue
                 body += sections.analysis_section(name, d, grid)
-        paths += _calibration_figures(session, out, notes)
+        paths += _resolved(jobs, calibration_jobs, notes)
         step("calibration figures")
         if names:
-            computed: dict = {}
-            paths += _decomposition_figures(session, out, notes, per_height_scale=per_height_scale,
-                                            computed=computed)
+            paths += _resolved(jobs, decomposition_jobs, notes)
             step("decomposition figures")
             if not analysed:  # nothing stored, but decomposed for the figures: the results still open the summary
                 analysed = [(n, r.to_dict()) for n, r in computed.items() if hasattr(r, "to_dict")]

@@ -22,8 +22,8 @@ from textual.widgets import Button, Footer, Static, TabbedContent, TabPane
 from assistant.errors import InputError
 from assistant.formatting import quantity
 from assistant.procedures.events import Cancelled, Notice
-from assistant.tui.bridge import (MessageSink, ProcedureEvent, SerialisedController, StatusChanged, StepFinished,
-                                  WithdrawDone)
+from assistant.tui.bridge import ProcedureEvent, StatusChanged, StepFinished, WithdrawDone
+from assistant.tui.connect import DeferredConnection
 from assistant.tui.fields_actions import FieldSeriesActions
 from assistant.tui.screens import WITHDRAW_KEY, ConfirmQuit, HelpScreen
 from assistant.tui.session_view import load_session
@@ -42,9 +42,10 @@ VIEWS = (("probe", "Probe", ProbeView), ("resonance", "Resonance", ResonanceView
          ("analysis", "Analysis", AnalysisView), ("log", "Log", LogView), ("fields", "Fields", FieldSeriesView))
 
 
-class MfmApp(FieldSeriesActions, StepRunner, App[int]):
+class MfmApp(DeferredConnection, FieldSeriesActions, StepRunner, App[int]):
     """``MfmApp(controller, session_path=...)`` for a live session; ``MfmApp(None, open_path=...)`` to view a
-    session file. ``probe_record`` is a :class:`ProbeRecord` (default: the user's)."""
+    session file. ``probe_record`` is a :class:`ProbeRecord` (default: the user's). ``connect`` (instead of a
+    controller) opens one after the first screen (:mod:`assistant.tui.connect`)."""
 
     TITLE = "mfm-assistant"
     CSS = """
@@ -71,12 +72,13 @@ class MfmApp(FieldSeriesActions, StepRunner, App[int]):
 
     def __init__(self, controller=None, *, controller_url: str = "sim://", session_path: Path | None = None,
                  open_path: Path | None = None, limits=None, probe_record=None, scenario_text: str | None = None,
-                 poll_interval_s: float = 0.25, stored=None) -> None:
+                 poll_interval_s: float = 0.25, stored=None, connect=None) -> None:
         super().__init__()
         from assistant.procedures.guard import SafetyLimits
         from drivers.registry import redact
 
-        self.controller = SerialisedController(controller) if controller is not None else None
+        self.controller = None
+        self._connect = connect
         self.controller_url = redact(controller_url)
         self.limits = limits or SafetyLimits()
         self.open_path = Path(open_path) if open_path else None
@@ -85,13 +87,10 @@ class MfmApp(FieldSeriesActions, StepRunner, App[int]):
         self._probe_record = probe_record
         self.poll_interval_s = poll_interval_s
         self.workflow = None
-        if self.controller is not None:
-            from assistant.procedures.workflow import Workflow
-
-            if self.session_path is None:
-                raise InputError("a live session needs session_path")
-            self.workflow = Workflow(self.controller, self.session_path, controller_url=self.controller_url,
-                                     scenario_text=scenario_text, limits=self.limits, sink=MessageSink(self))
+        if (controller is not None or connect is not None) and self.session_path is None:
+            raise InputError("a live session needs session_path")
+        if controller is not None:
+            self.attach_controller(controller, scenario_text=scenario_text)
         self.busy: str | None = None
         self.last_status = None
         self.status_error: str | None = None
@@ -121,12 +120,12 @@ class MfmApp(FieldSeriesActions, StepRunner, App[int]):
         return [self.view(key) for key, _, _ in VIEWS]
 
     def on_mount(self) -> None:
-        if self.controller is None:
+        if self.controller is None and self._connect is None:
             self.query_one("#withdraw-button").display = False  # a stored session: nothing to withdraw
         if self.controller is not None:
-            self.view("approach").configure(travel_max_m=self.limits.coarse_travel_max_m,
-                                            z_range_m=self.controller.limits.z_range_m)
-            self._poll_worker()
+            self.controller_live()
+        elif self._connect is not None:
+            self.start_connecting()
         if self.open_path is not None:
             self._show_session_file(self.open_path)
         self._update_status_line()
@@ -187,7 +186,7 @@ class MfmApp(FieldSeriesActions, StepRunner, App[int]):
     def _update_status_line(self) -> None:
         st = self.last_status
         if self.controller is None:
-            state, z, bias = "[b]no controller[/b]", "", ""
+            state, z, bias = ("[b]connecting…[/b]" if self.connecting else "[b]no controller[/b]"), "", ""
         elif st is None:
             state, z, bias = "state ?", "", ""
         else:
@@ -240,6 +239,10 @@ class MfmApp(FieldSeriesActions, StepRunner, App[int]):
             self.say("warning", f"cancel requested: {self.busy} stops at its next check and withdraws")
 
     def action_withdraw(self) -> None:
+        if self.controller is None and self.connecting:
+            self._withdraw_on_connect = True  # nothing commanded yet; withdraw the moment the controller opens
+            self.say("warning", "connecting: the withdraw follows as soon as the controller is open")
+            return
         if self.controller is None:
             self.say("warning", "no controller: nothing to withdraw")
             return

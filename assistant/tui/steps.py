@@ -14,7 +14,6 @@ from pathlib import Path
 from textual import work
 
 from assistant.procedures.events import CancelToken, Notice
-from assistant.procedures.workflow import calibration_scalars
 from assistant.tui.bridge import ProcedureEvent, StatusChanged, StepFinished, WithdrawDone
 from assistant.tui.view_base import FieldError
 
@@ -65,6 +64,8 @@ class StepRunner:
             return
         self.probe_name = name
         self._update_status_line()
+        from assistant.procedures.workflow import calibration_scalars  # the workflow loads once a step runs
+
         self._record_worker(name, calibration_scalars(wf.calibration, name))
 
     def start_approach(self) -> None:

@@ -9,28 +9,35 @@ its tip-model-averaged split in :mod:`.mean_parts`; the noise of the images in :
 standard errors in :mod:`.standard_errors`.
 """
 
-from .continuation import ContinuationFit, resolution_period_m
-from .decomposition import EDGES, analyse_series
-from .errors import (HeightsMismatchError, HeightsNotIncreasingError, ImageShapeError, SeriesInputError,
-                     TooFewBiasesError, TooFewHeightsError, TooManyInvalidPixelsError)
-from .image_mean_models import centre_gap_m, first_pass_gap_offset_m, image_mean_shapes
-from .image_means import MeanFit, fit_mean_bias_grid, fit_mean_heights
-from .image_noise import band_noise_variance, shrunk_noise_variance
-from .interaction_regime import REGIMES, InteractionRegime, classify_interaction, recommendation_with_regime
-from .mean_parts import MeanParts, TipCandidate, magnetic_window_mean_cov, split_bias_grid, split_heights_only
-from .noise_floor import (NoiseVerdict, noise_verdict, thermal_min_gradient_n_per_m, thermal_min_phase_deg,
-                          white_noise_std)
-from .periodic import fit_continuation_periodic, fit_with_drift_periodic, leave_one_out_prediction
-from .phase import SignalSpace, gradient_from_phase_deg, linear_phase_slope_deg, phase_deg_from_gradient
-from .probe import ProbeModel
-from .recommend import Recommendation, recommend_lift
-from .reflected import fit_continuation_reflected
-from .reflected_drift import fit_with_drift_reflected, reflect_align
-from .registration import align_stack, estimate_drift_px, estimate_shift_px, fourier_shift
-from .result import SeriesAnalysis
-from .standard_errors import drift_covariance, interior_power_variance
-from .tip_change import TipChange, detect_tip_change
-from .windowed import fit_continuation_windowed
+from assistant.analysis._lazy import attach
+
+# which module holds each public name; a name loads its module (and that module's scipy) on first use
+__getattr__, __dir__ = attach(__name__, {
+    "continuation": ("ContinuationFit", "resolution_period_m"),
+    "decomposition": ("EDGES", "analyse_series"),
+    "errors": ("HeightsMismatchError", "HeightsNotIncreasingError", "ImageShapeError", "SeriesInputError",
+              "TooFewBiasesError", "TooFewHeightsError", "TooManyInvalidPixelsError"),
+    "image_mean_models": ("centre_gap_m", "first_pass_gap_offset_m", "image_mean_shapes"),
+    "image_means": ("MeanFit", "fit_mean_bias_grid", "fit_mean_heights"),
+    "image_noise": ("band_noise_variance", "shrunk_noise_variance"),
+    "interaction_regime": ("REGIMES", "InteractionRegime", "classify_interaction",
+              "recommendation_with_regime"),
+    "mean_parts": ("MeanParts", "TipCandidate", "magnetic_window_mean_cov", "split_bias_grid",
+              "split_heights_only"),
+    "noise_floor": ("NoiseVerdict", "noise_verdict", "thermal_min_gradient_n_per_m", "thermal_min_phase_deg",
+              "white_noise_std"),
+    "periodic": ("fit_continuation_periodic", "fit_with_drift_periodic", "leave_one_out_prediction"),
+    "phase": ("SignalSpace", "gradient_from_phase_deg", "linear_phase_slope_deg", "phase_deg_from_gradient"),
+    "probe": ("ProbeModel",),
+    "recommend": ("Recommendation", "recommend_lift"),
+    "reflected": ("fit_continuation_reflected",),
+    "reflected_drift": ("fit_with_drift_reflected", "reflect_align"),
+    "registration": ("align_stack", "estimate_drift_px", "estimate_shift_px", "fourier_shift"),
+    "result": ("SeriesAnalysis",),
+    "standard_errors": ("drift_covariance", "interior_power_variance"),
+    "tip_change": ("TipChange", "detect_tip_change"),
+    "windowed": ("fit_continuation_windowed",),
+})
 
 __all__ = [
     "EDGES", "REGIMES", "ContinuationFit", "HeightsMismatchError", "HeightsNotIncreasingError", "ImageShapeError",

@@ -6,10 +6,15 @@
 only; the noise estimate is the lift-series family's (``white_noise_std``).
 """
 
-from .errors import MediaInputError, TooFewPixelsPerBitError
-from .orientation import Orientation, magnetisation_orientation
-from .tracks import TrackAnalysis, TrackResult, analyse_tracks
-from .transfer import point_probe_transfer
+from assistant.analysis._lazy import attach
+
+# which module holds each public name; a name loads its module (and that module's scipy) on first use
+__getattr__, __dir__ = attach(__name__, {
+    "errors": ("MediaInputError", "TooFewPixelsPerBitError"),
+    "orientation": ("Orientation", "magnetisation_orientation"),
+    "tracks": ("TrackAnalysis", "TrackResult", "analyse_tracks"),
+    "transfer": ("point_probe_transfer",),
+})
 
 __all__ = ["Orientation", "magnetisation_orientation", "MediaInputError", "TooFewPixelsPerBitError",
            "TrackAnalysis", "TrackResult", "analyse_tracks", "point_probe_transfer"]

@@ -9,13 +9,18 @@ attractive F' > 0 reads as a negative phase; the tip moment is +z unless stated;
 closest approach of the oscillating tip.
 """
 
-from assistant.analysis.quantitative.calibration import TipCalibration, calibrate_tip
-from assistant.analysis.quantitative.conversion import (amplitude_weight, force_gradient_from_frequency_shift,
-                                                        force_gradient_from_phase, measurement_plane_m)
-from assistant.analysis.quantitative.field import FieldInputError, FieldMap, band_taper, reconstruct_field
-from assistant.analysis.quantitative.point_probe import MU_0, PointProbeFit, fit_point_probe, point_probe_ttf
-from assistant.analysis.quantitative.reference import film_factor, film_field, subpixel_sign
-from assistant.analysis.quantitative.transfer import CalibrationInputError, TransferEstimate, calibrate_transfer
+from assistant.analysis._lazy import attach
+
+# which module holds each public name; a name loads its module (and that module's scipy) on first use
+__getattr__, __dir__ = attach(__name__, {
+    "calibration": ("TipCalibration", "calibrate_tip"),
+    "conversion": ("amplitude_weight", "force_gradient_from_frequency_shift", "force_gradient_from_phase",
+              "measurement_plane_m"),
+    "field": ("FieldInputError", "FieldMap", "band_taper", "reconstruct_field"),
+    "point_probe": ("MU_0", "PointProbeFit", "fit_point_probe", "point_probe_ttf"),
+    "reference": ("film_factor", "film_field", "subpixel_sign"),
+    "transfer": ("CalibrationInputError", "TransferEstimate", "calibrate_transfer"),
+})
 
 __all__ = [
     "TipCalibration", "calibrate_tip", "amplitude_weight", "force_gradient_from_frequency_shift",

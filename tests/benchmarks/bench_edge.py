@@ -1,0 +1,71 @@
+"""The whole lift-series analysis with ``edge="window"`` against ``edge="reflect"`` on 8 x 256 x 256 (target:
+within 3x), in turn in one process after a warm-up of each, medians of the pairwise ratios. The stack is the
+non-periodic crop with drift of ``command_inputs`` (tests/analysis/lift_series/synthetic_series.py). The
+windowed answer is also compared with itself run again (it must be deterministic) and, for the record, with
+the reflected one (different estimators: they agree to the noise, not to rounding).
+
+``MFMA_BENCH_RUNS`` sets the number of pairs (default 3).
+"""
+
+from __future__ import annotations
+
+import os
+import statistics
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE))
+sys.path.insert(0, str(HERE.parents[1]))
+
+from assistant.analysis.lift_series import analyse_series  # noqa: E402
+from tests.analysis.lift_series.synthetic_series import build_series  # noqa: E402
+from timing import load_average, target  # noqa: E402
+
+HEIGHTS_M = np.array([20, 30, 40, 55, 70, 90, 110, 140]) * 1e-9
+TARGET_RATIO = 3.0
+
+
+def _series():
+    return build_series(rows=256, cols=256, heights_m=HEIGHTS_M, noise_deg=0.1, magnetic_scale=0.3, seed=1,
+                        margin_px=64, drift_px=np.c_[np.linspace(0, 1.5, 8), np.linspace(0, -1.0, 8)])
+
+
+def run() -> dict:
+    runs = int(os.environ.get("MFMA_BENCH_RUNS", "3"))
+    s = _series()
+
+    def analyse(edge):
+        t0 = time.perf_counter()
+        r = analyse_series(s.phase_deg, heights_m=HEIGHTS_M, pixel_m=s.pixel_m, edge=edge, **s.analysis_kwargs)
+        return time.perf_counter() - t0, r
+
+    analyse("reflect"), analyse("window")  # warm-up: imports, FFT plans
+    tw, tr, results = [], [], []
+    for _ in range(runs):
+        a, rw = analyse("window")
+        b, rr = analyse("reflect")
+        tw.append(a)
+        tr.append(b)
+        results.append((rw, rr))
+    ratios = [a / b for a, b in zip(tw, tr)]
+    rw, rr = results[-1]
+    noise = float(np.median(rw.noise_deg))
+    again = float(np.max(np.abs(results[0][0].magnetic_deg - rw.magnetic_deg))) / noise
+    versus = float(np.max(np.abs(rw.magnetic_rms_deg - rr.magnetic_rms_deg))) / noise
+    ratio = statistics.median(ratios)
+    return {"stack": [len(HEIGHTS_M), 256, 256], "window_s": statistics.median(tw), "reflect_s": statistics.median(tr),
+            "ratio": ratio, "ratio_min": min(ratios), "ratio_max": max(ratios),
+            "window_iterations": int(getattr(rw, "iterations", 0) or 0),
+            "window_repeat_max_diff_over_noise": again, "window_vs_reflect_rms_diff_over_noise": versus,
+            "load_average_1min": load_average(),
+            "targets": [target("whole analysis --edge window / --edge reflect, 8x256^2", ratio, TARGET_RATIO, "x")]}
+
+
+if __name__ == "__main__":
+    import json
+
+    print(json.dumps(run(), indent=2))
