@@ -60,11 +60,12 @@ def stop_on_interrupt(controller) -> Iterator[None]:
     command then exits 130). A stop that cannot be confirmed is said on stderr."""
     try:
         yield
-    except KeyboardInterrupt:
+    except KeyboardInterrupt as interrupt:
         from assistant.procedures.guard import stop_now
 
         try:
             stop_now(controller)
+            interrupt.stage_made_safe = True  # the command's last line may say so
         except Exception as exc:
             import sys
 

@@ -24,3 +24,17 @@ def test_ctrl_c_after_the_approach_withdraws_and_exits_130(tmp_path, capsys, mon
     assert code == 130, err
     assert seen["engaged"] is True  # the approach left the tip on the surface
     assert seen["controller"].status().safe and "interrupted; the stage was made safe" in err
+
+
+def test_ctrl_c_where_no_controller_is_open_claims_no_safe_stage(monkeypatch, capsys):
+    # nothing was opened, so nothing was made safe: the last line says only that the command was interrupted
+    import assistant.cli.cmd_drivers as drivers_cmd
+
+    def interrupted(args):
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(drivers_cmd, "run", interrupted)
+    code = main(["drivers"])
+    err = capsys.readouterr().err
+    assert code == 130
+    assert err.strip() == "mfma: interrupted"
