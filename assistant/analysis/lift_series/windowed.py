@@ -41,6 +41,16 @@ def _window_statistics(e, cwv, w_h, n, ridge_k=None):
     return sinv[..., 0, 0], lev, var
 
 
+def _shift_phase(a, b, dr_m, dc_m):
+    """Fourier shift multipliers (J, R, Cq) for displacements ``dr_m``, ``dc_m`` (J,) [m] at the frequencies
+    ``a``, ``b`` (R, Cq) [1/m]; as an outer product of a row and a column factor where the row frequency
+    varies only along rows and the column frequency only along columns."""
+    if np.array_equal(a, np.broadcast_to(a[:, :1], a.shape)) and np.array_equal(b, np.broadcast_to(b[:1], b.shape)):
+        return (np.exp(-2j * np.pi * a[None, :, :1] * dr_m[:, None, None])
+                * np.exp(-2j * np.pi * b[None, :1, :] * dc_m[:, None, None]))
+    return np.exp(-2j * np.pi * (a[None] * dr_m[:, None, None] + b[None] * dc_m[:, None, None]))
+
+
 def fit_continuation_windowed(images: np.ndarray, *, heights_m, pixel_m, height_index=None, drift_px=None,
                               valid: np.ndarray | None = None, pad_px=None, ridge: float = 1e-4,
                               tol: float = 1e-4, max_iter: int = 200, n_reweight: int = 10,
@@ -171,8 +181,7 @@ def _fit(images, heights_m, pixel_m, height_index, drift_px, valid, pad_px, ridg
         # operators for drift dd; the band a periodic shift would wrap in is left out, so data that were
         # shifted periodically (synthetic) and real scans are treated alike
         nonlocal g, gc, ok, okf, n_ok, ops
-        ph = [np.exp(-2j * np.pi * (a[None] * pr * dd[:, 0, None, None] + b[None] * pc * dd[:, 1, None, None]))
-              for a, b in freqs]
+        ph = [_shift_phase(a, b, pr * dd[:, 0], pc * dd[:, 1]) for a, b in freqs]
         g = self_conjugate_real(np.array([e_big[k][hi] * ph[k] for k in range(nk)]), shape)  # (K, J, R, Cq)
         gc = np.conj(g)
         lo = np.ceil(np.clip(dd, 0, None))
