@@ -215,7 +215,7 @@ def _fit(images, heights_m, pixel_m, height_index, drift_px, valid, pad_px, ridg
         # the image is zero outside the window: transform its rows zero-padded, then its columns
         gg = ops[r_w.dtype.type][1]
         spec = sp_fft.fft(sp_fft.rfft(r_w, n=big_c, axis=-1), n=big_r, axis=-2, overwrite_x=True)
-        both = np.einsum("jab,jab->ab", gg[0], spec)[None] if nk == 1 else np.einsum("kjab,jab->kab", gg, spec)
+        both = (gg[0] * spec).sum(axis=0)[None] if nk == 1 else np.einsum("kjab,jab->kab", gg, spec)
         return sp_fft.irfft2(both, s=shape, axes=(-2, -1))
 
     known = noise_std is not None
@@ -251,8 +251,8 @@ def _fit(images, heights_m, pixel_m, height_index, drift_px, valid, pad_px, ridg
         def apply_precond(v):
             return sp_fft.irfft2(sp_fft.rfft2(v, axes=(-2, -1)) * precond_c, s=shape, axes=(-2, -1))
 
-        def dot(u, v):  # accumulated in double precision
-            return float(np.dot(u.ravel().astype(float), v.ravel().astype(float)))
+        def dot(u, v):  # summed in double precision
+            return float(np.multiply(u, v).sum(dtype=np.float64))
 
         yc = centred(y0)
         b = adjoint(wj[:, None, None] * yc).astype(cg_type)
