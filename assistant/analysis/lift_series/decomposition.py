@@ -60,7 +60,7 @@ from .registration import align_stack, shift_from_spectra
 from .result import SeriesAnalysis
 from .standard_errors import drift_covariance
 from .tip_change import detect_tip_change
-from .windowed import fit_continuation_windowed
+from .windowed import WINDOW_SOLVE, fit_continuation_windowed
 
 __all__ = ["analyse_series", "EDGES"]
 
@@ -361,7 +361,7 @@ def _fit_magnetic(flat, okf, h, pixel_m, *, nb: int, edge: str, band: int, optio
     # from the measured noise of one image per height
     fit = fit_continuation_windowed(flat, heights_m=h, pixel_m=pixel_m, height_index=np.repeat(np.arange(nh), nb),
                                     drift_px=drift, valid=okf, noise_std=np.sqrt(height_var * nb),
-                                    drift_tol_px=5e-4)
+                                    drift_tol_px=5e-4, **WINDOW_SOLVE)
     # the magnetic window mean is not separable from the image-mean parts (they absorb it)
     fit = dataclasses.replace(fit, model=fit.model - fit.window_mean[:, None, None])
     drift = fit.drift_px
