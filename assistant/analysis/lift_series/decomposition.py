@@ -19,7 +19,7 @@ Edges: a real scan is a window onto an unbounded field, not a period of it. Thre
   residual and the magnetic rms are taken over the interior, away from an edge band of ``edge_band_px`` pixels.
 * ``edge="window"``: the field outside the window is fitted as missing data
   (:func:`~.windowed.fit_continuation_windowed`); drift enters the model, so the images are never
-  interpolated. Right up to the edges, but one to two hundred times slower.
+  interpolated. Right up to the edges; the whole analysis takes about three times as long.
 * ``edge="periodic"``: the plain FFT fit (:mod:`.periodic`), exact only for scans periodic in the window (a
   non-periodic synthetic crop: magnetic rms +9 % at the lowest height and a residual ten times the noise).
 * ``edge="auto"`` (default): the reflected-edge fit, always; ``edge_note`` says so where the scan is small

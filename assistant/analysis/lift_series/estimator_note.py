@@ -43,7 +43,7 @@ def small_scan_note(heights_m, pixel_m: tuple[float, float], shape: tuple[int, i
             "near the edges reaches the interior (on synthetic crops of this proportion the magnetic rms stayed "
             "within 0.5 % but at the two top heights, off by up to 4 % at the top, and the residual rose above "
             "noise at most heights, which holds back the recommendation); --edge window fits the field outside "
-            "the scan instead, at 100-500 times the cost, with approximate standard errors.")
+            "the scan instead, at about three times the whole analysis's time, with approximate standard errors.")
 
 
 def auto_estimator(heights_m, pixel_m) -> tuple[str, str]:

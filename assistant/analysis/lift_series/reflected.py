@@ -17,7 +17,7 @@ that difference through the continuation kernel (a Poisson kernel of width ``h -
 misfit within a few kernel widths of the edges, and the joint fit passes a small part of that misfit on to
 the lowest height. The noise of every height is therefore estimated from the residual in the interior
 only. :func:`~.windowed.fit_continuation_windowed` treats the outside as missing data
-and removes the misfit, at one to two hundred times the cost.
+and removes the misfit, at about three times the whole analysis's time.
 """
 
 from __future__ import annotations
