@@ -115,6 +115,10 @@ async def test_each_view_renders_with_its_content():
             shown = screen_text(app)
             assert text in shown, f"{key} view at 80x24 lacks {text!r}:\n{shown}"
             assert "no controller" in shown and "WITHDRAW" in shown  # status line and withdraw key always there
+        for _ in range(50):  # the preview is mounted by a message of its own: on a loaded machine it may lag
+            if sv.query(HalfBlockImage):
+                break
+            await pilot.pause(0.1)
         img = sv.query(HalfBlockImage).first()
         assert np.isfinite(img._img[0]).all() and np.isnan(img._img[1:]).all()  # line 1 in, lines 2-4 empty
         await pilot.press("question_mark")
