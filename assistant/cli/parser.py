@@ -185,7 +185,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("file", help=".npz (phase_deg (rows, cols), pixel_nm as one spacing or [row, col], optional "
                                 "lift_nm) or a session file (.h5): one height of a series")
     p.add_argument("--series", metavar="NAME", help="series name inside a session file (default: the last)")
-    p.add_argument("--height-nm", type=float, metavar="NM", help="the height of the series to analyse (default: "
+    p.add_argument("--height-nm", type=float, metavar="NM", help="the height of the series to analyze (default: "
                    "the lowest where the tip-sample interaction is negligible)")
     p.add_argument("--thickness-nm", type=float, metavar="NM", help="film thickness (default: fitted)")
     p.add_argument("--tip-offset-nm", type=float, metavar="NM", help="the tip as a point dipole this far behind "

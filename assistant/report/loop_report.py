@@ -86,7 +86,7 @@ def field_series_report(session, out_dir: Path, notes: list[str]) -> tuple[list[
         try:
             result = stored_loop_analysis(session, name)
         except ValueError as exc:  # too few steps, no elements: say so, keep the report
-            notes.append(f"field series {name!r} not analysed: {exc}")
+            notes.append(f"field series {name!r} not analyzed: {exc}")
             continue
         text += ["Loop analysis:", ""] + _result_lines(result) + [""]
         results += [_headline(name, result), ""]

@@ -57,7 +57,7 @@ class FieldSeriesView(View):
                 with Horizontal(classes="buttons"):
                     yield Button("Check", id="fields-check")
                     yield Button("Start", id="fields-start", variant="primary")
-                    yield Button("Analyse", id="fields-analyse")
+                    yield Button("Analyze", id="fields-analyse")
                 yield Static("", id="fields-message")
             with Vertical(id="fields-live"):
                 yield ProgressBar(total=1, show_eta=False, id="fields-bar")
