@@ -20,15 +20,14 @@ continuing an interrupted field series is :func:`assistant.storage.resume.resume
 
 from __future__ import annotations
 
-import json
 from collections.abc import Sequence
 from dataclasses import dataclass
 
 import h5py
 import numpy as np
 
-from assistant.storage.records import FinishedSeriesError, SessionFileError, check_name, unit_for_name
-from assistant.storage.series_group import BeforeWrite, axis_dataset, line_dataset
+from assistant.storage.records import FinishedSeriesError, SessionFileError, unit_for_name
+from assistant.storage.series_group import BeforeWrite, axis_dataset, checked_scan_arguments, line_dataset
 
 __all__ = ["FIELD_SERIES_GROUP", "FieldSeriesData", "FieldSeriesGroups", "FieldSeriesWriter"]
 
@@ -151,8 +150,9 @@ class FieldSeriesGroups:
                             order: str, settings_json: str, field_axis: str = "z",
                             before_write: BeforeWrite | None = None) -> FieldSeriesWriter:
         """Create ``field_series/<name>`` with every dataset allocated and NaN-filled; returns its writer."""
-        fields = _checked_arguments(name, fields_a_per_m, lines=lines, pixels=pixels, scan_size_m=scan_size_m,
-                                    line_rate_hz=line_rate_hz, settings_json=settings_json)
+        fields = checked_scan_arguments(name, fields_a_per_m, "fields_a_per_m", lines=lines, pixels=pixels,
+                                        scan_size_m=scan_size_m, line_rate_hz=line_rate_hz,
+                                        settings_json=settings_json)
         if name in self.field_series_names():
             raise SessionFileError(f"field series {name!r} already exists in {str(self.path)!r}; resume it instead")
         with self._writing(f"field series {name!r}"):
@@ -179,26 +179,6 @@ class FieldSeriesGroups:
         if name not in have:
             raise SessionFileError(f"no field series {name!r} in {str(self.path)!r}; have {have}")
         return self._h5[FIELD_SERIES_GROUP][name]
-
-
-def _checked_arguments(name: str, fields_a_per_m: Sequence[float], *, lines: int, pixels: int, scan_size_m: float,
-                       line_rate_hz: float, settings_json: str) -> np.ndarray:
-    """The fields as an array after checking every argument, so that a bad one leaves the file untouched."""
-    check_name(name)
-    fields = np.asarray(fields_a_per_m, dtype=np.float64)
-    if fields.ndim != 1 or fields.size == 0 or not np.all(np.isfinite(fields)):
-        raise SessionFileError(f"fields_a_per_m must be a non-empty 1-D array of finite values, got {fields_a_per_m!r}")
-    for label, value in (("lines", lines), ("pixels", pixels)):
-        if int(value) != value or value < 1:
-            raise SessionFileError(f"{label} must be a positive integer, got {value!r}")
-    for label, value in (("scan_size_m", scan_size_m), ("line_rate_hz", line_rate_hz)):
-        if not (np.isfinite(value) and value > 0):
-            raise SessionFileError(f"{label} must be positive and finite, got {value!r}")
-    try:
-        json.loads(settings_json)
-    except (TypeError, ValueError) as exc:
-        raise SessionFileError(f"settings_json is not valid JSON: {exc}") from exc
-    return fields
 
 
 def _new_group(h5: h5py.File, name: str, fields: np.ndarray, *, lines: int, pixels: int, scan_size_m: float,

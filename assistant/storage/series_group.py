@@ -139,25 +139,34 @@ def axis_dataset(group: h5py.Group, name: str, values: np.ndarray, units: str) -
     ds.attrs["units"] = units
 
 
+def checked_scan_arguments(name: str, values: Sequence[float], label: str, *, lines: int, pixels: int,
+                           scan_size_m: float, line_rate_hz: float, settings_json: str) -> np.ndarray:
+    """The per-step values of a new series (lift heights, or fields) as an array, after checking every argument
+    both kinds of series share, so that a bad one leaves the file untouched; ``label`` names the values."""
+    check_name(name)
+    array = np.asarray(values, dtype=np.float64)
+    if array.ndim != 1 or array.size == 0 or not np.all(np.isfinite(array)):
+        raise SessionFileError(f"{label} must be a non-empty 1-D array of finite values, got {values!r}")
+    for what, value in (("lines", lines), ("pixels", pixels)):
+        if int(value) != value or value < 1:
+            raise SessionFileError(f"{what} must be a positive integer, got {value!r}")
+    for what, value in (("scan_size_m", scan_size_m), ("line_rate_hz", line_rate_hz)):
+        if not (np.isfinite(value) and value > 0):
+            raise SessionFileError(f"{what} must be positive and finite, got {value!r}")
+    try:
+        json.loads(settings_json)
+    except (TypeError, ValueError) as exc:
+        raise SessionFileError(f"settings_json is not valid JSON: {exc}") from exc
+    return array
+
+
 def checked_series_arguments(name: str, heights_m: Sequence[float], biases_v: Sequence[float] | None, *,
                              lines: int, pixels: int, scan_size_m: float, line_rate_hz: float,
                              settings_json: str) -> tuple[np.ndarray, np.ndarray | None]:
     """Heights and biases as arrays (biases None without a grid) after checking every argument of a new series, so
     that a bad one leaves the file untouched."""
-    check_name(name)
-    heights = np.asarray(heights_m, dtype=np.float64)
-    if heights.ndim != 1 or heights.size == 0 or not np.all(np.isfinite(heights)):
-        raise SessionFileError(f"heights_m must be a non-empty 1-D array of finite values, got {heights_m!r}")
-    for label, value in (("lines", lines), ("pixels", pixels)):
-        if int(value) != value or value < 1:
-            raise SessionFileError(f"{label} must be a positive integer, got {value!r}")
-    for label, value in (("scan_size_m", scan_size_m), ("line_rate_hz", line_rate_hz)):
-        if not (np.isfinite(value) and value > 0):
-            raise SessionFileError(f"{label} must be positive and finite, got {value!r}")
-    try:
-        json.loads(settings_json)
-    except (TypeError, ValueError) as exc:
-        raise SessionFileError(f"settings_json is not valid JSON: {exc}") from exc
+    heights = checked_scan_arguments(name, heights_m, "heights_m", lines=lines, pixels=pixels,
+                                     scan_size_m=scan_size_m, line_rate_hz=line_rate_hz, settings_json=settings_json)
     biases = None if biases_v is None or len(biases_v) == 0 else np.asarray(biases_v, dtype=np.float64)
     if biases is not None and (biases.ndim != 1 or not np.all(np.isfinite(biases))):
         raise SessionFileError(f"biases_v must be a 1-D sequence of finite values or None, got {biases_v!r}")
