@@ -121,14 +121,7 @@ def write_tip_file(path: str | os.PathLike[str], calibration, *, gradient_n_per_
     }
     for key in ("dipole_a_m2", "dipole_std_a_m2", "monopole_a_m", "monopole_std_a_m", "offset_nm", "offset_std_nm"):
         arrays[key] = np.array(np.nan if summary[key] is None else summary[key])
-    target = Path(path)
-    if target.suffix.lower() != ".npz":
-        raise QuantitativeFileError(f"{target}: the tip file must end in .npz")
-    try:
-        with open(target, "wb") as handle:
-            np.savez(handle, **arrays)
-    except OSError as exc:
-        raise QuantitativeFileError(f"{target}: cannot write the tip file ({exc.strerror or exc})") from None
+    _write_npz(path, arrays, "tip")
     summary.update(created_utc=created, probe=probe, reference=reference, pixel_nm=[p * 1e9 for p in pixel_m])
     return summary
 
@@ -174,11 +167,16 @@ def write_field_file(path: str | os.PathLike[str], field_map, *, extra: dict[str
     }
     for key, value in extra.items():
         arrays[key] = np.array("" if value is None else value)
+    _write_npz(path, arrays, "field")
+
+
+def _write_npz(path: str | os.PathLike[str], arrays: dict, what: str) -> None:
+    """Write ``arrays`` to ``path`` (which must end in .npz) as the ``what`` file, with one-line errors."""
     target = Path(path)
     if target.suffix.lower() != ".npz":
-        raise QuantitativeFileError(f"{target}: the field file must end in .npz")
+        raise QuantitativeFileError(f"{target}: the {what} file must end in .npz")
     try:
         with open(target, "wb") as handle:
             np.savez(handle, **arrays)
     except OSError as exc:
-        raise QuantitativeFileError(f"{target}: cannot write the field file ({exc.strerror or exc})") from None
+        raise QuantitativeFileError(f"{target}: cannot write the {what} file ({exc.strerror or exc})") from None
