@@ -22,7 +22,6 @@ import time
 from urllib.parse import urlsplit
 
 import zmq
-from zmq.utils.monitor import recv_monitor_message
 
 from drivers import keys
 from drivers.errors import BadURL, LinkLost, LinkTimeout, ProtocolError
@@ -192,6 +191,8 @@ class NetworkController(LinkController):
             if sock in ready:
                 return sock.recv_multipart(), None
             if self._monitor is not None and self._monitor in ready:
+                from zmq.utils.monitor import recv_monitor_message  # here: it loads asyncio, and events are rare
+
                 event = recv_monitor_message(self._monitor)["event"]
                 if event == zmq.EVENT_DISCONNECTED:
                     return None, "the controller server closed the connection"

@@ -58,10 +58,7 @@ def one_line(exc: BaseException) -> str:
 
 def to_jsonable(value: Any) -> Any:
     """Plain JSON types: numpy scalars and arrays become floats and lists, NaN and inf become null."""
-    try:
-        import numpy as np
-    except ImportError:  # pragma: no cover
-        np = None
+    np = sys.modules.get("numpy")  # a value can be a numpy object only if numpy is loaded: never import it here
     if np is not None and isinstance(value, np.ndarray):
         return [to_jsonable(v) for v in value.tolist()]
     if np is not None and isinstance(value, np.generic):

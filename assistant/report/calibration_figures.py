@@ -6,15 +6,19 @@ Matplotlib object API on the Agg canvas (no pyplot state, safe in threads and he
 from __future__ import annotations
 
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
-from assistant.analysis.calibration.sweep import SweepResult
-from assistant.analysis.calibration.thermal import ThermalResult
 from assistant.formatting import number, quantity
+from assistant.report.images import save_png
 from assistant.report.panel_grid import fixed_margins
+
+if TYPE_CHECKING:  # names for the annotations only: the fits' modules load scipy
+    from assistant.analysis.calibration.sweep import SweepResult
+    from assistant.analysis.calibration.thermal import ThermalResult
 
 __all__ = ["sweep_figure", "thermal_figure", "write_sweep_figure", "write_thermal_figure"]
 
@@ -123,13 +127,9 @@ def sweep_figure(result: SweepResult) -> Figure:
 
 def write_thermal_figure(result: ThermalResult, path: str | Path, *, dpi: int = 120) -> Path:
     """Write :func:`thermal_figure` as a PNG; returns the path."""
-    path = Path(path)
-    thermal_figure(result).savefig(path, format="png", dpi=dpi)
-    return path
+    return save_png(thermal_figure(result), path, dpi=dpi)
 
 
 def write_sweep_figure(result: SweepResult, path: str | Path, *, dpi: int = 120) -> Path:
     """Write :func:`sweep_figure` as a PNG; returns the path."""
-    path = Path(path)
-    sweep_figure(result).savefig(path, format="png", dpi=dpi)
-    return path
+    return save_png(sweep_figure(result), path, dpi=dpi)

@@ -18,7 +18,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.optimize
 
 from assistant.errors import AssistantError, InputError
 
@@ -126,6 +125,8 @@ def fit_drive_sweep(frequencies_hz: np.ndarray, amplitude_v: np.ndarray, phase_d
         p = x * scale
         ma, mp = oscillator_response(f, f0_hz=p[0], q=p[1], amplitude_at_resonance_v=p[2], phase_offset_deg=p[3])
         return np.concatenate(((ma - a) / sa, _wrap_deg(mp - ph) / sp))
+
+    import scipy.optimize  # here: it takes 0.2-0.3 s to load, and reading a stored sweep does not fit
 
     sa, sp = 0.01 * a[i], 1.0
     x = x0 / scale

@@ -11,7 +11,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import optimize
 
 __all__ = ["MeanFit", "fit_mean_heights", "fit_mean_bias_grid"]
 
@@ -74,7 +73,9 @@ def fit_mean_heights(mean, mean_std, *, electrostatic_shape, short_range_shape, 
     x = np.stack([e, s], axis=1) * scale[None] / sd[:, None]
     yw = y / sd
     coef_free = np.linalg.lstsq(x, yw, rcond=None)[0]
-    coef, _ = optimize.nnls(x, yw)
+    from scipy.optimize import nnls  # here: scipy.optimize takes 0.2 s to load; the decomposition does not call this
+
+    coef, _ = nnls(x, yw)
     held = coef <= 0.0
     dof = max(len(y) - 2, 1)
     red = float(np.sum((x @ coef - yw) ** 2)) / dof
@@ -152,7 +153,9 @@ def fit_mean_bias_grid(mean, mean_std, *, bias_v) -> MeanFit:
     chis = np.array([_vertex_chi2(g, volts, y, w)[0] for g in grid])  # 1-D scan of the single nonlinear parameter
     k = int(np.argmin(chis))
     lo, hi = grid[max(k - 1, 0)], grid[min(k + 1, len(grid) - 1)]
-    res = optimize.minimize_scalar(lambda v: _vertex_chi2(v, volts, y, w)[0], bounds=(lo, hi), method="bounded",
+    from scipy.optimize import minimize_scalar  # here, as nnls above
+
+    res = minimize_scalar(lambda v: _vertex_chi2(v, volts, y, w)[0], bounds=(lo, hi), method="bounded",
                                    options={"xatol": 1e-10 * max(span, 1e-12)})
     v0 = float(res.x)
     chi2, a, c = _vertex_chi2(v0, volts, y, w)

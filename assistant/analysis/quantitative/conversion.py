@@ -9,7 +9,6 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy.special import i1e
 
 from assistant.errors import InputError
 
@@ -91,6 +90,8 @@ def amplitude_weight(k_per_m: np.ndarray, amplitude_m: float) -> np.ndarray:
     a = float(amplitude_m)
     if not (math.isfinite(a) and a >= 0):
         raise InputError(f"amplitude_m = {amplitude_m!r} must be finite and >= 0")
+    from scipy.special import i1e  # here: loading scipy.special costs 0.15 s, and only a stated amplitude needs it
+
     x = np.asarray(k_per_m, dtype=float) * a
     out = np.ones_like(x)
     big = x > 1e-8
