@@ -99,12 +99,7 @@ def phase_figure(phase_deg: np.ndarray, *, heights_m: Sequence[float], scan_size
     panel its own scale (still centred on zero) and colour bar: the fine contrast of a high lift shows, but colours
     no longer compare between panels; the title says so.
     """
-    stack = np.asarray(phase_deg, dtype=np.float64)
-    if stack.ndim != 3 or stack.shape[0] != len(heights_m):
-        raise InputError(f"phase_deg must have shape (heights={len(heights_m)}, lines, pixels), got {stack.shape}")
-    panels = [(_padded(img, lines), f"lift {h * 1e9:.4g} nm") for img, h in zip(stack, heights_m)]
-    if repeat_phase_deg is not None:
-        panels.append((_padded(repeat_phase_deg, lines), f"lift {heights_m[0] * 1e9:.4g} nm, repeat"))
+    panels = _phase_panels(phase_deg, heights_m, lines, repeat_phase_deg)
     limit = limit_deg if limit_deg is not None else symmetric_limit([p for p, _ in panels])
     norm = Normalize(-limit, limit)
     if per_height_scale:
@@ -133,6 +128,48 @@ def phase_figure(phase_deg: np.ndarray, *, heights_m: Sequence[float], scan_size
     return fig
 
 
+def _phase_panels(phase_deg, heights_m, lines, repeat_phase_deg=None) -> list[tuple[np.ndarray, str]]:
+    """(image, panel title) of every lift height, then of the repeat of the first height if given."""
+    stack = np.asarray(phase_deg, dtype=np.float64)
+    if stack.ndim != 3 or stack.shape[0] != len(heights_m):
+        raise InputError(f"phase_deg must have shape (heights={len(heights_m)}, lines, pixels), got {stack.shape}")
+    panels = [(_padded(img, lines), f"lift {h * 1e9:.4g} nm") for img, h in zip(stack, heights_m)]
+    if repeat_phase_deg is not None:
+        panels.append((_padded(repeat_phase_deg, lines), f"lift {heights_m[0] * 1e9:.4g} nm, repeat"))
+    return panels
+
+
+def phase_figures_over_biases(phase_deg: np.ndarray, paths: Sequence[str | Path], *, heights_m: Sequence[float],
+                              scan_size_m: float, titles: Sequence[str], lines: int | None = None,
+                              dpi: int = 120) -> list[Path]:
+    """The shared-scale phase figure of every tip bias of a bias grid, one PNG each; ``phase_deg`` has shape
+    (heights, biases, lines, pixels).
+
+    One figure is built, and for each further bias it is given that bias's images, colour scale and title and
+    saved again. The axes, ticks and labels are the same at every bias, and building and first drawing them is
+    about a third of a figure's time (0.30 s against 0.20 s per further bias, measured on eight panels).
+    """
+    stack = np.asarray(phase_deg, dtype=np.float64)
+    if stack.ndim != 4 or stack.shape[1] != len(paths) or len(titles) != len(paths):
+        raise InputError(f"phase_deg must have shape (heights, biases={len(paths)}, lines, pixels) with a path "
+                         f"and a title per bias, got {stack.shape}")
+    written = []
+    fig = images = None
+    for j, (path, title) in enumerate(zip(paths, titles)):
+        panels = _phase_panels(stack[:, j], heights_m, lines)
+        if fig is None:
+            fig = phase_figure(stack[:, j], heights_m=heights_m, scan_size_m=scan_size_m, lines=lines, title=title)
+            images = [ax.images[0] for ax in fig.axes if ax.images]
+        else:
+            for im, (image, _) in zip(images, panels):
+                im.set_data(image)
+            limit = symmetric_limit([p for p, _ in panels])
+            images[0].set_clim(-limit, limit)  # the panels share one norm: the colour bar follows it
+            fig.suptitle(title)
+        written.append(save_png(fig, path, dpi=dpi))
+    return written
+
+
 def _per_height_figure(panels, *, scan_size_m: float, title: str) -> Figure:
     cols = min(len(panels), 4)
     rows = math.ceil(len(panels) / cols)
@@ -155,10 +192,15 @@ def _per_height_figure(panels, *, scan_size_m: float, title: str) -> Figure:
     return fig
 
 
+#: zlib level 1 instead of Pillow's 6: the same pixels (PNG is lossless), 0.02-0.03 s less per figure (about a
+#: tenth of its time), files about a tenth larger (measured on an eight-panel phase figure: 185 -> 205 kB)
+PNG_OPTIONS = {"compress_level": 1}
+
+
 def save_png(fig: Figure, path: str | Path, *, dpi: int = 120) -> Path:
     """Write ``fig`` as PNG through its Agg canvas; returns the path."""
     path = Path(path)
     if not isinstance(fig.canvas, FigureCanvasAgg):
         FigureCanvasAgg(fig)
-    fig.savefig(path, dpi=dpi, format="png")
+    fig.savefig(path, dpi=dpi, format="png", pil_kwargs=PNG_OPTIONS)
     return path

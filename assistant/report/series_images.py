@@ -9,7 +9,7 @@ from pathlib import Path
 
 import numpy as np
 
-from assistant.report.images import phase_figure, save_png, topography_figure
+from assistant.report.images import phase_figure, phase_figures_over_biases, save_png, topography_figure
 
 
 def write_topography(topography_m: np.ndarray, path: Path, *, scan_size_m: float, lines: int, title: str) -> Path:
@@ -40,8 +40,14 @@ def series_image_jobs(data, out_dir: Path, *, per_height_scale: bool = False) ->
         jobs.append((f"phase maps of {data.name!r}", (write_phase, (data.phase_deg, out_dir / f"{data.name}_phase.png"),
                      {**phase, "title": f"{data.name}: phase", "repeat_phase_deg": data.repeat_phase_deg})))
         return jobs
-    for j, bias in enumerate(data.biases_v):
-        jobs.append((f"phase maps of {data.name!r} at {bias:+.3g} V",
-                     (write_phase, (data.phase_deg[:, j], out_dir / f"{data.name}_phase_bias{j}.png"),
-                      {**phase, "title": f"{data.name}: phase at tip bias {bias:+.3g} V"})))
+    titles = [f"{data.name}: phase at tip bias {bias:+.3g} V" for bias in data.biases_v]
+    paths = [out_dir / f"{data.name}_phase_bias{j}.png" for j in range(len(data.biases_v))]
+    if per_height_scale:  # each panel has its own scale and bar: a figure per bias
+        for j, title in enumerate(titles):
+            jobs.append((f"phase maps of {data.name!r} at {data.biases_v[j]:+.3g} V",
+                         (write_phase, (data.phase_deg[:, j], paths[j]), {**phase, "title": title})))
+        return jobs
+    jobs.append((f"phase maps of {data.name!r} at every tip bias",
+                 (phase_figures_over_biases, (data.phase_deg, paths),
+                  {**common, "heights_m": data.heights_m, "titles": titles})))
     return jobs

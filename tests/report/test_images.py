@@ -126,3 +126,23 @@ def test_no_pyplot_and_storage_does_not_load_matplotlib():
             "assert 'matplotlib.pyplot' not in sys.modules\n")
     done = subprocess.run([sys.executable, "-c", code], cwd=repo, capture_output=True, text=True, timeout=60)
     assert done.returncode == 0, done.stderr
+
+
+def test_phase_figures_over_biases_match_a_fresh_figure_per_bias(tmp_path):
+    """The bias grid's phase maps are drawn on one figure given each bias's images, scale and title in turn (to
+    save building the axes again); every file must be pixel for pixel the figure drawn afresh for that bias."""
+    from PIL import Image
+
+    rng = np.random.default_rng(2)
+    # (heights, biases, lines, pixels), each bias at its own scale and a partly scanned frame (NaN rows)
+    phase = rng.normal(size=(3, 3, 20, 24)) * np.array([1.0, 4.0, 0.3])[None, :, None, None]
+    heights = np.array([20e-9, 40e-9, 80e-9])
+    titles = [f"s: phase at tip bias {b:+.3g} V" for b in (-1.0, 0.0, 1.0)]
+    reused = images.phase_figures_over_biases(phase, [tmp_path / f"r{j}.png" for j in range(3)], heights_m=heights,
+                                              scan_size_m=2e-6, titles=titles, lines=24)
+    assert [p.name for p in reused] == ["r0.png", "r1.png", "r2.png"]
+    for j in range(3):
+        fresh = images.save_png(images.phase_figure(phase[:, j], heights_m=heights, scan_size_m=2e-6, lines=24,
+                                                    title=titles[j]), tmp_path / f"f{j}.png")
+        a, b = (np.asarray(Image.open(p)) for p in (reused[j], fresh))
+        assert a.shape == b.shape and np.array_equal(a, b), f"bias {j}: {np.count_nonzero(a != b)} values differ"
