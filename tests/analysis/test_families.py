@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import ast
+import os
 import subprocess
 import sys
 from pathlib import Path
@@ -128,3 +129,27 @@ def test_every_public_name_of_a_family_is_found(family):
     assert names and missing == []
     with pytest.raises(AttributeError):
         package.no_such_name  # noqa: B018
+
+
+def test_commands_load_only_what_they_use(tmp_path):
+    # measured as whole processes (tests/benchmarks/bench_commands.py): scipy.optimize alone takes 0.2 s to load,
+    # numpy 0.1 s. A heights-only decomposition fits nothing with scipy.optimize, and `mfma probes --json` has no
+    # numpy value to write, so neither may load them
+    import numpy as np
+
+    from tests.analysis.lift_series.synthetic_series import build_series
+
+    heights = np.array([20e-9, 35e-9, 60e-9])
+    s = build_series(rows=32, cols=32, heights_m=heights, noise_deg=0.05, magnetic_scale=0.3, seed=1)
+    np.savez(tmp_path / "s.npz", phase_deg=s.phase_deg, heights_nm=heights * 1e9, pixel_nm=s.pixel_m * 1e9)
+    code = ("import sys, io, contextlib\n"
+            "from assistant.cli import main\n"
+            "def run(*argv):\n"
+            "    with contextlib.redirect_stdout(io.StringIO()):\n"
+            "        assert main(list(argv)) == 0\n"
+            "    return [m for m in ('numpy', 'scipy.optimize') if m in sys.modules]\n"
+            "print(run('probes', '--json'), run('analyze', 'series', sys.argv[1], '--json'))\n")
+    env = {**os.environ, "MFMA_DATA_DIR": str(tmp_path / "data")}
+    out = subprocess.run([sys.executable, "-c", code, str(tmp_path / "s.npz")], capture_output=True, text=True,
+                         cwd=ROOT, check=True, env=env)
+    assert out.stdout.strip().splitlines()[-1] == "[] ['numpy']", out.stdout + out.stderr
