@@ -84,7 +84,7 @@ class StageProgress:
         if self.tty:
             self._bar(stage, text, fraction)
         else:
-            self._line(text, stage)
+            self._line(text, stage, final=fraction == 1.0)
 
     @contextmanager
     def stage(self, name: str, detail: str | None = None):
@@ -101,14 +101,16 @@ class StageProgress:
                 self._line(done, name)
 
     # ---- plain lines ----------------------------------------------------------------------------------------
-    def _line(self, text: str, stage: str) -> None:
+    def _line(self, text: str, stage: str, *, final: bool = False) -> None:
+        """A plain line at most once a second; a step's last line (``final``: all of it done) at once, so that it
+        comes before whatever the command writes next."""
         now = self.clock()
         if stage != self._current:  # a stage ended: its last state is written before the next stage's lines
             if self._pending is not None:
                 self.stream.write(self._pending + "\n")
                 self._pending = None
             self._current = stage
-        if now - self._last_line >= self.interval_s:
+        if final or now - self._last_line >= self.interval_s:
             self.stream.write(text + "\n")
             self.stream.flush()
             self._last_line = now
@@ -120,6 +122,9 @@ class StageProgress:
         if self._bars is not None:
             self._bars.console.print(text, markup=False, highlight=False)
         else:
+            if self._pending is not None:  # the progress held back came first: it goes before the notice
+                self.stream.write(self._pending + "\n")
+                self._pending = None
             self.stream.write(text + "\n")
             self.stream.flush()
 

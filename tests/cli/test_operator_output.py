@@ -145,5 +145,21 @@ def test_plain_progress_is_rounded_and_at_most_once_a_second():
     lines = out.getvalue().splitlines()
     assert lines[0] == "approach 10 of 300 µm"
     assert len([ln for ln in lines if ln.startswith("approach")]) <= 4  # 3 s of events: one a second, the last
+    assert lines[-1].startswith("stopped: ")  # the progress held back goes before the stop notice, not after it
     assert "stopped: tip withdrawn, drive off, bias 0 V" in lines and not any("X: y" in ln for ln in lines)
     assert all("e-0" not in ln for ln in lines)
+
+
+def test_plain_progress_writes_a_finished_step_before_what_follows():
+    # the last line of a step ("report 5 of 5 ...") comes at once, not when the command ends after its summary
+    from assistant.cli.progress import StageProgress
+    from assistant.procedures.events import Progress
+
+    out = io.StringIO()
+    p = StageProgress(stream=out, tty=False, clock=lambda: 0.0)  # every event within the same second
+    for i in range(6):
+        p(Progress("report", i, 5, "figure groups", 0.0))
+    out.write("summary\n")
+    p.close()
+    assert out.getvalue().splitlines() == ["report 0 of 5 figure groups", "report 5 of 5 figure groups", "summary"]
+
