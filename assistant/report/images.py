@@ -156,11 +156,11 @@ def phase_figures_over_biases(phase_deg: np.ndarray, paths: Sequence[str | Path]
     written = []
     fig = images = None
     for j, (path, title) in enumerate(zip(paths, titles)):
-        panels = _phase_panels(stack[:, j], heights_m, lines)
         if fig is None:
             fig = phase_figure(stack[:, j], heights_m=heights_m, scan_size_m=scan_size_m, lines=lines, title=title)
             images = [ax.images[0] for ax in fig.axes if ax.images]
         else:
+            panels = _phase_panels(stack[:, j], heights_m, lines)
             for im, (image, _) in zip(images, panels):
                 im.set_data(image)
             limit = symmetric_limit([p for p, _ in panels])

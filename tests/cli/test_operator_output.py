@@ -162,4 +162,3 @@ def test_plain_progress_writes_a_finished_step_before_what_follows():
     out.write("summary\n")
     p.close()
     assert out.getvalue().splitlines() == ["report 0 of 5 figure groups", "report 5 of 5 figure groups", "summary"]
-

@@ -156,7 +156,7 @@ def fit_mean_bias_grid(mean, mean_std, *, bias_v) -> MeanFit:
     from scipy.optimize import minimize_scalar  # here, as nnls above
 
     res = minimize_scalar(lambda v: _vertex_chi2(v, volts, y, w)[0], bounds=(lo, hi), method="bounded",
-                                   options={"xatol": 1e-10 * max(span, 1e-12)})
+                          options={"xatol": 1e-10 * max(span, 1e-12)})
     v0 = float(res.x)
     chi2, a, c = _vertex_chi2(v0, volts, y, w)
     d = (volts - v0) ** 2
