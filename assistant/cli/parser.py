@@ -278,8 +278,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("name", metavar="NAME", help="name of the key pair (the file names' stem)")
     p.set_defaults(handler="cmd_keys:generate")
     p = sub.add_parser("tui", help="the terminal user interface",
-                       description="The terminal user interface. Keys: 1-6 switch views, f2 withdraws the tip "
-                                   "(also the Withdraw button), ? shows every key.")
+                       description="The terminal user interface. Keys: 1-7 switch views, ctrl+g withdraws the "
+                                   "tip from any view (also the Withdraw button), ? shows every key.")
     add_controller_options(p)
     _out(p)
     p.add_argument("--open", metavar="SESSION.h5",

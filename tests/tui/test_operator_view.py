@@ -200,3 +200,15 @@ def test_open_of_a_file_that_is_not_a_session_exits_2_before_any_screen(tmp_path
     assert main(["tui", "--open", str(notes)]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert err == [f"mfma: error: {notes} is not a session file written by mfma"]
+
+
+def test_the_command_line_help_names_the_keys_the_app_binds():
+    # `mfma tui --help` is what an operator may read before the first session: its withdraw key and view keys
+    # must be the ones bound (it once said f2 and 1-6 while the app bound ctrl+g and 1-7)
+    from assistant.cli.parser import build_parser
+    from assistant.tui.app import VIEWS
+
+    text = " ".join(build_parser()._subparsers._group_actions[0].choices["tui"].description.split())
+    assert f"{WITHDRAW_KEY} withdraws the tip" in text and f"1-{len(VIEWS)} switch views" in text
+    bound = {b.key for b in MfmApp.BINDINGS}
+    assert WITHDRAW_KEY in bound and {str(i + 1) for i in range(len(VIEWS))} <= bound
