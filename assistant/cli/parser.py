@@ -63,8 +63,10 @@ MIN_LINES_ANALYSIS = 4  # procedures.analyse: the least completed lines the deco
 
 
 def build_parser() -> argparse.ArgumentParser:
-    top = _Parser(prog="mfma", description="Cantilever calibration and lift-height series for magnetic force "
-                                           "microscopy, on a real controller or the built-in simulated stage.",
+    top = _Parser(prog="mfma", description="Magnetic force microscopy: cantilever calibration, lift-height and "
+                                           "bias series with their decomposition, field series, stray-field maps "
+                                           "and recorded-track metrics, on a real controller or the built-in "
+                                           "simulated stage.",
                   epilog="Every command has --help. Output files go into ./mfma-out unless --out says otherwise: "
                          "session-<UTC time>.h5 and its report folder report-<UTC time>/.")
     top.add_argument("--version", action="version", version=f"mfma {__version__}")
