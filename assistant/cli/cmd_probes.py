@@ -5,6 +5,16 @@ from __future__ import annotations
 from assistant.cli._common import UsageError, emit_json, emit_text
 
 
+def _calibration_line(h: dict) -> str:
+    """One stored calibration; f0 to six digits, so that a drift of the resonance between sessions shows."""
+    from assistant.formatting import number, quantity
+
+    nan = float("nan")
+    return (f"  {h.get('calibrated_utc', '?')}  k = {quantity(h.get('k_n_per_m', nan), 'N/m')}  "
+            f"f0 = {quantity(h.get('f0_hz', nan), 'Hz', digits=6)}  Q = {number(h.get('q', nan))}  "
+            f"InvOLS = {quantity(h.get('invols_nm_per_v', nan), 'nm/V')}")
+
+
 def run(args) -> int:
     from assistant.storage.probe_record import ProbeRecord
 
@@ -17,11 +27,8 @@ def run(args) -> int:
         if args.json:
             emit_json({"probe": args.name, "history": history, "tip_transfer": transfers})
         else:
-            emit_text([f"{args.name}: {len(history)} calibration(s)"] + [
-                f"  {h.get('calibrated_utc', '?')}  k = {h.get('k_n_per_m', float('nan')):.4g} N/m  "
-                f"f0 = {h.get('f0_hz', float('nan')):.1f} Hz  Q = {h.get('q', float('nan')):.1f}  "
-                f"InvOLS = {h.get('invols_nm_per_v', float('nan')):.2f} nm/V" for h in history]
-                + _transfer_lines(transfers))
+            emit_text([f"{args.name}: {len(history)} calibration(s)"] + [_calibration_line(h) for h in history]
+                      + _transfer_lines(transfers))
         return 0
     names = record.names()
     if args.json:

@@ -120,3 +120,18 @@ def test_acquire_rejects_a_rate_below_twice_the_resonance(tmp_path):
     # the default lever resonates near 75 kHz: 100 kS/s puts the peak past Nyquist
     assert_one_line_error(mfma("acquire", "thermal", "--seconds", "1", "--rate", "1e5",
                                "--out", str(tmp_path / "x.npy")), 2, "nyquist")
+
+
+def test_probe_history_in_units_with_f0_to_six_digits(tmp_path, monkeypatch, capsys):
+    # a drift of the resonance between sessions must show (f0 to six digits); what was not stored shows a dash
+    from assistant.storage.probe_record import ProbeRecord
+
+    monkeypatch.setenv("MFMA_DATA_DIR", str(tmp_path))
+    record = ProbeRecord()
+    record.add("lever-B2", {"k_n_per_m": 2.7190, "f0_hz": 74991.43, "q": 194.23, "invols_nm_per_v": 51.078})
+    record.add("lever-B2", {"f0_hz": 74985.2})
+    assert main(["probes", "lever-B2"]) == 0
+    lines = capsys.readouterr().out.splitlines()
+    assert lines[0] == "lever-B2: 2 calibration(s)"
+    assert "k = 2.719 N/m  f0 = 74.9914 kHz  Q = 194.2  InvOLS = 51.08 nm/V" in lines[1]
+    assert "k = —  f0 = 74.9852 kHz" in lines[2] and "nan" not in lines[2]
