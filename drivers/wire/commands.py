@@ -260,7 +260,7 @@ COMMANDS: tuple[Command, ...] = (
             invoke=lambda c, a: (c.move_z(a[0]), ())[1], expected_s=lambda a, l: l.z_range_m / l.z_speed_max_m_per_s),
     Command("MOTion:COARse", False, (_P("steps", "int", _fixed(-MAX_COARSE_STEPS, MAX_COARSE_STEPS)),), (),
             False, "step_coarse", Capability.COARSE_MOTOR, invoke=lambda c, a: (c.step_coarse(a[0]), ())[1],
-            expected_s=lambda a, l: abs(a[0]) * 1e-3),
+            expected_s=lambda a, l: abs(a[0]) * 1e-3 if abs(a[0]) <= MAX_COARSE_STEPS else 0.0),  # else refused
     Command("MOTion:XY", False, (_P("x_m", "float", _XY, "m"), _P("y_m", "float", _XY, "m")), (), True,
             "move_xy", invoke=lambda c, a: (c.move_xy(a[0], a[1]), ())[1]),
     Command("MOTion:WITHdraw", False, (), (), True, "withdraw", invoke=lambda c, a: (c.withdraw(), ())[1],

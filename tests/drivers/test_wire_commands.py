@@ -88,3 +88,14 @@ def test_errors_survive_the_wire(exc, cls):
         assert back.value == pytest.approx(exc.value, rel=1e-5)
     if isinstance(exc, ControllerFault):
         assert back.code == exc.code and str(back) == str(exc)
+
+
+def test_a_refused_coarse_count_adds_no_waiting_time():
+    # the client waits the move's expected time (1 ms a step) for its reply; a count beyond the limit is refused
+    # at once, so a lost reply to it must not keep the client waiting (it waited 200 s for 200 000 steps)
+    from drivers.wire.commands import MAX_COARSE_STEPS
+
+    coarse, lim = command("MOTion:COARse"), Limits()
+    assert coarse.expected_s((2000,), lim) == pytest.approx(2.0)
+    assert coarse.expected_s((-MAX_COARSE_STEPS,), lim) == pytest.approx(100.0)
+    assert coarse.expected_s((MAX_COARSE_STEPS + 1,), lim) == coarse.expected_s((-10**9,), lim) == 0.0
