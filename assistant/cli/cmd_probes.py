@@ -35,10 +35,14 @@ def run(args) -> int:
         emit_json({"record": str(record.path), "probes": {n: len(record.history(n)) for n in names},
                    "tip_transfer": {n: len(record.tip_transfers(n)) for n in names if record.tip_transfers(n)}})
     else:
-        emit_text([f"probe record: {record.path}"] + [
-            f"  {n}: {len(record.history(n))} calibration(s)"
-            + (f", {len(record.tip_transfers(n))} tip transfer function(s)" if record.tip_transfers(n) else "")
-            for n in names] or ["  (empty)"])
+        lines = [f"probe record: {record.path}"]
+        for n in names:
+            history, transfers = record.history(n), record.tip_transfers(n)
+            lines.append(f"  {n}: {len(history)} calibration(s)"
+                         + (f", {len(transfers)} tip transfer function(s)" if transfers else "")
+                         + (", the latest:" if history else ""))
+            lines += ["  " + _calibration_line(history[-1])] if history else []
+        emit_text(lines if names else lines + ["  (empty)"])
     return 0
 
 

@@ -135,3 +135,8 @@ def test_probe_history_in_units_with_f0_to_six_digits(tmp_path, monkeypatch, cap
     assert lines[0] == "lever-B2: 2 calibration(s)"
     assert "k = 2.719 N/m  f0 = 74.9914 kHz  Q = 194.2  InvOLS = 51.08 nm/V" in lines[1]
     assert "k = —  f0 = 74.9852 kHz" in lines[2] and "nan" not in lines[2]
+    assert main(["probes"]) == 0  # every probe with its latest calibration, as the help says
+    assert capsys.readouterr().out.splitlines()[1:] == ["  lever-B2: 2 calibration(s), the latest:", "  " + lines[2]]
+    monkeypatch.setenv("MFMA_DATA_DIR", str(tmp_path / "none"))
+    assert main(["probes"]) == 0
+    assert capsys.readouterr().out.splitlines()[1:] == ["  (empty)"]
