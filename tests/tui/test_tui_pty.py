@@ -46,6 +46,9 @@ def test_tui_in_a_real_terminal(tmp_path):
         time.sleep(0.5)
         os.write(master, b"lever-pty")
         assert _read_until(master, b"lever-pty", seen, 15), "typed text not drawn in the focused field"
+        # the status bar says withdrawn once the first status has come: until then the app asks before quitting
+        # ("the stage is not known to be safe"), which a loaded machine can stretch past the typing above
+        assert _read_until(master, b"withdrawn", seen, 30), bytes(seen[-2000:])
         os.write(master, b"\x11")  # ctrl+q: the stage is withdrawn, so the app quits without asking
         deadline = time.monotonic() + 20
         while proc.poll() is None and time.monotonic() < deadline:
