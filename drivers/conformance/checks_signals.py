@@ -16,7 +16,7 @@ import numpy as np
 from drivers.base import CHANNELS, Capability, Controller, ControllerInfo, Limits
 from drivers.conformance.kit import ABORT_LIMIT_S, Fail, Kit, NotApplicable, Timer
 from drivers.conformance.trials import (abort_during, capability_missing, close, drive_point, refused,
-                                        status_of)
+                                        status_of, z_move_refused)
 
 #: field -> (lowest, highest) plausible value in SI units
 PLAUSIBLE = {
@@ -169,12 +169,17 @@ def thermal_record(kit: Kit) -> str:
     return f"{samples} samples at {rate:g} Hz in {len(parts)} chunks of at most {chunk}, all finite"
 
 
+def _around(ctl: Controller, f0: float, n: int) -> np.ndarray:
+    """``n`` sweep frequencies from 5 % below ``f0`` to 5 % above it (or the controller's highest frequency)."""
+    return np.linspace(0.95 * f0, min(1.05 * f0, ctl.limits.frequency_max_hz), n)
+
+
 def sweep(kit: Kit) -> str:
     ctl = kit.controller
     if not ctl.has(Capability.DRIVE_SWEEP):
         raise NotApplicable
     f0, a = drive_point(ctl, kit.notes)
-    freqs = np.linspace(0.95 * f0, min(1.05 * f0, ctl.limits.frequency_max_hz), 21)
+    freqs = _around(ctl, f0, 21)
     kit.notes["drive_sweep"] = "failed"
     data = ctl.sweep(freqs, a)
     ctl.drive_off()
@@ -284,12 +289,8 @@ def sample_rate_limit(kit: Kit) -> str:
 
 
 def z_limit_low(kit: Kit) -> str:
-    ctl = kit.controller
-    z = -1e-3 * ctl.limits.z_range_m
-    refused(lambda: ctl.move_z(z), f"move_z({z:g} m)")
-    got = status_of(ctl).z_m
-    if got != 0.0:
-        raise Fail(f"move_z({z:g} m) was refused, yet status reports Z at {got:g} m")
+    z = -1e-3 * kit.controller.limits.z_range_m
+    z_move_refused(kit.controller, z, "below 0")
     return f"Z just below 0 ({z:g} m) refused, Z stayed at 0"
 
 
@@ -365,7 +366,7 @@ def abort_sweep(kit: Kit) -> str:
         raise NotApplicable
     f0, a = drive_point(ctl, kit.notes)
     settle = 5e-3
-    freqs = np.linspace(0.95 * f0, min(1.05 * f0, ctl.limits.frequency_max_hz), 120)
+    freqs = _around(ctl, f0, 120)
     return abort_during(ctl, lambda: ctl.sweep(freqs, a, settle_s=settle), "sweep",
                         freqs.size * settle).judge(ctl)
 

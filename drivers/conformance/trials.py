@@ -50,6 +50,14 @@ def status_of(ctl: Controller) -> Status:
     return s
 
 
+def z_move_refused(ctl: Controller, z: float, what: str) -> None:
+    """``move_z(z)`` must be refused (``what`` says why it should be) and leave Z at 0, where the checks start."""
+    refused(lambda: ctl.move_z(z), f"move_z({z:g} m) {what}")
+    got = status_of(ctl).z_m
+    if got != 0.0:
+        raise Fail(f"move_z({z:g} m) was refused, yet status reports Z at {got:g} m (clipped?)")
+
+
 def close(a: float, b: float, *, rel: float = 1e-6, abs_: float = 0.0) -> bool:
     return math.isfinite(a) and abs(a - b) <= max(abs_, rel * max(abs(a), abs(b)))
 
