@@ -6,11 +6,13 @@ Only the standard library is imported at module level so that ``mfma --help`` st
 from __future__ import annotations
 
 import argparse
+import contextlib
 import functools
 import json
 import math
 import sys
 import time
+from collections.abc import Iterator
 from typing import Any
 
 from assistant.errors import AssistantError
@@ -140,6 +142,16 @@ def open_controller_from_args(args: argparse.Namespace, **extra):
     elif getattr(args, "scenario", None):
         raise UsageError("--scenario applies only to the simulated stage (sim://)")
     return open_controller(url, **options)
+
+
+@contextlib.contextmanager
+def controller_for_command(args: argparse.Namespace, **extra) -> Iterator[Any]:
+    """:func:`open_controller_from_args` for a command's block: a Ctrl-C anywhere in it, even between two steps,
+    stops the stage through ``abort()`` before the controller is closed (:func:`.interrupts.stop_on_interrupt`)."""
+    from assistant.cli.interrupts import stop_on_interrupt
+
+    with open_controller_from_args(args, **extra) as ctl, stop_on_interrupt(ctl):
+        yield ctl
 
 
 class StderrProgress:

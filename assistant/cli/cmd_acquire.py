@@ -4,8 +4,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from assistant.cli._common import StderrProgress, UsageError, emit_json, emit_text, open_controller_from_args
-from assistant.cli.interrupts import stop_on_interrupt
+from assistant.cli._common import StderrProgress, UsageError, controller_for_command, emit_json, emit_text
 
 
 def _out_path(text: str, suffix: str) -> Path:
@@ -22,7 +21,7 @@ def thermal(args) -> int:
 
     out = _out_path(args.out, ".npy")
     progress = StderrProgress(quiet=args.json)
-    with open_controller_from_args(args) as ctl, stop_on_interrupt(ctl):
+    with controller_for_command(args) as ctl:
         samples = check_thermal_settings(ctl, seconds=args.seconds, rate_hz=args.rate)
         written = write_npy_stream(out, thermal_chunks(ctl, seconds=args.seconds, rate_hz=args.rate, sink=progress),
                                    samples)
@@ -41,7 +40,7 @@ def sweep(args) -> int:
     out = _out_path(args.out, ".csv")
     freqs = frequency_grid(args.start, args.stop, args.points)
     progress = StderrProgress(quiet=args.json)
-    with open_controller_from_args(args) as ctl, stop_on_interrupt(ctl):
+    with controller_for_command(args) as ctl:
         if args.drive_v > ctl.limits.drive_max_v:
             raise UsageError(f"--drive-v {args.drive_v:g} V exceeds the controller's {ctl.limits.drive_max_v:g} V")
         data = drive_sweep(ctl, freqs, args.drive_v, sink=progress)

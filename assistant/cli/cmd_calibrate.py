@@ -2,8 +2,7 @@
 
 from __future__ import annotations
 
-from assistant.cli._common import emit_json, emit_text, open_controller_from_args
-from assistant.cli.interrupts import stop_on_interrupt
+from assistant.cli._common import controller_for_command, emit_json, emit_text
 
 
 def run(args) -> int:
@@ -17,7 +16,7 @@ def run(args) -> int:
     settings = calibration_settings(args)
     settings.validate()
     path = new_session_path(_writable_dir(args.out))
-    with StageProgress() as progress, open_controller_from_args(args) as ctl, stop_on_interrupt(ctl):
+    with StageProgress() as progress, controller_for_command(args) as ctl:
         wf = Workflow(ctl, path, controller_url=redact(args.controller),
                       scenario_text=_scenario_text(ctl), sink=progress)
         try:

@@ -6,7 +6,7 @@ from __future__ import annotations
 import os
 from pathlib import Path
 
-from assistant.cli._common import EXIT_OK, EXIT_RUNTIME, UsageError, emit_json, emit_text, open_controller_from_args
+from assistant.cli._common import EXIT_OK, EXIT_RUNTIME, UsageError, controller_for_command, emit_json, emit_text
 from assistant.outputs import new_session_path, report_dir_for
 
 
@@ -140,7 +140,6 @@ def run(args) -> int:
 
 
 def _run(args, limits, progress, latch, tip=None) -> int:
-    from assistant.cli.interrupts import stop_on_interrupt
     from assistant.procedures.resume import run_plan_json
     from assistant.procedures.workflow import Workflow
     from assistant.report.summary import build_report
@@ -154,7 +153,7 @@ def _run(args, limits, progress, latch, tip=None) -> int:
     session_path = new_session_path(out)
     extra = {"pace": args.pace, "line_rate": args.line_rate} if scheme_of(args.controller) == "sim" else {}
     # Ctrl-C at any moment with the controller open, even between two steps, stops the stage through abort()
-    with open_controller_from_args(args, **extra) as ctl, stop_on_interrupt(ctl):
+    with controller_for_command(args, **extra) as ctl:
         _plan(series_settings, limits, controller=ctl, sink=progress)  # before the first motion
         wf = Workflow(ctl, session_path, controller_url=redact(args.controller), scenario_text=_scenario_text(ctl),
                       limits=limits, sink=progress, fsync=args.fsync, before_write=_writer_hook(ctl))
@@ -183,7 +182,6 @@ def _run(args, limits, progress, latch, tip=None) -> int:
 
 
 def _resume(args, limits, progress, latch, tip=None) -> int:
-    from assistant.cli.interrupts import stop_on_interrupt
     from assistant.procedures.events import Notice
     from assistant.procedures.resume import read_resume_plan, reestablish_drive
     from assistant.procedures.workflow import Workflow
@@ -201,7 +199,7 @@ def _resume(args, limits, progress, latch, tip=None) -> int:
         return _finish_stored(args, plan, progress, tip)
     _plan(settings, limits)
     extra = resume_controller_options(args, plan)
-    with open_controller_from_args(args, **extra) as ctl, stop_on_interrupt(ctl):
+    with controller_for_command(args, **extra) as ctl:
         _plan(settings, limits, controller=ctl)  # before the first motion
         wf = Workflow.resume(ctl, plan, limits=limits, sink=progress, fsync=args.fsync,
                              before_write=_writer_hook(ctl))

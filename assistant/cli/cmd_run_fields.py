@@ -7,7 +7,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from assistant.cli._common import UsageError, emit_json, emit_text, open_controller_from_args
+from assistant.cli._common import UsageError, controller_for_command, emit_json, emit_text
 
 DEFAULT_LIFT_NM = 50.0
 _RUN_DEFAULT_BIASES = [-0.5, 0.0, 0.5, 1.0]  # ``mfma run``'s bias grid for a lift series; a field series takes one bias
@@ -42,7 +42,6 @@ def run_fields(args, limits, progress, latch=None) -> int:
     """A new session: calibrate, approach, the field series, its loop analysis, the report. The run plan is kept
     in the file first, so a run stopped at any moment can be resumed."""
     from assistant.cli.cmd_run import _scenario_text, _writable_dir, _writer_hook, calibration_settings
-    from assistant.cli.interrupts import stop_on_interrupt
     from assistant.outputs import new_session_path, report_dir_for
     from assistant.procedures.field_series import check_controller
     from assistant.procedures.resume import run_plan_json
@@ -58,7 +57,7 @@ def run_fields(args, limits, progress, latch=None) -> int:
     session_path = new_session_path(out)
     extra = {"pace": args.pace, "line_rate": args.line_rate} if scheme_of(args.controller) == "sim" else {}
     # Ctrl-C at any moment with the controller open, even between two steps, stops the stage through abort()
-    with open_controller_from_args(args, **extra) as ctl, stop_on_interrupt(ctl):
+    with controller_for_command(args, **extra) as ctl:
         check_controller(ctl, settings, limits)  # the magnet and its limits, before anything moves
         wf = Workflow(ctl, session_path, controller_url=redact(args.controller), scenario_text=_scenario_text(ctl),
                       limits=limits, sink=progress, fsync=args.fsync, before_write=_writer_hook(ctl))
@@ -88,7 +87,6 @@ def resume_fields(args, plan, limits, progress, latch=None) -> int:
     re-established, a new approach, the turning points retraced, the remaining steps) or ``analyse`` (every line
     written: the loop analysis and the report, no instrument)."""
     from assistant.cli.cmd_run import _writer_hook, resume_controller_options
-    from assistant.cli.interrupts import stop_on_interrupt
     from assistant.outputs import report_dir_for
     from assistant.procedures.events import Notice
     from assistant.procedures.field_series import check_controller
@@ -100,7 +98,7 @@ def resume_fields(args, plan, limits, progress, latch=None) -> int:
     if plan.stage == "analyse":
         return _finish_stored(args, plan, progress)
     settings.validate(limits)
-    with open_controller_from_args(args, **resume_controller_options(args, plan)) as ctl, stop_on_interrupt(ctl):
+    with controller_for_command(args, **resume_controller_options(args, plan)) as ctl:
         check_controller(ctl, settings, limits)
         wf = Workflow.resume(ctl, plan, limits=limits, sink=progress, fsync=args.fsync,
                              before_write=_writer_hook(ctl))
