@@ -29,11 +29,14 @@ def main(argv: list[str] | None = None) -> int:
         handler = getattr(importlib.import_module(f"assistant.cli.{module_name}"), func_name)
         return int(handler(args) or 0)
     except (Exception, KeyboardInterrupt) as exc:  # one line, no traceback; the exit code says what kind
-        if isinstance(exc, KeyboardInterrupt):  # the stage is said safe only where a stop confirmed it
+        from assistant.cli.interrupts import caused_by_ctrl_c
+
+        if caused_by_ctrl_c(exc):  # the stage is said safe only where a stop confirmed it
             safe = getattr(exc, "stage_made_safe", False)
             sys.stderr.write("mfma: interrupted; the stage was made safe (tip withdrawn, drive off, bias 0 V, "
                              "any applied field 0)\n" if safe else "mfma: interrupted\n")
-        elif not isinstance(exc, BrokenPipeError):
+            return c.EXIT_INTERRUPTED
+        if not isinstance(exc, BrokenPipeError):
             sys.stderr.write(f"mfma: error: {c.one_line(exc)}\n")
             if getattr(args, "debug", False):
                 raise

@@ -54,15 +54,31 @@ def remember_interrupts() -> Iterator[InterruptLatch]:
             signal.signal(signal.SIGINT, signal.default_int_handler)
 
 
+def caused_by_ctrl_c(exc: BaseException | None) -> bool:
+    """Whether ``exc`` is a Ctrl-C or came from one. A ``KeyboardInterrupt`` raised while compiled code runs can
+    come back as another error with it as context: h5py's lock gave ``SystemError: ... returned a result with an
+    exception set`` (seen once in the seeded kill trials, a Ctrl-C during the report)."""
+    seen: set[int] = set()
+    while exc is not None and id(exc) not in seen:
+        if isinstance(exc, KeyboardInterrupt):
+            return True
+        seen.add(id(exc))
+        exc = exc.__cause__ or exc.__context__
+    return False
+
+
 @contextlib.contextmanager
 def stop_on_interrupt(controller) -> Iterator[None]:
-    """A ``KeyboardInterrupt`` anywhere in the block stops the stage through ``abort()`` and is re-raised (the
-    command then exits 130). A stop that cannot be confirmed is said on stderr."""
+    """A Ctrl-C anywhere in the block (:func:`caused_by_ctrl_c`) stops the stage through ``abort()`` and leaves as
+    ``KeyboardInterrupt`` (the command then exits 130). A stop that cannot be confirmed is said on stderr."""
     try:
         yield
-    except KeyboardInterrupt as interrupt:
+    except BaseException as raised:
+        if not caused_by_ctrl_c(raised):
+            raise
         from assistant.procedures.guard import stop_now
 
+        interrupt = raised if isinstance(raised, KeyboardInterrupt) else KeyboardInterrupt()
         try:
             stop_now(controller)
             interrupt.stage_made_safe = True  # the command's last line may say so
@@ -70,4 +86,6 @@ def stop_on_interrupt(controller) -> Iterator[None]:
             import sys
 
             sys.stderr.write(f"mfma: could not confirm a safe stage ({exc}); check the instrument by hand\n")
-        raise
+        if interrupt is raised:
+            raise
+        raise interrupt from raised

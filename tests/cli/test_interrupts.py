@@ -27,3 +27,47 @@ def test_nothing_set_without_a_signal():
     with remember_interrupts() as latch:
         latch.check()
     assert not latch.is_set()
+
+
+class _Stage:
+    """A controller stand-in that records the stop."""
+
+    def __init__(self):
+        self.aborted = 0
+
+    def abort(self):
+        self.aborted += 1
+
+
+def test_a_ctrl_c_that_compiled_code_turned_into_another_error_still_stops_the_stage(monkeypatch):
+    # a KeyboardInterrupt raised inside h5py's lock came back as "SystemError: ... returned a result with an
+    # exception set"; the run then exited 1 with that text instead of stopping the stage and exiting 130
+    from assistant.cli import interrupts
+    from assistant.procedures import guard
+
+    stage = _Stage()
+    monkeypatch.setattr(guard, "stop_now", lambda ctl: ctl.abort())
+    with pytest.raises(KeyboardInterrupt) as caught, interrupts.stop_on_interrupt(stage):
+        try:
+            raise KeyboardInterrupt
+        except KeyboardInterrupt:
+            raise SystemError("<cyfunction FastRLock.__exit__> returned a result with an exception set")  # noqa: B904
+    assert stage.aborted == 1 and caught.value.stage_made_safe
+    assert isinstance(caught.value.__cause__, SystemError)
+    with pytest.raises(ValueError), interrupts.stop_on_interrupt(stage):  # any other error passes untouched
+        raise ValueError("not an interrupt")
+    assert stage.aborted == 1
+
+
+def test_main_exits_130_for_a_ctrl_c_wrapped_by_compiled_code(monkeypatch, capsys):
+    from assistant.cli import cmd_probes, main
+
+    def wrapped(args):
+        try:
+            raise KeyboardInterrupt
+        except KeyboardInterrupt:
+            raise SystemError("returned a result with an exception set")  # noqa: B904
+
+    monkeypatch.setattr(cmd_probes, "run", wrapped)
+    assert main(["probes"]) == 130
+    assert capsys.readouterr().err.strip() == "mfma: interrupted"
