@@ -102,6 +102,27 @@ def test_field_with_tip_file_and_with_probe(files, tip_file, capsys):
     assert json.loads(out2)["hz_rms_a_per_m"] == pytest.approx(j["hz_rms_a_per_m"])
 
 
+def test_field_map_loads_no_scipy(files, tip_file, tmp_path):
+    # loading scipy.fft alone took 0.12-0.15 s of the 0.38 s the command took (tests/benchmarks/bench_commands.py);
+    # the map's cosine transforms come from numpy's FFT (checked against scipy in test_fourier.py)
+    import os
+    import subprocess
+    import sys
+    from pathlib import Path
+
+    d, _, _ = files
+    code = ("import sys, io, contextlib\n"
+            "from assistant.cli import main\n"
+            "with contextlib.redirect_stdout(io.StringIO()):\n"
+            "    assert main(sys.argv[1:]) == 0\n"
+            "print(sorted({m.split('.')[0] + '.' + m.split('.')[1] for m in sys.modules if m.startswith('scipy.')}))\n")
+    out = subprocess.run([sys.executable, "-c", code, "analyze", "field", str(d / "sample.npz"), "--tip",
+                          str(tip_file[0]), "--out", str(tmp_path / "f.npz"), "--json"], capture_output=True,
+                         text=True, cwd=Path(__file__).resolve().parents[2], check=True,
+                         env={**os.environ, "MFMA_DATA_DIR": str(tmp_path / "data")})
+    assert out.stdout.strip().splitlines()[-1] == "[]", out.stdout + out.stderr
+
+
 def test_ttf_older_than_a_calibration_is_refused(files, record_dir, capsys):
     from datetime import datetime, timedelta, timezone
 

@@ -164,7 +164,8 @@ class _Setup:
         self.dk, _ = fr.ring_edges(self.shape, self.pixel)
         self.rings = fr.ring_index(self.k_w, self.dk)
         self.n_rings = int(self.rings.max()) + 1
-        self.grid = fr.SpectralGrid(self.shape, self.pixel, periodic=periodic)      # pattern refinement
+        # pattern refinement: many transforms, in a fit that loads scipy anyway
+        self.grid = fr.SpectralGrid(self.shape, self.pixel, periodic=periodic, scipy_fft=True)
         self.data_g = self.grid.forward(self.image)
         self.film_g = film_factor(self.grid.k, ms_a_per_m=ms, thickness_m=t, height_m=z)
         self.k_nyquist = min(math.pi / self.pixel[0], math.pi / self.pixel[1])
