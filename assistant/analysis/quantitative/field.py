@@ -217,20 +217,24 @@ def reconstruct_field(gradient_n_per_m: np.ndarray, *, pixel_m: float | tuple[fl
     rel_rings = np.interp(k_rings, ring_k, np.nan_to_num(np.asarray(ttf_std_n_per_a) / np.abs(ttf_n_per_a)))
     thick_rings = -np.expm1(-k_rings * thickness_m) if thickness_m and thickness_std_m else None
     # The draws of the cosine basis run in single precision (half the transform time; the spread of 64 draws is
-    # known to a few per cent, far above float32 rounding). Sums are taken of the deviations from the map itself,
-    # so that the variance is not a small difference of two large numbers.
-    mc_type = np.float64 if periodic else np.float32
-    centre = hz.astype(mc_type)
-    data_mc, base_mc = (data if periodic else data.astype(mc_type)), base.astype(mc_type)
+    # known to a few per cent, far above float32 rounding), and only the components the filter passes are drawn
+    # (base is zero outside the band). Sums are taken of the deviations from the map itself, so that the variance
+    # is not a small difference of two large numbers.
+    centre = hz if periodic else hz.astype(np.float32)
+    if not periodic:
+        passed = np.flatnonzero(base)                         # flat indices of the cosine components drawn
+        data_p = data.ravel()[passed].astype(np.float32)
+        base_p = base.ravel()[passed].astype(np.float32)
+        rings_p = rings.ravel()[passed]
     acc = np.zeros_like(image)
     acc2 = np.zeros_like(image)
     done = 0
     while done < draws:
         n = min(16, draws - done)
         if periodic:
-            spec = data_mc[None] + grid.forward(sigma * rng.standard_normal((n,) + image.shape))
+            spec = data[None] + grid.forward(sigma * rng.standard_normal((n,) + image.shape))
         else:   # orthonormal cosine basis: white noise has independent coefficients of the same variance
-            spec = data_mc[None] + mc_type(sigma) * rng.standard_normal((n,) + k.shape, dtype=np.float32)
+            spec = data_p[None] + np.float32(sigma) * rng.standard_normal((n, passed.size), dtype=np.float32)
         eps = _correlated(rng, n, finite.size, ring_correlation)
         factor = 1.0 / (1.0 + rel_rings * (eps[:, j0] * (1.0 - frac) + eps[:, j0 + 1] * frac))
         factor *= (1.0 + ms_rel_std * rng.standard_normal(n) + calibration_rel_std * rng.standard_normal(n))[:, None]
@@ -240,7 +244,13 @@ def reconstruct_field(gradient_n_per_m: np.ndarray, *, pixel_m: float | tuple[fl
                 factor *= np.nan_to_num(-np.expm1(-k_rings[None] * ti[:, None]) / thick_rings, nan=1.0)
         levels = noise * 2.0 ** rng.uniform(-1.0, 1.0, n)
         factor *= np.clip(1.0 - levels[:, None] / np.maximum(ring_power, 1e-300)[None], 0.0, 1.0)
-        dev = grid.inverse(spec * base_mc * factor.astype(mc_type)[:, rings]) - centre
+        if periodic:
+            filtered = spec * base * factor[:, rings]
+        else:
+            filtered = np.zeros((n, image.size), np.float32)
+            filtered[:, passed] = spec * base_p * factor.astype(np.float32)[:, rings_p]
+            filtered = filtered.reshape((n,) + image.shape)
+        dev = grid.inverse(filtered) - centre
         acc += dev.sum(axis=0)
         acc2 += np.einsum("ijk,ijk->jk", dev, dev)
         done += n
