@@ -18,6 +18,8 @@ from __future__ import annotations
 import numpy as np
 from scipy import ndimage
 
+from assistant.analysis.quantitative import tukey  # the Tukey window (Harris 1978), shared with the TTF fit
+
 __all__ = ["fill_missing", "band_noise_variance", "shrunk_noise_variance"]
 
 
@@ -31,19 +33,6 @@ def fill_missing(images: np.ndarray, valid: np.ndarray) -> np.ndarray:
     num = ndimage.gaussian_filter(np.where(ok, img, 0.0), sigma=(0, 2, 2), mode="reflect")
     den = ndimage.gaussian_filter(ok.astype(float), sigma=(0, 2, 2), mode="reflect")
     return np.where(ok, img, num / np.maximum(den, 1e-12))
-
-
-def _taper(size: int, fraction: float) -> np.ndarray:
-    """Tukey (tapered cosine) window: flat in the middle, a raised cosine over ``fraction / 2`` of each end
-    (Harris 1978, Proc. IEEE 66, 51; from memory)."""
-    w = np.ones(size)
-    m = int(np.floor(fraction * (size - 1) / 2.0))
-    if m > 0:
-        x = np.arange(m) / (fraction * (size - 1) / 2.0)
-        ramp = 0.5 * (1.0 - np.cos(np.pi * x))
-        w[:m] = ramp
-        w[size - m:] = ramp[::-1]
-    return w
 
 
 def band_noise_variance(images: np.ndarray, *, aliased_axes=(), band_fraction: float = 0.8,
@@ -84,7 +73,7 @@ def band_noise_variance(images: np.ndarray, *, aliased_axes=(), band_fraction: f
     """
     img = np.asarray(images, dtype=float)
     rows, cols = img.shape[-2:]
-    wr, wc = _taper(rows, taper), _taper(cols, taper)
+    wr, wc = tukey(rows, taper), tukey(cols, taper)
     spectra = np.fft.rfft2(img * np.multiply.outer(wr, wc), axes=(-2, -1))
     gain = np.mean(wr**2) * np.mean(wc**2)
     efficiency = np.mean(wr**2) ** 2 / np.mean(wr**4) * np.mean(wc**2) ** 2 / np.mean(wc**4)

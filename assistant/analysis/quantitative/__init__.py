@@ -17,6 +17,7 @@ __getattr__, __dir__ = attach(__name__, {
     "conversion": ("amplitude_weight", "force_gradient_from_frequency_shift", "force_gradient_from_phase",
               "measurement_plane_m"),
     "field": ("FieldInputError", "FieldMap", "band_taper", "reconstruct_field"),
+    "fourier": ("tukey",),
     "point_probe": ("MU_0", "PointProbeFit", "fit_point_probe", "point_probe_ttf"),
     "reference": ("film_factor", "film_field", "subpixel_sign"),
     "transfer": ("CalibrationInputError", "TransferEstimate", "calibrate_transfer"),
@@ -26,5 +27,5 @@ __all__ = [
     "TipCalibration", "calibrate_tip", "amplitude_weight", "force_gradient_from_frequency_shift",
     "force_gradient_from_phase", "measurement_plane_m", "FieldInputError", "FieldMap", "band_taper",
     "reconstruct_field", "MU_0", "PointProbeFit", "fit_point_probe", "point_probe_ttf", "film_factor",
-    "film_field", "subpixel_sign", "CalibrationInputError", "TransferEstimate", "calibrate_transfer",
+    "film_field", "subpixel_sign", "CalibrationInputError", "TransferEstimate", "calibrate_transfer", "tukey",
 ]
