@@ -119,6 +119,18 @@ def _field_map_step(wf, tip) -> str | None:
     return None
 
 
+def _complete(args, wf, path: Path, tip, progress):
+    """After the analysis: the optional field map, the complete flag on disk, then the report, which reads the
+    file. Returns ``(report, field map error or None)``."""
+    from assistant.report.summary import build_report
+
+    field_map_error = _field_map_step(wf, tip)
+    wf.session.mark_complete()
+    wf.session.flush()
+    report = build_report(path, report_dir_for(path), sink=progress, per_height_scale=args.per_height_scale)
+    return report, field_map_error
+
+
 def run(args) -> int:
     from assistant.cli.interrupts import remember_interrupts
     from assistant.cli.progress import StageProgress
@@ -142,7 +154,6 @@ def run(args) -> int:
 def _run(args, limits, progress, latch, tip=None) -> int:
     from assistant.procedures.resume import run_plan_json
     from assistant.procedures.workflow import Workflow
-    from assistant.report.summary import build_report
     from drivers.registry import redact, scheme_of
 
     series_settings = _series_settings(args)
@@ -171,11 +182,7 @@ def _run(args, limits, progress, latch, tip=None) -> int:
             latch.check()
             with progress.stage("analysis", "decomposing the series"):
                 analysis = wf.analyse()
-            field_map_error = _field_map_step(wf, tip)
-            wf.session.mark_complete()
-            wf.session.flush()
-            report = build_report(session_path, report_dir_for(session_path), sink=progress,
-                                  per_height_scale=args.per_height_scale)
+            report, field_map_error = _complete(args, wf, session_path, tip, progress)
         finally:
             wf.close()
     return _finish(args, session_path, report, wf, analysis, field_map_error)
@@ -185,7 +192,6 @@ def _resume(args, limits, progress, latch, tip=None) -> int:
     from assistant.procedures.events import Notice
     from assistant.procedures.resume import read_resume_plan, reestablish_drive
     from assistant.procedures.workflow import Workflow
-    from assistant.report.summary import build_report
 
     plan = read_resume_plan(args.resume)  # what is left: start, scan or analyse (see procedures/resume.py)
     if plan.is_field_series:
@@ -220,10 +226,7 @@ def _resume(args, limits, progress, latch, tip=None) -> int:
             latch.check()
             with progress.stage("analysis", "decomposing the series"):
                 analysis = wf.analyse()
-            field_map_error = _field_map_step(wf, tip)
-            wf.session.mark_complete()
-            wf.session.flush()
-            report = build_report(path, report_dir_for(path), sink=progress, per_height_scale=args.per_height_scale)
+            report, field_map_error = _complete(args, wf, path, tip, progress)
         finally:
             wf.close()
     return _finish(args, path, report, wf, analysis, field_map_error)
@@ -235,7 +238,6 @@ def _finish_stored(args, plan, progress, tip=None) -> int:
     from assistant.procedures.events import Notice
     from assistant.procedures.series import SeriesResult
     from assistant.procedures.workflow import Workflow
-    from assistant.report.summary import build_report
 
     path, s = plan.path, plan.series
     progress(Notice("info", f"resuming {path.name}: every line is written; analyzing and reporting"))
@@ -245,10 +247,7 @@ def _finish_stored(args, plan, progress, tip=None) -> int:
         wf.series_result = SeriesResult(s.name, s.heights_m, plan.completed_lines, s.lines, 0.0)
         with progress.stage("analysis", "decomposing the series"):
             analysis = wf.analysis = analyse_session_series(wf.session, s.name, sink=progress)
-        field_map_error = _field_map_step(wf, tip)
-        wf.session.mark_complete()
-        wf.session.flush()
-        report = build_report(path, report_dir_for(path), sink=progress, per_height_scale=args.per_height_scale)
+        report, field_map_error = _complete(args, wf, path, tip, progress)
     finally:
         wf.close()
     return _finish(args, path, report, wf, analysis, field_map_error)
