@@ -4,7 +4,9 @@ Bit length: the tracks' bit lengths weighted by their standard errors, the stand
 scatter when it exceeds them. Jitter: the deviations from each track's grid pooled (two grid parameters per track
 out of the degrees of freedom), then the fit's own position noise taken out: each deviation has variance
 J^2 + s_i^2 (s_i its position's standard error), solved for J by weighted moments (iterated). Pitch: the median
-spacing of complete tracks' centres. Width: the mean of complete tracks' widths.
+spacing of complete tracks' centres, each spacing divided by the whole number of pitches it spans (a track too
+weak to stand out from the old data beside it is not found), counted in the period of the across-track activity
+profile. Width: the mean of complete tracks' widths.
 """
 
 from __future__ import annotations
@@ -13,6 +15,26 @@ import numpy as np
 
 from .bit_grid import BitGrid, fit_bit_grid
 from .tracks import TrackAnalysis, TrackResult, no_tracks, raise_too_few
+
+
+def activity_period(activity: np.ndarray) -> float | None:
+    """Period [px] of the across-track activity profile: the first peak of its autocorrelation past the first
+    zero crossing that reaches 60 % of the highest there (tracks repeat every pitch, whether or not each stands
+    out; the multiples of the period peak about as high), or None without one. The 60 %: a rule of thumb."""
+    a = np.asarray(activity, float) - float(np.mean(activity))
+    n = a.size
+    acf = np.correlate(a, a, mode="full")[n - 1:] / np.arange(n, 0, -1)  # mean product at each lag
+    below = np.flatnonzero(acf[: n // 2] < 0)
+    if below.size == 0:
+        return None
+    lags = np.arange(int(below[0]), n // 2)
+    inner = lags[(lags > 0) & (lags < n // 2 - 1)]
+    peaks = inner[(acf[inner] >= acf[inner - 1]) & (acf[inner] >= acf[inner + 1]) & (acf[inner] > 0)]
+    if peaks.size == 0:
+        return None
+    k = int(peaks[np.argmax(acf[peaks] >= 0.6 * acf[peaks].max())])
+    den = acf[k - 1] - 2 * acf[k] + acf[k + 1]  # parabola through the peak's neighbours
+    return float(k + (0.5 * (acf[k - 1] - acf[k + 1]) / den if den < 0 else 0.0))
 
 
 def jitter_without_position_noise(dev: np.ndarray, sd: np.ndarray, dof_factor: float = 1.0) -> float:
@@ -109,11 +131,15 @@ def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix,
     if centres.size >= 2:
         d = np.diff(np.sort(centres))
         # a track whose activity does not stand out from the old data beside it is not found, and leaves a gap
-        # of two pitches: a gap within 10 % of a whole multiple of the smallest counts as that many pitches
-        multiple = d / d.min()
-        if np.all(np.abs(multiple - np.rint(multiple)) < 0.1 * np.rint(multiple)):
-            skipped = int(np.sum(np.rint(multiple) - 1))
-            d = d / np.rint(multiple)
+        # of two or more pitches: each gap counts as the whole number of pitches nearest to it, the pitch measured
+        # by the activity profile's period (tracks repeat every pitch, found or not; a period shorter than the
+        # tracks' width is a harmonic) or else by the smallest gap, and the pitch is the median gap per pitch
+        period = activity_period(layout.activity)
+        period = None if period is None else period * px_across
+        unit = period if period and widths.mean() < period < 1.1 * d.min() else d.min()
+        multiple = np.maximum(np.rint(d / unit), 1.0)
+        skipped = int(np.sum(multiple - 1))
+        d = d / multiple
         pitch = float(np.median(d))
         pitch_sd = float(np.std(d, ddof=1) / np.sqrt(d.size)) if d.size > 1 else None
     width = float(widths.mean()) if widths.size else None

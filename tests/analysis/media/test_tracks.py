@@ -121,6 +121,32 @@ def test_a_track_that_does_not_stand_out_leaves_the_pitch_and_erase_band_right(o
     assert r.erase_band_m is None or 12e-9 < r.erase_band_m < 45e-9
 
 
+@pytest.mark.parametrize("orientation, seed", [("out-of-plane", 4), ("in-plane", 8)])
+def test_pitch_from_the_activity_period_when_tracks_are_missed(orientation, seed):
+    # 300 nm pitch with old data between the tracks: in these images some tracks do not stand out. Out-of-plane
+    # seed 4 left two complete tracks three pitches apart (the pitch read 901 nm); in-plane seed 8 a gap of two
+    # pitches and a track whose centre the old data moved (317 nm)
+    im = track_image(orientation=orientation, seed=seed, pitch_m=300e-9, width_m=220e-9, erase_m=20e-9,
+                     old_data_bit_m=100e-9)
+    r = analyse_tracks(im.phase_deg, pixel_m=im.pixel_m, lift_m=im.lift_m)
+    assert r.track_pitch_m == pytest.approx(300e-9, rel=0.01)
+    assert any("did not stand out" in s for s in r.sentences)
+
+
+def test_activity_period_of_tracks_of_unequal_strength():
+    from assistant.analysis.media.track_metrics import activity_period
+
+    # bands 30 px wide every 41.5 px, each with its own level, plus noise: the period, not a multiple of it
+    rng = np.random.default_rng(3)
+    y = np.arange(300)
+    profile = np.zeros(y.size)
+    for k, c in enumerate(np.arange(10.0, 300.0, 41.5)):
+        profile += rng.uniform(0.5, 1.5) / (1 + np.exp(-(y - c + 15) / 2)) / (1 + np.exp((y - c - 15) / 2))
+    profile += 0.05 * rng.standard_normal(y.size)
+    assert activity_period(profile) == pytest.approx(41.5, abs=1.0)
+    assert activity_period(np.ones(100)) is None
+
+
 def test_transition_width_with_the_tip_transfer_function():
     # with the tip's transfer function (here the point probe the images were made with) and the film thickness,
     # the arctan parameter comes out; without it the tip's offset stays in (an upper bound)
