@@ -2,7 +2,8 @@
 
 Bit length: the tracks' bit lengths weighted by their standard errors, the standard error widened by the tracks'
 scatter when it exceeds them. Jitter: the deviations from each track's grid pooled (two grid parameters per track
-out of the degrees of freedom), then the fit's own position noise taken out: each deviation has variance
+out of the degrees of freedom; deviations beyond four robust standard deviations left out as misplaced
+transitions), then the fit's own position noise taken out: each deviation has variance
 J^2 + s_i^2 (s_i its position's standard error), solved for J by weighted moments (iterated). Pitch: the median
 spacing of complete tracks' centres, each spacing divided by the whole number of pitches it spans (a track too
 weak to stand out from the old data beside it is not found), counted in the period of the across-track activity
@@ -127,13 +128,20 @@ def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix,
         chi2 = float(np.sum(wts * (b - bit) ** 2) / (b.size - 1))
         bit_sd *= max(1.0, np.sqrt(chi2))
     on = [~g.off_grid for _, g in good]
+    # a transition placed where there is none (near a track's end, at high noise) can still lie within 30 % of a
+    # cell: deviations beyond four robust standard deviations of all the tracks' (1.4826 MAD, textbook) are not
+    # jitter either (at five times the default noise they made the jitter read up to 2.6x the written value)
+    pooled = np.concatenate([g.deviations[o] for (_, g), o in zip(good, on)])
+    if pooled.size >= 8:
+        robust = 1.4826 * float(np.median(np.abs(pooled - np.median(pooled))))
+        on = [o & (np.abs(g.deviations) <= max(4.0 * robust, 0.01 * g.bit_length)) for (_, g), o in zip(good, on)]
     dev_all = np.concatenate([g.deviations[o] for (_, g), o in zip(good, on)]) * px_down
     sd_all = np.concatenate([r.positions_std_m[o] for (r, _), o in zip(good, on)])
     dof_factor = dev_all.size / max(sum(max(int(o.sum()) - 2, 1) for o in on), 1)
     raw = float(np.sqrt(np.mean(dev_all**2) * dof_factor))
     jitter = jitter_without_position_noise(dev_all, sd_all, dof_factor)
     pos_noise = float(np.sqrt(np.mean(sd_all**2))) if sd_all.size else 0.0
-    n_off = int(sum(int(g.off_grid.sum()) for _, g in good))
+    n_off = int(sum(int((~o).sum()) for o in on))
     shift = np.concatenate([(f.detected_px[f.interior] - f.positions_px[f.interior])
                             for (_, f), ok in zip(fits, agree) if ok]) * px_down
     inter = float(np.sqrt(np.mean(shift**2))) if shift.size else None
@@ -179,7 +187,8 @@ def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix,
                  + (", chosen by the fit" if model_chosen_by_fit else "") + ")."]
     sentences.append(f"Bit length {bit * 1e9:.4g} ± {bit_sd * 1e9:.2g} nm; jitter {jitter * 1e9:.3g} nm rms about "
                      f"the grid ({raw * 1e9:.3g} nm before taking out the position noise of {pos_noise * 1e9:.2g} nm)"
-                     + (f"; {n_off} transition(s) more than 30 % of a cell off the grid left out." if n_off else "."))
+                     + (f"; {n_off} transition(s) more than 30 % of a cell, or four robust standard deviations, off the "
+                        "grid left out." if n_off else "."))
     if outliers:
         sentences.append(f"Track(s) {', '.join(str(i) for i in outliers)}: their transitions fit another cell than "
                          "the other tracks' (a fit gone wrong); left out of the combined numbers.")
