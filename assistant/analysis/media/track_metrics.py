@@ -66,7 +66,8 @@ def _clock(positions: list[np.ndarray], found: list[BitGrid]) -> float:
     """The write clock's cell: of the cells the tracks' own grids found, the one whose grid, fitted again near it
     on every track, holds the most transitions coherently (the sum over the tracks of the coherence times the
     transitions on the grid). A few transitions can fit a wrong cell on one track; the others then hold it
-    poorly. (With 8 nm jitter on 80 nm cells, one image in ten took a 44 nm cell from one track before.)"""
+    poorly. (The clock used to be the cell of the track whose profile fitted best: with 8 nm jitter on 80 nm
+    cells, 7 of 60 synthetic images then read a wrong bit length, 38-255 nm.)"""
     def support(cell: float) -> float:
         total = 0.0
         for x in positions:
