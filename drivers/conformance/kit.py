@@ -8,6 +8,7 @@ the check with the exception named, and the stage is made safe before the next c
 
 from __future__ import annotations
 
+import gc
 import time
 from collections.abc import Callable
 from dataclasses import asdict, dataclass, field
@@ -213,10 +214,18 @@ def _sentence(text: str) -> str:
     return text if text.endswith((".", "!", "?")) else text + "."
 
 
+def quiet_heap() -> None:
+    """Collect the calling process's garbage now, before a timed abort, so that a full collection of its heap
+    does not fall inside the measurement and count against the driver (measured: 113 ms in a test process that
+    had run 372 tests; one link check once took 231 ms for an abort that takes 6 ms)."""
+    gc.collect()
+
+
 class Timer:
-    """Wall-clock seconds since it was made."""
+    """Wall-clock seconds since it was made (the heap collected first: :func:`quiet_heap`)."""
 
     def __init__(self) -> None:
+        quiet_heap()
         self.t0 = time.monotonic()
 
     def __call__(self) -> float:

@@ -10,7 +10,7 @@ from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 
 from drivers.base import Capability, Controller, Status
-from drivers.conformance.kit import ABORT_LIMIT_S, Fail
+from drivers.conformance.kit import ABORT_LIMIT_S, Fail, quiet_heap
 from drivers.errors import Aborted, CapabilityMissing, LimitExceeded
 
 
@@ -121,6 +121,7 @@ def abort_during(ctl: Controller, call: Callable[[], object], what: str, nominal
                  after_s: float = 0.1, join_s: float = 2.0, limit_s: float = ABORT_LIMIT_S) -> AbortTrial:
     """Run ``call`` in a thread, call ``abort()`` from this one ``after_s`` later, and see what happened."""
     trial = AbortTrial(what, nominal_s, limit_s=limit_s)
+    quiet_heap()
     box: dict = {}
     started = threading.Event()
 
