@@ -53,31 +53,30 @@ def jitter_without_position_noise(dev: np.ndarray, sd: np.ndarray, dof_factor: f
     return float(np.sqrt(j2))
 
 
-def _closer_to_clock(positions: np.ndarray, grid: BitGrid | None, hint: float) -> BitGrid | None:
+def _closer_to_clock(grid: BitGrid | None, again: BitGrid | None, hint: float) -> BitGrid | None:
+    """A track's own grid if its cell is within 2 % of the clock's, else the better of it and ``again`` (the
+    track fitted again near the clock)."""
     if grid is not None and abs(grid.bit_length / hint - 1) <= 0.02:
         return grid
-    again = fit_bit_grid(positions, bit_length_hint=hint)
     if grid is None or (again is not None and again.jitter <= grid.jitter):
         return again
     return grid
 
 
-def _clock(positions: list[np.ndarray], found: list[BitGrid]) -> float:
+def _clock(positions: list[np.ndarray], found: list[BitGrid]) -> tuple[float, list[BitGrid | None]]:
     """The write clock's cell: of the cells the tracks' own grids found, the one whose grid, fitted again near it
     on every track, holds the most transitions coherently (the sum over the tracks of the coherence times the
-    transitions on the grid). A few transitions can fit a wrong cell on one track; the others then hold it
-    poorly. (The clock used to be the cell of the track whose profile fitted best: with 8 nm jitter on 80 nm
-    cells, 7 of 60 synthetic images then read a wrong bit length, 38-255 nm.)"""
-    def support(cell: float) -> float:
-        total = 0.0
-        for x in positions:
-            g = fit_bit_grid(x, bit_length_hint=cell)
-            if g is not None and abs(g.bit_length / cell - 1) <= 0.1:
-                total += g.coherence * np.count_nonzero(~g.off_grid)
-        return total
-
-    cells = sorted({g.bit_length for g in found})
-    return float(max(cells, key=support))
+    transitions on the grid); and those grids. A few transitions can fit a wrong cell on one track; the others
+    then hold it poorly. (The clock used to be the cell of the track whose profile fitted best: with 8 nm jitter
+    on 80 nm cells, 7 of 60 synthetic images then read a wrong bit length, 38-255 nm.)"""
+    best: tuple[float, float, list[BitGrid | None]] | None = None
+    for cell in sorted({g.bit_length for g in found}):
+        near = [fit_bit_grid(x, bit_length_hint=cell) for x in positions]
+        support = sum(g.coherence * np.count_nonzero(~g.off_grid) for g in near
+                      if g is not None and abs(g.bit_length / cell - 1) <= 0.1)
+        if best is None or support > best[0]:
+            best = (support, cell, near)
+    return float(best[1]), best[2]
 
 
 def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix, shape, along_rows, skew, px_down,
@@ -91,8 +90,8 @@ def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix,
                           "media metrics are null.")
     # the tracks of one image share the write clock: a track whose cell differs from it (a few transitions can
     # fit a wrong cell) is fitted again near it, and the better grid stays
-    hint = _clock([f.positions_px[f.interior] for _, f in fits], found)
-    grids = [_closer_to_clock(f.positions_px[f.interior], g, hint) for (_, f), g in zip(fits, grids)]
+    hint, near_clock = _clock([f.positions_px[f.interior] for _, f in fits], found)
+    grids = [_closer_to_clock(g, again, hint) for g, again in zip(grids, near_clock)]
     if hint < min_pixels_per_bit:
         raise_too_few(hint * px_down, px_down, min_pixels_per_bit)
     # tracks whose cell still disagrees with the clock by more than 10 % (a track whose fit went wrong
