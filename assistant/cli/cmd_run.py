@@ -141,8 +141,8 @@ def run(args) -> int:
         if args.field_map and args.fields_ka_per_m is not None and not args.resume:
             raise UsageError(_FIELD_MAP_NEEDS_LIFT_SERIES)
         tip = _field_map_tip(args)
-        # the report's libraries (matplotlib and the analysis, about 0.5 s) load here, before any motion, as they
-        # did when each path imported the report first: a broken install fails with the stage untouched
+        # the report's libraries (matplotlib and the analysis, about 0.5 s) load here, before any motion: a broken
+        # install fails with the stage untouched, and no path spends that time between the analysis and the report
         import assistant.report.summary  # noqa: F401
         with StageProgress() as progress:
             if args.resume:
