@@ -229,7 +229,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--pixels", type=positive(int), default=128, help=f"pixels per line (default 128, at least "
                                                                      f"{MIN_LINES})")
     p.add_argument("--size-um", type=positive(), default=4.0, metavar="UM", help="scan size in µm (default 4)")
-    p.add_argument("--no-repeat", action="store_true", help="do not repeat the first height at the end of lines")
+    p.add_argument("--no-repeat", action="store_true", help="do not repeat the first height in each line")
     p.add_argument("--fields-ka-per-m", metavar="LIST|START:STOP:STEP",
                    help="a field series instead of a lift series: applied fields in kA/m, as a list or as "
                         "START:STOP:STEP (from START to STOP and back); one lift height (--heights, default 50 nm)")

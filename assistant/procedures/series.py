@@ -46,16 +46,22 @@ class SeriesSettings:
 
     @property
     def order(self) -> str:
-        rep = ", repeat of the first height" if self.repeat_first else ""
         bias = " × every bias" if self.biases_v else ""
-        return f"per line: topography, then each height in increasing order{bias}{rep}"
+        if self.repeat_first:
+            return (f"per line: topography, the first height{bias}, its repeat, then the other heights in "
+                    f"increasing order{bias}")
+        return f"per line: topography, then each height in increasing order{bias}"
 
     @property
     def passes(self) -> tuple[SecondPass, ...]:
         biases = self.biases_v if self.biases_v else (self.bias_v,)
         passes = [SecondPass(h, b) for h in self.heights_m for b in biases]
         if self.repeat_first:
-            passes.append(SecondPass(self.heights_m[0], biases[0]))
+            # straight after the passes at the first (lowest) height: their tip field is the strongest of the
+            # series, so whatever the tip switches it has switched by then, and the two passes compared lie
+            # seconds apart instead of a whole line (0.01 nm/s of drift over the 28 s of the default run's line
+            # moved the track edges enough to read as a change)
+            passes.insert(len(biases), SecondPass(self.heights_m[0], biases[0]))
         return tuple(passes)
 
     @property
@@ -182,16 +188,18 @@ def _arrange(settings: SeriesSettings, data: LineData) -> tuple[np.ndarray, np.n
     if len(data.passes) != expected:
         raise ProtocolError(f"controller returned {len(data.passes)} second passes, expected {expected}")
     ref = settings.phase_reference_deg
-    phase = np.array([p.phase_deg for p in data.passes[: nh * nb]], dtype=float) - ref
-    amp = np.array([p.amplitude_v for p in data.passes[: nh * nb]], dtype=float)
+    passes = list(data.passes)
+    repeat_pass = passes.pop(nb) if settings.repeat_first else None  # see SeriesSettings.passes
+    phase = np.array([p.phase_deg for p in passes], dtype=float) - ref
+    amp = np.array([p.amplitude_v for p in passes], dtype=float)
     fshift = None
-    if all(p.frequency_shift_hz is not None for p in data.passes[: nh * nb]):
-        fshift = np.array([p.frequency_shift_hz for p in data.passes[: nh * nb]], dtype=float)
+    if all(p.frequency_shift_hz is not None for p in passes):
+        fshift = np.array([p.frequency_shift_hz for p in passes], dtype=float)
     shape = (nh, nb, settings.pixels) if settings.biases_v else (nh, settings.pixels)
     phase, amp = phase.reshape(shape), amp.reshape(shape)
     if fshift is not None:
         fshift = fshift.reshape(shape)
-    repeat = np.asarray(data.passes[-1].phase_deg, dtype=float) - ref if settings.repeat_first else None
+    repeat = np.asarray(repeat_pass.phase_deg, dtype=float) - ref if repeat_pass is not None else None
     return phase, amp, fshift, repeat
 
 

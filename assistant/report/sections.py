@@ -92,7 +92,7 @@ def series_section(data, topography_nm: np.ndarray | None) -> list[str]:
            f"- completed lines: {data.completed_lines} of {data.lines} ({status})",
            f"- frame: {quantity(data.scan_size_m, 'm')} square, {data.pixels} pixels × {data.lines} lines, "
            f"line rate {quantity(data.line_rate_hz, 'Hz')}, order {data.order}",
-           f"- first height repeated at the end of each line: {yes_no(data.repeat_first)}", ""]
+           f"- first height repeated after its passes in each line: {yes_no(data.repeat_first)}", ""]
     if data.completed_lines == 0:
         return out + ["No completed lines.", ""]
     if topography_nm is not None:

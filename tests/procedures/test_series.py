@@ -43,10 +43,12 @@ def test_settings_refuse_what_cannot_work():
     assert SeriesSettings.from_dict(QUICK_SERIES.to_dict()) == QUICK_SERIES
 
 
-def test_passes_go_height_by_height_every_bias_then_the_repeat():
+def test_passes_go_height_by_height_every_bias_with_the_repeat_after_the_first_height():
     s = dataclasses.replace(QUICK_SERIES, biases_v=(-1.0, 0.0, 1.0))
     got = [(p.lift_height_m, p.bias_v) for p in s.passes]
-    assert got == [(h, b) for h in s.heights_m for b in (-1.0, 0.0, 1.0)] + [(s.heights_m[0], -1.0)]
+    grid = [(h, b) for h in s.heights_m for b in (-1.0, 0.0, 1.0)]
+    assert got == grid[:3] + [(s.heights_m[0], -1.0)] + grid[3:]
+    assert "the first height × every bias, its repeat, then the other heights" in s.order
     assert s.phase_shape == (3, 3, 8, 16)
     spec = line_spec(s, 3)
     assert spec.y_m == pytest.approx((3 + 0.5) * s.scan_size_m / s.lines) and spec.pixels == 16

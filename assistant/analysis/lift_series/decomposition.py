@@ -96,8 +96,8 @@ def analyse_series(phase_deg, *, heights_m, pixel_m, bias_v=None, repeat_phase_d
     bias_v : array_like, optional
         Tip biases [V] of a bias grid (at least 3); a scalar is accepted and ignored for a 3-D stack.
     repeat_phase_deg : ndarray (rows, cols), optional
-        The first height (first bias) repeated at the end of every line; (biases, rows, cols) is accepted
-        and its first bias used.
+        The first height (first bias) repeated in every line, after the passes at that height; (biases, rows,
+        cols) is accepted and its first bias used.
     probe : ProbeModel, optional
         The probe and how it was operated (k, Q, f0, bandwidth, temperature, tip geometry, amplitude, gap
         offset). In a notebook its fields may be given as keywords instead (``spring_constant_n_per_m=2.8``).

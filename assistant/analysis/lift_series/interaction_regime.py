@@ -3,7 +3,7 @@
 Takes the outputs of the decomposition (:func:`.decomposition.analyse_series`, which calls it) and says which of
 the three regimes the trade distinguishes applies, with one sentence of evidence:
 
-* **irreversible**: the repeat of the first height at the end of each line differs from the first pass
+* **irreversible**: the repeat of the first height in each line differs from the first pass
   beyond noise (:mod:`.tip_change`): the tip rewrote the sample while it scanned. With a
   bias grid the noise is also taken from two passes at the top height that differ only in bias (their
   difference holds no magnetic contrast, and the electrostatic one is smooth): the decomposition's own

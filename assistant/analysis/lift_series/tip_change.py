@@ -1,8 +1,11 @@
 """Tip-induced changes of the sample: compare a repeated first-height pass with the original.
 
-Where each scan line repeats the first lift height at its end, any difference beyond noise between the two
-passes happened while the tip scanned the other heights, and did not reverse: the tip changed the sample
-(for example switched domains with its stray field).
+Where each scan line repeats the first lift height, any difference beyond noise between the two passes happened
+while the tip scanned in between, and did not reverse: the tip changed the sample (for example switched domains
+with its stray field). The series places the repeat straight after the passes at the first (lowest) height, whose
+tip field is the strongest, so that drift has little time to move the sample between the two passes; the
+difference is not registered, and a displacement of a fraction of a nanometre at an edge the rows do not
+resolve would read as a change.
 """
 
 from __future__ import annotations
