@@ -35,7 +35,9 @@ def test_the_probe_of_a_stored_series():
                 "spring_constant_n_per_m": 2.8, "quality_factor": 200.0, "temperature_k": None}
     probe = analyse.stored_probe(settings, line_rate_hz=1.0, pixels=128)
     assert probe.amplitude_m == 20e-9 and probe.gap_offset_m == first_pass_gap_offset_m(20e-9, 0.7) == 14e-9
-    assert (probe.resonance_hz, probe.bandwidth_hz, probe.temperature_k) == (75e3, 64.0, 295.15)
+    # a 1 Hz line of 128 pixels: trace pixels of 1/256 s, noise bandwidth 1 / (2 dwell) = 128 Hz (it was 64 Hz;
+    # see test_the_analysis_bandwidth_gives_the_thermal_limit_a_pass_meets)
+    assert (probe.resonance_hz, probe.bandwidth_hz, probe.temperature_k) == (75e3, 128.0, 295.15)
     bare = analyse.stored_probe({})
     assert bare.spring_constant_n_per_m is None and bare.gap_offset_m is None and bare.bandwidth_hz is None
 

@@ -132,6 +132,27 @@ def test_second_pass_phase_noise_is_the_thermal_limit():
     assert measured == pytest.approx(expected_deg, rel=0.05)  # SD of an SD from 8192 values: 0.8 %
 
 
+def test_the_analysis_bandwidth_gives_the_thermal_limit_a_pass_meets():
+    """The series analysis takes a pixel's noise bandwidth from the line rate and the pixel count alone; at the
+    default run's 1 Hz and 128 pixels its Albrecht et al. (1991) limit is the noise the stage's passes have. (It
+    used to take half that bandwidth, and called the stage's purely thermal noise 1.5 x its limit, "another source
+    dominates".)"""
+    from assistant.analysis.lift_series.noise_floor import noise_verdict
+    from assistant.procedures.analyse import pixel_bandwidth_hz
+
+    vm = make(extra="detector_noise_uv_per_rthz = 0.0\n")
+    engage(vm)
+    n, rate = 128, 1.0
+    line = vm.scan_line(y_m=0.0, x_start_m=-1e-6, length_m=2e-6, pixels=n, line_rate_hz=rate,
+                        passes=[(200e-9, 0.0)] * 24)
+    measured = np.std([p.phase_deg for p in line.passes])  # 3072 values: 1.3 % standard error of an SD
+    v = noise_verdict(measured, spring_constant_n_per_m=K, resonance_hz=F0, quality_factor=Q, temperature_k=T,
+                      bandwidth_hz=pixel_bandwidth_hz(rate, n), amplitude_m=20e-9)
+    # the lock-in's 0.1 ms time constant narrows the stage's bandwidth to 1 / (4 tau + 2 dwell) = 122 Hz of 128
+    assert measured / v.thermal_phase_noise_deg == pytest.approx(math.sqrt(122.0 / 128.0), rel=0.05)
+    assert v.verdict == "thermal_limit"
+
+
 def test_approach_stops_at_the_setpoint():
     vm = make()
     vm.set_drive(F0, 0.2)
