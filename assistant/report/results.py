@@ -115,7 +115,9 @@ def _bias_text(d: dict) -> str:
         return "not determined: " + str(d["cpd_sentence"]).rstrip(". ")
     if cpd is None:
         return "not measured (needs a bias grid of three or more biases)"
-    return f"{quantity(cpd, 'V', _num(d.get('cpd_std_v')))} (V_cpd: nulls the electrostatic part)"
+    sd, model = _num(d.get("cpd_std_v")), _num(d.get("cpd_model_std_v"))
+    whole = None if sd is None else math.hypot(sd, model or 0.0)  # as every value here: noise and model together
+    return f"{quantity(cpd, 'V', whole)} (V_cpd: nulls the electrostatic part)"
 
 
 def _warnings(d: dict) -> list[str]:

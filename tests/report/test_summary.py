@@ -187,3 +187,14 @@ def test_second_report_into_the_same_folder_lists_the_same_files(tmp_path, monke
     second = build_report(tmp_path / "s.h5", tmp_path / "out")
     assert [p.name for p in first.paths] == [p.name for p in second.paths]
     assert "decomposition_maps.png" in [p.name for p in second.paths]
+
+
+def test_the_recommended_bias_carries_its_whole_uncertainty():
+    # V_cpd's noise part and its model part (the Birge excess of a bias grid whose parabolas misfit) in
+    # quadrature, as the decomposition's own sentence and every other value of the results do: 30 and 40 uV
+    # make 50 uV (the line used to show the noise part alone)
+    from assistant.report.results import results_block
+
+    pairs = dict(results_block({"cpd_v": 0.352, "cpd_std_v": 3e-5, "cpd_model_std_v": 4e-5}))
+    assert pairs["Recommended tip bias"].startswith("352.000 ± 0.050 mV")
+    assert dict(results_block({"cpd_v": 0.31, "cpd_std_v": 0.02}))["Recommended tip bias"].startswith("310 ± 20 mV")
