@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .frequencies import alias_axes_for, pixel_pair_m
+from .frequencies import alias_orders_for, pixel_pair_m
 
 __all__ = ["SMALL_SCAN_FRACTION", "ERROR_METHOD", "auto_estimator", "small_scan_note"]
 
@@ -49,18 +49,18 @@ def small_scan_note(heights_m, pixel_m: tuple[float, float], shape: tuple[int, i
 def auto_estimator(heights_m, pixel_m) -> tuple[str, str]:
     """The estimator of ``edge="auto"`` and the note that goes with it, from the geometry alone.
 
-    The reflected-edge fit, except where the alias fields (two per coarse axis, see
-    :func:`~.frequencies.alias_axes_for`) leave no fewer unknowns per frequency than there are heights: then each
+    The reflected-edge fit, except where the alias fields (two per order and coarse axis, see
+    :func:`~.frequencies.alias_orders_for`) leave no fewer unknowns per frequency than there are heights: then each
     cell is fitted exactly, the residual keeps nothing to be judged against the noise (a 10 x 32 simulated scan
     with 160 nm lines and three heights read 5-116 times the noise), and the windowed fit, whose unknown field
     outside the scan is tied by the heights together, is used instead.
     """
     h = np.atleast_1d(np.asarray(heights_m, dtype=float))
     try:
-        axes = alias_axes_for("auto", pixel_pair_m(pixel_m), float(h.min()))
+        orders = alias_orders_for("auto", pixel_pair_m(pixel_m), float(h.min()), h.size)
     except ValueError:
         return "reflect", ""
-    fields = 1 + 2 * len(axes)
+    fields = 1 + 2 * sum(orders)
     if fields < h.size:
         return "reflect", ""
     return "window", (f"With lines this coarse the alias fields make {fields} unknowns per frequency for {h.size} "

@@ -28,7 +28,7 @@ from scipy import fft as sp_fft
 from assistant.errors import InputError
 
 from .continuation import ContinuationFit
-from .frequencies import alias_axes_for, dct_alias_frequencies, pixel_pair_m
+from .frequencies import alias_orders_for, dct_alias_frequencies, pixel_pair_m
 from .standard_errors import interior_power_variance
 
 __all__ = ["fit_continuation_reflected", "interior_cell_weights"]
@@ -177,7 +177,8 @@ def fit_continuation_reflected(stack: np.ndarray, *, heights_m, pixel_m, valid: 
     interior_px : int
         Width of the edge band left out of the noise estimate and of ``residual_rms`` [px].
     alias_axes : "auto" or sequence of {0, 1}
-        Axes with alias fields (see :func:`~.frequencies.alias_axes_for`).
+        Axes with alias fields (see :func:`~.frequencies.alias_axes_for`; their orders
+        :func:`~.frequencies.alias_orders_for`).
     alias_ridge : float
         Penalty on the alias fields relative to the mean weight. On two simulated series with 75 and 125 nm
         between lines at 10 nm lowest lift, 1e-3 held the alias fields too tightly (residuals 1.2-1.6x what
@@ -216,7 +217,7 @@ def fit_continuation_reflected(stack: np.ndarray, *, heights_m, pixel_m, valid: 
     nh, rows, cols = data.shape
     n = rows * cols
     pr, pc = pixel_pair_m(pixel_m)
-    axes = alias_axes_for(alias_axes, (pr, pc), h[0])
+    orders = alias_orders_for(alias_axes, (pr, pc), h[0], nh)
     ok = np.isfinite(data) if valid is None else (np.asarray(valid, bool) & np.isfinite(data))
     complete = bool(ok.all())
     b = int(max(min(interior_px, min(rows, cols) // 4), 0))
@@ -232,7 +233,7 @@ def fit_continuation_reflected(stack: np.ndarray, *, heights_m, pixel_m, valid: 
         means = np.where(ok, data, 0.0).sum(axis=(1, 2)) / np.maximum(ok.sum(axis=(1, 2)), 1)
         work = np.where(ok, data, means[:, None, None])
 
-    fields = dct_alias_frequencies((rows, cols), (pr, pc), axes)
+    fields = dct_alias_frequencies((rows, cols), (pr, pc), orders)
     nk = len(fields)
     # per-cell arrays and transforms in single precision: this fit is memory-bound, and half the traffic
     # cut its time by a third. Against double precision on synthetic series the noise, residual and

@@ -11,7 +11,7 @@ import numpy as np
 from scipy import fft as sp_fft
 
 from .continuation import ContinuationFit
-from .frequencies import alias_axes_for, pixel_pair_m, rfft_alias_frequencies, rfft_wavenumbers, self_conjugate_real
+from .frequencies import alias_orders_for, pixel_pair_m, rfft_alias_frequencies, rfft_wavenumbers, self_conjugate_real
 
 __all__ = ["WINDOW_SOLVE", "fit_continuation_windowed"]
 
@@ -75,13 +75,14 @@ def fit_continuation_windowed(images: np.ndarray, *, heights_m, pixel_m, height_
 
     Aliasing: along an axis whose pixel spacing is coarse against the lowest height, the scan samples
     content above its Nyquist frequency, which lands on a lower frequency but keeps decaying with its own
-    ``|q|``. There two further fields (the nearer and the farther alias partner of every frequency, see
-    :func:`~.frequencies.rfft_alias_frequencies`) join ``U``, each with its own decay, held by ``alias_ridge``
-    everywhere.
+    ``|q|``. There two further fields per order (the nearer and the farther alias partner of every frequency,
+    see :func:`~.frequencies.rfft_alias_frequencies`) join ``U``, each with its own decay, held by
+    ``alias_ridge`` everywhere.
     ``alias_axes="auto"`` aliases an axis whose spacing exceeds 4 h_0 (a rule of thumb, no source: a
     simulated scan with 62.5 nm lines at 10 nm lift left a 1 deg misfit without row aliases; alias fields
     give the lowest heights freedom that also absorbs some real non-Laplace contrast there, so they are not
-    used where the sampling does not call for them).
+    used where the sampling does not call for them), with the second order beyond 12 h_0
+    (:func:`~.frequencies.alias_orders_for`).
 
     Noise per height: ``sigma_h^2 = R_h / (1 - l_h)`` (residual power over the valid pixels, leverage
     ``l_h`` of the window grid in the periodic approximation), re-estimated up to ``n_reweight`` times with
@@ -151,7 +152,7 @@ def _fit(images, heights_m, pixel_m, height_index, drift_px, valid, pad_px, ridg
     per_h = np.bincount(hi, minlength=nh).astype(float)
     ok = np.isfinite(y) if valid is None else (np.asarray(valid, bool) & np.isfinite(y))
     pr, pc = pixel_pair_m(pixel_m)
-    axes = alias_axes_for(alias_axes, (pr, pc), h[0])
+    orders = alias_orders_for(alias_axes, (pr, pc), h[0], nh)
     d = (np.zeros((nj, 2)) if drift_px is None else np.asarray(drift_px, dtype=float).reshape(nj, 2)).copy()
     dh = h[-1] - h[0]
     if pad_px is None:
@@ -167,7 +168,7 @@ def _fit(images, heights_m, pixel_m, height_index, drift_px, valid, pad_px, ridg
     # the window sits at [0:rows, 0:cols]; the grid is periodic, so the pad surrounds it on every side
     fr_big = np.fft.fftfreq(big_r)[:, None] / pr  # cycles per metre
     fc_big = np.fft.rfftfreq(big_c)[None, :] / pc
-    freqs = rfft_alias_frequencies(fr_big, fc_big, pr, pc, axes)
+    freqs = rfft_alias_frequencies(fr_big, fc_big, pr, pc, orders)
     nk = len(freqs)
     e_big = np.array([np.exp(-2.0 * np.pi * np.hypot(a, b)[None] * (h - h[0])[:, None, None]) for a, b in freqs])
     in_window = np.zeros(shape, bool)
@@ -227,7 +228,7 @@ def _fit(images, heights_m, pixel_m, height_index, drift_px, valid, pad_px, ridg
     fr_w = np.fft.fftfreq(rows)[:, None] / pr
     fc_w = np.fft.rfftfreq(cols)[None, :] / pc
     e_win = np.array([np.exp(-2.0 * np.pi * np.hypot(a, b)[None] * (h - h[0])[:, None, None])
-                      for a, b in rfft_alias_frequencies(fr_w, fc_w, pr, pc, axes)])
+                      for a, b in rfft_alias_frequencies(fr_w, fc_w, pr, pc, orders)])
     cwv = np.array(cw, dtype=float)
     cwv[0, 0] = 0.0
     n = rows * cols
