@@ -159,7 +159,8 @@ def build_parser() -> argparse.ArgumentParser:
                                    f"and short-range parts and recommend a lift height and tip bias.")
     p.add_argument("file", help=".npz (phase_deg, heights_nm, pixel_nm as one spacing or [row, col], optional "
                                 "bias_v, spring_constant_n_per_m, quality_factor, tip_radius_nm, amplitude_nm, "
-                                "gap_offset_nm, repeat_phase_deg) or a session file (.h5)")
+                                "gap_offset_nm, repeat_phase_deg, phase_reference_std_deg, ...) or a session file "
+                                "(.h5)")
     p.add_argument("--series", metavar="NAME", help="series name inside a session file (default: the last)")
     p.add_argument("--short-range-fraction", type=positive(), default=0.1, metavar="FRACTION",
                    help="short-range part allowed at the recommended lift, as a fraction of magnetic (0.1)")

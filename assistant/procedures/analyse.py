@@ -35,6 +35,7 @@ def stored_probe(settings: dict, *, line_rate_hz: float | None = None, pixels: i
               "quality_factor": settings.get("quality_factor"),
               "temperature_k": settings.get("temperature_k") or 295.15,
               "resonance_hz": drive.get("frequency_hz"),
+              "phase_reference_std_deg": drive.get("phase_reference_std_deg"),
               "tip_radius_m": DEFAULT_TIP_RADIUS_M}
     if line_rate_hz and pixels:
         fields["bandwidth_hz"] = pixel_bandwidth_hz(line_rate_hz, pixels)
@@ -151,7 +152,8 @@ def analyse_session_file(path: Path, name: str | None, *, short_range_fraction: 
 
 NPZ_REQUIRED = ("phase_deg", "heights_nm", "pixel_nm")
 NPZ_OPTIONAL = ("bias_v", "spring_constant_n_per_m", "quality_factor", "tip_radius_nm", "amplitude_nm",
-                "gap_offset_nm", "repeat_phase_deg", "temperature_k", "resonance_hz", "bandwidth_hz")
+                "gap_offset_nm", "repeat_phase_deg", "temperature_k", "resonance_hz", "bandwidth_hz",
+                "phase_reference_std_deg")
 
 
 def _pixel_m(value, path: Path) -> float | tuple[float, float]:
@@ -187,7 +189,7 @@ def analyse_npz(path: Path, *, short_range_fraction: float = 0.1, edge: str = "a
         "tip_radius_m": scalar("tip_radius_nm", 1e-9) or DEFAULT_TIP_RADIUS_M,
         "amplitude_m": scalar("amplitude_nm", 1e-9), "gap_offset_m": scalar("gap_offset_nm", 1e-9),
         "temperature_k": scalar("temperature_k"), "resonance_hz": scalar("resonance_hz"),
-        "bandwidth_hz": scalar("bandwidth_hz"),
+        "bandwidth_hz": scalar("bandwidth_hz"), "phase_reference_std_deg": scalar("phase_reference_std_deg"),
     }
     probe = ProbeModel(**{k: v for k, v in fields.items() if v is not None})
     return analyse_series(np.asarray(get["phase_deg"], dtype=float),

@@ -109,7 +109,8 @@ def read_resume_plan(path: str | Path) -> ResumePlan:
         raise ResumeError(f"{what} {name!r} in {path} stores no drive settings, so its lines cannot be "
                           "continued with the same drive; start a new run")
     return ResumePlan(stage=stage, series=_settings(stored, kind),
-                      drive=None if drive is None else DriveSettings(**{k: float(v) for k, v in drive.items()}),
+                      drive=None if drive is None else DriveSettings(**{k: None if v is None else float(v)
+                                                                        for k, v in drive.items()}),
                       spring_constant_n_per_m=stored.get("spring_constant_n_per_m"),
                       quality_factor=stored.get("quality_factor"),
                       temperature_k=float(stored.get("temperature_k") or 295.15), completed_lines=done, **common)

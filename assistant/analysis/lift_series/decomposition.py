@@ -48,7 +48,7 @@ from .errors import (HeightsMismatchError, HeightsNotIncreasingError, ImageShape
 from .estimator_note import ERROR_METHOD, auto_estimator, small_scan_note
 from .frequencies import alias_axes_for, pixel_pair_m
 from .image_noise import band_noise_variance, fill_missing, shrunk_noise_variance
-from .interaction_regime import classify_interaction, recommendation_with_regime
+from .interaction_regime import bias_pair_noise_deg, classify_interaction, recommendation_with_regime
 from .mean_parts import MeanParts, magnetic_window_mean_cov, split_bias_grid, split_heights_only
 from .noise_floor import noise_verdict, periodic_component_of, white_noise_std
 from .periodic import fit_with_drift_periodic
@@ -253,9 +253,10 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
         # the change is judged against the top image's noise: the spread of the difference itself would
         # hide a change that covers most of the scan (a tip rewriting a soft film everywhere)
         tip = detect_tip_change(first, rep, noise_deg=top_noise * lin)
-        if not tip.irreversible:
-            # an unchanged repeat gives the more direct estimate: the difference of two passes
-            ref_noise = detect_tip_change(first, rep).noise_deg / lin
+        # an unchanged repeat gives the more direct estimate, the difference of two passes; a changed one leaves two
+        # top passes that differ in bias alone (the top image's band holds magnetic content on coarse lines)
+        pair = bias_pair_noise_deg(stack) if tip.irreversible else detect_tip_change(first, rep).noise_deg
+        ref_noise = pair / lin if pair is not None else ref_noise
     ref_noise_deg = ref_noise * lin
     fitted_ref = ref_noise / np.sqrt(nb)  # noise of a bias-averaged image
     # Residual against noise in the interior: the periodic seam and the reflection leave a misfit along the
@@ -303,7 +304,7 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
         blocks = drift_cov.reshape(2, nh, nb, nh, nb)[:, np.arange(nh), :, np.arange(nh), :]  # (H, 2, nb, nb)
         drift_mean_sd = np.sqrt(np.clip(blocks.sum(axis=(-2, -1)) / nb**2, 0.0, None))
         drift_sd = drift_sd.reshape(nh, nb, 2) if grid else drift_sd
-    slope_t = space.slope(mf.total)
+    slope_t, ref_sd = space.slope(mf.total), float(probe.phase_reference_std_deg or 0.0)  # ref: offsets every image
     return SeriesAnalysis(
         heights_m=h, pixel_m=pixel_m, bias_v=volts, magnetic_rms_deg=mag_rms, magnetic_rms_std_deg=mag_rms_sd,
         electrostatic_mean_deg=es_deg, electrostatic_mean_std_deg=es_sd_deg, short_range_mean_deg=sr_deg,
@@ -318,9 +319,10 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
         recommendation=rec, noise=verdict, tip_change=tip, magnetic_deg=mag_deg, residual_deg=fit.residual * lin,
         nan_pixels=int(bad.sum()), signal_space=space.name, fitted_parameters=params,
         drift_std_px=drift_sd, drift_mean_std_px=drift_mean_sd, nonmagnetic_mean_deg=space.to_phase(mf.total),
-        nonmagnetic_mean_std_deg=slope_t * mf.total_std, nonmagnetic_mean_model_std_deg=slope_t * mf.total_model_std,
+        nonmagnetic_mean_std_deg=slope_t * mf.total_std,
+        nonmagnetic_mean_model_std_deg=np.hypot(slope_t * mf.total_model_std, ref_sd),
         electrostatic_mean_model_std_deg=space.slope(mf.electrostatic) * mf.electrostatic_model_std,
-        short_range_mean_model_std_deg=space.slope(mf.short_range) * mf.short_range_model_std,
+        short_range_mean_model_std_deg=np.hypot(space.slope(mf.short_range) * mf.short_range_model_std, ref_sd),
         mean_model_fit_deg=None if mf.model_fit is None else space.to_phase(mf.model_fit),
         mean_model_reduced_chi2=mf.reduced_chi2, mean_model_birge_ratio=mf.birge_ratio,
         cpd_model_std_v=mf.cpd_model_std_v, tip_models=_columns(mf.candidates), assumed=dict(mf.assumed),
@@ -394,7 +396,5 @@ def _mean_parts(means, mean_sd, weight_sd, fit, h, volts, probe: ProbeModel, spa
 
 def _columns(candidates) -> dict:
     """The tip models as one array per field (a cone angle of None as NaN), for the stored result."""
-    if not candidates:
-        return {}
-    rows = [c.to_dict() for c in candidates]
-    return {k: np.array([np.nan if r[k] is None else r[k] for r in rows], float) for k in rows[0]}
+    rows = [c.to_dict() for c in candidates or ()]
+    return {k: np.array([np.nan if r[k] is None else r[k] for r in rows], float) for k in rows[0]} if rows else {}

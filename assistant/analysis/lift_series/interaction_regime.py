@@ -61,7 +61,7 @@ from .probe import ProbeModel
 from .recommend import Recommendation
 from .tip_change import TipChange, detect_tip_change
 
-__all__ = ["REGIMES", "InteractionRegime", "classify_interaction", "recommendation_with_regime"]
+__all__ = ["REGIMES", "InteractionRegime", "bias_pair_noise_deg", "classify_interaction", "recommendation_with_regime"]
 
 REGIMES = ("negligible", "reversible", "irreversible")
 HAMAKER_MAX_J = 4e-19  # upper end of metal-air-metal Hamaker constants (Israelachvili 2011; from memory)
@@ -171,7 +171,7 @@ def _lateral_even(magnetic_deg, residual_deg, noise_deg, band: int, attractive_s
     return contrast, amp, sd
 
 
-def _bias_pair_noise_deg(stack: np.ndarray) -> float | None:
+def bias_pair_noise_deg(stack: np.ndarray) -> float | None:
     """Per-pixel noise of one image from two passes at the top height that differ only in bias [deg]."""
     if stack.ndim != 4 or stack.shape[1] < 2:
         return None
@@ -188,7 +188,7 @@ def _repeat_verdict(a, phase_deg, repeat_phase_deg) -> TipChange | None:
     if tip is None or tip.irreversible or phase_deg is None or repeat_phase_deg is None:
         return tip
     stack = np.asarray(phase_deg, float)
-    pair = _bias_pair_noise_deg(stack)
+    pair = bias_pair_noise_deg(stack)
     if pair is None or not pair < tip.noise_deg:
         return tip
     rep = np.asarray(repeat_phase_deg, float)
@@ -289,7 +289,9 @@ def classify_interaction(analysis, phase_deg=None, *, repeat_phase_deg=None, pro
     else:
         bound = _vdw_bound_deg(h, probe, hamaker_max_j)
         even_mean = -np.asarray(a.short_range_mean_deg, float) - bound
-        even_mean_sd = np.asarray(a.short_range_mean_std_deg, float)
+        # judged against the noise and the error of the phase reference subtracted from every pass (an offset of
+        # every image, which falls off with no height); the film's own window mean is left to the fraction rule
+        even_mean_sd = np.hypot(np.asarray(a.short_range_mean_std_deg, float), probe.phase_reference_std_deg or 0.0)
 
     def flagged(value, sd, fraction):
         with np.errstate(invalid="ignore"):

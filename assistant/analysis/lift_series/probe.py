@@ -37,6 +37,10 @@ class ProbeModel:
         Oscillation centre above the surface at zero lift [m]; None: not known; the amplitude (closest
         approach = lift height) is assumed and offsets down to half the amplitude enter the split's
         uncertainty. :func:`~.image_mean_models.first_pass_gap_offset_m` gives it from the setpoint.
+    phase_reference_std_deg : float, optional
+        Standard error [deg] of the free lever's phase that was subtracted from every pass: its error is an
+        offset of every image, which the short-range part (and the non-magnetic total) carries, so it joins their
+        model uncertainty. None: not known, taken as 0.
     """
 
     spring_constant_n_per_m: float | None = None
@@ -50,6 +54,7 @@ class ProbeModel:
     amplitude_m: float | None = None
     gap_offset_m: float | None = None
     tip_radius_rel_std: float = TIP_RADIUS_REL_STD
+    phase_reference_std_deg: float | None = None
 
     @property
     def amplitude_or_assumed_m(self) -> float:

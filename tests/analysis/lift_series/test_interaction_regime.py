@@ -172,3 +172,23 @@ def test_recommendation_skips_heights_where_the_regime_is_not_negligible():
     new = recommendation_with_regime(rec, fake)
     assert new.lift_height_m == pytest.approx(20e-9)
     assert "negligible from 20 nm" in new.sentence and new.criteria["interaction_negligible"].tolist() == [0, 1, 1]
+
+
+def test_a_phase_reference_error_within_its_uncertainty_is_no_attraction():
+    # the free lever's phase, subtracted from every pass, is an average of lock-in readings with a standard
+    # error: its error shifts every image alike and would read as a bias-independent attraction that does not
+    # fall off with height. Given that standard error, the image-mean route judges against it as well
+    s = _series()
+    plain = _analyse(s)
+    offset = -0.6 * plain.magnetic_rms_deg[-1]  # negative phase: attractive, 60 % of the top height's contrast
+    shifted = (s.phase_deg + offset, s.repeat_phase_deg + offset)
+    blind = analyse_series(*shifted[:1], heights_m=s.heights_m, pixel_m=s.pixel_m, bias_v=s.bias_v,
+                           repeat_phase_deg=shifted[1], edge="periodic", **s.analysis_kwargs)
+    assert blind.interaction.regime == "reversible"  # the defect this guards against: 0.6 x the contrast, no decay
+    told = analyse_series(*shifted[:1], heights_m=s.heights_m, pixel_m=s.pixel_m, bias_v=s.bias_v,
+                          repeat_phase_deg=shifted[1], edge="periodic",
+                          **{**s.analysis_kwargs, "phase_reference_std_deg": abs(offset) / 2})
+    assert told.interaction.regime == "negligible", told.interaction.evidence
+    # the offset stays in the short-range part, now with the reference's error in its uncertainty
+    assert told.short_range_mean_deg == pytest.approx(plain.short_range_mean_deg + offset, abs=0.02)
+    assert np.all(told.short_range_mean_model_std_deg >= abs(offset) / 2)
