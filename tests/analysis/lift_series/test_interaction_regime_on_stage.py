@@ -46,6 +46,16 @@ def test_each_film_gets_its_regime(run):
     assert any(ch.isdigit() for ch in d["interaction_evidence"])
 
 
+def test_the_noise_is_the_stages_thermal_noise_whatever_the_regime(run):
+    # the stage's second-pass noise is the thermal limit (Albrecht et al. 1991; tests/simulated_stage/
+    # test_instrument.py); a rewritten film leaves no unchanged repeat to measure it, and the top image's
+    # high-frequency band holds magnetic content on these coarse lines (it read 3.6 x the limit on the
+    # low-coercivity film): the two top-height passes that differ in bias alone measure it instead
+    name, a = run
+    assert a.noise.verdict == "thermal_limit", (name, a.noise.sentence)
+    assert 0.8 < a.noise.ratio < 1.5
+
+
 def test_recommendation_follows_the_regime(run):
     name, a = run
     r = a.interaction
