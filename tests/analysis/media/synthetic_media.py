@@ -90,7 +90,7 @@ def track_image(*, rows=256, cols=256, pixel_m=8e-9, bit_m=80e-9, jitter_m=3e-9,
     first = pitch_m * 0.5 if first_track_m is None else first_track_m
     centres = np.arange(first - 10 * pitch_m, y[-1] + pitch_m, pitch_m)
     centres = centres[(centres > y[0] - pitch_m) & (centres < y[-1] + pitch_m)]
-    transitions, image_tracks = [], []
+    transitions, image_tracks, written = [], [], []
     if old_data_bit_m:
         for c in centres:  # old data between tracks, beyond the erase bands
             lo, hi = c + width_m / 2 + erase_m, c + pitch_m - width_m / 2 - erase_m
@@ -104,6 +104,7 @@ def track_image(*, rows=256, cols=256, pixel_m=8e-9, bit_m=80e-9, jitter_m=3e-9,
         rows_in = np.abs(y - c) < width_m / 2
         if not rows_in.any():
             continue
+        written.append(rows_in.sum() * fine)  # the width as the fine grid holds it
         phase = rng.uniform(0, bit_m)
         pos, steps, start, _, keep = _bits(rng, n_cells, bit_m, phase, jitter_m, x_lo, x_hi)
         m[rows_in] = _arctan_profile(x, pos, steps, transition_a_m, start)[None, :]
@@ -119,7 +120,7 @@ def track_image(*, rows=256, cols=256, pixel_m=8e-9, bit_m=80e-9, jitter_m=3e-9,
     noisy = sub + rng.normal(scale=noise_deg, size=sub.shape)
     return MediaImage(noisy, pixel_m, lift_m, transitions, np.asarray(image_tracks),
                       {"clean_deg": sub, "bit_m": bit_m, "jitter_m": jitter_m, "pitch_m": pitch_m,
-                       "width_m": width_m, "erase_m": erase_m, "a_m": transition_a_m, "orientation": orientation})
+                       "width_m": width_m, "written_width_m": float(np.median(written)), "erase_m": erase_m, "a_m": transition_a_m, "orientation": orientation})
 
 
 def domain_image(*, rows=256, cols=256, pixel_m=10e-9, period_m=300e-9, orientation="out-of-plane", lift_m=20e-9,
