@@ -204,8 +204,11 @@ def tui_tmux(n: int, scenario: Path, workdir: Path, rng: random.Random) -> dict:
             subprocess.run(["tmux", "new-session", "-d", "-s", session, "-x", "110", "-y", "32",
                             f"cd {workdir} && {sys.executable} -m assistant tui --controller '{url}'"], check=True)
             deadline = time.monotonic() + 30
-            while "WITHDRAW" not in _pane(session):
-                assert time.monotonic() < deadline, "the TUI did not start in tmux"
+            # the trials start once the TUI has its controller open (its status line shows Z): it opens it after its
+            # first screen, and a withdraw pressed while it is still connecting waits for the open, which the stage
+            # serves after the line another client is scanning (7 s here; 4 of 14 short runs timed that, not the key)
+            while "WITHDRAW" not in (pane := _pane(session)) or "connecting" in pane or " Z " not in pane:
+                assert time.monotonic() < deadline, "the TUI did not start in tmux, or did not open its controller"
                 time.sleep(0.1)
             subprocess.run(["tmux", "send-keys", "-t", session, "6"], check=True)  # the log view
             notes: dict = {}
