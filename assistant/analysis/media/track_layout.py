@@ -120,16 +120,14 @@ def find_tracks(image: np.ndarray, *, noise: float, min_contrast: float = 0.5) -
         # walk out from the band's strongest row to half its plateau (the activity has the noise taken out, so
         # its floor is zero; a neighbouring band's blurred edge would lift a floor taken from the dip)
         peak = first + int(np.argmax(act[first:last + 1]))
-        lower = upper = None
-        if first > 0:
-            lower = _crossing(act, peak, raw[j - 1][1] if j > 0 else 0, 0.5 * plateau)
-        if last < rows - 1:
-            upper = _crossing(act, peak, raw[j + 1][0] if j + 1 < len(raw) else rows - 1, 0.5 * plateau)
+        below = raw[j - 1][1] if j > 0 else 0  # the walks stop at the neighbouring bands
+        above = raw[j + 1][0] if j + 1 < len(raw) else rows - 1
+        lower = _crossing(act, peak, below, 0.5 * plateau) if first > 0 else None
+        upper = _crossing(act, peak, above, 0.5 * plateau) if last < rows - 1 else None
         written = None
         if lower is not None and upper is not None:
             half = 0.5 * float(np.median(amp[first:last + 1]))
-            lo_w = _crossing(amp, peak, raw[j - 1][1] if j > 0 else 0, half)
-            hi_w = _crossing(amp, peak, raw[j + 1][0] if j + 1 < len(raw) else rows - 1, half)
+            lo_w, hi_w = _crossing(amp, peak, below, half), _crossing(amp, peak, above, half)
             written = None if lo_w is None or hi_w is None else hi_w - lo_w
         bands.append(Band(lower, upper, first, last, plateau, "track", written))
     complete = [b.width for b in bands if b.complete]
