@@ -53,15 +53,20 @@ class SeriesSettings:
         return f"per line: topography, then each height in increasing order{bias}"
 
     @property
+    def repeat_index(self) -> int | None:
+        """Where the repeat of the first height stands among a line's second passes (None: no repeat): straight
+        after the passes at the first (lowest) height. Their tip field is the strongest of the series, so whatever
+        the tip switches it has switched by then, and the two passes compared lie seconds apart instead of a whole
+        line (0.01 nm/s of drift over the 28 s of the default run's line moved the track edges enough to read as a
+        change)."""
+        return (len(self.biases_v) if self.biases_v else 1) if self.repeat_first else None
+
+    @property
     def passes(self) -> tuple[SecondPass, ...]:
         biases = self.biases_v if self.biases_v else (self.bias_v,)
         passes = [SecondPass(h, b) for h in self.heights_m for b in biases]
-        if self.repeat_first:
-            # straight after the passes at the first (lowest) height: their tip field is the strongest of the
-            # series, so whatever the tip switches it has switched by then, and the two passes compared lie
-            # seconds apart instead of a whole line (0.01 nm/s of drift over the 28 s of the default run's line
-            # moved the track edges enough to read as a change)
-            passes.insert(len(biases), SecondPass(self.heights_m[0], biases[0]))
+        if self.repeat_index is not None:
+            passes.insert(self.repeat_index, SecondPass(self.heights_m[0], biases[0]))
         return tuple(passes)
 
     @property
@@ -189,7 +194,7 @@ def _arrange(settings: SeriesSettings, data: LineData) -> tuple[np.ndarray, np.n
         raise ProtocolError(f"controller returned {len(data.passes)} second passes, expected {expected}")
     ref = settings.phase_reference_deg
     passes = list(data.passes)
-    repeat_pass = passes.pop(nb) if settings.repeat_first else None  # see SeriesSettings.passes
+    repeat_pass = passes.pop(settings.repeat_index) if settings.repeat_index is not None else None
     phase = np.array([p.phase_deg for p in passes], dtype=float) - ref
     amp = np.array([p.amplitude_v for p in passes], dtype=float)
     fshift = None
