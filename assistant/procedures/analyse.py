@@ -8,7 +8,6 @@ from pathlib import Path
 
 import numpy as np
 
-from assistant.analysis.calibration import ThermalFit, WelchSpectrum, fit_thermal_spectrum
 from assistant.analysis.imaging import DECOMPOSITION_MIN_HEIGHTS, ImagingAnalysis, analyse_imaging
 from assistant.analysis.lift_series import (ProbeModel, SeriesAnalysis, SeriesInputError, analyse_series,
                                             first_pass_gap_offset_m)
@@ -103,9 +102,13 @@ def stored_series_analysis(session, name: str) -> SeriesAnalysis | ImagingAnalys
     return analyse_session_series(session, name, write=False)
 
 
-def stored_thermal_fit(record) -> ThermalFit:
+def stored_thermal_fit(record):
     """Refit the thermal spectrum kept with a stored calibration record (its averaged spectrum and how it was
-    averaged), so that a figure or another conversion starts from the fit the calibration came from."""
+    averaged), so that a figure or another conversion starts from the fit the calibration came from; a
+    :class:`~assistant.analysis.calibration.ThermalFit`."""
+    # here: the thermal fit's modules (scipy.signal's spectra, scipy.optimize) are not needed by the series analyses
+    from assistant.analysis.calibration import WelchSpectrum, fit_thermal_spectrum
+
     s, a = record.scalars, record.arrays
     f = a["spectrum_frequency_hz"]
     # a one-sided spectrum runs from 0 to Nyquist in segment_length / 2 + 1 bins

