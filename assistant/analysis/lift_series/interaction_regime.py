@@ -341,16 +341,22 @@ def classify_interaction(analysis, phase_deg=None, *, repeat_phase_deg=None, pro
         largest = f"largest {max(float(tested.max()), 0.0):.0%}" if tested.size else "none measurable"
         if res_ok.all():
             res = f"the continuation residual is at noise at every height (at most {_ratio(np.nanmax(ratio))} ×)"
-        elif lowest is not None:
-            bad = ", ".join(f"{x * 1e9:.4g}" for x in h[~res_ok])
-            res = (f"the continuation residual is at noise from {lowest * 1e9:.4g} nm up (above it at {bad} nm, "
+        elif res_ok.any():
+            good, bad = (", ".join(f"{x * 1e9:.4g}" for x in h[m]) for m in (res_ok, ~res_ok))
+            res = (f"the continuation residual is at noise at {good} nm (above it at {bad} nm, "
                    f"{_ratio(np.nanmax(ratio[~res_ok]))} ×)")
         else:
-            res = f"the continuation residual is above noise at every height (up to {_ratio(np.nanmax(ratio))} ×)"
+            res = None
         rep = "the repeat matches the first pass" if repeat_checked else "no repeat pass was made"
         unseen = "; not checked: " + "; ".join(notes) if notes else ""
-        evidence = (f"Negligible: {res}, no attraction independent of the domain polarity above "
-                    f"{reversible_fraction:.0%} of the magnetic contrast is seen ({largest}), and {rep}{unseen}.")
+        seen = (f"no attraction independent of the domain polarity above {reversible_fraction:.0%} of the magnetic "
+                f"contrast is seen ({largest})")
+        if res is not None:
+            evidence = f"Negligible: {res}, {seen}, and {rep}{unseen}."
+        else:  # nothing points to an interaction, but no height is clean enough to confirm it absent
+            evidence = (f"Negligible as far as it can be tested: {seen}, and {rep}{unseen}; but the continuation "
+                        f"residual is above noise at every height (up to {_ratio(np.nanmax(ratio))} ×), so no "
+                        "single height is confirmed free of it.")
     return InteractionRegime(regime, evidence, h, negligible_at, lowest, even_mean, even_mean_sd, even_lat,
                              even_lat_sd, ratio, repeat_checked, tip, tuple(notes))
 
@@ -373,6 +379,9 @@ def recommendation_with_regime(rec: Recommendation, regime: InteractionRegime) -
     elif regime.regime == "irreversible":
         tail = (" The tip rewrote the sample during this series: repeat it starting at a larger lift height "
                 "(or with a tip of smaller moment) before trusting any height.")
+    elif regime.regime == "negligible":  # neither verdict was found, but no height passes every test
+        tail = (" No reversible or irreversible tip-sample interaction was found, but no measured height is "
+                "confirmed free of it.")
     else:
         tail = f" The tip-sample interaction ({regime.regime}) is not negligible at any measured height."
     if lift == rec.lift_height_m:

@@ -14,6 +14,8 @@ Thresholds of the regime rules are common practice, no source (see the module do
 
 from __future__ import annotations
 
+import dataclasses
+
 import numpy as np
 import pytest
 from scipy import ndimage
@@ -172,6 +174,33 @@ def test_recommendation_skips_heights_where_the_regime_is_not_negligible():
     new = recommendation_with_regime(rec, fake)
     assert new.lift_height_m == pytest.approx(20e-9)
     assert "negligible from 20 nm" in new.sentence and new.criteria["interaction_negligible"].tolist() == [0, 1, 1]
+
+
+def test_nothing_seen_but_no_clean_height_is_not_called_not_negligible():
+    # a regime of "negligible" (nothing reversible or irreversible seen) with the residual above noise at every
+    # height: the advice must not read "the interaction (negligible) is not negligible at any measured height"
+    h = np.array([10e-9, 20e-9, 30e-9])
+    rec = recommend_lift(heights_m=h, magnetic_rms=[1.0, 0.8, 0.5], magnetic_rms_std=[0.01] * 3,
+                         short_range=[0.05, 0.03, 0.02], residual_ok=[False] * 3, resolution_period_m=[5e-8] * 3)
+    r = classify_interaction(_analyse(_series()))
+    fake = type(r)(**{**r.__dict__, "regime": "negligible", "heights_m": h, "negligible_at": np.zeros(3, bool),
+                      "lowest_negligible_m": None})
+    new = recommendation_with_regime(rec, fake)
+    assert new.lift_height_m is None
+    assert "(negligible) is not negligible" not in new.sentence
+    assert "no measured height is confirmed free of it" in new.sentence
+    # and the evidence says the same: negligible as far as it can be tested, no height confirmed
+    a = _analyse(_series())
+    misfit = dataclasses.replace(a, residual_at_noise=np.zeros(len(a.heights_m), bool))
+    said = classify_interaction(misfit)
+    assert said.regime == "negligible" and said.lowest_negligible_m is None
+    assert said.evidence.startswith("Negligible as far as it can be tested")
+    assert "no single height is confirmed free of it" in said.evidence
+    # with some heights at noise, the evidence names those and the others (not "from the lowest up")
+    ok = np.arange(len(a.heights_m)) % 2 == 1
+    part = classify_interaction(dataclasses.replace(a, residual_at_noise=ok))
+    nm = lambda m: ", ".join(f"{x * 1e9:.4g}" for x in a.heights_m[m])  # noqa: E731
+    assert f"at noise at {nm(ok)} nm (above it at {nm(~ok)} nm" in part.evidence, part.evidence
 
 
 def test_a_phase_reference_error_within_its_uncertainty_is_no_attraction():
