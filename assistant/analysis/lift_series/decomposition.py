@@ -50,17 +50,14 @@ from .frequencies import alias_axes_for, pixel_pair_m
 from .image_noise import band_noise_variance, fill_missing, shrunk_noise_variance
 from .interaction_regime import bias_pair_noise_deg, classify_interaction, recommendation_with_regime
 from .mean_parts import MeanParts, magnetic_window_mean_cov, split_bias_grid, split_heights_only
-from .noise_floor import noise_verdict, periodic_component_of, white_noise_std
-from .periodic import fit_with_drift_periodic
+from .magnetic_fit import fit_magnetic
+from .noise_floor import noise_verdict, white_noise_std
 from .phase import SignalSpace
 from .probe import ProbeModel
 from .recommend import recommend_lift
-from .reflected_drift import fit_with_drift_reflected
-from .registration import align_stack, shift_from_spectra
 from .result import SeriesAnalysis
 from .standard_errors import drift_covariance
 from .tip_change import detect_tip_change
-from .windowed import WINDOW_SOLVE, fit_continuation_windowed
 
 __all__ = ["analyse_series", "EDGES"]
 
@@ -233,8 +230,8 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
             phase_var, dof = np.full(nb, rep_var), 0.37 * rows * cols
     image_var = np.tile(phase_var, nh) * gain
     image_var = np.maximum(image_var, 1e-24 * float(np.mean(centred**2)) + 1e-300)  # noise-free data: finite weights
-    fit, drift, aligned, valid = _fit_magnetic(src, okf, h, pixel_m, nb=nb, edge=edge, band=band, options=options,
-                                               image_var=image_var, dof=dof)
+    fit, drift, aligned, valid = fit_magnetic(src, okf, h, pixel_m, nb=nb, edge=edge, band=band, image_var=image_var,
+                                              dof=dof, register=options.register, n_refine=options.n_refine)
     drift_cov = None
     if edge == "reflect" and options.register:
         drift_cov = drift_covariance(fit.model, fit.decay, 1.0 / image_var, np.repeat(np.arange(nh), nb), band)
@@ -328,48 +325,6 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
         cpd_model_std_v=mf.cpd_model_std_v, tip_models=_columns(mf.candidates), assumed=dict(mf.assumed),
         split_vs_amplitude={k: np.asarray(v, float) for k, v in (mf.amplitude_range or {}).items()},
         alias_axes=tuple(int(x) for x in alias_axes), error_method=ERROR_METHOD[edge])
-
-
-def _fit_magnetic(flat, okf, h, pixel_m, *, nb: int, edge: str, band: int, options: _Options, image_var, dof):
-    """Register the (height x bias) images, mean-free in signal units (holes filled), and fit the continuation
-    with the estimator ``edge``, weighted by the measured noise of the images (``image_var``, ``dof`` degrees of
-    freedom each). Returns the fit, the drift (H * B, 2) and the aligned images with their validity."""
-    nimg, rows, cols = flat.shape
-    nh = nimg // nb
-    drift = np.zeros((nimg, 2))
-    # the first estimate correlates periodic spectra: on a non-periodic scan the seam where opposite edges
-    # meet stays put while the content drifts, so the seam is taken out first (periodic-plus-smooth
-    # decomposition)
-    reg = flat if edge == "periodic" else np.array([periodic_component_of(img) for img in flat])
-    if options.register:
-        spectra = np.fft.rfft2(reg, axes=(-2, -1))
-        for i in range(1, nimg):  # loop over images, vectorised inside
-            drift[i] = shift_from_spectra(spectra[0], spectra[i], (rows, cols))
-    height_var = image_var.reshape(nh, nb).mean(axis=1) / nb  # of the bias-averaged image
-    if edge == "reflect":
-        # band-limited realignment of the reflected images (nothing wraps round), alternating with the fit and
-        # Gauss-Newton drift steps; fixed weights from the measured noise, shrunk towards the common level, and
-        # rounds until the steps are far below the drift's standard error
-        return fit_with_drift_reflected(flat, okf, drift, heights_m=h, pixel_m=pixel_m, nb=nb, interior_px=band,
-                                        refine=options.register, noise_std=np.sqrt(height_var), noise_dof=nb * dof,
-                                        weight_std=np.sqrt(shrunk_noise_variance(height_var, nb * dof)),
-                                        tol_px=5e-4, max_rounds=16)
-    # drift rounds with the periodic model (cheap; its leave-one-out template is closed form)
-    fit, drift, aligned, valid = fit_with_drift_periodic(reg, okf, drift, heights_m=h, pixel_m=pixel_m, nb=nb,
-                                                         rounds=options.n_refine, refine=options.register)
-    if edge == "periodic":
-        return fit, drift, aligned, valid
-    # final fit on the raw images: drift in the model, the seam and wrapped borders never fitted; weights
-    # from the measured noise of one image per height
-    fit = fit_continuation_windowed(flat, heights_m=h, pixel_m=pixel_m, height_index=np.repeat(np.arange(nh), nb),
-                                    drift_px=drift, valid=okf, noise_std=np.sqrt(height_var * nb),
-                                    drift_tol_px=5e-4, **WINDOW_SOLVE)
-    # the magnetic window mean is not separable from the image-mean parts (they absorb it)
-    fit = dataclasses.replace(fit, model=fit.model - fit.window_mean[:, None, None])
-    drift = fit.drift_px
-    valid = align_stack(okf.astype(float), np.rint(drift)) > 0.5
-    aligned = align_stack(flat, drift)
-    return fit, drift, aligned, valid
 
 
 def _mean_parts(means, mean_sd, weight_sd, fit, h, volts, probe: ProbeModel, space: SignalSpace,
