@@ -216,14 +216,16 @@ def magnetisation_orientation(phase_deg, *, pixel_m, heights_m=None, noise_deg: 
     w = n[good]
     relation = float(np.average(per[good, 0], weights=w))
     std = float(np.sqrt(np.average(per[good, 1] ** 2, weights=w) / good.sum()))
-    alternation = float(np.nanmean(per[good, 2]))
+    alt = per[good, 2][np.isfinite(per[good, 2])]  # NaN where no row held two such points
+    alternation = float(alt.mean()) if alt.size else float("nan")
     count = int(n.sum())
     axis_text = "along the rows" if ax == 1 else "along the columns"
     ev = [f"Phase relation of the image and its Hilbert transform {axis_text} at {count} points of maximal "
           f"local energy: S = {relation:+.2f} ± {std:.2f} (+1: steps over domains, out-of-plane; -1: lines at "
           "transitions, in-plane)."]
     ev.append(f"Sign structure at those points: D = {alternation:+.2f} (positive: alternating steps, out-of-plane; "
-              "negative: alternating dark and bright lines, head-to-head and tail-to-tail, in-plane).")
+              "negative: alternating dark and bright lines, head-to-head and tail-to-tail, in-plane)."
+              if np.isfinite(alternation) else "Sign structure at those points: none measurable (no row holds two).")
     per_h, ratio, period = None, None, None
     if stack.shape[0] > 1:
         per_h = per[:, 0]

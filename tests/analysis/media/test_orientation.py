@@ -65,3 +65,25 @@ def test_bad_input():
         magnetisation_orientation(np.zeros((8, 8)), pixel_m=1e-8)
     flat = magnetisation_orientation(np.zeros((32, 32)), pixel_m=1e-8)
     assert flat.orientation == "undetermined"
+
+
+def test_no_sign_structure_to_read_is_said_without_a_warning(monkeypatch):
+    # found on a charged-patch run's report: no row held two points of maximal energy at any height, and the
+    # mean of the empty alternation list printed numpy's "Mean of empty slice" to the operator's terminal
+    import warnings
+
+    import assistant.analysis.media.orientation as om
+
+    real = om._relation
+
+    def no_pairs(*args, **kwargs):
+        relation, std, _, count = real(*args, **kwargs)
+        return relation, std, np.nan, count
+
+    monkeypatch.setattr(om, "_relation", no_pairs)
+    im = track_image(orientation="out-of-plane", rows=160, cols=256, seed=11)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        o = magnetisation_orientation(im.phase_deg, pixel_m=im.pixel_m)
+    assert o.orientation == "undetermined"  # the sign structure cannot confirm the relation
+    assert any("none measurable" in e for e in o.evidence)
