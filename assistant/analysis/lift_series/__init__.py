@@ -3,10 +3,11 @@ tip-sample interaction regime and the recommended lift height.
 
 Entry point: :func:`analyse_series` (module :mod:`.decomposition`), which returns a :class:`SeriesAnalysis`.
 The continuation estimators are one module each (:mod:`.periodic`, :mod:`.reflected` with
-:mod:`.reflected_drift`, :mod:`.windowed`), chosen and registered in :mod:`.magnetic_fit`; spatial frequencies and aliases are in :mod:`.frequencies`; the
-image-mean physics in :mod:`.image_mean_models`, its fits in :mod:`.image_means` and the measured total with
-its tip-model-averaged split in :mod:`.mean_parts`; the noise of the images in :mod:`.image_noise` and the
-standard errors in :mod:`.standard_errors`.
+:mod:`.reflected_drift`, :mod:`.windowed`), chosen and registered in :mod:`.magnetic_fit`; spatial
+frequencies and aliases are in :mod:`.frequencies`; the image-mean physics in :mod:`.image_mean_models`, its
+fits in :mod:`.image_means`, the measured total with its tip-model-averaged split in :mod:`.mean_parts` and
+the lateral contact-potential term in :mod:`.lateral_cpd`; the noise of the images in :mod:`.image_noise` and
+the standard errors in :mod:`.standard_errors`.
 """
 
 from assistant.analysis._lazy import attach

@@ -49,6 +49,7 @@ from .estimator_note import ERROR_METHOD, auto_estimator, small_scan_note
 from .frequencies import alias_axes_for, pixel_pair_m
 from .image_noise import band_noise_variance, fill_missing, shrunk_noise_variance
 from .interaction_regime import bias_pair_noise_deg, classify_interaction, recommendation_with_regime
+from .lateral_cpd import add_lateral_cpd
 from .mean_parts import MeanParts, magnetic_window_mean_cov, split_bias_grid, split_heights_only
 from .magnetic_fit import fit_magnetic
 from .noise_floor import noise_verdict, white_noise_std
@@ -270,6 +271,8 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
     mean_sd = np.sqrt(image_var.reshape(nh, nb)) / np.sqrt(n_ok)
     weight_sd = np.sqrt(shrunk_noise_variance(image_var, dof).reshape(nh, nb)) / np.sqrt(n_ok)
     mf = _mean_parts(means, mean_sd, weight_sd, fit, h, volts, probe, space, edge)
+    if volts is not None:  # a contact potential that varies over the scan: its bias-independent mean (lateral_cpd)
+        mf = add_lateral_cpd(mf, aligned, valid, image_var, bias_v=volts, noise_dof=dof)
     es_deg = space.to_phase(mf.electrostatic)
     es_sd_deg = space.slope(mf.electrostatic) * mf.electrostatic_std
     sr_deg = space.to_phase(mf.short_range)

@@ -125,7 +125,7 @@ def build_series(*, rows=128, cols=128, pixel_m=10e-9, heights_m=(20e-9, 30e-9, 
                  applied_bias_v=0.0, cpd_v=0.35, hamaker_j=1e-19, tip_radius_m=30e-9, cone_half_angle_deg=15.0,
                  cone_height_m=10e-6, amplitude_m=10e-9, gap_offset_m=None, spring_constant_n_per_m=2.8,
                  quality_factor=200.0, resonance_hz=75e3, repeat=False, flip_disk=None, nan_fraction=0.0,
-                 margin_px=0, apex="sphere", seed=0):
+                 margin_px=0, apex="sphere", cpd_patch_v=0.0, cpd_patch_sigma_m=200e-9, seed=0):
     """Build a synthetic series; ``drift_px`` (H, 2) or (H, B, 2) in the analysis convention.
 
     ``apex``: "sphere" (exact image series) or "hudlet" (the Hudlet et al. apex term, with their cone when
@@ -133,6 +133,9 @@ def build_series(*, rows=128, cols=128, pixel_m=10e-9, heights_m=(20e-9, 30e-9, 
     ``margin_px`` > 0 makes the scan a non-periodic window: the film, its field and the drift are computed
     on a periodic grid ``margin_px`` larger on every side and only the central ``rows x cols`` are kept
     (a real scan is a crop of an unbounded field). Every returned map and truth refers to that window.
+    ``cpd_patch_v``: a Gaussian patch of contact potential (that height above ``cpd_v``, standard deviation
+    ``cpd_patch_sigma_m``) at the centre; each pixel then sees ``1/2 C'' (V - V_cpd(x))^2``, and
+    ``electrostatic_deg`` is the phase of the window's mean gradient.
     """
     m = int(margin_px)
     if m:
@@ -193,6 +196,11 @@ def build_series(*, rows=128, cols=128, pixel_m=10e-9, heights_m=(20e-9, 30e-9, 
         volts = np.asarray(bias_v, float)
     nb = volts.size
     g_es = es_shape[:, None] * (volts[None] - cpd_v) ** 2  # (H, B)
+    if cpd_patch_v:
+        rr, cc = np.indices((rows, cols))
+        r2 = ((rr - (rows - 1) / 2) ** 2 + (cc - (cols - 1) / 2) ** 2) * pixel_m**2
+        cpd_map = cpd_v + cpd_patch_v * np.exp(-0.5 * r2 / cpd_patch_sigma_m**2)
+        g_es = es_shape[:, None, None, None] * (volts[None, :, None, None] - cpd_map) ** 2  # (H, B, rows, cols)
     if drift_px is None:
         drift = np.zeros((nh, nb, 2))
     else:
@@ -238,6 +246,9 @@ def build_series(*, rows=128, cols=128, pixel_m=10e-9, heights_m=(20e-9, 30e-9, 
                   amplitude_m=amplitude_m, gap_offset_m=gap_off, cone_half_angle_deg=cone_half_angle_deg,
                   cone_height_m=cone_height_m)
     phase = images if bias_v is not None else images[:, 0]
+    if g_es.ndim == 4:
+        g_es = g_es[..., win[0], win[1]] if m else g_es
+        g_es = g_es.mean(axis=(-2, -1))
     es_deg = to_phase(g_es) if bias_v is not None else to_phase(g_es[:, 0])
     return SyntheticSeries(
         phase_deg=phase, heights_m=h, pixel_m=pixel_m, bias_v=None if bias_v is None else volts,
