@@ -50,8 +50,8 @@ from .frequencies import alias_axes_for, pixel_pair_m
 from .image_noise import band_noise_variance, fill_missing, shrunk_noise_variance
 from .interaction_regime import bias_pair_noise_deg, classify_interaction, recommendation_with_regime
 from .lateral_cpd import add_lateral_cpd
-from .mean_parts import MeanParts, magnetic_window_mean_cov, split_bias_grid, split_heights_only
 from .magnetic_fit import fit_magnetic
+from .mean_parts import MeanParts, magnetic_window_mean_cov, split_bias_grid, split_heights_only
 from .noise_floor import noise_verdict, white_noise_std
 from .phase import SignalSpace
 from .probe import ProbeModel

@@ -27,7 +27,7 @@ import numpy as np
 __all__ = ["lateral_cpd_term", "with_lateral_cpd", "add_lateral_cpd"]
 
 
-def lateral_cpd_term(aligned, valid, image_var, *, bias_v, curvature, curvature_std, band: int = 0,
+def lateral_cpd_term(aligned, valid, image_var, *, bias_v, curvature, curvature_std,
                      noise_dof: float | None = None) -> tuple[np.ndarray, np.ndarray]:
     """``a_h var(V_x)`` per height and its standard error from the noise (signal units).
 
@@ -41,9 +41,6 @@ def lateral_cpd_term(aligned, valid, image_var, *, bias_v, curvature, curvature_
         Tip biases [V], at least two distinct values.
     curvature, curvature_std : ndarray (H,)
         ``a_h`` of the image-mean parabolas and its standard error (signal units per V^2).
-    band : int
-        Edge band left out [px]. The image means cover every valid pixel, so their term is the variance over all
-        of them (0, the default): a patch in the middle has a larger variance over the interior alone.
     noise_dof : float, optional
         Degrees of freedom of each image's noise estimate; its error is propagated through the noise correction.
     """
@@ -52,9 +49,9 @@ def lateral_cpd_term(aligned, valid, image_var, *, bias_v, curvature, curvature_
     x = np.asarray(aligned, float)
     nimg, rows, cols = x.shape
     nh = nimg // nb
-    core = (slice(None), slice(None), slice(band, rows - band or None), slice(band, cols - band or None))
-    y = x.reshape(nh, nb, rows, cols)[core]
-    ok = np.asarray(valid, bool).reshape(nh, nb, rows, cols)[core].all(axis=1)  # (H, r, c): every bias there
+    # over every valid pixel, as the image means are (a patch in the middle has a larger variance in the interior)
+    y = x.reshape(nh, nb, rows, cols)
+    ok = np.asarray(valid, bool).reshape(nh, nb, rows, cols).all(axis=1)  # (H, r, c): every bias there
     dv = volts - volts.mean()
     u = dv / np.sum(dv**2)                                   # least-squares slope weights of each bias
     beta = np.einsum("b,hbrc->hrc", u, y)
