@@ -5,8 +5,9 @@ oscillation centre sits ``gap_offset_m + lift height`` above the surface (:mod:`
 and Q the phase is turned into the force gradient per pixel (exact), otherwise the analysis works on the phase
 itself (small-angle approximation); reported parts are the phase each alone would give.
 
-Steps: registration (:mod:`.registration`), the magnetic part by Laplace continuation, the image means
-(:mod:`.image_means`), the noise against the thermal limit (:mod:`.noise_floor`), the tip change
+Steps: with a bias grid, the electrostatic contrast of a contact potential varying over the scan out of every
+image (:mod:`.lateral_cpd`); registration (:mod:`.registration`), the magnetic part by Laplace continuation, the
+image means (:mod:`.image_means`), the noise against the thermal limit (:mod:`.noise_floor`), the tip change
 (:mod:`.tip_change`), the advice (:mod:`.recommend`), and last the tip-sample interaction regime
 (:mod:`.interaction_regime`), which keeps the advice to heights where the regime is negligible.
 
@@ -49,7 +50,7 @@ from .estimator_note import ERROR_METHOD, auto_estimator, small_scan_note
 from .frequencies import alias_axes_for, pixel_pair_m
 from .image_noise import band_noise_variance, fill_missing, shrunk_noise_variance
 from .interaction_regime import bias_pair_noise_deg, classify_interaction, recommendation_with_regime
-from .lateral_cpd import add_lateral_cpd
+from .lateral_cpd import add_lateral_cpd, lateral_contrast
 from .magnetic_fit import fit_magnetic
 from .mean_parts import MeanParts, magnetic_window_mean_cov, split_bias_grid, split_heights_only
 from .noise_floor import noise_verdict, white_noise_std
@@ -231,16 +232,23 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
             phase_var, dof = np.full(nb, rep_var), 0.37 * rows * cols
     image_var = np.tile(phase_var, nh) * gain
     image_var = np.maximum(image_var, 1e-24 * float(np.mean(centred**2)) + 1e-300)  # noise-free data: finite weights
-    fit, drift, aligned, valid = fit_magnetic(src, okf, h, pixel_m, nb=nb, edge=edge, band=band, image_var=image_var,
+    mean_sd = np.sqrt(image_var.reshape(nh, nb)) / np.sqrt(n_ok)
+    lateral, fit_var = None, image_var
+    if grid:  # a contact potential that varies over the scan: its electrostatic contrast out first (lateral_cpd)
+        lateral = lateral_contrast(src, image_var, means, mean_sd, bias_v=volts)
+        src = src - lateral.contrast
+        fit_var = image_var + np.repeat(nb * lateral.added_var, nb)  # as the fit averages the biases
+    fit, drift, aligned, valid = fit_magnetic(src, okf, h, pixel_m, nb=nb, edge=edge, band=band, image_var=fit_var,
                                               dof=dof, register=options.register, n_refine=options.n_refine)
     drift_cov = None
     if edge == "reflect" and options.register:
-        drift_cov = drift_covariance(fit.model, fit.decay, 1.0 / image_var, np.repeat(np.arange(nh), nb), band)
+        drift_cov = drift_covariance(fit.model, fit.decay, 1.0 / fit_var, np.repeat(np.arange(nh), nb), band)
 
     # independent noise estimates of one image (signal units). The top height, last bias, has the least
     # magnetic high-q content (window mode: its raw image, which a Fourier shift of a non-periodic scan
     # would ring)
-    top = np.where(okf[-1], flat[-1], 0.0) if edge != "periodic" else np.where(valid[-1], aligned[-1], 0.0)
+    top = (np.where(okf[-1], flat[-1], 0.0) if edge != "periodic" or grid  # as taken, before any removal
+           else np.where(valid[-1], aligned[-1], 0.0))
     top_noise = white_noise_std(top)
     tip = None
     ref_noise = top_noise
@@ -256,7 +264,9 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
         pair = bias_pair_noise_deg(stack) if tip.irreversible else detect_tip_change(first, rep).noise_deg
         ref_noise = pair / lin if pair is not None else ref_noise
     ref_noise_deg = ref_noise * lin
-    fitted_ref = ref_noise / np.sqrt(nb)  # noise of a bias-averaged image
+    fitted_ref = ref_noise / np.sqrt(nb)  # noise of a bias-averaged image, and what the removal above adds to it
+    if lateral is not None:
+        fitted_ref = fitted_ref * np.sqrt(1.0 + nb * lateral.added_var / image_var.reshape(nh, nb).mean(axis=1))
     # Residual against noise in the interior: the periodic seam and the reflection leave a misfit along the
     # edges that says nothing about the continuation
     inner = fit.residual[:, band:rows - band, band:cols - band]
@@ -268,11 +278,10 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
     residual_ok = interior_rms <= options.residual_tolerance * pure_noise
 
     # image means: the non-magnetic total is measured; only its split depends on the tip (mean_parts)
-    mean_sd = np.sqrt(image_var.reshape(nh, nb)) / np.sqrt(n_ok)
     weight_sd = np.sqrt(shrunk_noise_variance(image_var, dof).reshape(nh, nb)) / np.sqrt(n_ok)
     mf = _mean_parts(means, mean_sd, weight_sd, fit, h, volts, probe, space, edge)
-    if volts is not None:  # a contact potential that varies over the scan: its bias-independent mean (lateral_cpd)
-        mf = add_lateral_cpd(mf, aligned, valid, image_var, bias_v=volts, noise_dof=dof)
+    if lateral is not None:  # and the bias-independent mean it leaves (lateral_cpd)
+        mf = add_lateral_cpd(mf, lateral, okf, bias_v=volts, noise_dof=dof)
     es_deg = space.to_phase(mf.electrostatic)
     es_sd_deg = space.slope(mf.electrostatic) * mf.electrostatic_std
     sr_deg = space.to_phase(mf.short_range)

@@ -1,64 +1,119 @@
-"""The part of the electrostatic image mean that a laterally varying contact potential leaves at every bias.
+"""A contact potential that varies over the scan: its electrostatic contrast, and the mean it leaves at every bias.
 
 With a bias grid each pixel sees ``a_h (V - V_x)^2`` (Hudlet et al. 1998, Eur. Phys. J. B 2, 5), where ``V_x``
-is the contact potential under the tip at pixel x and ``a_h`` the curvature at height h. Its mean over the image
-is ``a_h (V - <V_x>)^2 + a_h var(V_x)``: a parabola with the mean contact potential as its vertex, plus a term
-that does not depend on the bias. The parabola fit of the image means (:func:`.image_means.fit_mean_bias_grid`)
-takes the first for the electrostatic part and leaves the second in the remainder, the short-range part.
+is the contact potential under the tip at pixel x and ``a_h`` the curvature at height h. About the image mean,
+and with ``a_h`` the same over the scan (a flat sample), that is
 
-The second is measured per pixel. Every image here has its mean removed, so a uniform ``a_h`` drops the ``V^2``
-term and leaves, at each pixel, a slope in V of ``beta(x) = -2 a_h (V_x - <V_x>)`` (the magnetic and short-range
-parts do not depend on the bias). A straight line per pixel across the biases gives ``beta``; its variance over
-the image, less the part the noise adds (known from the noise of every image), is ``4 a_h^2 var(V_x)``, so the
-term is ``(var(beta) - var_noise) / (4 a_h)``, with the sign of the electrostatic part.
+    a_h (V - V_x)^2 - <...> = (V - <V_x>) beta_h(x) + a_h [(V_x - <V_x>)^2 - var(V_x)],
+    beta_h(x) = -2 a_h (V_x - <V_x>),
 
-Assumed: ``a_h`` the same over the scan (a flat sample; topography would make it vary) and the images of one
-height registered to each other (the drift fit does this). Only the variance between pixels is seen: a contact
-potential that varies within the tip's footprint adds its own bias-independent term (``sum a_i (V_i - V_x)^2``
-over the footprint) that no single pixel shows, so the term is a lower bound when patches are finer than the tip.
+where ``beta_h`` is each pixel's slope in V across the biases (a straight line per pixel through the mean-free
+images: the ``V^2`` term is the same at every pixel and left the images with their means; the magnetic and
+short-range parts do not depend on the bias). This electrostatic contrast is not a stray field and does not decay
+as one, so it is taken out of every image before the magnetic fit (:func:`lateral_contrast`): the first term
+from each height's own slopes, the second from the contact-potential map that the slopes of all heights give
+together (weighted by how well each height determines it, so the low heights, whose ``a_h`` is large, lead).
+
+The image means keep ``a_h var(V_x)`` at every bias: a term that does not depend on the bias, which the parabola
+fit of the means (:func:`.image_means.fit_mean_bias_grid`) leaves in the remainder, the short-range part.
+:func:`add_lateral_cpd` measures it from the variance of the slopes, less what the noise adds
+(``4 a_h^2 var(V_x)``), and moves it to the electrostatic part.
+
+Assumed: ``a_h`` the same over the scan (topography would make it vary) and the images of one height in one frame
+(its biases are consecutive passes over the same line). Only the variance between pixels is seen: a contact
+potential that varies within the tip's footprint adds its own bias-independent term
+(``sum a_i (V_i - V_x)^2`` over the footprint) that no single pixel shows, so the mean's term is a lower bound
+when patches are finer than the tip.
 """
 
 from __future__ import annotations
 
 import dataclasses
+from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["lateral_cpd_term", "with_lateral_cpd", "add_lateral_cpd"]
+from .image_means import fit_mean_bias_grid
+
+__all__ = ["LateralContrast", "lateral_contrast", "lateral_cpd_term", "with_lateral_cpd", "add_lateral_cpd"]
 
 
-def lateral_cpd_term(aligned, valid, image_var, *, bias_v, curvature, curvature_std,
+@dataclass(frozen=True)
+class LateralContrast:
+    """What :func:`lateral_contrast` found and took out (signal units)."""
+
+    beta: np.ndarray            # (H, rows, cols) each pixel's slope in bias, from the images as given
+    beta_noise_var: np.ndarray  # (H,) the noise variance of one pixel's slope
+    contrast: np.ndarray        # (H * B, rows, cols) the electrostatic contrast taken out of every image
+    added_var: np.ndarray       # (H,) the noise the removal adds to a height's bias-averaged image (per pixel)
+    curvature: np.ndarray       # (H,) a_h of the image-mean parabolas
+    cpd_v: float                # <V_x>, their common vertex [V]
+
+
+def _slopes(images, bias_v):
+    volts = np.asarray(bias_v, float)
+    dv = volts - volts.mean()
+    u = dv / np.sum(dv**2)  # least-squares slope weights of each bias
+    nb = volts.size
+    x = np.asarray(images, float)
+    return np.einsum("b,hbrc->hrc", u, x.reshape(x.shape[0] // nb, nb, *x.shape[1:])), u
+
+
+def lateral_contrast(images, image_var, means, mean_sd, *, bias_v) -> LateralContrast:
+    """The electrostatic contrast of a varying contact potential in every image (see above).
+
+    Parameters
+    ----------
+    images : ndarray (H * B, rows, cols)
+        Mean-free images, height-major (image ``i`` is height ``i // B``), holes filled.
+    image_var : ndarray (H * B,)
+        Noise variance of one pixel of every image.
+    means, mean_sd : ndarray (H, B)
+        The image means and their standard errors (for ``a_h`` and ``<V_x>``).
+    bias_v : array_like (B,)
+    """
+    volts = np.asarray(bias_v, float)
+    nb = volts.size
+    mf = fit_mean_bias_grid(means, mean_sd, bias_v=volts)
+    nh = np.shape(means)[0]
+    v0, a = float(mf.parameters[0]), np.asarray(mf.parameters[1:1 + nh], float)
+    beta, u = _slopes(images, volts)
+    sb2 = np.asarray(image_var, float).reshape(nh, nb) @ (u**2)
+    # the contact-potential map (about its mean) from every height's slope, each weighted by 4 a_h^2 / var(slope)
+    w = 4.0 * a**2 / sb2
+    d = -np.einsum("h,hrc->rc", w / np.where(a != 0, 2.0 * a, np.inf), beta) / max(float(w.sum()), 1e-300)
+    d2 = d**2 - np.mean(d**2)
+    linear = (volts[None, :, None, None] - v0) * beta[:, None]
+    contrast = (linear + a[:, None, None, None] * d2[None, None]).reshape(np.shape(images))
+    # what the removal adds to the bias-averaged image: its slope term at the mean bias, and the map's noise
+    # through the second term (2 a_h d) at its rms
+    added = (volts.mean() - v0) ** 2 * sb2 + 4.0 * a**2 * float(np.mean(d**2)) / max(float(w.sum()), 1e-300)
+    return LateralContrast(beta, sb2, contrast, added, a, v0)
+
+
+def lateral_cpd_term(beta, valid, beta_noise_var, *, curvature, curvature_std,
                      noise_dof: float | None = None) -> tuple[np.ndarray, np.ndarray]:
     """``a_h var(V_x)`` per height and its standard error from the noise (signal units).
 
     Parameters
     ----------
-    aligned, valid : ndarray (H * B, rows, cols)
-        Registered, mean-free images, height-major (image ``i`` is height ``i // B``), and where they hold data.
-    image_var : ndarray (H * B,)
-        Noise variance of one pixel of every image (white: the band-limited alignment keeps it so).
-    bias_v : array_like (B,)
-        Tip biases [V], at least two distinct values.
+    beta : ndarray (H, rows, cols)
+        Each pixel's slope in bias (:class:`LateralContrast`).
+    valid : ndarray of bool (H, rows, cols)
+        Pixels with data at every bias. The variance is over all of them, as the image means are (a patch in the
+        middle has a larger variance over the interior alone).
+    beta_noise_var : ndarray (H,)
+        Noise variance of one pixel's slope.
     curvature, curvature_std : ndarray (H,)
         ``a_h`` of the image-mean parabolas and its standard error (signal units per V^2).
     noise_dof : float, optional
         Degrees of freedom of each image's noise estimate; its error is propagated through the noise correction.
     """
-    volts = np.asarray(bias_v, float)
-    nb = volts.size
-    x = np.asarray(aligned, float)
-    nimg, rows, cols = x.shape
-    nh = nimg // nb
-    # over every valid pixel, as the image means are (a patch in the middle has a larger variance in the interior)
-    y = x.reshape(nh, nb, rows, cols)
-    ok = np.asarray(valid, bool).reshape(nh, nb, rows, cols).all(axis=1)  # (H, r, c): every bias there
-    dv = volts - volts.mean()
-    u = dv / np.sum(dv**2)                                   # least-squares slope weights of each bias
-    beta = np.einsum("b,hbrc->hrc", u, y)
+    ok = np.asarray(valid, bool)
     n = np.maximum(ok.sum(axis=(1, 2)), 2)
     mean = np.where(ok, beta, 0.0).sum(axis=(1, 2)) / n
     var_obs = np.where(ok, (beta - mean[:, None, None]) ** 2, 0.0).sum(axis=(1, 2)) / (n - 1)
-    var_noise = np.asarray(image_var, float).reshape(nh, nb) @ (u**2)
+    var_noise = np.asarray(beta_noise_var, float)
     excess = var_obs - var_noise
     a = np.asarray(curvature, float)
     a_safe = np.where(a != 0, a, np.inf)
@@ -87,22 +142,26 @@ def with_lateral_cpd(parts, term, term_sd):
                                correlation=corr)
 
 
-def add_lateral_cpd(parts, aligned, valid, image_var, *, bias_v, noise_dof: float | None = None):
-    """The bias-grid split ``parts`` with the lateral term measured from the images and moved (see above).
+def add_lateral_cpd(parts, lateral: LateralContrast, valid, *, bias_v, noise_dof: float | None = None):
+    """The bias-grid split ``parts`` with the lateral term measured from the slopes and moved (see above).
 
     ``a_h`` comes from the split's own parabolas: ``electrostatic[h, b] = a_h (V_b - V_cpd)^2``, and its error
-    from the electrostatic part's (noise and model) at the bias farthest from V_cpd."""
-    d = (np.asarray(bias_v, float) - parts.cpd_v) ** 2
+    from the electrostatic part's (noise and model) at the bias farthest from V_cpd. ``valid`` (H * B, rows,
+    cols): where the images hold data."""
+    volts = np.asarray(bias_v, float)
+    d = (volts - parts.cpd_v) ** 2
     es = np.asarray(parts.electrostatic, float)
     a = es @ d / np.sum(d**2)
     far = int(np.argmax(d))
     a_sd = np.hypot(parts.electrostatic_std[:, far], parts.electrostatic_model_std[:, far]) / d[far]
-    term, term_sd = lateral_cpd_term(aligned, valid, image_var, bias_v=bias_v, curvature=a, curvature_std=a_sd,
+    ok = np.asarray(valid, bool).reshape(lateral.beta.shape[0], volts.size, *lateral.beta.shape[1:]).all(axis=1)
+    term, term_sd = lateral_cpd_term(lateral.beta, ok, lateral.beta_noise_var, curvature=a, curvature_std=a_sd,
                                      noise_dof=noise_dof)
     moved = with_lateral_cpd(parts, term, term_sd)
     if np.abs(term[0]) > 2.0 * term_sd[0] and term[0] * a[0] > 0:  # seen at the lowest height
         rms_mv = 1e3 * np.sqrt(term[0] / a[0])
         moved = dataclasses.replace(moved, sentence=moved.sentence + (
-            f" The contact potential varies over the scan ({rms_mv:.3g} mV rms at the lowest height); the part of "
-            "the bias-independent mean that this leaves is electrostatic and is counted there."))
+            f" The contact potential varies over the scan ({rms_mv:.3g} mV rms at the lowest height): its "
+            "electrostatic contrast was taken out of the images before the magnetic fit, and the part of the "
+            "bias-independent mean that it leaves is electrostatic and is counted there."))
     return moved
