@@ -145,8 +145,9 @@ def _map_panel(fig, ax, image, *, size_um, title, cmap, limit, label, cax=None):
 
 
 def maps_figure(a: SeriesAnalysis, *, per_height_scale: bool = False) -> Figure:
-    """Magnetic maps (deg) at three heights, the residual at the lowest height and the change map if any; a
-    dashed frame marks the interior that the residual (and, reflected-edge fit, the magnetic rms) is judged on.
+    """Magnetic maps (deg) at three heights, the residual at the lowest height, the change map if any and, with a
+    bias grid, the contact-potential map (mV about V_cpd); a dashed frame marks the interior that the residual
+    (and, reflected-edge fit, the magnetic rms) is judged on.
 
     The magnetic maps share one colour scale unless ``per_height_scale``, which gives each its own (the title says
     which). The change map is drawn only where the repeat changed beyond noise; otherwise the title says "no
@@ -161,6 +162,10 @@ def maps_figure(a: SeriesAnalysis, *, per_height_scale: bool = False) -> Figure:
         verdict = (f"{a.tip_change.changed_fraction:.2%} changed beyond noise" if changed else
                    "no change beyond noise")
         panels.append((a.tip_change.difference_deg, f"repeat − first pass: {verdict}", "phase change (deg)"))
+    if a.cpd_map_v is not None:  # a bias grid: the contact potential under the tip, whose contrast was taken out
+        noise = f", noise {a.cpd_map_std_v * 1e3:.2g} mV per px" if a.cpd_map_std_v else ""
+        panels.append(((a.cpd_map_v - a.cpd_v) * 1e3, f"contact potential − {a.cpd_v:.4g} V{noise}",
+                       "contact potential (mV)"))
     cols = 3
     rows = int(np.ceil((len(panels) + changed) / cols))
     fig = Figure(figsize=(4.0 * cols, 3.4 * rows + 0.5))  # axes at fixed margins: no layout pass (.panel_grid)
@@ -173,7 +178,9 @@ def maps_figure(a: SeriesAnalysis, *, per_height_scale: bool = False) -> Figure:
     b = a.edge_band_px
     for k, (img, title, label) in enumerate(panels):
         lim = (symmetric_limit(img) if per_height_scale else mag_limit) if k < len(picks) else symmetric_limit(img)
-        _map_panel(fig, axes[k], img, size_um=size_um, title=title, cmap=cmap, limit=lim, label=label, cax=bars[k])
+        potential = label.startswith("contact potential")  # not a phase: a plain diverging scale, not the phase one
+        _map_panel(fig, axes[k], img, size_um=size_um, title=title, cmap="RdBu_r" if potential else cmap, limit=lim,
+                   label=label, cax=bars[k])
         if b and k <= len(picks):  # the interior over which the magnetic rms and the residual are judged
             y0, x0 = b * a.pixel_m[0] * 1e6, b * a.pixel_m[1] * 1e6
             axes[k].add_patch(Rectangle((x0, y0), size_um[1] - 2 * x0, size_um[0] - 2 * y0, fill=False,

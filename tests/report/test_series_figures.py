@@ -13,7 +13,7 @@ from assistant.report import series_figures as sf
 from tests.analysis.lift_series.synthetic_series import build_series
 
 HEIGHTS = np.array([10, 14, 18, 24, 30, 40]) * 1e-9
-UNIT = re.compile(r"\((deg|nm|µm|V)\)")
+UNIT = re.compile(r"\((deg|nm|µm|m?V)\)")
 
 
 @pytest.fixture(scope="module")
@@ -91,6 +91,14 @@ def test_change_map_present_only_with_repeat(with_repeat, with_bias):
     assert any("changed beyond noise" in t for t in titles)
     titles = [ax.get_title() for ax in sf.maps_figure(with_bias).axes]
     assert not any("changed" in t for t in titles)
+
+
+def test_contact_potential_map_only_with_a_bias_grid(with_repeat, with_bias):
+    # the map whose electrostatic contrast was taken out before the magnetic fit, in mV about V_cpd
+    titles = [ax.get_title() for ax in sf.maps_figure(with_bias).axes]
+    assert any(t.startswith("contact potential") and "mV per px" in t for t in titles), titles
+    assert not any(t.startswith("contact potential") for t in (ax.get_title() for ax in
+                                                               sf.maps_figure(with_repeat).axes))
 
 
 def test_write_png_files(with_bias, tmp_path):

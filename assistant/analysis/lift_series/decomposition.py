@@ -242,7 +242,8 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
                                               dof=dof, register=options.register, n_refine=options.n_refine)
     drift_cov = None
     if edge == "reflect" and options.register:
-        drift_cov = drift_covariance(fit.model, fit.decay, 1.0 / fit_var, np.repeat(np.arange(nh), nb), band)
+        own_var = image_var if lateral is None else lateral.image_var_after  # each image's noise, as fitted
+        drift_cov = drift_covariance(fit.model, fit.decay, 1.0 / own_var, np.repeat(np.arange(nh), nb), band)
 
     # independent noise estimates of one image (signal units). The top height, last bias, has the least
     # magnetic high-q content (window mode: its raw image, which a Fourier shift of a non-periodic scan
@@ -336,7 +337,9 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
         mean_model_reduced_chi2=mf.reduced_chi2, mean_model_birge_ratio=mf.birge_ratio,
         cpd_model_std_v=mf.cpd_model_std_v, tip_models=_columns(mf.candidates), assumed=dict(mf.assumed),
         split_vs_amplitude={k: np.asarray(v, float) for k, v in (mf.amplitude_range or {}).items()},
-        alias_axes=tuple(int(x) for x in alias_axes), error_method=ERROR_METHOD[edge])
+        alias_axes=tuple(int(x) for x in alias_axes), error_method=ERROR_METHOD[edge],
+        cpd_map_v=None if lateral is None else lateral.cpd_map_v,
+        cpd_map_std_v=None if lateral is None else lateral.cpd_map_std_v)
 
 
 def _mean_parts(means, mean_sd, weight_sd, fit, h, volts, probe: ProbeModel, space: SignalSpace,

@@ -12,7 +12,9 @@ images: the ``V^2`` term is the same at every pixel and left the images with the
 short-range parts do not depend on the bias). This electrostatic contrast is not a stray field and does not decay
 as one, so it is taken out of every image before the magnetic fit (:func:`lateral_contrast`): the first term
 from each height's own slopes, the second from the contact-potential map that the slopes of all heights give
-together (weighted by how well each height determines it, so the low heights, whose ``a_h`` is large, lead).
+together (weighted by how well each height determines it, so the low heights, whose ``a_h`` is large, lead; the
+heights are not registered for it, so a drift between them blurs that map by as much). The map is kept
+(``SeriesAnalysis.cpd_map_v``) and drawn in the report.
 
 The image means keep ``a_h var(V_x)`` at every bias: a term that does not depend on the bias, which the parabola
 fit of the means (:func:`.image_means.fit_mean_bias_grid`) leaves in the remainder, the short-range part.
@@ -46,8 +48,11 @@ class LateralContrast:
     beta_noise_var: np.ndarray  # (H,) the noise variance of one pixel's slope
     contrast: np.ndarray        # (H * B, rows, cols) the electrostatic contrast taken out of every image
     added_var: np.ndarray       # (H,) the noise the removal adds to a height's bias-averaged image (per pixel)
+    image_var_after: np.ndarray  # (H * B,) each image's own noise variance after the removal (per pixel)
     curvature: np.ndarray       # (H,) a_h of the image-mean parabolas
     cpd_v: float                # <V_x>, their common vertex [V]
+    cpd_map_v: np.ndarray       # (rows, cols) the contact potential under the tip [V], in the images' frame
+    cpd_map_std_v: float        # its noise per pixel [V]
 
 
 def _slopes(images, bias_v):
@@ -85,10 +90,17 @@ def lateral_contrast(images, image_var, means, mean_sd, *, bias_v) -> LateralCon
     d2 = d**2 - np.mean(d**2)
     linear = (volts[None, :, None, None] - v0) * beta[:, None]
     contrast = (linear + a[:, None, None, None] * d2[None, None]).reshape(np.shape(images))
-    # what the removal adds to the bias-averaged image: its slope term at the mean bias, and the map's noise
-    # through the second term (2 a_h d) at its rms
-    added = (volts.mean() - v0) ** 2 * sb2 + 4.0 * a**2 * float(np.mean(d**2)) / max(float(w.sum()), 1e-300)
-    return LateralContrast(beta, sb2, contrast, added, a, v0)
+    # the noise after the removal. An image keeps its own noise n_b, less (V_b - V0) times the slope's noise
+    # sum_c u_c n_c (which holds u_b n_b: the cross term), and the map's noise through the second term (2 a_h d, at
+    # its rms); the bias average keeps the slope term at the mean bias (sum_b u_b = 0)
+    iv = np.asarray(image_var, float).reshape(nh, nb)
+    quad = 4.0 * a**2 * float(np.mean(d**2)) / max(float(w.sum()), 1e-300)
+    dv0 = volts - v0
+    after = iv - 2.0 * dv0[None] * u[None] * iv + dv0[None] ** 2 * sb2[:, None] + quad[:, None]
+    mean_dv0 = float(volts.mean() - v0)
+    added = mean_dv0**2 * sb2 - 2.0 * mean_dv0 * (iv @ u) / nb + quad
+    return LateralContrast(beta, sb2, contrast, added, after.ravel(), a, v0, v0 + d,
+                           1.0 / np.sqrt(max(float(w.sum()), 1e-300)))
 
 
 def lateral_cpd_term(beta, valid, beta_noise_var, *, curvature, curvature_std,

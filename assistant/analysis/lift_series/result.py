@@ -98,6 +98,8 @@ class SeriesAnalysis:
     alias_axes: tuple = ()              # axes with alias fields, decided from the pixel spacing and lowest height
     error_method: str = ""              # how the standard errors were obtained and checked
     interaction: InteractionRegime | None = None  # tip-sample interaction regime (set by analyse_series)
+    cpd_map_v: np.ndarray | None = None  # (rows, cols) with a bias grid: the contact potential per pixel [V]
+    cpd_map_std_v: float | None = None   # its noise per pixel [V]
 
     @property
     def heights_nm(self) -> np.ndarray:
