@@ -86,21 +86,27 @@ def lateral_contrast(images, image_var, means, mean_sd, *, bias_v) -> LateralCon
     sb2 = np.asarray(image_var, float).reshape(nh, nb) @ (u**2)
     # the contact-potential map (about its mean) from every height's slope, each weighted by 4 a_h^2 / var(slope)
     w = 4.0 * a**2 / sb2
-    d = -np.einsum("h,hrc->rc", w / np.where(a != 0, 2.0 * a, np.inf), beta) / max(float(w.sum()), 1e-300)
-    d2 = d**2 - np.mean(d**2)
-    linear = (volts[None, :, None, None] - v0) * beta[:, None]
+    d_var = 1.0 / max(float(w.sum()), 1e-300)  # the map's noise variance per pixel [V^2]
+    d = -np.einsum("h,hrc->rc", w / np.where(a != 0, 2.0 * a, np.inf), beta) * d_var
+    # the slopes of each height, and the map, shrunk by the share of their variance that is not noise (Wiener):
+    # where they hold noise alone (no patch, or a curvature too small to show one) nothing is taken out and no
+    # noise put in; a vertex far from the biases, or a small curvature under the map's square, would multiply it
+    g = np.clip(1.0 - sb2 / np.maximum(np.var(beta, axis=(1, 2)), 1e-300), 0.0, 1.0)
+    g_d = float(np.clip(1.0 - d_var / max(float(np.var(d)), 1e-300), 0.0, 1.0))
+    d2 = g_d**2 * (d**2 - np.mean(d**2))
+    linear = (volts[None, :, None, None] - v0) * (g[:, None, None] * beta)[:, None]
     contrast = (linear + a[:, None, None, None] * d2[None, None]).reshape(np.shape(images))
     # the noise after the removal. An image keeps its own noise n_b, less (V_b - V0) times the slope's noise
     # sum_c u_c n_c (which holds u_b n_b: the cross term), and the map's noise through the second term (2 a_h d, at
     # its rms); the bias average keeps the slope term at the mean bias (sum_b u_b = 0)
     iv = np.asarray(image_var, float).reshape(nh, nb)
-    quad = 4.0 * a**2 * float(np.mean(d**2)) / max(float(w.sum()), 1e-300)
+    quad = 4.0 * a**2 * g_d**4 * float(np.mean(d**2)) * d_var
     dv0 = volts - v0
-    after = iv - 2.0 * dv0[None] * u[None] * iv + dv0[None] ** 2 * sb2[:, None] + quad[:, None]
+    after = (iv - 2.0 * g[:, None] * dv0[None] * u[None] * iv + (g**2 * sb2)[:, None] * dv0[None] ** 2
+             + quad[:, None])
     mean_dv0 = float(volts.mean() - v0)
-    added = mean_dv0**2 * sb2 - 2.0 * mean_dv0 * (iv @ u) / nb + quad
-    return LateralContrast(beta, sb2, contrast, added, after.ravel(), a, v0, v0 + d,
-                           1.0 / np.sqrt(max(float(w.sum()), 1e-300)))
+    added = g**2 * mean_dv0**2 * sb2 - 2.0 * g * mean_dv0 * (iv @ u) / nb + quad
+    return LateralContrast(beta, sb2, contrast, added, after.ravel(), a, v0, v0 + d, float(np.sqrt(d_var)))
 
 
 def lateral_cpd_term(beta, valid, beta_noise_var, *, curvature, curvature_std,

@@ -105,3 +105,17 @@ def test_the_contact_potential_map_is_the_patch_to_its_noise(margin_px):
     diff = a.cpd_map_v - truth
     assert np.sqrt(np.mean(diff**2)) < 1.2 * a.cpd_map_std_v
     assert abs(diff.mean()) < 3 * a.cpd_map_std_v / rows
+
+
+def test_slopes_of_noise_alone_take_nothing_out_and_add_no_noise():
+    # no contact-potential contrast in the images and a curvature too small to place the vertex near the biases
+    # (it lands 2 V away): the slopes are noise, and taking (V - V_cpd) times them out would multiply that noise
+    rng = np.random.default_rng(1)
+    sigma, rows = 0.05, 64
+    images = rng.normal(scale=sigma, size=(2 * 4, rows, rows))
+    images -= images.mean(axis=(-2, -1), keepdims=True)
+    means = 1e-4 * (BIASES[None] - 2.5) ** 2 * np.ones((2, 1))
+    lat = lateral_contrast(images, np.full(8, sigma**2), means, np.full((2, 4), 1e-6), bias_v=BIASES)
+    assert abs(lat.cpd_v - 2.5) < 0.1
+    assert np.abs(lat.contrast).max() < 0.3 * sigma
+    assert np.all(lat.added_var < 0.05 * sigma**2 / 4)
