@@ -13,8 +13,10 @@ short-range parts do not depend on the bias). This electrostatic contrast is not
 as one, so it is taken out of every image before the magnetic fit (:func:`lateral_contrast`): the first term
 from each height's own slopes, the second from the contact-potential map that the slopes of all heights give
 together (weighted by how well each height determines it, so the low heights, whose ``a_h`` is large, lead; the
-heights are not registered for it, so a drift between them blurs that map by as much). The map is kept
-(``SeriesAnalysis.cpd_map_v``) and drawn in the report.
+heights are not registered for it, so a drift between them blurs that map by as much). Both are shrunk by the
+share of their variance that is not noise (a Wiener factor per height, and one for the map), so that slopes of
+noise alone take nothing out and put no noise in. The map is kept (``SeriesAnalysis.cpd_map_v``) and drawn in the
+report.
 
 The image means keep ``a_h var(V_x)`` at every bias: a term that does not depend on the bias, which the parabola
 fit of the means (:func:`.image_means.fit_mean_bias_grid`) leaves in the remainder, the short-range part.

@@ -1,4 +1,5 @@
-"""The bias-independent electrostatic mean of a contact potential that varies over the scan.
+"""A contact potential that varies over the scan: its bias-independent electrostatic mean, its contrast (kept out
+of the magnetic part) and its map.
 
 Outside check: the series is built from ``F' = 1/2 C''(z) (V - V_cpd(x))^2`` per pixel (Hudlet, Saint Jean,
 Guthmann & Berger 1998, Eur. Phys. J. B 2, 5) with the exact sphere-plus-cone capacitance, and a van der Waals
