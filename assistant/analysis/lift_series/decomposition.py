@@ -50,7 +50,7 @@ from .estimator_note import ERROR_METHOD, auto_estimator, small_scan_note
 from .frequencies import alias_axes_for, pixel_pair_m
 from .image_noise import band_noise_variance, fill_missing, shrunk_noise_variance
 from .interaction_regime import bias_pair_noise_deg, classify_interaction, recommendation_with_regime
-from .lateral_cpd import add_lateral_cpd, lateral_contrast
+from .lateral_cpd import add_lateral_cpd, bias_contrast_sentence, contrast_by_bias, lateral_contrast
 from .magnetic_fit import fit_magnetic
 from .mean_parts import MeanParts, magnetic_window_mean_cov, split_bias_grid, split_heights_only
 from .noise_floor import noise_verdict, white_noise_std
@@ -283,6 +283,8 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
     mf = _mean_parts(means, mean_sd, weight_sd, fit, h, volts, probe, space, edge)
     if lateral is not None:  # and the bias-independent mean it leaves (lateral_cpd)
         mf = add_lateral_cpd(mf, lateral, okf, bias_v=volts, noise_dof=dof)
+        by_bias = contrast_by_bias(src, lateral.image_var_after, bias_v=volts)  # a contrast the bias changes
+        mf = dataclasses.replace(mf, sentence=mf.sentence + bias_contrast_sentence(*by_bias, h))
     es_deg = space.to_phase(mf.electrostatic)
     es_sd_deg = space.slope(mf.electrostatic) * mf.electrostatic_std
     sr_deg = space.to_phase(mf.short_range)

@@ -17,7 +17,8 @@ from .windowed import WINDOW_SOLVE, fit_continuation_windowed
 __all__ = ["fit_magnetic"]
 
 
-def fit_magnetic(flat, okf, h, pixel_m, *, nb: int, edge: str, band: int, register: bool, n_refine: int, image_var, dof):
+def fit_magnetic(flat, okf, h, pixel_m, *, nb: int, edge: str, band: int, register: bool, n_refine: int, image_var,
+                 dof):
     """Register the (height x bias) images, mean-free in signal units (holes filled), and fit the continuation
     with the estimator ``edge``, weighted by the measured noise of the images (``image_var``, ``dof`` degrees of
     freedom each). ``register``: estimate and refine the drift; ``n_refine``: drift rounds of the periodic model.
