@@ -106,7 +106,7 @@ def stored_thermal_fit(record):
     """Refit the thermal spectrum kept with a stored calibration record (its averaged spectrum and how it was
     averaged), so that a figure or another conversion starts from the fit the calibration came from; a
     :class:`~assistant.analysis.calibration.ThermalFit`."""
-    # here: the thermal fit's modules (scipy.signal's spectra, scipy.optimize) are not needed by the series analyses
+    # here: the series analyses need neither the thermal fit nor its spectra module
     from assistant.analysis.calibration import WelchSpectrum, fit_thermal_spectrum
 
     s, a = record.scalars, record.arrays
