@@ -125,8 +125,8 @@ def test_slopes_of_noise_alone_take_nothing_out_and_add_no_noise():
 
 
 def test_a_magnetic_contrast_that_changes_with_the_bias_is_reported():
-    # the last bias's pass with 3 % more magnetic contrast at the lowest two heights (as when the oscillation is
-    # pulled off resonance there): measured and said; the same series without it says nothing
+    # the last bias's pass with 3 % more magnetic contrast at the lowest two heights (as the simulated stage shows far
+    # from V_cpd at low lifts): measured and said; the same series without it says nothing
     s = build_series(rows=96, cols=96, heights_m=HEIGHTS, noise_deg=0.03, magnetic_scale=0.45, bias_v=BIASES, seed=3)
     phase = s.phase_deg.copy()
     phase[:2, -1] += 0.03 * s.magnetic_phase_deg[:2]
