@@ -220,6 +220,6 @@ def bias_contrast_sentence(excess, excess_std, heights_m, *, least: float = 0.01
     i = int(np.argmax(np.where(seen.any(axis=1), spread, -np.inf)))
     where = ", ".join(f"{x * 1e9:.4g}" for x in np.asarray(heights_m)[seen.any(axis=1)])
     return (f" The magnetic contrast differs between the biases by up to {spread[i]:.1%} at "
-            f"{heights_m[i] * 1e9:.4g} nm (beyond noise at {where} nm), which the decomposition assumes it does not; it "
-            "grows with the distance of the bias from V_cpd at low lifts (keep the biases closer to V_cpd there), and "
-            "a tip that switches the sample between passes changes it too (see the interaction regime).")
+            f"{heights_m[i] * 1e9:.4g} nm (beyond noise at {where} nm), which the decomposition assumes it does "
+            "not; it grows with the distance of the bias from V_cpd at low lifts (keep the biases closer to V_cpd "
+            "there), and a tip that switches the sample between passes changes it too (see the interaction regime).")
