@@ -14,7 +14,7 @@ erase band cannot be told from the guard band and is not reported. Thresholds: r
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 from scipy import ndimage
@@ -137,7 +137,7 @@ def find_tracks(image: np.ndarray, *, noise: float, min_contrast: float = 0.5) -
         # a narrow band cut by the image's edge may be old data or a track seen in part: it is left out
         visible = b.width if b.complete else b.last_row - b.first_row + 1
         kind = "track" if visible >= 0.6 * widest else ("side" if b.complete else "partial")
-        marked.append(Band(b.lower, b.upper, b.first_row, b.last_row, b.level, kind, b.written_width))
+        marked.append(replace(b, kind=kind))
     erase = []
     for j, b in enumerate(marked):
         if not b.is_track:
