@@ -49,6 +49,7 @@ from .errors import (HeightsMismatchError, HeightsNotIncreasingError, ImageShape
 from .estimator_note import ERROR_METHOD, auto_estimator, small_scan_note
 from .frequencies import alias_axes_for, pixel_pair_m
 from .image_noise import band_noise_variance, fill_missing, shrunk_noise_variance
+from .image_means import fit_mean_bias_grid
 from .interaction_regime import bias_pair_noise_deg, classify_interaction, recommendation_with_regime
 from .lateral_cpd import add_lateral_cpd, bias_contrast_sentence, contrast_by_bias, lateral_contrast
 from .magnetic_fit import fit_magnetic
@@ -233,9 +234,10 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
     image_var = np.tile(phase_var, nh) * gain
     image_var = np.maximum(image_var, 1e-24 * float(np.mean(centred**2)) + 1e-300)  # noise-free data: finite weights
     mean_sd = np.sqrt(image_var.reshape(nh, nb)) / np.sqrt(n_ok)
-    lateral, fit_var = None, image_var
+    lateral, fit_var, mean_fit = None, image_var, None
     if grid:  # a contact potential that varies over the scan: its electrostatic contrast out first (lateral_cpd)
-        lateral = lateral_contrast(src, image_var, means, mean_sd, bias_v=volts)
+        mean_fit = fit_mean_bias_grid(means, mean_sd, bias_v=volts)  # the parabolas of the means, fitted once
+        lateral = lateral_contrast(src, image_var, mean_fit, bias_v=volts)
         src = src - lateral.contrast
         fit_var = image_var + np.repeat(nb * lateral.added_var, nb)  # as the fit averages the biases
     fit, drift, aligned, valid = fit_magnetic(src, okf, h, pixel_m, nb=nb, edge=edge, band=band, image_var=fit_var,
@@ -280,7 +282,7 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
 
     # image means: the non-magnetic total is measured; only its split depends on the tip (mean_parts)
     weight_sd = np.sqrt(shrunk_noise_variance(image_var, dof).reshape(nh, nb)) / np.sqrt(n_ok)
-    mf = _mean_parts(means, mean_sd, weight_sd, fit, h, volts, probe, space, edge)
+    mf = _mean_parts(means, mean_sd, weight_sd, fit, h, volts, probe, space, edge, mean_fit)
     if lateral is not None:  # and the bias-independent mean it leaves (lateral_cpd)
         mf = add_lateral_cpd(mf, lateral, okf, bias_v=volts, noise_dof=dof)
         by_bias = contrast_by_bias(src, lateral.image_var_after, bias_v=volts)  # a contrast the bias changes
@@ -345,7 +347,7 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
 
 
 def _mean_parts(means, mean_sd, weight_sd, fit, h, volts, probe: ProbeModel, space: SignalSpace,
-                edge: str) -> MeanParts:
+                edge: str, mean_fit=None) -> MeanParts:
     """The measured non-magnetic total and its electrostatic and short-range parts (signal units). The
     magnetic mean over the window stays in the total, with its covariance from the fitted maps as model
     uncertainty (none on a periodic scan, one period of a film whose mean is zero); the windowed fit's own
@@ -354,7 +356,7 @@ def _mean_parts(means, mean_sd, weight_sd, fit, h, volts, probe: ProbeModel, spa
     nh = h.size
     mm_cov = np.zeros((nh, nh)) if edge == "periodic" else magnetic_window_mean_cov(fit.model)
     if volts is not None:
-        return split_bias_grid(means, mean_sd, mm_cov, bias_v=volts)
+        return split_bias_grid(means, mean_sd, mm_cov, bias_v=volts, fit=mean_fit)
     try:
         return split_heights_only(means[:, 0], mean_sd[:, 0], mm_cov, heights_m=h, tip_radius_m=probe.tip_radius_m,
                                   tip_radius_rel_std=probe.tip_radius_rel_std,

@@ -37,8 +37,6 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .image_means import fit_mean_bias_grid
-
 __all__ = ["LateralContrast", "lateral_contrast", "lateral_cpd_term", "with_lateral_cpd", "add_lateral_cpd",
            "contrast_by_bias", "bias_contrast_sentence"]
 
@@ -67,7 +65,7 @@ def _slopes(images, bias_v):
     return np.einsum("b,hbrc->hrc", u, x.reshape(x.shape[0] // nb, nb, *x.shape[1:])), u
 
 
-def lateral_contrast(images, image_var, means, mean_sd, *, bias_v) -> LateralContrast:
+def lateral_contrast(images, image_var, mean_fit, *, bias_v) -> LateralContrast:
     """The electrostatic contrast of a varying contact potential in every image (see above).
 
     Parameters
@@ -76,15 +74,14 @@ def lateral_contrast(images, image_var, means, mean_sd, *, bias_v) -> LateralCon
         Mean-free images, height-major (image ``i`` is height ``i // B``), holes filled.
     image_var : ndarray (H * B,)
         Noise variance of one pixel of every image.
-    means, mean_sd : ndarray (H, B)
-        The image means and their standard errors (for ``a_h`` and ``<V_x>``).
+    mean_fit : MeanFit
+        The parabolas of the image means (:func:`.image_means.fit_mean_bias_grid`): ``a_h`` and ``<V_x>``.
     bias_v : array_like (B,)
     """
     volts = np.asarray(bias_v, float)
     nb = volts.size
-    mf = fit_mean_bias_grid(means, mean_sd, bias_v=volts)
-    nh = np.shape(means)[0]
-    v0, a = float(mf.parameters[0]), np.asarray(mf.parameters[1:1 + nh], float)
+    nh = np.shape(images)[0] // nb
+    v0, a = float(mean_fit.parameters[0]), np.asarray(mean_fit.parameters[1:1 + nh], float)
     beta, u = _slopes(images, volts)
     sb2 = np.asarray(image_var, float).reshape(nh, nb) @ (u**2)
     # the contact-potential map (about its mean) from every height's slope, each weighted by 4 a_h^2 / var(slope)
@@ -166,13 +163,12 @@ def with_lateral_cpd(parts, term, term_sd):
 def add_lateral_cpd(parts, lateral: LateralContrast, valid, *, bias_v, noise_dof: float | None = None):
     """The bias-grid split ``parts`` with the lateral term measured from the slopes and moved (see above).
 
-    ``a_h`` comes from the split's own parabolas: ``electrostatic[h, b] = a_h (V_b - V_cpd)^2``, and its error
-    from the electrostatic part's (noise and model) at the bias farthest from V_cpd. ``valid`` (H * B, rows,
-    cols): where the images hold data."""
+    ``a_h`` is that of the parabolas the contrast was found with (``lateral.curvature``), and its error that of
+    the split's electrostatic part (noise and model) at the bias farthest from V_cpd, over ``(V_b - V_cpd)^2``.
+    ``valid`` (H * B, rows, cols): where the images hold data."""
     volts = np.asarray(bias_v, float)
     d = (volts - parts.cpd_v) ** 2
-    es = np.asarray(parts.electrostatic, float)
-    a = es @ d / np.sum(d**2)
+    a = lateral.curvature
     far = int(np.argmax(d))
     a_sd = np.hypot(parts.electrostatic_std[:, far], parts.electrostatic_model_std[:, far]) / d[far]
     ok = np.asarray(valid, bool).reshape(lateral.beta.shape[0], volts.size, *lateral.beta.shape[1:]).all(axis=1)

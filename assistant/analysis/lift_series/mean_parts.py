@@ -368,17 +368,18 @@ def _amplitude_range(y, cinv, cands, e, s, deg):
     return out
 
 
-def split_bias_grid(total, total_std, magnetic_mean_cov, *, bias_v) -> MeanParts:
+def split_bias_grid(total, total_std, magnetic_mean_cov, *, bias_v, fit=None) -> MeanParts:
     """Split with a bias grid: per height a parabola in V with one common vertex V_cpd (Hudlet et al. 1998).
 
     The parabola separates the electrostatic part exactly; the remainder at V_cpd is the short-range part,
     and the magnetic window mean (the same at every bias) stays in it. Standard errors from the noise alone
-    (the unscaled covariance); the Birge excess and the magnetic window mean are model uncertainty.
+    (the unscaled covariance); the Birge excess and the magnetic window mean are model uncertainty. ``fit``: the
+    parabolas' fit of these means (:func:`.image_means.fit_mean_bias_grid`) if already made.
     """
     y = np.asarray(total, float)
     sd = np.asarray(total_std, float)
     mm = np.sqrt(np.clip(np.diag(np.asarray(magnetic_mean_cov, float)), 0.0, None))
-    mf = fit_mean_bias_grid(y, sd, bias_v=bias_v)
+    mf = fit if fit is not None else fit_mean_bias_grid(y, sd, bias_v=bias_v)
     scale = np.sqrt(max(mf.reduced_chi2, 1.0))
     # fit_mean_bias_grid scales its covariance by the Birge ratio where it exceeds one: undone for the noise
     es_sd = mf.electrostatic_std / scale

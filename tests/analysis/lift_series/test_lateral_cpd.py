@@ -17,6 +17,7 @@ import numpy as np
 import pytest
 
 from assistant.analysis.lift_series import analyse_series
+from assistant.analysis.lift_series.image_means import fit_mean_bias_grid
 from assistant.analysis.lift_series.lateral_cpd import lateral_contrast, lateral_cpd_term
 from tests.analysis.lift_series.synthetic_series import build_series
 
@@ -62,12 +63,12 @@ def test_the_term_is_the_curvature_times_the_variance_and_its_error_is_the_scatt
     sigma = 0.05
     dv = BIASES - BIASES.mean()
     means = a[:, None] * ((BIASES[None] - 0.0) ** 2 + np.var(v_x))  # the image means: a parabola with vertex <V_x> = 0
-    mean_sd = np.full((2, 4), sigma / rows)
+    parabolas = fit_mean_bias_grid(means, np.full((2, 4), sigma / rows), bias_v=BIASES)
     terms, sds = [], []
     for _ in range(200):
         img = a[:, None, None, None] * (BIASES[None, :, None, None] - v_x) ** 2
         img = img - img.mean(axis=(-2, -1), keepdims=True) + rng.normal(scale=sigma, size=img.shape)
-        beta = lateral_contrast(img.reshape(-1, rows, cols), np.full(8, sigma**2), means, mean_sd, bias_v=BIASES).beta
+        beta = lateral_contrast(img.reshape(-1, rows, cols), np.full(8, sigma**2), parabolas, bias_v=BIASES).beta
         t, sd = lateral_cpd_term(beta, np.ones((2, rows, cols), bool), np.full(2, sigma**2 / np.sum(dv**2)),
                                  curvature=a, curvature_std=np.zeros(2))
         terms.append(t)
@@ -118,7 +119,8 @@ def test_slopes_of_noise_alone_take_nothing_out_and_add_no_noise():
     images = rng.normal(scale=sigma, size=(2 * 4, rows, rows))
     images -= images.mean(axis=(-2, -1), keepdims=True)
     means = 1e-4 * (BIASES[None] - 2.5) ** 2 * np.ones((2, 1))
-    lat = lateral_contrast(images, np.full(8, sigma**2), means, np.full((2, 4), 1e-6), bias_v=BIASES)
+    parabolas = fit_mean_bias_grid(means, np.full((2, 4), 1e-6), bias_v=BIASES)
+    lat = lateral_contrast(images, np.full(8, sigma**2), parabolas, bias_v=BIASES)
     assert abs(lat.cpd_v - 2.5) < 0.1
     assert np.abs(lat.contrast).max() < 0.3 * sigma
     assert np.all(lat.added_var < 0.05 * sigma**2 / 4)
