@@ -154,18 +154,19 @@ def maps_figure(a: SeriesAnalysis, *, per_height_scale: bool = False) -> Figure:
     change"."""
     n = len(a.heights_m)
     picks = sorted({0, n // 2, n - 1})
-    panels = [(a.magnetic_deg[i], f"magnetic, lift {a.heights_nm[i]:.4g} nm", "magnetic phase (deg)")
+    phase = phase_colormap()  # every panel but the contact potential's is a phase
+    panels = [(a.magnetic_deg[i], f"magnetic, lift {a.heights_nm[i]:.4g} nm", "magnetic phase (deg)", phase)
               for i in picks]
-    panels.append((a.residual_deg[0], f"residual, lift {a.heights_nm[0]:.4g} nm", "residual phase (deg)"))
+    panels.append((a.residual_deg[0], f"residual, lift {a.heights_nm[0]:.4g} nm", "residual phase (deg)", phase))
     changed = a.tip_change is not None and bool(np.any(a.tip_change.changed))
     if a.tip_change is not None:
         verdict = (f"{a.tip_change.changed_fraction:.2%} changed beyond noise" if changed else
                    "no change beyond noise")
-        panels.append((a.tip_change.difference_deg, f"repeat − first pass: {verdict}", "phase change (deg)"))
+        panels.append((a.tip_change.difference_deg, f"repeat − first pass: {verdict}", "phase change (deg)", phase))
     if a.cpd_map_v is not None:  # a bias grid: the contact potential under the tip, whose contrast was taken out
         noise = f", noise {a.cpd_map_std_v * 1e3:.2g} mV per px" if a.cpd_map_std_v else ""
         panels.append(((a.cpd_map_v - a.cpd_v) * 1e3, f"contact potential − {a.cpd_v:.4g} V{noise}",
-                       "contact potential (mV)"))
+                       "contact potential (mV)", "RdBu_r"))  # not a phase: a plain diverging scale
     cols = 3
     rows = int(np.ceil((len(panels) + changed) / cols))
     fig = Figure(figsize=(4.0 * cols, 3.4 * rows + 0.5))  # axes at fixed margins: no layout pass (.panel_grid)
@@ -173,14 +174,11 @@ def maps_figure(a: SeriesAnalysis, *, per_height_scale: bool = False) -> Figure:
     axes, bars = panels_with_bars(fig, rows, cols, title_lines=2)
     r, c = a.magnetic_deg.shape[-2:]
     size_um = (r * a.pixel_m[0] * 1e6, c * a.pixel_m[1] * 1e6)
-    cmap = phase_colormap()
     mag_limit = max(symmetric_limit(p[0]) for p in panels[:len(picks)])
     b = a.edge_band_px
-    for k, (img, title, label) in enumerate(panels):
+    for k, (img, title, label, cmap) in enumerate(panels):
         lim = (symmetric_limit(img) if per_height_scale else mag_limit) if k < len(picks) else symmetric_limit(img)
-        potential = label.startswith("contact potential")  # not a phase: a plain diverging scale, not the phase one
-        _map_panel(fig, axes[k], img, size_um=size_um, title=title, cmap="RdBu_r" if potential else cmap, limit=lim,
-                   label=label, cax=bars[k])
+        _map_panel(fig, axes[k], img, size_um=size_um, title=title, cmap=cmap, limit=lim, label=label, cax=bars[k])
         if b and k <= len(picks):  # the interior over which the magnetic rms and the residual are judged
             y0, x0 = b * a.pixel_m[0] * 1e6, b * a.pixel_m[1] * 1e6
             axes[k].add_patch(Rectangle((x0, y0), size_um[1] - 2 * x0, size_um[0] - 2 * y0, fill=False,
