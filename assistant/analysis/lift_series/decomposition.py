@@ -44,11 +44,13 @@ from dataclasses import dataclass
 import numpy as np
 
 from .continuation import resolution_period_m
+from .drive_offset import (contrast_scale_error, drive_offset_sentence, fit_drive_offset, mean_parts_at,
+                           with_offset_error)
 from .errors import (HeightsMismatchError, HeightsNotIncreasingError, ImageShapeError, SeriesInputError,
                      TooFewBiasesError, TooFewHeightsError, TooManyInvalidPixelsError)
 from .estimator_note import ERROR_METHOD, auto_estimator, small_scan_note
-from .frequencies import alias_axes_for, pixel_pair_m
-from .image_noise import band_noise_variance, fill_missing, shrunk_noise_variance
+from .frequencies import pixel_pair_m
+from .image_noise import shrunk_noise_variance
 from .image_means import fit_mean_bias_grid
 from .interaction_regime import bias_pair_noise_deg, classify_interaction, recommendation_with_regime
 from .lateral_cpd import add_lateral_cpd, bias_contrast_sentence, contrast_by_bias, lateral_contrast
@@ -59,6 +61,7 @@ from .phase import SignalSpace
 from .probe import ProbeModel
 from .recommend import recommend_lift
 from .result import SeriesAnalysis
+from .signals import mean_pixels, series_signals
 from .standard_errors import drift_covariance
 from .tip_change import detect_tip_change
 
@@ -197,43 +200,23 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
         raise TooManyInvalidPixelsError(f"NaN fraction {nan_frac.max():.3g} in an image exceeds the limit "
                                         f"max_nan_fraction={options.max_nan_fraction:g}")
     space = SignalSpace(probe.spring_constant_n_per_m, probe.quality_factor)
-    sig = space.from_phase(s4)
-    lin = space.slope_at_zero
-
     ok = ~bad & ~(np.abs(np.where(bad, 0.0, s4)) > options.max_phase_deg)
-    n_ok = ok.sum(axis=(-2, -1))
-    means = np.where(ok, sig, 0.0).sum(axis=(-2, -1)) / n_ok
-    centred = np.where(ok, sig - means[..., None, None], 0.0)
-    flat = centred.reshape(nh * nb, rows, cols)
-    okf = ok.reshape(nh * nb, rows, cols)
+    prepare = dict(heights_m=h, pixel_m=pixel_m, edge=edge, repeat_phase_deg=repeat_phase_deg)
+    signals = series_signals(s4, ok, space, **prepare)
+    offset = None
+    if grid and space.exact:  # the drive's phase offset from the means' bias dependence; the phases again with it
+        start = fit_mean_bias_grid(signals.means, signals.mean_sd, bias_v=volts)
+        offset = fit_drive_offset(s4, mean_pixels(ok), signals.mean_sd, bias_v=volts, space=space,
+                                  cpd_start_v=float(start.cpd_v))
+        space = dataclasses.replace(space, offset_deg=offset.offset_deg)
+        signals = series_signals(s4, ok, space, **prepare)
+    lin = space.slope_at_zero
+    means, n_ok, mean_sd, flat, src, okf = (signals.means, signals.n_ok, signals.mean_sd, signals.flat, signals.src,
+                                            signals.okf)
+    image_var, dof, alias_axes = signals.image_var, signals.dof, signals.alias_axes
     # edge band: the seam of a periodic fit and the reflection misfit fell to the interior level within
     # about (h_max - h_0) / pixel + 4 px on simulated and synthetic scans
     band = int(min(np.ceil((h[-1] - h[0]) / min(pixel_m)) + 4, min(rows, cols) // 4)) if edge != "window" else 0
-    # the noise of every image from its highest frequencies, independent of any fit (image_noise); holes are
-    # filled smoothly first, and a periodic scan needs no window (its edges meet smoothly)
-    src = flat if okf.all() else fill_missing(flat, okf)
-    alias_axes = alias_axes_for("auto", pixel_m, h[0])
-    image_var, dof = band_noise_variance(src, aliased_axes=alias_axes, valid_fraction=okf.mean(axis=(1, 2)),
-                                         taper=0.0 if edge == "periodic" else 1.0)
-    # the phase noise of one series is alike at every height (the same detector and oscillation); the highest
-    # height has the least magnetic contrast left in the band, where the lower ones keep some when the pixels are
-    # not much finer than the lift (a simulated 32 x 128 run with 31 nm pixels read 5 x the noise at 10 nm). In
-    # the signal each image's noise is that phase noise times the slope of the inversion at its pixels (a mean
-    # phase of -21 deg makes it 16 % larger)
-    gain = np.array([np.mean(1.0 / space.slope(sig_i[ok_i]) ** 2)
-                     for sig_i, ok_i in zip(sig.reshape(nh * nb, rows, cols), okf)])
-    phase_var = image_var.reshape(nh, nb)[-1] / gain.reshape(nh, nb)[-1]  # per bias, from the top height
-    if len(alias_axes) == 2 and repeat_phase_deg is not None:
-        # with both axes aliased no band is free of signal: the first pass minus its repeat is (a robust
-        # median-based estimate, about 37 % efficient); identical passes (noise-free data) keep the band's
-        rep = np.asarray(repeat_phase_deg, float)
-        first = stack[0] if not grid else stack[0, 0]
-        rep_var = detect_tip_change(first, rep[0] if rep.ndim == 3 else rep).noise_deg ** 2
-        if rep_var > 0:
-            phase_var, dof = np.full(nb, rep_var), 0.37 * rows * cols
-    image_var = np.tile(phase_var, nh) * gain
-    image_var = np.maximum(image_var, 1e-24 * float(np.mean(centred**2)) + 1e-300)  # noise-free data: finite weights
-    mean_sd = np.sqrt(image_var.reshape(nh, nb)) / np.sqrt(n_ok)
     lateral, fit_var, mean_fit = None, image_var, None
     if grid:  # a contact potential that varies over the scan: its electrostatic contrast out first (lateral_cpd)
         mean_fit = fit_mean_bias_grid(means, mean_sd, bias_v=volts)  # the parabolas of the means, fitted once
@@ -282,11 +265,21 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
 
     # image means: the non-magnetic total is measured; only its split depends on the tip (mean_parts)
     weight_sd = np.sqrt(shrunk_noise_variance(image_var, dof).reshape(nh, nb)) / np.sqrt(n_ok)
-    mf = _mean_parts(means, mean_sd, weight_sd, fit, h, volts, probe, space, edge, mean_fit)
+    mm_cov = np.zeros((nh, nh)) if edge == "periodic" else magnetic_window_mean_cov(fit.model)
+    mf = _mean_parts(means, mean_sd, weight_sd, mm_cov, h, volts, probe, space, mean_fit)
     if lateral is not None:  # and the bias-independent mean it leaves (lateral_cpd)
         mf = add_lateral_cpd(mf, lateral, okf, bias_v=volts, noise_dof=dof)
         by_bias = contrast_by_bias(src, lateral.image_var_after, bias_v=volts)  # a contrast the bias changes
         mf = dataclasses.replace(mf, sentence=mf.sentence + bias_contrast_sentence(*by_bias, h))
+    if offset is not None:  # the offset's own error, in the model uncertainties
+
+        def parts_at(offset_deg):
+            return mean_parts_at(s4, ok, dataclasses.replace(space, offset_deg=offset_deg), bias_v=volts,
+                                 magnetic_mean_cov=mm_cov, signals_options=prepare)
+
+        mf = with_offset_error(mf, offset, parts_at)
+        mf = dataclasses.replace(mf, sentence=mf.sentence + drive_offset_sentence(
+            offset, quality_factor=float(probe.quality_factor), resonance_hz=probe.resonance_hz))
     es_deg = space.to_phase(mf.electrostatic)
     es_sd_deg = space.slope(mf.electrostatic) * mf.electrostatic_std
     sr_deg = space.to_phase(mf.short_range)
@@ -302,6 +295,8 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
     else:
         ms = np.mean(mag_deg**2, axis=(-2, -1)) - fit.noise_power * lin**2
     mag_rms = np.sqrt(np.clip(ms, 0.0, None))
+    if offset is not None:  # and the error of the drive's offset, which scales the contrast
+        mag_rms_sd = np.hypot(mag_rms_sd, mag_rms * contrast_scale_error(s4, mean_pixels(ok), offset))
     # resolution as one image at that height would show it (a bias grid averages nb images per height)
     resolution = resolution_period_m(fit, noise_std=fit.noise_std * np.sqrt(nb))
     rec = recommend_lift(heights_m=h, magnetic_rms=mag_rms, magnetic_rms_std=mag_rms_sd, short_range=sr_deg,
@@ -343,18 +338,18 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
         split_vs_amplitude={k: np.asarray(v, float) for k, v in (mf.amplitude_range or {}).items()},
         alias_axes=tuple(int(x) for x in alias_axes), error_method=ERROR_METHOD[edge],
         cpd_map_v=None if lateral is None else lateral.cpd_map_v,
-        cpd_map_std_v=None if lateral is None else lateral.cpd_map_std_v)
+        cpd_map_std_v=None if lateral is None else lateral.cpd_map_std_v,
+        drive_phase_offset_deg=None if offset is None else offset.offset_deg,
+        drive_phase_offset_std_deg=None if offset is None else offset.offset_std_deg)
 
 
-def _mean_parts(means, mean_sd, weight_sd, fit, h, volts, probe: ProbeModel, space: SignalSpace,
-                edge: str, mean_fit=None) -> MeanParts:
+def _mean_parts(means, mean_sd, weight_sd, mm_cov, h, volts, probe: ProbeModel, space: SignalSpace,
+                mean_fit=None) -> MeanParts:
     """The measured non-magnetic total and its electrostatic and short-range parts (signal units). The
-    magnetic mean over the window stays in the total, with its covariance from the fitted maps as model
+    magnetic mean over the window stays in the total, with its covariance ``mm_cov`` from the fitted maps as model
     uncertainty (none on a periodic scan, one period of a film whose mean is zero); the windowed fit's own
     estimate of that mean missed the true one by 0.03-0.24 deg on 64 x 64 synthetic crops, more than its
     typical size, so it is not taken off."""
-    nh = h.size
-    mm_cov = np.zeros((nh, nh)) if edge == "periodic" else magnetic_window_mean_cov(fit.model)
     if volts is not None:
         return split_bias_grid(means, mean_sd, mm_cov, bias_v=volts, fit=mean_fit)
     try:

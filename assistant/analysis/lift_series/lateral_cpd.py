@@ -188,12 +188,13 @@ def contrast_by_bias(images, image_var, *, bias_v) -> tuple[np.ndarray, np.ndarr
     """How much more of its height's bias-averaged contrast each bias's image holds (H, B; 0.02 = 2 % more), and
     the standard error of that from the noise.
 
-    The magnetic contrast should not depend on the bias. On the simulated stage it grows as (V - V_cpd)^2 at a low
-    lift (1.5 % per V^2 at 10 nm on the default film), for a cause not established here: not cross-talk into the
-    first pass (its topography does not follow the pattern) and not a smaller oscillation (the stage averages over
-    the free amplitude). A tip that switches the sample between passes also makes the passes differ. The
-    decomposition models neither, so the difference is measured and reported. ``images`` (H * B, rows, cols), mean-free,
-    the varying contact potential's contrast already out; ``image_var`` (H * B,) their noise per pixel."""
+    The magnetic contrast should not depend on the bias. A drive off the resonance makes it seem to, through the
+    inversion of the phase; that is measured and taken out first (:mod:`.drive_offset`). On the simulated stage a
+    smaller part is left that still grows with (V - V_cpd)^2 at a low lift (about 0.7 % per V^2 at 10 nm on the
+    default film, inverted with the stage's true offset; its cause is not established), and a tip that switches the
+    sample between passes also makes the passes differ. The decomposition models neither, so the difference is
+    measured and reported. ``images`` (H * B, rows, cols), mean-free, the varying contact potential's contrast
+    already out; ``image_var`` (H * B,) their noise per pixel."""
     nb = np.size(bias_v)
     x = np.asarray(images, float)
     nh = x.shape[0] // nb

@@ -100,6 +100,8 @@ class SeriesAnalysis:
     interaction: InteractionRegime | None = None  # tip-sample interaction regime (set by analyse_series)
     cpd_map_v: np.ndarray | None = None  # (rows, cols) with a bias grid: the contact potential per pixel [V]
     cpd_map_std_v: float | None = None   # its noise per pixel [V]
+    drive_phase_offset_deg: float | None = None  # with a bias grid, k and Q: the free lever's phase from quadrature
+    drive_phase_offset_std_deg: float | None = None  # at the drive (drive_offset), which the inversion used
 
     @property
     def heights_nm(self) -> np.ndarray:
@@ -137,6 +139,8 @@ class SeriesAnalysis:
             "cpd_v": self.cpd_v,
             "cpd_std_v": self.cpd_std_v,
             "cpd_model_std_v": self.cpd_model_std_v,
+            "drive_phase_offset_deg": self.drive_phase_offset_deg,
+            "drive_phase_offset_std_deg": self.drive_phase_offset_std_deg,
             "drift_std_px": _maybe(self.drift_mean_std_px),
             "nonmagnetic_mean_deg": _maybe(self.nonmagnetic_mean_deg),
             "nonmagnetic_mean_std_deg": _maybe(self.nonmagnetic_mean_std_deg),

@@ -15,7 +15,10 @@ differences, scipy.integrate.quad), not with the project's analysis or simulator
   differentiated numerically;
 * finite amplitude: the Giessibl 2001 (Appl. Phys. Lett. 78, 123) weighting by quadrature for the mean parts
   and, for the exponential magnetic components, its closed form ``2 I1(qA)/(qA)``;
-* phase: ``-arctan(Q F'/k)`` in degrees (driven damped oscillator), white noise, drift by Fourier shift.
+* phase: ``-arctan(Q F'/k)`` in degrees (driven damped oscillator), white noise, drift by Fourier shift; with
+  ``drive_detuning_hz`` the steady-state lag of the oscillator with stiffness ``k - F'`` driven at
+  ``f0 + detuning``, read against the free lever's (textbook, e.g. Garcia & Perez 2002, Surf. Sci. Rep. 47, 197;
+  from memory).
 """
 
 from __future__ import annotations
@@ -125,7 +128,8 @@ def build_series(*, rows=128, cols=128, pixel_m=10e-9, heights_m=(20e-9, 30e-9, 
                  applied_bias_v=0.0, cpd_v=0.35, hamaker_j=1e-19, tip_radius_m=30e-9, cone_half_angle_deg=15.0,
                  cone_height_m=10e-6, amplitude_m=10e-9, gap_offset_m=None, spring_constant_n_per_m=2.8,
                  quality_factor=200.0, resonance_hz=75e3, repeat=False, flip_disk=None, nan_fraction=0.0,
-                 margin_px=0, apex="sphere", cpd_patch_v=0.0, cpd_patch_sigma_m=200e-9, seed=0):
+                 margin_px=0, apex="sphere", cpd_patch_v=0.0, cpd_patch_sigma_m=200e-9, drive_detuning_hz=0.0,
+                 seed=0):
     """Build a synthetic series; ``drift_px`` (H, 2) or (H, B, 2) in the analysis convention.
 
     ``apex``: "sphere" (exact image series) or "hudlet" (the Hudlet et al. apex term, with their cone when
@@ -136,6 +140,8 @@ def build_series(*, rows=128, cols=128, pixel_m=10e-9, heights_m=(20e-9, 30e-9, 
     ``cpd_patch_v``: a Gaussian patch of contact potential (that height above ``cpd_v``, standard deviation
     ``cpd_patch_sigma_m``) at the centre; each pixel then sees ``1/2 C'' (V - V_cpd(x))^2``, and
     ``electrostatic_deg`` is the phase of the window's mean gradient.
+    ``drive_detuning_hz``: the images as read with the drive that far from the resonance (the truths stay the
+    on-resonance phases); ``extras["drive_phase_offset_deg"]`` is the free lever's phase from quadrature there.
     """
     m = int(margin_px)
     if m:
@@ -152,6 +158,14 @@ def build_series(*, rows=128, cols=128, pixel_m=10e-9, heights_m=(20e-9, 30e-9, 
 
     def to_phase(g):
         return -np.degrees(np.arctan(q_f * np.asarray(g) / k))
+
+    u = 1.0 + drive_detuning_hz / resonance_hz  # drive over resonance frequency
+    free_lag = np.arctan2(u / q_f, 1.0 - u**2)
+
+    def as_read(g):  # the phase the lock-in reads, against the free lever's
+        if not drive_detuning_hz:
+            return to_phase(g)
+        return np.degrees(free_lag - np.arctan2(u / q_f, 1.0 - np.asarray(g) / k - u**2))
 
     # magnetic gradient per height
     mz = saturation_a_per_m * random_domains(rows, cols, pixel_m, domain_period_m, rng)
@@ -211,7 +225,7 @@ def build_series(*, rows=128, cols=128, pixel_m=10e-9, heights_m=(20e-9, 30e-9, 
     for i in range(nh):
         for b in range(nb):
             g = g_mag[i] + g_es[i, b] + vdw_grad[i]
-            clean = to_phase(g)
+            clean = as_read(g)
             if np.any(drift[i, b] != 0):
                 clean = shift_image(clean, *drift[i, b])
             images[i, b] = clean + rng.normal(scale=noise_deg, size=(rows, cols))
@@ -256,4 +270,5 @@ def build_series(*, rows=128, cols=128, pixel_m=10e-9, heights_m=(20e-9, 30e-9, 
         magnetic_rms_deg=np.sqrt(np.mean(mag_phase**2, axis=(1, 2))), electrostatic_deg=es_deg,
         short_range_deg=to_phase(vdw_grad), drift_px=drift if bias_v is not None else drift[:, 0],
         cpd_v=cpd_v, noise_deg=noise_deg, changed_map=changed,
-        extras={"clean_change_deg": clean_change, "es_gradient": g_es, "vdw_gradient": vdw_grad, "magnetic_gradient": g_mag})
+        extras={"clean_change_deg": clean_change, "es_gradient": g_es, "vdw_gradient": vdw_grad,
+                "magnetic_gradient": g_mag, "drive_phase_offset_deg": 90.0 - np.degrees(free_lag)})
