@@ -3,13 +3,15 @@
 Conventions: phase = -arctan(Q F'/k), attractive -> negative (:mod:`.phase`); during a second pass the
 oscillation centre sits ``gap_offset_m + lift height`` above the surface (:mod:`.image_mean_models`). With k
 and Q the phase is turned into the force gradient per pixel (exact), otherwise the analysis works on the phase
-itself (small-angle approximation); reported parts are the phase each alone would give.
+itself (small-angle approximation); reported parts are the phase each alone would give on resonance.
 
-Steps: with a bias grid, the electrostatic contrast of a contact potential varying over the scan out of every
-image (:mod:`.lateral_cpd`); registration (:mod:`.registration`), the magnetic part by Laplace continuation, the
-image means (:mod:`.image_means`), the noise against the thermal limit (:mod:`.noise_floor`), the tip change
-(:mod:`.tip_change`), the advice (:mod:`.recommend`), and last the tip-sample interaction regime
-(:mod:`.interaction_regime`), which keeps the advice to heights where the regime is negligible.
+Steps: the phases in signal units (:mod:`.signals`); with a bias grid, the phases inverted again with the drive's
+phase offset that the image means give (:mod:`.drive_offset`) and the electrostatic contrast of a contact potential
+varying over the scan taken out of every image (:mod:`.lateral_cpd`); registration (:mod:`.registration`), the
+magnetic part by Laplace continuation, the image means (:mod:`.image_means`), the noise against the thermal limit
+(:mod:`.noise_floor`), the tip change (:mod:`.tip_change`), the advice (:mod:`.recommend`), and last the
+tip-sample interaction regime (:mod:`.interaction_regime`), which keeps the advice to heights where the regime is
+negligible.
 
 Edges: a real scan is a window onto an unbounded field, not a period of it. Three estimators:
 
@@ -44,8 +46,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .continuation import resolution_period_m
-from .drive_offset import (contrast_scale_error, drive_offset_sentence, fit_drive_offset, mean_parts_at,
-                           with_offset_error)
+from .drive_offset import DriveOffset, drive_offset_sentence, fit_drive_offset, with_offset_error
 from .errors import (HeightsMismatchError, HeightsNotIncreasingError, ImageShapeError, SeriesInputError,
                      TooFewBiasesError, TooFewHeightsError, TooManyInvalidPixelsError)
 from .estimator_note import ERROR_METHOD, auto_estimator, small_scan_note
@@ -137,12 +138,31 @@ def analyse_series(phase_deg, *, heights_m, pixel_m, bias_v=None, repeat_phase_d
                        max_phase_deg)
     inputs = (phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe, options)
     if edge != "auto":
-        return _with_regime(_decompose(*inputs, edge=edge), phase_deg, repeat_phase_deg, probe)
+        return _with_regime(_with_offset_error(inputs, edge), phase_deg, repeat_phase_deg, probe)
     # decided once, from the geometry alone (estimator_note)
     choice, note = auto_estimator(heights_m, pixel_m)
-    a = _decompose(*inputs, edge=choice)
+    a = _with_offset_error(inputs, choice)
     note = note or small_scan_note(a.heights_m, a.pixel_m, a.magnetic_deg.shape[-2:])
     return _with_regime(dataclasses.replace(a, edge_note=note) if note else a, phase_deg, repeat_phase_deg, probe)
+
+
+def _with_offset_error(inputs, edge: str) -> SeriesAnalysis:
+    """The decomposition; with a drive offset read from the bias grid, its error in the standard errors
+    (:func:`.drive_offset.with_offset_error`, from the decompositions at the offset less and plus its standard
+    error) and the advice taken again with them."""
+    offset, a = _decompose(*inputs, edge=edge)
+    if offset is None:
+        return a
+    lo, hi = (_decompose(*inputs, edge=edge, offset=dataclasses.replace(
+        offset, offset_deg=offset.offset_deg + side * offset.offset_std_deg))[1] for side in (-1.0, 1.0))
+    probe, options = inputs[5], inputs[6]
+    a = with_offset_error(a, lo, hi, offset, SignalSpace(probe.spring_constant_n_per_m, probe.quality_factor))
+    rec = recommend_lift(heights_m=a.heights_m, magnetic_rms=a.magnetic_rms_deg,
+                         magnetic_rms_std=a.magnetic_rms_std_deg, short_range=a.short_range_mean_deg,
+                         residual_ok=a.residual_at_noise,
+                         resolution_period_m=a.resolution_period_m, short_range_fraction=options.short_range_fraction,
+                         cpd_v=a.cpd_v)
+    return dataclasses.replace(a, recommendation=rec)
 
 
 def _with_regime(a: SeriesAnalysis, phase_deg, repeat_phase_deg, probe: ProbeModel) -> SeriesAnalysis:
@@ -185,7 +205,7 @@ def _validate(phase_deg, heights_m, bias_v):
 
 
 def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: ProbeModel, options: _Options, *,
-               edge: str) -> SeriesAnalysis:
+               edge: str, offset: DriveOffset | None = None) -> tuple[DriveOffset | None, SeriesAnalysis]:
     stack, h, volts = _validate(phase_deg, heights_m, bias_v)
     try:
         pixel_m = pixel_pair_m(pixel_m)
@@ -203,11 +223,13 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
     ok = ~bad & ~(np.abs(np.where(bad, 0.0, s4)) > options.max_phase_deg)
     prepare = dict(heights_m=h, pixel_m=pixel_m, edge=edge, repeat_phase_deg=repeat_phase_deg)
     signals = series_signals(s4, ok, space, **prepare)
-    offset = None
-    if grid and space.exact:  # the drive's phase offset from the means' bias dependence; the phases again with it
+    if not (grid and space.exact):
+        offset = None
+    elif offset is None:  # the drive's phase offset from the means' bias dependence; the phases again with it
         start = fit_mean_bias_grid(signals.means, signals.mean_sd, bias_v=volts)
         offset = fit_drive_offset(s4, mean_pixels(ok), signals.mean_sd, bias_v=volts, space=space,
                                   cpd_start_v=float(start.cpd_v))
+    if offset is not None:
         space = dataclasses.replace(space, offset_deg=offset.offset_deg)
         signals = series_signals(s4, ok, space, **prepare)
     lin = space.slope_at_zero
@@ -265,19 +287,12 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
 
     # image means: the non-magnetic total is measured; only its split depends on the tip (mean_parts)
     weight_sd = np.sqrt(shrunk_noise_variance(image_var, dof).reshape(nh, nb)) / np.sqrt(n_ok)
-    mm_cov = np.zeros((nh, nh)) if edge == "periodic" else magnetic_window_mean_cov(fit.model)
-    mf = _mean_parts(means, mean_sd, weight_sd, mm_cov, h, volts, probe, space, mean_fit)
+    mf = _mean_parts(means, mean_sd, weight_sd, fit, h, volts, probe, space, edge, mean_fit)
     if lateral is not None:  # and the bias-independent mean it leaves (lateral_cpd)
         mf = add_lateral_cpd(mf, lateral, okf, bias_v=volts, noise_dof=dof)
         by_bias = contrast_by_bias(src, lateral.image_var_after, bias_v=volts)  # a contrast the bias changes
         mf = dataclasses.replace(mf, sentence=mf.sentence + bias_contrast_sentence(*by_bias, h))
-    if offset is not None:  # the offset's own error, in the model uncertainties
-
-        def parts_at(offset_deg):
-            return mean_parts_at(s4, ok, dataclasses.replace(space, offset_deg=offset_deg), bias_v=volts,
-                                 magnetic_mean_cov=mm_cov, signals_options=prepare)
-
-        mf = with_offset_error(mf, offset, parts_at)
+    if offset is not None:
         mf = dataclasses.replace(mf, sentence=mf.sentence + drive_offset_sentence(
             offset, quality_factor=float(probe.quality_factor), resonance_hz=probe.resonance_hz))
     es_deg = space.to_phase(mf.electrostatic)
@@ -295,8 +310,6 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
     else:
         ms = np.mean(mag_deg**2, axis=(-2, -1)) - fit.noise_power * lin**2
     mag_rms = np.sqrt(np.clip(ms, 0.0, None))
-    if offset is not None:  # and the error of the drive's offset, which scales the contrast
-        mag_rms_sd = np.hypot(mag_rms_sd, mag_rms * contrast_scale_error(s4, mean_pixels(ok), offset))
     # resolution as one image at that height would show it (a bias grid averages nb images per height)
     resolution = resolution_period_m(fit, noise_std=fit.noise_std * np.sqrt(nb))
     rec = recommend_lift(heights_m=h, magnetic_rms=mag_rms, magnetic_rms_std=mag_rms_sd, short_range=sr_deg,
@@ -314,7 +327,7 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
         drift_mean_sd = np.sqrt(np.clip(blocks.sum(axis=(-2, -1)) / nb**2, 0.0, None))
         drift_sd = drift_sd.reshape(nh, nb, 2) if grid else drift_sd
     slope_t, ref_sd = space.slope(mf.total), float(probe.phase_reference_std_deg or 0.0)  # ref: offsets every image
-    return SeriesAnalysis(
+    return offset, SeriesAnalysis(
         heights_m=h, pixel_m=pixel_m, bias_v=volts, magnetic_rms_deg=mag_rms, magnetic_rms_std_deg=mag_rms_sd,
         electrostatic_mean_deg=es_deg, electrostatic_mean_std_deg=es_sd_deg, short_range_mean_deg=sr_deg,
         short_range_mean_std_deg=sr_sd_deg, part_correlation=mf.correlation,
@@ -343,13 +356,15 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
         drive_phase_offset_std_deg=None if offset is None else offset.offset_std_deg)
 
 
-def _mean_parts(means, mean_sd, weight_sd, mm_cov, h, volts, probe: ProbeModel, space: SignalSpace,
-                mean_fit=None) -> MeanParts:
+def _mean_parts(means, mean_sd, weight_sd, fit, h, volts, probe: ProbeModel, space: SignalSpace,
+                edge: str, mean_fit=None) -> MeanParts:
     """The measured non-magnetic total and its electrostatic and short-range parts (signal units). The
-    magnetic mean over the window stays in the total, with its covariance ``mm_cov`` from the fitted maps as model
+    magnetic mean over the window stays in the total, with its covariance from the fitted maps as model
     uncertainty (none on a periodic scan, one period of a film whose mean is zero); the windowed fit's own
     estimate of that mean missed the true one by 0.03-0.24 deg on 64 x 64 synthetic crops, more than its
     typical size, so it is not taken off."""
+    nh = h.size
+    mm_cov = np.zeros((nh, nh)) if edge == "periodic" else magnetic_window_mean_cov(fit.model)
     if volts is not None:
         return split_bias_grid(means, mean_sd, mm_cov, bias_v=volts, fit=mean_fit)
     try:

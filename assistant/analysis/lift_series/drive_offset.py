@@ -21,14 +21,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .image_means import _vertex_chi2, fit_mean_bias_grid
-from .lateral_cpd import add_lateral_cpd, lateral_contrast
-from .mean_parts import split_bias_grid
+from .image_means import _vertex_chi2
 from .phase import SignalSpace
-from .signals import series_signals
 
-__all__ = ["DriveOffset", "fit_drive_offset", "mean_parts_at", "with_offset_error",
-           "contrast_scale_error", "drive_offset_sentence"]
+__all__ = ["DriveOffset", "fit_drive_offset", "with_offset_error", "drive_offset_sentence"]
 
 _TAN_LIMIT = 0.3  # largest |tan(offset)| searched: 17 deg, a drive off by 15 % of the line width
 
@@ -39,6 +35,7 @@ class DriveOffset:
     offset_std_deg: float    # its standard error (from the curvature of the chi-square and prior)
     reduced_chi2_before: float  # of the parabolas with no offset
     reduced_chi2_after: float   # with the offset
+    sensitivity_deg: np.ndarray | None = None  # (H, B) d offset / d image mean [deg per signal unit], linearised
 
 
 def _tan_images(phase_deg, valid):
@@ -67,7 +64,29 @@ def _objective(x, counts, scale, mean_std, volts, v_start, prior):
         state["v0"] = float(res.x)
         return float(res.fun)
 
-    return (lambda t: chi2_at(t) + (t / prior) ** 2), chi2_at
+    return (lambda t: chi2_at(t) + (t / prior) ** 2), chi2_at, state
+
+
+def _sensitivity(x, counts, scale, mean_std, volts, t, v0, prior):
+    """d tan(offset) / d image mean (H, B) [per signal unit], of the fit linearised at its solution: with the
+    residual r = means(t) - a_h (V - V0)^2 - c_h and the noise n added to the means, the Gauss-Newton step is
+    -(A^T W A + L)^-1 A^T W n, A = dr/d(V0, a, c, t), L the prior's curvature on t."""
+    w = 1.0 / np.asarray(mean_std, float) ** 2
+    means = _means_at(x, counts, scale, t)
+    step = 1e-6
+    d_t = (_means_at(x, counts, scale, t + step) - _means_at(x, counts, scale, t - step)) / (2.0 * step)
+    _, a, _ = _vertex_chi2(v0, volts, means, w)
+    nh, nb = means.shape
+    jac = np.zeros((nh, nb, 2 * nh + 2))
+    jac[:, :, 0] = 2.0 * a[:, None] * (volts - v0)[None]
+    idx = np.arange(nh)
+    jac[idx, :, 1 + idx] = -((volts - v0) ** 2)[None]
+    jac[idx, :, 1 + nh + idx] = -1.0
+    jac[:, :, -1] = d_t
+    aw = jac.reshape(nh * nb, -1) * w.reshape(-1, 1)
+    normal = jac.reshape(nh * nb, -1).T @ aw
+    normal[-1, -1] += 1.0 / prior**2
+    return -np.linalg.solve(normal, aw.T)[-1].reshape(nh, nb)
 
 
 def fit_drive_offset(phase_deg, valid, mean_std, *, bias_v, space: SignalSpace, cpd_start_v: float,
@@ -97,7 +116,7 @@ def fit_drive_offset(phase_deg, valid, mean_std, *, bias_v, space: SignalSpace, 
     x, counts = _tan_images(phase_deg, valid)
     volts = np.asarray(bias_v, float)
     scale = float(space.spring_constant_n_per_m) / float(space.quality_factor)
-    total, chi2_at = _objective(x, counts, scale, mean_std, volts, cpd_start_v, prior_tan_std)
+    total, chi2_at, state = _objective(x, counts, scale, mean_std, volts, cpd_start_v, prior_tan_std)
     # a coarse look first, so that the bounded search starts in the right valley
     limit = min(_TAN_LIMIT, 0.5 / max(float(np.abs(x).max()), 1e-12))  # keeps 1 - t x above 1/2
     grid = np.linspace(-limit, limit, 13)
@@ -109,46 +128,43 @@ def fit_drive_offset(phase_deg, valid, mean_std, *, bias_v, space: SignalSpace, 
     dof = max(x.shape[0] * x.shape[1] - (2 * x.shape[0] + 2), 1)
     after = chi2_at(t) / dof
     t_std = np.sqrt(2.0 / curvature) * np.sqrt(max(after, 1.0)) if curvature > 0 else prior_tan_std
-    return DriveOffset(float(np.degrees(np.arctan(t))), float(np.degrees(t_std / (1.0 + t * t))),
-                       chi2_at(0.0) / (dof + 1), after)
+    sensitivity = _sensitivity(x, counts, scale, mean_std, volts, t, state["v0"], prior_tan_std)
+    to_deg = np.degrees(1.0) / (1.0 + t * t)
+    return DriveOffset(float(np.degrees(np.arctan(t))), float(t_std * to_deg), chi2_at(0.0) / (dof + 1), after,
+                       sensitivity * to_deg)
 
 
-def mean_parts_at(phase_deg, valid, space: SignalSpace, *, bias_v, magnetic_mean_cov, signals_options: dict):
-    """The bias grid's image-mean parts with the phases inverted in ``space``: the parabolas, the varying contact
-    potential's term, the split, as :func:`~.decomposition.analyse_series` takes them (its magnetic window mean
-    given as ``magnetic_mean_cov``)."""
-    sg = series_signals(phase_deg, valid, space, **signals_options)
-    fit = fit_mean_bias_grid(sg.means, sg.mean_sd, bias_v=bias_v)
-    lateral = lateral_contrast(sg.src, sg.image_var, fit, bias_v=bias_v)
-    parts = split_bias_grid(sg.means, sg.mean_sd, magnetic_mean_cov, bias_v=bias_v, fit=fit)
-    return add_lateral_cpd(parts, lateral, sg.okf, bias_v=bias_v, noise_dof=sg.dof)
+def with_offset_error(a, lo, hi, found: DriveOffset, space: SignalSpace):
+    """The decomposition ``a`` (a :class:`.result.SeriesAnalysis` inverted with ``found``) with the offset's own error
+    in its standard errors; ``lo`` and ``hi`` are the same decomposition at the offset less and plus its standard
+    error.
 
+    The offset is itself an estimate from the noisy means, so everything inverted with it scatters with it. Half the
+    change from ``lo`` to ``hi`` is that scatter, taken numerically because the heights and the parts are coupled
+    through the fit, and added in quadrature. It is not linear: the contact potential's removal (:mod:`.lateral_cpd`)
+    takes out part of a contrast that a wrong offset makes bias-dependent once that exceeds the noise (a synthetic
+    crop's magnetic rms moved 1.0, 0.6 and 0.1 x 10^-3 deg over offsets 0-0.43-0.86-1.47 deg), so a one-sided
+    change can miss most of it. The measured means, which the offset is read from, also carry the
+    correlation of their own noise with it: ``2 (d mean / d offset) cov(noise, offset)``, the covariance from the
+    fit's linearised sensitivity (``found.sensitivity_deg``). ``space``: k and Q, to turn the means' errors back
+    into signal units."""
+    sd = found.offset_std_deg
 
-def with_offset_error(parts, found: DriveOffset, parts_at):
-    """:class:`.mean_parts.MeanParts` with the offset's own error in the model uncertainties: half the change of
-    the image means, of the parts and of V_cpd between the offset one standard error below and above it
-    (``parts_at(offset_deg)`` gives the parts at an offset)."""
-    lo, hi = (parts_at(found.offset_deg + side * found.offset_std_deg) for side in (-1.0, 1.0))
-
-    def half(name):
-        return 0.5 * np.abs(np.asarray(getattr(hi, name), float) - np.asarray(getattr(lo, name), float))
+    def wider(name: str, std_name: str, sensitivity=None):
+        change = 0.5 * (np.asarray(getattr(hi, name)) - np.asarray(getattr(lo, name)))
+        var = np.asarray(getattr(a, std_name)) ** 2 + change**2
+        if sensitivity is not None:  # d phase / d signal is -slope: an attractive gradient reads negative
+            slope = space.slope(space.from_phase(getattr(a, name)))  # deg per signal unit, on resonance
+            var = var - 2.0 * (change / sd) * sensitivity * np.asarray(getattr(a, std_name)) ** 2 / slope
+        return np.sqrt(np.clip(var, 0.0, None))
 
     return dataclasses.replace(
-        parts, total_model_std=np.hypot(parts.total_model_std, half("total")),
-        electrostatic_model_std=np.hypot(parts.electrostatic_model_std, half("electrostatic")),
-        short_range_model_std=np.hypot(parts.short_range_model_std, half("short_range")),
-        cpd_model_std_v=float(np.hypot(parts.cpd_model_std_v or 0.0, half("cpd_v"))))
-
-
-def contrast_scale_error(phase_deg, valid, found: DriveOffset) -> np.ndarray:
-    """(H,) the relative error of each height's bias-averaged contrast that the offset's own error makes.
-
-    Inverted with an offset ``d`` off the true one, a contrast on a pixel of phase ``phase`` is scaled by
-    ``cos^2(phase + offset + d) / cos^2(phase + offset) ~ 1 - 2 tan(phase) d`` (first order): each image by its
-    mean phase, the biases of a height averaged."""
-    ok = np.asarray(valid, bool)
-    mean_phase = np.where(ok, phase_deg, 0.0).sum(axis=(-2, -1)) / np.maximum(ok.sum(axis=(-2, -1)), 1)
-    return 2.0 * np.abs(np.tan(np.radians(mean_phase)).mean(axis=1)) * np.radians(found.offset_std_deg)
+        a, magnetic_rms_std_deg=wider("magnetic_rms_deg", "magnetic_rms_std_deg"),
+        electrostatic_mean_std_deg=wider("electrostatic_mean_deg", "electrostatic_mean_std_deg"),
+        short_range_mean_std_deg=wider("short_range_mean_deg", "short_range_mean_std_deg"),
+        nonmagnetic_mean_std_deg=wider("nonmagnetic_mean_deg", "nonmagnetic_mean_std_deg", found.sensitivity_deg),
+        mean_phase_std_deg=wider("mean_phase_deg", "mean_phase_std_deg", found.sensitivity_deg),
+        cpd_std_v=float(wider("cpd_v", "cpd_std_v")))
 
 
 def drive_offset_sentence(found: DriveOffset, *, quality_factor: float, resonance_hz: float | None) -> str:

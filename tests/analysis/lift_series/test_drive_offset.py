@@ -148,19 +148,22 @@ def test_the_sentence_gives_the_detuning_in_hertz_or_in_line_widths():
     assert drive_offset_sentence(DriveOffset(0.05, 0.03, 1.0, 1.0), quality_factor=Q, resonance_hz=F0) == ""
 
 
-def test_the_error_of_the_offset_is_taken_about_the_parts_reported():
-    # the parts recomputed at the offset found are the ones reported, so the half-differences either side of it
-    # that widen their model uncertainty are taken about the right centre
-    from assistant.analysis.lift_series.drive_offset import mean_parts_at
+def test_the_offset_error_is_in_the_errors_of_what_was_inverted_with_it(monkeypatch):
+    # the same series with the offset's own error made negligible: the electrostatic parts at 10 nm, where the
+    # phases are largest, then claim smaller errors; V_cpd and the magnetic rms too
+    import assistant.analysis.lift_series.decomposition as decomposition
+    from assistant.analysis.lift_series.drive_offset import fit_drive_offset
 
     s, a = _analysed(-3.5)
-    ok = np.abs(s.phase_deg) <= 45.0
-    space = SignalSpace(K, Q, a.drive_phase_offset_deg)
-    parts = mean_parts_at(s.phase_deg, ok, space, bias_v=BIASES, magnetic_mean_cov=np.zeros((HEIGHTS.size,) * 2),
-                          signals_options=dict(heights_m=HEIGHTS, pixel_m=(s.pixel_m, s.pixel_m), edge="periodic"))
-    assert np.allclose(space.to_phase(parts.electrostatic), a.electrostatic_mean_deg, rtol=1e-10, atol=1e-12)
-    assert np.allclose(space.to_phase(parts.short_range), a.short_range_mean_deg, rtol=1e-10, atol=1e-12)
-    assert parts.cpd_v == pytest.approx(a.cpd_v, abs=1e-12)
-    # and the widening is there: at 10 nm the model uncertainty, which holds the offset's error, exceeds the noise's
-    noise_only = SignalSpace(K, Q).slope(parts.electrostatic) * parts.electrostatic_std
-    assert np.all(a.electrostatic_mean_model_std_deg[0] > noise_only[0])
+
+    def exact(*args, **kwargs):
+        found = fit_drive_offset(*args, **kwargs)
+        return DriveOffset(found.offset_deg, 1e-9, found.reduced_chi2_before, found.reduced_chi2_after)
+
+    monkeypatch.setattr(decomposition, "fit_drive_offset", exact)
+    b = analyse_series(s.phase_deg, heights_m=s.heights_m, pixel_m=s.pixel_m, bias_v=s.bias_v, edge="periodic",
+                       **s.analysis_kwargs)
+    assert b.drive_phase_offset_deg == pytest.approx(a.drive_phase_offset_deg, abs=1e-12)
+    assert np.all(a.electrostatic_mean_std_deg[0] > 1.5 * b.electrostatic_mean_std_deg[0])
+    assert a.cpd_std_v > b.cpd_std_v and np.all(a.magnetic_rms_std_deg >= b.magnetic_rms_std_deg)
+    assert np.allclose(a.electrostatic_mean_deg, b.electrostatic_mean_deg, rtol=0, atol=1e-12)
