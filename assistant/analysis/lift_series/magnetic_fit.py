@@ -18,14 +18,16 @@ __all__ = ["fit_magnetic"]
 
 
 def fit_magnetic(flat, okf, h, pixel_m, *, nb: int, edge: str, band: int, register: bool, n_refine: int, image_var,
-                 dof):
+                 dof, drift_px=None):
     """Register the (height x bias) images, mean-free in signal units (holes filled), and fit the continuation
     with the estimator ``edge``, weighted by the measured noise of the images (``image_var``, ``dof`` degrees of
-    freedom each). ``register``: estimate and refine the drift; ``n_refine``: drift rounds of the periodic model.
-    Returns the fit, the drift (H * B, 2) and the aligned images with their validity."""
+    freedom each). ``register``: estimate and refine the drift; ``n_refine``: drift rounds of the periodic model;
+    ``drift_px`` (H * B, 2): a drift already found, used as it is (no registration). Returns the fit, the drift
+    (H * B, 2) and the aligned images with their validity."""
     nimg, rows, cols = flat.shape
     nh = nimg // nb
-    drift = np.zeros((nimg, 2))
+    drift = np.zeros((nimg, 2)) if drift_px is None else np.array(drift_px, float).reshape(nimg, 2)
+    register = register and drift_px is None
     # the first estimate correlates periodic spectra: on a non-periodic scan the seam where opposite edges
     # meet stays put while the content drifts, so the seam is taken out first (periodic-plus-smooth
     # decomposition)
