@@ -8,10 +8,12 @@ less) of the same magnetic contrast, and the image means stop being parabolas in
 
 The means give the offset: inverted with the right one, the mean force gradient at every height is exactly
 ``a_h (V - V_cpd)^2 + c_h`` (Hudlet et al. 1998, Eur. Phys. J. B 2, 5). The offset is the one that minimises the
-parabolas' chi-square (each mean recomputed from its pixels), plus a Gaussian prior of ``prior_tan_std`` on
-``tan(offset)``: a sweep fit places f0 within a few per cent of the line width f0/Q (common practice, no source),
-so a grid whose phases are too small to tell keeps the offset near zero, where it then matters little (the
-scale error is about ``2 tan(offset) tan(phase)``).
+parabolas' chi-square (each mean recomputed from its pixels), plus a Gaussian prior of ``prior_tan_std`` = 0.03 on
+``tan(offset)``, about 1.7 deg: a sweep fit places f0 within about 1.5 % of the line width f0/Q (common practice,
+no source; the default simulated stage's fit is 1 % off). A grid whose phases are too small to tell then keeps the
+offset near zero, where it matters little (the scale error is about ``2 tan(offset) tan(phase)``), and parabolas
+that cannot fit the means anyway (a tip that switches the film between passes) cannot pull it to tens of degrees:
+with a prior of 0.1 one such run read 17 deg.
 """
 
 from __future__ import annotations
@@ -50,8 +52,9 @@ def _means_at(x, counts, scale, t):
     return -scale * (1.0 + t * t) * np.sum(x / (1.0 - t * x), axis=(-2, -1)) / counts
 
 
-def _objective(x, counts, scale, mean_std, volts, v_start, prior):
-    """chi-square of the parabolas (V_cpd profiled) at tan(offset) = t, plus the prior, as a function of t."""
+def _objective(x, counts, scale, mean_std, volts, v_start):
+    """chi-square of the parabolas (V_cpd profiled) at tan(offset) = t, as a function of t, and the V_cpd it last
+    found."""
     from scipy.optimize import minimize_scalar
 
     w = 1.0 / np.asarray(mean_std, float) ** 2
@@ -64,7 +67,7 @@ def _objective(x, counts, scale, mean_std, volts, v_start, prior):
         state["v0"] = float(res.x)
         return float(res.fun)
 
-    return (lambda t: chi2_at(t) + (t / prior) ** 2), chi2_at, state
+    return chi2_at, state
 
 
 def _sensitivity(x, counts, scale, mean_std, volts, t, v0, prior):
@@ -90,7 +93,7 @@ def _sensitivity(x, counts, scale, mean_std, volts, t, v0, prior):
 
 
 def fit_drive_offset(phase_deg, valid, mean_std, *, bias_v, space: SignalSpace, cpd_start_v: float,
-                     prior_tan_std: float = 0.1) -> DriveOffset:
+                     prior_tan_std: float = 0.03) -> DriveOffset:
     """The free lever's phase offset at the drive from the image means of a bias grid (see the module).
 
     Parameters
@@ -116,19 +119,33 @@ def fit_drive_offset(phase_deg, valid, mean_std, *, bias_v, space: SignalSpace, 
     x, counts = _tan_images(phase_deg, valid)
     volts = np.asarray(bias_v, float)
     scale = float(space.spring_constant_n_per_m) / float(space.quality_factor)
-    total, chi2_at, state = _objective(x, counts, scale, mean_std, volts, cpd_start_v, prior_tan_std)
-    # a coarse look first, so that the bounded search starts in the right valley
+    chi2_at, state = _objective(x, counts, scale, mean_std, volts, cpd_start_v)
     limit = min(_TAN_LIMIT, 0.5 / max(float(np.abs(x).max()), 1e-12))  # keeps 1 - t x above 1/2
-    grid = np.linspace(-limit, limit, 13)
-    i = int(np.argmin([total(t) for t in grid]))
-    lo, hi = grid[max(i - 1, 0)], grid[min(i + 1, grid.size - 1)]
-    t = float(minimize_scalar(total, bounds=(lo, hi), method="bounded", options={"xatol": 1e-7}).x)
-    step = 1e-3
-    curvature = (total(t + step) - 2.0 * total(t) + total(t - step)) / step**2
     dof = max(x.shape[0] * x.shape[1] - (2 * x.shape[0] + 2), 1)
+
+    def minimum(birge: float) -> tuple[float, float]:
+        def total(t):
+            return chi2_at(t) / birge + (t / prior_tan_std) ** 2
+
+        # a coarse look first, so that the bounded search starts in the right valley
+        grid = np.linspace(-limit, limit, 13)
+        i = int(np.argmin([total(t) for t in grid]))
+        lo, hi = grid[max(i - 1, 0)], grid[min(i + 1, grid.size - 1)]
+        t = float(minimize_scalar(total, bounds=(lo, hi), method="bounded", options={"xatol": 1e-7}).x)
+        step = 1e-3
+        return t, (total(t + step) - 2.0 * total(t) + total(t - step)) / step**2
+
+    t, curvature = minimum(1.0)
     after = chi2_at(t) / dof
-    t_std = np.sqrt(2.0 / curvature) * np.sqrt(max(after, 1.0)) if curvature > 0 else prior_tan_std
-    sensitivity = _sensitivity(x, counts, scale, mean_std, volts, t, state["v0"], prior_tan_std)
+    # parabolas that do not fit the means (a tip that switches the film between passes, say) tell less: their
+    # chi-square is scaled by its reduced value (Birge), so the prior keeps an offset they cannot support near 0
+    birge = max(after, 1.0)
+    if birge > 1.0:
+        t, curvature = minimum(birge)
+        after = chi2_at(t) / dof
+    t_std = np.sqrt(2.0 / curvature) if curvature > 0 else prior_tan_std
+    sensitivity = _sensitivity(x, counts, scale, np.asarray(mean_std, float) * np.sqrt(birge), volts, t,
+                               state["v0"], prior_tan_std)
     to_deg = np.degrees(1.0) / (1.0 + t * t)
     return DriveOffset(float(np.degrees(np.arctan(t))), float(t_std * to_deg), chi2_at(0.0) / (dof + 1), after,
                        sensitivity * to_deg)
