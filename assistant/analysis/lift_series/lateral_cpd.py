@@ -189,9 +189,10 @@ def contrast_by_bias(images, image_var, *, bias_v) -> tuple[np.ndarray, np.ndarr
     the standard error of that from the noise.
 
     The magnetic contrast should not depend on the bias. A drive off the resonance makes it seem to, through the
-    inversion of the phase; that is measured and taken out first (:mod:`.drive_offset`). On the simulated stage a
-    smaller part is left that still grows with (V - V_cpd)^2 at a low lift (about 0.7 % per V^2 at 10 nm on the
-    default film, inverted with the stage's true offset; its cause is not established), and a tip that switches the
+    inversion of the phase; that is measured and taken out first (:mod:`.drive_offset`). A smaller part is left that
+    still grows with (V - V_cpd)^2 at a low lift (about 0.7 % per V^2 at 10 nm on the simulated default film),
+    mostly cross-talk through the first pass: the lift pass replays a recorded height that the magnetic force moved
+    along the pattern, and the electrostatic gradient turns that height into contrast. A tip that switches the
     sample between passes also makes the passes differ. The decomposition models neither, so the difference is
     measured and reported. ``images`` (H * B, rows, cols), mean-free, the varying contact potential's contrast
     already out; ``image_var`` (H * B,) their noise per pixel."""
