@@ -11,7 +11,7 @@ import math
 
 from assistant.formatting import DASH, number, percent, quantity
 
-__all__ = ["results_block", "per_height_table", "bias_table", "render_table", "render_block"]
+__all__ = ["results_block", "per_height_table", "bias_table", "render_table", "render_block", "parts_together_deg"]
 
 
 def _list(d: dict, key: str) -> list | None:
@@ -242,3 +242,16 @@ def render_table(headers: list[str], rows: list[list[str]], *, markdown: bool) -
     lines = ["  ".join(h.rjust(w) for h, w in zip(headers, widths))]
     lines += ["  ".join(c.rjust(w) for c, w in zip(r, widths)) for r in rows]
     return lines
+
+
+def parts_together_deg(signal_space: str, electrostatic_deg, short_range_deg):
+    """The phase the electrostatic and short-range parts give together. Their force gradients add, and each part
+    is reported as the phase ``-arctan(Q F'/k)`` of its own gradient, so with k and Q (``signal_space``
+    "gradient", as the analysis says) the tangents add, not the phases (-9.6 deg and -1.5 deg give -11.05 deg, not
+    -11.1); without them the analysis worked on the phases themselves, and those add."""
+    import numpy as np  # here: the rest of this module needs only the standard library
+
+    if signal_space != "gradient":
+        return electrostatic_deg + short_range_deg
+    total = np.tan(np.radians(electrostatic_deg)) + np.tan(np.radians(short_range_deg))
+    return np.degrees(np.arctan(total))

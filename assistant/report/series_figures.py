@@ -26,6 +26,7 @@ from assistant.analysis.lift_series import SeriesAnalysis
 from assistant.report.colours import symmetric_limit
 from assistant.report.images import phase_colormap, save_png
 from assistant.report.panel_grid import fixed_margins, panels_with_bars
+from assistant.report.results import parts_together_deg
 
 __all__ = ["mean_figure", "magnetic_figure", "maps_figure", "series_figures", "write_series_figures",
            "recommendation_title"]
@@ -49,17 +50,6 @@ def _whole(std, model_std):
     return std if model_std is None else np.hypot(std, model_std)
 
 
-def parts_together_deg(a: SeriesAnalysis, electrostatic_deg, short_range_deg):
-    """The phase the electrostatic and short-range parts give together. Their force gradients add, and each part
-    is reported as the phase ``-arctan(Q F'/k)`` of its own gradient, so with k and Q (``signal_space``
-    "gradient") the tangents add, not the phases (-9.6 deg and -1.5 deg give -11.05 deg, not -11.1); without
-    them the analysis worked on the phases themselves, and those add."""
-    if a.signal_space != "gradient":
-        return electrostatic_deg + short_range_deg
-    total = np.tan(np.radians(electrostatic_deg)) + np.tan(np.radians(short_range_deg))
-    return np.degrees(np.arctan(total))
-
-
 def mean_figure(a: SeriesAnalysis) -> Figure:
     """Image-mean phase (deg) against lift height (nm) with the fitted parts and 1-sigma bands, the recommended lift
     marked, and a panel of the misfit (measured minus fit) with the measured error bars at their own scale (on the
@@ -72,7 +62,7 @@ def mean_figure(a: SeriesAnalysis) -> Figure:
     sr, sr_sd = a.short_range_mean_deg, _whole(a.short_range_mean_std_deg, a.short_range_mean_model_std_deg)
     if es.ndim == 1:
         # the parts add up to the measured total; the tip models' own fit shows how well they describe it
-        fit = parts_together_deg(a, es, sr) if a.mean_model_fit_deg is None else a.mean_model_fit_deg
+        fit = parts_together_deg(a.signal_space, es, sr) if a.mean_model_fit_deg is None else a.mean_model_fit_deg
         ax.plot(h, fit, "-", color="0.2", lw=1.6, zorder=3, label="tip-model fit (averaged over tips)")
         ax.errorbar(h, a.mean_phase_deg, yerr=a.mean_phase_std_deg, fmt="o", mfc="none", color="k", ms=6,
                     capsize=3, zorder=4, label="measured image mean (±1σ)")
@@ -82,7 +72,7 @@ def mean_figure(a: SeriesAnalysis) -> Figure:
                         color="k", ms=4, capsize=3)
     else:
         colours = [f"C{i}" for i in range(es.shape[1])]
-        model = parts_together_deg(a, es, sr[:, None])
+        model = parts_together_deg(a.signal_space, es, sr[:, None])
         for b, volts in enumerate(a.bias_v):
             ax.plot(h, model[:, b], "-", color=colours[b], lw=1.4, zorder=3)
             ax.errorbar(h, a.mean_phase_deg[:, b], yerr=a.mean_phase_std_deg[:, b], fmt="o", mfc="none", ms=6,

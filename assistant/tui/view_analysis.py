@@ -13,7 +13,7 @@ from textual.widgets import Button, Static
 from textual_plotext import PlotextPlot
 
 from assistant.formatting import number, quantity, span
-from assistant.report.results import results_block
+from assistant.report.results import parts_together_deg, results_block
 from assistant.tui.plots import DATA, FIT, PART_A, PART_B, redraw
 from assistant.tui.view_base import View
 
@@ -141,7 +141,7 @@ class AnalysisView(View):
             if sr is not None and sr.shape == h.shape:
                 plt.plot(h, sr, color=PART_B)
             if es is not None and sr is not None and es.shape == sr.shape == h.shape:
-                plt.plot(h, es + sr, color=FIT)
+                plt.plot(h, parts_together_deg(str(d.get("signal_space")), es, sr), color=FIT)
             # the key in the title, not a legend box over the data
             plt.title("image mean: o measured, fit = electrostatic + short-range")
             plt.xlabel("lift height (nm)")

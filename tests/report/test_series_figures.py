@@ -10,6 +10,7 @@ from matplotlib.image import AxesImage
 
 from assistant.analysis.lift_series.decomposition import analyse_series
 from assistant.report import series_figures as sf
+from assistant.report.results import parts_together_deg
 from tests.analysis.lift_series.synthetic_series import build_series
 
 HEIGHTS = np.array([10, 14, 18, 24, 30, 40]) * 1e-9
@@ -124,10 +125,11 @@ def test_the_mean_figure_adds_the_parts_as_gradients(with_bias):
     space = SignalSpace(2.8, 200.0)  # build_series's lever; the identity holds for any k and Q
     es, sr = np.array([-9.6, -3.0, 0.5]), np.array([-1.5, -1.5, -0.2])
     expected = space.to_phase(space.from_phase(es) + space.from_phase(sr))
-    assert np.allclose(sf.parts_together_deg(with_bias, es, sr), expected, rtol=0, atol=1e-12)
-    assert sf.parts_together_deg(with_bias, -9.6, -1.5) == pytest.approx(-11.052, abs=1e-3)
+    assert np.allclose(parts_together_deg(with_bias.signal_space, es, sr), expected, rtol=0, atol=1e-12)
+    assert parts_together_deg("gradient", -9.6, -1.5) == pytest.approx(-11.052, abs=1e-3)
     fig = sf.mean_figure(with_bias)
     lines = [ln for ln in fig.axes[0].get_lines() if ln.get_linestyle() == "-" and len(ln.get_ydata()) == HEIGHTS.size]
-    model = sf.parts_together_deg(with_bias, with_bias.electrostatic_mean_deg,
+    model = parts_together_deg(with_bias.signal_space, with_bias.electrostatic_mean_deg,
                                   with_bias.short_range_mean_deg[:, None])
+    assert parts_together_deg("phase", -9.6, -1.5) == pytest.approx(-11.1)
     assert any(np.allclose(ln.get_ydata(), model[:, 0]) for ln in lines)
