@@ -201,7 +201,8 @@ def drive_offset_sentence(found: DriveOffset, *, quality_factor: float, resonanc
     return (f" The free lever's phase at the drive is {sign}{offset} deg from quadrature (the drive {where} the "
             "resonance), read from the bias dependence of the image means; every "
             f"phase was inverted with it (parabolas' reduced chi-square {found.reduced_chi2_before:.3g} without it, "
-            f"{found.reduced_chi2_after:.3g} with it).")
+            f"{found.reduced_chi2_after:.3g} with it). The errors above are those at that offset; the results' "
+            "errors also hold the offset's own.")
 
 
 def _pm(value: float, std: float) -> str:
