@@ -223,17 +223,20 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
                                         f"max_nan_fraction={options.max_nan_fraction:g}")
     space = SignalSpace(probe.spring_constant_n_per_m, probe.quality_factor)
     ok = ~bad & ~(np.abs(np.where(bad, 0.0, s4)) > options.max_phase_deg)
-    prepare = dict(heights_m=h, pixel_m=pixel_m, edge=edge, repeat_phase_deg=repeat_phase_deg)
-    signals = series_signals(s4, ok, space, **prepare)
+
+    def signals_in(sp: SignalSpace):
+        return series_signals(s4, ok, sp, heights_m=h, pixel_m=pixel_m, edge=edge, repeat_phase_deg=repeat_phase_deg)
+
     if not (grid and space.exact):
         offset = None
-    elif offset is None:  # the drive's phase offset from the means' bias dependence; the phases again with it
-        start = fit_mean_bias_grid(signals.means, signals.mean_sd, bias_v=volts)
-        offset = fit_drive_offset(s4, mean_pixels(ok), signals.mean_sd, bias_v=volts, space=space,
+    elif offset is None:  # the drive's phase offset from the means' bias dependence (as read, weighted by their noise)
+        first = signals_in(space)
+        start = fit_mean_bias_grid(first.means, first.mean_sd, bias_v=volts)
+        offset = fit_drive_offset(s4, mean_pixels(ok), first.mean_sd, bias_v=volts, space=space,
                                   cpd_start_v=float(start.cpd_v))
-    if offset is not None:
+    if offset is not None:  # every phase inverted with it
         space = dataclasses.replace(space, offset_deg=offset.offset_deg)
-        signals = series_signals(s4, ok, space, **prepare)
+    signals = signals_in(space)
     lin = space.slope_at_zero
     means, n_ok, mean_sd, flat, src, okf = (signals.means, signals.n_ok, signals.mean_sd, signals.flat, signals.src,
                                             signals.okf)
