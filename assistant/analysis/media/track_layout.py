@@ -17,7 +17,6 @@ from __future__ import annotations
 from dataclasses import dataclass, replace
 
 import numpy as np
-from scipy import ndimage
 
 __all__ = ["Band", "TrackLayout", "find_tracks"]
 
@@ -85,13 +84,30 @@ def _crossing(profile: np.ndarray, start: int, stop: int, level: float) -> float
     return None
 
 
+def _gaussian_nearest(x: np.ndarray, sigma: float) -> np.ndarray:
+    """A 1-D Gaussian smoothing of ``x``, the edge values repeated beyond the ends: ``scipy.ndimage``'s
+    ``gaussian_filter1d(x, sigma, mode="nearest")`` (its kernel, truncated at 4 sigma; checked against it in the
+    tests), written here because loading scipy.ndimage costs 0.17 s of a 0.65 s ``mfma analyze image``."""
+    radius = int(4.0 * sigma + 0.5)
+    offsets = np.arange(-radius, radius + 1)
+    kernel = np.exp(-0.5 * (offsets / sigma) ** 2)
+    kernel /= kernel.sum()
+    return np.convolve(np.pad(x, radius, mode="edge"), kernel, mode="valid")
+
+
+def _runs(mask: np.ndarray) -> list[tuple[int, int]]:
+    """(first, last) index of every run of True in a 1-D mask, in order."""
+    edges = np.flatnonzero(np.diff(np.r_[0, mask.astype(np.int8), 0]))
+    return [(int(a), int(b) - 1) for a, b in zip(edges[::2], edges[1::2])]
+
+
 def find_tracks(image: np.ndarray, *, noise: float, min_contrast: float = 0.5) -> TrackLayout | None:
     """Bands of down-track activity of an image whose rows run along the tracks; None when there are none
     (no band stands above the background by ``min_contrast`` of its level and above twice the noise)."""
     u = np.asarray(image, float)
     d = np.diff(u, axis=1)
     power = np.mean(d * d, axis=1) - 2.0 * noise**2  # a difference of two pixels carries twice the noise
-    act = np.sqrt(np.clip(ndimage.gaussian_filter1d(power, 1.0, mode="nearest"), 0.0, None))
+    act = np.sqrt(np.clip(_gaussian_nearest(power, 1.0), 0.0, None))
     # the written width from each row's activity as it is: the power smoothed across a sharp edge is half the
     # plateau's there, whose root is 0.71, which moves both half crossings out (synthetic 380 nm tracks read
     # 385 nm, the simulated stage's 440 nm ones 458 nm; unsmoothed 380 and 440 nm). The bands keep the smoothed
@@ -105,12 +121,9 @@ def find_tracks(image: np.ndarray, *, noise: float, min_contrast: float = 0.5) -
         return None
     half = 0.5 * (lo + hi)
     above = act > half
-    labels, n = ndimage.label(above)
     rows = act.size
     raw = []
-    for lab in range(1, n + 1):
-        idx = np.flatnonzero(labels == lab)
-        first, last = int(idx[0]), int(idx[-1])
+    for first, last in _runs(above):
         plateau = float(np.median(act[first:last + 1]))
         raw.append((first, last, plateau))
     if not raw:

@@ -23,13 +23,22 @@ import numpy as np
 
 from .transfer import TrackResponse, track_transition_response, transition_response
 
-try:  # a transform length with small prime factors only (numpy's pocketfft is fast for those)
-    from scipy.fft import next_fast_len
-except ImportError:  # pragma: no cover
-    def next_fast_len(n: int) -> int:
-        return int(2 ** np.ceil(np.log2(n)))
-
 __all__ = ["TrackTransitions", "fit_track_transitions"]
+
+
+def next_fast_len(n: int) -> int:
+    """The smallest length >= ``n`` whose prime factors are all 2, 3, 5, 7 or 11 (numpy's pocketfft is fast on
+    those). The same lengths as ``scipy.fft.next_fast_len`` (checked in the tests), written here because loading
+    scipy.fft costs 0.15 s, half of what ``mfma analyze image`` spends on its fits."""
+    m = max(int(n), 1)
+    while True:
+        rest = m
+        for p in (2, 3, 5, 7, 11):
+            while rest % p == 0:
+                rest //= p
+        if rest == 1:
+            return m
+        m += 1
 
 
 @dataclass(frozen=True)
