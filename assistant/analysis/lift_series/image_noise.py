@@ -16,7 +16,6 @@ frequency aliases onto every frequency of it, so the band is then taken along th
 from __future__ import annotations
 
 import numpy as np
-from scipy import ndimage
 
 from assistant.analysis.quantitative import tukey  # the Tukey window (Harris 1978), shared with the TTF fit
 
@@ -30,6 +29,8 @@ def fill_missing(images: np.ndarray, valid: np.ndarray) -> np.ndarray:
     ok = np.asarray(valid, bool)
     if ok.all():
         return img
+    from scipy import ndimage  # here: loading it costs 0.04 s more than scipy.fft, and most series miss no pixel
+
     num = ndimage.gaussian_filter(np.where(ok, img, 0.0), sigma=(0, 2, 2), mode="reflect")
     den = ndimage.gaussian_filter(ok.astype(float), sigma=(0, 2, 2), mode="reflect")
     return np.where(ok, img, num / np.maximum(den, 1e-12))

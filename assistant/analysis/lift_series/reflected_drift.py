@@ -14,9 +14,9 @@ from __future__ import annotations
 
 import numpy as np
 from scipy import fft as sp_fft
-from scipy import ndimage
 
 from .continuation import ContinuationFit
+from .image_noise import fill_missing
 from .reflected import fit_continuation_reflected
 from .registration import average_biases
 
@@ -61,14 +61,15 @@ def reflect_align(images: np.ndarray, valid: np.ndarray, drift_px: np.ndarray):
     img = np.asarray(images, dtype=float)
     ok = np.asarray(valid, bool)
     d = np.asarray(drift_px, dtype=float).reshape(-1, 2)
-    if not ok.all():
-        num = ndimage.gaussian_filter(np.where(ok, img, 0.0), sigma=(0, 2, 2), mode="reflect")
-        den = ndimage.gaussian_filter(ok.astype(float), sigma=(0, 2, 2), mode="reflect")
-        img = np.where(ok, img, num / np.maximum(den, 1e-12))
+    img = fill_missing(img, ok)
     aligned = _reflect_shift_axis(_reflect_shift_axis(img, -d[:, 0], 1), -d[:, 1], 2)
     out_ok = ok.copy()
-    for i in np.nonzero(~ok.reshape(ok.shape[0], -1).all(axis=1))[0]:  # only images with holes
-        out_ok[i] = ndimage.shift(ok[i].astype(float), -d[i], order=1, mode="reflect") > 1.0 - 1e-6
+    holes = np.nonzero(~ok.reshape(ok.shape[0], -1).all(axis=1))[0]  # only images with holes
+    if holes.size:
+        from scipy import ndimage  # fill_missing has loaded it
+
+        for i in holes:
+            out_ok[i] = ndimage.shift(ok[i].astype(float), -d[i], order=1, mode="reflect") > 1.0 - 1e-6
     return aligned, out_ok
 
 

@@ -13,7 +13,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import ndimage
 
 from assistant.errors import InputError
 
@@ -68,6 +67,8 @@ def detect_tip_change(first_deg: np.ndarray, repeat_deg: np.ndarray, *, noise_de
     degrees a pixel, and a small shift between the passes read as a change over 3 % of the image.
     Thresholds: common practice, no source.
     """
+    from scipy import ndimage  # here: only a series with a repeat pass needs it (0.04 s to load)
+
     a = np.asarray(first_deg, float)
     b = np.asarray(repeat_deg, float)
     if a.shape != b.shape:
