@@ -144,6 +144,9 @@ def run(args) -> int:
         # the report's libraries (matplotlib and the analysis, about 0.5 s) load here, before any motion: a broken
         # install fails with the stage untouched, and no path spends that time between the analysis and the report
         import assistant.report.summary  # noqa: F401
+        from assistant.report.figure_jobs import start_early
+
+        start_early()  # the figure workers load matplotlib on the second core while the stage works
         with StageProgress() as progress:
             if args.resume:
                 return _resume(args, limits, progress, latch, tip)

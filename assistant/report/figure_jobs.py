@@ -8,17 +8,26 @@ calling process: a job's ``prepare`` step (reading, refitting) runs here and han
 to the writer, so no HDF5 handle ever crosses a process boundary, and the workers are forked from the clean
 server rather than from this process (which may hold open files and threads).
 
-The number of processes is ``MFMA_REPORT_PROCESSES`` (default 1: everything drawn in this process). Measured on two
-cores for the default run's ten figures, two workers were no faster than one process, whether the machine was busy
-or nearly idle (2.3-2.6 s against 2.3-2.5 s): their start (a fork server importing matplotlib and scipy, about a
-second) takes what the second core gives back. They can pay for reports with many more figures. As with any
+The number of processes is ``MFMA_REPORT_PROCESSES``; unset, it is 1 (everything drawn in this process) unless
+:func:`start_early` has started the fork server, and then 2. Measured on two cores for the default run's ten
+figures, two workers started with the report were no faster than one process, whether the machine was busy or
+nearly idle (2.3-2.6 s against 2.3-2.5 s): their start (a fork server importing matplotlib and scipy, about a
+second) takes what the second core gives back. ``mfma run`` therefore starts the server before the stage moves,
+and it imports on the second core while the simulated stage or the controller works; the report then draws on two
+warm workers (the default run's report phase 1.45-1.55 s against 1.77-2.01 s in one process, the whole run 5.0-5.1 s
+against 5.3-5.6 s). As with any
 ``forkserver`` or ``spawn`` pool, a script that builds a report must guard its entry point with
-``if __name__ == "__main__"``.
+``if __name__ == "__main__"``. The workers ignore Ctrl-C: the process that asked for the figures handles it and
+shuts the pool down. Should that process be killed outright, the workers leave within about a second, and the fork
+server with them (it ends once no process it served is left).
 """
 
 from __future__ import annotations
 
 import os
+import signal
+import threading
+import time
 from collections.abc import Callable
 from concurrent.futures import BrokenExecutor, Future, ProcessPoolExecutor
 from pathlib import Path
@@ -26,11 +35,17 @@ from pathlib import Path
 PROCESSES_ENV = "MFMA_REPORT_PROCESSES"
 
 
+_STARTED_EARLY = False  # set by start_early: the fork server of this process is running with its preload
+
+
 def report_processes() -> int:
-    """Worker processes for the figures: ``MFMA_REPORT_PROCESSES`` if set, else 1 (this process)."""
+    """Worker processes for the figures: ``MFMA_REPORT_PROCESSES`` if set, else 2 once :func:`start_early` has
+    started the fork server, else 1 (this process)."""
     text = os.environ.get(PROCESSES_ENV, "").strip()
+    if not text:
+        return 2 if _STARTED_EARLY else 1
     try:
-        return max(1, int(text)) if text else 1
+        return max(1, int(text))
     except ValueError:
         return 1
 
@@ -48,6 +63,65 @@ def _preload_finds_this_package() -> bool:
     here = Path(__file__).resolve().parents[1]
     there = Path.cwd() / here.name
     return not there.exists() or there.resolve() == here
+
+
+def _forkserver_context():
+    import multiprocessing
+
+    context = multiprocessing.get_context("forkserver")
+    # the server imports matplotlib and the figure modules once; each worker is a fork of it
+    context.set_forkserver_preload(_PRELOAD if _preload_finds_this_package() else [])
+    return context
+
+
+def start_early() -> bool:
+    """Start the workers' fork server now, so that it imports matplotlib and the figure writers on another core
+    while this process goes on; a report built later in this process then draws on two warm workers.
+
+    Does nothing (returns False) where ``MFMA_REPORT_PROCESSES`` is set, on one core, or where the server's preload
+    would not find this package (its workers would import everything themselves, which is what made two workers
+    no faster). Returns whether the server runs."""
+    global _STARTED_EARLY
+    if os.environ.get(PROCESSES_ENV, "").strip() or (os.cpu_count() or 1) < 2 or not _preload_finds_this_package():
+        return False
+    if not _STARTED_EARLY:
+        from multiprocessing import forkserver
+
+        try:
+            _forkserver_context()
+            forkserver.ensure_running()
+        except (OSError, ValueError):  # no server: the report draws in this process, as without this call
+            return False
+        _STARTED_EARLY = True
+    return True
+
+
+def _worker_start(owner_pid: int) -> None:
+    """A worker's start. Ctrl-C is for the process that asked for the figures (it shuts the pool down). A worker
+    also leaves once that process is gone: killed outright (SIGKILL) it cannot shut the pool down, and a worker
+    waiting for its next figure would otherwise wait for ever (and keep the fork server alive with it)."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    threading.Thread(target=_leave_with, args=(owner_pid,), name="leave-with-owner", daemon=True).start()
+
+
+def _gone(pid: int) -> bool:
+    """Whether process ``pid`` has ended: it no longer exists, its number went to another user's process, or it is
+    a zombie (ended, not yet collected by its parent; Linux's /proc tells)."""
+    try:
+        os.kill(pid, 0)  # signal 0: only asks whether the process exists
+    except (ProcessLookupError, PermissionError):
+        return True
+    try:
+        with open(f"/proc/{pid}/stat", encoding="ascii", errors="replace") as f:
+            return f.read().rsplit(")", 1)[1].split()[0] == "Z"
+    except (OSError, IndexError):
+        return False
+
+
+def _leave_with(owner_pid: int, period_s: float = 0.5) -> None:
+    while not _gone(owner_pid):
+        time.sleep(period_s)
+    os._exit(1)
 
 
 class Job:
@@ -89,12 +163,8 @@ class FigureJobs:
 
     def _executor(self) -> ProcessPoolExecutor:
         if self._pool is None:
-            import multiprocessing
-
-            context = multiprocessing.get_context("forkserver")
-            # the server imports matplotlib and the figure modules once; each worker is a fork of it
-            context.set_forkserver_preload(_PRELOAD if _preload_finds_this_package() else [])
-            self._pool = ProcessPoolExecutor(self.processes, mp_context=context)
+            self._pool = ProcessPoolExecutor(self.processes, mp_context=_forkserver_context(),
+                                             initializer=_worker_start, initargs=(os.getpid(),))
         return self._pool
 
     def submit(self, what: str, prepare: Callable[[], tuple]) -> Job:

@@ -67,3 +67,75 @@ def test_the_fork_server_preloads_only_where_it_would_import_this_package(tmp_pa
     assert figure_jobs._preload_finds_this_package()
     (tmp_path / "assistant").mkdir()  # a checkout of another version in the current folder
     assert not figure_jobs._preload_finds_this_package()
+
+
+def test_start_early_gives_two_warm_workers_unless_told_otherwise(tmp_path, monkeypatch):
+    from assistant.report import figure_jobs
+
+    monkeypatch.setattr(figure_jobs, "_STARTED_EARLY", False)  # put back after the test
+    monkeypatch.setattr(figure_jobs.os, "cpu_count", lambda: 1)
+    monkeypatch.delenv("MFMA_REPORT_PROCESSES")
+    assert not figure_jobs.start_early() and report_processes() == 1  # one core: nothing to gain
+    monkeypatch.setattr(figure_jobs.os, "cpu_count", lambda: 2)
+    monkeypatch.setenv("MFMA_REPORT_PROCESSES", "1")
+    assert not figure_jobs.start_early() and report_processes() == 1  # the user's setting wins
+    monkeypatch.delenv("MFMA_REPORT_PROCESSES")
+    assert figure_jobs.start_early() and report_processes() == 2
+    notes: list[str] = []
+    with FigureJobs() as jobs:
+        assert jobs.processes == 2
+        handles = [jobs.submit(f"topography {i}", lambda i=i: _topography_job(tmp_path / f"t{i}.png")) for i in range(3)]
+        assert all(job.future is not None for job in handles)
+        found = [p for job in handles for p in jobs.paths(job, notes)]
+    assert [p.name for p in found] == ["t0.png", "t1.png", "t2.png"] and notes == []
+
+
+def _running(pid: int) -> bool:
+    from assistant.report.figure_jobs import _gone
+
+    return not _gone(pid)
+
+
+def test_a_worker_waits_for_its_owner_and_leaves_when_it_is_gone():
+    import subprocess
+    import sys
+    import time
+
+    owner = subprocess.Popen([sys.executable, "-c", "import time; time.sleep(0.6)"])
+    watcher = subprocess.Popen([sys.executable, "-c", "import sys; from assistant.report.figure_jobs import "
+                                "_leave_with; _leave_with(int(sys.argv[1]), 0.05)", str(owner.pid)])
+    time.sleep(0.3)
+    assert watcher.poll() is None  # the owner still runs
+    owner.wait()
+    assert watcher.wait(10) == 1
+
+
+def test_workers_of_a_killed_report_leave(tmp_path):
+    # SIGKILL to the process that asked for the figures: it cannot shut its pool down, so the workers must notice
+    import subprocess
+    import sys
+    import time
+
+    script = tmp_path / "owner.py"
+    script.write_text(
+        "import os, signal, sys\n"
+        "from multiprocessing import forkserver\n"
+        "from assistant.report.figure_jobs import FigureJobs\n"
+        "if __name__ == '__main__':\n"
+        "    jobs = FigureJobs(2)\n"
+        "    import time\n"
+        "    for f in [jobs._executor().submit(time.sleep, 0.3) for _ in range(2)]:\n"
+        "        f.result()  # both workers are up\n"
+        "    print(*jobs._pool._processes, forkserver._forkserver._forkserver_pid, flush=True)\n"
+        "    os.kill(os.getpid(), signal.SIGKILL)\n")
+    out = tmp_path / "pids.txt"
+    with open(out, "w") as f:  # a file, not a pipe: a worker left behind would hold a pipe open
+        owner = subprocess.run([sys.executable, str(script)], stdout=f, stderr=subprocess.DEVNULL, timeout=60,
+                               cwd=Path(__file__).resolve().parents[2])
+    assert owner.returncode == -9
+    pids = [int(p) for p in out.read_text().split()]
+    assert len(pids) == 3
+    deadline = time.monotonic() + 10.0
+    while any(_running(p) for p in pids) and time.monotonic() < deadline:
+        time.sleep(0.1)
+    assert not [p for p in pids if _running(p)]
