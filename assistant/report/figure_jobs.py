@@ -171,8 +171,15 @@ class FigureJobs:
         job = Job(what, prepare)
         if self.processes > 1:
             try:
+                pool = self._executor()
+            except (OSError, ImportError, ValueError):  # no process pool on this system (e.g. no semaphores)
+                self.processes = 1  # every figure is drawn here, as with MFMA_REPORT_PROCESSES=1
+                return job
+            try:
                 writer, args, kwargs = prepare()
-                job.future = self._executor().submit(_run, writer, args, kwargs)
+                job.future = pool.submit(_run, writer, args, kwargs)
+            except BrokenExecutor:  # a worker died: this figure is drawn here when asked for
+                job.future = None
             except Exception as exc:
                 job.error = exc
         return job

@@ -139,3 +139,19 @@ def test_workers_of_a_killed_report_leave(tmp_path):
     while any(_running(p) for p in pids) and time.monotonic() < deadline:
         time.sleep(0.1)
     assert not [p for p in pids if _running(p)]
+
+
+def test_without_a_process_pool_the_figures_are_drawn_here(tmp_path, monkeypatch):
+    # a system without working semaphores (or without fork servers) cannot start the pool: nothing is lost
+    from assistant.report import figure_jobs
+
+    def no_pool():
+        raise OSError("this platform lacks a functioning sem_open implementation")
+
+    monkeypatch.setattr(figure_jobs, "_forkserver_context", no_pool)
+    notes: list[str] = []
+    with FigureJobs(2) as jobs:
+        handles = [jobs.submit(f"topography {i}", lambda i=i: _topography_job(tmp_path / f"t{i}.png")) for i in range(2)]
+        assert jobs.processes == 1 and all(job.future is None for job in handles)
+        found = [p for job in handles for p in jobs.paths(job, notes)]
+    assert [p.name for p in found] == ["t0.png", "t1.png"] and notes == []
