@@ -19,6 +19,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..lift_series import fit_mean_bias_grid
+from ..lift_series.image_means import plus_minus
 from .errors import ImagingInputError
 
 __all__ = ["BiasParabola", "fit_bias_parabola"]
@@ -121,7 +122,8 @@ def fit_bias_parabola(stack, *, bias_v, attractive_sign: float = 1.0, min_signif
     significant = bool(np.all(np.isfinite(a_sd))) and bool(np.any(signed > min_significance * a_sd))
     if significant:
         cpd, cpd_sd = vertex, vertex_sd
-        sentence = (f"V_cpd = {cpd:.4g} ± {cpd_sd:.2g} V from the parabola of the image mean over {nb} biases"
+        sentence = (f"V_cpd = {plus_minus(1e3 * cpd, 1e3 * cpd_sd)} mV from the parabola of the image mean over "
+                    f"{nb} biases"
                     + (f" (common vertex at {nh} heights)" if nh > 1 else "") + "; error from the scatter of "
                     f"{int(n_lines.sum())} line means"
                     + (f", widened by the parabola's misfit (reduced chi-square {reduced:.3g})." if misfit

@@ -23,7 +23,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .image_means import _vertex_chi2
+from .image_means import _vertex_chi2, cpd_sentence, plus_minus
 from .phase import SignalSpace
 
 __all__ = ["DriveOffset", "fit_drive_offset", "with_offset_error", "drive_offset_sentence"]
@@ -175,13 +175,17 @@ def with_offset_error(a, lo, hi, found: DriveOffset, space: SignalSpace):
             var = var - 2.0 * (change / sd) * sensitivity * np.asarray(getattr(a, std_name)) ** 2 / slope
         return np.sqrt(np.clip(var, 0.0, None))
 
+    cpd_std_v = float(wider("cpd_v", "cpd_std_v"))
+    biases = np.asarray(a.bias_v).size
     return dataclasses.replace(
-        a, magnetic_rms_std_deg=wider("magnetic_rms_deg", "magnetic_rms_std_deg"),
+        a, separability_sentence=a.separability_sentence.replace(
+            cpd_sentence(biases, a.cpd_v, a.cpd_std_v), cpd_sentence(biases, a.cpd_v, cpd_std_v), 1),
+        magnetic_rms_std_deg=wider("magnetic_rms_deg", "magnetic_rms_std_deg"),
         electrostatic_mean_std_deg=wider("electrostatic_mean_deg", "electrostatic_mean_std_deg"),
         short_range_mean_std_deg=wider("short_range_mean_deg", "short_range_mean_std_deg"),
         nonmagnetic_mean_std_deg=wider("nonmagnetic_mean_deg", "nonmagnetic_mean_std_deg", found.sensitivity_deg),
         mean_phase_std_deg=wider("mean_phase_deg", "mean_phase_std_deg", found.sensitivity_deg),
-        cpd_std_v=float(wider("cpd_v", "cpd_std_v")))
+        cpd_std_v=cpd_std_v)
 
 
 def drive_offset_sentence(found: DriveOffset, *, quality_factor: float, resonance_hz: float | None) -> str:
@@ -192,20 +196,17 @@ def drive_offset_sentence(found: DriveOffset, *, quality_factor: float, resonanc
     # f_drive - f0 = -f0 tan(offset) / (2 Q), to first order in the detuning
     if resonance_hz:
         off, sd = -resonance_hz * t / (2.0 * quality_factor), resonance_hz * t_sd / (2.0 * quality_factor)
-        where = f"{_pm(abs(off), sd)} Hz {'below' if off < 0 else 'above'}"
+        where = f"{plus_minus(abs(off), sd)} Hz {'below' if off < 0 else 'above'}"
     else:
         share = -t / 2.0
-        where = f"{_pm(100 * abs(share), 50 * t_sd)} % of the line width f0/Q {'below' if share < 0 else 'above'}"
+        side = "below" if share < 0 else "above"
+        where = f"{plus_minus(100 * abs(share), 50 * t_sd)} % of the line width f0/Q {side}"
     sign = "+" if found.offset_deg >= 0 else "-"
-    offset = _pm(abs(found.offset_deg), found.offset_std_deg)
+    offset = plus_minus(abs(found.offset_deg), found.offset_std_deg)
     return (f" The free lever's phase at the drive is {sign}{offset} deg from quadrature (the drive {where} the "
             "resonance), read from the bias dependence of the image means; every "
             f"phase was inverted with it (parabolas' reduced chi-square {found.reduced_chi2_before:.3g} without it, "
-            f"{found.reduced_chi2_after:.3g} with it). The errors above are those at that offset; the results' "
-            "errors also hold the offset's own.")
+            f"{found.reduced_chi2_after:.3g} with it). The errors stated hold the offset's own "
+            "error.")
 
 
-def _pm(value: float, std: float) -> str:
-    """``value ± std`` with the standard error to two significant digits and the value to the same place."""
-    places = max(0, 1 - int(np.floor(np.log10(std)))) if std > 0 else 3
-    return f"{value:.{places}f} ± {std:.{places}f}"

@@ -179,6 +179,16 @@ def fit_mean_bias_grid(mean, mean_std, *, bias_v) -> MeanFit:
     corr = cov_ec / np.where(es_sd[:, 0] * sr_sd > 0, es_sd[:, 0] * sr_sd, 1.0)
     params = np.concatenate([[v0], a, c])
     cpd_sd = float(np.sqrt(cov[0, 0]))
-    sentence = (f"The bias grid ({nb} biases) separates the electrostatic part: V_cpd = {v0:.4g} ± {cpd_sd:.2g} V; "
-                "the remainder at V_cpd is short-range.")
-    return MeanFit(es, es_sd, c, sr_sd, corr, params, cov, True, sentence, v0, cpd_sd, red)
+    return MeanFit(es, es_sd, c, sr_sd, corr, params, cov, True, cpd_sentence(nb, v0, cpd_sd), v0, cpd_sd, red)
+
+
+def cpd_sentence(biases: int, cpd_v: float, cpd_std_v: float) -> str:
+    """What a bias grid's parabolas give: V_cpd in millivolts, to the place of its standard error."""
+    return (f"The bias grid ({biases} biases) separates the electrostatic part: V_cpd = "
+            f"{plus_minus(1e3 * cpd_v, 1e3 * cpd_std_v)} mV; the remainder at V_cpd is short-range.")
+
+
+def plus_minus(value: float, std: float) -> str:
+    """``value ± std`` with the standard error to two significant digits and the value to the same place."""
+    places = max(0, 1 - int(np.floor(np.log10(std)))) if std > 0 and np.isfinite(std) else 3
+    return f"{value:.{places}f} ± {std:.{places}f}"

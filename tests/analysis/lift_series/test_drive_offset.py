@@ -16,6 +16,7 @@ import pytest
 
 from assistant.analysis.lift_series import analyse_series
 from assistant.analysis.lift_series.drive_offset import DriveOffset, drive_offset_sentence
+from assistant.analysis.lift_series.image_means import plus_minus
 from assistant.analysis.lift_series.phase import SignalSpace, gradient_from_phase_deg, phase_deg_from_gradient
 from tests.analysis.lift_series.synthetic_series import build_series
 
@@ -167,3 +168,14 @@ def test_the_offset_error_is_in_the_errors_of_what_was_inverted_with_it(monkeypa
     assert np.all(a.electrostatic_mean_std_deg[0] > 1.5 * b.electrostatic_mean_std_deg[0])
     assert a.cpd_std_v > b.cpd_std_v and np.all(a.magnetic_rms_std_deg >= b.magnetic_rms_std_deg)
     assert np.allclose(a.electrostatic_mean_deg, b.electrostatic_mean_deg, rtol=0, atol=1e-12)
+    # the sentence states the error the results hold, the offset's share included
+    for x in (a, b):
+        assert f"V_cpd = {plus_minus(1e3 * x.cpd_v, 1e3 * x.cpd_std_v)} mV;" in x.separability_sentence
+    assert plus_minus(1e3 * a.cpd_v, 1e3 * a.cpd_std_v) != plus_minus(1e3 * b.cpd_v, 1e3 * b.cpd_std_v)
+
+
+def test_plus_minus_writes_the_value_to_the_place_of_its_error():
+    assert plus_minus(352.0056, 0.0488) == "352.006 ± 0.049"
+    assert plus_minus(198.29, 1.4) == "198.3 ± 1.4"
+    assert plus_minus(1.0695, 0.03) == "1.069 ± 0.030"
+    assert plus_minus(2.0, 0.0) == "2.000 ± 0.000" and plus_minus(2.0, float("nan")) == "2.000 ± nan"
