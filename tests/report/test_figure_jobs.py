@@ -84,7 +84,8 @@ def test_start_early_gives_two_warm_workers_unless_told_otherwise(tmp_path, monk
     notes: list[str] = []
     with FigureJobs() as jobs:
         assert jobs.processes == 2
-        handles = [jobs.submit(f"topography {i}", lambda i=i: _topography_job(tmp_path / f"t{i}.png")) for i in range(3)]
+        handles = [jobs.submit(f"topography {i}", lambda i=i: _topography_job(tmp_path / f"t{i}.png"))
+                   for i in range(3)]
         assert all(job.future is not None for job in handles)
         found = [p for job in handles for p in jobs.paths(job, notes)]
     assert [p.name for p in found] == ["t0.png", "t1.png", "t2.png"] and notes == []
@@ -151,7 +152,8 @@ def test_without_a_process_pool_the_figures_are_drawn_here(tmp_path, monkeypatch
     monkeypatch.setattr(figure_jobs, "_forkserver_context", no_pool)
     notes: list[str] = []
     with FigureJobs(2) as jobs:
-        handles = [jobs.submit(f"topography {i}", lambda i=i: _topography_job(tmp_path / f"t{i}.png")) for i in range(2)]
+        handles = [jobs.submit(f"topography {i}", lambda i=i: _topography_job(tmp_path / f"t{i}.png"))
+                   for i in range(2)]
         assert jobs.processes == 1 and all(job.future is None for job in handles)
         found = [p for job in handles for p in jobs.paths(job, notes)]
     assert [p.name for p in found] == ["t0.png", "t1.png"] and notes == []
