@@ -14,7 +14,7 @@ figures, two workers started with the report were no faster than one process, wh
 nearly idle (2.3-2.6 s against 2.3-2.5 s): their start (a fork server importing matplotlib and scipy, about a
 second) takes what the second core gives back. ``mfma run`` therefore starts the server before the stage moves,
 and it imports on the second core while the simulated stage or the controller works; the report then draws on two
-warm workers (the default run's report phase 1.45-1.55 s against 1.77-2.01 s in one process, the whole run 5.0-5.1 s
+warm workers (the default run's report phase 1.45-1.72 s against 1.77-2.01 s in one process, the whole run 5.0-5.1 s
 against 5.3-5.6 s). As with any
 ``forkserver`` or ``spawn`` pool, a script that builds a report must guard its entry point with
 ``if __name__ == "__main__"``. The workers ignore Ctrl-C: the process that asked for the figures handles it and
