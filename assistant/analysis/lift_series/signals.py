@@ -22,7 +22,6 @@ __all__ = ["SeriesSignals", "series_signals", "mean_pixels"]
 class SeriesSignals:
     """The series in signal units (``H * B`` images, height-major)."""
 
-    sig: np.ndarray          # (H, B, rows, cols) every pixel in signal units
     means: np.ndarray        # (H, B) each image's mean over the pixels valid at every bias of its height
     n_ok: np.ndarray         # (H, B) how many pixels entered it
     mean_sd: np.ndarray      # (H, B) its standard error from the noise
@@ -77,4 +76,4 @@ def series_signals(s4, ok, space: SignalSpace, *, heights_m, pixel_m, edge: str,
     image_var = np.tile(phase_var, nh) * gain
     image_var = np.maximum(image_var, 1e-24 * float(np.mean(centred**2)) + 1e-300)  # noise-free data: finite weights
     mean_sd = np.sqrt(image_var.reshape(nh, nb)) / np.sqrt(n_ok)
-    return SeriesSignals(sig, means, n_ok, mean_sd, flat, src, okf, image_var, dof, tuple(alias_axes))
+    return SeriesSignals(means, n_ok, mean_sd, flat, src, okf, image_var, dof, tuple(alias_axes))
