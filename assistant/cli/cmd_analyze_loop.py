@@ -12,10 +12,11 @@ def run(args) -> int:
 
     from assistant.cli.cmd_analyze import _existing, _is_hdf5
     from assistant.procedures.analyse_loop import analyse_npz, analyse_stored
-    from assistant.storage import SessionFile
 
     p = _existing(args.file)
     if _is_hdf5(p):
+        from assistant.storage import SessionFile  # h5py: 0.03 s to load, which a .npz stack does without
+
         with SessionFile.open(p, "r") as sf:
             result = analyse_stored(sf, args.field_series, write=False, tip_moment=args.tip_moment)
             phase = sf.read_field_series(args.field_series or sf.field_series_names()[-1]).phase_deg

@@ -225,3 +225,19 @@ def test_a_tip_close_to_the_film_switches_elements_and_is_reported(tmp_path, cap
     loop = json.loads(out)["loop"]
     assert len(loop["tip_switched_elements"]) >= 2
     assert "switched" in err and "lower-moment tip" in err
+
+
+def test_analyze_loop_of_a_stack_file_loads_no_hdf5_library(tmp_path, stack):
+    # h5py (0.03 s to load) is for session files only; a .npz stack is read with numpy alone
+    import os
+    import subprocess
+
+    code = ("import sys, io, contextlib\n"
+            "from assistant.cli import main\n"
+            "with contextlib.redirect_stdout(io.StringIO()):\n"
+            "    assert main(['analyze', 'loop', sys.argv[1], '--json']) == 0\n"
+            "print('h5py' in sys.modules)\n")
+    out = subprocess.run([sys.executable, "-c", code, str(_npz(tmp_path / "s.npz", stack))], capture_output=True,
+                         text=True, check=True, cwd=Path(__file__).parents[2],
+                         env={**os.environ, "MFMA_DATA_DIR": str(tmp_path / "data")})
+    assert out.stdout.strip().splitlines()[-1] == "False", out.stdout + out.stderr
