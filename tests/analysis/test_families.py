@@ -133,9 +133,10 @@ def test_every_public_name_of_a_family_is_found(family):
 
 def test_commands_load_only_what_they_use(tmp_path):
     # measured as whole processes (tests/benchmarks/bench_commands.py): scipy.optimize alone takes 0.2 s to load,
-    # numpy 0.1 s, scipy.ndimage 0.04 s beyond scipy.fft. A heights-only decomposition fits nothing with
-    # scipy.optimize and, without missing pixels or a repeat pass, filters nothing with scipy.ndimage; and
-    # `mfma probes --json` has no numpy value to write, so none of them may load those
+    # scipy.fft 0.15-0.2 s, numpy 0.1 s, scipy.ndimage 0.04 s beyond scipy.fft. A heights-only decomposition with
+    # the reflected fit fits nothing with scipy.optimize, takes its cosine transforms from numpy's FFT and,
+    # without missing pixels or a repeat pass, filters nothing with scipy.ndimage; and `mfma probes --json` has
+    # no numpy value to write, so none of them may load those
     import numpy as np
 
     from tests.analysis.lift_series.synthetic_series import build_series
@@ -148,7 +149,7 @@ def test_commands_load_only_what_they_use(tmp_path):
             "def run(*argv):\n"
             "    with contextlib.redirect_stdout(io.StringIO()):\n"
             "        assert main(list(argv)) == 0\n"
-            "    return [m for m in ('numpy', 'scipy.optimize', 'scipy.ndimage') if m in sys.modules]\n"
+            "    return [m for m in ('numpy', 'scipy.optimize', 'scipy.ndimage', 'scipy.fft') if m in sys.modules]\n"
             "print(run('probes', '--json'), run('analyze', 'series', sys.argv[1], '--json'))\n")
     env = {**os.environ, "MFMA_DATA_DIR": str(tmp_path / "data")}
     out = subprocess.run([sys.executable, "-c", code, str(tmp_path / "s.npz")], capture_output=True, text=True,

@@ -12,7 +12,6 @@ from .noise_floor import periodic_component_of
 from .periodic import fit_with_drift_periodic
 from .reflected_drift import fit_with_drift_reflected
 from .registration import align_stack, shift_from_spectra
-from .windowed import WINDOW_SOLVE, fit_continuation_windowed
 
 __all__ = ["fit_magnetic"]
 
@@ -51,7 +50,10 @@ def fit_magnetic(flat, okf, h, pixel_m, *, nb: int, edge: str, band: int, regist
     if edge == "periodic":
         return fit, drift, aligned, valid
     # final fit on the raw images: drift in the model, the seam and wrapped borders never fitted; weights
-    # from the measured noise of one image per height
+    # from the measured noise of one image per height. Loaded here: it needs scipy.fft, which the other two
+    # estimators do without
+    from .windowed import WINDOW_SOLVE, fit_continuation_windowed
+
     fit = fit_continuation_windowed(flat, heights_m=h, pixel_m=pixel_m, height_index=np.repeat(np.arange(nh), nb),
                                     drift_px=drift, valid=okf, noise_std=np.sqrt(height_var * nb),
                                     drift_tol_px=5e-4, **WINDOW_SOLVE)

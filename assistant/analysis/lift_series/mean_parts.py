@@ -25,7 +25,8 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import fft as sp_fft
+
+from assistant.analysis.cosine import dctn
 
 from . import image_mean_models as lm
 from .image_means import fit_mean_bias_grid
@@ -112,7 +113,7 @@ def magnetic_window_mean_cov(model: np.ndarray) -> np.ndarray:
     """
     m = np.asarray(model, dtype=np.float32)
     nh, rows, cols = m.shape
-    c = sp_fft.dctn(m, type=2, axes=(-2, -1), norm="ortho").reshape(nh, -1).astype(np.float64)
+    c = dctn(m).reshape(nh, -1).astype(np.float64)
     w = np.multiply.outer(_leakage(rows), _leakage(cols)).ravel()
     w[0] = 0.0
     w /= w.sum()

@@ -23,8 +23,8 @@ and removes the misfit, at about three times the whole analysis's time.
 from __future__ import annotations
 
 import numpy as np
-from scipy import fft as sp_fft
 
+from assistant.analysis.cosine import dctn, idctn
 from assistant.errors import InputError
 
 from .continuation import ContinuationFit
@@ -248,13 +248,12 @@ def fit_continuation_reflected(stack: np.ndarray, *, heights_m, pixel_m, valid: 
     resid = np.empty((nh, rows, cols), np.float32)
 
     def transform(x):
-        cells = sp_fft.dctn(x.astype(np.float32), type=2, axes=(-2, -1), norm="ortho",
-                            overwrite_x=True).reshape(nh, n)
+        cells = dctn(x.astype(np.float32)).reshape(nh, n)
         cells[:, 0] = 0.0
         return cells
 
     def inverse(cells):
-        return sp_fft.idctn(cells.reshape(nh, rows, cols), type=2, axes=(-2, -1), norm="ortho")
+        return idctn(cells.reshape(nh, rows, cols))
 
     def fit(f, w):
         ridge = np.array([0.0] + [alias_ridge * float(w.mean())] * (nk - 1), dtype=np.float32)

@@ -10,7 +10,8 @@ used to debias a power, and the leverage of an image on the model it is register
 from __future__ import annotations
 
 import numpy as np
-from scipy import fft as sp_fft
+
+from assistant.analysis.cosine import dctn
 
 __all__ = ["interior_power_variance", "drift_covariance"]
 
@@ -60,7 +61,7 @@ def interior_power_variance(model: np.ndarray, cell_variance: np.ndarray, cell_w
     n_i = core[0].size
     masked = np.zeros(model.shape, dtype=np.float32)
     masked[:, b:rows - b, b:cols - b] = core - core.mean(axis=(1, 2), keepdims=True)
-    cells = sp_fft.dctn(masked, type=2, axes=(-2, -1), norm="ortho", overwrite_x=True).reshape(nh, n)
+    cells = dctn(masked).reshape(nh, n)
     v = np.asarray(cell_variance)
     cells *= cells
     cross = 4.0 * np.einsum("hq,hq->h", v, cells, dtype=np.float64) / n_i**2
@@ -133,8 +134,8 @@ def drift_covariance(model: np.ndarray, decay: np.ndarray, image_weight: np.ndar
         inner[:, b:rows - b, b:cols - b] = core - core.mean(axis=(1, 2), keepdims=True)
         jj = np.einsum("hij,hij->h", inner, inner, dtype=np.float64)      # <J, J> per height
         jt = np.einsum("hij,hij->h", inner, full, dtype=np.float64)       # <J, T>
-        x = sp_fft.dctn(inner, type=2, axes=(-2, -1), norm="ortho").reshape(nh, -1).astype(np.float64)
-        y = sp_fft.dctn(full, type=2, axes=(-2, -1), norm="ortho").reshape(nh, -1).astype(np.float64)
+        x = dctn(inner).reshape(nh, -1).astype(np.float64)
+        y = dctn(full).reshape(nh, -1).astype(np.float64)
         xe = x[hi] * e[hi]                                                # (J, Q)
         ye = y[hi] * e[hi]
         g = -np.einsum("iq,jq,q->ij", xe, ye, inv_s) * wi[None, :]

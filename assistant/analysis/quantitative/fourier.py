@@ -11,6 +11,7 @@ import math
 
 import numpy as np
 
+from assistant.analysis.cosine import dctn, idctn
 from assistant.errors import InputError
 
 __all__ = ["SpectralGrid", "pixel_pair", "wavenumbers", "ring_edges", "ring_index", "tukey", "tukey_2d", "half_plane_weight"]
@@ -90,9 +91,9 @@ class SpectralGrid:
     product in this basis is the convolution of the reflected scan). Both carry |k|, the cell-average sinc and
     the weights that make sum(weight |X|^2) the full-plane power.
 
-    ``scipy_fft``: take the cosine transforms from scipy.fft (3-4x faster each, but loading it costs 0.12-0.15 s
-    in a process without scipy) instead of numpy's FFT; for callers that run many transforms and load scipy
-    anyway. The two agree to 3e-15."""
+    ``scipy_fft``: take the cosine transforms from scipy.fft (2-3x faster each, but loading it costs 0.15-0.2 s
+    in a process without scipy) instead of :mod:`assistant.analysis.cosine` (numpy's FFT); for callers that run
+    many transforms and load scipy anyway. The two agree to 3e-15."""
 
     def __init__(self, shape: tuple[int, int], pixel_m: float | tuple[float, float], *, periodic: bool,
                  scipy_fft: bool = False) -> None:
@@ -125,47 +126,14 @@ class SpectralGrid:
         if self.periodic:
             return np.fft.rfft2(a)
         if self.scipy_fft:
-            from scipy.fft import dctn
-            return dctn(a, type=2, norm="ortho", axes=(-2, -1))
-        return _dct_ortho(_dct_ortho(a, -1), -2)
+            from scipy.fft import dctn as scipy_dctn
+            return scipy_dctn(a, type=2, norm="ortho", axes=(-2, -1))
+        return dctn(a)
 
     def inverse(self, spec: np.ndarray) -> np.ndarray:
         if self.periodic:
             return np.fft.irfft2(spec, s=self.shape)
         if self.scipy_fft:
-            from scipy.fft import idctn
-            return idctn(spec, type=2, norm="ortho", axes=(-2, -1))
-        return np.ascontiguousarray(_idct_ortho(_idct_ortho(spec, -1), -2))
-
-
-# The orthonormal DCT-II and its inverse along one axis, through numpy's FFT of the sequence followed by its mirror
-# image (length 2N): y_k = 2 sum_n x_n cos(pi k (2n + 1) / 2N) = Re(exp(-i pi k / 2N) FFT(x, reversed x)_k), which
-# follows from writing the cosine as two exponentials; orthonormal scale sqrt(1 / 2N), and sqrt(1 / 4N) for k = 0.
-# The inverse runs the same identity backwards through irfft. Checked against scipy.fft.dctn / idctn (type 2,
-# "ortho") in tests/analysis/quantitative/test_fourier.py. Used where scipy is not loaded otherwise: loading
-# scipy.fft costs 0.12-0.15 s, more than `analyze field` spends on all its transforms (on 256 x 256 the command
-# took 0.38 s with scipy's, 0.28 s with these).
-def _dct_ortho(a: np.ndarray, axis: int) -> np.ndarray:
-    a = np.moveaxis(a, axis, -1)
-    n = a.shape[-1]
-    spec = np.fft.rfft(np.concatenate([a, a[..., ::-1]], axis=-1), axis=-1)[..., :n]
-    scale = np.exp(-0.5j * np.pi * np.arange(n) / n) * math.sqrt(0.5 / n)
-    scale[0] *= math.sqrt(0.5)
-    return np.moveaxis((spec * scale.astype(spec.dtype)).real, -1, axis)
-
-
-def _idct_ortho(c: np.ndarray, axis: int) -> np.ndarray:
-    n = c.shape[axis]
-    along = [1] * c.ndim
-    along[axis] = n
-    angle = 0.5 * np.pi * np.arange(n) / n
-    norm = np.full(n, math.sqrt(2.0 * n))
-    norm[0] *= math.sqrt(2.0)
-    shape = list(c.shape)
-    shape[axis] = n + 1
-    spec = np.zeros(shape, dtype=np.result_type(c.dtype, np.complex64))
-    first_n = tuple(slice(0, n) if i == axis % c.ndim else slice(None) for i in range(c.ndim))
-    # real and imaginary parts written apart: a complex product would first copy c to complex
-    np.multiply(c, (np.cos(angle) * norm).astype(c.dtype).reshape(along), out=spec.real[first_n])
-    np.multiply(c, (np.sin(angle) * norm).astype(c.dtype).reshape(along), out=spec.imag[first_n])
-    return np.fft.irfft(spec, n=2 * n, axis=axis)[first_n]
+            from scipy.fft import idctn as scipy_idctn
+            return scipy_idctn(spec, type=2, norm="ortho", axes=(-2, -1))
+        return idctn(spec)
