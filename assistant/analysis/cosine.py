@@ -4,8 +4,8 @@ The same transform as ``scipy.fft.dctn`` / ``idctn`` with ``type=2, norm="ortho"
 ``tests/analysis/test_cosine.py``). Written here because loading scipy.fft costs 0.15-0.2 s of a command's start,
 more than the transforms of a lift-height series analysis take.
 
-Each axis goes through one real FFT of its own length (Makhoul 1980, IEEE Trans. ASSP 28, 27): the even samples
-in order followed by the odd ones reversed, ``v = (x_0, x_2, ..., x_3, x_1)``, has the DFT ``V`` with
+Each axis goes through one real FFT of its own length (Makhoul 1980, IEEE Trans. ASSP 28, 27; from memory): the
+even samples in order followed by the odd ones reversed, ``v = (x_0, x_2, ..., x_3, x_1)``, has the DFT ``V`` with
 ``y_k = 2 sum_n x_n cos(pi k (2n + 1) / 2N) = 2 Re(exp(-i pi k / 2N) V_k)``. ``v`` is real, so ``V_{N-k}`` is the
 conjugate of ``V_k``, and with ``Z_k = exp(-i pi k / 2N) V_k`` on the half spectrum ``k = 0 .. N//2`` every output
 is at hand: ``y_k = 2 Re Z_k`` and ``y_{N-k} = -2 Im Z_k``. The inverse runs it backwards:

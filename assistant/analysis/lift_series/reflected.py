@@ -120,9 +120,10 @@ def _noise_from_moments(m, r2):
 
     Solving ``M sigma^2 = r2`` outright is ill-conditioned where the heights share most of their residual
     (with alias fields on a simulated series of seven heights it alternated between heights at 2-4x the
-    noise and heights at the floor). Instead: every height's noise as if all were alike, ``r2_h / sum_j M_hj``, then, where the
-    height's own noise makes at least half of its expected residual, one step that takes the others' share
-    out, ``(r2_h - sum_{j != h} M_hj s_j^2) / M_hh``, blended in smoothly as that share grows from 40 to 60 %.
+    noise and heights at the floor). Instead: every height's noise as if all were alike, ``r2_h / sum_j M_hj``,
+    then, where the height's own noise makes at least half of its expected residual, one step that takes the
+    others' share out, ``(r2_h - sum_{j != h} M_hj s_j^2) / M_hh``, blended in smoothly as that share grows from
+    40 to 60 %.
     The lowest height, whose residual is mostly the other heights' noise continued down, keeps the first
     estimate.
     """

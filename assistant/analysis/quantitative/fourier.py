@@ -14,7 +14,8 @@ import numpy as np
 from assistant.analysis.cosine import dctn, idctn
 from assistant.errors import InputError
 
-__all__ = ["SpectralGrid", "pixel_pair", "wavenumbers", "ring_edges", "ring_index", "tukey", "tukey_2d", "half_plane_weight"]
+__all__ = ["SpectralGrid", "pixel_pair", "wavenumbers", "ring_edges", "ring_index", "tukey", "tukey_2d",
+           "half_plane_weight"]
 
 
 def pixel_pair(pixel_m: float | tuple[float, float]) -> tuple[float, float]:
