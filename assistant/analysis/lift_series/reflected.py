@@ -123,9 +123,8 @@ def _noise_from_moments(m, r2):
     noise and heights at the floor). Instead: every height's noise as if all were alike, ``r2_h / sum_j M_hj``,
     then, where the height's own noise makes at least half of its expected residual, one step that takes the
     others' share out, ``(r2_h - sum_{j != h} M_hj s_j^2) / M_hh``, blended in smoothly as that share grows from
-    40 to 60 %.
-    The lowest height, whose residual is mostly the other heights' noise continued down, keeps the first
-    estimate.
+    40 to 60 %. The lowest height, whose residual is mostly the other heights' noise continued down, keeps the
+    first estimate.
     """
     alike = r2 / np.maximum(m.sum(axis=1), 1e-30)
     own = np.diag(m) * alike
