@@ -10,7 +10,7 @@ from assistant.cli._common import UsageError, emit_json, emit_text
 def run(args) -> int:
     from assistant.cli.progress import StageProgress
     from assistant.outputs import report_dir_for
-    from assistant.report.summary import build_report
+    from assistant.report.figure_jobs import start_early
 
     sessions = [Path(s) for s in args.sessions]
     missing = [str(s) for s in sessions if not s.is_file()]
@@ -25,6 +25,10 @@ def run(args) -> int:
             out.mkdir(parents=True, exist_ok=True)
         except OSError as exc:
             raise UsageError(f"output folder {out} cannot be created: {exc.strerror}") from None
+    # the figure workers load matplotlib on the second core while this process loads h5py and reads the sessions
+    start_early()
+    from assistant.report.summary import build_report
+
     reports = []
     with StageProgress() as progress:
         for session, out in zip(sessions, targets):

@@ -15,7 +15,8 @@ nearly idle (2.3-2.6 s against 2.3-2.5 s): their start (a fork server importing 
 second) takes what the second core gives back. ``mfma run`` therefore starts the server before the stage moves,
 and it imports on the second core while the simulated stage or the controller works; the report then draws on two
 warm workers (the default run's report phase 1.45-1.72 s against 1.77-2.01 s in one process, the whole run 5.0-5.1 s
-against 5.3-5.6 s). As with any
+against 5.3-5.6 s). ``mfma report`` starts it before it loads h5py and reads the session files (the default
+session's report as a process 2.5-2.7 s against 3.0-3.3 s). As with any
 ``forkserver`` or ``spawn`` pool, a script that builds a report must guard its entry point with
 ``if __name__ == "__main__"``. The workers ignore Ctrl-C: the process that asked for the figures handles it and
 shuts the pool down. Should that process be killed outright, the workers leave within about a second, and the fork
