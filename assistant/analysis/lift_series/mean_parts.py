@@ -176,10 +176,8 @@ def _shapes(cands, heights_m, cone_height_m):
         op = (c.amplitude_m, c.gap_offset_m)
         es.append(shape(("e", c.hudlet_apex, c.cone_half_angle_deg, c.radius_m) + op,
                         lambda z, c=c: _electrostatic(z, c, cone_height_m), dc, c.amplitude_m))
-        ss.append(shape(("s", c.short_range_radius_m) + op,
-                        lambda z, c=c: lm.vdw_sphere_gradient_n_per_m(z, hamaker_j=1.0,
-                                                                      radius_m=c.short_range_radius_m),
-                        dc, c.amplitude_m))
+        ss.append(shape(("s", c.short_range_radius_m) + op, lambda z, c=c: lm.vdw_sphere_gradient_n_per_m(
+            z, hamaker_j=1.0, radius_m=c.short_range_radius_m), dc, c.amplitude_m))
         keep.append(c)
     return keep, np.array(es), np.array(ss)
 
