@@ -116,9 +116,14 @@ def magnetic_figure(a: SeriesAnalysis) -> Figure:
                 label="magnetic rms (joint fit" + (", interior)" if a.edge == "reflect" else ")"))
     ax.plot(h, a.noise_deg, "s:", color="tab:gray", ms=3, label="noise per pixel")
     ax.plot(h, a.residual_rms_deg, "^:", color="tab:orange", ms=3, label="continuation residual rms")
+    # the residual is judged against what the noise alone leaves after the fit, which at a height the fit leans
+    # on (the lowest) is well below the noise per pixel: drawn, so that a flagged height reads as it is judged
+    ax.plot(h, a.expected_residual_rms_deg, "v--", color="tab:orange", ms=3, alpha=0.6,
+            label="residual that noise alone leaves")
     bad = ~np.asarray(a.residual_at_noise, bool)
     if bad.any():
-        ax.plot(h[bad], a.residual_rms_deg[bad], "x", color="tab:red", ms=8, label="residual above noise")
+        ax.plot(h[bad], a.residual_rms_deg[bad], "x", color="tab:red", ms=8,
+                label="residual above what noise leaves")
     if a.recommendation.lift_height_m is not None:
         ax.axvline(a.recommendation.lift_height_m * 1e9, color="tab:green", linestyle="--", label="recommended")
         ax2.axvline(a.recommendation.lift_height_m * 1e9, color="tab:green", linestyle="--")

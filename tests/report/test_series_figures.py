@@ -133,3 +133,13 @@ def test_the_mean_figure_adds_the_parts_as_gradients(with_bias):
                                   with_bias.short_range_mean_deg[:, None])
     assert parts_together_deg("phase", -9.6, -1.5) == pytest.approx(-11.1)
     assert any(np.allclose(ln.get_ydata(), model[:, 0]) for ln in lines)
+
+
+def test_a_flagged_residual_is_drawn_against_what_noise_alone_leaves(with_repeat):
+    # the residual check compares with the expected residual at noise, which at the height the fit leans on lies
+    # well below the noise per pixel; the figure draws that curve, so a flagged height reads as it was judged
+    ax = sf.series_figures(with_repeat)["decomposition_magnetic"].axes[0]
+    lines = {line.get_label(): line for line in ax.get_lines()}
+    expected = lines["residual that noise alone leaves"]
+    np.testing.assert_array_equal(expected.get_ydata(), with_repeat.expected_residual_rms_deg)
+    np.testing.assert_array_equal(lines["continuation residual rms"].get_ydata(), with_repeat.residual_rms_deg)
