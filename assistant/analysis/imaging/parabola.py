@@ -18,8 +18,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..lift_series import fit_mean_bias_grid
-from ..lift_series.image_means import plus_minus
+from ..lift_series import fit_mean_bias_grid, plus_minus
 from .errors import ImagingInputError
 
 __all__ = ["BiasParabola", "fit_bias_parabola"]

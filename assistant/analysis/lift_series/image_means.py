@@ -12,7 +12,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["MeanFit", "fit_mean_heights", "fit_mean_bias_grid"]
+__all__ = ["MeanFit", "fit_mean_heights", "fit_mean_bias_grid", "cpd_sentence", "plus_minus"]
 
 
 @dataclass(frozen=True)
