@@ -223,9 +223,14 @@ class SeriesView(View):
         lines = self.phase.shape[1]
         limit = symmetric_limit(self.phase)
         for i, preview in enumerate(self.query(Preview)):
+            image, label = preview.query(HalfBlockImage), preview.query(Label)
+            if not (image and label):
+                # a preview half removed or half mounted while the previews are rebuilt: draw on the next tick
+                self.mark_dirty()
+                continue
             if i < self.phase.shape[0]:
-                preview.query_one(HalfBlockImage).set_image(self.phase[i], limit)
-                preview.query_one(Label).update(f"{self.heights_m[i] * 1e9:g} nm")
+                image.first().set_image(self.phase[i], limit)
+                label.first().update(f"{self.heights_m[i] * 1e9:g} nm")
         self.query_one("#series-scale", ScaleKey).set_limit(limit)
         self.query_one("#series-bar", ProgressBar).update(total=lines, progress=self.lines_done)
         rem = f", about {duration(self.remaining_s)} left" if self.remaining_s is not None else ""

@@ -341,3 +341,26 @@ async def test_bias_grid_lines_preview_the_first_bias():
         await pilot.pause(0.3)
         np.testing.assert_array_equal(sv.phase[:, 0, :], phase[:, 0, :])
         assert "previews at bias -0.5 V" in screen_text(app)
+
+
+@run_async
+async def test_redraw_waits_for_a_preview_half_rebuilt():
+    """A redraw tick can fall while the previews are rebuilt (old ones half removed, new ones half mounted):
+    it skips such a preview and draws it on a later tick, instead of ending the app with NoMatches."""
+    app = MfmApp(None)
+    async with app.run_test(size=SIZE) as pilot:
+        sv = app.view("series")
+        sv.begin(heights_m=(10e-9, 20e-9), biases_v=None, lines=4, pixels=8)
+        await pilot.press("4")
+        for _ in range(50):
+            if len(sv.query(HalfBlockImage)) == 2:
+                break
+            await pilot.pause(0.05)
+        first = sv.query_one("#preview-0")
+        await first.query_one(HalfBlockImage).remove()  # as mid-rebuild: the preview without its image
+        sv.redraw()
+        assert sv._dirty  # the half-built preview asks for another tick
+        await first.mount(HalfBlockImage())
+        await pilot.pause(0.4)
+        assert not sv._dirty
+        assert all(img._img is not None for img in sv.query(HalfBlockImage))
