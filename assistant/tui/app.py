@@ -132,8 +132,8 @@ class MfmApp(DeferredConnection, FieldSeriesActions, StepRunner, App[int]):
 
     def on_unmount(self) -> None:
         self._stop_poll.set()
-        if self.workflow is not None and self.busy is None:
-            self.workflow.close()
+        if self.workflow is not None:
+            self.end_steps()
 
     # ---- messages from workers -----------------------------------------------------------------------
     def on_procedure_event(self, message: ProcedureEvent) -> None:

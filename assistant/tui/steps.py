@@ -21,6 +21,23 @@ from assistant.tui.view_base import FieldError
 class StepRunner:
     """The steps and workers of the app (a mixin of :class:`~assistant.tui.app.MfmApp`)."""
 
+    def end_steps(self) -> None:
+        """The app is ending: close the session file, or first stop a step that is still running.
+
+        Only an unexpected end leaves a step running (a fault in the UI's code, the terminal gone): quitting waits
+        for a safe, idle stage. The step is cancelled and the stage made safe now, as the withdraw key does; left
+        alone, the step would scan on to its end with no screen and no withdraw key. Its thread then ends through
+        its guard, and ``mfma tui`` closes the session after the app.
+        """
+        if self.busy is None:
+            self.workflow.close()
+            return
+        self.workflow.cancel.set()
+        try:
+            self.workflow.withdraw()
+        except Exception:  # no screen to tell: `mfma tui` checks the stage after the app and reports from there
+            pass
+
     # ---- intents from the views --------------------------------------------------------------------------
     def _run(self, step: str, fn) -> bool:
         if self.workflow is None:

@@ -1,5 +1,6 @@
 """The withdraw key acts at once: pressed in the middle of a scan line at realtime pace (lines of 4 s), the stage
-reports withdrawn, drive off and bias 0 V well before the line would have ended.
+reports withdrawn, drive off and bias 0 V well before the line would have ended. And a fault in the UI's own code
+mid-series leaves the stage the same way: the series does not scan on without a screen.
 
 The bound is generous (1 s) for a shared machine; ``python tests/benchmarks/run.py abort`` measures the figure.
 """
@@ -66,3 +67,44 @@ async def _withdraw_mid_line(tmp_path) -> tuple[float, float]:
 def test_withdraw_key_mid_line_at_realtime_pace(tmp_path):
     confirmed, step_ended = asyncio.run(_withdraw_mid_line(tmp_path))
     assert confirmed < 1.0 and step_ended < 2.0, (confirmed, step_ended)
+
+
+async def _crash_mid_series(tmp_path) -> tuple[object, float]:
+    clock = VirtualClock("fast", max_lag_s=0.005)
+    ctl = open_controller("sim://", scenario=Scenario.from_text(SCENARIO), clock=clock, seed=5)
+    app = MfmApp(ctl, session_path=tmp_path / "s.h5", probe_record=ProbeRecord(tmp_path / "record"),
+                 poll_interval_s=0.1)
+    app.workflow.calibrate(CalibrationSettings(thermal_seconds=0.2))
+    app.workflow.approach()
+    clock.set_pace("realtime")
+    crashed = []
+
+    def drawing_fault():
+        crashed.append(time.monotonic())
+        raise RuntimeError("a fault in the drawing code")
+
+    try:
+        async with app.run_test(size=(80, 24)) as pilot:
+            sv = app.view("series")
+            sv.query_one("#s-heights").value = "20,40,80"
+            sv.query_one("#s-lines").value = "8"
+            sv.query_one("#s-pixels").value = "16"
+            sv.query_one("#s-rate").value = "1"
+            app.start_series(sv.checked_settings())
+            await pilot.pause(0.8)
+            assert app.busy == "series" and not ctl.status().safe
+            sv.redraw = drawing_fault
+            sv.mark_dirty()
+            await pilot.pause(1.0)
+    except RuntimeError as exc:
+        assert "drawing code" in str(exc)
+    return ctl.status(), time.monotonic() - crashed[0]
+
+
+def test_a_crash_of_the_ui_mid_series_leaves_the_stage_safe(tmp_path):
+    """A fault in the UI's own code ends the app while a series scans (lines of 4 s, 32 s in all). The series
+    must not run on without a screen or a withdraw key: the app stops it on the way out and the stage is left
+    withdrawn, drive off, bias 0 V, well before the series would have ended."""
+    status, after_crash_s = asyncio.run(_crash_mid_series(tmp_path))
+    assert status.safe and not status.engaged and not status.drive_on and status.bias_v == 0.0, status
+    assert after_crash_s < 10.0, after_crash_s
