@@ -13,6 +13,10 @@ Both run with ``PYTHONDONTWRITEBYTECODE`` removed from their environment, as in 
 the compiled project modules after the warm-up run instead of compiling some forty of them again in every timed
 run (measured 0.05-0.08 s of a command here, where the variable is set for everything).
 
+Where a command misses the target, a process that only loads every module the command loads
+(``imports_only.py``) is timed beside the same plain script as well: the part of the ratio that the command's
+imports alone account for, which no speed-up of its own work can remove.
+
 ``MFMA_BENCH_RUNS`` sets the number of timed pairs (default 5).
 """
 
@@ -33,6 +37,7 @@ from timing import load_average, mfma_command, side_by_side, target  # noqa: E40
 RATIO_TARGET = 1.5
 START_TARGET_S = 0.15
 PLAIN = HERE / "plain"
+IMPORTS_ONLY = HERE / "imports_only.py"
 
 
 def _session(folder: Path) -> Path:
@@ -74,6 +79,15 @@ def cases(inputs: dict[str, Path], session: Path, out: Path) -> dict[str, tuple[
     }
 
 
+def _imports_only(argv: list[str], plain: list[str], work: Path, *, runs: int, env: dict) -> dict:
+    """A process that loads every module the command loads and exits, timed beside the plain script: how much of
+    a missed ratio no speed-up of the command's own work can take away (``imports_only.py``)."""
+    listing = work / f"modules-{argv[1] if len(argv) > 1 else argv[0]}.txt"
+    subprocess.run([sys.executable, str(IMPORTS_ONLY), "record", str(listing), *argv], check=True, env=env,
+                   stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    return side_by_side([sys.executable, str(IMPORTS_ONLY), "load", str(listing)], plain, runs=runs, env=env)
+
+
 def run(names: list[str] | None = None) -> dict:
     runs = int(os.environ.get("MFMA_BENCH_RUNS", "5"))
     folder = Path(tempfile.gettempdir()) / "mfma-bench-inputs"
@@ -97,6 +111,10 @@ def run(names: list[str] | None = None) -> dict:
             if names and name.split()[-1] not in names:
                 continue
             r = side_by_side(mfma + argv, plain, runs=runs, env=env)
+            if r["ratio"] > RATIO_TARGET:
+                r["imports_only"] = _imports_only(argv, plain, work, runs=runs, env=env)
+                sys.stderr.write(f"{name}: {r['ratio']:.2f}x the plain script; its imports alone "
+                                 f"{r['imports_only']['ratio']:.2f}x ({r['imports_only']['a_wall_s']:.3f} s)\n")
             out[name] = r
             targets.append(target(f"{name}: whole process / plain script", r["ratio"], RATIO_TARGET, "x"))
     out["load_average_1min_end"] = load_average()
