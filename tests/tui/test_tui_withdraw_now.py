@@ -10,6 +10,8 @@ from __future__ import annotations
 import asyncio
 import time
 
+import pytest
+
 from assistant.procedures.calibrate import CalibrationSettings
 from assistant.storage.probe_record import ProbeRecord
 from assistant.tui.app import MfmApp
@@ -32,23 +34,35 @@ pixel_nm = 20.0
 """
 
 
-async def _withdraw_mid_line(tmp_path) -> tuple[float, float]:
+def _engaged_app(tmp_path) -> MfmApp:
+    """An app on the small sample, calibrated and engaged at fast pace before the UI starts, then at realtime."""
     clock = VirtualClock("fast", max_lag_s=0.005)
     ctl = open_controller("sim://", scenario=Scenario.from_text(SCENARIO), clock=clock, seed=5)
     app = MfmApp(ctl, session_path=tmp_path / "s.h5", probe_record=ProbeRecord(tmp_path / "record"),
                  poll_interval_s=0.1)
-    app.workflow.calibrate(CalibrationSettings(thermal_seconds=0.2))  # at fast pace, before the UI starts
+    app.workflow.calibrate(CalibrationSettings(thermal_seconds=0.2))
     app.workflow.approach()
     clock.set_pace("realtime")
+    return app
+
+
+async def _start_series(app, pilot):
+    """Start a series of 8 lines of 4 s (3 heights and the repeat pass at 1 Hz); return its view once inside the
+    first line."""
+    sv = app.view("series")
+    for field, value in (("s-heights", "20,40,80"), ("s-lines", "8"), ("s-pixels", "16"), ("s-rate", "1")):
+        sv.query_one(f"#{field}").value = value
+    app.start_series(sv.checked_settings())
+    await pilot.pause(0.8)
+    # the poller's status: asking the controller here would wait for the line in flight (the controller's lock)
+    assert app.busy == "series" and sv.lines_done == 0 and app.last_status.engaged
+    return sv
+
+
+async def _withdraw_mid_line(tmp_path) -> tuple[float, float]:
+    app = _engaged_app(tmp_path)
     async with app.run_test(size=(80, 24)) as pilot:
-        sv = app.view("series")
-        sv.query_one("#s-heights").value = "20,40,80"
-        sv.query_one("#s-lines").value = "8"
-        sv.query_one("#s-pixels").value = "16"
-        sv.query_one("#s-rate").value = "1"
-        app.start_series(sv.checked_settings())
-        await pilot.pause(0.8)  # inside the first line (4 passes at 1 Hz, the repeat pass too)
-        assert app.busy == "series" and sv.lines_done == 0
+        sv = await _start_series(app, pilot)
         t0 = time.monotonic()
         await pilot.press(WITHDRAW)
         while not app._withdraw_confirmed:
@@ -70,35 +84,21 @@ def test_withdraw_key_mid_line_at_realtime_pace(tmp_path):
 
 
 async def _crash_mid_series(tmp_path) -> tuple[object, float]:
-    clock = VirtualClock("fast", max_lag_s=0.005)
-    ctl = open_controller("sim://", scenario=Scenario.from_text(SCENARIO), clock=clock, seed=5)
-    app = MfmApp(ctl, session_path=tmp_path / "s.h5", probe_record=ProbeRecord(tmp_path / "record"),
-                 poll_interval_s=0.1)
-    app.workflow.calibrate(CalibrationSettings(thermal_seconds=0.2))
-    app.workflow.approach()
-    clock.set_pace("realtime")
+    app = _engaged_app(tmp_path)
     crashed = []
 
     def drawing_fault():
         crashed.append(time.monotonic())
         raise RuntimeError("a fault in the drawing code")
 
-    try:
+    with pytest.raises(RuntimeError, match="drawing code"):  # run_test raises what ended the app
         async with app.run_test(size=(80, 24)) as pilot:
-            sv = app.view("series")
-            sv.query_one("#s-heights").value = "20,40,80"
-            sv.query_one("#s-lines").value = "8"
-            sv.query_one("#s-pixels").value = "16"
-            sv.query_one("#s-rate").value = "1"
-            app.start_series(sv.checked_settings())
-            await pilot.pause(0.8)
-            assert app.busy == "series" and not ctl.status().safe
+            sv = await _start_series(app, pilot)
             sv.redraw = drawing_fault
             sv.mark_dirty()
             await pilot.pause(1.0)
-    except RuntimeError as exc:
-        assert "drawing code" in str(exc)
-    return ctl.status(), time.monotonic() - crashed[0]
+    assert crashed, "the fault never ran"
+    return app.controller.status(), time.monotonic() - crashed[0]
 
 
 def test_a_crash_of_the_ui_mid_series_leaves_the_stage_safe(tmp_path):
