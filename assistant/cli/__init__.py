@@ -1,8 +1,9 @@
 """``mfma``: the command line. Thin: parse, call the procedures and analysis, print results.
 
 Every command has ``--help``; exit 0 on success, 2 on bad usage or input (one line, no traceback), 1 on a
-runtime failure, 130 after Ctrl-C (the stage is withdrawn first). ``--json`` prints exactly one JSON object on
-stdout; progress goes to stderr. Handlers live in ``assistant.cli.cmd_*`` and are imported only when run.
+runtime failure, 130 after Ctrl-C, SIGTERM or SIGHUP (the stage is withdrawn first). ``--json`` prints exactly one
+JSON object on stdout; progress goes to stderr. Handlers live in ``assistant.cli.cmd_*`` and are imported only
+when run.
 """
 
 from __future__ import annotations
@@ -25,9 +26,12 @@ def main(argv: list[str] | None = None) -> int:
         parser.print_help()
         return c.EXIT_USAGE
     module_name, _, func_name = args.handler.partition(":")
+    from assistant.cli.interrupts import terminations_as_interrupts
+
     try:
         handler = getattr(importlib.import_module(f"assistant.cli.{module_name}"), func_name)
-        return int(handler(args) or 0)
+        with terminations_as_interrupts():  # a `kill` or a closed terminal stops the stage as Ctrl-C does
+            return int(handler(args) or 0)
     except (Exception, KeyboardInterrupt) as exc:  # one line, no traceback; the exit code says what kind
         from assistant.cli.interrupts import caused_by_ctrl_c
 

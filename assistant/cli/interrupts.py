@@ -6,9 +6,11 @@ go on to calibrate and approach although it was asked to stop (seen about once i
 the first seconds of ``mfma run``). :func:`remember_interrupts` installs a handler that also sets a latch, and
 the command checks the latch before each step that moves the stage.
 
-There is one way a Ctrl-C stops the stage: ``KeyboardInterrupt`` (raised by the handler or by a latch check)
-reaches :func:`assistant.procedures.guard.stop_now`, which calls the controller's ``abort()``. Inside a step the
-step's safety guard does it; between two steps (no guard running, e.g. the tip engaged after the approach)
+A termination request (SIGTERM, or SIGHUP when the terminal closes) is handled as a Ctrl-C
+(:func:`terminations_as_interrupts`, around every command). There is one way a Ctrl-C stops the stage:
+``KeyboardInterrupt`` (raised by the handler or by a latch check) reaches
+:func:`assistant.procedures.guard.stop_now`, which calls the controller's ``abort()``. Inside a step the step's
+safety guard does it; between two steps (no guard running, e.g. the tip engaged after the approach)
 :func:`stop_on_interrupt` around everything done with the open controller does it.
 """
 
@@ -52,6 +54,41 @@ def remember_interrupts() -> Iterator[InterruptLatch]:
     finally:
         if installed:
             signal.signal(signal.SIGINT, signal.default_int_handler)
+
+
+#: termination requests: SIGTERM (``kill``, a shutdown) and SIGHUP (the terminal closed)
+TERMINATIONS = tuple(s for s in (getattr(signal, "SIGTERM", None), getattr(signal, "SIGHUP", None)) if s is not None)
+
+
+def _as_ctrl_c(signum, frame) -> None:
+    """A termination request, handled as a Ctrl-C by whatever handles SIGINT now: the latch or Python's own raise
+    ``KeyboardInterrupt``; a stop in progress holds it (``guard.stop_now``), as it holds a second Ctrl-C."""
+    handler = signal.getsignal(signal.SIGINT)
+    if callable(handler):
+        handler(signal.SIGINT, frame)
+        return
+    raise KeyboardInterrupt  # Ctrl-C ignored (a background job) or not Python's: a termination still stops
+
+
+@contextlib.contextmanager
+def terminations_as_interrupts() -> Iterator[None]:
+    """SIGTERM and SIGHUP stop a command the way Ctrl-C does, so the stage is made safe before the process ends.
+
+    Python's default for both ends the process at once: an engaged tip stays engaged, with the drive on and the
+    bias set (a served stage withdraws only when its watchdog notices the silence; a stage driven in-process not
+    at all). Installed only over the default handlers and only in the main thread; put back on the way out.
+    """
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    mine = [s for s in TERMINATIONS if signal.getsignal(s) is signal.SIG_DFL]
+    for s in mine:
+        signal.signal(s, _as_ctrl_c)
+    try:
+        yield
+    finally:
+        for s in mine:
+            signal.signal(s, signal.SIG_DFL)
 
 
 def caused_by_ctrl_c(exc: BaseException | None) -> bool:

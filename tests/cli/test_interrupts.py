@@ -4,10 +4,11 @@ from __future__ import annotations
 
 import os
 import signal
+import time
 
 import pytest
 
-from assistant.cli.interrupts import remember_interrupts
+from assistant.cli.interrupts import TERMINATIONS, remember_interrupts, terminations_as_interrupts
 
 
 def test_a_swallowed_ctrl_c_is_still_honoured():
@@ -71,3 +72,46 @@ def test_main_exits_130_for_a_ctrl_c_wrapped_by_compiled_code(monkeypatch, capsy
     monkeypatch.setattr(cmd_probes, "run", wrapped)
     assert main(["probes"]) == 130
     assert capsys.readouterr().err.strip() == "mfma: interrupted"
+
+
+@pytest.mark.parametrize("signum", TERMINATIONS)
+def test_a_termination_request_is_handled_as_ctrl_c(signum):
+    """SIGTERM (`kill`) and SIGHUP (the terminal closed) end Python at once by default, leaving the stage as it
+    was; inside a command they reach the same stop as Ctrl-C, and the latch remembers them."""
+    assert signal.getsignal(signum) is signal.SIG_DFL
+    with terminations_as_interrupts(), remember_interrupts() as latch:
+        with pytest.raises(KeyboardInterrupt):
+            os.kill(os.getpid(), signum)
+            time.sleep(1.0)  # the handler runs at the next bytecode; this only waits for it
+        assert latch.is_set()
+    assert signal.getsignal(signum) is signal.SIG_DFL  # put back
+
+
+def test_a_termination_request_interrupts_even_with_ctrl_c_ignored():
+    """A command started in the background by a shell without job control inherits SIGINT ignored; a `kill`
+    must still stop it."""
+    previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        with terminations_as_interrupts(), pytest.raises(KeyboardInterrupt):
+            os.kill(os.getpid(), signal.SIGTERM)
+            time.sleep(1.0)
+    finally:
+        signal.signal(signal.SIGINT, previous)
+
+
+def test_a_termination_during_the_stop_does_not_cut_it_short():
+    """Like a second Ctrl-C, a `kill` that arrives while the stage is being made safe waits for the stop."""
+    from assistant.procedures.guard import stop_now
+
+    class SlowStop:
+        finished = False
+
+        def abort(self):
+            os.kill(os.getpid(), signal.SIGTERM)
+            time.sleep(0.3)  # the handler has run by now
+            self.finished = True
+
+    ctl = SlowStop()
+    with terminations_as_interrupts():
+        stop_now(ctl)
+    assert ctl.finished

@@ -144,15 +144,17 @@ def test_sigkill_mid_series_then_resume_keeps_every_line(tmp_path, capsys, monke
     assert "already complete" in capsys.readouterr().err
 
 
-def test_ctrl_c_withdraws_and_exits_130(tmp_path):
+@pytest.mark.parametrize("signum", [signal.SIGINT, signal.SIGTERM, signal.SIGHUP], ids=["ctrl-c", "kill", "hangup"])
+def test_ctrl_c_withdraws_and_exits_130(tmp_path, signum):
     # 64 lines x 5 passes at 10 lines/s: the series lasts 32 s, so the Ctrl-C sent after its first line always
-    # lands in it (the stage's realtime clock no longer runs the series at full speed after a slow start)
+    # lands in it (the stage's realtime clock no longer runs the series at full speed after a slow start).
+    # A `kill` (SIGTERM) and a closed terminal (SIGHUP) stop it the same way; by default they end Python at once.
     from tests.cli.kill_resume import quick_scenario  # a one-cycle approach: the series starts sooner
 
     proc = _start(tmp_path, "run", *KILL, "--lines", "64", "--scenario", str(quick_scenario(tmp_path)),
                   "--pace", "realtime", "--line-rate", "10")
     _wait_for_series(proc)
-    proc.send_signal(signal.SIGINT)
+    proc.send_signal(signum)
     _, err = proc.communicate(timeout=60)
     assert proc.returncode == 130, err
     assert "withdrawn" in err
