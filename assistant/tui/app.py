@@ -120,6 +120,7 @@ class MfmApp(DeferredConnection, FieldSeriesActions, StepRunner, App[int]):
         return [self.view(key) for key, _, _ in VIEWS]
 
     def on_mount(self) -> None:
+        self.end_on_termination()
         if self.controller is None and self._connect is None:
             self.query_one("#withdraw-button").display = False  # a stored session: nothing to withdraw
         if self.controller is not None:

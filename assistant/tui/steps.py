@@ -38,6 +38,21 @@ class StepRunner:
         except Exception:  # no screen to tell: `mfma tui` checks the stage after the app and reports from there
             pass
 
+    def end_on_termination(self) -> None:
+        """SIGTERM (``kill``) or SIGHUP (the terminal closed) ends the app through :meth:`end_steps`, which stops a
+        running step and makes the stage safe; Python's default would end the process at once, the stage as it
+        was. Only where the app runs the main thread's event loop (signal handlers live there)."""
+        import asyncio
+        import functools
+        import signal
+
+        loop = asyncio.get_running_loop()
+        for name in ("SIGTERM", "SIGHUP"):
+            try:  # exit status 130, as `mfma` gives after Ctrl-C
+                loop.add_signal_handler(getattr(signal, name), functools.partial(self.exit, return_code=130))
+            except (AttributeError, RuntimeError, ValueError):  # no such signal here, or not the main thread
+                return
+
     # ---- intents from the views --------------------------------------------------------------------------
     def _run(self, step: str, fn) -> bool:
         if self.workflow is None:

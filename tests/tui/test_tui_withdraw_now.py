@@ -8,6 +8,8 @@ The bound is generous (1 s) for a shared machine; ``python tests/benchmarks/run.
 from __future__ import annotations
 
 import asyncio
+import os
+import signal
 import time
 
 import pytest
@@ -108,3 +110,31 @@ def test_a_crash_of_the_ui_mid_series_leaves_the_stage_safe(tmp_path):
     status, after_crash_s = asyncio.run(_crash_mid_series(tmp_path))
     assert status.safe and not status.engaged and not status.drive_on and status.bias_v == 0.0, status
     assert after_crash_s < 10.0, after_crash_s
+
+
+async def _terminated_mid_series(tmp_path, signum) -> tuple[object, int]:
+    app = _engaged_app(tmp_path)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await _start_series(app, pilot)
+        os.kill(os.getpid(), signum)  # the app's handler: were it missing, the fixture's handler fails the test
+        for _ in range(200):
+            if not app.is_running:
+                break
+            await pilot.pause(0.05)
+    return app.controller.status(), app.return_code
+
+
+@pytest.mark.parametrize("signum", [signal.SIGTERM, signal.SIGHUP], ids=["kill", "hangup"])
+def test_a_kill_or_a_closed_terminal_mid_series_leaves_the_stage_safe(tmp_path, signum):
+    """`kill` (SIGTERM) or closing the terminal (SIGHUP) while a series scans: by default Python ends at once
+    and the stage stays engaged; the app instead ends through its unexpected-end path, which stops the series and
+    makes the stage safe, with exit status 130."""
+    caught = []
+    previous = signal.signal(signum, lambda *_: caught.append(signum))  # not this test process's end, at worst
+    try:
+        status, code = asyncio.run(_terminated_mid_series(tmp_path, signum))
+    finally:
+        signal.signal(signum, previous)
+    assert not caught, "the app did not handle the signal"
+    assert status.safe and not status.engaged and not status.drive_on and status.bias_v == 0.0, status
+    assert code == 130
