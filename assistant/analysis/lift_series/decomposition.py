@@ -122,8 +122,9 @@ def analyse_series(phase_deg, *, heights_m, pixel_m, bias_v=None, repeat_phase_d
     register : bool
         Estimate and undo drift.
     n_refine : int
-        Rounds of refining the drift against the leave-one-out continuation (periodic and windowed estimators;
-        the reflected-edge one refines it with its own fit until the steps fall below 5e-4 px).
+        Rounds of refining the drift against the leave-one-out continuation (periodic estimator; the
+        reflected-edge and the windowed ones refine it with their own fits, the reflected one until the steps fall
+        below 5e-4 px, the windowed one in the rounds of ``WINDOW_SOLVE``).
     max_phase_deg : float
         Pixels whose phase shift exceeds this magnitude are left out of the fit: there the tip touches the
         surface or feels a gradient far beyond the small-perturbation picture of a second pass (the
