@@ -172,13 +172,15 @@ def _run(args, limits, progress, latch, tip=None) -> int:
     # Ctrl-C at any moment with the controller open, even between two steps, stops the stage through abort()
     with controller_for_command(args, **extra) as ctl:
         _plan(series_settings, limits, controller=ctl, sink=progress)  # before the first motion
+        # the plan is in the session file from its creation, so a run stopped at any moment leaves either no file
+        # or one that can be resumed
         wf = Workflow(ctl, session_path, controller_url=redact(args.controller), scenario_text=_scenario_text(ctl),
-                      limits=limits, sink=progress, fsync=args.fsync, before_write=_writer_hook(ctl))
+                      limits=limits, sink=progress, fsync=args.fsync, before_write=_writer_hook(ctl),
+                      run_plan_json=run_plan_json(series_settings, cal_settings, probe_record=bool(args.probe)))
         try:
             from assistant.storage.probe_record import ProbeRecord
 
-            # the plan goes first, so a run stopped at any moment leaves a file that can be resumed
-            wf.session.write_run_plan(run_plan_json(series_settings, cal_settings, probe_record=bool(args.probe)))
+            wf.session.flush()  # the file is created here, before anything moves
             latch.check()
             wf.calibrate(cal_settings, probe_record=ProbeRecord() if args.probe else None)
             latch.check()

@@ -60,11 +60,12 @@ def run_fields(args, limits, progress, latch=None) -> int:
     with controller_for_command(args, **extra) as ctl:
         check_controller(ctl, settings, limits)  # the magnet and its limits, before anything moves
         wf = Workflow(ctl, session_path, controller_url=redact(args.controller), scenario_text=_scenario_text(ctl),
-                      limits=limits, sink=progress, fsync=args.fsync, before_write=_writer_hook(ctl))
+                      limits=limits, sink=progress, fsync=args.fsync, before_write=_writer_hook(ctl),
+                      run_plan_json=run_plan_json(settings, cal_settings, probe_record=bool(args.probe)))
         try:
             from assistant.storage.probe_record import ProbeRecord
 
-            wf.session.write_run_plan(run_plan_json(settings, cal_settings, probe_record=bool(args.probe)))
+            wf.session.flush()  # the file is created here with its run plan, before anything moves
             _check(latch)
             wf.calibrate(cal_settings, probe_record=ProbeRecord() if args.probe else None)
             _check(latch)

@@ -89,6 +89,7 @@ class Workflow:
     cancel: CancelToken = field(default_factory=CancelToken)
     fsync: bool = False
     before_write: object | None = None  # hook called before each line is written (fault injection)
+    run_plan_json: str | None = None  # what the run was asked to do, kept in the session file from its creation
     calibration: CalibrationResult | None = None
     drive: DriveSettings | None = None
     spring_constant_n_per_m: float | None = None
@@ -114,7 +115,7 @@ class Workflow:
             self.session_path.parent.mkdir(parents=True, exist_ok=True)
             self._session = SessionFile.create(self.session_path, controller_url=self.controller_url,
                                                scenario_text=self.scenario_text, software_version=__version__,
-                                               fsync=self.fsync)
+                                               fsync=self.fsync, run_plan_json=self.run_plan_json)
         return self._session
 
     def close(self) -> None:

@@ -68,38 +68,45 @@ class SessionFile(FieldMapGroups, FieldSeriesGroups):
     # ---- opening -------------------------------------------------------------------------------------
     @classmethod
     def create(cls, path: str | os.PathLike[str], *, controller_url: str, scenario_text: str | None = None,
-               software_version: str, fsync: bool = False, now: datetime | None = None) -> "SessionFile":
+               software_version: str, fsync: bool = False, now: datetime | None = None,
+               run_plan_json: str | None = None) -> "SessionFile":
         """Create a new session file; refuses to overwrite an existing file. ``controller_url`` is stored
-        without secrets."""
+        without secrets; ``run_plan_json``, what the run was asked to do, as with :meth:`write_run_plan`.
+
+        The file is written under a hidden temporary name beside ``path`` and renamed to ``path`` once its root
+        attributes (and the plan) are on disk, so a run stopped at any moment (Ctrl-C, a kill, a power cut)
+        leaves either no session file or one that says what it was for. A stop while the temporary file is
+        written removes it, except after SIGKILL or a power cut (a ``.*.creating`` file, never read)."""
         path = Path(path)
         if path.exists():
             raise UnwritablePathError(f"session file {str(path)!r} already exists; choose a new name")
-        if scenario_text is not None and len(scenario_text.encode()) > MAX_ATTR_TEXT:
-            raise SessionFileError(f"scenario text is {len(scenario_text.encode())} bytes; limit {MAX_ATTR_TEXT}")
+        for what, text in (("scenario text", scenario_text), ("run plan", run_plan_json)):
+            if text is not None and len(text.encode()) > MAX_ATTR_TEXT:
+                raise SessionFileError(f"{what} is {len(text.encode())} bytes; limit {MAX_ATTR_TEXT}")
+        partial = path.with_name(f".{path.name}.creating")
         try:
-            h5 = h5py.File(path, "w-")
+            h5 = h5py.File(partial, "w")
         except OSError as exc:
             raise UnwritablePathError(f"cannot create session file {str(path)!r}: {exc}") from exc
-        created = (now or datetime.now(timezone.utc)).astimezone(timezone.utc)
-        attrs = h5.attrs
-        attrs["format"] = FORMAT_NAME
-        attrs["format_version"] = np.int64(FORMAT_VERSION)
-        attrs["software_version"] = software_version
-        attrs["created_utc"] = created.isoformat(timespec="seconds").replace("+00:00", "Z")
-        attrs["controller_url"] = redact_controller_url(controller_url)
-        if scenario_text is not None:
-            attrs["scenario_text"] = scenario_text
-        attrs["complete"] = False
-        attrs["NX_class"] = "NXroot"
-        session = cls(h5, fsync=fsync)
-        session.flush()
+        try:
+            with h5:
+                _write_root_attributes(h5.attrs, controller_url=controller_url, scenario_text=scenario_text,
+                                       software_version=software_version, run_plan_json=run_plan_json,
+                                       created=(now or datetime.now(timezone.utc)).astimezone(timezone.utc))
+                h5.flush()
+                if fsync:
+                    os.fsync(h5.id.get_vfd_handle())
+            os.replace(partial, path)
+        except BaseException:
+            partial.unlink(missing_ok=True)
+            raise
         if fsync and hasattr(os, "O_DIRECTORY"):  # a power cut must not lose the new file's directory entry
             folder = os.open(path.resolve().parent, os.O_RDONLY | os.O_DIRECTORY)
             try:
                 os.fsync(folder)
             finally:
                 os.close(folder)
-        return session
+        return cls(_open_h5(path, "a"), fsync=fsync)
 
     @classmethod
     def open(cls, path: str | os.PathLike[str], mode: Literal["r", "a"] = "r", *,
@@ -333,3 +340,18 @@ def _open_h5(path: Path, mode: str) -> h5py.File:
         h5.close()
         raise
     return h5
+
+
+def _write_root_attributes(attrs, *, controller_url: str, scenario_text: str | None, software_version: str,
+                           run_plan_json: str | None, created: datetime) -> None:
+    attrs["format"] = FORMAT_NAME
+    attrs["format_version"] = np.int64(FORMAT_VERSION)
+    attrs["software_version"] = software_version
+    attrs["created_utc"] = created.isoformat(timespec="seconds").replace("+00:00", "Z")
+    attrs["controller_url"] = redact_controller_url(controller_url)
+    if scenario_text is not None:
+        attrs["scenario_text"] = scenario_text
+    if run_plan_json is not None:
+        attrs["run_plan_json"] = run_plan_json
+    attrs["complete"] = False
+    attrs["NX_class"] = "NXroot"

@@ -144,6 +144,30 @@ def test_sigkill_mid_series_then_resume_keeps_every_line(tmp_path, capsys, monke
     assert "already complete" in capsys.readouterr().err
 
 
+def test_ctrl_c_the_moment_the_session_file_appears_leaves_it_resumable(tmp_path, capsys, monkeypatch):
+    # the slow kill trials once found a file that had been created but not yet given its run plan when the Ctrl-C
+    # came: "has no series to resume and no run plan to start one from". The plan is now written with the file
+    from assistant.storage.session_file import SessionFile
+    from tests.cli.kill_resume import without_pngs
+
+    without_pngs(monkeypatch)
+    real_create = SessionFile.create.__func__
+
+    def create_then_interrupt(cls, *args, **kwargs):
+        real_create(cls, *args, **kwargs).close()
+        raise KeyboardInterrupt  # as if Ctrl-C came the instant the file existed
+
+    monkeypatch.setattr(SessionFile, "create", classmethod(create_then_interrupt))
+    monkeypatch.chdir(tmp_path)
+    assert main(["run", *KILL, "--seed", "3"]) == 130
+    assert "withdrawn" in capsys.readouterr().err
+    monkeypatch.setattr(SessionFile, "create", classmethod(real_create))
+    session = next((tmp_path / "mfma-out").glob("session-*.h5"))
+    assert main(["run", "--resume", str(session)]) == 0, capsys.readouterr().err
+    with h5py.File(session, "r") as f:
+        assert bool(f.attrs["complete"]) and int(f["series/series1"].attrs["completed_lines"]) == 12
+
+
 @pytest.mark.parametrize("signum", [signal.SIGINT, signal.SIGTERM, signal.SIGHUP], ids=["ctrl-c", "kill", "hangup"])
 def test_ctrl_c_withdraws_and_exits_130(tmp_path, signum):
     # 64 lines x 5 passes at 10 lines/s: the series lasts 32 s, so the Ctrl-C sent after its first line always
