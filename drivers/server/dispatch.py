@@ -4,9 +4,11 @@ It checks every argument against the controller's hard limits itself, answers ba
 (stream) or an error reply (network), executes a retried network request once (request ids, remembered per
 session), makes the stage safe after any controller fault, and runs a watchdog that withdraws the tip, switches
 the drive off and sets the bias (and a magnet's field) to zero when a client falls silent while the tip is near the
-surface or a magnet is left on. The transports run the commands in a worker thread (:mod:`.inflight`), so an abort
-request is handled ahead of a long command in flight, and the watchdog acts through the controller's ``abort()``
-and also aborts a command that overruns its expected time.
+surface or a magnet is left on. Over ZeroMQ, where several clients may share the server, the silence that counts
+is that of the client that last sent a command that is not a query (the one driving the stage): a second client
+that only polls the status does not keep a dead driver's stage engaged. The transports run the commands in a worker
+thread (:mod:`.inflight`), so an abort request is handled ahead of a long command in flight, and the watchdog acts
+through the controller's ``abort()`` and also aborts a command that overruns its expected time.
 """
 
 from __future__ import annotations
@@ -55,6 +57,8 @@ class Dispatcher:
         self._watchdog_armed = True
         self.watchdog_trips = 0
         self.sessions: OrderedDict[str, Session] = OrderedDict()
+        self.driving: str | None = None  # session of the last command that is not a query (network clients)
+        self._heard: dict[str, float] = {}  # when each network client last spoke (plain assignments: two threads)
         self.watch = inflight.CommandWatch(controller, watchdog_s, clock)  # the command in flight
 
     # ---- one command ---------------------------------------------------------------------------------
@@ -139,6 +143,8 @@ class Dispatcher:
         try:
             req = messages.decode_request(frames)
             cmd = req.command
+            if not cmd.query:
+                self.driving = req.session
             fields = self.execute(cmd, req.args, session)
             out = messages.encode_reply(cmd, messages.Reply(req.id, True, fields))
         except Exception as exc:
@@ -160,15 +166,25 @@ class Dispatcher:
         return s
 
     # ---- watchdog -----------------------------------------------------------------------------------
-    def activity(self) -> None:
+    def activity(self, session: str | None = None) -> None:
+        """A client spoke (``session``: its token, when the transport knows it)."""
         self.last_activity = self.clock()
+        if session is not None:
+            if len(self._heard) >= 4 * _SESSIONS and session not in self._heard:
+                self._heard = {k: v for k, v in self._heard.items() if k == self.driving}
+            self._heard[session] = self.last_activity
         self._watchdog_armed = True
+
+    def _last_heard(self) -> float:
+        """When the client driving the stage last spoke; any client's message where none is known."""
+        heard = self._heard.get(self.driving) if self.driving is not None else None
+        return self.last_activity if heard is None else heard
 
     def watchdog(self) -> bool:
         """Make the stage safe if the client is silent too long with the tip near the surface or a field on."""
         if self.watchdog_s is None or not self._watchdog_armed:
             return False
-        silent = self.clock() - self.last_activity
+        silent = self.clock() - self._last_heard()
         if silent <= self.watchdog_s:
             return False
         self._watchdog_armed = False  # once per silence

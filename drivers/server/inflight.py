@@ -257,7 +257,7 @@ def handle_zmq_abort(d, sock, msg: list[bytes]) -> bool:
         return False
     if req.command.header != "ABORt":
         return False
-    d.activity()
+    d.activity(req.session)
     d.watch.aborts += 1
     log.warning("abort: abort request")
     try:

@@ -17,6 +17,7 @@ from drivers.link_faults import LinkFaults
 from drivers.registry import is_loopback
 from drivers.server import inflight
 from drivers.server.dispatch import Dispatcher
+from drivers.wire import messages
 
 log = logging.getLogger(__name__)
 
@@ -86,7 +87,7 @@ def serve_zmq(d: Dispatcher, lf: LinkFaults, bind: str | None, server_key: str |
                 outbox.forward(sock)
             if sock in ready:
                 msg = sock.recv_multipart()
-                d.activity()
+                d.activity(_session_of(msg))
                 if not inflight.handle_zmq_abort(d, sock, msg):  # an abort goes ahead of the command in flight
                     worker.submit(functools.partial(_zmq_job, d, lf, outbox, msg))
             inflight.watch(d, worker)
@@ -104,7 +105,16 @@ def serve_zmq(d: Dispatcher, lf: LinkFaults, bind: str | None, server_key: str |
 
 def _zmq_job(d: Dispatcher, lf: LinkFaults, outbox, msg: list[bytes]) -> None:
     _zmq_message(d, lf, outbox, msg)  # the outbox stands in for the socket: the loop sends the reply
-    d.activity()  # a client waiting for a long command was not silent meanwhile
+    d.activity(_session_of(msg))  # a client waiting for a long command was not silent meanwhile
+
+
+def _session_of(msg: list[bytes]) -> str | None:
+    """The client's session token in a REQ envelope, if it can be read."""
+    try:
+        ids = messages.peek_ids(msg[msg.index(b"", 1) + 1:])
+    except ValueError:
+        return None
+    return ids[0] if ids else None
 
 
 def _zmq_message(d: Dispatcher, lf: LinkFaults, sock, msg: list[bytes]) -> None:

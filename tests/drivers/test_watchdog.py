@@ -57,6 +57,37 @@ def test_silence_while_engaged_trips_on_the_virtual_clock():
     assert d.watchdog() and d.watchdog_trips == 2
 
 
+def test_a_client_that_only_polls_does_not_keep_a_silent_drivers_stage_engaged():
+    # several network clients may share a server: the silence of the one that drives the stage (its last command
+    # that is not a query) counts. Before, any client's message reset the watchdog: a status display polling every
+    # second kept the tip engaged after the driving client had died, until the display stopped too
+    from drivers.wire import messages
+    from drivers.wire.commands import command
+
+    clock, fake = ManualClock(), FakeController()
+    d = Dispatcher(fake, watchdog_s=2.0, clock=clock)
+
+    def send(session, number, spelling, *args):
+        d.activity(session)  # as the transport does on receiving the message
+        req = messages.Request(session, number, command(spelling), args)
+        return messages.decode_reply(req.command, d.handle_frames(messages.encode_request(req)))
+
+    assert send("driver", 1, "FEEDback:SET", True, 0.2, None, None).ok  # the driving client engages
+    assert fake.status().engaged
+    for n, t in enumerate((0.5, 1.0, 1.5, 2.0)):  # the driver is silent from t = 0; a display polls
+        clock.t = t
+        assert send("display", n + 1, "STATus?").ok
+        assert not d.watchdog()
+    clock.t = 2.5
+    assert send("display", 5, "STATus?").ok
+    assert d.watchdog() and fake.status().safe  # 2.5 s of the driver's silence, not 0 s since the display spoke
+    d2 = Dispatcher(_engaged_fake(), watchdog_s=2.0, clock=clock)
+    clock.t = 10.0
+    d2.activity("display")  # no driving client known (engaged before any command): any client counts
+    clock.t = 11.5
+    assert not d2.watchdog()
+
+
 def test_silence_while_withdrawn_does_nothing():
     clock, fake = ManualClock(), FakeController()
     d = Dispatcher(fake, watchdog_s=1.0, clock=clock)
@@ -100,6 +131,22 @@ def test_silent_client_over_a_real_link(transport):
         elapsed = _wait_safe(fake, 2.0)  # the client is still connected, just silent
         assert elapsed <= 0.3 + 0.25
         c.close()
+
+
+def test_a_polling_second_client_over_zeromq_does_not_mask_the_drivers_silence():
+    fake = FakeController()
+    with ThreadServer(fake, transport="zmq", watchdog_s=0.3) as srv:
+        driver, display = connect(srv.announcement), connect(srv.announcement)
+        driver.set_drive(7e4, 0.1)
+        driver.set_feedback(True, setpoint_v=0.2)
+        assert driver.status().engaged
+        t0 = time.monotonic()
+        while not fake.status().safe and time.monotonic() - t0 < 3.0:
+            display.status()  # polled every 20 ms: before, this kept the stage engaged for as long as it went on
+            time.sleep(0.02)
+        assert fake.status().safe and time.monotonic() - t0 <= 0.3 + 0.25
+        driver.close()
+        display.close()
 
 
 CLIENT = """
