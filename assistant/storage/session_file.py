@@ -83,29 +83,9 @@ class SessionFile(FieldMapGroups, FieldSeriesGroups):
         for what, text in (("scenario text", scenario_text), ("run plan", run_plan_json)):
             if text is not None and len(text.encode()) > MAX_ATTR_TEXT:
                 raise SessionFileError(f"{what} is {len(text.encode())} bytes; limit {MAX_ATTR_TEXT}")
-        partial = path.with_name(f".{path.name}.creating")
-        try:
-            h5 = h5py.File(partial, "w")
-        except OSError as exc:
-            raise UnwritablePathError(f"cannot create session file {str(path)!r}: {exc}") from exc
-        try:
-            with h5:
-                _write_root_attributes(h5.attrs, controller_url=controller_url, scenario_text=scenario_text,
-                                       software_version=software_version, run_plan_json=run_plan_json,
-                                       created=(now or datetime.now(timezone.utc)).astimezone(timezone.utc))
-                h5.flush()
-                if fsync:
-                    os.fsync(h5.id.get_vfd_handle())
-            os.replace(partial, path)
-        except BaseException:
-            partial.unlink(missing_ok=True)
-            raise
-        if fsync and hasattr(os, "O_DIRECTORY"):  # a power cut must not lose the new file's directory entry
-            folder = os.open(path.resolve().parent, os.O_RDONLY | os.O_DIRECTORY)
-            try:
-                os.fsync(folder)
-            finally:
-                os.close(folder)
+        _write_new_file(path, fsync=fsync, attrs=dict(
+            controller_url=controller_url, scenario_text=scenario_text, software_version=software_version,
+            run_plan_json=run_plan_json, created=(now or datetime.now(timezone.utc)).astimezone(timezone.utc)))
         return cls(_open_h5(path, "a"), fsync=fsync)
 
     @classmethod
@@ -340,6 +320,31 @@ def _open_h5(path: Path, mode: str) -> h5py.File:
         h5.close()
         raise
     return h5
+
+
+def _write_new_file(path: Path, *, fsync: bool, attrs: dict) -> None:
+    """Write a session file's root attributes under a hidden name beside ``path``, then rename it to ``path``."""
+    partial = path.with_name(f".{path.name}.creating")
+    try:
+        h5 = h5py.File(partial, "w")
+    except OSError as exc:
+        raise UnwritablePathError(f"cannot create session file {str(path)!r}: {exc}") from exc
+    try:
+        with h5:
+            _write_root_attributes(h5.attrs, **attrs)
+            h5.flush()
+            if fsync:
+                os.fsync(h5.id.get_vfd_handle())
+        os.replace(partial, path)
+    except BaseException:
+        partial.unlink(missing_ok=True)
+        raise
+    if fsync and hasattr(os, "O_DIRECTORY"):  # a power cut must not lose the new file's directory entry
+        folder = os.open(path.resolve().parent, os.O_RDONLY | os.O_DIRECTORY)
+        try:
+            os.fsync(folder)
+        finally:
+            os.close(folder)
 
 
 def _write_root_attributes(attrs, *, controller_url: str, scenario_text: str | None, software_version: str,
