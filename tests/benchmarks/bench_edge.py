@@ -81,7 +81,6 @@ def run() -> dict:
     distance = _distance_to_converged(rw, s) if os.environ.get("MFMA_BENCH_REFERENCE") else {}
     return {"stack": [len(HEIGHTS_M), 256, 256], "window_s": statistics.median(tw), "reflect_s": statistics.median(tr),
             "ratio": ratio, "ratio_min": min(ratios), "ratio_max": max(ratios),
-            "window_iterations": int(getattr(rw, "iterations", 0) or 0),
             "window_repeat_max_diff_over_noise": again, "window_vs_reflect_rms_diff_over_noise": versus,
             "load_average_1min": load_average(), **distance,
             "targets": [target("whole analysis --edge window / --edge reflect, 8x256^2", ratio, TARGET_RATIO, "x")]}
