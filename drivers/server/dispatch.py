@@ -5,7 +5,7 @@ It checks every argument against the controller's hard limits itself, answers ba
 session), makes the stage safe after any controller fault, and runs a watchdog that withdraws the tip, switches
 the drive off and sets the bias (and a magnet's field) to zero when a client falls silent while the tip is near the
 surface or a magnet is left on. Over ZeroMQ, where several clients may share the server, the silence that counts
-is that of the client that last sent a command that is not a query (the one driving the stage): a second client
+is that of the client that last sent a command acting on the instrument (the one driving the stage): a second client
 that only polls the status does not keep a dead driver's stage engaged. The transports run the commands in a worker
 thread (:mod:`.inflight`), so an abort request is handled ahead of a long command in flight, and the watchdog acts
 through the controller's ``abort()`` and also aborts a command that overruns its expected time.
@@ -57,7 +57,7 @@ class Dispatcher:
         self._watchdog_armed = True
         self.watchdog_trips = 0
         self.sessions: OrderedDict[str, Session] = OrderedDict()
-        self.driving: str | None = None  # session of the last command that is not a query (network clients)
+        self.driving: str | None = None  # session of the last command that acts on the instrument (network)
         self._heard: dict[str, float] = {}  # when each network client last spoke (plain assignments: two threads)
         self.watch = inflight.CommandWatch(controller, watchdog_s, clock)  # the command in flight
 
@@ -143,7 +143,7 @@ class Dispatcher:
         try:
             req = messages.decode_request(frames)
             cmd = req.command
-            if not cmd.query:
+            if not cmd.query and cmd.method is not None:  # it acts on the instrument (*CLS only on the server)
                 self.driving = req.session
             fields = self.execute(cmd, req.args, session)
             out = messages.encode_reply(cmd, messages.Reply(req.id, True, fields))

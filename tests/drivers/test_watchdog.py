@@ -74,6 +74,7 @@ def test_a_client_that_only_polls_does_not_keep_a_silent_drivers_stage_engaged()
 
     assert send("driver", 1, "FEEDback:SET", True, 0.2, None, None).ok  # the driving client engages
     assert fake.status().engaged
+    assert send("display", 9, "*CLS").ok and d.driving == "driver"  # clearing its error queue drives nothing
     for n, t in enumerate((0.5, 1.0, 1.5, 2.0)):  # the driver is silent from t = 0; a display polls
         clock.t = t
         assert send("display", n + 1, "STATus?").ok
