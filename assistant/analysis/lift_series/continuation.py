@@ -68,6 +68,7 @@ class ContinuationFit:
     window_mean: np.ndarray | None = None   # (H,) window mean of ``model`` (windowed fit only) [s]
     iterations: int = 0                     # conjugate-gradient iterations (windowed fit only)
     drift_px: np.ndarray | None = None      # (J, 2) drift refined with the field (windowed fit only) [px]
+    solution: np.ndarray | None = None      # (K, R, C) the padded field solved for (windowed fit only) [s]
     grid: str = "rfft"                      # cells of amplitude/decay: "rfft" half plane or "dct" (orthonormal)
     unit_residual_rms: np.ndarray | None = None  # (H,) residual rms that white noise of unit variance at
 

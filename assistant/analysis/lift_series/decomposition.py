@@ -151,12 +151,15 @@ def _with_offset_error(inputs, edge: str) -> SeriesAnalysis:
     """The decomposition; with a drive offset read from the bias grid, its error in the standard errors
     (:func:`.drive_offset.with_offset_error`, from the decompositions at the offset less and plus its standard
     error) and the advice taken again with them."""
-    offset, a = _decompose(*inputs, edge=edge)
+    warm: dict = {}
+    offset, a = _decompose(*inputs, edge=edge, warm=warm)
     if offset is None:
         return a
-    # at the drift already found: it hardly moves with the offset, and its rounds are most of the time
-    lo, hi = (_decompose(*inputs, edge=edge, drift_px=a.drift_px.reshape(-1, 2), offset=dataclasses.replace(
-        offset, offset_deg=offset.offset_deg + side * offset.offset_std_deg))[1] for side in (-1.0, 1.0))
+    # at the drift already found: it hardly moves with the offset, and its rounds are most of the time; the
+    # windowed fit starts from the first one's field (same grid, nearly the same data)
+    lo, hi = (_decompose(*inputs, edge=edge, drift_px=a.drift_px.reshape(-1, 2), warm=dict(warm),
+                         offset=dataclasses.replace(offset, offset_deg=offset.offset_deg + side * offset.offset_std_deg)
+                         )[1] for side in (-1.0, 1.0))
     probe, options = inputs[5], inputs[6]
     a = with_offset_error(a, lo, hi, offset, SignalSpace(probe.spring_constant_n_per_m, probe.quality_factor))
     rec = recommend_lift(heights_m=a.heights_m, magnetic_rms=a.magnetic_rms_deg,
@@ -208,7 +211,7 @@ def _validate(phase_deg, heights_m, bias_v):
 
 def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: ProbeModel, options: _Options, *,
                edge: str, offset: DriveOffset | None = None,
-               drift_px=None) -> tuple[DriveOffset | None, SeriesAnalysis]:
+               drift_px=None, warm: dict | None = None) -> tuple[DriveOffset | None, SeriesAnalysis]:
     stack, h, volts = _validate(phase_deg, heights_m, bias_v)
     try:
         pixel_m = pixel_pair_m(pixel_m)
@@ -253,7 +256,7 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
         fit_var = image_var + np.repeat(nb * lateral.added_var, nb)  # as the fit averages the biases
     fit, drift, aligned, valid = fit_magnetic(src, okf, h, pixel_m, nb=nb, edge=edge, band=band, image_var=fit_var,
                                               dof=dof, register=options.register, n_refine=options.n_refine,
-                                              drift_px=drift_px)
+                                              drift_px=drift_px, warm=warm)
     drift_cov = None
     if edge == "reflect" and options.register and drift_px is None:  # (a drift given was found, with its errors)
         own_var = image_var if lateral is None else lateral.image_var_after  # each image's noise, as fitted

@@ -17,12 +17,14 @@ __all__ = ["fit_magnetic"]
 
 
 def fit_magnetic(flat, okf, h, pixel_m, *, nb: int, edge: str, band: int, register: bool, n_refine: int, image_var,
-                 dof, drift_px=None):
+                 dof, drift_px=None, warm: dict | None = None):
     """Register the (height x bias) images, mean-free in signal units (holes filled), and fit the continuation
     with the estimator ``edge``, weighted by the measured noise of the images (``image_var``, ``dof`` degrees of
     freedom each). ``register``: estimate and refine the drift; ``n_refine``: drift rounds of the periodic model;
-    ``drift_px`` (H * B, 2): a drift already found, used as it is (no registration). Returns the fit, the drift
-    (H * B, 2) and the aligned images with their validity."""
+    ``drift_px`` (H * B, 2): a drift already found, used as it is (no registration). ``warm``: the windowed
+    fit starts from ``warm["solution"]`` if there is one and leaves its own there (fits of nearly the same data:
+    the drive-offset error's decompositions). Returns the fit, the drift (H * B, 2) and the aligned images with
+    their validity."""
     nimg, rows, cols = flat.shape
     nh = nimg // nb
     drift = np.zeros((nimg, 2)) if drift_px is None else np.array(drift_px, float).reshape(nimg, 2)
@@ -58,7 +60,10 @@ def fit_magnetic(flat, okf, h, pixel_m, *, nb: int, edge: str, band: int, regist
 
     fit = fit_continuation_windowed(flat, heights_m=h, pixel_m=pixel_m, height_index=np.repeat(np.arange(nh), nb),
                                     drift_px=drift, valid=okf, noise_std=np.sqrt(height_var * nb),
-                                    refine_drift=register, drift_tol_px=5e-4, **WINDOW_SOLVE)
+                                    refine_drift=register, drift_tol_px=5e-4,
+                                    start=None if warm is None else warm.get("solution"), **WINDOW_SOLVE)
+    if warm is not None:
+        warm["solution"] = fit.solution
     # the magnetic window mean is not separable from the image-mean parts (they absorb it)
     fit = dataclasses.replace(fit, model=fit.model - fit.window_mean[:, None, None])
     drift = fit.drift_px

@@ -60,7 +60,7 @@ def fit_continuation_windowed(images: np.ndarray, *, heights_m, pixel_m, height_
                               max_weight_ratio: float = 10.0, refine_drift: bool = True,
                               alias_axes="auto", alias_ridge: float = 1e-3, noise_std=None,
                               drift_tol_px: float = 1e-3, single: bool = False,
-                              workers: int | None = None) -> ContinuationFit:
+                              workers: int | None = None, start: np.ndarray | None = None) -> ContinuationFit:
     """Laplace continuation of a scan that is a window onto a larger field (no periodicity assumed).
 
     The unknown is the magnetic image ``U`` at the first height on a grid padded by ``pad_px`` on every
@@ -129,6 +129,9 @@ def fit_continuation_windowed(images: np.ndarray, *, heights_m, pixel_m, height_
         returned maps are computed in double precision.
     workers : int, optional
         Threads of each FFT (scipy.fft); default 1.
+    start : ndarray, optional
+        Where the solve starts: the ``solution`` of an earlier fit of nearly the same data on the same grid (same
+        shape, drift and heights); ignored if its shape differs. Default zero.
 
     Returns
     -------
@@ -141,11 +144,11 @@ def fit_continuation_windowed(images: np.ndarray, *, heights_m, pixel_m, height_
     """
     with sp_fft.set_workers(workers if workers is not None else 1):
         return _fit(images, heights_m, pixel_m, height_index, drift_px, valid, pad_px, ridge, tol, max_iter, n_reweight,
-                    max_weight_ratio, refine_drift, alias_axes, alias_ridge, noise_std, drift_tol_px, single)
+                    max_weight_ratio, refine_drift, alias_axes, alias_ridge, noise_std, drift_tol_px, single, start)
 
 
 def _fit(images, heights_m, pixel_m, height_index, drift_px, valid, pad_px, ridge, tol, max_iter, n_reweight,
-         max_weight_ratio, refine_drift, alias_axes, alias_ridge, noise_std, drift_tol_px, single):
+         max_weight_ratio, refine_drift, alias_axes, alias_ridge, noise_std, drift_tol_px, single, start):
     y = np.asarray(images, dtype=float)
     h = np.asarray(heights_m, dtype=float)
     nh = h.size
@@ -225,6 +228,8 @@ def _fit(images, heights_m, pixel_m, height_index, drift_px, valid, pad_px, ridg
     known = noise_std is not None
     sigma2 = np.asarray(noise_std, dtype=float) ** 2 if known else np.ones(nh)
     x = np.zeros((nk,) + shape)
+    if start is not None and np.shape(start) == x.shape:
+        x[...] = start
     total_iter = 0
     q_win, _, cw = rfft_wavenumbers((rows, cols), (pr, pc))
     fr_w = np.fft.fftfreq(rows)[:, None] / pr
@@ -356,4 +361,4 @@ def _fit(images, heights_m, pixel_m, height_index, drift_px, valid, pad_px, ridg
                            magnetic_rms=rms, magnetic_rms_std=rms_std, residual_rms=residual_rms,
                            expected_residual_rms=expected, inverse_weight_sum=inv_s, decay=e0,
                            noise_power=noise_power, heights_m=h, pixel_m=(pr, pc), window_mean=window_mean,
-                           iterations=total_iter, drift_px=d)
+                           iterations=total_iter, drift_px=d, solution=x)

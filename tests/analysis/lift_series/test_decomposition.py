@@ -270,3 +270,21 @@ def test_auto_is_decided_by_the_geometry_and_says_so_on_a_small_scan():
     assert np.abs(w.magnetic_rms_deg / _window_truth_rms(s, w) - 1).max() < 0.01
     assert np.abs(w.drift_px - s.drift_px).max() < 0.3
     assert w.to_dict()["edge"] == "window"
+
+
+def test_the_windowed_fit_resumes_from_an_earlier_solution():
+    # the drive-offset error refits nearly the same data: started from the first fit's field, the solve has next to
+    # nothing left to do and ends where a fit from zero ends, within the solver's tolerance; a field of another
+    # grid is not used
+    from assistant.analysis.lift_series.windowed import fit_continuation_windowed
+
+    s = build_series(rows=64, cols=64, heights_m=np.array([20, 30, 45, 70]) * 1e-9, noise_deg=0.05,
+                     magnetic_scale=0.3, margin_px=24, seed=4)
+    stack = s.phase_deg - s.phase_deg.mean(axis=(1, 2), keepdims=True)
+    kw = dict(heights_m=s.heights_m, pixel_m=s.pixel_m, noise_std=np.full(4, 0.05), refine_drift=False, tol=1e-6)
+    cold = fit_continuation_windowed(stack, **kw)
+    again = fit_continuation_windowed(stack, start=cold.solution, **kw)
+    assert cold.iterations > 20 and again.iterations <= 2
+    assert np.abs(again.model - cold.model).max() < 1e-3 * 0.05
+    other = fit_continuation_windowed(stack, start=cold.solution[..., :-2], **kw)  # another grid: from zero
+    assert other.iterations == cold.iterations and np.array_equal(other.model, cold.model)
