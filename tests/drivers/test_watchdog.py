@@ -59,7 +59,7 @@ def test_silence_while_engaged_trips_on_the_virtual_clock():
 
 def test_a_client_that_only_polls_does_not_keep_a_silent_drivers_stage_engaged():
     # several network clients may share a server: the silence of the one that drives the stage (its last command
-    # that is not a query) counts. Before, any client's message reset the watchdog: a status display polling every
+    # acting on the instrument) counts. Before, any client's message reset the watchdog: a status display polling every
     # second kept the tip engaged after the driving client had died, until the display stopped too
     from drivers.wire import messages
     from drivers.wire.commands import command
