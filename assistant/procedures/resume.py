@@ -47,7 +47,7 @@ class InstrumentMismatch(AssistantError, ValueError):
 
 def run_plan_json(settings: SeriesSettings | FieldSeriesSettings, calibration: CalibrationSettings, *,
                   probe_record: bool) -> str:
-    """The run plan kept in the session file before anything moves (see ``SessionFile.write_run_plan``); a field
+    """The run plan kept in the session file before anything moves (``SessionFile.create(run_plan_json=...)``); a field
     series is kept under ``field_series``, a lift series under ``series``."""
     key = "field_series" if isinstance(settings, FieldSeriesSettings) else "series"
     return json.dumps({key: settings.to_dict(), "calibration": dataclasses.asdict(calibration),

@@ -71,7 +71,8 @@ class SessionFile(FieldMapGroups, FieldSeriesGroups):
                software_version: str, fsync: bool = False, now: datetime | None = None,
                run_plan_json: str | None = None) -> "SessionFile":
         """Create a new session file; refuses to overwrite an existing file. ``controller_url`` is stored
-        without secrets; ``run_plan_json``, what the run was asked to do, as with :meth:`write_run_plan`.
+        without secrets; ``run_plan_json``, what the run was asked to do (JSON), as the root attribute
+        ``run_plan_json`` (``info()`` reads it), so that a run stopped before its series began can be resumed.
 
         The file is written under a hidden temporary name beside ``path`` and renamed to ``path`` once its root
         attributes (and the plan) are on disk, so a run stopped at any moment (Ctrl-C, a kill, a power cut)
@@ -194,14 +195,6 @@ class SessionFile(FieldMapGroups, FieldSeriesGroups):
             fill_group(group, *record)
             if whole is not None:
                 fill_group(group.create_group(RESULT_GROUP), *whole)
-
-    def write_run_plan(self, plan_json: str) -> None:
-        """Keep what the run was asked to do (JSON) as the root attribute ``run_plan_json`` (``info()`` reads it),
-        so that a run stopped before its series began can still be resumed."""
-        if len(plan_json.encode()) > MAX_ATTR_TEXT:
-            raise SessionFileError(f"run plan is {len(plan_json.encode())} bytes; limit {MAX_ATTR_TEXT}")
-        with self._writing("the run plan"):
-            self._h5.attrs["run_plan_json"] = plan_json
 
     def mark_complete(self, complete: bool = True) -> None:
         """Mark the session as finished normally (or, resuming it, as not finished again)."""

@@ -87,9 +87,10 @@ def serve_zmq(d: Dispatcher, lf: LinkFaults, bind: str | None, server_key: str |
                 outbox.forward(sock)
             if sock in ready:
                 msg = sock.recv_multipart()
-                d.activity(_session_of(msg))
+                session = _session_of(msg)
+                d.activity(session)
                 if not inflight.handle_zmq_abort(d, sock, msg):  # an abort goes ahead of the command in flight
-                    worker.submit(functools.partial(_zmq_job, d, lf, outbox, msg))
+                    worker.submit(functools.partial(_zmq_job, d, lf, outbox, msg, session))
             inflight.watch(d, worker)
     finally:
         if worker is not None:
@@ -103,9 +104,9 @@ def serve_zmq(d: Dispatcher, lf: LinkFaults, bind: str | None, server_key: str |
         ctx.term()
 
 
-def _zmq_job(d: Dispatcher, lf: LinkFaults, outbox, msg: list[bytes]) -> None:
+def _zmq_job(d: Dispatcher, lf: LinkFaults, outbox, msg: list[bytes], session: str | None) -> None:
     _zmq_message(d, lf, outbox, msg)  # the outbox stands in for the socket: the loop sends the reply
-    d.activity(_session_of(msg))  # a client waiting for a long command was not silent meanwhile
+    d.activity(session)  # a client waiting for a long command was not silent meanwhile
 
 
 def _session_of(msg: list[bytes]) -> str | None:

@@ -115,8 +115,8 @@ def test_approach_refuses_a_setpoint_the_free_lever_cannot_reach():
 
 def test_what_is_left_is_read_from_the_file(tmp_path, interrupted):
     plan_only = tmp_path / "plan.h5"  # stopped during the calibration: only the plan is there
-    with SessionFile.create(plan_only, controller_url="sim://", software_version="test") as sf:
-        sf.write_run_plan(run_plan_json(SERIES, CalibrationSettings(thermal_seconds=0.3), probe_record=False))
+    SessionFile.create(plan_only, controller_url="sim://", software_version="test", run_plan_json=run_plan_json(
+        SERIES, CalibrationSettings(thermal_seconds=0.3), probe_record=False)).close()
     p = read_resume_plan(plan_only)
     assert p.stage == "start" and p.calibration.thermal_seconds == 0.3 and p.series == SERIES
     bare = tmp_path / "bare.h5"
@@ -139,8 +139,8 @@ def test_what_is_left_of_a_field_series_is_read_from_the_file(tmp_path):
 
     fields = FieldSeriesSettings(fields_a_per_m=(3e5, 0.0, -3e5), lines=2, pixels=4, scan_size_m=1e-6)
     plan_only = tmp_path / "plan.h5"  # a field-series run stopped during its calibration
-    with SessionFile.create(plan_only, controller_url="sim://", software_version="test") as sf:
-        sf.write_run_plan(run_plan_json(fields, CalibrationSettings(thermal_seconds=0.3), probe_record=True))
+    SessionFile.create(plan_only, controller_url="sim://", software_version="test", run_plan_json=run_plan_json(
+        fields, CalibrationSettings(thermal_seconds=0.3), probe_record=True)).close()
     p = read_resume_plan(plan_only)
     assert (p.stage, p.is_field_series, p.series, p.probe_record) == ("start", True, fields, True)
     written = tmp_path / "written.h5"  # every line of every field step written, the loop analysis not
