@@ -55,11 +55,12 @@ def targets_table(table: list[dict], results: dict) -> str:
              f"{results['load_average_1min_end']:.1f} at the end; {results['cpus']} cpus)"]
     for t in table:
         unit = t["unit"]
-        value = f"{t['value']:.4g} {unit}".strip()
+        measured = t["value"] == t["value"]  # NaN: not measured
+        value = f"{t['value']:.4g} {unit}".strip() if measured else "-"
         limit = f"{t['target']:.4g} {unit}".strip()
-        share = t["value"] / t["target"] if t["target"] else float("nan")
-        lines.append(f"  {t['what']:<{width}} {value:>12}  target <= {limit:<10} {share:6.2f} of it  "
-                     f"{'met' if t['met'] else 'MISSED'}")
+        share = f"{t['value'] / t['target']:6.3g} of it" if measured and t["target"] else " " * 12
+        status = "met" if t["met"] else ("MISSED" if measured else "not measured")
+        lines.append(f"  {t['what']:<{width}} {value:>12}  target <= {limit:<10} {share}  {status}")
     return "\n".join(lines) + "\n"
 
 

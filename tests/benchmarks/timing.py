@@ -62,7 +62,7 @@ def side_by_side(a: list[str], b: list[str] | None, *, runs: int = 5, warmup: in
 
 
 def target(what: str, value: float, limit: float, unit: str = "") -> dict:
-    """One target for ``run.py``'s table: ``value`` must stay at or under ``limit``."""
+    """One target for ``run.py``'s table: ``value`` must stay at or under ``limit`` (NaN: not measured)."""
     return {"what": what, "value": float(value), "target": float(limit), "unit": unit,
             "met": bool(value <= limit)}
 
