@@ -261,13 +261,30 @@ def _finish_stored(args, plan, progress, tip=None) -> int:
     return _finish(args, path, report, wf, analysis, field_map_error)
 
 
-def _finish(args, session_path: Path, report, wf, analysis, field_map_error: str | None = None) -> int:
+def calibration_summary(wf) -> dict:
+    """The cantilever numbers the session used: its own calibration, else the values it was given (no InvOLS)."""
     cal = wf.calibration
-    calib = ({"k_n_per_m": cal.k_n_per_m, "k_std_n_per_m": cal.k_std_n_per_m, "f0_hz": cal.thermal.f0_hz,
-              "q": cal.thermal.q, "invols_nm_per_v": cal.invols_m_per_v * 1e9} if cal is not None else
-             {"k_n_per_m": wf.spring_constant_n_per_m, "k_std_n_per_m": None,
-              "f0_hz": wf.drive.frequency_hz if wf.drive is not None else None,
-              "q": wf.quality_factor, "invols_nm_per_v": None})
+    if cal is not None:
+        return {"k_n_per_m": cal.k_n_per_m, "k_std_n_per_m": cal.k_std_n_per_m, "f0_hz": cal.thermal.f0_hz,
+                "q": cal.thermal.q, "invols_nm_per_v": cal.invols_m_per_v * 1e9}
+    return {"k_n_per_m": wf.spring_constant_n_per_m, "k_std_n_per_m": None,
+            "f0_hz": wf.drive.frequency_hz if wf.drive is not None else None, "q": wf.quality_factor,
+            "invols_nm_per_v": None}
+
+
+def calibration_text(calib: dict) -> str:
+    """:func:`calibration_summary` as one line of the closing summary."""
+    from assistant.formatting import number, quantity
+
+    text = (f"k {quantity(calib['k_n_per_m'], 'N/m', calib['k_std_n_per_m'])}, f0 {quantity(calib['f0_hz'], 'Hz')}, "
+            f"Q {number(calib['q'], digits=3)}")
+    if calib["invols_nm_per_v"] is not None:
+        text += f", optical-lever sensitivity {quantity(calib['invols_nm_per_v'], 'nm/V')}"
+    return text
+
+
+def _finish(args, session_path: Path, report, wf, analysis, field_map_error: str | None = None) -> int:
+    calib = calibration_summary(wf)
     s = wf.series_settings
     summary = {
         "session_file": str(session_path), "report_dir": str(report.out_dir),
@@ -286,10 +303,6 @@ def _finish(args, session_path: Path, report, wf, analysis, field_map_error: str
     from assistant.report.results import render_block, results_block
 
     a = summary["analysis"] or {}
-    cal_text = (f"k {quantity(calib['k_n_per_m'], 'N/m', calib['k_std_n_per_m'])}, f0 {quantity(calib['f0_hz'], 'Hz')}"
-                f", Q {number(calib['q'], digits=3)}")
-    if calib["invols_nm_per_v"] is not None:
-        cal_text += f", optical-lever sensitivity {quantity(calib['invols_nm_per_v'], 'nm/V')}"
     heights = number_list(summary["series"]["heights_nm"], "nm")
     pairs = results_block(a) if a else [("Analysis", "none")]
     fmap = summary.get("field_map")
@@ -298,7 +311,7 @@ def _finish(args, session_path: Path, report, wf, analysis, field_map_error: str
                                    f"{quantity(fmap['height_nm'], 'nm', digits=3)} (periods "
                                    f"{span(*fmap['band_nm'], 'nm')}), stored in the session file as field_map/"))
     emit_text(render_block(pairs + [
-        ("Calibration", cal_text),
+        ("Calibration", calibration_text(calib)),
         ("Series", f"{wf.series_result.completed_lines} lines at {len(s.heights_m)} lift "
                    f"height{'s' if len(s.heights_m) != 1 else ''} ({heights})"
          + (f" × {len(s.biases_v)} biases" if s.biases_v else "")),

@@ -170,12 +170,9 @@ def _analysed(wf, progress, session_path: Path):
 
 
 def _finish(args, session_path: Path, report, wf, analysis) -> int:
-    cal = wf.calibration
-    calib = ({"k_n_per_m": cal.k_n_per_m, "k_std_n_per_m": cal.k_std_n_per_m, "f0_hz": cal.thermal.f0_hz,
-              "q": cal.thermal.q, "invols_nm_per_v": cal.invols_m_per_v * 1e9} if cal is not None else
-             {"k_n_per_m": wf.spring_constant_n_per_m, "k_std_n_per_m": None,
-              "f0_hz": wf.drive.frequency_hz if wf.drive is not None else None,
-              "q": wf.quality_factor, "invols_nm_per_v": None})
+    from assistant.cli.cmd_run import calibration_summary, calibration_text
+
+    calib = calibration_summary(wf)
     s, res = wf.field_settings, wf.field_result
     loop = analysis.to_dict()
     summary = {
@@ -188,7 +185,7 @@ def _finish(args, session_path: Path, report, wf, analysis) -> int:
     if args.json:
         emit_json(summary)
         return 0
-    from assistant.formatting import number, quantity
+    from assistant.formatting import quantity
     from assistant.report.results import render_block
 
     ka = lambda key: None if loop[key] is None else loop[key] * 1e3  # noqa: E731  (A/m for quantity)
@@ -200,8 +197,7 @@ def _finish(args, session_path: Path, report, wf, analysis) -> int:
         ("Elements", f"{loop['dots']} ({analysis.elements.source})"),
         ("Tip reversals", ", ".join(quantity(h * 1e3, "A/m") for h in rev) if rev else "none"),
         ("Switched by the tip", ", ".join(map(str, loop["tip_switched_elements"])) or "none"),
-        ("Calibration", f"k {quantity(calib['k_n_per_m'], 'N/m', calib['k_std_n_per_m'])}, "
-                        f"f0 {quantity(calib['f0_hz'], 'Hz')}, Q {number(calib['q'], digits=3)}"),
+        ("Calibration", calibration_text(calib)),
         ("Field series",
          f"{res.completed_steps} field steps × {s.lines} lines at {quantity(s.lift_height_m, 'm')} lift"),
         ("Session file", str(session_path)), ("Report", str(report.out_dir))]
