@@ -77,7 +77,7 @@ class SessionFile(FieldMapGroups, FieldSeriesGroups):
         The file is written under a hidden temporary name beside ``path`` and renamed to ``path`` once its root
         attributes (and the plan) are on disk, so a run stopped at any moment (Ctrl-C, a kill, a power cut)
         leaves either no session file or one that says what it was for. A stop while the temporary file is
-        written removes it, except after SIGKILL or a power cut (a ``.*.creating`` file, never read)."""
+        written removes it, except after SIGKILL or a power cut (a ``.<name>.<pid>.creating`` file, never read)."""
         path = Path(path)
         if path.exists():
             raise UnwritablePathError(f"session file {str(path)!r} already exists; choose a new name")
@@ -316,8 +316,10 @@ def _open_h5(path: Path, mode: str) -> h5py.File:
 
 
 def _write_new_file(path: Path, *, fsync: bool, attrs: dict) -> None:
-    """Write a session file's root attributes under a hidden name beside ``path``, then rename it to ``path``."""
-    partial = path.with_name(f".{path.name}.creating")
+    """Write a session file's root attributes under a hidden name beside ``path``, then give it the name ``path``
+    (:func:`_publish`). The hidden name carries the process id: two runs started in the same second in one folder
+    pick the same ``path`` (``outputs.new_session_path``), and must not write into each other's file."""
+    partial = path.with_name(f".{path.name}.{os.getpid()}.creating")
     try:
         h5 = h5py.File(partial, "w")
     except OSError as exc:
@@ -328,7 +330,7 @@ def _write_new_file(path: Path, *, fsync: bool, attrs: dict) -> None:
             h5.flush()
             if fsync:
                 os.fsync(h5.id.get_vfd_handle())
-        os.replace(partial, path)
+        _publish(partial, path)
     except BaseException:
         partial.unlink(missing_ok=True)
         raise
@@ -338,6 +340,22 @@ def _write_new_file(path: Path, *, fsync: bool, attrs: dict) -> None:
             os.fsync(folder)
         finally:
             os.close(folder)
+
+
+def _publish(partial: Path, path: Path) -> None:
+    """Give the finished file ``partial`` the name ``path``, never over a file that took that name meanwhile (the
+    other run's session): a hard link fails where the name exists, and the hidden name is then removed. On a
+    file system without hard links (FAT), a rename after a check, which leaves a moment for such a race."""
+    try:
+        os.link(partial, path)
+    except FileExistsError:
+        raise UnwritablePathError(f"session file {str(path)!r} already exists; choose a new name") from None
+    except OSError:
+        if path.exists():
+            raise UnwritablePathError(f"session file {str(path)!r} already exists; choose a new name") from None
+        os.replace(partial, path)
+        return
+    partial.unlink()
 
 
 def _write_root_attributes(attrs, *, controller_url: str, scenario_text: str | None, software_version: str,

@@ -313,14 +313,14 @@ def test_a_new_file_appears_only_with_its_root_attributes_and_plan(tmp_path, mon
 
     path = tmp_path / "session.h5"
     seen = {}
-    real_replace = os.replace
+    real_link = os.link
 
-    def spying_replace(src, dst):
+    def spying_link(src, dst):
         with h5py.File(src, "r") as f:  # what the final name will show, at the moment it appears
             seen.update(plan=f.attrs.get("run_plan_json"), format=f.attrs.get("format"))
-        real_replace(src, dst)
+        real_link(src, dst)
 
-    monkeypatch.setattr(session_file.os, "replace", spying_replace)
+    monkeypatch.setattr(session_file.os, "link", spying_link)
     with SessionFile.create(path, controller_url="sim://", software_version="t", run_plan_json='{"lines": 8}') as s:
         assert s.info().run_plan_json == '{"lines": 8}' and s.path == path
     assert seen == {"plan": '{"lines": 8}', "format": FORMAT_NAME}
@@ -340,3 +340,33 @@ def test_a_new_file_appears_only_with_its_root_attributes_and_plan(tmp_path, mon
     with pytest.raises(SessionFileError, match="run plan is"):
         SessionFile.create(tmp_path / "big.h5", controller_url="sim://", software_version="t",
                            run_plan_json="x" * 70_000)
+
+
+@pytest.mark.parametrize("hard_links", [True, False])
+def test_a_new_file_never_takes_the_name_of_a_file_that_appeared_meanwhile(tmp_path, monkeypatch, hard_links):
+    """Two runs started in the same second in one folder pick the same name: the one that finishes creating its
+    file second gets a one-line error, and the first run's session is left as it is (also where the file system
+    has no hard links and the name is given by a rename)."""
+    import os
+
+    import assistant.storage.session_file as session_file
+
+    path = tmp_path / "session.h5"
+    real_write = session_file._write_root_attributes
+
+    def other_run_first(attrs, **kwargs):  # the other run's file takes the name while this one is written
+        # this run writes under a hidden name of its own process: the other run's hidden file is another one
+        assert [p.name for p in tmp_path.iterdir()] == [f".session.h5.{os.getpid()}.creating"]
+        path.write_bytes(b"the other run's session")
+        real_write(attrs, **kwargs)
+
+    def no_hard_links(src, dst):
+        raise PermissionError(1, "Operation not permitted")
+
+    monkeypatch.setattr(session_file, "_write_root_attributes", other_run_first)
+    if not hard_links:
+        monkeypatch.setattr(session_file.os, "link", no_hard_links)
+    with pytest.raises(UnwritablePathError, match="already exists"):
+        SessionFile.create(path, controller_url="sim://", software_version="t")
+    assert path.read_bytes() == b"the other run's session"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["session.h5"]  # no hidden file left
