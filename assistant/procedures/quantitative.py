@@ -173,21 +173,26 @@ def resolve_tip(*, tip_path: str | Path | None, probe: str | None, record=None) 
 
 
 def _calibration_rel_std(tip: TipFile, image: ImageInput, notes: list[str]) -> float:
-    """Relative uncertainty of (k/Q)_image / (k/Q)_reference: zero when both come from one calibration."""
-    same = (math.isclose(tip["spring_constant_n_per_m"], image.spring_constant_n_per_m, rel_tol=1e-9)
-            and math.isclose(tip["quality_factor"], image.quality_factor, rel_tol=1e-9))
-    if same:
+    """Relative uncertainty of the image's force-gradient scale over the reference's: k/Q for a phase image, k
+    for a frequency-shift image (its Q is NaN: F' does not involve it); zero when both come from one
+    calibration and one kind of signal."""
+    sides = ((tip["spring_constant_n_per_m"], tip["quality_factor"], tip.get("spring_constant_std_n_per_m"),
+              tip.get("quality_factor_std")),
+             (image.spring_constant_n_per_m, image.quality_factor, image.spring_constant_std_n_per_m,
+              image.quality_factor_std))
+    (k_ref, q_ref, _, _), (k_img, q_img, _, _) = sides
+    same_q = (not math.isfinite(q_ref) and not math.isfinite(q_img)) or math.isclose(q_ref, q_img, rel_tol=1e-9)
+    if math.isclose(k_ref, k_img, rel_tol=1e-9) and same_q:
         return 0.0
-    parts = []
-    for k, q, ks, qs in ((tip["spring_constant_n_per_m"], tip["quality_factor"], tip.get("spring_constant_std_n_per_m"),
-                          tip.get("quality_factor_std")),
-                         (image.spring_constant_n_per_m, image.quality_factor, image.spring_constant_std_n_per_m,
-                          image.quality_factor_std)):
-        for value, std in ((k, ks), (q, qs)):
+    parts, unstated = [], False
+    for k, q, ks, qs in sides:
+        for value, std in ((k, ks), (q, qs)) if math.isfinite(q) else ((k, ks),):
             if std is None or not math.isfinite(std):
-                notes.append("k or Q has no stated uncertainty: their part of the map's uncertainty is left out")
+                unstated = True
                 continue
             parts.append(std / value)
+    if unstated:
+        notes.append("k or Q has no stated uncertainty: their part of the map's uncertainty is left out")
     return float(math.sqrt(sum(p * p for p in parts)))
 
 

@@ -160,7 +160,7 @@ def load_npz(path: Path, *, wanted_plane_m: float | None = None) -> ImageInput:
         q = _positive(d.get("quality_factor", np.nan), "quality_factor", path)
         signal, kind = np.asarray(d["phase_deg"], dtype=float), "phase"
     elif "frequency_shift_hz" in d:
-        q = float(d["quality_factor"]) if "quality_factor" in d else float("nan")
+        q = float("nan")  # F' from a frequency shift does not involve Q: NaN tells the steps after it so
         f0 = _positive(d.get("resonance_hz", np.nan), "resonance_hz (needed with frequency_shift_hz)", path)
         signal, kind = np.asarray(d["frequency_shift_hz"], dtype=float), "frequency"
     else:
@@ -205,7 +205,8 @@ def load_npz(path: Path, *, wanted_plane_m: float | None = None) -> ImageInput:
         grad = force_gradient_from_phase(signal[i], spring_constant_n_per_m=k, quality_factor=q)
     else:
         grad = force_gradient_from_frequency_shift(signal[i], spring_constant_n_per_m=k, resonance_hz=f0)
-    std = {key: float(d[key]) if key in d else None for key in ("spring_constant_std_n_per_m", "quality_factor_std")}
+    std = {key: float(d[key]) if key in d and (kind == "phase" or key.startswith("spring")) else None
+           for key in ("spring_constant_std_n_per_m", "quality_factor_std")}
     return ImageInput(source=str(path), gradient_n_per_m=grad, pixel_m=pixel, lift_m=float(heights[i]),
                       plane_m=float(heights[i]) + plane_offset, amplitude_m=amp, spring_constant_n_per_m=k,
                       quality_factor=q, heights_m=tuple(heights), notes=notes, **std)

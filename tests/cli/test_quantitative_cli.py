@@ -219,6 +219,32 @@ def test_frequency_shift_images_give_the_same_tip(files, record_dir, capsys, tmp
     assert j["dipole_a_m2"] == pytest.approx(json.loads(out)["dipole_a_m2"], rel=0.02)
 
 
+def test_a_frequency_shift_map_counts_k_once_and_q_never(files, capsys, tmp_path):
+    # F' from a frequency shift involves k alone: with one calibration for the reference and the sample, k's
+    # uncertainty cancels in the map as it does for two phase images (before, Q's NaN made the two calibrations
+    # look different, both k uncertainties were added and a note said Q had no stated uncertainty)
+    d, ref, sam = files
+    f0 = 75e3
+    for name, grad, lift in (("ref", ref.gradient_n_per_m, 20.0), ("sam", sam.gradient_n_per_m, 25.0)):
+        np.savez(tmp_path / f"{name}_fm.npz", frequency_shift_hz=f0 * (np.sqrt(1.0 - grad / K_SPRING) - 1.0),
+                 resonance_hz=f0, lift_nm=lift, pixel_nm=10.0, spring_constant_n_per_m=K_SPRING,
+                 spring_constant_std_n_per_m=0.1 * K_SPRING)
+    medians = {}
+    for kind, tip_src, sample in (("phase", d / "ref.npz", d / "sample.npz"),
+                                  ("frequency", tmp_path / "ref_fm.npz", tmp_path / "sam_fm.npz")):
+        tip = tmp_path / f"{kind}_tip.npz"
+        code, out, err = run(capsys, "analyze", "tip", str(tip_src), "--ms-ka-per-m", "600", "--thickness-nm", "12",
+                             "--out", str(tip), "--json")
+        assert code == 0, err
+        code, out, err = run(capsys, "analyze", "field", str(sample), "--tip", str(tip), "--out",
+                             str(tmp_path / f"{kind}_field.npz"), "--json")
+        assert code == 0, err
+        j = json.loads(out)
+        assert not any("no stated uncertainty" in n for n in j["notes"]), j["notes"]
+        medians[kind] = j["hz_std_median_a_per_m"]
+    assert medians["frequency"] == pytest.approx(medians["phase"], rel=0.1)
+
+
 def test_run_field_map_needs_a_probe_with_a_ttf(record_dir, capsys, tmp_path):
     # checked before anything moves
     code, out, err = run(capsys, "run", "--field-map", "--out", str(tmp_path / "o"))
