@@ -78,7 +78,8 @@ def tip(args) -> int:
                f"measurement plane {quantity(d['measurement_plane_nm'], 'nm')}; reference Ms = "
                f"{number(d['ms_ka_per_m'], d['ms_std_ka_per_m'])} kA/m, t = "
                f"{quantity(d['thickness_nm'], 'nm', d['thickness_std_nm'])}",
-               f"point probe: {pp}", f"  {d['point_probe_verdict']}", *[f"note: {n}" for n in d["notes"]],
+               f"point probe: {pp}", f"  {d['point_probe_verdict']}", *[f"warning: {w}" for w in d["warnings"]],
+               *[f"note: {n}" for n in d["notes"]],
                *[f"figure: {f}" for f in d["figures"]], f"conventions: {CONVENTIONS}"])
     return 0
 

@@ -43,7 +43,7 @@ def tip_arrays(cal) -> dict:
             "dipole_a_m2": pp.moment_a_m2 if pp else np.nan, "monopole_a_m": pp.monopole_a_m if pp else np.nan,
             "offset_nm": pp.offset_m * 1e9 if pp else np.nan,
             "amplitude_nm": np.nan if cal.amplitude_m is None else cal.amplitude_m * 1e9,
-            "point_probe_verdict": pp.verdict if pp else (cal.point_probe_error or ""),
+            "point_probe_verdict": cal.to_dict()["point_probe_verdict"],
             "pattern": t.pattern, "initial_pattern": t.initial_pattern, "tip_moment": cal.tip_moment,
             "measurement_plane_nm": cal.plane_m * 1e9}
 

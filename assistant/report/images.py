@@ -21,6 +21,7 @@ from matplotlib.colors import Colormap, ListedColormap, Normalize
 from matplotlib.figure import Figure
 from matplotlib.patches import Rectangle
 
+from assistant.analysis.background import remove_plane
 from assistant.errors import InputError
 from assistant.report.colours import phase_rgb, symmetric_limit
 from assistant.report.panel_grid import panel_grid
@@ -56,18 +57,6 @@ def _draw(ax: Axes, image: np.ndarray, *, size_um: float, cmap: Colormap, norm: 
     ax.set_ylim(0, size_um)
     ax.set_aspect("equal")
     return im
-
-
-def remove_plane(topography_m: np.ndarray) -> np.ndarray:
-    """Subtract the least-squares plane through the finite pixels (display levelling only)."""
-    z = np.asarray(topography_m, dtype=np.float64)
-    rows, cols = np.indices(z.shape)
-    ok = np.isfinite(z)
-    if ok.sum() < 3:
-        return z - np.nanmean(z) if ok.any() else z
-    design = np.column_stack([np.ones(ok.sum()), rows[ok], cols[ok]])
-    coef, *_ = np.linalg.lstsq(design, z[ok], rcond=None)
-    return z - (coef[0] + coef[1] * rows + coef[2] * cols)
 
 
 def topography_figure(topography_m: np.ndarray, *, scan_size_m: float, lines: int | None = None,

@@ -26,7 +26,7 @@ from assistant.report.imaging_sections import imaging_section
 from assistant.report.calibration_figures import write_sweep_figure, write_thermal_figure
 from assistant.report.imaging_figures import write_imaging_figures
 from assistant.report.figure_jobs import FigureJobs, Job
-from assistant.report.images import remove_plane
+from assistant.analysis.background import remove_plane
 from assistant.report.loop_report import field_series_report
 from assistant.report.media_report import media_section
 from assistant.report.series_figures import write_series_figures

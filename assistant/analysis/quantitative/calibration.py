@@ -30,6 +30,10 @@ from assistant.errors import InputError
 
 __all__ = ["TipCalibration", "calibrate_tip"]
 
+# the film model's residual, in units of the image noise, above which the image holds more than the film's
+# domains seen through a point-like tip (clean references leave 1.5-2; rule of thumb, no source)
+FILM_MISFIT = 4.0
+
 
 @dataclass(frozen=True)
 class TipCalibration:
@@ -59,6 +63,16 @@ class TipCalibration:
     def band_periods_m(self) -> tuple[float, float]:
         return self.transfer.band_periods_m
 
+    @property
+    def warnings(self) -> tuple[str, ...]:
+        """What makes this calibration doubtful (a film model that leaves more than noise)."""
+        r = self.transfer.residual_rms
+        if r and r[-1] > FILM_MISFIT:
+            return (f"the reference film's model leaves a residual of {r[-1]:.1f} × the noise: the image holds "
+                    "more than the film's domains (a background beyond a plane, another Ms or thickness, a film "
+                    "that is not perpendicular, a tip that changed); the TTF and the point-probe fit are doubtful",)
+        return ()
+
     def to_dict(self) -> dict:
         """The numbers of ``mfma analyze tip --json`` (nm, A m^2, A m; tip file added by the caller)."""
         pp = self.point_probe
@@ -73,9 +87,11 @@ class TipCalibration:
             "dipole_a_m2": opt(pp and pp.moment_a_m2), "dipole_std_a_m2": opt(pp and pp.moment_std_a_m2),
             "monopole_a_m": opt(pp and pp.monopole_a_m), "monopole_std_a_m": opt(pp and pp.monopole_std_a_m),
             "offset_nm": opt(pp and pp.offset_m, 1e9), "offset_std_nm": opt(pp and pp.offset_std_m, 1e9),
-            "point_probe_determined": bool(pp and pp.determined),
+            "point_probe_determined": bool(pp and pp.determined and not self.warnings),
             "point_probe_model": pp.preferred if pp else None,
-            "point_probe_verdict": pp.verdict if pp else self.point_probe_error,
+            "point_probe_verdict": (("not trusted, the film model does not fit: " if self.warnings else "")
+                                    + pp.verdict) if pp else self.point_probe_error,
+            "warnings": list(self.warnings),
             "measurement_plane_nm": self.plane_m * 1e9, "tip_moment": self.tip_moment,
             "amplitude_nm": opt(self.amplitude_m, 1e9), "ms_ka_per_m": self.ms_a_per_m / 1e3,
             "ms_std_ka_per_m": self.ms_std_a_per_m / 1e3, "thickness_nm": self.thickness_m * 1e9,

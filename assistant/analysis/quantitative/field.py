@@ -34,6 +34,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from assistant.analysis.background import remove_plane
 from assistant.analysis.constants import MU_0_N_PER_A2 as MU_0
 from assistant.analysis.quantitative import fourier as fr
 from assistant.analysis.quantitative.conversion import amplitude_weight
@@ -183,7 +184,7 @@ def reconstruct_field(gradient_n_per_m: np.ndarray, *, pixel_m: float | tuple[fl
     ttf = _profile_on(k, ring_k_per_m, ttf_n_per_a)
     if amplitude_m and ttf_amplitude_m:
         ttf = ttf * amplitude_weight(k, amplitude_m) / amplitude_weight(k, ttf_amplitude_m)
-    data = grid.forward(image - image.mean())
+    data = grid.forward(image - image.mean() if periodic else remove_plane(image))  # as for the TTF
     noise = grid.noise_power(data, k_nyq)
     cont = np.exp(-k * (height - plane_m))
     w = np.broadcast_to(grid.weight, k.shape)

@@ -42,6 +42,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from assistant.analysis.background import remove_plane
 from assistant.analysis.quantitative import fourier as fr
 from assistant.analysis.quantitative.reference import film_factor, subpixel_sign
 from assistant.errors import InputError
@@ -156,7 +157,9 @@ class _Setup:
         self.pixel = fr.pixel_pair(pixel_m)
         self.shape = image.shape
         self.periodic = periodic
-        self.image = image - image.mean()
+        # a window onto a film: its tilt (a sloping baseline of the phase, routine in second passes) is taken out
+        # with the mean, else it leaks into the low rings and the pattern (one period: the mean only)
+        self.image = image - image.mean() if periodic else remove_plane(image)
         self.window = np.ones(self.shape) if periodic else fr.tukey_2d(self.shape, TAPER_FRACTION)
         self.data_w = np.fft.rfft2(self.window * self.image)      # windowed image spectrum (the TTF fit)
         _, _, self.k_w = fr.wavenumbers(self.shape, self.pixel)
