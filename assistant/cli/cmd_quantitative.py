@@ -122,8 +122,11 @@ def field(args) -> int:
                f"Hz at {quantity(d['height_nm'], 'nm')} (measured at {quantity(d['measurement_plane_nm'], 'nm')}): "
                f"rms {number(d['hz_rms_a_per_m'])} A/m = {number(d['mu0_hz_rms_mt'])} mT (μ0 Hz); range "
                f"{number(d['hz_min_a_per_m'])} to {number(d['hz_max_a_per_m'])} A/m; median uncertainty "
-               f"{number(d['hz_std_median_a_per_m'], digits=3)} A/m",
-               f"periods {span(*d['band_nm'], 'nm')} (the TTF's valid band); statistics beyond a {d['margin_px']} px "
-               "edge margin", *[f"warning: {w}" for w in d["warnings"]], *[f"note: {n}" for n in d["notes"]],
+               + (f"{number(d['hz_std_median_a_per_m'], digits=3)} A/m" if d["hz_std_median_a_per_m"] is not None
+                  else "not stated (see the warning)"),
+               f"periods {span(*d['band_nm'], 'nm')} (the TTF's valid band); statistics "
+               + (f"beyond a {d['margin_px']} px edge margin" if d["statistics_beyond_margin"] else
+                  "over the whole image, edges included"),
+               *[f"warning: {w}" for w in d["warnings"]], *[f"note: {n}" for n in d["notes"]],
                *[f"figure: {f}" for f in d["figures"]], f"conventions: {CONVENTIONS}"])
     return 0

@@ -233,18 +233,25 @@ def map_field(image: ImageInput, tip: TipFile, *, height_m: float | None = None,
 
 
 def field_summary(fm, notes: list[str]) -> dict:
-    """The JSON numbers of a field map; statistics over the interior beyond the edge margin."""
+    """The JSON numbers of a field map; statistics over the interior beyond the edge margin. An image with no
+    such interior (at most four margins wide) has its statistics over every pixel and no stated uncertainty: the
+    map's uncertainty leaves out the reflection at the scan's edges, which reaches every pixel there."""
     hz = fm.hz_a_per_m
     m = fm.margin_px
-    inner = hz[m:hz.shape[0] - m, m:hz.shape[1] - m] if m and min(hz.shape) > 4 * m else hz
+    interior = not m or min(hz.shape) > 4 * m
+    inner = hz[m:hz.shape[0] - m, m:hz.shape[1] - m] if interior else hz
+    std = fm.hz_std_a_per_m[m:hz.shape[0] - m, m:hz.shape[1] - m] if interior else None
     warnings = list(fm.warnings)
-    if inner is hz and m:
-        warnings.append(f"the image is small against the edge margin ({m} px): statistics include the edges")
+    if not interior:
+        warnings.append(f"the image ({hz.shape[0]} × {hz.shape[1]} px) is small against the edge margin ({m} px): "
+                        f"the reflection at its edges reaches every pixel, so its statistics include the edges and "
+                        f"no uncertainty is stated; scan at least {4 * m + 1} px across")
     rms = float(np.sqrt(np.mean(inner ** 2)))
     return {"hz_rms_a_per_m": rms, "hz_min_a_per_m": float(inner.min()), "hz_max_a_per_m": float(inner.max()),
-            "mu0_hz_rms_mt": MU_0_N_PER_A2 * rms * 1e3, "hz_std_median_a_per_m": float(np.median(fm.hz_std_a_per_m)),
+            "mu0_hz_rms_mt": MU_0_N_PER_A2 * rms * 1e3,
+            "hz_std_median_a_per_m": None if std is None else float(np.median(std)),
             "height_nm": fm.height_m * 1e9, "measurement_plane_nm": fm.plane_m * 1e9,
-            "band_nm": [p * 1e9 for p in fm.band_periods_m], "margin_px": m,
+            "band_nm": [p * 1e9 for p in fm.band_periods_m], "margin_px": m, "statistics_beyond_margin": interior,
             "signal_outside_band": fm.signal_outside_band, "warnings": warnings, "notes": notes}
 
 

@@ -35,7 +35,6 @@ from dataclasses import dataclass
 import numpy as np
 
 from assistant.analysis.background import remove_plane
-from assistant.analysis.constants import MU_0_N_PER_A2 as MU_0
 from assistant.analysis.quantitative import fourier as fr
 from assistant.analysis.quantitative.conversion import amplitude_weight
 from assistant.errors import InputError
@@ -77,16 +76,6 @@ class FieldMap:
     @property
     def band_periods_m(self) -> tuple[float, float]:
         return 2.0 * math.pi / self.band_k_per_m[1], 2.0 * math.pi / self.band_k_per_m[0]
-
-    def summary(self) -> dict:
-        """Scalars of the map in the units of the command line (A/m, mT, nm)."""
-        hz = self.hz_a_per_m
-        return {"hz_rms_a_per_m": float(np.sqrt(np.mean(hz ** 2))), "hz_min_a_per_m": float(hz.min()),
-                "hz_max_a_per_m": float(hz.max()), "hz_std_median_a_per_m": float(np.median(self.hz_std_a_per_m)),
-                "mu0_hz_rms_mt": float(MU_0 * np.sqrt(np.mean(hz ** 2)) * 1e3),
-                "height_nm": self.height_m * 1e9, "measurement_plane_nm": self.plane_m * 1e9,
-                "band_nm": [p * 1e9 for p in self.band_periods_m], "margin_px": self.margin_px,
-                "signal_outside_band": self.signal_outside_band, "warnings": list(self.warnings)}
 
 
 def band_taper(k_per_m: np.ndarray, band_k_per_m: tuple[float, float]) -> np.ndarray:
