@@ -134,9 +134,13 @@ def gcv_tikhonov(data: np.ndarray, kernel: np.ndarray, weight: np.ndarray) -> fl
     return scale * math.exp(float(best.x))
 
 
-def ring_profile(data: np.ndarray, model: np.ndarray, rings: np.ndarray, weight: np.ndarray, n_rings: int
-                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Least-squares real factor per ring: data ~ t_j model. Returns (t, standard error, sum w |model|^2)."""
+def ring_profile(data: np.ndarray, model: np.ndarray, rings: np.ndarray, weight: np.ndarray, n_rings: int,
+                 variance_factor: float = 1.0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Least-squares real factor per ring: data ~ t_j model. Returns (t, standard error, sum w |model|^2).
+
+    ``weight`` counts each stored component as the one or two (a conjugate pair) it stands for in the full
+    plane; a pair is one independent value, so it enters the variance with the square of its weight.
+    ``variance_factor`` > 1 where a window correlates neighbouring components (``window_variance_factor``)."""
     w = np.broadcast_to(weight, data.shape).ravel()
     r = rings.ravel()
     den = np.bincount(r, w * np.abs(model.ravel()) ** 2, minlength=n_rings)[:n_rings]
@@ -144,10 +148,18 @@ def ring_profile(data: np.ndarray, model: np.ndarray, rings: np.ndarray, weight:
     safe = np.where(den > 0, den, 1.0)
     t = np.where(den > 0, num / safe, np.nan)
     resid = data - t[rings] * model
-    # sandwich variance: sum w |r|^2 |H|^2 / (sum w |H|^2)^2 (per ring; real part of a complex fit: / 2)
-    var_num = np.bincount(r, w * (np.abs(resid) ** 2 * np.abs(model) ** 2).ravel(), minlength=n_rings)[:n_rings]
-    std = np.where(den > 0, np.sqrt(0.5 * var_num) / safe, np.nan)
+    # sandwich variance: sum w^2 |r|^2 |H|^2 / (sum w |H|^2)^2 (per ring; real part of a complex fit: / 2)
+    var_num = np.bincount(r, w * w * (np.abs(resid) ** 2 * np.abs(model) ** 2).ravel(), minlength=n_rings)[:n_rings]
+    std = np.where(den > 0, np.sqrt(0.5 * variance_factor * var_num) / safe, np.nan)
     return t, std, den
+
+
+def window_variance_factor(window: np.ndarray) -> float:
+    """N sum w^4 / (sum w^2)^2: how much a data window shrinks the number of independent Fourier components
+    (the variance inflation of a tapered periodogram; Percival & Walden 1993, Spectral Analysis for Physical
+    Applications, ch. 6; from memory). 1 for no window; 1.42 for the Tukey window of 30 % used here."""
+    w2 = np.asarray(window, dtype=float) ** 2
+    return float(w2.size * np.sum(w2 * w2) / np.sum(w2) ** 2)
 
 
 class _Setup:
@@ -161,6 +173,7 @@ class _Setup:
         # with the mean, else it leaks into the low rings and the pattern (one period: the mean only)
         self.image = image - image.mean() if periodic else remove_plane(image)
         self.window = np.ones(self.shape) if periodic else fr.tukey_2d(self.shape, TAPER_FRACTION)
+        self.variance_factor = window_variance_factor(self.window)
         self.data_w = np.fft.rfft2(self.window * self.image)      # windowed image spectrum (the TTF fit)
         _, _, self.k_w = fr.wavenumbers(self.shape, self.pixel)
         self.weight_w = fr.half_plane_weight(self.shape)
@@ -315,7 +328,7 @@ def _windowed_fit(st: _Setup, s_eff: np.ndarray, h_w: np.ndarray, ks: np.ndarray
     side (measured: +13 % at twice the maze period on 256 x 256 crops). Two correction rounds fit the rings to
     the windowed *prediction* instead, FT[w IFT(TTF H)], which holds the window on the same side as the data.
     """
-    t, std, den = ring_profile(st.data_w, h_w, st.rings, st.weight_w, st.n_rings)
+    t, std, den = ring_profile(st.data_w, h_w, st.rings, st.weight_w, st.n_rings, st.variance_factor)
     if st.periodic:
         return t, std, den
     for _ in range(WINDOW_CORRECTIONS):
@@ -326,9 +339,9 @@ def _windowed_fit(st: _Setup, s_eff: np.ndarray, h_w: np.ndarray, ks: np.ndarray
         t = t + np.nan_to_num(dt)
     resid = st.data_w - np.fft.rfft2(st.window * st.grid.inverse(
         np.interp(st.grid.k, ks[np.isfinite(t)], t[np.isfinite(t)]) * st.film_g * s_eff))
-    var = np.bincount(st.rings.ravel(), (np.broadcast_to(st.weight_w, h_w.shape) * np.abs(resid) ** 2
+    var = np.bincount(st.rings.ravel(), (np.broadcast_to(st.weight_w, h_w.shape) ** 2 * np.abs(resid) ** 2
                                          * np.abs(h_w) ** 2).ravel(), minlength=st.n_rings)[:st.n_rings]
-    std = np.where(den > 0, np.sqrt(0.5 * var) / np.where(den > 0, den, 1.0), np.nan)
+    std = np.where(den > 0, np.sqrt(0.5 * st.variance_factor * var) / np.where(den > 0, den, 1.0), np.nan)
     return t, std, den
 
 
