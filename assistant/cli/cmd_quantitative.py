@@ -73,8 +73,9 @@ def tip(args) -> int:
         _pm(d["dipole_a_m2"], d["dipole_std_a_m2"], "A m²"), _pm(d["monopole_a_m"], d["monopole_std_a_m"], "A m"),
         _pm(d["offset_nm"], d["offset_std_nm"], "nm")))
     emit_text([f"tip file: {args.out}" + (f" (stored for probe {args.probe})" if args.probe else ""),
-               f"valid band: periods {span(*d['band_nm'], 'nm')}; regularisation "
-               f"{number(d['regularization'], digits=3)} (GCV)",
+               f"valid band: periods {span(*d['band_nm'], 'nm')} (field maps taper off over its longest octave); "
+               f"regularisation of the 2-D TTF figure {number(d['regularization'], digits=3)} (GCV; the profile "
+               "and the maps do not use it)",
                f"measurement plane {quantity(d['measurement_plane_nm'], 'nm')}; reference Ms = "
                f"{number(d['ms_ka_per_m'], d['ms_std_ka_per_m'])} kA/m, t = "
                f"{quantity(d['thickness_nm'], 'nm', d['thickness_std_nm'])}",

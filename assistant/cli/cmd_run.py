@@ -309,7 +309,8 @@ def _finish(args, session_path: Path, report, wf, analysis, field_map_error: str
     if fmap:
         pairs.append(("Field map", f"μ0 Hz rms {number(fmap['mu0_hz_rms_mt'], digits=3)} mT at "
                                    f"{quantity(fmap['height_nm'], 'nm', digits=3)} (periods "
-                                   f"{span(*fmap['band_nm'], 'nm')}), stored in the session file as field_map/"))
+                                   f"{span(*fmap['band_nm'], 'nm')}), stored in the session file as "
+                                   f"field_map/{wf.field_map_result.image.series}"))
     emit_text(render_block(pairs + [
         ("Calibration", calibration_text(calib)),
         ("Series", f"{wf.series_result.completed_lines} lines at {len(s.heights_m)} lift "

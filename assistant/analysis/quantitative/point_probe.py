@@ -199,20 +199,22 @@ def fit_point_probe(k_per_m: np.ndarray, ttf_n_per_a: np.ndarray, ttf_std_n_per_
         corr = cov / np.outer(d, d)
     sig = [s is not None and abs(v) >= 3.0 * s for v, s in zip(values, stds)]
     determined = bool(sig[2] and all(sig[i] for i in range(2) if free[i]))
+    # the values themselves are the caller's to write (with their units and uncertainties); the verdict says
+    # which of them the data determine
     names = ("dipole m", "monopole q", "offset delta")
-    units = ("A m^2", "A m", "nm")
     shown = []
-    for i, (name, v, s, u, is_sig) in enumerate(zip(names, values, stds, units, sig)):
+    for i, (name, s, is_sig) in enumerate(zip(names, stds, sig)):
         if i < 2 and not free[i]:
             shown.append(f"{name} left out")
-            continue
-        scale = 1e9 if u == "nm" else 1.0
-        text = f"{name} = {v * scale:.3g}" + (f" ± {s * scale:.2g}" if s is not None else " (no uncertainty)")
-        shown.append(f"{text} {u}" + ("" if is_sig else " (not determined)"))
+        elif s is None:
+            shown.append(f"{name} has no uncertainty")
+        elif not is_sig:
+            shown.append(f"{name} not determined (within 3 standard uncertainties of 0)")
     off = corr[np.triu_indices(3, 1)]
     strongest = float(np.max(np.abs(off[np.isfinite(off)]))) if np.isfinite(off).any() else float("nan")
-    verdict = (("determined" if determined else "not determined") + f" ({preferred} model, lowest quasi-BIC): "
-               + "; ".join(shown) + f"; largest parameter correlation {strongest:.2f}")
+    verdict = (("determined" if determined else "not determined") + f" ({preferred} model, lowest quasi-BIC)"
+               + "".join(f"; {text}" for text in shown) + f"; largest parameter correlation {strongest:.2f}"
+               + "; delta (the offset) is counted from the measurement plane assumed")
     if preferred != "dipole+monopole":
         full = fits["dipole+monopole"]
         verdict += "; with both components the fit cannot tell them apart" if not np.all(

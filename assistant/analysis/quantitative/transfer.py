@@ -28,7 +28,8 @@ Steps of :func:`calibrate_tip`:
    the residuals in the ring (sandwich form).
 4. **Valid band**: the rings where the reference's signal power per component, |TTF|^2 <|H|^2>, is above the
    noise power (the criterion of Sakar et al. 2025, arXiv:2507.01911, from the abstract), contiguous around the
-   strongest ring and at least three rings above zero (the window's resolution).
+   strongest ring and starting at least three rings above zero (six on a windowed scan: the window's
+   resolution).
 
 Non-periodic scans (the usual case: a window onto a larger film) are tapered with a Tukey window before the
 transforms, as Nečas et al. 2019 (Sci. Rep. 9, 3880, from the abstract) recommend, and the reference field is
