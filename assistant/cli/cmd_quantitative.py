@@ -58,7 +58,8 @@ def tip(args) -> int:
     try:
         result = calibrate_tip_file(args.reference, ms_a_per_m=ms, thickness_m=t, out=args.out,
                                     ms_std_a_per_m=ms_std, thickness_std_m=t_std, tip_moment=args.tip_moment,
-                                    probe=args.probe, record=_record() if args.probe else None)
+                                    probe=args.probe, record=_record() if args.probe else None,
+                                    plane_std_m=args.plane_std_nm * 1e-9)
     except QuantitativeInputError as exc:
         raise UsageError(str(exc)) from None
     d = dict(result.summary)
@@ -76,7 +77,7 @@ def tip(args) -> int:
                f"valid band: periods {span(*d['band_nm'], 'nm')} (field maps taper off over its longest octave); "
                f"regularisation of the 2-D TTF figure {number(d['regularization'], digits=3)} (GCV; the profile "
                "and the maps do not use it)",
-               f"measurement plane {quantity(d['measurement_plane_nm'], 'nm')}; reference Ms = "
+               f"measurement plane {quantity(d['measurement_plane_nm'], 'nm', d['plane_std_nm'] or None)}; reference Ms = "
                f"{number(d['ms_ka_per_m'], d['ms_std_ka_per_m'])} kA/m, t = "
                f"{quantity(d['thickness_nm'], 'nm', d['thickness_std_nm'])}",
                f"point probe: {pp}", f"  {d['point_probe_verdict']}", *[f"warning: {w}" for w in d["warnings"]],
@@ -108,7 +109,7 @@ def field(args) -> int:
     try:
         result = map_field_file(args.image, tip_path=args.tip, probe=args.probe, out=args.out,
                                 height_m=None if args.height_nm is None else args.height_nm * 1e-9,
-                                record=_record())
+                                record=_record(), plane_std_m=args.plane_std_nm * 1e-9)
     except QuantitativeInputError as exc:
         raise UsageError(str(exc)) from None
     d = dict(result.summary)

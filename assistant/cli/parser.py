@@ -304,6 +304,8 @@ def _quantitative_parsers(ana) -> None:
                    help="standard uncertainty of Ms in kA/m (default 5 %% of Ms)")
     p.add_argument("--thickness-std-nm", type=positive(allow_zero=True), metavar="S",
                    help="standard uncertainty of the thickness in nm (default 5 %%)")
+    p.add_argument("--plane-std-nm", type=positive(allow_zero=True), default=0.0, metavar="S",
+                   help="standard uncertainty of the measurement plane (lift, gap, amplitude) in nm (default 0)")
     p.add_argument("--probe", metavar="NAME", help="store the TTF in the probe record under this probe")
     p.add_argument("--tip-moment", choices=("up", "down"), default="up",
                    help="tip magnetised along +z, away from the sample (default), or down")
@@ -318,6 +320,8 @@ def _quantitative_parsers(ana) -> None:
     p.add_argument("--height-nm", type=float, metavar="H",
                    help="plane of the map above the sample in nm (default: the measurement plane; higher planes by "
                         "continuation)")
+    p.add_argument("--plane-std-nm", type=positive(allow_zero=True), default=0.0, metavar="S",
+                   help="standard uncertainty of this image's measurement plane in nm (default 0)")
     p.add_argument("--out", required=True, metavar="FIELD.npz", help="field file to write")
     p.add_argument("--plots", metavar="DIR", help="also write the field-map figures to DIR")
     _json(p)

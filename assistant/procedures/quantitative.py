@@ -46,7 +46,8 @@ def _bad(exc: Exception, what: str) -> QuantitativeInputError:
 
 def calibrate_tip_file(reference: str | Path, *, ms_a_per_m: float, thickness_m: float, out: str | Path,
                        ms_std_a_per_m: float | None = None, thickness_std_m: float | None = None,
-                       tip_moment: str = "up", probe: str | None = None, record=None) -> TipResult:
+                       tip_moment: str = "up", probe: str | None = None, record=None,
+                       plane_std_m: float = 0.0) -> TipResult:
     """Calibrate the TTF on a reference image (.npz or session file), write the tip file, store it for ``probe``."""
     from assistant.analysis.quantitative import CalibrationInputError, calibrate_tip
 
@@ -59,7 +60,8 @@ def calibrate_tip_file(reference: str | Path, *, ms_a_per_m: float, thickness_m:
     try:
         cal = calibrate_tip(image.gradient_n_per_m, pixel_m=image.pixel_m, ms_a_per_m=ms_a_per_m,
                             thickness_m=thickness_m, plane_m=image.plane_m, ms_std_a_per_m=ms_std_a_per_m,
-                            thickness_std_m=thickness_std_m, tip_moment=tip_moment, amplitude_m=image.amplitude_m)
+                            thickness_std_m=thickness_std_m, tip_moment=tip_moment, amplitude_m=image.amplitude_m,
+                            plane_std_m=plane_std_m)
     except (CalibrationInputError, ValueError) as exc:
         raise _bad(exc, str(reference)) from None
     probe_name = probe or image.probe
@@ -204,8 +206,9 @@ def _spacing(pixel_m: tuple[float, float]) -> str:
 
 
 def map_field(image: ImageInput, tip: TipFile, *, height_m: float | None = None, draws: int = 64,
-              seed: int = 0):
-    """Hz of ``image`` with the TTF of ``tip`` (the analysis ``reconstruct_field``), with the notes it needs."""
+              seed: int = 0, plane_std_m: float = 0.0):
+    """Hz of ``image`` with the TTF of ``tip`` (the analysis ``reconstruct_field``), with the notes it needs.
+    ``plane_std_m``: standard uncertainty of the image's measurement plane; the tip file holds the reference's."""
     from assistant.analysis.quantitative import FieldInputError, reconstruct_field
 
     notes = list(image.notes)
@@ -214,6 +217,11 @@ def map_field(image: ImageInput, tip: TipFile, *, height_m: float | None = None,
         notes.append(f"the TTF was measured with {_spacing(tip_pixel)} pixels, the image has "
                      f"{_spacing(image.pixel_m)}: its profile is resampled in spatial frequency")
     ms = tip["ms_ka_per_m"]
+    planes_std = math.hypot(float(tip.get("plane_std_nm", 0.0)) * 1e-9, plane_std_m)
+    if not planes_std:
+        notes.append("the measurement planes of the reference and of this image are taken as exact (give "
+                     "--plane-std-nm to mfma analyze tip and analyze field to count their uncertainty; 2 nm moves "
+                     "a map by about 10 %)")
     try:
         fm = reconstruct_field(
             image.gradient_n_per_m, pixel_m=image.pixel_m, plane_m=image.plane_m,
@@ -223,7 +231,7 @@ def map_field(image: ImageInput, tip: TipFile, *, height_m: float | None = None,
             thickness_m=tip["thickness_nm"] * 1e-9, thickness_std_m=tip.get("thickness_std_nm", 0.0) * 1e-9,
             calibration_rel_std=_calibration_rel_std(tip, image, notes), amplitude_m=image.amplitude_m,
             ttf_amplitude_m=tip.amplitude_m, ring_correlation=float(tip.get("ring_correlation", 0.0)),
-            draws=draws, rng=np.random.default_rng(seed))
+            draws=draws, rng=np.random.default_rng(seed), plane_std_m=planes_std)
     except (FieldInputError, ValueError) as exc:
         raise QuantitativeInputError(str(exc)) from None
     if image.amplitude_m and tip.amplitude_m is None or tip.amplitude_m and image.amplitude_m is None:
@@ -256,12 +264,12 @@ def field_summary(fm, notes: list[str]) -> dict:
 
 
 def map_field_file(image_path: str | Path, *, tip_path: str | Path | None, probe: str | None, out: str | Path,
-                   height_m: float | None = None, record=None) -> FieldResult:
+                   height_m: float | None = None, record=None, plane_std_m: float = 0.0) -> FieldResult:
     """``mfma analyze field``: load, check the TTF, map, write FIELD.npz; returns the summary."""
     tip = resolve_tip(tip_path=tip_path, probe=probe, record=record)
     image = load_image(image_path, wanted_plane_m=height_m)
     notes = check_tip(tip, image, record)
-    fm, more = map_field(image, tip, height_m=height_m)
+    fm, more = map_field(image, tip, height_m=height_m, plane_std_m=plane_std_m)
     summary = field_summary(fm, notes + more)
     summary.update(field_file=str(out), tip_file=str(tip.path), probe=tip.probe, source=image.source)
     write_field_file(out, fm, extra={"tip_file": str(tip.path), "probe": tip.probe, "source": image.source})

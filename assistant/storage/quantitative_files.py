@@ -101,6 +101,7 @@ def write_tip_file(path: str | os.PathLike[str], calibration, *, gradient_n_per_
         "in_band": t.in_band, "bias_rel": calibration.bias_rel, "band_k_per_m": np.array(t.band_k_per_m),
         "band_nm": np.array(summary["band_nm"]), "ring_correlation": np.array(calibration.ring_correlation),
         "pixel_nm": np.array(pixel_m) * 1e9, "measurement_plane_nm": np.array(calibration.plane_m * 1e9),
+        "plane_std_nm": np.array(calibration.plane_std_m * 1e9),
         "amplitude_nm": np.array(np.nan if calibration.amplitude_m is None else calibration.amplitude_m * 1e9),
         "ms_ka_per_m": np.array(calibration.ms_a_per_m / 1e3),
         "ms_std_ka_per_m": np.array(calibration.ms_std_a_per_m / 1e3),

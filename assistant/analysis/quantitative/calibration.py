@@ -20,6 +20,7 @@ covers more than the noise.
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
@@ -58,6 +59,7 @@ class TipCalibration:
     plane_m: float
     amplitude_m: float | None
     tip_moment: str
+    plane_std_m: float = 0.0         # standard uncertainty of the measurement plane (in the offset's uncertainty)
 
     @property
     def band_periods_m(self) -> tuple[float, float]:
@@ -92,7 +94,8 @@ class TipCalibration:
             "point_probe_verdict": (("not trusted, the film model does not fit: " if self.warnings else "")
                                     + pp.verdict) if pp else self.point_probe_error,
             "warnings": list(self.warnings),
-            "measurement_plane_nm": self.plane_m * 1e9, "tip_moment": self.tip_moment,
+            "measurement_plane_nm": self.plane_m * 1e9, "plane_std_nm": self.plane_std_m * 1e9,
+            "tip_moment": self.tip_moment,
             "amplitude_nm": opt(self.amplitude_m, 1e9), "ms_ka_per_m": self.ms_a_per_m / 1e3,
             "ms_std_ka_per_m": self.ms_std_a_per_m / 1e3, "thickness_nm": self.thickness_m * 1e9,
             "thickness_std_nm": self.thickness_std_m * 1e9, "noise_n_per_m": t.noise_n_per_m,
@@ -105,7 +108,7 @@ def calibrate_tip(gradient_n_per_m: np.ndarray, *, pixel_m: float | tuple[float,
                   thickness_m: float, plane_m: float, ms_std_a_per_m: float | None = None,
                   thickness_std_m: float | None = None, tip_moment: str = "up", amplitude_m: float | None = None,
                   periodic: bool = False, refine: bool = True, bootstrap: bool = True,
-                  seed: int = 0) -> TipCalibration:
+                  seed: int = 0, plane_std_m: float = 0.0) -> TipCalibration:
     """Calibrate the tip on a force-gradient image of a perpendicular reference film.
 
     Parameters
@@ -120,11 +123,14 @@ def calibrate_tip(gradient_n_per_m: np.ndarray, *, pixel_m: float | tuple[float,
     amplitude_m : peak oscillation amplitude [m] if known; the point-probe model then includes it.
     periodic, refine : see ``transfer.calibrate_transfer``.
     bootstrap : correct the estimator's bias with a replica (module docstring); ``seed`` seeds its noise.
+    plane_std_m : standard uncertainty of ``plane_m`` [m]. The film's field is computed at ``plane_m``, so the
+        point-probe offset delta is counted from it and takes its uncertainty as well (delta moves one for one
+        with the plane); a field map carries it on (``field.reconstruct_field``).
     """
     ms_std = 0.05 * ms_a_per_m if ms_std_a_per_m is None else float(ms_std_a_per_m)
     t_std = 0.05 * thickness_m if thickness_std_m is None else float(thickness_std_m)
-    if ms_std < 0 or t_std < 0:
-        raise InputError("the uncertainties of Ms and t must be >= 0")
+    if ms_std < 0 or t_std < 0 or not (plane_std_m >= 0):
+        raise InputError("the uncertainties of Ms, t and the measurement plane must be >= 0")
     est = calibrate_transfer(gradient_n_per_m, pixel_m=pixel_m, ms_a_per_m=ms_a_per_m, thickness_m=thickness_m,
                              height_m=plane_m, tip_moment=tip_moment, periodic=periodic, refine=refine)
     band = est.in_band
@@ -174,10 +180,12 @@ def calibrate_tip(gradient_n_per_m: np.ndarray, *, pixel_m: float | tuple[float,
     unc[band] = np.abs(values) * rel
     full_bias = np.zeros(est.k_per_m.shape)
     full_bias[band] = bias
+    if pp is not None and plane_std_m and pp.offset_std_m is not None:
+        pp = dataclasses.replace(pp, offset_std_m=float(np.hypot(pp.offset_std_m, plane_std_m)))
     return TipCalibration(transfer=est, point_probe=pp, point_probe_error=pp_error, ttf_n_per_a=ttf,
                           ttf_unc_n_per_a=unc, ring_correlation=rho, scatter_rel=scatter, bias_rel=full_bias, ms_a_per_m=ms_a_per_m,
                           ms_std_a_per_m=ms_std, thickness_m=thickness_m, thickness_std_m=t_std, plane_m=plane_m,
-                          amplitude_m=amplitude_m, tip_moment=tip_moment)
+                          amplitude_m=amplitude_m, tip_moment=tip_moment, plane_std_m=float(plane_std_m))
 
 
 def _replica_bias(est: TransferEstimate, pp: PointProbeFit | None, *, pixel_m, ms: float, t: float, z: float,

@@ -118,7 +118,7 @@ def reconstruct_field(gradient_n_per_m: np.ndarray, *, pixel_m: float | tuple[fl
                       ms_rel_std: float = 0.0, thickness_m: float | None = None, thickness_std_m: float = 0.0,
                       calibration_rel_std: float = 0.0, amplitude_m: float | None = None,
                       ttf_amplitude_m: float | None = None, ring_correlation: float = 0.0, draws: int = 64,
-                      rng: np.random.Generator | None = None) -> FieldMap:
+                      rng: np.random.Generator | None = None, plane_std_m: float = 0.0) -> FieldMap:
     """Hz [A/m] of a sample under test from its force-gradient image and a TTF profile (module docstring).
 
     Parameters
@@ -138,6 +138,9 @@ def reconstruct_field(gradient_n_per_m: np.ndarray, *, pixel_m: float | tuple[fl
         (``conversion.amplitude_weight``), which holds for any tip.
     ring_correlation : correlation of the TTF's errors between neighbouring rings (an AR(1) sequence over the
         rings; 0 = independent): errors of the reference pattern make neighbouring rings err together.
+    plane_std_m : standard uncertainty of the difference between the reference's and this image's measurement
+        planes [m] (each assumed where it is not): a TTF calibrated with its plane off by e is TTF exp(-k e), and
+        an image taken off its plane by e holds Hz exp(-k e), so the map errs by exp(k (e_ref - e_image)).
     draws : Monte Carlo draws (>= 8).
     rng : random generator (default: seeded with 0, so a map is reproducible).
     """
@@ -152,6 +155,8 @@ def reconstruct_field(gradient_n_per_m: np.ndarray, *, pixel_m: float | tuple[fl
                               "the field can be continued upwards only (downwards the noise grows without bound)")
     if draws < 8:
         raise InputError(f"draws = {draws} must be >= 8")
+    if not (plane_std_m >= 0 and math.isfinite(plane_std_m)):
+        raise InputError(f"the measurement plane's uncertainty {plane_std_m!r} m must be a finite number >= 0")
     rng = rng if rng is not None else np.random.default_rng(0)
     pixel = fr.pixel_pair(pixel_m)
     grid = fr.SpectralGrid(image.shape, pixel, periodic=periodic)
@@ -232,6 +237,8 @@ def reconstruct_field(gradient_n_per_m: np.ndarray, *, pixel_m: float | tuple[fl
             ti = np.maximum(thickness_m + thickness_std_m * rng.standard_normal(n), 1e-12)
             with np.errstate(invalid="ignore", divide="ignore"):
                 factor *= np.nan_to_num(-np.expm1(-k_rings[None] * ti[:, None]) / thick_rings, nan=1.0)
+        if plane_std_m:
+            factor *= np.exp(k_rings[None] * plane_std_m * rng.standard_normal(n)[:, None])
         levels = noise * 2.0 ** rng.uniform(-1.0, 1.0, n)
         factor *= np.clip(1.0 - levels[:, None] / np.maximum(ring_power, 1e-300)[None], 0.0, 1.0)
         if periodic:

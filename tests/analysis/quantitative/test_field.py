@@ -152,3 +152,25 @@ def test_film_field_and_point_dipole_ttf_give_the_published_stripe_gradient(heig
     ttf = point_probe_ttf(k, moment_a_m2=1e-16, monopole_a_m=0.0, offset_m=0.0)
     gradient = np.fft.irfft2(np.fft.rfft2(hz) * ttf, s=pattern.shape)
     assert np.interp(0.0, x, gradient[0]) == pytest.approx(expected_n_per_m, rel=5e-4)
+
+
+def test_the_uncertainty_of_the_measurement_plane_reaches_the_offset_and_the_map():
+    # the reference was imaged 4 nm further from the film than assumed (24 against 20 nm): the TTF is then
+    # TTF exp(-k 4 nm) and the map errs by exp(k 4 nm). Stated as a 4 nm standard uncertainty of the plane, it
+    # widens the offset's uncertainty to cover the shifted delta (34 nm from the assumed plane) and the map's to
+    # cover its error (measured: 2-sigma coverage 1.00 and rms error / rms uncertainty 1.02; without it 0.32
+    # and 4.3)
+    ref = make_image(n=192, oversample=2, seed=2, crop=(384, 64, 96), **{**REF, "height_m": 24e-9}, **TIP)
+    sam = make_image(n=192, oversample=2, pixel_m=10e-9, period_m=350e-9, ms=9e5, thickness_m=20e-9,
+                     height_m=30e-9, noise_n_per_m=1e-4, seed=102, crop=(384, 40, 90), **TIP)
+    cal = calibrate_tip(ref.gradient_n_per_m, pixel_m=REF["pixel_m"], ms_a_per_m=REF["ms"],
+                        thickness_m=REF["thickness_m"], plane_m=20e-9, ms_std_a_per_m=0.0, thickness_std_m=0.0,
+                        plane_std_m=4e-9)
+    pp = cal.point_probe
+    assert pp.offset_std_m >= 4e-9 and abs(pp.offset_m - (TIP["offset_m"] + 4e-9)) < 2 * pp.offset_std_m
+    fm = _map(cal, sam, 30e-9, plane_std_m=4e-9)
+    truth = sam.hz_in_band(fm.band_k_per_m, band_taper)
+    err = _interior(fm.hz_a_per_m - truth, fm.margin_px)
+    std = _interior(fm.hz_std_a_per_m, fm.margin_px)
+    assert np.mean(np.abs(err) < 2 * std) > 0.9
+    assert 0.7 < np.sqrt(np.mean(err**2) / np.mean(std**2)) < 1.5
