@@ -39,7 +39,9 @@ def activity_period(activity: np.ndarray) -> float | None:
 
 
 def jitter_without_position_noise(dev: np.ndarray, sd: np.ndarray, dof_factor: float = 1.0) -> float:
-    """J with Var(dev_i) = J^2 + sd_i^2: weighted moment equation, weights 1 / (J^2 + sd_i^2)^2, iterated."""
+    """J with Var(dev_i) = J^2 + sd_i^2: weighted moment equation, weights 1 / (J^2 + sd_i^2)^2, iterated; at most
+    the raw rms (taking noise out cannot add jitter: where the large deviations sit on the precisely placed
+    transitions, the weights alone would lift J above it)."""
     d2 = dev**2 * dof_factor
     s2 = sd**2
     j2 = max(float(np.mean(d2 - s2)), 0.0)
@@ -50,7 +52,7 @@ def jitter_without_position_noise(dev: np.ndarray, sd: np.ndarray, dof_factor: f
             j2 = new
             break
         j2 = new
-    return float(np.sqrt(j2))
+    return float(np.sqrt(min(j2, float(np.mean(d2))))) if d2.size else 0.0
 
 
 def _closer_to_clock(grid: BitGrid | None, again: BitGrid | None, hint: float) -> BitGrid | None:
@@ -206,8 +208,8 @@ def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix,
                          "(a gap of two or more pitches): the pitch counts that gap as so many pitches, and "
                          "no metric includes the missed track(s).")
     if erase is None:
-        sentences.append("Erase band: no side band of old data beside the tracks, so it cannot be told from the "
-                         "guard band.")
+        sentences.append(f"Erase band: no side band of old data was resolved (row spacing {px_across * 1e9:.3g} nm), "
+                         "so it cannot be told from the guard band.")
     elif erase < w_m:
         # measured on 120 synthetic images (tests/analysis/media/synthetic_media.py, seeds 0-59, both
         # orientations): a written 30 nm band read 16-26 nm, median 22, at 20 nm lift; the activities of the track
