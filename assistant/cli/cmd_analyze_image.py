@@ -11,7 +11,9 @@ from assistant.formatting import number, quantity
 def run(args) -> int:
     from assistant.procedures.media import analyse_image, load_image
 
-    for name in ("thickness_nm", "tip_offset_nm", "height_nm"):
+    if args.thickness_nm is not None and not args.thickness_nm > 0:  # a film of no thickness has no field
+        raise UsageError(f"--thickness-nm must be > 0 nm, got {quantity(args.thickness_nm, 'nm')}")
+    for name in ("tip_offset_nm", "height_nm"):
         value = getattr(args, name)
         if value is not None and not value >= 0:
             raise UsageError(f"--{name.replace('_', '-')} must be >= 0 nm, got {quantity(value, 'nm')}")

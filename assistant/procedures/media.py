@@ -64,9 +64,13 @@ def _from_npz(path: Path) -> StoredImage:
             raise MediaImageError(f"{path}: phase_deg must be one image (rows, cols), got shape {phase.shape}")
         lift = None
         if "lift_nm" in z.files:
-            lift = float(z["lift_nm"]) * 1e-9
+            raw = np.asarray(z["lift_nm"])
+            if raw.ndim != 0 or raw.dtype.kind not in "iuf":
+                raise MediaImageError(f"{path}: lift_nm must be one number (the image's lift height in nm), got "
+                                      f"{'an array of shape ' + str(raw.shape) if raw.ndim else raw.dtype.name}")
+            lift = float(raw) * 1e-9
             if not (np.isfinite(lift) and lift >= 0):
-                raise MediaImageError(f"{path}: lift_nm must be a height >= 0, got {float(z['lift_nm'])!r}")
+                raise MediaImageError(f"{path}: lift_nm must be a height >= 0 nm, got {quantity(float(raw), 'nm')}")
         return StoredImage(phase, _pixel_pair(z["pixel_nm"], path), lift, f"{path.name}")
 
 

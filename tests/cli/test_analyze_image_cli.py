@@ -64,12 +64,26 @@ def test_too_few_pixels_per_bit_is_exit_2_naming_the_pixel_size(tmp_path, capsys
     ({"phase_deg": np.zeros((32, 32))}, "pixel_nm"),
     ({"phase_deg": np.zeros((32, 32)), "pixel_nm": 10.0, "colour": 1}, "unknown key"),
     ({"phase_deg": np.zeros((32, 32)), "pixel_nm": -1.0}, "positive"),
+    ({"phase_deg": np.zeros((32, 32)), "pixel_nm": 10.0, "lift_nm": [20.0, 30.0]}, "lift_nm must be one number"),
+    ({"phase_deg": np.zeros((32, 32)), "pixel_nm": 10.0, "lift_nm": "high"}, "lift_nm must be one number"),
+    ({"phase_deg": np.full((32, 32), np.inf), "pixel_nm": 10.0}, "not finite (100% infinite)"),
+    ({"phase_deg": np.full((32, 32), np.nan), "pixel_nm": 10.0}, "not finite (100% NaN)"),
 ])
 def test_bad_files_are_one_line_exit_2(tmp_path, capsys, data, needle):
     path = tmp_path / "bad.npz"
     np.savez(path, **data)
     code, _, err = run(capsys, "analyze", "image", str(path))
     assert code == 2 and needle in err and err.count("\n") == 1
+
+
+@pytest.mark.parametrize("option, value, needle", [("--thickness-nm", "0", "must be > 0 nm"),
+                                                   ("--thickness-nm", "-5", "must be > 0 nm"),
+                                                   ("--tip-offset-nm", "-1", "must be >= 0 nm")])
+def test_bad_options_are_one_line_exit_2(tmp_path, capsys, option, value, needle):
+    path = tmp_path / "flat.npz"
+    np.savez(path, phase_deg=np.zeros((32, 32)), pixel_nm=10.0)
+    code, out, err = run(capsys, "analyze", "image", str(path), option, value)
+    assert code == 2 and out == "" and needle in err and err.count("\n") == 1
 
 
 def test_missing_file(capsys, tmp_path):

@@ -111,7 +111,7 @@ def down_track_axis(image: np.ndarray) -> tuple[int, float]:
 def _clean(image: np.ndarray) -> np.ndarray:
     u = np.asarray(image, float)
     ok = np.isfinite(u)
-    return np.where(ok, u, np.nanmedian(u) if ok.any() else 0.0)
+    return np.where(ok, u, np.median(u[ok]) if ok.any() else 0.0)
 
 
 def _relation(image: np.ndarray, axis: int, noise_deg: float, *, threshold: float = 5.0, block_rows: int = 16):

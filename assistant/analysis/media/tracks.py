@@ -168,9 +168,12 @@ def analyse_tracks(phase_deg, *, pixel_m, lift_m: float | None = None, thickness
     pix = (float(pixel_m), float(pixel_m)) if np.ndim(pixel_m) == 0 else (float(pixel_m[0]), float(pixel_m[1]))
     if not all(np.isfinite(p) and p > 0 for p in pix):
         raise MediaInputError(f"pixel_m must be positive, got {pixel_m!r}")
+    if thickness_m is not None and not (np.isfinite(thickness_m) and thickness_m > 0):
+        raise MediaInputError(f"thickness_m must be > 0 (a film of no thickness has no field), got {thickness_m!r}")
     ok = np.isfinite(u)
     if ok.mean() < 0.5:
-        raise MediaInputError(f"more than half of the image is NaN ({1 - ok.mean():.0%})")
+        what = "infinite" if not np.isnan(u).any() else ("NaN" if not np.isinf(u).any() else "NaN or infinite")
+        raise MediaInputError(f"more than half of the image is not finite ({1 - ok.mean():.0%} {what})")
     u = np.where(ok, u, np.median(u[ok]))
     noise = float(noise_deg) if noise_deg is not None else white_noise_std(u)
     noise = max(noise, 1e-9 * float(np.std(u)) + 1e-300)

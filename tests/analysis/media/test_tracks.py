@@ -251,3 +251,13 @@ def test_taking_out_the_position_noise_never_raises_the_jitter():
 def test_no_erase_band_names_the_row_spacing(long_bits):
     _, r = long_bits
     assert any("no side band of old data was resolved (row spacing 8 nm)" in s for s in r.sentences)
+
+
+@pytest.mark.parametrize("image, kw, needle", [(np.zeros((32, 32)), {"thickness_m": 0.0}, "thickness_m must be > 0"),
+                                               (np.full((32, 32), np.inf), {}, "not finite (100% infinite)")])
+def test_bad_input_is_one_line(image, kw, needle):
+    from assistant.analysis.media import MediaInputError
+
+    with pytest.raises(MediaInputError) as info:
+        analyse_tracks(image, pixel_m=10e-9, **kw)
+    assert needle in str(info.value) and "\n" not in str(info.value)
