@@ -4,8 +4,8 @@ The transition map shows the phase image on the report's phase scale (dark = att
 written edges (dashed) and every placed transition as a short bar across the track's core, coloured by its
 deviation from the track's bit-cell grid on a magenta-green scale that cannot be confused with the phase
 colours (the bar spans the rows averaged into the track's profile); thin grey ticks above each track mark its
-grid. The histogram pools the deviations of all tracks and
-draws the normal density of the reported jitter over them.
+grid. The histogram pools the deviations the reported jitter was computed from (every track's, off-grid and
+outlying transitions left out as there) and draws the normal density of the reported jitter over them.
 """
 
 from __future__ import annotations
@@ -98,8 +98,9 @@ def _bar(ax, along_rows, along, a, b, **kw):
 
 def jitter_histogram_figure(result, *, title: str = "Transition jitter") -> Figure:
     """Deviations of all transitions from their tracks' grids, with the normal density of the jitter."""
-    devs = np.concatenate([t.deviations_m[~t.off_grid] if t.off_grid is not None else t.deviations_m
-                           for t in result.tracks]) * 1e9
+    # the transitions the reported jitter was computed from (off-grid and outlying ones left out alike)
+    devs = np.concatenate([t.deviations_m[t.in_jitter] if t.in_jitter is not None else t.deviations_m[:0]
+                           for t in result.tracks]) * 1e9 if result.tracks else np.array([])
     devs = devs[np.isfinite(devs)]
     fig = Figure(figsize=(5.6, 4.0), layout="constrained")
     FigureCanvasAgg(fig)

@@ -12,6 +12,8 @@ profile. Width: the mean of complete tracks' widths.
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 
 from .bit_grid import BitGrid, fit_bit_grid
@@ -137,6 +139,8 @@ def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix,
     if pooled.size >= 8:
         robust = 1.4826 * float(np.median(np.abs(pooled - np.median(pooled))))
         on = [o & (np.abs(g.deviations) <= max(4.0 * robust, 0.01 * g.bit_length)) for (_, g), o in zip(good, on)]
+    used = {r.index: o for (r, _), o in zip(good, on)}  # shown as such in the figures and the JSON
+    results = [replace(r, in_jitter=used.get(r.index, np.zeros(r.positions_m.size, bool))) for r in results]
     dev_all = np.concatenate([g.deviations[o] for (_, g), o in zip(good, on)]) * px_down
     sd_all = np.concatenate([r.positions_std_m[o] for (r, _), o in zip(good, on)])
     dof_factor = dev_all.size / max(sum(max(int(o.sum()) - 2, 1) for o in on), 1)

@@ -58,6 +58,7 @@ class TrackResult:
     fitted_width_m: float | None
     off_grid: np.ndarray | None = None   # more than 30 % of a cell from the grid: not jitter, left out of it
     core_m: tuple[float, float] | None = None  # centre and half-width of the rows averaged for the profile
+    in_jitter: np.ndarray | None = None  # the transitions the reported jitter was computed from
 
     def to_dict(self) -> dict:
         def nm(v):
@@ -124,12 +125,16 @@ class TrackAnalysis:
             out["transitions"] = [{"track": t.index, "position_nm": round(float(x) * 1e9, 4),
                                    "position_std_nm": round(float(s) * 1e9, 4),
                                    "deviation_nm": None if d is None or not np.isfinite(d) else round(float(d) * 1e9, 4),
-                                   "sign": int(g), "off_grid": bool(o)}
+                                   "sign": int(g), "off_grid": bool(o), "in_jitter": bool(j)}
                                   for t in self.tracks
-                                  for x, s, d, g, o in zip(t.positions_m, t.positions_std_m, t.deviations_m, t.signs,
-                                                           t.off_grid if t.off_grid is not None
-                                                           else np.zeros(t.positions_m.size, bool))]
+                                  for x, s, d, g, o, j in zip(t.positions_m, t.positions_std_m, t.deviations_m,
+                                                              t.signs, _flags(t.off_grid, t.positions_m.size),
+                                                              _flags(t.in_jitter, t.positions_m.size))]
         return out
+
+
+def _flags(mask: np.ndarray | None, n: int) -> np.ndarray:
+    return np.zeros(n, bool) if mask is None else mask
 
 
 def no_tracks(orientation, pixel, shape, reason) -> TrackAnalysis:

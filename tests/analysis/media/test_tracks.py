@@ -68,7 +68,7 @@ def test_json_keys(long_bits):
                 "track_width_nm", "transition_jitter_nm", "transition_width_nm", "tracks", "transitions"):
         assert key in d
     assert len(d["tracks"]) == len(r.tracks) and len(d["transitions"]) == sum(t.positions_m.size for t in r.tracks)
-    assert {"track", "position_nm", "deviation_nm"} <= set(d["transitions"][0])
+    assert {"track", "position_nm", "deviation_nm", "off_grid", "in_jitter"} <= set(d["transitions"][0])
 
 
 @pytest.mark.parametrize("orientation", ["out-of-plane", "in-plane"])
