@@ -185,13 +185,7 @@ def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix,
     shaped = min(free, key=lambda f: f.width_std_px) if free else max((f for _, f in fits),
                                                                        key=lambda f: f.width_std_px)
     w_m = shaped.width_px * px_down
-    a, a_sd = shaped.along_px, shaped.along_std_px
-    separated = (a is not None and a_sd is not None and np.isfinite(a_sd) and a > 2 * a_sd
-                 and a < 0.85 * shaped.width_px)
-    if separated:  # the track's finite width told the arctan parameter from the spacing and the tip
-        tw, tw_sd, includes_tip = a * px_down, a_sd * px_down, False
-    else:
-        tw, tw_sd, includes_tip = w_m - (lift_m or 0.0), shaped.width_std_px * px_down, not have_tip
+    tw, tw_sd, includes_tip = w_m - (lift_m or 0.0), shaped.width_std_px * px_down, not have_tip
     sentences = [f"{len(results)} track(s) along the {'rows' if along_rows else 'columns'}, {sum(r.positions_m.size for r in results)} "
                  f"transitions placed by one joint fit per track ({model_orientation} transition model"
                  + (", chosen by the fit" if model_chosen_by_fit else "") + ")."]
@@ -222,15 +216,10 @@ def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix,
                          f"old data beside it: narrower than the field's spread ({w_m * 1e9:.3g} nm), it reads low, "
                          "since the two bands' tails overlap in it (a written 30 nm band read 16-26 nm on synthetic "
                          "tracks at 20 nm lift).")
-    if separated:
-        sentences.append(f"Transition width (arctan parameter) {tw * 1e9:.3g} ± {tw_sd * 1e9:.2g} nm, told from the "
-                         f"spacing and the tip ({(w_m - tw) * 1e9:.3g} nm together) by the track's finite width: the "
-                         "arctan smooths along the track only, the spacing in every direction.")
-    else:
-        lift_txt = "the lift height taken off" if lift_m else "no lift height given, so it is included"
-        sentences.append(f"Transition width (arctan parameter) {tw * 1e9:.3g} nm, {lift_txt}"
-                         + ("; it still includes the tip's effective offset (give the tip's transfer function to "
-                            "take it off): an upper bound." if includes_tip else "; tip transfer function taken off."))
+    lift_txt = "the lift height taken off" if lift_m else "no lift height given, so it is included"
+    sentences.append(f"Transition width (arctan parameter) {tw * 1e9:.3g} nm, {lift_txt}"
+                     + ("; it still includes the tip's effective offset (give the tip's transfer function to "
+                        "take it off): an upper bound." if includes_tip else "; tip transfer function taken off."))
     return TrackAnalysis(orient, True, tuple(sentences), along_rows, pix, shape, skew, tuple(results), bit, bit_sd,
                          pitch, pitch_sd, width, width_sd, jitter, raw, pos_noise, inter, tw, tw_sd, includes_tip,
                          erase, layout.activity)
