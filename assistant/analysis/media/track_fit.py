@@ -23,9 +23,12 @@ def analyse_along(u: np.ndarray, layout: TrackLayout, axis: int, *, pix, noise, 
     img = u if axis == 1 else u.T
     px_down, px_across = (pix[1], pix[0]) if axis == 1 else (pix[0], pix[1])
     skew = _skew(img, layout)
-    if abs(skew) * img.shape[0] > 0.2:
+    # each row's content moved by -skew (row - middle row): the tracks straight, the middle row where it was (the
+    # summary moves each track's positions back to where its core lies in the image)
+    deskew = skew if abs(skew) * img.shape[0] > 0.2 else 0.0
+    if deskew:
         rows_idx = np.arange(img.shape[0]) - 0.5 * (img.shape[0] - 1)
-        img = _fourier_shift_rows(img, -skew * rows_idx)
+        img = _fourier_shift_rows(img, -deskew * rows_idx)
     tip = None if tip_transfer is None else (lambda k, f=tip_transfer, p=px_down: f(np.asarray(k) / p))
     # starting w: lift + the arctan parameter (+ the tip's offset, unless its transfer function carries it)
     w0 = ((lift_m or 20e-9) + TYPICAL_TRANSITION_M + (0.0 if tip_transfer is not None else TYPICAL_TIP_OFFSET_M)) / px_down
@@ -91,7 +94,7 @@ def analyse_along(u: np.ndarray, layout: TrackLayout, axis: int, *, pix, noise, 
 
     return summarise(orient, model_orientation, orient.orientation == "undetermined", layout, fits, pix, u.shape,
                      axis == 1, skew, px_down, px_across, lift_m, tip_transfer is not None, min_pixels_per_bit,
-                     cores)
+                     cores, deskew_px_per_row=deskew)
 
 
 

@@ -99,6 +99,30 @@ def test_tracks_along_columns_and_skewed():
     assert rs.transition_jitter_m < 6e-9
 
 
+def test_skewed_tracks_report_positions_where_the_image_has_them():
+    # rows moved by 8 px over the image height: the fit straightens the tracks about the middle row, and the
+    # positions used to stay in that frame, off by skew (track row - middle row) pixels: +26.5, +8.5, -7.2 and
+    # -27.7 nm for these four tracks
+    im = track_image(orientation="out-of-plane", rows=256, cols=256, seed=23, noise_deg=0.01)
+    rows = im.phase_deg.shape[0]
+    shifts = np.linspace(-0.5, 0.5, rows) * 8.0
+    f = np.fft.rfftfreq(im.phase_deg.shape[1])
+    skewed = np.fft.irfft(np.fft.rfft(im.phase_deg, axis=1) * np.exp(-2j * np.pi * np.outer(shifts, f)),
+                          n=im.phase_deg.shape[1], axis=1)
+    r = analyse_tracks(skewed, pixel_m=im.pixel_m, lift_m=im.lift_m)
+    assert r.skew_px_per_row == pytest.approx(8.0 / (rows - 1), rel=0.05)
+    for t in r.tracks:
+        row = t.core_m[0] / im.pixel_m - 0.5  # the rows averaged into the profile are centred here
+        truth = im.transitions[int(np.argmin(np.abs(im.track_centres_m - t.centre_m)))]
+        truth = truth + np.interp(row, np.arange(rows), shifts) * im.pixel_m
+        err = np.array([x - truth[np.argmin(np.abs(truth - x))] for x in t.positions_m])
+        assert np.median(np.abs(err)) < 1e-9, err  # the last few pixels hold the shift's mirrored edge
+        # the grid in the same frame: each deviation is the position's distance from phase + n bit
+        off = (t.positions_m - t.phase_m + 0.5 * t.bit_length_m) % t.bit_length_m - 0.5 * t.bit_length_m
+        ok = np.isfinite(t.deviations_m)
+        np.testing.assert_allclose(off[ok], t.deviations_m[ok], atol=1e-12)
+
+
 def test_erase_bands_beside_old_data():
     im = track_image(orientation="in-plane", erase_m=30e-9, old_data_bit_m=100e-9, seed=24)
     r = analyse_tracks(im.phase_deg, pixel_m=im.pixel_m, lift_m=im.lift_m)
