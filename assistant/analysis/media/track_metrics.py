@@ -84,7 +84,8 @@ def _clock(positions: list[np.ndarray], found: list[BitGrid]) -> tuple[float, li
 
 
 def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix, shape, along_rows, skew, px_down,
-               px_across, lift_m, have_tip, min_pixels_per_bit, cores=None, deskew_px_per_row=0.0) -> TrackAnalysis:
+               px_across, lift_m, have_tip, min_pixels_per_bit, cores=None, deskew_px_per_row=0.0,
+              amplitude_m=None) -> TrackAnalysis:
     """The combined numbers. Positions were fitted in the de-skewed frame (row content moved by -skew (row - middle
     row)); each track's positions and grid phase are reported where its core rows lie in the image."""
     grids: list[BitGrid | None] = []
@@ -224,9 +225,11 @@ def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix,
                          "since the two bands' tails overlap in it (a written 30 nm band read 16-26 nm on synthetic "
                          "tracks at 20 nm lift).")
     lift_txt = "the lift height taken off" if lift_m else "no lift height given, so it is included"
-    sentences.append(f"Transition width (arctan parameter) {tw * 1e9:.3g} nm, {lift_txt}"
+    osc_txt = (f"; the oscillation's averaging (amplitude {amplitude_m * 1e9:.3g} nm) taken off" if amplitude_m else
+               "; it includes the averaging over the cantilever's oscillation, which widens it (amplitude not given)")
+    sentences.append(f"Transition width (arctan parameter) {tw * 1e9:.3g} nm, {lift_txt}{osc_txt}"
                      + ("; it still includes the tip's effective offset (give the tip's transfer function to "
                         "take it off): an upper bound." if includes_tip else "; tip transfer function taken off."))
     return TrackAnalysis(orient, True, tuple(sentences), along_rows, pix, shape, skew, tuple(results), bit, bit_sd,
                          pitch, pitch_sd, width, width_sd, jitter, raw, pos_noise, inter, tw, tw_sd, includes_tip,
-                         erase, layout.activity)
+                         erase, layout.activity, amplitude_m is None)
