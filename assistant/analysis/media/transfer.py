@@ -113,8 +113,8 @@ def track_transition_response(kx: np.ndarray, *, orientation: str, width_m: floa
     M_z and -i kx / k for M_x along the track, M(kx, ky) = 2 Ms exp(-|kx| a) / (i kx) * 2 sin(ky W / 2) / ky:
     the arctan transition smooths along the track only, the spacing loss in every direction. With w = z + a
     (``width_m``) and a (``along_m``) the exponent is -k (w - a) - |kx| a (the analysis holds a: a profile
-    barely tells it from the spacing, so its w carries both). The mean over the core multiplies by sin(ky c) / (ky c), and the profile is the
-    integral over ky / 2 pi (midpoint rule on a grid fine against 1 / W). For W -> infinity it is
+    barely tells it from the spacing, so its w carries both). The mean over the core multiplies by
+    sin(ky c) / (ky c), and the profile is the integral over ky / 2 pi (midpoint rule on a grid fine against 1 / W). For W -> infinity it is
     :func:`transition_response`. Out-of-plane, a narrow track shows more than its transitions: the two long
     edges where the data meet the erased band carry charge wherever a bit differs from the band, so the field
     over a bit depends on its polarity. With ``derivatives`` also returns d/dw, d/dt and d/da of the profile.
