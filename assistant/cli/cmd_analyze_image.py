@@ -9,15 +9,20 @@ from assistant.formatting import number, quantity
 
 
 def run(args) -> int:
-    from assistant.procedures.media import analyse_image, load_image
+    from assistant.procedures.media import analyse_image, closest_approach_m, load_image
 
-    for name in ("thickness_nm", "tip_offset_nm", "height_nm"):
+    if args.thickness_nm is not None and not args.thickness_nm > 0:  # a film of no thickness has no field
+        raise UsageError(f"--thickness-nm must be > 0 nm, got {quantity(args.thickness_nm, 'nm')}")
+    for name in ("tip_offset_nm", "height_nm", "amplitude_nm"):
         value = getattr(args, name)
         if value is not None and not value >= 0:
             raise UsageError(f"--{name.replace('_', '-')} must be >= 0 nm, got {quantity(value, 'nm')}")
     image = load_image(args.file, series=args.series, height_nm=args.height_nm)
     result = analyse_image(image, thickness_m=None if args.thickness_nm is None else args.thickness_nm * 1e-9,
-                           tip_offset_m=None if args.tip_offset_nm is None else args.tip_offset_nm * 1e-9)
+                           tip_offset_m=None if args.tip_offset_nm is None else args.tip_offset_nm * 1e-9,
+                           amplitude_m=None if args.amplitude_nm is None else args.amplitude_nm * 1e-9)
+    amp = image.amplitude_m if args.amplitude_nm is None else args.amplitude_nm * 1e-9
+    plane = closest_approach_m(image, amp)
     figures = []
     if args.plots:
         from assistant.report.media_figures import write_media_figures
@@ -25,6 +30,8 @@ def run(args) -> int:
         figures = [str(p) for p in write_media_figures(image.phase_deg, result, Path(args.plots))]
     d = result.to_dict()
     d["image"] = {"source": image.source, "lift_nm": None if image.lift_m is None else image.lift_m * 1e9,
+                  "amplitude_nm": None if amp is None else amp * 1e9,
+                  "closest_approach_nm": None if plane is None else plane * 1e9,
                   "pixel_nm": [image.pixel_m[0] * 1e9, image.pixel_m[1] * 1e9]}
     if args.plots:
         d["figures"] = figures

@@ -186,13 +186,16 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = ana.add_parser("image", help="magnetisation orientation and recorded-track metrics of one image")
     p.add_argument("file", help=".npz (phase_deg (rows, cols), pixel_nm as one spacing or [row, col], optional "
-                                "lift_nm) or a session file (.h5): one height of a series")
+                                "lift_nm, amplitude_nm, gap_offset_nm) or a session file (.h5): one height of a "
+                                "series")
     p.add_argument("--series", metavar="NAME", help="series name inside a session file (default: the last)")
     p.add_argument("--height-nm", type=float, metavar="NM", help="the height of the series to analyze (default: "
                    "the lowest where the tip-sample interaction is negligible)")
     p.add_argument("--thickness-nm", type=float, metavar="NM", help="film thickness (default: fitted)")
     p.add_argument("--tip-offset-nm", type=float, metavar="NM", help="the tip as a point dipole this far behind "
                    "the apex (e.g. from a tip calibration): taken off the transition width")
+    p.add_argument("--amplitude-nm", type=float, metavar="NM", help="peak oscillation amplitude in the image "
+                   "(default: the file's or the series' own): its averaging is taken off the transition width")
     p.add_argument("--plots", metavar="DIR", help="also write the transition map and the jitter histogram to DIR")
     _json(p)
     p.set_defaults(handler="cmd_analyze_image:run")

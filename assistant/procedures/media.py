@@ -1,10 +1,12 @@
 """Media analysis of a stored image: a .npz file or a lift series in a session file.
 
 A .npz holds one image: ``phase_deg`` (rows, cols) [deg], ``pixel_nm`` (one spacing, or [between rows, along a
-row]) and optionally ``lift_nm``. From a session file the image is one height of a series (the first bias of a
+row]) and optionally ``lift_nm``, ``amplitude_nm`` (the oscillation's peak amplitude) and ``gap_offset_nm`` (the
+oscillation centre's height above the lift in the first pass; default: the amplitude, so the lift is the closest
+approach). From a session file the image is one height of a series (the first bias of a
 bias grid closest to the contact potential): the lowest height where the tip-sample interaction was found
 negligible, else the recommended lift height, else the lowest height; the whole stack at that bias gives the
-orientation its per-height evidence.
+orientation its per-height evidence; the free amplitude and the first pass's gap offset are the series' own.
 """
 
 from __future__ import annotations
@@ -17,10 +19,10 @@ import numpy as np
 from assistant.errors import InputError
 from assistant.formatting import number_list, quantity
 
-__all__ = ["MediaImageError", "StoredImage", "load_image", "analyse_image"]
+__all__ = ["MediaImageError", "StoredImage", "load_image", "analyse_image", "closest_approach_m"]
 
 NPZ_REQUIRED = ("phase_deg", "pixel_nm")
-NPZ_OPTIONAL = ("lift_nm",)
+NPZ_OPTIONAL = ("lift_nm", "amplitude_nm", "gap_offset_nm")
 
 
 class MediaImageError(InputError):
@@ -35,6 +37,8 @@ class StoredImage:
     source: str                      # what was read, in words
     stack_deg: np.ndarray | None = None   # (heights, rows, cols) at the same bias, for the orientation
     heights_m: np.ndarray | None = None
+    amplitude_m: float | None = None      # peak amplitude of the oscillation
+    gap_offset_m: float | None = None     # the oscillation centre above the lift height (default: the amplitude)
 
 
 def _pixel_pair(value, path) -> tuple[float, float]:
@@ -62,12 +66,23 @@ def _from_npz(path: Path) -> StoredImage:
         phase = np.asarray(z["phase_deg"], dtype=float)
         if phase.ndim != 2:
             raise MediaImageError(f"{path}: phase_deg must be one image (rows, cols), got shape {phase.shape}")
-        lift = None
-        if "lift_nm" in z.files:
-            lift = float(z["lift_nm"]) * 1e-9
-            if not (np.isfinite(lift) and lift >= 0):
-                raise MediaImageError(f"{path}: lift_nm must be a height >= 0, got {float(z['lift_nm'])!r}")
-        return StoredImage(phase, _pixel_pair(z["pixel_nm"], path), lift, f"{path.name}")
+        lift, amp, gap = (_length(z, key, path) for key in NPZ_OPTIONAL)
+        return StoredImage(phase, _pixel_pair(z["pixel_nm"], path), lift, f"{path.name}", amplitude_m=amp,
+                           gap_offset_m=gap)
+
+
+def _length(z, key: str, path: Path) -> float | None:
+    """An optional length >= 0 in nm from the .npz, in metres."""
+    if key not in z.files:
+        return None
+    raw = np.asarray(z[key])
+    if raw.ndim != 0 or raw.dtype.kind not in "iuf":
+        raise MediaImageError(f"{path}: {key} must be one number in nm, got "
+                              f"{'an array of shape ' + str(raw.shape) if raw.ndim else raw.dtype.name}")
+    value = float(raw)
+    if not (np.isfinite(value) and value >= 0):
+        raise MediaImageError(f"{path}: {key} must be >= 0 nm, got {quantity(value, 'nm')}")
+    return value * 1e-9
 
 
 def _from_session(path: Path, series: str | None, height_nm: float | None) -> StoredImage:
@@ -103,7 +118,21 @@ def _from_session(path: Path, series: str | None, height_nm: float | None) -> St
     pixel = (data.scan_size_m / data.lines, data.scan_size_m / data.pixels)
     bias = "" if data.biases_v is None else f", tip bias {quantity(data.biases_v[b], 'V', digits=3)}"
     source = f"{path.name}, series {name!r} at {quantity(h[i], 'm')} ({why}){bias}, {lines} lines"
-    return StoredImage(phase[i, :lines], pixel, float(h[i]), source, phase[:, :lines], h)
+    amp, gap = _stored_oscillation(data.settings_json)
+    return StoredImage(phase[i, :lines], pixel, float(h[i]), source, phase[:, :lines], h, amp, gap)
+
+
+def _stored_oscillation(settings_json: str | None) -> tuple[float | None, float | None]:
+    """The free amplitude and the first pass's gap offset the workflow stored beside the series (None without)."""
+    import json
+
+    from assistant.procedures.analyse import stored_probe
+
+    settings = json.loads(settings_json or "{}")
+    if not (settings.get("drive") or {}).get("free_amplitude_m"):
+        return None, None
+    probe = stored_probe(settings)
+    return probe.amplitude_m, probe.gap_offset_m
 
 
 def _chosen_height(h: np.ndarray, stored) -> tuple[int, str]:
@@ -133,19 +162,22 @@ def load_image(path: str | Path, *, series: str | None = None, height_nm: float 
     return _from_npz(p)
 
 
-def analyse_image(image: StoredImage, *, thickness_m: float | None = None, tip_offset_m: float | None = None):
+def analyse_image(image: StoredImage, *, thickness_m: float | None = None, tip_offset_m: float | None = None,
+                  amplitude_m: float | None = None):
     """Orientation and recorded-track metrics of a stored image (a frozen ``TrackAnalysis``).
 
     With a series stack, the orientation is read from every height (the phase relation per height and the
     fundamental's decay) along the track direction the image gave. ``tip_offset_m`` describes the tip as a point
     dipole that far behind the apex (a quantitative-MFM calibration's offset), which takes the tip off the
-    transition width.
+    transition width. ``amplitude_m`` (else the image's own) is the oscillation's peak amplitude: its averaging
+    enters the response, and the lift is moved to the closest approach (lift + gap offset - amplitude).
     """
     from assistant.analysis.media import analyse_tracks, magnetisation_orientation, point_probe_transfer
 
     tip = None if tip_offset_m is None else point_probe_transfer(offset_m=tip_offset_m)
-    result = analyse_tracks(image.phase_deg, pixel_m=image.pixel_m, lift_m=image.lift_m, thickness_m=thickness_m,
-                            tip_transfer=tip)
+    amp = image.amplitude_m if amplitude_m is None else amplitude_m
+    result = analyse_tracks(image.phase_deg, pixel_m=image.pixel_m, lift_m=closest_approach_m(image, amp),
+                            thickness_m=thickness_m, tip_transfer=tip, amplitude_m=amp)
     if image.stack_deg is not None and image.stack_deg.shape[0] > 1:
         axis = (1 if result.tracks_along_rows else 0) if result.has_tracks else None
         series_orientation = magnetisation_orientation(image.stack_deg, pixel_m=image.pixel_m,
@@ -153,3 +185,20 @@ def analyse_image(image: StoredImage, *, thickness_m: float | None = None, tip_o
         if series_orientation.orientation != "undetermined" or result.orientation.orientation == "undetermined":
             result = replace(result, orientation=series_orientation)
     return result
+
+
+def closest_approach_m(image: StoredImage, amplitude_m: float | None) -> float | None:
+    """The measurement plane: lift + gap offset - amplitude (the gap offset defaulting to the amplitude; the
+    quantitative family's ``measurement_plane_m``), None without a lift height."""
+    if image.lift_m is None:
+        return None
+    if not amplitude_m:
+        return image.lift_m
+    from assistant.analysis.quantitative import measurement_plane_m
+
+    gap = image.gap_offset_m if image.gap_offset_m is not None else amplitude_m
+    try:
+        return measurement_plane_m(image.lift_m, amplitude_m=amplitude_m, gap_offset_m=gap)
+    except ValueError:
+        raise MediaImageError(f"the closest approach lift + gap offset - amplitude = "
+                              f"{quantity(image.lift_m + gap - amplitude_m, 'm')} must be > 0") from None

@@ -4,8 +4,8 @@ The transition map shows the phase image on the report's phase scale (dark = att
 written edges (dashed) and every placed transition as a short bar across the track's core, coloured by its
 deviation from the track's bit-cell grid on a magenta-green scale that cannot be confused with the phase
 colours (the bar spans the rows averaged into the track's profile); thin grey ticks above each track mark its
-grid. The histogram pools the deviations of all tracks and
-draws the normal density of the reported jitter over them.
+grid. The histogram pools the deviations the reported jitter was computed from (every track's, off-grid and
+outlying transitions left out as there) and draws the normal density of the reported jitter over them.
 """
 
 from __future__ import annotations
@@ -46,6 +46,9 @@ def transition_map_figure(phase_deg: np.ndarray, result, *, title: str = "Transi
     span = max(float(np.percentile(np.abs(finite), 98)) if finite.size else 0.0, 0.5e-9) * 1e9
     dev_cmap, dev_norm = colormaps["PiYG"], Normalize(-span, span)
     along_rows = result.tracks_along_rows
+    # the tracks' skew: along-track shift per unit across (positions are where the track's core centre lies)
+    px_down, px_across = (result.pixel_m[1], result.pixel_m[0]) if along_rows else result.pixel_m
+    slope = result.skew_px_per_row * px_down / px_across
     for t in result.tracks:
         lo, hi = t.edges_m
         if t.core_m is not None:  # the rows averaged into the track's profile
@@ -60,11 +63,11 @@ def transition_map_figure(phase_deg: np.ndarray, result, *, title: str = "Transi
             g = t.phase_m + np.arange(np.floor((t.positions_m.min() - t.phase_m) / t.bit_length_m),
                                       np.ceil((t.positions_m.max() - t.phase_m) / t.bit_length_m) + 1) * t.bit_length_m
             for x in g:
-                _bar(ax, along_rows, x * 1e6, (centre + half) * 1e6, (centre + 1.25 * half) * 1e6, color="0.55",
+                _bar(ax, along_rows, x, centre, (centre + half), (centre + 1.25 * half), slope, color="0.55",
                      lw=0.6)
         for x, d in zip(t.positions_m, t.deviations_m):
             colour = dev_cmap(dev_norm(d * 1e9)) if np.isfinite(d) else (0.3, 0.3, 0.3, 1.0)
-            _bar(ax, along_rows, x * 1e6, (centre - half) * 1e6, (centre + half) * 1e6, color=colour, lw=2.0)
+            _bar(ax, along_rows, x, centre, (centre - half), (centre + half), slope, color=colour, lw=2.0)
     sm = fig.colorbar(_mappable(dev_cmap, dev_norm), ax=ax, shrink=0.8, extend="both")
     sm.set_label("transition: deviation from the bit-cell grid (nm)")
     ax.set_xlim(x0, x1)
@@ -89,17 +92,20 @@ def _line(ax, along_rows, across, span, **kw):
         ax.plot((across, across), span, **kw)
 
 
-def _bar(ax, along_rows, along, a, b, **kw):
+def _bar(ax, along_rows, along, centre, a, b, slope, **kw):
+    """A bar across the track from ``a`` to ``b`` [m] through ``along`` at ``centre``, leaning with the skew."""
+    ends = (along + slope * (a - centre), along + slope * (b - centre))
     if along_rows:
-        ax.plot((along, along), (a, b), solid_capstyle="butt", **kw)
+        ax.plot(tuple(e * 1e6 for e in ends), (a * 1e6, b * 1e6), solid_capstyle="butt", **kw)
     else:
-        ax.plot((a, b), (along, along), solid_capstyle="butt", **kw)
+        ax.plot((a * 1e6, b * 1e6), tuple(e * 1e6 for e in ends), solid_capstyle="butt", **kw)
 
 
 def jitter_histogram_figure(result, *, title: str = "Transition jitter") -> Figure:
     """Deviations of all transitions from their tracks' grids, with the normal density of the jitter."""
-    devs = np.concatenate([t.deviations_m[~t.off_grid] if t.off_grid is not None else t.deviations_m
-                           for t in result.tracks]) * 1e9
+    # the transitions the reported jitter was computed from (off-grid and outlying ones left out alike)
+    devs = np.concatenate([t.deviations_m[t.in_jitter] if t.in_jitter is not None else t.deviations_m[:0]
+                           for t in result.tracks]) * 1e9 if result.tracks else np.array([])
     devs = devs[np.isfinite(devs)]
     fig = Figure(figsize=(5.6, 4.0), layout="constrained")
     FigureCanvasAgg(fig)

@@ -64,12 +64,26 @@ def test_too_few_pixels_per_bit_is_exit_2_naming_the_pixel_size(tmp_path, capsys
     ({"phase_deg": np.zeros((32, 32))}, "pixel_nm"),
     ({"phase_deg": np.zeros((32, 32)), "pixel_nm": 10.0, "colour": 1}, "unknown key"),
     ({"phase_deg": np.zeros((32, 32)), "pixel_nm": -1.0}, "positive"),
+    ({"phase_deg": np.zeros((32, 32)), "pixel_nm": 10.0, "lift_nm": [20.0, 30.0]}, "lift_nm must be one number"),
+    ({"phase_deg": np.zeros((32, 32)), "pixel_nm": 10.0, "lift_nm": "high"}, "lift_nm must be one number"),
+    ({"phase_deg": np.full((32, 32), np.inf), "pixel_nm": 10.0}, "not finite (100% infinite)"),
+    ({"phase_deg": np.full((32, 32), np.nan), "pixel_nm": 10.0}, "not finite (100% NaN)"),
 ])
 def test_bad_files_are_one_line_exit_2(tmp_path, capsys, data, needle):
     path = tmp_path / "bad.npz"
     np.savez(path, **data)
     code, _, err = run(capsys, "analyze", "image", str(path))
     assert code == 2 and needle in err and err.count("\n") == 1
+
+
+@pytest.mark.parametrize("option, value, needle", [("--thickness-nm", "0", "must be > 0 nm"),
+                                                   ("--thickness-nm", "-5", "must be > 0 nm"),
+                                                   ("--tip-offset-nm", "-1", "must be >= 0 nm")])
+def test_bad_options_are_one_line_exit_2(tmp_path, capsys, option, value, needle):
+    path = tmp_path / "flat.npz"
+    np.savez(path, phase_deg=np.zeros((32, 32)), pixel_nm=10.0)
+    code, out, err = run(capsys, "analyze", "image", str(path), option, value)
+    assert code == 2 and out == "" and needle in err and err.count("\n") == 1
 
 
 def test_missing_file(capsys, tmp_path):
@@ -124,3 +138,27 @@ def test_report_media_section(stage_session, tmp_path):
     assert not notes and "## Media: orientation and recorded tracks" in text and "| bit length |" in text
     assert sorted(p.name for p in paths) == ["media_jitter_histogram.png", "media_transition_map.png"]
     assert all(p.stat().st_size > 10_000 for p in paths)
+
+
+def test_the_oscillation_amplitude_from_the_file_or_the_option(tmp_path, capsys):
+    # an image made with the oscillation's averaging (A = 20 nm, written a = 15 nm; synthetic_media.py): the
+    # width reads the written a with the amplitude given in the file or on the command line, ~+17 nm without
+    im = track_image(orientation="in-plane", transition_a_m=15e-9, seed=25, rows=160, amplitude_m=20e-9)
+    bare, given = tmp_path / "bare.npz", tmp_path / "given.npz"
+    np.savez(bare, phase_deg=im.phase_deg, pixel_nm=8.0, lift_nm=20.0)
+    np.savez(given, phase_deg=im.phase_deg, pixel_nm=8.0, lift_nm=20.0, amplitude_nm=20.0)
+    tip = ("--thickness-nm", "15", "--tip-offset-nm", "30", "--json")
+    widths = {}
+    for name, argv in (("bare", (str(bare),)), ("file", (str(given),)),
+                       ("option", (str(bare), "--amplitude-nm", "20"))):
+        code, out, err = run(capsys, "analyze", "image", *argv, *tip)
+        assert code == 0, err
+        d = json.loads(out)
+        widths[name] = d["transition_width_nm"]
+        assert d["transition_width_includes_oscillation"] == (name == "bare")
+        assert d["image"]["closest_approach_nm"] == pytest.approx(20.0)  # gap offset = amplitude: the lift
+    assert widths["bare"] > 25.0
+    assert widths["file"] == pytest.approx(15.0, abs=1.5) and widths["option"] == pytest.approx(widths["file"])
+    np.savez(given, phase_deg=im.phase_deg, pixel_nm=8.0, lift_nm=10.0, amplitude_nm=20.0, gap_offset_nm=5.0)
+    code, _, err = run(capsys, "analyze", "image", str(given))
+    assert code == 2 and "closest approach" in err and err.count("\n") == 1

@@ -111,7 +111,7 @@ def down_track_axis(image: np.ndarray) -> tuple[int, float]:
 def _clean(image: np.ndarray) -> np.ndarray:
     u = np.asarray(image, float)
     ok = np.isfinite(u)
-    return np.where(ok, u, np.nanmedian(u) if ok.any() else 0.0)
+    return np.where(ok, u, np.median(u[ok]) if ok.any() else 0.0)
 
 
 def _relation(image: np.ndarray, axis: int, noise_deg: float, *, threshold: float = 5.0, block_rows: int = 16):
@@ -230,7 +230,8 @@ def magnetisation_orientation(phase_deg, *, pixel_m, heights_m=None, noise_deg: 
     if stack.shape[0] > 1:
         per_h = per[:, 0]
         shown = ", ".join("—" if not np.isfinite(x) else f"{x:+.2f}" for x in per_h)
-        ev.append(f"Per height the relation is {shown} (a spacing loss exp(-k z) cannot change it).")
+        ev.append(f"Per height the relation is {shown} (its size may change with height; "
+                  "a spacing loss exp(-k z) cannot change its sign).")
         if heights_m is not None and np.size(heights_m) == stack.shape[0]:
             period, ratio = _fundamental_decay(stack, np.asarray(heights_m, float), pix)
             if ratio is not None:

@@ -9,6 +9,7 @@ import numpy as np
 
 from .orientation import magnetisation_orientation
 from .track_layout import TrackLayout
+from .transfer import oscillation_weight
 from .tracks import (CORE_FRACTION, GOOD_RELATIVE_RESIDUAL, MAX_RELATIVE_RESIDUAL, TYPICAL_TIP_OFFSET_M,
                      TYPICAL_TRANSITION_M, TrackAnalysis, no_tracks, raise_too_few)
 from .transitions import TrackTransitions, fit_track_transitions
@@ -17,16 +18,22 @@ __all__ = ["analyse_along"]
 
 
 def analyse_along(u: np.ndarray, layout: TrackLayout, axis: int, *, pix, noise, lift_m, thickness_m, tip_transfer,
-                  min_pixels_per_bit) -> TrackAnalysis:
+                  min_pixels_per_bit, amplitude_m=None) -> TrackAnalysis:
     """Tracks of ``layout`` with the image read along ``axis`` (1: rows run along the tracks, 0: columns)."""
     orient = magnetisation_orientation(u, pixel_m=pix, noise_deg=noise, axis=axis)
     img = u if axis == 1 else u.T
     px_down, px_across = (pix[1], pix[0]) if axis == 1 else (pix[0], pix[1])
     skew = _skew(img, layout)
-    if abs(skew) * img.shape[0] > 0.2:
+    # each row's content moved by -skew (row - middle row): the tracks straight, the middle row where it was (the
+    # summary moves each track's positions back to where its core lies in the image)
+    deskew = skew if abs(skew) * img.shape[0] > 0.2 else 0.0
+    if deskew:
         rows_idx = np.arange(img.shape[0]) - 0.5 * (img.shape[0] - 1)
-        img = _fourier_shift_rows(img, -skew * rows_idx)
+        img = _fourier_shift_rows(img, -deskew * rows_idx)
     tip = None if tip_transfer is None else (lambda k, f=tip_transfer, p=px_down: f(np.asarray(k) / p))
+    if amplitude_m:  # the image averages the field over the oscillation: the tip's weight times its own
+        tip = (lambda k, f=tip, a=amplitude_m / px_down: (np.asarray(k) ** 2 if f is None else f(k))
+               * oscillation_weight(k, a))
     # starting w: lift + the arctan parameter (+ the tip's offset, unless its transfer function carries it)
     w0 = ((lift_m or 20e-9) + TYPICAL_TRANSITION_M + (0.0 if tip_transfer is not None else TYPICAL_TIP_OFFSET_M)) / px_down
     t_px = None if thickness_m is None else float(thickness_m) / px_down
@@ -91,7 +98,7 @@ def analyse_along(u: np.ndarray, layout: TrackLayout, axis: int, *, pix, noise, 
 
     return summarise(orient, model_orientation, orient.orientation == "undetermined", layout, fits, pix, u.shape,
                      axis == 1, skew, px_down, px_across, lift_m, tip_transfer is not None, min_pixels_per_bit,
-                     cores)
+                     cores, deskew_px_per_row=deskew, amplitude_m=amplitude_m)
 
 
 

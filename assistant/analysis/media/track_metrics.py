@@ -12,6 +12,8 @@ profile. Width: the mean of complete tracks' widths.
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 
 from .bit_grid import BitGrid, fit_bit_grid
@@ -39,7 +41,9 @@ def activity_period(activity: np.ndarray) -> float | None:
 
 
 def jitter_without_position_noise(dev: np.ndarray, sd: np.ndarray, dof_factor: float = 1.0) -> float:
-    """J with Var(dev_i) = J^2 + sd_i^2: weighted moment equation, weights 1 / (J^2 + sd_i^2)^2, iterated."""
+    """J with Var(dev_i) = J^2 + sd_i^2: weighted moment equation, weights 1 / (J^2 + sd_i^2)^2, iterated; at most
+    the raw rms (taking noise out cannot add jitter: where the large deviations sit on the precisely placed
+    transitions, the weights alone would lift J above it)."""
     d2 = dev**2 * dof_factor
     s2 = sd**2
     j2 = max(float(np.mean(d2 - s2)), 0.0)
@@ -50,7 +54,7 @@ def jitter_without_position_noise(dev: np.ndarray, sd: np.ndarray, dof_factor: f
             j2 = new
             break
         j2 = new
-    return float(np.sqrt(j2))
+    return float(np.sqrt(min(j2, float(np.mean(d2))))) if d2.size else 0.0
 
 
 def _closer_to_clock(grid: BitGrid | None, again: BitGrid | None, hint: float) -> BitGrid | None:
@@ -80,7 +84,10 @@ def _clock(positions: list[np.ndarray], found: list[BitGrid]) -> tuple[float, li
 
 
 def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix, shape, along_rows, skew, px_down,
-               px_across, lift_m, have_tip, min_pixels_per_bit, cores=None) -> TrackAnalysis:
+               px_across, lift_m, have_tip, min_pixels_per_bit, cores=None, deskew_px_per_row=0.0,
+              amplitude_m=None) -> TrackAnalysis:
+    """The combined numbers. Positions were fitted in the de-skewed frame (row content moved by -skew (row - middle
+    row)); each track's positions and grid phase are reported where its core rows lie in the image."""
     grids: list[BitGrid | None] = []
     for _, f in fits:  # cells shorter than 2 pixels cannot be resolved: no shorter grid is considered
         grids.append(fit_bit_grid(f.positions_px[f.interior], min_bit=2.0))
@@ -99,16 +106,21 @@ def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix,
     # deviations are not shown as such
     agree = [g is not None and abs(g.bit_length / hint - 1) <= 0.1 for g in grids]
     results = []
+    middle = 0.5 * ((shape[0] if along_rows else shape[1]) - 1)
     for i, ((band, f), g) in enumerate(zip(fits, grids)):
         sel = f.interior
-        pos = (f.positions_px[sel] + 0.5) * px_down
+        core_row = cores[id(band)][0] if cores and id(band) in cores else (
+            band.centre if band.centre is not None else 0.5 * (band.first_row + band.last_row))
+        back = deskew_px_per_row * (core_row - middle)  # the de-skew moved this track's content by -back
+        pos = (f.positions_px[sel] + back + 0.5) * px_down
         dev = g.deviations * px_down if g is not None and agree[i] else np.full(pos.size, np.nan)
         centre = None if band.centre is None else (band.centre + 0.5) * px_across
         edges = tuple(None if e is None else (e + 0.5) * px_across for e in (band.lower, band.upper))
         results.append(TrackResult(
             i, centre, None if band.width is None else band.width * px_across, edges,
             None if g is None else g.bit_length * px_down, None if g is None else g.bit_length_std * px_down,
-            None if g is None else (g.phase + 0.5) * px_down, None if g is None else g.jitter * px_down,
+            None if g is None else ((g.phase + back) % g.bit_length + 0.5) * px_down,
+            None if g is None else g.jitter * px_down,
             pos, f.positions_std_px[sel] * px_down, dev, f.signs[sel], f.width_px * px_down,
             None if g is None else g.off_grid,
             None if not cores or id(band) not in cores else ((cores[id(band)][0] + 0.5) * px_across,
@@ -135,6 +147,8 @@ def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix,
     if pooled.size >= 8:
         robust = 1.4826 * float(np.median(np.abs(pooled - np.median(pooled))))
         on = [o & (np.abs(g.deviations) <= max(4.0 * robust, 0.01 * g.bit_length)) for (_, g), o in zip(good, on)]
+    used = {r.index: o for (r, _), o in zip(good, on)}  # shown as such in the figures and the JSON
+    results = [replace(r, in_jitter=used.get(r.index, np.zeros(r.positions_m.size, bool))) for r in results]
     dev_all = np.concatenate([g.deviations[o] for (_, g), o in zip(good, on)]) * px_down
     sd_all = np.concatenate([r.positions_std_m[o] for (r, _), o in zip(good, on)])
     dof_factor = dev_all.size / max(sum(max(int(o.sum()) - 2, 1) for o in on), 1)
@@ -179,13 +193,7 @@ def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix,
     shaped = min(free, key=lambda f: f.width_std_px) if free else max((f for _, f in fits),
                                                                        key=lambda f: f.width_std_px)
     w_m = shaped.width_px * px_down
-    a, a_sd = shaped.along_px, shaped.along_std_px
-    separated = (a is not None and a_sd is not None and np.isfinite(a_sd) and a > 2 * a_sd
-                 and a < 0.85 * shaped.width_px)
-    if separated:  # the track's finite width told the arctan parameter from the spacing and the tip
-        tw, tw_sd, includes_tip = a * px_down, a_sd * px_down, False
-    else:
-        tw, tw_sd, includes_tip = w_m - (lift_m or 0.0), shaped.width_std_px * px_down, not have_tip
+    tw, tw_sd, includes_tip = w_m - (lift_m or 0.0), shaped.width_std_px * px_down, not have_tip
     sentences = [f"{len(results)} track(s) along the {'rows' if along_rows else 'columns'}, {sum(r.positions_m.size for r in results)} "
                  f"transitions placed by one joint fit per track ({model_orientation} transition model"
                  + (", chosen by the fit" if model_chosen_by_fit else "") + ")."]
@@ -206,8 +214,8 @@ def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix,
                          "(a gap of two or more pitches): the pitch counts that gap as so many pitches, and "
                          "no metric includes the missed track(s).")
     if erase is None:
-        sentences.append("Erase band: no side band of old data beside the tracks, so it cannot be told from the "
-                         "guard band.")
+        sentences.append(f"Erase band: no side band of old data was resolved (row spacing {px_across * 1e9:.3g} nm), "
+                         "so it cannot be told from the guard band.")
     elif erase < w_m:
         # measured on 120 synthetic images (tests/analysis/media/synthetic_media.py, seeds 0-59, both
         # orientations): a written 30 nm band read 16-26 nm, median 22, at 20 nm lift; the activities of the track
@@ -216,15 +224,12 @@ def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix,
                          f"old data beside it: narrower than the field's spread ({w_m * 1e9:.3g} nm), it reads low, "
                          "since the two bands' tails overlap in it (a written 30 nm band read 16-26 nm on synthetic "
                          "tracks at 20 nm lift).")
-    if separated:
-        sentences.append(f"Transition width (arctan parameter) {tw * 1e9:.3g} ± {tw_sd * 1e9:.2g} nm, told from the "
-                         f"spacing and the tip ({(w_m - tw) * 1e9:.3g} nm together) by the track's finite width: the "
-                         "arctan smooths along the track only, the spacing in every direction.")
-    else:
-        lift_txt = "the lift height taken off" if lift_m else "no lift height given, so it is included"
-        sentences.append(f"Transition width (arctan parameter) {tw * 1e9:.3g} nm, {lift_txt}"
-                         + ("; it still includes the tip's effective offset (give the tip's transfer function to "
-                            "take it off): an upper bound." if includes_tip else "; tip transfer function taken off."))
+    lift_txt = "the lift height taken off" if lift_m else "no lift height given, so it is included"
+    osc_txt = (f"; the oscillation's averaging (amplitude {amplitude_m * 1e9:.3g} nm) taken off" if amplitude_m else
+               "; it includes the averaging over the cantilever's oscillation, which widens it (amplitude not given)")
+    sentences.append(f"Transition width (arctan parameter) {tw * 1e9:.3g} nm, {lift_txt}{osc_txt}"
+                     + ("; it still includes the tip's effective offset (give the tip's transfer function to "
+                        "take it off): an upper bound." if includes_tip else "; tip transfer function taken off."))
     return TrackAnalysis(orient, True, tuple(sentences), along_rows, pix, shape, skew, tuple(results), bit, bit_sd,
                          pitch, pitch_sd, width, width_sd, jitter, raw, pos_noise, inter, tw, tw_sd, includes_tip,
-                         erase, layout.activity)
+                         erase, layout.activity, amplitude_m is None)

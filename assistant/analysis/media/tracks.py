@@ -58,6 +58,7 @@ class TrackResult:
     fitted_width_m: float | None
     off_grid: np.ndarray | None = None   # more than 30 % of a cell from the grid: not jitter, left out of it
     core_m: tuple[float, float] | None = None  # centre and half-width of the rows averaged for the profile
+    in_jitter: np.ndarray | None = None  # the transitions the reported jitter was computed from
 
     def to_dict(self) -> dict:
         def nm(v):
@@ -96,6 +97,7 @@ class TrackAnalysis:
     transition_width_includes_tip: bool
     erase_band_m: float | None
     activity: np.ndarray | None
+    transition_width_includes_oscillation: bool = False  # no amplitude given: its averaging is in the width
 
     def to_dict(self) -> dict:
         """The JSON of ``mfma analyze image`` (the media keys are null when the image has no tracks)."""
@@ -113,6 +115,8 @@ class TrackAnalysis:
                "transition_width_nm": nm(self.transition_width_m),
                "transition_width_std_nm": nm(self.transition_width_std_m),
                "transition_width_includes_tip": self.transition_width_includes_tip if self.has_tracks else None,
+               "transition_width_includes_oscillation": (self.transition_width_includes_oscillation
+                                                         if self.has_tracks else None),
                "erase_band_nm": nm(self.erase_band_m),
                "track_direction": None if not self.has_tracks else ("rows" if self.tracks_along_rows else "columns"),
                "skew_deg": None if not self.has_tracks else float(np.degrees(np.arctan(self.skew_px_per_row * (
@@ -124,12 +128,16 @@ class TrackAnalysis:
             out["transitions"] = [{"track": t.index, "position_nm": round(float(x) * 1e9, 4),
                                    "position_std_nm": round(float(s) * 1e9, 4),
                                    "deviation_nm": None if d is None or not np.isfinite(d) else round(float(d) * 1e9, 4),
-                                   "sign": int(g), "off_grid": bool(o)}
+                                   "sign": int(g), "off_grid": bool(o), "in_jitter": bool(j)}
                                   for t in self.tracks
-                                  for x, s, d, g, o in zip(t.positions_m, t.positions_std_m, t.deviations_m, t.signs,
-                                                           t.off_grid if t.off_grid is not None
-                                                           else np.zeros(t.positions_m.size, bool))]
+                                  for x, s, d, g, o, j in zip(t.positions_m, t.positions_std_m, t.deviations_m,
+                                                              t.signs, _flags(t.off_grid, t.positions_m.size),
+                                                              _flags(t.in_jitter, t.positions_m.size))]
         return out
+
+
+def _flags(mask: np.ndarray | None, n: int) -> np.ndarray:
+    return np.zeros(n, bool) if mask is None else mask
 
 
 def no_tracks(orientation, pixel, shape, reason) -> TrackAnalysis:
@@ -139,7 +147,7 @@ def no_tracks(orientation, pixel, shape, reason) -> TrackAnalysis:
 
 def analyse_tracks(phase_deg, *, pixel_m, lift_m: float | None = None, thickness_m: float | None = None,
                    tip_transfer: Callable[[np.ndarray], np.ndarray] | None = None, noise_deg: float | None = None,
-                   min_pixels_per_bit: float = 4.0) -> TrackAnalysis:
+                   min_pixels_per_bit: float = 4.0, amplitude_m: float | None = None) -> TrackAnalysis:
     """Media metrics of an MFM image of recorded tracks.
 
     Parameters
@@ -149,7 +157,8 @@ def analyse_tracks(phase_deg, *, pixel_m, lift_m: float | None = None, thickness
     pixel_m : float or (float, float)
         Pixel spacing [m]: one value, or (between rows, along a row).
     lift_m : float, optional
-        Lift height of the image [m] (the measurement plane): taken off the transition width.
+        Lift height of the image [m] (the measurement plane: the oscillating tip's closest approach): taken off
+        the transition width.
     thickness_m : float, optional
         Film thickness [m] (the thickness factor 1 - exp(-k t)); fitted when not given.
     tip_transfer : callable, optional
@@ -158,6 +167,10 @@ def analyse_tracks(phase_deg, *, pixel_m, lift_m: float | None = None, thickness
         point dipole at an unknown offset, which stays in the transition width.
     noise_deg : float, optional
         Per-pixel noise [deg]; from the image's highest spatial frequencies otherwise.
+    amplitude_m : float, optional
+        Peak amplitude of the cantilever's oscillation in the image [m]: its averaging
+        (:func:`.transfer.oscillation_weight`) enters the response model; without it the transition width
+        includes it (it widens the response).
     min_pixels_per_bit : float
         Fewer pixels per bit cell than this along the track raise :class:`TooFewPixelsPerBitError` (rule of
         thumb, no source: a transition needs a few samples on either side to be placed).
@@ -168,9 +181,14 @@ def analyse_tracks(phase_deg, *, pixel_m, lift_m: float | None = None, thickness
     pix = (float(pixel_m), float(pixel_m)) if np.ndim(pixel_m) == 0 else (float(pixel_m[0]), float(pixel_m[1]))
     if not all(np.isfinite(p) and p > 0 for p in pix):
         raise MediaInputError(f"pixel_m must be positive, got {pixel_m!r}")
+    if amplitude_m is not None and not (np.isfinite(amplitude_m) and amplitude_m >= 0):
+        raise MediaInputError(f"amplitude_m must be >= 0, got {amplitude_m!r}")
+    if thickness_m is not None and not (np.isfinite(thickness_m) and thickness_m > 0):
+        raise MediaInputError(f"thickness_m must be > 0 (a film of no thickness has no field), got {thickness_m!r}")
     ok = np.isfinite(u)
     if ok.mean() < 0.5:
-        raise MediaInputError(f"more than half of the image is NaN ({1 - ok.mean():.0%})")
+        what = "infinite" if not np.isnan(u).any() else ("NaN" if not np.isinf(u).any() else "NaN or infinite")
+        raise MediaInputError(f"more than half of the image is not finite ({1 - ok.mean():.0%} {what})")
     u = np.where(ok, u, np.median(u[ok]))
     noise = float(noise_deg) if noise_deg is not None else white_noise_std(u)
     noise = max(noise, 1e-9 * float(np.std(u)) + 1e-300)
@@ -189,7 +207,8 @@ def analyse_tracks(phase_deg, *, pixel_m, lift_m: float | None = None, thickness
     for _, axis, layout in sorted(layouts, key=lambda t: t[0], reverse=True):
         try:
             result = analyse_along(u, layout, axis, pix=pix, noise=noise, lift_m=lift_m, thickness_m=thickness_m,
-                                   tip_transfer=tip_transfer, min_pixels_per_bit=min_pixels_per_bit)
+                                   tip_transfer=tip_transfer, min_pixels_per_bit=min_pixels_per_bit,
+                                   amplitude_m=amplitude_m)
         except TooFewPixelsPerBitError as exc:
             failure = failure or exc
             continue

@@ -56,9 +56,6 @@ class TrackTransitions:
         Far enough from the profile's ends to be reported.
     width_px, width_std_px : float
         w = spacing + transition parameter (+ tip offset), from the fit.
-    along_px, along_std_px : float or None
-        The arctan parameter a alone, where the track's finite width separates it from the spacing (None for
-        the one-dimensional response, or when the shape was held).
     thickness_px : float or None
     amplitude : float
     residual_rms, noise : float
@@ -72,8 +69,6 @@ class TrackTransitions:
     interior: np.ndarray
     width_px: float
     width_std_px: float
-    along_px: float | None
-    along_std_px: float | None
     thickness_px: float | None
     amplitude: float
     residual_rms: float
@@ -193,7 +188,7 @@ class _Model:
     """Forward model of a padded profile and its Jacobian (numpy FFTs; positions in pixels).
 
     Parameters: the J positions, then the amplitude and the offset, then the free shape parameters among
-    w, t (thickness) and a (the arctan parameter, finite tracks only), in that order.
+    w and t (thickness), in that order (the arctan parameter a of a finite track is held).
     """
 
     def __init__(self, n, pad, orientation, tip, track, shape0: dict, free: tuple[str, ...]):
@@ -226,7 +221,7 @@ class _Model:
         if t is not None:
             kt = ka * t
             g_t = np.where(kt > 0, ka * np.exp(-kt) / -np.expm1(-np.where(kt > 0, kt, 1.0)), 0.0) * g
-        return g, {"w": -ka * g, "t": g_t, "a": np.zeros_like(g)}
+        return g, {"w": -ka * g, "t": g_t}
 
     def unpack(self, p, j):
         sp = dict(self.shape0)
@@ -300,8 +295,8 @@ def fit_track_transitions(profile: np.ndarray, *, orientation: str, noise: float
     ``tip_transfer`` takes k in rad/pixel here. ``width_px`` is the starting value of w; ``thickness_px`` the
     film thickness (None: thick film; with ``fit_thickness`` its starting value, fitted). ``track_width_px``
     (with the half-width of the averaged core rows ``core_half_px``) switches to the response of a track of
-    that width (:func:`.transfer.track_transition_response`), where the arctan parameter a (start
-    ``along_px``) is fitted too; None treats the track as much wider than w. With ``fit_shape`` False the
+    that width (:func:`.transfer.track_transition_response`), with the arctan parameter a held at
+    ``along_px``; None treats the track as much wider than w. With ``fit_shape`` False the
     shape stays as given (another track of the image has fitted it) and only positions, amplitude and offset
     are fitted. The fit weighs the profile from 2.5 w inside its ends (transitions beyond the ends are not
     modelled, and their tails reach in); transitions between w and 2.5 w of an end are fitted but flagged as not
@@ -345,10 +340,8 @@ def fit_track_transitions(profile: np.ndarray, *, orientation: str, noise: float
     sd_of = dict(zip(free, sd[j + 2:]))
     order = np.argsort(x)
     interior = (x >= edge) & (x <= n - 1 - edge)
-    fitted_a = "a" in free
     return TrackTransitions(x[order], sd[:j][order], signs[order] * np.sign(amp), pos[order], interior[order],
                             float(sp["w"]), float(sd_of.get("w", 0.0)),
-                            float(sp["a"]) if fitted_a else None, float(sd_of["a"]) if fitted_a else None,
                             None if sp["t"] is None else float(sp["t"]), float(abs(amp)),
                             float(np.sqrt(np.mean(r**2))), float(noise))
 
@@ -363,8 +356,7 @@ def _fit(model: _Model, s, pos, signs, noise, mask):
     amp0 = float(np.dot(bc, s - s.mean()) / max(np.dot(bc, bc), 1e-300))
     p0 = np.concatenate([pos, [amp0, float(np.mean(s - amp0 * base))], [sp0[f] for f in free]])
     w0 = sp0["w"]
-    # a stays below the starting w, so that the spacing w - a cannot vanish while w moves (rule of thumb)
-    bounds = {"w": (0.3, max(4 * w0, 50.0)), "t": (0.3, max(10 * w0, 100.0)), "a": (0.0, 0.9 * w0)}
+    bounds = {"w": (0.3, max(4 * w0, 50.0)), "t": (0.3, max(10 * w0, 100.0))}
     lo = np.concatenate([np.maximum(pos - 3.0, 0.0), [-np.inf, -np.inf], [bounds[f][0] for f in free]])
     hi = np.concatenate([np.minimum(pos + 3.0, n - 1.0), [np.inf, np.inf], [bounds[f][1] for f in free]])
     p0 = np.clip(p0, lo + 1e-9, hi - 1e-9)

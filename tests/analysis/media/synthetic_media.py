@@ -60,7 +60,17 @@ def _bits(rng, n_cells, bit_m, phase_m, jitter_m, x_lo, x_hi):
     return pos, steps, bits[0], idx[change], keep
 
 
-def _field_phase(mz, mx, pix, lift_m, thickness_m, moment, delta_m, k_c=2.8, q=200.0):
+def _oscillation(k, amplitude_m):
+    """Giessibl 1997, Phys. Rev. B 56, 16010: a gradient averaged over a cycle of peak amplitude A, per component
+    decaying as exp(-k z) from the closest approach, weighs 2 I1(kA) e^(-kA) / (kA) (scipy's i1e)."""
+    from scipy.special import i1e
+
+    x = k * amplitude_m
+    safe = np.where(x > 0, x, 1.0)
+    return np.where(x > 0, 2.0 * i1e(safe) / safe, 1.0)
+
+
+def _field_phase(mz, mx, pix, lift_m, thickness_m, moment, delta_m, k_c=2.8, q=200.0, amplitude_m=0.0):
     rows, cols = mz.shape
     kx = 2 * np.pi * np.fft.fftfreq(cols, d=pix)[None, :]
     ky = 2 * np.pi * np.fft.fftfreq(rows, d=pix)[:, None]
@@ -69,15 +79,16 @@ def _field_phase(mz, mx, pix, lift_m, thickness_m, moment, delta_m, k_c=2.8, q=2
     charge = np.fft.fft2(mz) - 1j * kx * np.fft.fft2(mx) / ks
     hz = 0.5 * np.exp(-k * lift_m) * (1 - np.exp(-k * thickness_m)) * charge
     hz[0, 0] = 0.0
-    grad = np.fft.ifft2(tip_transfer(k, moment=moment, delta_m=delta_m) * hz).real
+    grad = np.fft.ifft2(tip_transfer(k, moment=moment, delta_m=delta_m) * _oscillation(k, amplitude_m) * hz).real
     return -np.degrees(np.arctan(q * grad / k_c))
 
 
 def track_image(*, rows=256, cols=256, pixel_m=8e-9, bit_m=80e-9, jitter_m=3e-9, transition_a_m=10e-9,
                 pitch_m=500e-9, width_m=380e-9, erase_m=0.0, old_data_bit_m=None, orientation="out-of-plane",
                 lift_m=20e-9, thickness_m=15e-9, ms_a_per_m=4e5, moment=1e-16, delta_m=30e-9, noise_deg=0.02,
-                oversample=2, margin_px=32, seed=0, first_track_m=None):
-    """Written tracks along x (columns); see the module docstring. Returns a :class:`MediaImage`."""
+                oversample=2, margin_px=32, seed=0, first_track_m=None, amplitude_m=0.0):
+    """Written tracks along x (columns); see the module docstring (``lift_m`` is the oscillating tip's closest
+    approach, ``amplitude_m`` its peak amplitude). Returns a :class:`MediaImage`."""
     rng = np.random.default_rng(seed)
     fine = pixel_m / oversample
     nr, nc = (rows + 2 * margin_px) * oversample, (cols + 2 * margin_px) * oversample
@@ -115,7 +126,8 @@ def track_image(*, rows=256, cols=256, pixel_m=8e-9, bit_m=80e-9, jitter_m=3e-9,
             transitions.append(np.sort(pos[inside]))
             image_tracks.append(c)
     mz, mx = (m, np.zeros_like(m)) if orientation == "out-of-plane" else (np.zeros_like(m), m)
-    phase = _field_phase(mz * ms_a_per_m, mx * ms_a_per_m, fine, lift_m, thickness_m, moment, delta_m)
+    phase = _field_phase(mz * ms_a_per_m, mx * ms_a_per_m, fine, lift_m, thickness_m, moment, delta_m,
+                         amplitude_m=amplitude_m)
     sub = phase[margin_px * oversample::oversample, margin_px * oversample::oversample][:rows, :cols]
     noisy = sub + rng.normal(scale=noise_deg, size=sub.shape)
     return MediaImage(noisy, pixel_m, lift_m, transitions, np.asarray(image_tracks),
