@@ -9,7 +9,6 @@ import numpy as np
 
 from .orientation import magnetisation_orientation
 from .track_layout import TrackLayout
-from .transfer import oscillation_weight
 from .tracks import (CORE_FRACTION, GOOD_RELATIVE_RESIDUAL, MAX_RELATIVE_RESIDUAL, TYPICAL_TIP_OFFSET_M,
                      TYPICAL_TRANSITION_M, TrackAnalysis, no_tracks, raise_too_few)
 from .transitions import TrackTransitions, fit_track_transitions
@@ -32,8 +31,11 @@ def analyse_along(u: np.ndarray, layout: TrackLayout, axis: int, *, pix, noise, 
         img = _fourier_shift_rows(img, -deskew * rows_idx)
     tip = None if tip_transfer is None else (lambda k, f=tip_transfer, p=px_down: f(np.asarray(k) / p))
     if amplitude_m:  # the image averages the field over the oscillation: the tip's weight times its own
+        # (Giessibl's weight; it loads scipy.special, only when an amplitude is given)
+        from ..quantitative import amplitude_weight
+
         tip = (lambda k, f=tip, a=amplitude_m / px_down: (np.asarray(k) ** 2 if f is None else f(k))
-               * oscillation_weight(k, a))
+               * amplitude_weight(k, a))
     # starting w: lift + the arctan parameter (+ the tip's offset, unless its transfer function carries it)
     w0 = ((lift_m or 20e-9) + TYPICAL_TRANSITION_M + (0.0 if tip_transfer is not None else TYPICAL_TIP_OFFSET_M)) / px_down
     t_px = None if thickness_m is None else float(thickness_m) / px_down

@@ -169,7 +169,7 @@ def analyse_tracks(phase_deg, *, pixel_m, lift_m: float | None = None, thickness
         Per-pixel noise [deg]; from the image's highest spatial frequencies otherwise.
     amplitude_m : float, optional
         Peak amplitude of the cantilever's oscillation in the image [m]: its averaging
-        (:func:`.transfer.oscillation_weight`) enters the response model; without it the transition width
+        (``quantitative.conversion.amplitude_weight``, which loads scipy.special) enters the response model; without it the transition width
         includes it (it widens the response).
     min_pixels_per_bit : float
         Fewer pixels per bit cell than this along the track raise :class:`TooFewPixelsPerBitError` (rule of

@@ -24,46 +24,7 @@ import numpy as np
 from ..quantitative import point_probe_ttf
 from .errors import MediaInputError
 
-__all__ = ["point_probe_transfer", "oscillation_weight", "transition_response", "track_transition_response",
-           "TrackResponse"]
-
-# e^-x I1(x) by its power series below SERIES_MAX and its asymptotic series above (both standard, Abramowitz &
-# Stegun 9.6.10 and 9.7.1; from memory): 80 terms of the first and 14 of the second leave < 1e-13 relative at the
-# seam (checked against scipy.special.i1e in the tests)
-SERIES_MAX = 30.0
-
-
-def _i1e(x: np.ndarray) -> np.ndarray:
-    """e^-x I1(x) for x >= 0 (numpy only: the media family loads no scipy)."""
-    x = np.asarray(x, float)
-    out = np.empty_like(x)
-    low = x <= SERIES_MAX
-    h = 0.5 * x[low]
-    term = h.copy()  # (x/2)^(2m+1) / (m! (m+1)!) for m = 0
-    total = term.copy()
-    for m in range(1, 80):
-        term = term * h * h / (m * (m + 1))
-        total += term
-    out[low] = total * np.exp(-x[low])
-    big = x[~low]
-    term = np.ones_like(big)
-    total = term.copy()
-    for j in range(1, 15):  # mu = 4 nu^2 = 4: the j-th term carries (mu - (2j - 1)^2) / (j 8x)
-        term = term * -(4.0 - (2 * j - 1) ** 2) / (j * 8.0 * big)
-        total += term
-    out[~low] = total / np.sqrt(2 * np.pi * np.where(big > 0, big, 1.0))
-    return out
-
-
-def oscillation_weight(k_per_m: np.ndarray, amplitude_m: float) -> np.ndarray:
-    """The cantilever's oscillation averaged into the image, per spatial frequency: a component decaying as
-    exp(-k z) reads exp(-k z_min) 2 I1(kA) e^(-kA) / (kA) over a cycle of peak amplitude A whose closest approach
-    is z_min (Giessibl 1997, Phys. Rev. B 56, 16010, the gradient's semicircle weight; the quantitative family's
-    ``amplitude_weight``, numpy only). 1 at kA = 0, falling monotonically."""
-    x = np.abs(np.asarray(k_per_m, float)) * float(amplitude_m)
-    safe = np.where(x > 1e-8, x, 1.0)
-    return np.where(x > 1e-8, 2.0 * _i1e(safe) / safe, 1.0)
-
+__all__ = ["point_probe_transfer", "transition_response", "track_transition_response", "TrackResponse"]
 
 def point_probe_transfer(*, dipole_a_m2: float = 1e-16, monopole_a_m: float = 0.0,
                          offset_m: float = 0.0) -> Callable[[np.ndarray], np.ndarray]:

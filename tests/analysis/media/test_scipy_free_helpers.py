@@ -59,19 +59,3 @@ def test_analyze_image_loads_no_scipy(tmp_path):
     out = subprocess.run([sys.executable, "-c", code, str(path)], capture_output=True, text=True, cwd=root,
                          check=True, env={**os.environ, "MFMA_DATA_DIR": str(tmp_path / "data")})
     assert out.stdout.strip().splitlines()[-1] == "[]", out.stdout + out.stderr
-
-
-def test_oscillation_weight_is_scipys_bessel_form():
-    # the media family's numpy e^-x I1(x) (power series below 30, asymptotic above) against scipy.special.i1e, and
-    # its weight against the quantitative family's (which loads scipy)
-    from scipy.special import i1e
-
-    from assistant.analysis.media.transfer import _i1e, oscillation_weight
-    from assistant.analysis.quantitative.conversion import amplitude_weight
-
-    x = np.r_[0.0, np.logspace(-10, 5, 3000), np.linspace(29.0, 31.0, 201)]
-    np.testing.assert_allclose(_i1e(x), i1e(x), rtol=1e-13, atol=0)
-    k = np.r_[0.0, np.logspace(4, 11, 500)]
-    for amplitude in (0.0, 1e-9, 20e-9, 100e-9):
-        np.testing.assert_allclose(oscillation_weight(k, amplitude), amplitude_weight(k, amplitude), rtol=1e-13,
-                                   atol=0)
