@@ -67,14 +67,21 @@ def _closer_to_clock(grid: BitGrid | None, again: BitGrid | None, hint: float) -
     return grid
 
 
-def _clock(positions: list[np.ndarray], found: list[BitGrid]) -> tuple[float, list[BitGrid | None]]:
+def _clock(positions: list[np.ndarray], found: list[BitGrid], min_cell: float = 0.0
+           ) -> tuple[float, list[BitGrid | None]]:
     """The write clock's cell: of the cells the tracks' own grids found, the one whose grid, fitted again near it
     on every track, holds the most transitions coherently (the sum over the tracks of the coherence times the
     transitions on the grid); and those grids. A few transitions can fit a wrong cell on one track; the others
     then hold it poorly. (The clock used to be the cell of the track whose profile fitted best: with 8 nm jitter
-    on 80 nm cells, 7 of 60 synthetic images then read a wrong bit length, 38-255 nm.)"""
+    on 80 nm cells, 7 of 60 synthetic images then read a wrong bit length, 38-255 nm.) Cells shorter than
+    ``min_cell`` are candidates only when no track found a longer one: with seven or eight transitions a track,
+    a short cell can hold nearly all of them by chance, and the image would be refused as too coarsely sampled
+    while its tracks agree on a cell that is not."""
+    cells = sorted({g.bit_length for g in found})
+    if any(c >= min_cell for c in cells):
+        cells = [c for c in cells if c >= min_cell]
     best: tuple[float, float, list[BitGrid | None]] | None = None
-    for cell in sorted({g.bit_length for g in found}):
+    for cell in cells:
         near = [fit_bit_grid(x, bit_length_hint=cell) for x in positions]
         support = sum(g.coherence * np.count_nonzero(~g.off_grid) for g in near
                       if g is not None and abs(g.bit_length / cell - 1) <= 0.1)
@@ -97,7 +104,7 @@ def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix,
                           "media metrics are null.")
     # the tracks of one image share the write clock: a track whose cell differs from it (a few transitions can
     # fit a wrong cell) is fitted again near it, and the better grid stays
-    hint, near_clock = _clock([f.positions_px[f.interior] for _, f in fits], found)
+    hint, near_clock = _clock([f.positions_px[f.interior] for _, f in fits], found, min_pixels_per_bit)
     grids = [_closer_to_clock(g, again, hint) for g, again in zip(grids, near_clock)]
     if hint < min_pixels_per_bit:
         raise_too_few(hint * px_down, px_down, min_pixels_per_bit)
