@@ -215,7 +215,10 @@ def magnetisation_orientation(phase_deg, *, pixel_m, heights_m=None, noise_deg: 
                            np.nan, np.nan, np.nan, 0, aniso)
     w = n[good]
     relation = float(np.average(per[good, 0], weights=w))
-    std = float(np.sqrt(np.average(per[good, 1] ** 2, weights=w) / good.sum()))
+    # not divided by the number of heights: each height images the same domains, and the scatter of S between
+    # parts of one image comes from their structure, which every height repeats (16 repeats of one pattern with
+    # fresh noise left the spread of S where one image had it, while the division shrank it fourfold)
+    std = float(np.sqrt(np.average(per[good, 1] ** 2, weights=w)))
     alt = per[good, 2][np.isfinite(per[good, 2])]  # NaN where no row held two such points
     alternation = float(alt.mean()) if alt.size else float("nan")
     count = int(n.sum())
