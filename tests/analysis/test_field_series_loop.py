@@ -209,3 +209,23 @@ def test_a_tip_magnetised_down_reads_the_other_way():
     assert up.tip_reversal_steps == () == down.tip_reversal_steps
     np.testing.assert_array_equal(up.states, down.states)
     assert up.states[0].min() == 1 and up.states[st.field_a_per_m.argmin()].max() == -1
+
+
+def test_a_virgin_branch_is_no_recoil_curve():
+    # Tagawa et al. 1991 (IEEE Trans. Magn. 27, 4975; from memory): a recoil curve turns on the descending branch
+    # that came down from positive saturation. A series that starts from the as-grown state (elements up or down
+    # at random) at zero field and rises to saturation first has an ascending branch from M/Ms near 0 that is
+    # none: the non-interacting elements' spread must not be "corrected" with it.
+    virgin = np.arange(0, 450e3, STEP)
+    loop = loop_fields(450e3, STEP)
+    st = make_loop_stack(seed=3, rows=128, cols=128, fields=np.r_[virgin, loop], virgin=True)
+    r = analyse_loop(st.phase_deg, st.field_a_per_m, topography_m=st.topography_m)
+    assert abs(r.m_over_ms[0]) < 0.5 and r.m_over_ms[virgin.size] == 1.0
+    assert np.isnan(r.tagawa_sigma_a_per_m) and not any("recoil" in n for n in r.notes)
+    # the same series with a recoil curve from -300 kA/m after the loop: that one is taken
+    recoil = np.r_[np.arange(425e3, -300e3 - 1, -STEP), np.arange(-275e3, 450e3 + 1, STEP)]
+    st = make_loop_stack(seed=3, rows=128, cols=128, fields=np.r_[virgin, loop, recoil], virgin=True)
+    r = analyse_loop(st.phase_deg, st.field_a_per_m, topography_m=st.topography_m)
+    assert [n for n in r.notes if "recoil" in n][0].startswith("recoil branch from -300 kA/m")
+    truth = st.switching_a_per_m[_matched(r, st)].std(ddof=1)
+    assert abs(r.tagawa_sigma_a_per_m - truth) < 3 * r.tagawa_sigma_std_a_per_m

@@ -159,6 +159,18 @@ def _combine(down: NormalFit | None, up: NormalFit | None, rho: float) -> tuple[
     return hc, hc_std, sigma, sigma_std
 
 
+def _recoils(parts: list[Branch], m: np.ndarray, up_b: Branch | None) -> list[Branch]:
+    """Ascending branches that are recoil curves in the sense of Tagawa et al. 1991 (IEEE Trans. Magn. 27, 4975):
+    they turn on the descending branch that came down from positive saturation, before it reached negative
+    saturation (a virgin branch, from the as-grown state, is none)."""
+    out = []
+    for before, b in zip(parts, parts[1:]):
+        if (b.direction > 0 and b is not up_b and before.direction < 0 and m[before.start] >= _SATURATED
+                and m[b.start] > -_SATURATED):
+            out.append(b)
+    return out
+
+
 def _tip_censored(b: BranchSwitching, switches: tuple[TipSwitch, ...]) -> tuple[np.ndarray, np.ndarray]:
     """Switching intervals for the fit, an element the tip reversed counted as needing more than the field of
     the step before (its own switching field lies above that plus the tip's unknown field: censored)."""
@@ -274,7 +286,7 @@ def analyse_loop(phase_deg: np.ndarray, field_a_per_m: np.ndarray, *, topography
     fit_of = lambda b: None if b is None else fit_loop(h[b.start:b.end + 1], m[b.start:b.end + 1],  # noqa: E731
                                                        direction=b.direction)
     tagawa, tagawa_std, notes = math.nan, math.nan, []
-    recoils = [b for b in parts if b.direction > 0 and b is not up_b and m[b.start] > -_SATURATED]
+    recoils = _recoils(parts, m, up_b)
     if up_b is not None and recoils:
         r = recoils[0]
         tagawa, tagawa_std, used = tagawa_sigma(h[up_b.start:up_b.end + 1], m[up_b.start:up_b.end + 1],
