@@ -211,7 +211,7 @@ def _topography_changes(topo: np.ndarray | None, drift: np.ndarray) -> np.ndarra
 
 
 def analyse_loop(phase_deg: np.ndarray, field_a_per_m: np.ndarray, *, topography_m: np.ndarray | None = None,
-                 repeat_phase_deg: np.ndarray | None = None, tip_moment: str = "up", min_area_px: int = 4,
+                 repeat_phase_deg: np.ndarray | None = None, tip_moment: str = "auto", min_area_px: int = 4,
                  pixel_m: float | tuple[float, float] | None = None) -> LoopAnalysis:
     """Switching fields, loop, coercive field and switching-field distribution of a field series.
 
@@ -222,7 +222,8 @@ def analyse_loop(phase_deg: np.ndarray, field_a_per_m: np.ndarray, *, topography
     topography_m : (rows, cols) topography of the first step, or (fields, rows, cols) one per step [m];
         optional (elements are then found in the magnetic contrast).
     repeat_phase_deg : (fields, rows, cols) the repeat pass at the end of each line [deg], optional.
-    tip_moment : "up" or "down": the tip's magnetisation at the first step (along +z or -z).
+    tip_moment : "up" or "down": the tip's magnetisation at the first step (along +z or -z); "auto" (default):
+        the direction whose states agree best with the field (see ``states.resolve_tip``), noted when down.
     min_area_px : smallest element [pixels].
     pixel_m : pixel size [m], one spacing or (row, column); only reported (element sizes, figure axes).
 
@@ -241,8 +242,8 @@ def analyse_loop(phase_deg: np.ndarray, field_a_per_m: np.ndarray, *, topography
     ``distribution`` (normal law fitted to the switching intervals, the loop of non-interacting elements,
     Sheppard's correction, Tagawa et al. 1991).
     """
-    if tip_moment not in ("up", "down"):
-        raise LoopInputError(f"tip_moment = {tip_moment!r} must be 'up' or 'down'")
+    if tip_moment not in ("auto", "up", "down"):
+        raise LoopInputError(f"tip_moment = {tip_moment!r} must be 'auto', 'up' or 'down'")
     pixel = None if pixel_m is None else tuple(float(p) for p in np.broadcast_to(np.asarray(pixel_m, float), (2,)))
     if pixel is not None and not all(np.isfinite(p) and p > 0 for p in pixel):
         raise LoopInputError(f"pixel_m = {pixel_m!r} must be positive")
@@ -269,7 +270,7 @@ def analyse_loop(phase_deg: np.ndarray, field_a_per_m: np.ndarray, *, topography
     rep_line = None if rep is None else ct.contrasts(ct.aligned(rep, drift), groups)[2]
     result = element_states(el_deg, el_sigma, h, parts, line_deg=line_deg, line_sigma=line_sigma,
                             line_element=groups.element, repeat_line_deg=rep_line,
-                            tip_start=1 if tip_moment == "up" else -1)
+                            tip_start={"auto": None, "up": 1, "down": -1}[tip_moment])
     states = result.states
     measurable = np.any(states != 0, axis=0)
     seen = (states != 0).sum(axis=1)
@@ -293,6 +294,9 @@ def analyse_loop(phase_deg: np.ndarray, field_a_per_m: np.ndarray, *, topography
                                                 h[r.start:r.end + 1], m[r.start:r.end + 1])
         notes.append(f"recoil branch from {h[r.start] / 1e3:.4g} kA/m (M/Ms = {m[r.start]:.3f}): "
                      f"interaction-corrected spread from {used} points")
+    if tip_moment == "auto" and result.tip[0] < 0:
+        notes.append("the tip was magnetised along -z (down) at the first step: inferred from the states, which "
+                     "follow the field that way; give the tip's direction to override")
     notes += _notes(h, m, down_b, up_b, result, elements, drift, measurable, topo, down_fit, up_fit)
     return LoopAnalysis(
         field_a_per_m=h, m_over_ms=m, elements=elements, states=states, contrast_deg=el_deg, noise_deg=noise,
