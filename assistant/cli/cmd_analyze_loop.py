@@ -68,7 +68,9 @@ def text_lines(result, d: dict) -> list[str]:
         pairs.append(("Interaction-corrected spread", quantity(result.tagawa_sigma_a_per_m, "A/m",
                                                                result.tagawa_sigma_std_a_per_m)
                       + " (Tagawa Delta-H(M, Delta-M), recoil branch)"))
-    lines = render_block(pairs, markdown=False) + ["", "element  down (kA/m)  up (kA/m)"]
+    lines = render_block(pairs, markdown=False) + [
+        "", "First field found reversed on each branch (the element switched between it and the step before):",
+        "element  down (kA/m)  up (kA/m)"]
     for i, (down, up) in enumerate(d["switching_fields_ka_per_m"]):
         lines.append(f"{i:7d}  {DASH if down is None else f'{down:.4g}':>11}  {DASH if up is None else f'{up:.4g}':>9}")
     return lines + [f"note: {n}" for n in result.notes]

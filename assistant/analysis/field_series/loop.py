@@ -74,6 +74,16 @@ class LoopAnalysis:
             return np.full(self.count, np.nan)
         return np.where(b.switched, self.field_a_per_m[np.maximum(b.step, 0)], np.nan)
 
+    def switching_interval_a_per_m(self, which: str) -> tuple[np.ndarray, np.ndarray]:
+        """Per element the field of the step before the first step found reversed on the major ``"down"`` or
+        ``"up"`` branch, and that step's field [A/m]: the element switched past the first, at or before the
+        second (NaN: it did not reverse there)."""
+        b = self.down if which == "down" else self.up
+        at = self.switching_fields_a_per_m(which)
+        if b is None:
+            return at.copy(), at
+        return np.where(b.switched, self.field_a_per_m[np.maximum(b.step - 1, 0)], np.nan), at
+
     @property
     def tip_reversal_fields_a_per_m(self) -> tuple[float, ...]:
         return tuple(float(self.field_a_per_m[k]) for k in self.tip_reversal_steps)
@@ -94,7 +104,7 @@ class LoopAnalysis:
 
     def to_dict(self) -> dict:
         """The ``mfma analyze loop --json`` keys (kA/m)."""
-        down, up = self.switching_fields_a_per_m("down"), self.switching_fields_a_per_m("up")
+        (down_before, down), (up_before, up) = (self.switching_interval_a_per_m(w) for w in ("down", "up"))
         ka = lambda v: None if v is None or not math.isfinite(v) else float(v) / 1e3  # noqa: E731
         return {
             "dots": int(self.count),
@@ -102,6 +112,7 @@ class LoopAnalysis:
             "coercive_field_std_ka_per_m": ka(self.coercive_std_a_per_m),
             "sfd_sigma_ka_per_m": ka(self.sfd_sigma_a_per_m),
             "switching_fields_ka_per_m": [[ka(d), ka(u)] for d, u in zip(down, up)],
+            "switching_fields_step_before_ka_per_m": [[ka(d), ka(u)] for d, u in zip(down_before, up_before)],
             "loop_field_ka_per_m": [float(h) / 1e3 for h in self.field_a_per_m],
             "loop_m_over_ms": [float(m) for m in self.m_over_ms],
             "tip_reversals_ka_per_m": [float(h) / 1e3 for h in self.tip_reversal_fields_a_per_m],
