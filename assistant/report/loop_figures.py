@@ -42,7 +42,7 @@ def _title(a: LoopAnalysis) -> str:
     if np.isfinite(hc):
         text += f", Hc = {quantity(hc, 'A/m', a.coercive_std_a_per_m)}"
     if np.isfinite(a.sfd_sigma_a_per_m):
-        text += f", σ = {quantity(a.sfd_sigma_a_per_m, 'A/m', digits=3)}"
+        text += f", σ = {quantity(a.sfd_sigma_a_per_m, 'A/m', a.sfd_sigma_std_a_per_m)}"
     return text
 
 

@@ -66,7 +66,8 @@ def _result_lines(a) -> list[str]:
 
 def _headline(name: str, a) -> str:
     """One line for the summary's results: Hc, spread, elements, the tip."""
-    sigma = quantity(a.sfd_sigma_a_per_m, "A/m") if math.isfinite(a.sfd_sigma_a_per_m) else "not resolved"
+    sigma = _field(a.sfd_sigma_a_per_m, a.sfd_sigma_std_a_per_m) if math.isfinite(a.sfd_sigma_a_per_m) \
+        else "not resolved"
     rev = ", ".join(quantity(h, "A/m") for h in a.tip_reversal_fields_a_per_m) or "none"
     by_tip = len(a.tip_switched_elements)
     return (f"- **Field series {name}:** coercive field {quantity(a.coercive_a_per_m, 'A/m', a.coercive_std_a_per_m)}"

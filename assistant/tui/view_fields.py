@@ -228,7 +228,7 @@ class FieldSeriesView(View):
         rev = number_list(a.tip_reversal_fields_a_per_m, "A/m") if a.tip_reversal_fields_a_per_m else "none"
         lines = [f"{a.count} elements ({a.elements.source}), {a.field_a_per_m.size} steps",
                  "Hc " + (quantity(hc, "A/m", a.coercive_std_a_per_m) if np.isfinite(hc) else DASH)
-                 + ", σ " + (quantity(sig, "A/m", digits=3) if np.isfinite(sig) else DASH),
+                 + ", σ " + (quantity(sig, "A/m", a.sfd_sigma_std_a_per_m) if np.isfinite(sig) else DASH),
                  f"tip reversed at: {rev}",
                  "switched by the tip: " + (", ".join(map(str, a.tip_switched_elements)) or "none")]
         box.update("\n".join(lines))

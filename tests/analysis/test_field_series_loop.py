@@ -229,6 +229,9 @@ def test_a_virgin_branch_is_no_recoil_curve():
     assert [n for n in r.notes if "recoil" in n][0].startswith("recoil branch from -300 kA/m")
     truth = st.switching_a_per_m[_matched(r, st)].std(ddof=1)
     assert abs(r.tagawa_sigma_a_per_m - truth) < 3 * r.tagawa_sigma_std_a_per_m
+    d = r.to_dict()
+    assert (d["tagawa_sigma_ka_per_m"], d["tagawa_sigma_std_ka_per_m"]) == (r.tagawa_sigma_a_per_m / 1e3,
+                                                                         r.tagawa_sigma_std_a_per_m / 1e3)
 
 
 def _both_branches_within_one_step(result, st, step):

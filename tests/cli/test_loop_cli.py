@@ -18,7 +18,8 @@ from assistant.cli import main  # noqa: E402
 
 JSON_KEYS = {"dots", "coercive_field_ka_per_m", "coercive_field_std_ka_per_m", "sfd_sigma_ka_per_m",
              "switching_fields_ka_per_m", "loop_field_ka_per_m", "loop_m_over_ms", "tip_reversals_ka_per_m",
-             "tip_switched_elements", "switching_fields_step_before_ka_per_m"}
+             "tip_switched_elements", "switching_fields_step_before_ka_per_m", "sfd_sigma_std_ka_per_m",
+             "tagawa_sigma_ka_per_m", "tagawa_sigma_std_ka_per_m"}
 
 
 @pytest.fixture(scope="module")
@@ -49,6 +50,7 @@ def test_analyze_loop_json_has_exactly_the_keys(tmp_path, stack, capsys):
     assert d["loop_field_ka_per_m"] == (stack.field_a_per_m / 1e3).tolist()
     down = np.array([v[0] for v in d["switching_fields_ka_per_m"]], float)
     assert d["dots"] == down.size and np.all(np.isfinite(down))
+    assert d["sfd_sigma_std_ka_per_m"] > 0 and d["tagawa_sigma_ka_per_m"] is None is d["tagawa_sigma_std_ka_per_m"]
     before = np.array([v[0] for v in d["switching_fields_step_before_ka_per_m"]], float)
     np.testing.assert_array_equal(before, down + 50.0)  # the step before, on the way down
 
@@ -59,6 +61,8 @@ def test_analyze_loop_recovers_known_switching_fields_and_writes_figures(tmp_pat
     path = _npz(tmp_path / "s.npz", stack)
     code, out, _ = _run(["analyze", "loop", str(path), "--plots", str(tmp_path / "fig")], capsys)
     assert code == 0 and out.startswith("Coercive field:") and "Tip reversals:" in out and "-250 kA/m, 250 kA/m" in out
+    spread = next(line for line in out.splitlines() if line.startswith("Switching-field spread:"))
+    assert " ± " in spread and "kA/m (step width accounted for)" in spread
     assert "First field found reversed on each branch (the element switched between it and the step before)" in out
     assert sorted(p.name for p in (tmp_path / "fig").iterdir()) == ["elements.png", "field_steps.png", "loop.png"]
     result = analyse_npz(path)
