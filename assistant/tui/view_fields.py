@@ -11,6 +11,7 @@ from textual_plotext import PlotextPlot
 
 from assistant.formatting import DASH, duration, number_list, quantity
 from assistant.report.colours import symmetric_limit
+from assistant.report.names import field_path
 from assistant.tui.plots import DATA, FIT, PART_B, redraw
 from assistant.tui.view_base import FieldError, View
 from assistant.tui.widgets import Field, HalfBlockImage, ScaleKey
@@ -98,9 +99,7 @@ class FieldSeriesView(View):
         except ValueError as exc:  # FieldError and FieldSeriesSettingsError both are ValueErrors
             msg.update(f"[b]not valid:[/b] {exc}")
             return
-        h = np.asarray(s.fields_a_per_m)
-        msg.update(f"ok: {h.size} field steps from {quantity(h[0], 'A/m')} to {quantity(h.min(), 'A/m')} and back; "
-                   f"{s.order}")
+        msg.update(f"ok: fields {field_path(s.fields_a_per_m)}; {s.order}")
         if event.button.id == "fields-start":
             self.app.start_field_series(s)
 

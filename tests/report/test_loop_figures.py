@@ -49,3 +49,15 @@ def test_interval_bounds_are_the_step_before_and_the_first_step_found_reversed(a
     d = a.to_dict()
     assert d["switching_fields_step_before_ka_per_m"][0] == [a.switching_interval_a_per_m(w)[0][0] / 1e3
                                                              for w in ("down", "up")]
+
+
+def test_field_path_names_the_first_field_the_turning_points_and_the_last():
+    from assistant.procedures.field_series import parse_fields_ka_per_m
+    from assistant.report.names import field_path
+
+    ka = lambda text: [h * 1e3 for h in parse_fields_ka_per_m(text)]  # noqa: E731
+    assert field_path(ka("-450:450:50")) == "-450 kA/m … 450 kA/m … -450 kA/m (37 steps)"
+    assert field_path(ka("450:-450:50")) == "450 kA/m … -450 kA/m … 450 kA/m (37 steps)"
+    # a virgin branch from zero, the major loop, then a recoil curve from -300 kA/m
+    path = ka("0:450:50")[:9] + ka("450:-450:50") + ka("450:-300:50")[1:20]
+    assert field_path(path) == "0 A/m … 450 kA/m … -450 kA/m … 450 kA/m … -300 kA/m … -100 kA/m (65 steps)"
