@@ -137,7 +137,10 @@ def test_field_series_on_the_simulated_dot_array(tmp_path, capsys):
     truth = dots.switching_a_per_m[np.argmin(dist, axis=1)] / 1e3
     assert loop["dots"] >= 5 and np.all(dist.min(axis=1) < 100e-9)
     assert loop["coercive_field_ka_per_m"] == pytest.approx(truth.mean(), abs=3 * loop["coercive_field_std_ka_per_m"])
-    assert loop["sfd_sigma_ka_per_m"] == pytest.approx(truth.std(ddof=1), rel=0.6)
+    # The spread of these very dots: what separates the estimate from it is only where each switching field lies
+    # within its 40 kA/m step (sd w / sqrt(12) per dot, Sheppard 1898; about w / sqrt(12 (n - 1)) = 5 kA/m on the
+    # spread of n = 6), well inside the reported standard error, a population's sampling error (16 kA/m here).
+    assert abs(loop["sfd_sigma_ka_per_m"] - truth.std(ddof=1)) < loop["sfd_sigma_std_ka_per_m"]
     # The first step at or past each dot's own switching field; the tip's field at a dot under it (at most
     # m / (2 pi delta^3) = 9.2 kA/m for this tip in the topography pass) can bring that a step earlier. A switch
     # the images show happening under the tip is reported as such and may come earlier still.
