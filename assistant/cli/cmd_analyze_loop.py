@@ -39,6 +39,26 @@ def run(args) -> int:
     return 0
 
 
+def spread_text(d: dict) -> str:
+    """The switching-field spread of ``to_dict`` keys, with its standard error, for people."""
+    from assistant.formatting import quantity
+
+    if d["sfd_sigma_ka_per_m"] is None:
+        return "not resolved by the field steps"
+    std = d["sfd_sigma_std_ka_per_m"]
+    return quantity(d["sfd_sigma_ka_per_m"] * 1e3, "A/m", None if std is None else std * 1e3) \
+        + " (step width accounted for)"
+
+
+def tagawa_text(d: dict) -> str:
+    """The interaction-corrected spread of ``to_dict`` keys, with its standard error, for people."""
+    from assistant.formatting import quantity
+
+    std = d["tagawa_sigma_std_ka_per_m"]
+    return quantity(d["tagawa_sigma_ka_per_m"] * 1e3, "A/m", None if std is None else std * 1e3) \
+        + " (Tagawa Delta-H(M, Delta-M), recoil branch)"
+
+
 def text_lines(result, d: dict) -> list[str]:
     """The human-readable summary of a loop analysis: the results first, then per branch and per element."""
     from assistant.formatting import DASH, quantity
@@ -49,9 +69,7 @@ def text_lines(result, d: dict) -> list[str]:
     source = {"topography": "topography", "magnetic": "magnetic contrast"}[result.elements.source]
     pairs = [("Coercive field", quantity(a_per_m(d["coercive_field_ka_per_m"]), "A/m",
                                          a_per_m(d["coercive_field_std_ka_per_m"]))),
-             ("Switching-field spread", (quantity(a_per_m(d["sfd_sigma_ka_per_m"]), "A/m")
-                                         + " (step width accounted for)") if d["sfd_sigma_ka_per_m"] is not None
-              else "not resolved by the field steps"),
+             ("Switching-field spread", spread_text(d)),
              ("Elements", f"{d['dots']} (found in the {source})"),
              ("Tip reversals", ", ".join(quantity(h * 1e3, "A/m") for h in rev) if rev else "none"),
              ("Switched by the tip", ", ".join(str(e) for e in d["tip_switched_elements"]) or "none")]
@@ -64,11 +82,11 @@ def text_lines(result, d: dict) -> list[str]:
         f = result.loop_fit_down
         pairs.append(("Loop fit", f"Hc {quantity(f.coercive, 'A/m')}, spread {quantity(f.sigma, 'A/m')} "
                                   f"(descending branch, non-interacting elements)"))
-    if result.tagawa_sigma_a_per_m == result.tagawa_sigma_a_per_m:
-        pairs.append(("Interaction-corrected spread", quantity(result.tagawa_sigma_a_per_m, "A/m",
-                                                               result.tagawa_sigma_std_a_per_m)
-                      + " (Tagawa Delta-H(M, Delta-M), recoil branch)"))
-    lines = render_block(pairs, markdown=False) + ["", "element  down (kA/m)  up (kA/m)"]
+    if d["tagawa_sigma_ka_per_m"] is not None:
+        pairs.append(("Interaction-corrected spread", tagawa_text(d)))
+    lines = render_block(pairs, markdown=False) + [
+        "", "First field found reversed on each branch (the element switched between it and the step before):",
+        "element  down (kA/m)  up (kA/m)"]
     for i, (down, up) in enumerate(d["switching_fields_ka_per_m"]):
         lines.append(f"{i:7d}  {DASH if down is None else f'{down:.4g}':>11}  {DASH if up is None else f'{up:.4g}':>9}")
     return lines + [f"note: {n}" for n in result.notes]

@@ -185,6 +185,7 @@ def _finish(args, session_path: Path, report, wf, analysis) -> int:
     if args.json:
         emit_json(summary)
         return 0
+    from assistant.cli.cmd_analyze_loop import spread_text, tagawa_text
     from assistant.formatting import quantity
     from assistant.report.results import render_block
 
@@ -192,8 +193,8 @@ def _finish(args, session_path: Path, report, wf, analysis) -> int:
     rev = loop["tip_reversals_ka_per_m"]
     pairs = [
         ("Coercive field", quantity(ka("coercive_field_ka_per_m"), "A/m", ka("coercive_field_std_ka_per_m"))),
-        ("Switching-field spread", quantity(ka("sfd_sigma_ka_per_m"), "A/m")
-         if loop["sfd_sigma_ka_per_m"] is not None else "not resolved by the field steps"),
+        ("Switching-field spread", spread_text(loop)),
+        *([("Interaction-corrected spread", tagawa_text(loop))] if loop["tagawa_sigma_ka_per_m"] is not None else []),
         ("Elements", f"{loop['dots']} ({analysis.elements.source})"),
         ("Tip reversals", ", ".join(quantity(h * 1e3, "A/m") for h in rev) if rev else "none"),
         ("Switched by the tip", ", ".join(map(str, loop["tip_switched_elements"])) or "none"),

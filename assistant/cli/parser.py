@@ -178,8 +178,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("file", help=".npz (phase_deg (fields, rows, cols), field_ka_per_m (fields,), pixel_nm, optional "
                                 "topography_m (rows, cols)) or a session file (.h5)")
     p.add_argument("--field-series", metavar="NAME", help="field series inside a session file (default: the last)")
-    p.add_argument("--tip-moment", choices=("up", "down"), default="up",
-                   help="the tip's magnetisation at the first step: along +z (up, default) or -z")
+    p.add_argument("--tip-moment", choices=("auto", "up", "down"), default="auto",
+                   help="the tip's magnetisation at the first step: along +z (up) or -z (down); auto (default): "
+                        "the direction in which the elements follow the field")
     p.add_argument("--plots", metavar="DIR", help="also write the loop figures to DIR")
     _json(p)
     p.set_defaults(handler="cmd_analyze_loop:run")

@@ -18,7 +18,7 @@ class LoopFileError(InputError):
     """A stack or session file that holds no analysable field series (the message names the problem)."""
 
 
-def analyse_npz(path: str | Path, *, tip_moment: str = "up"):
+def analyse_npz(path: str | Path, *, tip_moment: str = "auto"):
     """Analyse a .npz stack: ``phase_deg`` (fields, rows, cols), ``field_ka_per_m`` (fields,), ``pixel_nm``,
     optional ``topography_m`` (rows, cols)."""
     from assistant.analysis.field_series import analyse_loop
@@ -41,7 +41,7 @@ def analyse_npz(path: str | Path, *, tip_moment: str = "up"):
 
 
 def analyse_stored(session, name: str | None = None, *, sink: Sink = null_sink, write: bool = True,
-                   tip_moment: str = "up"):
+                   tip_moment: str = "auto"):
     """Analyse field series ``name`` (default: the last) of an open session file; store the result in it."""
     from assistant.analysis.field_series import analyse_loop
 

@@ -69,8 +69,13 @@ def parse_fields_ka_per_m(text: str) -> tuple[float, ...]:
 
 
 def turning_points(fields_a_per_m, upto: int) -> list[float]:
-    """The first field and every extreme where the direction reverses among the fields before step ``upto``."""
-    h = [float(v) for v in fields_a_per_m[:upto]]
+    """The first field and every extreme where the direction reverses among the fields before step ``upto``,
+    then the last of them; a field repeated at consecutive steps counts once (an extreme held for two steps is
+    still an extreme)."""
+    h: list[float] = []
+    for v in fields_a_per_m[:upto]:
+        if not h or float(v) != h[-1]:
+            h.append(float(v))
     out: list[float] = h[:1]
     for i in range(1, len(h) - 1):
         if (h[i] - h[i - 1]) * (h[i + 1] - h[i]) < 0:

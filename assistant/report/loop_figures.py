@@ -2,8 +2,9 @@
 
 * ``loop_figure``: the net moment of the elements against the applied field, branch by branch, with the
   loop of non-interacting elements for the fitted Hc and sigma and the tip's reversals marked; below it the
-  histogram of the elements' switching fields on the step grid with the fitted normal law;
-* ``element_map_figure``: the elements where they lie, each coloured by its switching field (descending and
+  histogram of the elements' switching fields, each counted between the step before and the first step found
+  reversed, with the fitted normal law;
+* ``element_map_figure``: the elements where they lie, each coloured by the first field found reversed (descending and
   ascending branch side by side), the elements the tip switched outlined;
 * ``strip_figure``: the phase images over the field steps (at most a dozen, the tip's reversals among them)
   on one scale centred on zero, dark = attractive, in the report's diverging phase map.
@@ -41,7 +42,7 @@ def _title(a: LoopAnalysis) -> str:
     if np.isfinite(hc):
         text += f", Hc = {quantity(hc, 'A/m', a.coercive_std_a_per_m)}"
     if np.isfinite(a.sfd_sigma_a_per_m):
-        text += f", σ = {quantity(a.sfd_sigma_a_per_m, 'A/m', digits=3)}"
+        text += f", σ = {quantity(a.sfd_sigma_a_per_m, 'A/m', a.sfd_sigma_std_a_per_m)}"
     return text
 
 
@@ -73,10 +74,11 @@ def loop_figure(a: LoopAnalysis) -> Figure:
     ax.legend(fontsize=8, loc="center")  # the middle of a loop is empty
     ax.set_title(_title(a), fontsize=10)
     step = float(np.median(np.abs(np.diff(h)))) if h.size > 1 else 1.0
-    edges = np.arange(np.floor(h.min() / step) - 0.5, np.ceil(h.max() / step) + 1.0) * step
-    down = a.switching_fields_a_per_m("down") / 1e3
-    up = a.switching_fields_a_per_m("up") / 1e3
-    data = [v[np.isfinite(v)] for v in (down, up)]
+    # each element is counted over the interval it switched in, from the step before to the first step found
+    # reversed: bins between the fields applied, each element at its interval's middle
+    edges = np.unique(h)
+    middles = [0.5 * (before + at) / 1e3 for before, at in map(a.switching_interval_a_per_m, ("down", "up"))]
+    data = [v[np.isfinite(v)] for v in middles]
     hist.hist(data, bins=edges, color=[_DOWN, _UP], label=["descending", "ascending"], stacked=True)
     if np.isfinite(hc) and np.isfinite(sigma) and sigma > 0:
         grid = np.linspace(h.min(), h.max(), 400)
@@ -84,7 +86,7 @@ def loop_figure(a: LoopAnalysis) -> Figure:
         pdf = n * step / (np.sqrt(2 * np.pi) * sigma / 1e3) * np.exp(-0.5 * ((np.abs(grid) - hc / 1e3) / (sigma / 1e3)) ** 2)
         hist.plot(grid, pdf, "-", color="0.2", lw=0.9, label="normal law, fitted")
     hist.set_xlabel("applied field (kA/m), out of plane")
-    hist.set_ylabel("elements switched")
+    hist.set_ylabel("elements switched\nbetween two steps")
     hist.legend(fontsize=8)
     return fig
 
@@ -126,14 +128,15 @@ def element_map_figure(a: LoopAnalysis) -> Figure:
             x = (c + 0.5) * (pc * 1e6 if pc else 1.0)
             y = (r + 0.5) * (pr * 1e6 if pr else 1.0)
             ax.plot(x, y, "o", mfc="none", mec="#d7191c", ms=14, mew=1.5)
-        ax.set_title(f"{name} branch: |switching field|", fontsize=10)
+        ax.set_title(f"{name} branch: |first field found reversed|", fontsize=10)
         ax.set_xlabel(f"x ({unit})")
         ax.set_aspect("equal")
     axes[0].set_ylabel(f"y ({unit})")
     note = ("hatched grey: no switching field on the branch (did not switch, or not in sight)"
             + ("; red ring: switched by the tip" if switched_by_tip else ""))
     fig.suptitle(f"Switching field of each element ({note})", fontsize=10)
-    fig.colorbar(im, ax=list(axes), label="|switching field| (kA/m)", shrink=0.9)
+    fig.colorbar(im, ax=list(axes), label="|first field found reversed| (kA/m); switched since the step before",
+                 shrink=0.9)
     return fig
 
 

@@ -12,6 +12,7 @@ import numpy as np
 
 from assistant.formatting import number_list, quantity
 from assistant.report.loop_figures import write_loop_figures
+from assistant.report.names import field_path
 
 
 def _field(value: float, std: float | None = None) -> str:
@@ -27,8 +28,7 @@ def _measured_lines(data) -> list[str]:
     if h.size <= 12:
         shown = number_list(h, "A/m")
     else:
-        ends = (h[0], h[int(np.argmin(h))], h[-1])
-        shown = " … ".join(quantity(v, "A/m") for v in ends) + f" ({h.size} steps)"
+        shown = field_path(h)
     out = [f"- applied fields (out of plane): {shown}",
            f"- completed field steps: {steps} of {h.size} ({'finished' if data.finished else 'partial'})",
            f"- lift height {quantity(data.lift_height_m, 'm')}; frame {quantity(data.scan_size_m, 'm')} square, "
@@ -66,7 +66,8 @@ def _result_lines(a) -> list[str]:
 
 def _headline(name: str, a) -> str:
     """One line for the summary's results: Hc, spread, elements, the tip."""
-    sigma = quantity(a.sfd_sigma_a_per_m, "A/m") if math.isfinite(a.sfd_sigma_a_per_m) else "not resolved"
+    sigma = _field(a.sfd_sigma_a_per_m, a.sfd_sigma_std_a_per_m) if math.isfinite(a.sfd_sigma_a_per_m) \
+        else "not resolved"
     rev = ", ".join(quantity(h, "A/m") for h in a.tip_reversal_fields_a_per_m) or "none"
     by_tip = len(a.tip_switched_elements)
     return (f"- **Field series {name}:** coercive field {quantity(a.coercive_a_per_m, 'A/m', a.coercive_std_a_per_m)}"

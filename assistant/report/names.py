@@ -8,7 +8,7 @@ from __future__ import annotations
 
 from assistant.formatting import DASH, quantity, yes_no
 
-__all__ = ["label", "unit_of", "readable_value", "FLAGS"]
+__all__ = ["label", "unit_of", "readable_value", "field_path", "FLAGS"]
 
 _INVOLS = "optical-lever sensitivity (InvOLS)"
 
@@ -127,3 +127,12 @@ def readable_value(key: str, value, std=None, *, unit: str | None = None, digits
 
         return percent(value)
     return quantity(value, unit if unit is not None else unit_of(key), std, digits=digits)
+
+
+def field_path(fields_a_per_m) -> str:
+    """The applied fields of a field series [A/m] for people: the first, every turning point and the last, and
+    the number of steps (``-450 kA/m … 450 kA/m … -450 kA/m (37 steps)``)."""
+    from assistant.procedures.field_series import turning_points  # the one definition of a turning point
+
+    fields = list(fields_a_per_m)
+    return " … ".join(quantity(v, "A/m") for v in turning_points(fields, len(fields))) + f" ({len(fields)} steps)"

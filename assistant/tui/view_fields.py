@@ -11,6 +11,7 @@ from textual_plotext import PlotextPlot
 
 from assistant.formatting import DASH, duration, number_list, quantity
 from assistant.report.colours import symmetric_limit
+from assistant.report.names import field_path
 from assistant.tui.plots import DATA, FIT, PART_B, redraw
 from assistant.tui.view_base import FieldError, View
 from assistant.tui.widgets import Field, HalfBlockImage, ScaleKey
@@ -98,9 +99,7 @@ class FieldSeriesView(View):
         except ValueError as exc:  # FieldError and FieldSeriesSettingsError both are ValueErrors
             msg.update(f"[b]not valid:[/b] {exc}")
             return
-        h = np.asarray(s.fields_a_per_m)
-        msg.update(f"ok: {h.size} field steps from {quantity(h[0], 'A/m')} to {quantity(h.min(), 'A/m')} and back; "
-                   f"{s.order}")
+        msg.update(f"ok: fields {field_path(s.fields_a_per_m)}; {s.order}")
         if event.button.id == "fields-start":
             self.app.start_field_series(s)
 
@@ -228,7 +227,7 @@ class FieldSeriesView(View):
         rev = number_list(a.tip_reversal_fields_a_per_m, "A/m") if a.tip_reversal_fields_a_per_m else "none"
         lines = [f"{a.count} elements ({a.elements.source}), {a.field_a_per_m.size} steps",
                  "Hc " + (quantity(hc, "A/m", a.coercive_std_a_per_m) if np.isfinite(hc) else DASH)
-                 + ", σ " + (quantity(sig, "A/m", digits=3) if np.isfinite(sig) else DASH),
+                 + ", σ " + (quantity(sig, "A/m", a.sfd_sigma_std_a_per_m) if np.isfinite(sig) else DASH),
                  f"tip reversed at: {rev}",
                  "switched by the tip: " + (", ".join(map(str, a.tip_switched_elements)) or "none")]
         box.update("\n".join(lines))

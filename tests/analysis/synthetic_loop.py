@@ -43,8 +43,9 @@ def loop_fields(h_max: float, step: float) -> np.ndarray:
 
 
 def true_states(fields: np.ndarray, h_sw: np.ndarray, start: float = 1.0) -> np.ndarray:
-    """States of independent elements along an arbitrary field sequence (hysteresis of each element)."""
-    s = np.full(h_sw.size, start)
+    """States of independent elements along an arbitrary field sequence (hysteresis of each element), from the
+    states ``start`` (one for all, or one per element)."""
+    s = np.broadcast_to(np.asarray(start, dtype=float), h_sw.shape).copy()
     out = []
     for h in fields:
         s = np.where(h <= -h_sw, -1.0, np.where(h >= h_sw, 1.0, s))
@@ -58,13 +59,14 @@ def make_loop_stack(*, seed: int = 0, fields: np.ndarray | None = None, hc: floa
                     diameter_m: float = 250e-9, ms: float = 1e6, thickness_m: float = 15e-9, lift_m: float = 40e-9,
                     moment: float = 1e-16, monopole: float = 0.0, delta_m: float = 120e-9, q_factor: float = 240.0,
                     k_lever: float = 4.0, tip_switch: tuple[int, int, int] | None = None,
-                    switching_a_per_m: np.ndarray | None = None) -> LoopStack:
+                    switching_a_per_m: np.ndarray | None = None, virgin: bool = False) -> LoopStack:
     """A field series of a square dot array seen through a ``rows`` x ``cols`` window.
 
     ``tip_switch = (dot, step, row)``: the tip reverses that dot (an index into ``centres_px``) while line
     ``row`` of step ``step`` is scanned, in that line's lift pass: the line itself still shows the old state,
     its repeat pass and every later line the new one. Pick a dot that the field reverses at the next step.
     ``switching_a_per_m`` replaces the random switching fields (one per dot of the whole field of view).
+    ``virgin``: the dots start in the as-grown state, up or down at random, instead of all up.
     """
     rng = np.random.default_rng(seed)
     fields = loop_fields(450e3, 25e3) if fields is None else np.asarray(fields, float)
@@ -91,7 +93,8 @@ def make_loop_stack(*, seed: int = 0, fields: np.ndarray | None = None, hc: floa
     centre = np.stack([(cy + cell.min()) * period_m, (cx + cell.min()) * period_m], axis=1) / pixel_m \
         + big / 2 - 0.5 - np.array([r0, c0])
     near = np.all((centre > -diameter_m / pixel_m) & (centre < np.array([rows, cols]) + diameter_m / pixel_m), axis=1)
-    states = true_states(fields, h_sw)
+    start = np.random.default_rng(seed + 1000).choice([-1.0, 1.0], dots) if virgin else 1.0
+    states = true_states(fields, h_sw, start)
     tip, t = [], 1.0
     for h in fields:
         t = -1.0 if (t > 0 and h < -tip_coercive) else (1.0 if (t < 0 and h > tip_coercive) else t)

@@ -209,3 +209,64 @@ def test_a_tip_magnetised_down_reads_the_other_way():
     assert up.tip_reversal_steps == () == down.tip_reversal_steps
     np.testing.assert_array_equal(up.states, down.states)
     assert up.states[0].min() == 1 and up.states[st.field_a_per_m.argmin()].max() == -1
+
+
+def test_a_virgin_branch_is_no_recoil_curve():
+    # Tagawa et al. 1991 (IEEE Trans. Magn. 27, 4975; from memory): a recoil curve turns on the descending branch
+    # that came down from positive saturation. A series that starts from the as-grown state (elements up or down
+    # at random) at zero field and rises to saturation first has an ascending branch from M/Ms near 0 that is
+    # none: the non-interacting elements' spread must not be "corrected" with it.
+    virgin = np.arange(0, 450e3, STEP)
+    loop = loop_fields(450e3, STEP)
+    st = make_loop_stack(seed=3, rows=128, cols=128, fields=np.r_[virgin, loop], virgin=True)
+    r = analyse_loop(st.phase_deg, st.field_a_per_m, topography_m=st.topography_m)
+    assert abs(r.m_over_ms[0]) < 0.5 and r.m_over_ms[virgin.size] == 1.0
+    assert np.isnan(r.tagawa_sigma_a_per_m) and not any("recoil" in n for n in r.notes)
+    # the same series with a recoil curve from -300 kA/m after the loop: that one is taken
+    recoil = np.r_[np.arange(425e3, -300e3 - 1, -STEP), np.arange(-275e3, 450e3 + 1, STEP)]
+    st = make_loop_stack(seed=3, rows=128, cols=128, fields=np.r_[virgin, loop, recoil], virgin=True)
+    r = analyse_loop(st.phase_deg, st.field_a_per_m, topography_m=st.topography_m)
+    assert [n for n in r.notes if "recoil" in n][0].startswith("recoil branch from -300 kA/m")
+    truth = st.switching_a_per_m[_matched(r, st)].std(ddof=1)
+    assert abs(r.tagawa_sigma_a_per_m - truth) < 3 * r.tagawa_sigma_std_a_per_m
+    d = r.to_dict()
+    assert (d["tagawa_sigma_ka_per_m"], d["tagawa_sigma_std_ka_per_m"]) == (r.tagawa_sigma_a_per_m / 1e3,
+                                                                         r.tagawa_sigma_std_a_per_m / 1e3)
+
+
+def _both_branches_within_one_step(result, st, step):
+    truth = st.switching_a_per_m[_matched(result, st)]
+    for got in (-result.switching_fields_a_per_m("down"), result.switching_fields_a_per_m("up")):
+        assert np.all((got - truth >= 0) & (got - truth < step))
+    assert abs(result.coercive_a_per_m - truth.mean()) < 3 * result.coercive_std_a_per_m
+
+
+def test_a_series_from_negative_saturation_finds_the_tip_pointing_down():
+    # The series starts at -450 kA/m: the tip's coating (coercive field 200 kA/m) and the elements point along
+    # -z, and the tip reverses on the way up. Unless told, the analysis takes the tip's start direction under
+    # which the elements follow the field.
+    st = make_loop_stack(seed=3, rows=128, cols=128, fields=-loop_fields(450e3, STEP))
+    assert st.tip[0] == -1 and st.states[0].max() == -1
+    r = analyse_loop(st.phase_deg, st.field_a_per_m, topography_m=st.topography_m)
+    assert r.tip[0] == -1 and r.to_dict()["tip_reversals_ka_per_m"] == [225.0, -225.0]
+    assert any("along -z (down) at the first step" in n for n in r.notes)
+    assert not any("not saturated" in n for n in r.notes)
+    _both_branches_within_one_step(r, st, STEP)
+    # told the tip pointed up, the analysis does as told (and finds no switching on the ascending branch)
+    told = analyse_loop(st.phase_deg, st.field_a_per_m, topography_m=st.topography_m, tip_moment="up")
+    assert told.tip[0] == 1 and np.all(np.isnan(told.switching_fields_a_per_m("up")))
+
+
+def test_a_tip_pointing_down_throughout_is_found_from_the_states():
+    # A tip whose coercive field lies beyond the loop, along +z in one stack and along -z in the other (every
+    # phase inverted, F' = mu0 m d2Hz/dz2 changes sign with m): the same states and switching fields either way.
+    fields = -loop_fields(450e3, 50e3)
+    st = make_loop_stack(seed=6, rows=96, cols=96, tip_coercive=1e7, fields=fields)
+    up = analyse_loop(st.phase_deg, fields, topography_m=st.topography_m)
+    down = analyse_loop(-st.phase_deg, fields, topography_m=st.topography_m)
+    assert up.tip_reversal_steps == () == down.tip_reversal_steps
+    assert np.all(up.tip == 1) and np.all(down.tip == -1)
+    np.testing.assert_array_equal(up.states, down.states)
+    assert any("along -z (down)" in n for n in down.notes) and not any("along -z (down)" in n for n in up.notes)
+    for r in (up, down):
+        _both_branches_within_one_step(r, st, 50e3)

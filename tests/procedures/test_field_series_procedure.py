@@ -62,6 +62,9 @@ def test_field_lists_and_ranges():
             parse_fields_ka_per_m(bad)
     assert turning_points([400, 0, -400, 0, 400, 0], 5) == [400, -400, 400]
     assert turning_points([400, 0, -400, 0], 3) == [400, -400]
+    # an extreme held for two steps is still a turning point
+    assert turning_points([400, 200, 0, -200, -400, -400, -200, 0], 7) == [400, -400, -200]
+    assert turning_points([400, 400, 0, -400, -400], 5) == [400, -400]
 
 
 @pytest.mark.parametrize("change,match", [
@@ -163,3 +166,30 @@ def test_interrupted_series_resumes_where_it_stopped(tmp_path):
     assert after.phase_deg[:4].tobytes() == before.phase_deg.tobytes()
     text = " ".join(n.text for n in notices if isinstance(n, Notice))
     assert "resuming at field step 5 line 4" in text and "450, -450 kA/m" in text
+
+
+def test_resume_retraces_an_extreme_held_for_two_steps(tmp_path):
+    # return-point memory: before the interrupted step the magnet must visit -450 kA/m again, the extreme the
+    # series held for two steps, or the elements it reversed there are left as they were at the restart
+    fields = tuple(f * 1e3 for f in (450, 150, -150, -450, -450, -150, 150, 450))
+    settings = FieldSeriesSettings(fields_a_per_m=fields, lift_height_m=50e-9, lines=8, pixels=16,
+                                   scan_size_m=1.0e-6)
+    scenario = str(small_scenario(tmp_path))
+    path = tmp_path / "s.h5"
+    cancel = CancelToken()
+
+    def stop_mid_step(event):
+        if isinstance(event, Progress) and event.done == 6 * settings.lines + 3:
+            cancel.set()
+
+    with engaged(scenario=scenario, seed=5) as ctl:
+        with SessionFile.create(path, controller_url="sim://", software_version="t") as sf:
+            with pytest.raises(Cancelled):
+                run_field_series(ctl, settings, writer(sf, settings), sink=stop_mid_step, cancel=cancel)
+    set_fields = []
+    with engaged(scenario=scenario, seed=5) as ctl:
+        set_field = ctl.set_field
+        ctl.set_field = lambda h: (set_fields.append(h), set_field(h))[1]
+        with SessionFile.open(path, "a") as sf:
+            run_field_series(ctl, settings, resume_field_writer(sf, settings.name))
+    assert set_fields[:4] == [450e3, -450e3, -150e3, 150e3]  # the history, then the interrupted step itself

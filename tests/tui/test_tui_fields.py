@@ -54,6 +54,11 @@ async def test_field_series_in_the_view_grows_its_loop_and_opens_stored(tmp_path
         view.query_one("#fields-check").press()
         await pilot.pause(0.2)
         assert "magnet's limit of 600 kA/m" in str(view.query_one("#fields-message").render())
+        _form(view, fields="-450:450:50")  # a series from the negative end: its turning point is the top
+        await pilot.pause()
+        view.query_one("#fields-check").press()
+        await pilot.pause(0.2)
+        assert "fields -450 kA/m … 450 kA/m … -450 kA/m (37 steps)" in str(view.query_one("#fields-message").render())
         _form(view, fields="450:-450:225", lines="12", pixels="16", size="1.5")
         await pilot.pause()
         seen: list[int] = []

@@ -74,6 +74,16 @@ class LoopAnalysis:
             return np.full(self.count, np.nan)
         return np.where(b.switched, self.field_a_per_m[np.maximum(b.step, 0)], np.nan)
 
+    def switching_interval_a_per_m(self, which: str) -> tuple[np.ndarray, np.ndarray]:
+        """Per element the field of the step before the first step found reversed on the major ``"down"`` or
+        ``"up"`` branch, and that step's field [A/m]: the element switched past the first, at or before the
+        second (NaN: it did not reverse there)."""
+        b = self.down if which == "down" else self.up
+        at = self.switching_fields_a_per_m(which)
+        if b is None:
+            return at.copy(), at
+        return np.where(b.switched, self.field_a_per_m[np.maximum(b.step - 1, 0)], np.nan), at
+
     @property
     def tip_reversal_fields_a_per_m(self) -> tuple[float, ...]:
         return tuple(float(self.field_a_per_m[k]) for k in self.tip_reversal_steps)
@@ -94,14 +104,18 @@ class LoopAnalysis:
 
     def to_dict(self) -> dict:
         """The ``mfma analyze loop --json`` keys (kA/m)."""
-        down, up = self.switching_fields_a_per_m("down"), self.switching_fields_a_per_m("up")
+        (down_before, down), (up_before, up) = (self.switching_interval_a_per_m(w) for w in ("down", "up"))
         ka = lambda v: None if v is None or not math.isfinite(v) else float(v) / 1e3  # noqa: E731
         return {
             "dots": int(self.count),
             "coercive_field_ka_per_m": ka(self.coercive_a_per_m),
             "coercive_field_std_ka_per_m": ka(self.coercive_std_a_per_m),
             "sfd_sigma_ka_per_m": ka(self.sfd_sigma_a_per_m),
+            "sfd_sigma_std_ka_per_m": ka(self.sfd_sigma_std_a_per_m),
+            "tagawa_sigma_ka_per_m": ka(self.tagawa_sigma_a_per_m),
+            "tagawa_sigma_std_ka_per_m": ka(self.tagawa_sigma_std_a_per_m),
             "switching_fields_ka_per_m": [[ka(d), ka(u)] for d, u in zip(down, up)],
+            "switching_fields_step_before_ka_per_m": [[ka(d), ka(u)] for d, u in zip(down_before, up_before)],
             "loop_field_ka_per_m": [float(h) / 1e3 for h in self.field_a_per_m],
             "loop_m_over_ms": [float(m) for m in self.m_over_ms],
             "tip_reversals_ka_per_m": [float(h) / 1e3 for h in self.tip_reversal_fields_a_per_m],
@@ -159,6 +173,18 @@ def _combine(down: NormalFit | None, up: NormalFit | None, rho: float) -> tuple[
     return hc, hc_std, sigma, sigma_std
 
 
+def _recoils(parts: list[Branch], m: np.ndarray, up_b: Branch | None) -> list[Branch]:
+    """Ascending branches that are recoil curves in the sense of Tagawa et al. 1991 (IEEE Trans. Magn. 27, 4975):
+    they turn on the descending branch that came down from positive saturation, before it reached negative
+    saturation (a virgin branch, from the as-grown state, is none)."""
+    out = []
+    for before, b in zip(parts, parts[1:]):
+        if (b.direction > 0 and b is not up_b and before.direction < 0 and m[before.start] >= _SATURATED
+                and m[b.start] > -_SATURATED):
+            out.append(b)
+    return out
+
+
 def _tip_censored(b: BranchSwitching, switches: tuple[TipSwitch, ...]) -> tuple[np.ndarray, np.ndarray]:
     """Switching intervals for the fit, an element the tip reversed counted as needing more than the field of
     the step before (its own switching field lies above that plus the tip's unknown field: censored)."""
@@ -199,7 +225,7 @@ def _topography_changes(topo: np.ndarray | None, drift: np.ndarray) -> np.ndarra
 
 
 def analyse_loop(phase_deg: np.ndarray, field_a_per_m: np.ndarray, *, topography_m: np.ndarray | None = None,
-                 repeat_phase_deg: np.ndarray | None = None, tip_moment: str = "up", min_area_px: int = 4,
+                 repeat_phase_deg: np.ndarray | None = None, tip_moment: str = "auto", min_area_px: int = 4,
                  pixel_m: float | tuple[float, float] | None = None) -> LoopAnalysis:
     """Switching fields, loop, coercive field and switching-field distribution of a field series.
 
@@ -210,7 +236,8 @@ def analyse_loop(phase_deg: np.ndarray, field_a_per_m: np.ndarray, *, topography
     topography_m : (rows, cols) topography of the first step, or (fields, rows, cols) one per step [m];
         optional (elements are then found in the magnetic contrast).
     repeat_phase_deg : (fields, rows, cols) the repeat pass at the end of each line [deg], optional.
-    tip_moment : "up" or "down": the tip's magnetisation at the first step (along +z or -z).
+    tip_moment : "up" or "down": the tip's magnetisation at the first step (along +z or -z); "auto" (default):
+        the direction whose states agree best with the field (see ``states.resolve_tip``), noted when down.
     min_area_px : smallest element [pixels].
     pixel_m : pixel size [m], one spacing or (row, column); only reported (element sizes, figure axes).
 
@@ -229,8 +256,8 @@ def analyse_loop(phase_deg: np.ndarray, field_a_per_m: np.ndarray, *, topography
     ``distribution`` (normal law fitted to the switching intervals, the loop of non-interacting elements,
     Sheppard's correction, Tagawa et al. 1991).
     """
-    if tip_moment not in ("up", "down"):
-        raise LoopInputError(f"tip_moment = {tip_moment!r} must be 'up' or 'down'")
+    if tip_moment not in ("auto", "up", "down"):
+        raise LoopInputError(f"tip_moment = {tip_moment!r} must be 'auto', 'up' or 'down'")
     pixel = None if pixel_m is None else tuple(float(p) for p in np.broadcast_to(np.asarray(pixel_m, float), (2,)))
     if pixel is not None and not all(np.isfinite(p) and p > 0 for p in pixel):
         raise LoopInputError(f"pixel_m = {pixel_m!r} must be positive")
@@ -257,7 +284,7 @@ def analyse_loop(phase_deg: np.ndarray, field_a_per_m: np.ndarray, *, topography
     rep_line = None if rep is None else ct.contrasts(ct.aligned(rep, drift), groups)[2]
     result = element_states(el_deg, el_sigma, h, parts, line_deg=line_deg, line_sigma=line_sigma,
                             line_element=groups.element, repeat_line_deg=rep_line,
-                            tip_start=1 if tip_moment == "up" else -1)
+                            tip_start={"auto": None, "up": 1, "down": -1}[tip_moment])
     states = result.states
     measurable = np.any(states != 0, axis=0)
     seen = (states != 0).sum(axis=1)
@@ -274,13 +301,16 @@ def analyse_loop(phase_deg: np.ndarray, field_a_per_m: np.ndarray, *, topography
     fit_of = lambda b: None if b is None else fit_loop(h[b.start:b.end + 1], m[b.start:b.end + 1],  # noqa: E731
                                                        direction=b.direction)
     tagawa, tagawa_std, notes = math.nan, math.nan, []
-    recoils = [b for b in parts if b.direction > 0 and b is not up_b and m[b.start] > -_SATURATED]
+    recoils = _recoils(parts, m, up_b)
     if up_b is not None and recoils:
         r = recoils[0]
         tagawa, tagawa_std, used = tagawa_sigma(h[up_b.start:up_b.end + 1], m[up_b.start:up_b.end + 1],
                                                 h[r.start:r.end + 1], m[r.start:r.end + 1])
         notes.append(f"recoil branch from {h[r.start] / 1e3:.4g} kA/m (M/Ms = {m[r.start]:.3f}): "
                      f"interaction-corrected spread from {used} points")
+    if tip_moment == "auto" and result.tip[0] < 0:
+        notes.append("the tip was magnetised along -z (down) at the first step: inferred from the states, which "
+                     "follow the field that way; give the tip's direction to override")
     notes += _notes(h, m, down_b, up_b, result, elements, drift, measurable, topo, down_fit, up_fit)
     return LoopAnalysis(
         field_a_per_m=h, m_over_ms=m, elements=elements, states=states, contrast_deg=el_deg, noise_deg=noise,

@@ -10,7 +10,7 @@ the tip along +z an element's state is minus the sign of its contrast, and the t
   of the elements by what follows: along a branch an element can only reverse towards the field's direction,
   and the tip only towards the field it sits in. Every set of candidate steps (at least half the elements
   inverted) is tried as tip reversals; the one whose states break these rules least wins, ties going to fewer
-  reversals.
+  reversals. The tip's direction at the first step, when not given, is found the same way: both are tried.
 * Tip-induced switching (common practice, no source): the tip's field adds to the applied one. An element the
   tip reversed during an image shows one state on its first lines and the other on its last ("first pass":
   the topography pass or the lift pass of an earlier line did it); if the repeat pass at the end of a line
@@ -115,12 +115,9 @@ def _tip_series(steps: int, reversals: tuple[int, ...], start: int) -> np.ndarra
     return start * np.where(np.cumsum(flips) % 2 == 1, -1, 1)
 
 
-def resolve_tip(observed: np.ndarray, candidates: list[int], parts: list[Branch], field: np.ndarray, *,
-                tip_start: int) -> tuple[tuple[int, ...], np.ndarray]:
-    """The set of candidate steps taken as tip reversals, and the tip's direction at every step.
-
-    ``observed`` holds each element's state as read with the tip along +z (0 where the contrast was too faint).
-    """
+def _reversals(observed: np.ndarray, candidates: list[int], parts: list[Branch], field: np.ndarray,
+               tip_start: int) -> tuple[tuple[int, ...], float]:
+    """The set of candidate steps taken as tip reversals for a tip starting along ``tip_start``, and its cost."""
     n = max(observed.shape[1], 1)
     direction = np.zeros(observed.shape[0], dtype=int)
     for b in parts:
@@ -134,17 +131,49 @@ def resolve_tip(observed: np.ndarray, candidates: list[int], parts: list[Branch]
             cost = wrong_way_transitions(_carry(observed * tip[:, None]), parts) + n * against + 0.5 * r
             if cost < best_cost:
                 best, best_cost = chosen, cost
-    return best, _tip_series(observed.shape[0], best, tip_start)
+    return best, best_cost
+
+
+def _along_field(observed: np.ndarray, tip: np.ndarray, field: np.ndarray) -> float:
+    """How far the mean state follows the field at its two extremes (positive: along it, as elements saturated
+    by a large field are)."""
+    states = _carry(observed * tip[:, None])
+    seen = (states != 0).sum(axis=1)
+    m = np.where(seen > 0, states.sum(axis=1) / np.maximum(seen, 1), 0.0)
+    ends = (int(np.argmax(field)), int(np.argmin(field)))
+    return float(sum(np.sign(field[k]) * m[k] for k in ends))
+
+
+def resolve_tip(observed: np.ndarray, candidates: list[int], parts: list[Branch], field: np.ndarray, *,
+                tip_start: int | None) -> tuple[tuple[int, ...], np.ndarray]:
+    """The set of candidate steps taken as tip reversals, and the tip's direction at every step.
+
+    ``observed`` holds each element's state as read with the tip along +z (0 where the contrast was too faint).
+    ``tip_start`` the tip's direction at the first step (+1 along +z), or None: the start whose states break
+    the rules least, ties going to the one whose elements point along the field at its extremes (common
+    practice, no source: a field that saturates the elements leaves them along it).
+    """
+    steps = observed.shape[0]
+    if tip_start is not None:
+        best = _reversals(observed, candidates, parts, field, tip_start)[0]
+        return best, _tip_series(steps, best, tip_start)
+    tried = []
+    for start in (1, -1):
+        chosen, cost = _reversals(observed, candidates, parts, field, start)
+        tip = _tip_series(steps, chosen, start)
+        tried.append((cost, -_along_field(observed, tip, field), chosen, tip))
+    _, _, chosen, tip = min(tried, key=lambda t: t[:2])
+    return chosen, tip
 
 
 def element_states(contrast_deg: np.ndarray, contrast_sigma: np.ndarray, field: np.ndarray, parts: list[Branch], *,
                    line_deg: np.ndarray, line_sigma: np.ndarray, line_element: np.ndarray,
-                   repeat_line_deg: np.ndarray | None, tip_start: int = 1) -> StateResult:
+                   repeat_line_deg: np.ndarray | None, tip_start: int | None = 1) -> StateResult:
     """States of every element at every step; see the module docstring.
 
     ``contrast_deg``/``contrast_sigma`` (steps, elements); ``line_*`` per element line (``contrasts`` in
     ``contrast.py``); ``repeat_line_deg`` the repeat pass's line contrasts or None; ``tip_start`` the tip's
-    direction at the first step (+1 along +z).
+    direction at the first step (+1 along +z; None: inferred, see :func:`resolve_tip`).
     """
     with np.errstate(invalid="ignore", divide="ignore"):
         z = np.abs(contrast_deg) / contrast_sigma
