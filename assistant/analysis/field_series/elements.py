@@ -15,6 +15,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import ndimage
 
+from assistant.analysis.background import remove_plane
+
 MIN_SEPARATION = 4.0
 _BINS = 256
 
@@ -37,18 +39,6 @@ class ElementMap:
     centroids_px: np.ndarray
     areas_px: np.ndarray
     source: str
-
-
-def remove_plane(image: np.ndarray) -> np.ndarray:
-    """``image`` minus its least-squares plane (over the finite pixels); NaN stays NaN."""
-    img = np.asarray(image, dtype=float)
-    rows, cols = np.indices(img.shape)
-    ok = np.isfinite(img)
-    if ok.sum() < 3:
-        return img - np.nanmean(img) if ok.any() else img
-    design = np.stack([np.ones(ok.sum()), rows[ok], cols[ok]], axis=1)
-    coef, *_ = np.linalg.lstsq(design, img[ok], rcond=None)
-    return img - (coef[0] + coef[1] * rows + coef[2] * cols)
 
 
 def otsu(values: np.ndarray) -> tuple[float, float]:

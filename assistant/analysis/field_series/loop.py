@@ -15,11 +15,12 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from assistant.analysis.background import remove_plane
 from assistant.analysis.field_series import contrast as ct
 from assistant.analysis.field_series.branches import Branch, BranchSwitching, branches, switching
 from assistant.analysis.field_series.distribution import (LoopFit, NormalFit, fit_intervals, fit_loop,
                                                           sheppard_sigma, tagawa_sigma)
-from assistant.analysis.field_series.elements import ElementMap, find_elements, remove_plane
+from assistant.analysis.field_series.elements import ElementMap, find_elements
 from assistant.analysis.field_series.record import build, flatten
 from assistant.analysis.field_series.states import TipSwitch, element_states
 from assistant.errors import InputError

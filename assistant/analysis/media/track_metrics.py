@@ -4,7 +4,9 @@ Bit length: the tracks' bit lengths weighted by their standard errors, the stand
 scatter when it exceeds them. Jitter: the deviations from each track's grid pooled (two grid parameters per track
 out of the degrees of freedom; deviations beyond four robust standard deviations left out as misplaced
 transitions), then the fit's own position noise taken out: each deviation has variance
-J^2 + s_i^2 (s_i its position's standard error), solved for J by weighted moments (iterated). Pitch: the median
+J^2 + s_i^2 (s_i its position's standard error), solved for J by weighted moments (iterated). s_i is the fit's
+statistical error only: on synthetic tracks the positions scattered about the written ones by 0.8-3.5 times it
+(the transition model's own error is not in it), so the jitter is an upper bound. Pitch: the median
 spacing of complete tracks' centres, each spacing divided by the whole number of pitches it spans (a track too
 weak to stand out from the old data beside it is not found), counted in the period of the across-track activity
 profile. Width: the mean of complete tracks' widths.
@@ -205,7 +207,8 @@ def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix,
                  f"transitions placed by one joint fit per track ({model_orientation} transition model"
                  + (", chosen by the fit" if model_chosen_by_fit else "") + ")."]
     sentences.append(f"Bit length {bit * 1e9:.4g} ± {bit_sd * 1e9:.2g} nm; jitter {jitter * 1e9:.3g} nm rms about "
-                     f"the grid ({raw * 1e9:.3g} nm before taking out the position noise of {pos_noise * 1e9:.2g} nm)"
+                     f"the grid ({raw * 1e9:.3g} nm before taking out the fits' statistical position noise of "
+                     f"{pos_noise * 1e9:.2g} nm; their model error stays in, so this is an upper bound)"
                      + (f"; {n_off} transition(s) more than 30 % of a cell, or four robust standard deviations, off the "
                         "grid left out." if n_off else "."))
     if outliers:
