@@ -77,7 +77,8 @@ def tip(args) -> int:
                f"valid band: periods {span(*d['band_nm'], 'nm')} (field maps taper off over its longest octave); "
                f"regularisation of the 2-D TTF figure {number(d['regularization'], digits=3)} (GCV; the profile "
                "and the maps do not use it)",
-               f"measurement plane {quantity(d['measurement_plane_nm'], 'nm', d['plane_std_nm'] or None)}; reference Ms = "
+               f"measurement plane {quantity(d['measurement_plane_nm'], 'nm', d['plane_std_nm'] or None)}; "
+               f"reference Ms = "
                f"{number(d['ms_ka_per_m'], d['ms_std_ka_per_m'])} kA/m, t = "
                f"{quantity(d['thickness_nm'], 'nm', d['thickness_std_nm'])}",
                f"point probe: {pp}", f"  {d['point_probe_verdict']}", *[f"warning: {w}" for w in d["warnings"]],

@@ -4,7 +4,8 @@ the end of each line, which shows elements the tip switched).
 
 Safety: the field is part of the safe state. The body runs inside the safety guard, whose stop (the
 controller's ``abort()``, a make-safe) brings the field back to zero after the withdraw, the drive off and the
-bias at zero; a normal end sets the field to zero as well. Fields are checked against the software limit and the magnet's hard limit before anything moves.
+bias at zero; a normal end sets the field to zero as well. Fields are checked against the software limit and the
+magnet's hard limit before anything moves.
 
 Resuming after a kill: the magnetic state of the elements (and of the tip) depends on the fields visited, not
 only on the present one, so before the interrupted step the magnet retraces the turning points of the fields

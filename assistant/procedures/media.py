@@ -139,7 +139,8 @@ def _chosen_height(h: np.ndarray, stored) -> tuple[int, str]:
     if stored is not None:
         ok = stored.arrays.get("interaction_negligible")
         if ok is not None and np.size(ok) == h.size and np.any(np.asarray(ok) > 0.5):
-            return int(np.argmax(np.asarray(ok) > 0.5)), "the lowest height where the tip-sample interaction is negligible"
+            return (int(np.argmax(np.asarray(ok) > 0.5)),
+                    "the lowest height where the tip-sample interaction is negligible")
         rec = stored.scalars.get("recommended_lift_nm")
         if rec is not None:
             return int(np.argmin(np.abs(h * 1e9 - float(rec)))), "the recommended lift height"

@@ -83,7 +83,8 @@ def loop_figure(a: LoopAnalysis) -> Figure:
     if np.isfinite(hc) and np.isfinite(sigma) and sigma > 0:
         grid = np.linspace(h.min(), h.max(), 400)
         n = max(len(data[0]), len(data[1]))
-        pdf = n * step / (np.sqrt(2 * np.pi) * sigma / 1e3) * np.exp(-0.5 * ((np.abs(grid) - hc / 1e3) / (sigma / 1e3)) ** 2)
+        s_ka = sigma / 1e3
+        pdf = n * step / (np.sqrt(2 * np.pi) * s_ka) * np.exp(-0.5 * ((np.abs(grid) - hc / 1e3) / s_ka) ** 2)
         hist.plot(grid, pdf, "-", color="0.2", lw=0.9, label="normal law, fitted")
     hist.set_xlabel("applied field (kA/m), out of plane")
     hist.set_ylabel("elements switched\nbetween two steps")

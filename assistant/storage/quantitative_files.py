@@ -128,7 +128,8 @@ def write_tip_file(path: str | os.PathLike[str], calibration, *, gradient_n_per_
 
 
 def read_tip_file(path: str | os.PathLike[str]) -> TipFile:
-    """Read a tip file; :class:`QuantitativeFileError` names what is wrong (not a file, not a tip file, missing keys)."""
+    """Read a tip file; :class:`QuantitativeFileError` names what is wrong (not a file, not a tip file, missing
+    keys)."""
     p = Path(path)
     if not p.is_file():
         raise QuantitativeFileError(f"tip file not found: {p}")
@@ -143,7 +144,8 @@ def read_tip_file(path: str | os.PathLike[str]) -> TipFile:
     if missing:
         raise QuantitativeFileError(f"{p}: tip file lacks {', '.join(missing)}")
     if int(raw["version"]) != TIP_VERSION:
-        raise QuantitativeFileError(f"{p}: tip file version {int(raw['version'])}; this software reads version {TIP_VERSION}")
+        raise QuantitativeFileError(f"{p}: tip file version {int(raw['version'])}; this software reads version "
+                                    f"{TIP_VERSION}")
     values: dict[str, Any] = {}
     for key, a in raw.items():
         if a.ndim == 0:

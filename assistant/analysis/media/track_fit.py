@@ -37,7 +37,8 @@ def analyse_along(u: np.ndarray, layout: TrackLayout, axis: int, *, pix, noise, 
         tip = (lambda k, f=tip, a=amplitude_m / px_down: (np.asarray(k) ** 2 if f is None else f(k))
                * amplitude_weight(k, a))
     # starting w: lift + the arctan parameter (+ the tip's offset, unless its transfer function carries it)
-    w0 = ((lift_m or 20e-9) + TYPICAL_TRANSITION_M + (0.0 if tip_transfer is not None else TYPICAL_TIP_OFFSET_M)) / px_down
+    w0 = ((lift_m or 20e-9) + TYPICAL_TRANSITION_M
+          + (0.0 if tip_transfer is not None else TYPICAL_TIP_OFFSET_M)) / px_down
     t_px = None if thickness_m is None else float(thickness_m) / px_down
     tracks_bands = [b for b in layout.tracks]
     profiles = []

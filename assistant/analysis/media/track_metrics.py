@@ -203,14 +203,15 @@ def summarise(orient, model_orientation, model_chosen_by_fit, layout, fits, pix,
                                                                        key=lambda f: f.width_std_px)
     w_m = shaped.width_px * px_down
     tw, tw_sd, includes_tip = w_m - (lift_m or 0.0), shaped.width_std_px * px_down, not have_tip
-    sentences = [f"{len(results)} track(s) along the {'rows' if along_rows else 'columns'}, {sum(r.positions_m.size for r in results)} "
+    placed = sum(r.positions_m.size for r in results)
+    sentences = [f"{len(results)} track(s) along the {'rows' if along_rows else 'columns'}, {placed} "
                  f"transitions placed by one joint fit per track ({model_orientation} transition model"
                  + (", chosen by the fit" if model_chosen_by_fit else "") + ")."]
     sentences.append(f"Bit length {bit * 1e9:.4g} ± {bit_sd * 1e9:.2g} nm; jitter {jitter * 1e9:.3g} nm rms about "
                      f"the grid ({raw * 1e9:.3g} nm before taking out the fits' statistical position noise of "
                      f"{pos_noise * 1e9:.2g} nm; their model error stays in, so this is an upper bound)"
-                     + (f"; {n_off} transition(s) more than 30 % of a cell, or four robust standard deviations, off the "
-                        "grid left out." if n_off else "."))
+                     + (f"; {n_off} transition(s) more than 30 % of a cell, or four robust standard deviations, off "
+                        "the grid left out." if n_off else "."))
     if outliers:
         sentences.append(f"Track(s) {', '.join(str(i) for i in outliers)}: their transitions fit another cell than "
                          "the other tracks' (a fit gone wrong); left out of the combined numbers.")

@@ -127,7 +127,8 @@ class TrackAnalysis:
             out["tracks"] = [t.to_dict() for t in self.tracks]
             out["transitions"] = [{"track": t.index, "position_nm": round(float(x) * 1e9, 4),
                                    "position_std_nm": round(float(s) * 1e9, 4),
-                                   "deviation_nm": None if d is None or not np.isfinite(d) else round(float(d) * 1e9, 4),
+                                   "deviation_nm": (None if d is None or not np.isfinite(d)
+                                                    else round(float(d) * 1e9, 4)),
                                    "sign": int(g), "off_grid": bool(o), "in_jitter": bool(j)}
                                   for t in self.tracks
                                   for x, s, d, g, o, j in zip(t.positions_m, t.positions_std_m, t.deviations_m,
@@ -169,8 +170,8 @@ def analyse_tracks(phase_deg, *, pixel_m, lift_m: float | None = None, thickness
         Per-pixel noise [deg]; from the image's highest spatial frequencies otherwise.
     amplitude_m : float, optional
         Peak amplitude of the cantilever's oscillation in the image [m]: its averaging
-        (``quantitative.conversion.amplitude_weight``, which loads scipy.special) enters the response model; without it the transition width
-        includes it (it widens the response).
+        (``quantitative.conversion.amplitude_weight``, which loads scipy.special) enters the response model;
+        without it the transition width includes it (it widens the response).
     min_pixels_per_bit : float
         Fewer pixels per bit cell than this along the track raise :class:`TooFewPixelsPerBitError` (rule of
         thumb, no source: a transition needs a few samples on either side to be placed).

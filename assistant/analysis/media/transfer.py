@@ -6,8 +6,10 @@ whose transform is 2 Ms exp(-|k| a), so M(k) = 2 Ms exp(-|k| a) / (i k). In the 
 (Hug et al. 1998, J. Appl. Phys. 83, 5609; Wallace 1951, Bell Syst. Tech. J. 30, 1145; both from memory) the
 field at height z above a track much wider than z is, per component along the track (k_y = 0),
 
-    out-of-plane (M_z):  H_z(k) = 1/2 exp(-k z) (1 - exp(-k t)) M(k)          = Ms exp(-k (z + a)) (1 - exp(-k t)) / (i k)
-    in-plane (M_x):      H_z(k) = 1/2 exp(-k z) (1 - exp(-k t)) (-i sign k) M(k) = -Ms exp(-k (z + a)) (1 - exp(-k t)) / k
+    out-of-plane (M_z):  H_z(k) = 1/2 exp(-k z) (1 - exp(-k t)) M(k)
+                                = Ms exp(-k (z + a)) (1 - exp(-k t)) / (i k)
+    in-plane (M_x):      H_z(k) = 1/2 exp(-k z) (1 - exp(-k t)) (-i sign k) M(k)
+                                = -Ms exp(-k (z + a)) (1 - exp(-k t)) / k
 
 with k = |k_x|. The force gradient is the tip transfer function times H_z (Hug et al. 1998; a point probe:
 TTF = mu0 (m k^2 - q k) exp(-k delta), Hartmann 1999, Annu. Rev. Mater. Sci. 29, 53, from memory), and the phase
@@ -75,10 +77,10 @@ def track_transition_response(kx: np.ndarray, *, orientation: str, width_m: floa
     the arctan transition smooths along the track only, the spacing loss in every direction. With w = z + a
     (``width_m``) and a (``along_m``) the exponent is -k (w - a) - |kx| a (the analysis holds a: a profile
     barely tells it from the spacing, so its w carries both). The mean over the core multiplies by
-    sin(ky c) / (ky c), and the profile is the integral over ky / 2 pi (midpoint rule on a grid fine against 1 / W). For W -> infinity it is
-    :func:`transition_response`. Out-of-plane, a narrow track shows more than its transitions: the two long
-    edges where the data meet the erased band carry charge wherever a bit differs from the band, so the field
-    over a bit depends on its polarity. With ``derivatives`` also returns d/dw, d/dt and d/da of the profile.
+    sin(ky c) / (ky c), and the profile is the integral over ky / 2 pi (midpoint rule on a grid fine against
+    1 / W). For W -> infinity it is :func:`transition_response`. Out-of-plane, a narrow track shows more than its
+    transitions: the two long edges where the data meet the erased band carry charge wherever a bit differs from
+    the band, so the field over a bit depends on its polarity. With ``derivatives`` also returns d/dw, d/dt and d/da of the profile.
     """
     kx = np.asarray(kx, float)
     w, wd, a = float(width_m), float(track_width_m), float(along_m)

@@ -183,7 +183,8 @@ def calibrate_tip(gradient_n_per_m: np.ndarray, *, pixel_m: float | tuple[float,
     if pp is not None and plane_std_m and pp.offset_std_m is not None:
         pp = dataclasses.replace(pp, offset_std_m=float(np.hypot(pp.offset_std_m, plane_std_m)))
     return TipCalibration(transfer=est, point_probe=pp, point_probe_error=pp_error, ttf_n_per_a=ttf,
-                          ttf_unc_n_per_a=unc, ring_correlation=rho, scatter_rel=scatter, bias_rel=full_bias, ms_a_per_m=ms_a_per_m,
+                          ttf_unc_n_per_a=unc, ring_correlation=rho, scatter_rel=scatter, bias_rel=full_bias,
+                          ms_a_per_m=ms_a_per_m,
                           ms_std_a_per_m=ms_std, thickness_m=thickness_m, thickness_std_m=t_std, plane_m=plane_m,
                           amplitude_m=amplitude_m, tip_moment=tip_moment, plane_std_m=float(plane_std_m))
 

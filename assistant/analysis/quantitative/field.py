@@ -257,5 +257,6 @@ def reconstruct_field(gradient_n_per_m: np.ndarray, *, pixel_m: float | tuple[fl
     # (measured on synthetic crops: beyond it the Monte Carlo's 2-sigma band held 94-96 % of the pixels)
     margin = 0 if periodic else int(math.ceil(2.0 * math.pi / lo / min(pixel)))
     return FieldMap(hz_a_per_m=hz, hz_std_a_per_m=std, height_m=height, plane_m=plane_m, pixel_m=pixel,
-                    band_k_per_m=band, wiener_gain_min=float(gain[taper > 0].min()), noise_n_per_m=sigma, draws=draws, margin_px=margin,
+                    band_k_per_m=band, wiener_gain_min=float(gain[taper > 0].min()), noise_n_per_m=sigma, draws=draws,
+                    margin_px=margin,
                     signal_outside_band=outside, warnings=tuple(warnings))

@@ -132,7 +132,8 @@ def track_image(*, rows=256, cols=256, pixel_m=8e-9, bit_m=80e-9, jitter_m=3e-9,
     noisy = sub + rng.normal(scale=noise_deg, size=sub.shape)
     return MediaImage(noisy, pixel_m, lift_m, transitions, np.asarray(image_tracks),
                       {"clean_deg": sub, "bit_m": bit_m, "jitter_m": jitter_m, "pitch_m": pitch_m,
-                       "width_m": width_m, "written_width_m": float(np.median(written)), "erase_m": erase_m, "a_m": transition_a_m, "orientation": orientation})
+                       "width_m": width_m, "written_width_m": float(np.median(written)), "erase_m": erase_m,
+                       "a_m": transition_a_m, "orientation": orientation})
 
 
 def domain_image(*, rows=256, cols=256, pixel_m=10e-9, period_m=300e-9, orientation="out-of-plane", lift_m=20e-9,
