@@ -250,6 +250,7 @@ def test_a_series_from_negative_saturation_finds_the_tip_pointing_down():
     r = analyse_loop(st.phase_deg, st.field_a_per_m, topography_m=st.topography_m)
     assert r.tip[0] == -1 and r.to_dict()["tip_reversals_ka_per_m"] == [225.0, -225.0]
     assert any("along -z (down) at the first step" in n for n in r.notes)
+    assert r.notes[0].startswith(f"{r.count} elements found")  # the summaries show the first note on its own line
     assert not any("not saturated" in n for n in r.notes)
     _both_branches_within_one_step(r, st, STEP)
     # told the tip pointed up, the analysis does as told (and finds no switching on the ascending branch)

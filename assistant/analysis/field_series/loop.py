@@ -312,7 +312,9 @@ def analyse_loop(phase_deg: np.ndarray, field_a_per_m: np.ndarray, *, topography
     if tip_moment == "auto" and result.tip[0] < 0:
         notes.append("the tip was magnetised along -z (down) at the first step: inferred from the states, which "
                      "follow the field that way; give the tip's direction to override")
-    notes += _notes(h, m, down_b, up_b, result, elements, drift, measurable, topo, down_fit, up_fit)
+    # the elements found first (the summaries show it on a line of its own), then these, then the rest
+    rest = _notes(h, m, down_b, up_b, result, elements, drift, measurable, topo, down_fit, up_fit)
+    notes = rest[:1] + notes + rest[1:]
     return LoopAnalysis(
         field_a_per_m=h, m_over_ms=m, elements=elements, states=states, contrast_deg=el_deg, noise_deg=noise,
         drift_px=drift, tip=result.tip, tip_reversal_steps=result.reversal_steps, tip_switches=result.tip_switches,
