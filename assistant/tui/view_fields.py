@@ -28,7 +28,7 @@ class FieldSeriesView(View):
     FieldSeriesView #fields-bottom { height: 6; }
     FieldSeriesView #fields-result { width: 1fr; height: 6; }
     FieldSeriesView #fields-bar { height: 1; }
-    FieldSeriesView #fields-message { height: auto; max-height: 3; }
+    FieldSeriesView #fields-message { height: auto; max-height: 8; }
     FieldSeriesView Checkbox { height: 1; border: none; padding: 0; }
     """
 
