@@ -140,21 +140,28 @@ def test_link_fault_leaves_the_served_stage_safe(tmp_path):
     sim.close()
 
 
-def test_interrupted_series_resumes_where_it_stopped(tmp_path):
+def _interrupted(tmp_path, settings: FieldSeriesSettings, lines_done: int):
+    """A field series on the small scenario cancelled after ``lines_done`` lines: (scenario, session path, the
+    stored series at the stop)."""
     scenario = str(small_scenario(tmp_path))
     path = tmp_path / "s.h5"
     cancel = CancelToken()
 
     def stop_mid_step(event):
-        if isinstance(event, Progress) and event.done == 4 * SMALL.lines + 3:
+        if isinstance(event, Progress) and event.done == lines_done:
             cancel.set()
 
     with engaged(scenario=scenario, seed=5) as ctl:
         with SessionFile.create(path, controller_url="sim://", software_version="t") as sf:
             with pytest.raises(Cancelled):
-                run_field_series(ctl, SMALL, writer(sf, SMALL), sink=stop_mid_step, cancel=cancel)
-            before = sf.read_field_series(SMALL.name)
+                run_field_series(ctl, settings, writer(sf, settings), sink=stop_mid_step, cancel=cancel)
+            before = sf.read_field_series(settings.name)
         assert_safe(ctl.stage)
+    return scenario, path, before
+
+
+def test_interrupted_series_resumes_where_it_stopped(tmp_path):
+    scenario, path, before = _interrupted(tmp_path, SMALL, 4 * SMALL.lines + 3)
     assert before.completed_lines == 4 * SMALL.lines + 3 and before.completed_steps == 4
     notices = []
     with engaged(scenario=scenario, seed=5) as ctl:  # a new stage: its dots start unsaturated
@@ -174,18 +181,7 @@ def test_resume_retraces_an_extreme_held_for_two_steps(tmp_path):
     fields = tuple(f * 1e3 for f in (450, 150, -150, -450, -450, -150, 150, 450))
     settings = FieldSeriesSettings(fields_a_per_m=fields, lift_height_m=50e-9, lines=8, pixels=16,
                                    scan_size_m=1.0e-6)
-    scenario = str(small_scenario(tmp_path))
-    path = tmp_path / "s.h5"
-    cancel = CancelToken()
-
-    def stop_mid_step(event):
-        if isinstance(event, Progress) and event.done == 6 * settings.lines + 3:
-            cancel.set()
-
-    with engaged(scenario=scenario, seed=5) as ctl:
-        with SessionFile.create(path, controller_url="sim://", software_version="t") as sf:
-            with pytest.raises(Cancelled):
-                run_field_series(ctl, settings, writer(sf, settings), sink=stop_mid_step, cancel=cancel)
+    scenario, path, _ = _interrupted(tmp_path, settings, 6 * settings.lines + 3)
     set_fields = []
     with engaged(scenario=scenario, seed=5) as ctl:
         set_field = ctl.set_field
