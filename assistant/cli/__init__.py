@@ -41,7 +41,8 @@ def main(argv: list[str] | None = None) -> int:
                              "any applied field 0)\n" if safe else "mfma: interrupted\n")
             return c.EXIT_INTERRUPTED
         if not isinstance(exc, BrokenPipeError):
-            sys.stderr.write(f"mfma: error: {c.one_line(exc)}\n")
+            safe = "; the stage was made safe" if getattr(exc, "stage_made_safe", False) else ""
+            sys.stderr.write(f"mfma: error: {c.one_line(exc)}{safe}\n")
             if getattr(args, "debug", False):
                 raise
         return c.exit_code(exc)

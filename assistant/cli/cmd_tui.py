@@ -29,10 +29,13 @@ def run(args) -> int:
             code = app.return_code  # 1 after a crash of the UI, whatever run() returned
         finally:
             ctl = app.connection_result(timeout_s=120.0)  # waits for the thread; raises what opening raised
-            # The app only exits on its own once the stage is confirmed safe; make sure of it on any other exit.
+            # The app only exits on its own once the stage is confirmed safe; make sure of it on any exit (the
+            # status alone would not say whether a magnet's field is off, and a link fault could keep it silent).
             try:
-                if ctl is not None and not ctl.status().safe:
-                    ctl.make_safe()
+                if ctl is not None:
+                    from assistant.procedures.guard import stop_now
+
+                    stop_now(ctl)
             finally:
                 if app.workflow is not None:
                     app.workflow.close()

@@ -106,23 +106,27 @@ def caused_by_ctrl_c(exc: BaseException | None) -> bool:
 
 @contextlib.contextmanager
 def stop_on_interrupt(controller) -> Iterator[None]:
-    """A Ctrl-C anywhere in the block (:func:`caused_by_ctrl_c`) stops the stage through ``abort()`` and leaves as
-    ``KeyboardInterrupt`` (the command then exits 130). A stop that cannot be confirmed is said on stderr."""
+    """Any exception in the block stops the stage through ``abort()`` (withdrawn, drive off, bias 0 V, field 0)
+    and goes on; a Ctrl-C (:func:`caused_by_ctrl_c`) leaves as ``KeyboardInterrupt`` (the command then exits
+    130). A running step's guard has stopped the stage already, but not an error between two steps with the tip
+    engaged: a session-file write after the approach or before a series (a full disk left the tip engaged, the
+    feedback and the drive on). A stop that cannot be confirmed is said on stderr."""
     try:
         yield
     except BaseException as raised:
-        if not caused_by_ctrl_c(raised):
-            raise
         from assistant.procedures.guard import stop_now
 
-        interrupt = raised if isinstance(raised, KeyboardInterrupt) else KeyboardInterrupt()
+        ctrl_c = caused_by_ctrl_c(raised)
+        leaving = raised if not ctrl_c or isinstance(raised, KeyboardInterrupt) else KeyboardInterrupt()
         try:
             stop_now(controller)
-            interrupt.stage_made_safe = True  # the command's last line may say so
         except Exception as exc:
             import sys
 
             sys.stderr.write(f"mfma: could not confirm a safe stage ({exc}); check the instrument by hand\n")
-        if interrupt is raised:
+        else:
+            with contextlib.suppress(AttributeError):  # the command's last line may say so
+                leaving.stage_made_safe = True
+        if leaving is raised:
             raise
-        raise interrupt from raised
+        raise leaving from raised

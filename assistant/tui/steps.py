@@ -18,6 +18,9 @@ from assistant.tui.bridge import ProcedureEvent, StatusChanged, StepFinished, Wi
 from assistant.tui.view_base import FieldError
 
 
+#: the steps that move the stage (their failures end with a stop, whatever failed)
+MOVING_STEPS = frozenset({"calibrate", "approach", "series", "field series"})
+
 class StepRunner:
     """The steps and workers of the app (a mixin of :class:`~assistant.tui.app.MfmApp`)."""
 
@@ -162,7 +165,19 @@ class StepRunner:
     def _step_worker(self, step: str, fn) -> None:
         try:
             result = fn()
-        except BaseException as exc:  # the step's guard already made the stage safe; report and carry on
+        except BaseException as exc:
+            # a running procedure's guard has made the stage safe, but not a failure around it with the tip
+            # engaged (the approach's record written after its guard ended, a series' file before it began);
+            # the steps that only read or write files leave the stage as it is
+            if self.controller is not None and step in MOVING_STEPS:
+                from assistant.procedures.guard import stop_now
+
+                try:
+                    stop_now(self.controller)
+                except Exception as stop_exc:
+                    self.post_message(StepFinished(step, None, RuntimeError(
+                        f"{exc}; and the stage could not be confirmed safe ({stop_exc}): check the instrument")))
+                    return
             self.post_message(StepFinished(step, None, exc))
             return
         self.post_message(StepFinished(step, result))

@@ -55,9 +55,39 @@ def test_a_ctrl_c_that_compiled_code_turned_into_another_error_still_stops_the_s
             raise SystemError("<cyfunction FastRLock.__exit__> returned a result with an exception set")  # noqa: B904
     assert stage.aborted == 1 and caught.value.stage_made_safe
     assert isinstance(caught.value.__cause__, SystemError)
-    with pytest.raises(ValueError), interrupts.stop_on_interrupt(stage):  # any other error passes untouched
+    # any other error stops the stage as well and leaves as itself (before, it passed untouched, and an error
+    # between two steps, with no step's guard around it, left the tip engaged)
+    with pytest.raises(ValueError) as other, interrupts.stop_on_interrupt(stage):
         raise ValueError("not an interrupt")
-    assert stage.aborted == 1
+    assert stage.aborted == 2 and other.value.stage_made_safe
+
+
+def test_an_error_between_steps_with_the_tip_engaged_leaves_the_stage_safe(tmp_path, monkeypatch, capsys):
+    # the approach's record is written after the approach's guard has ended, with the tip engaged: a full disk
+    # there left the tip engaged, the feedback and the drive on when mfma run exited
+    import errno
+
+    from assistant.cli import main
+    from assistant.storage.session_file import SessionFile
+    from drivers.simulated import SimulatedController
+
+    states = []
+    close = SimulatedController.close
+
+    def closing(self):
+        states.append(self.status())
+        close(self)
+
+    def full_disk(*args, **kwargs):
+        raise OSError(errno.ENOSPC, "No space left on device")
+
+    monkeypatch.setattr(SimulatedController, "close", closing)
+    monkeypatch.setattr(SessionFile, "write_approach", full_disk)
+    code = main(["run", "--lines", "8", "--pixels", "16", "--heights", "20,40", "--thermal-seconds", "0.5",
+                 "--out", str(tmp_path / "out")])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert code == 1 and "No space left on device" in err[-1] and err[-1].endswith("the stage was made safe")
+    assert states and states[-1].safe, states
 
 
 def test_main_exits_130_for_a_ctrl_c_wrapped_by_compiled_code(monkeypatch, capsys):
