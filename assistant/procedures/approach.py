@@ -76,6 +76,9 @@ def approach(controller, settings: ApproachSettings, *, limits: SafetyLimits | N
         controller.withdraw()
         controller.set_drive(settings.drive_frequency_hz, settings.drive_amplitude_v)
         start = controller.status().coarse_position_m
+        # the software limit, or what the controller's own travel leaves from here if that is less (a driver that
+        # does not refuse a step past its travel must not be driven there)
+        allowed = min(limits.coarse_travel_max_m, controller.limits.coarse_travel_max_m - start)
         while True:
             cancel.raise_if_set()
             limits.check_sum(controller.read(["sum_v"])["sum_v"])
@@ -92,15 +95,15 @@ def approach(controller, settings: ApproachSettings, *, limits: SafetyLimits | N
             result.trace_z_m.append(z)
             result.trace_amplitude_v.append(amp)
             travel = pos - start
-            sink(Progress("approach", travel, limits.coarse_travel_max_m, "m", time.monotonic() - t0,
+            sink(Progress("approach", travel, allowed, "m", time.monotonic() - t0,
                           data={"z_m": z, "amplitude_v": amp, "coarse_m": pos}))
             if holds:
                 break
             controller.set_feedback(False)
             controller.withdraw()
-            if travel + settings.search_fraction * z_range > limits.coarse_travel_max_m:
+            if travel + settings.search_fraction * z_range > allowed:
                 raise NoSurfaceFound(
-                    f"no surface within the allowed coarse travel of {limits.coarse_travel_max_m * 1e6:g} µm "
+                    f"no surface within the allowed coarse travel of {allowed * 1e6:g} µm "
                     f"(travelled {travel * 1e6:.1f} µm)")
             controller.step_coarse(max(1, int(settings.search_fraction * z_range / step_m)))
         # Re-centre: retract, move coarse by the distance between found Z and mid-range, re-engage.

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import contextlib
 import dataclasses
+import math
 import os
 import tomllib
 from collections.abc import Callable, Iterator
@@ -32,7 +33,6 @@ class SafetyLimits:
     """Software limits with safe defaults. A lab overrides them in a TOML file (see :func:`load_limits`)."""
 
     bias_max_v: float = 5.0  # |tip bias|
-    z_speed_max_m_per_s: float = 5e-6
     coarse_travel_max_m: float = 300e-6  # coarse travel allowed without finding the surface
     min_sum_v: float = 0.5  # photodetector sum below this means the laser is off the lever
     lift_height_max_m: float = 2e-6
@@ -69,6 +69,14 @@ class SafetyLimits:
             )
 
 
+#: keys a limits file may not set, and why: the software cannot hold the stage to them (a limit it accepted and
+#: did not enforce would make a lab believe it held)
+NOT_SOFTWARE_LIMITS = {
+    "z_speed_max_m_per_s": "the Z speed is the controller's own (move_z takes no speed); set it in the controller "
+                           "or its driver, and remove the key from this file",
+}
+
+
 def default_limits_path() -> Path:
     """``$MFMA_CONFIG_DIR/limits.toml`` or the user config folder's ``limits.toml``."""
     base = os.environ.get("MFMA_CONFIG_DIR")
@@ -93,10 +101,12 @@ def load_limits(path: str | os.PathLike | None = None) -> SafetyLimits:
         raise LimitsFileError(f"limits file {p}: {exc}") from None
     fields = {f.name for f in dataclasses.fields(SafetyLimits)}
     for key, value in table.items():
+        if key in NOT_SOFTWARE_LIMITS:
+            raise LimitsFileError(f"limits file {p}: {key}: {NOT_SOFTWARE_LIMITS[key]}")
         if key not in fields:
             raise LimitsFileError(f"limits file {p}: unknown key {key!r} (known: {', '.join(sorted(fields))})")
-        if not isinstance(value, (int, float)) or isinstance(value, bool) or not value > 0:
-            raise LimitsFileError(f"limits file {p}: {key} must be a positive number, got {value!r}")
+        if not isinstance(value, (int, float)) or isinstance(value, bool) or not (value > 0 and math.isfinite(value)):
+            raise LimitsFileError(f"limits file {p}: {key} must be a finite number > 0, got {value!r}")
     return SafetyLimits(**{k: float(v) for k, v in table.items()})
 
 

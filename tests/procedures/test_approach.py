@@ -3,6 +3,8 @@ safe when it gives up or is cancelled."""
 
 from __future__ import annotations
 
+import dataclasses
+
 import pytest
 
 from assistant.procedures.approach import ApproachSettings, NoSurfaceFound, approach
@@ -41,6 +43,17 @@ def test_gives_up_within_the_allowed_travel_and_leaves_the_stage_safe():
         settings = _settings(ctl)
         with pytest.raises(NoSurfaceFound, match="allowed coarse travel of 20 µm"):
             approach(ctl, settings, limits=SafetyLimits(coarse_travel_max_m=20e-6))
+        assert ctl.status().safe and ctl.status().coarse_position_m <= 20e-6
+
+
+def test_the_controllers_own_travel_bounds_the_approach_when_the_software_limit_is_wider():
+    # a limits file may allow more coarse travel than the motor has; the approach then stops within the motor's
+    # own travel instead of relying on the driver to refuse a step past it
+    with open_small(seed=1) as ctl:
+        settings = _settings(ctl)
+        ctl.limits = dataclasses.replace(ctl.limits, coarse_travel_max_m=20e-6)
+        with pytest.raises(NoSurfaceFound, match="allowed coarse travel of 20 µm"):
+            approach(ctl, settings, limits=SafetyLimits(coarse_travel_max_m=1.0))
         assert ctl.status().safe and ctl.status().coarse_position_m <= 20e-6
 
 

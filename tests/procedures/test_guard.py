@@ -83,8 +83,13 @@ def test_limits_file(tmp_path):
     f.write_text("bias_max = 1.5\n")
     with pytest.raises(LimitsFileError, match="unknown key 'bias_max'"):
         load_limits(f)
-    f.write_text("bias_max_v = -1\n")
-    with pytest.raises(LimitsFileError, match="positive"):
+    for bad in ("bias_max_v = -1", "bias_max_v = inf", "field_max_a_per_m = nan"):
+        f.write_text(bad + "\n")
+        with pytest.raises(LimitsFileError, match="finite number > 0"):  # an infinite limit is none
+            load_limits(f)
+    # a limit the software cannot hold the stage to is refused, not accepted and ignored
+    f.write_text("z_speed_max_m_per_s = 1e-6\n")
+    with pytest.raises(LimitsFileError, match="the Z speed is the controller's own"):
         load_limits(f)
     with pytest.raises(LimitsFileError, match="does not exist"):
         load_limits(tmp_path / "missing.toml")
