@@ -19,11 +19,12 @@ with a prior of 0.1 one such run read 17 deg.
 from __future__ import annotations
 
 import dataclasses
+import re
 from dataclasses import dataclass
 
 import numpy as np
 
-from .image_means import _vertex_chi2, cpd_sentence, plus_minus
+from .image_means import _vertex_chi2, plus_minus
 from .phase import SignalSpace
 
 __all__ = ["DriveOffset", "fit_drive_offset", "with_offset_error", "drive_offset_sentence"]
@@ -176,10 +177,13 @@ def with_offset_error(a, lo, hi, found: DriveOffset, space: SignalSpace):
         return np.sqrt(np.clip(var, 0.0, None))
 
     cpd_std_v = float(wider("cpd_v", "cpd_std_v"))
-    biases = np.asarray(a.bias_v).size
+    # the sentence's V_cpd rebuilt with the whole error the results now hold (noise, offset and model), as every
+    # output states it; it was written before the offset's share was known
+    whole = float(np.hypot(cpd_std_v, a.cpd_model_std_v or 0.0))
+    sentence = re.sub(r"V_cpd = [^;]* mV;", lambda _: f"V_cpd = {plus_minus(1e3 * a.cpd_v, 1e3 * whole)} mV;",
+                      a.separability_sentence, count=1)
     return dataclasses.replace(
-        a, separability_sentence=a.separability_sentence.replace(
-            cpd_sentence(biases, a.cpd_v, a.cpd_std_v), cpd_sentence(biases, a.cpd_v, cpd_std_v), 1),
+        a, separability_sentence=sentence,
         magnetic_rms_std_deg=wider("magnetic_rms_deg", "magnetic_rms_std_deg"),
         electrostatic_mean_std_deg=wider("electrostatic_mean_deg", "electrostatic_mean_std_deg"),
         short_range_mean_std_deg=wider("short_range_mean_deg", "short_range_mean_std_deg"),

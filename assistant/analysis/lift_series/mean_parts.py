@@ -11,7 +11,8 @@ Smythe 1968, plus the Hudlet et al. 1998 cone, Eur. Phys. J. B 2, 5) and the sho
 Hamaker 1937, Physica 4, 1058), both averaged over the oscillation (Giessibl 2001, Appl. Phys. Lett. 78, 123),
 depends on the tip. From heights alone the split rests on the shapes of those curves, so it is fitted with
 every plausible tip (cone or none, radius within its uncertainty, and where the file does not state them the
-amplitude and the gap offset over a range), the fits are averaged with weights ``exp(-chi2 / (2 B^2))`` (equal
+amplitude and the gap offset over a range: :mod:`.tip_candidates`), each fit holding both parts attractive,
+the fits are averaged with weights ``exp(-chi2 / (2 B^2))`` (equal
 priors; the chi-square of each tip model against the measured means, tempered by the Birge ratio ``B`` of the
 best one, so that where no model fits within noise the weights do not single one out), and the split's
 uncertainty has three parts: the noise (propagated to first order through the whole procedure, so it is the
@@ -31,33 +32,12 @@ from assistant.analysis.cosine import dctn
 from . import image_mean_models as lm
 from .image_means import fit_mean_bias_grid
 from .probe import ASSUMED_AMPLITUDE_M, TIP_RADIUS_REL_STD
+from .tip_candidates import AMPLITUDE_RANGE_FACTOR, MIN_CLOSEST_APPROACH_M, TipCandidate, candidates, shapes
 
 __all__ = ["TipCandidate", "MeanParts", "split_heights_only", "split_bias_grid", "magnetic_window_mean_cov",
            "ASSUMED_AMPLITUDE_M", "AMPLITUDE_RANGE_FACTOR", "TIP_RADIUS_REL_STD"]
 
-AMPLITUDE_RANGE_FACTOR = 2.0  # small and large amplitude: a factor of two either way (no source)
 SECANT_WIDTH = 1.5  # half-width of the secants that propagate the noise through the split [standard errors]
-GAP_OFFSET_LOW_FRACTION = 0.5   # lowest first-pass setpoint ratio considered when the offset is not given
-
-
-@dataclass(frozen=True)
-class TipCandidate:
-    """One tip model of the average: geometry and operation, its fit and its weight."""
-
-    cone_half_angle_deg: float | None
-    radius_m: float                 # of the electrostatic apex
-    short_range_radius_m: float     # of the van der Waals sphere
-    amplitude_m: float
-    gap_offset_m: float
-    reduced_chi2: float = float("nan")
-    weight: float = 0.0
-    hudlet_apex: bool = False       # the apex as Hudlet et al.'s closed form instead of the exact sphere series
-
-    def to_dict(self) -> dict:
-        return {"cone_half_angle_deg": self.cone_half_angle_deg, "hudlet_apex": float(self.hudlet_apex),
-                "radius_nm": self.radius_m * 1e9,
-                "short_range_radius_nm": self.short_range_radius_m * 1e9, "amplitude_nm": self.amplitude_m * 1e9,
-                "gap_offset_nm": self.gap_offset_m * 1e9, "reduced_chi2": self.reduced_chi2, "weight": self.weight}
 
 
 @dataclass(frozen=True)
@@ -120,71 +100,12 @@ def magnetic_window_mean_cov(model: np.ndarray) -> np.ndarray:
     return np.einsum("hq,jq,q->hj", c, c, w) / (rows * cols)
 
 
-def _candidates(*, radius_m, radius_rel_std, cone_half_angle_deg, amplitude_m, gap_offset_m):
-    # the electrostatic and the short-range radius vary independently: the apex that the field lines see
-    # (coating, cone, contamination) need not be the sphere that the van der Waals force sees, and with one
-    # radius for both an apex model that the set lacks (Hudlet's, on 256 x 256 synthetic crops) was matched
-    # by a wrong radius that carried the short-range part 3.6 of its uncertainties off
-    cones = [cone_half_angle_deg if cone_half_angle_deg is not None else 15.0, None]
-    radii = [radius_m * (1.0 - radius_rel_std), radius_m, radius_m * (1.0 + radius_rel_std)]
-    amps = ([amplitude_m] if amplitude_m is not None
-            else [ASSUMED_AMPLITUDE_M / AMPLITUDE_RANGE_FACTOR, ASSUMED_AMPLITUDE_M,
-                  ASSUMED_AMPLITUDE_M * AMPLITUDE_RANGE_FACTOR])
-    out = []
-    for amp in amps:
-        gaps = [gap_offset_m] if gap_offset_m is not None else [GAP_OFFSET_LOW_FRACTION * amp, amp]
-        for gap in gaps:
-            for cone in cones:
-                for r in radii:
-                    for rv in radii:
-                        for hudlet in (False, True):
-                            out.append(TipCandidate(cone, float(r), float(rv), float(amp), float(gap),
-                                                    hudlet_apex=hudlet))
-    return out
-
-
-def _electrostatic(z, c: TipCandidate, cone_height_m: float):
-    """``1/2 C''(z)`` of a candidate tip: the exact sphere series (Smythe 1968) or Hudlet et al.'s closed-form
-    apex (1998, Eur. Phys. J. B 2, 5), with or without their cone."""
-    if not c.hudlet_apex:
-        return 0.5 * lm.tip_capacitance_second_derivative_f_per_m2(
-            z, radius_m=c.radius_m, cone_half_angle_deg=c.cone_half_angle_deg, cone_height_m=cone_height_m)
-    angle = 0.0 if c.cone_half_angle_deg is None else c.cone_half_angle_deg
-    out = lm.hudlet_apex_gradient_n_per_m(z, radius_m=c.radius_m, voltage_v=1.0, cone_half_angle_deg=angle)
-    if c.cone_half_angle_deg is not None:
-        out = out + lm.hudlet_cone_gradient_n_per_m(z, radius_m=c.radius_m, voltage_v=1.0,
-                                                    cone_half_angle_deg=angle, cone_height_m=cone_height_m)
-    return out
-
-
-def _shapes(cands, heights_m, cone_height_m):
-    """Normalised electrostatic and short-range shapes (M, H) of the candidates that keep the tip off the
-    surface (each shape computed once), and those candidates."""
-    cache, keep, es, ss = {}, [], [], []
-
-    def shape(key, fun, dc, amp):
-        if key not in cache:
-            v = lm.amplitude_weighted(fun, dc, amplitude_m=amp)
-            cache[key] = v / v[0]
-        return cache[key]
-
-    for c in cands:
-        try:
-            dc = lm.centre_gap_m(heights_m, amplitude_m=c.amplitude_m, gap_offset_m=c.gap_offset_m)
-        except ValueError:  # the tip would touch the surface at the lowest height: not a plausible model
-            continue
-        op = (c.amplitude_m, c.gap_offset_m)
-        es.append(shape(("e", c.hudlet_apex, c.cone_half_angle_deg, c.radius_m) + op,
-                        lambda z, c=c: _electrostatic(z, c, cone_height_m), dc, c.amplitude_m))
-        ss.append(shape(("s", c.short_range_radius_m) + op, lambda z, c=c: lm.vdw_sphere_gradient_n_per_m(
-            z, hamaker_j=1.0, radius_m=c.short_range_radius_m), dc, c.amplitude_m))
-        keep.append(c)
-    return keep, np.array(es), np.array(ss)
-
-
-def _average(y, cinv, e, s):
+def _average(y, cinv, e, s, sign=1.0):
     """Model-averaged split of ``y`` (..., H) over M tip models (shapes ``e``, ``s`` (M, H)), generalised least
     squares with the inverse covariance ``cinv`` (H, H) of the means; any leading axes are separate data sets.
+    Both parts attract (Hudlet et al. 1998; Hamaker 1937), so each model's two amplitudes are held to the sign
+    ``sign`` of an attractive part (non-negative least squares, as :func:`.image_means.fit_mean_heights`):
+    of the free fit, either part alone and neither, the one that keeps the signs with the least chi-square.
 
     Returns the electrostatic part (..., H), the spread over the models (..., H), chi2 (..., M), the weights
     (..., M) and the Birge factor ``B^2`` (...).
@@ -197,8 +118,16 @@ def _average(y, cinv, e, s):
     r1 = cy @ e.T
     r2 = cy @ s.T
     det = a11 * a22 - a12**2
-    alpha = (a22 * r1 - a12 * r2) / det
-    beta = (a11 * r2 - a12 * r1) / det
+    zero = np.zeros_like(r1)
+    options = [((a22 * r1 - a12 * r2) / det, (a11 * r2 - a12 * r1) / det), (r1 / a11, zero), (zero, r2 / a22),
+               (zero, zero)]
+    # chi-square up to the constant y' C^-1 y, which all options share
+    costs = [np.where((sign * al >= 0) & (sign * be >= 0),
+                      al * al * a11 + 2 * al * be * a12 + be * be * a22 - 2 * (al * r1 + be * r2), np.inf)
+             for al, be in options]
+    best = np.argmin(np.stack(costs), axis=0)
+    alpha = np.choose(best, [o[0] for o in options])
+    beta = np.choose(best, [o[1] for o in options])
     es_m = alpha[..., None] * e
     sr_m = beta[..., None] * s
     resid = y[..., None, :] - es_m - sr_m
@@ -261,14 +190,14 @@ def split_heights_only(total, total_std, magnetic_mean_cov, *, heights_m, tip_ra
     mm = np.sqrt(np.clip(np.diag(cmm), 0.0, None))
     h = np.asarray(heights_m, float)
     deg = (lambda x: np.asarray(x, float)) if to_deg is None else to_deg
-    cands, e, s = _shapes(_candidates(radius_m=tip_radius_m, radius_rel_std=tip_radius_rel_std,
-                                      cone_half_angle_deg=cone_half_angle_deg, amplitude_m=amplitude_m,
-                                      gap_offset_m=gap_offset_m), h, cone_height_m)
+    every = candidates(radius_m=tip_radius_m, radius_rel_std=tip_radius_rel_std,
+                       cone_half_angle_deg=cone_half_angle_deg, amplitude_m=amplitude_m, gap_offset_m=gap_offset_m)
+    cands, e, s, too_close = shapes(every, h, cone_height_m)
     if not cands:
         raise ValueError("no tip model keeps the tip off the surface at the lowest height")
     cov = np.diag(sd**2) + cmm
     cinv = np.linalg.inv(cov if weight_std is None else np.diag(np.asarray(weight_std, float) ** 2) + cmm)
-    es, spread, chi2, wts, b2, model_fit = _average(y, cinv, e, s)
+    es, spread, chi2, wts, b2, model_fit = _average(y, cinv, e, s, attractive_sign)
     b2 = float(b2)
     # noise propagated through the whole procedure by central secants 1.5 standard errors wide (statistical
     # linearisation: the model weights bend on that scale). Scatter of the split over 300 draws of the means
@@ -280,7 +209,8 @@ def split_heights_only(total, total_std, magnetic_mean_cov, *, heights_m, tip_ra
     for j in range(nh):
         step = np.zeros(nh)
         step[j] = SECANT_WIDTH * sd[j]
-        jac[:, j] = (_average(y + step, cinv, e, s)[0] - _average(y - step, cinv, e, s)[0]) / (2.0 * step[j])
+        up, down = (_average(y + d, cinv, e, s, attractive_sign)[0] for d in (step, -step))
+        jac[:, j] = (up - down) / (2.0 * step[j])
     jsr = np.eye(nh) - jac
     es_sd = np.sqrt(np.clip(np.einsum("hj,j,hj->h", jac, sd**2, jac), 0.0, None))
     sr_sd = np.sqrt(np.clip(np.einsum("hj,j,hj->h", jsr, sd**2, jsr), 0.0, None))
@@ -293,15 +223,17 @@ def split_heights_only(total, total_std, magnetic_mean_cov, *, heights_m, tip_ra
     sr = y - es
     dof = max(nh - 2, 1)
     red = float(chi2.min()) / dof
-    candidates = tuple(TipCandidate(c.cone_half_angle_deg, c.radius_m, c.short_range_radius_m, c.amplitude_m,
-                                    c.gap_offset_m, float(x / dof), float(wt), c.hudlet_apex)
-                       for c, x, wt in zip(cands, chi2, wts))
+    fitted = tuple(TipCandidate(c.cone_half_angle_deg, c.radius_m, c.short_range_radius_m, c.amplitude_m,
+                                c.gap_offset_m, float(x / dof), float(wt), c.hudlet_apex)
+                   for c, x, wt in zip(cands, chi2, wts))
 
     # separability at the lowest height, everything included
     tot0 = abs(y[0])
     u_es, u_sr = np.sqrt(es_tot2[0]), np.sqrt(sr_tot2[0])
     worst = max(u_es, u_sr)
-    separable = bool(abs(es[0]) > 2.0 * u_es and abs(sr[0]) > 2.0 * u_sr and worst <= separation_tolerance * tot0)
+    # each part attractive beyond twice its uncertainty: a part of the wrong sign is never a separated part
+    separable = bool(attractive_sign * es[0] > 2.0 * u_es and attractive_sign * sr[0] > 2.0 * u_sr
+                     and worst <= separation_tolerance * tot0 and not too_close)
     h0 = h[0] * 1e9
     radii = sorted({c.radius_m for c in cands})
     geometry = (f"exact sphere or Hudlet apex, cone or none, apex and van der Waals radii each "
@@ -311,16 +243,18 @@ def split_heights_only(total, total_std, magnetic_mean_cov, *, heights_m, tip_ra
         assumed["amplitude_nm"] = ASSUMED_AMPLITUDE_M * 1e9
         geometry += ", amplitude {:.3g}-{:.3g} nm".format(ASSUMED_AMPLITUDE_M / AMPLITUDE_RANGE_FACTOR * 1e9,
                                                           ASSUMED_AMPLITUDE_M * AMPLITUDE_RANGE_FACTOR * 1e9)
-        amp_range = _amplitude_range(y, cinv, cands, e, s, deg)
+        amp_range = _amplitude_range(y, cinv, cands, e, s, deg, attractive_sign)
         lo, hi = amp_range["electrostatic_mean_deg"][0][0], amp_range["electrostatic_mean_deg"][1][0]
         extra.append(f"The oscillation amplitude was not given: {ASSUMED_AMPLITUDE_M * 1e9:.3g} nm was assumed; "
                      f"between {amp_range['amplitude_nm'][0]:.3g} and {amp_range['amplitude_nm'][1]:.3g} nm the "
                      f"electrostatic part at {h0:.4g} nm moves from {lo:.3g} to {hi:.3g} deg.")
     if gap_offset_m is None:
-        assumed["gap_offset"] = "the amplitude (closest approach = lift height)"
-        geometry += ", gap offset half to all of the amplitude"
-        extra.append("The gap offset was not given: the closest approach was taken as the lift height, and "
-                     "offsets down to half the amplitude enter the split's uncertainty.")
+        gaps = sorted({c.gap_offset_m for c in cands})
+        geometry += f", gap offset {gaps[0] * 1e9:.3g}-{gaps[-1] * 1e9:.3g} nm"
+        left_out = len({(c.amplitude_m, c.gap_offset_m) for c in every}) - len(
+            {(c.amplitude_m, c.gap_offset_m) for c in cands})
+        assumed["gap_offset"], words_gap = _offset_words(fitted, h[0], tried=len(gaps), left_out=left_out)
+        extra.append(words_gap)
     # in degrees for the sentence
     es0, sr0, t0 = float(deg(es[0])), float(deg(sr[0])), float(deg(y[0]))
     fit_words = (f"The image-mean model fits the measured means within their uncertainty (noise and magnetic "
@@ -343,26 +277,46 @@ def split_heights_only(total, total_std, magnetic_mean_cov, *, heights_m, tip_ra
                      "model uncertainty included, so only their sum, the measured non-magnetic mean, is reliable. "
                      "Measure at three or more tip biases to separate them.")
     for name, part, u in (("electrostatic", es[0], u_es), ("short-range", sr[0], u_sr)):
-        if attractive_sign * part < -2.0 * u:
-            words.append(f"The {name} part came out repulsive, which it cannot be: the tip models do not describe "
-                         "these means.")
+        if attractive_sign * part < 0.0:
+            words.append(f"The {name} part came out repulsive ({float(deg(part)):.3g} deg at {h0:.4g} nm), which it "
+                         "cannot be" + (": the tip models do not describe these means." if attractive_sign * part
+                                        < -2.0 * u else ", though within twice its uncertainty of zero."))
+    if too_close:
+        words.append(f"Every tip model brings the tip within {MIN_CLOSEST_APPROACH_M * 1e9:.3g} nm of the surface "
+                     f"at {h0:.4g} nm, where the models no longer describe a tip: the split is not reliable.")
     words += extra
     return MeanParts(total=y, total_std=sd, total_model_std=mm, electrostatic=es, electrostatic_std=es_sd,
                      electrostatic_model_std=es_model, short_range=sr, short_range_std=sr_sd,
                      short_range_model_std=sr_model, correlation=corr, reduced_chi2=red, birge_ratio=float(np.sqrt(b2)),
-                     separable=separable, sentence=" ".join(words), model_fit=model_fit, candidates=candidates,
+                     separable=separable, sentence=" ".join(words), model_fit=model_fit, candidates=fitted,
                      assumed=assumed,
                      amplitude_range=amp_range)
 
 
-def _amplitude_range(y, cinv, cands, e, s, deg):
+def _offset_words(fitted, lowest_m: float, *, tried: int, left_out: int) -> tuple[str, str]:
+    """The gap offset and closest approach of the tip models that carry the weight (weighted means), for the
+    assumed values and the sentence."""
+    w = np.array([c.weight for c in fitted])
+    gap = float(w @ [c.gap_offset_m for c in fitted]) * 1e9
+    close = float(w @ [c.closest_approach_m(lowest_m) for c in fitted]) * 1e9
+    h0 = lowest_m * 1e9
+    assumed = f"{gap:.3g} nm, the tip models' weighted mean (closest approach {close:.3g} nm at {h0:.4g} nm lift)"
+    near = (f" ({left_out} more would bring the tip within {MIN_CLOSEST_APPROACH_M * 1e9:.3g} nm of the surface "
+            f"and {'was' if left_out == 1 else 'were'} left out)" if left_out else "")
+    words = (f"The gap offset was not given: {tried} offsets between half and all of the amplitude were tried{near}; "
+             f"weighted by their fit they put it at {gap:.3g} nm, the closest approach at {close:.3g} nm at "
+             f"{h0:.4g} nm lift, and their spread enters the split's uncertainty.")
+    return assumed, words
+
+
+def _amplitude_range(y, cinv, cands, e, s, deg, sign):
     """Split at the lowest and the highest amplitude of the range (averaged over the other tip parameters)."""
     amps = sorted({c.amplitude_m for c in cands})
     out = {"amplitude_nm": [amps[0] * 1e9, amps[-1] * 1e9], "electrostatic_mean_deg": [],
            "short_range_mean_deg": []}
     for amp in (amps[0], amps[-1]):
         sel = np.array([c.amplitude_m == amp for c in cands])
-        es = _average(y, cinv, e[sel], s[sel])[0]
+        es = _average(y, cinv, e[sel], s[sel], sign)[0]
         out["electrostatic_mean_deg"].append([float(v) for v in deg(es)])
         out["short_range_mean_deg"].append([float(v) for v in deg(y - es)])
     return out

@@ -170,8 +170,23 @@ def test_the_offset_error_is_in_the_errors_of_what_was_inverted_with_it(monkeypa
     assert np.allclose(a.electrostatic_mean_deg, b.electrostatic_mean_deg, rtol=0, atol=1e-12)
     # the sentence states the error the results hold, the offset's share included
     for x in (a, b):
-        assert f"V_cpd = {plus_minus(1e3 * x.cpd_v, 1e3 * x.cpd_std_v)} mV;" in x.separability_sentence
+        whole = np.hypot(x.cpd_std_v, x.cpd_model_std_v or 0.0)
+        assert f"V_cpd = {plus_minus(1e3 * x.cpd_v, 1e3 * whole)} mV;" in x.separability_sentence
     assert plus_minus(1e3 * a.cpd_v, 1e3 * a.cpd_std_v) != plus_minus(1e3 * b.cpd_v, 1e3 * b.cpd_std_v)
+
+
+def test_the_sentence_and_the_results_state_one_v_cpd_error():
+    # means that wander from image to image (0.002 deg) make the parabolas' Birge ratio exceed one, so V_cpd has
+    # a model share; before, the sentence kept the error from before the offset's share was added
+    # (349.995 ± 0.040 mV) while the results held 0.056 mV of noise, offset and model together
+    s = build_series(rows=96, cols=96, heights_m=HEIGHTS, noise_deg=0.03, magnetic_scale=0.45, bias_v=BIASES,
+                     spring_constant_n_per_m=K, quality_factor=Q, resonance_hz=F0, drive_detuning_hz=-3.5, seed=3)
+    phase = s.phase_deg + np.random.default_rng(3).normal(scale=0.002, size=s.phase_deg.shape[:2] + (1, 1))
+    a = analyse_series(phase, heights_m=s.heights_m, pixel_m=s.pixel_m, bias_v=s.bias_v, edge="periodic",
+                       **s.analysis_kwargs)
+    assert a.cpd_model_std_v > 0.5 * a.cpd_std_v  # the case in question: a model share
+    whole = np.hypot(a.cpd_std_v, a.cpd_model_std_v)
+    assert f"V_cpd = {plus_minus(1e3 * a.cpd_v, 1e3 * whole)} mV;" in a.separability_sentence
 
 
 def test_plus_minus_writes_the_value_to_the_place_of_its_error():
