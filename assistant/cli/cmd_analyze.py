@@ -134,7 +134,7 @@ def thermal(args) -> int:
         write_thermal_figure(result, _png_path(args.plot))
     d = result.to_dict()
     if args.json:
-        emit_json(d)
+        emit_json({**d, "warnings": list(result.warnings)})
         return 0
     from assistant.formatting import number, quantity
 
@@ -193,7 +193,7 @@ def sader(args) -> int:
                               temperature_k=args.temperature_k, pressure_pa=args.pressure_pa)
     d = r.to_dict()
     if args.json:
-        emit_json(d)
+        emit_json({**d, "warnings": list(r.warnings)})
         return 0
     from assistant.formatting import number, quantity
 
