@@ -23,7 +23,7 @@ from assistant.analysis import calibration as cal
 from assistant.errors import AssistantError
 from assistant.procedures.acquire import drive_sweep, thermal_chunks
 from assistant.procedures.events import CancelToken, Notice, Progress, Sink, null_sink
-from assistant.procedures.guard import SafetyLimits, safety_guard
+from assistant.procedures.guard import SafetyError, SafetyLimits, safety_guard
 
 #: Ratio of true first-mode end displacement to the static-InvOLS reading (Butt & Jaschke 1995):
 #: chi = sqrt(0.970688 / 0.817434) = 1.0897.
@@ -172,6 +172,23 @@ def _dimensions(controller, settings: CalibrationSettings) -> tuple[float | None
     return length, width, "nominal (from the controller's probe data)" if length and width else "missing"
 
 
+def _check_drives(controller, settings: CalibrationSettings, limits: SafetyLimits) -> None:
+    """Refuse, before anything moves, a drive the calibration would apply outside the software or the controller's
+    limit: the sweep's drive (also the contact approach's); the working drive is capped by the same limits."""
+    from assistant.formatting import quantity
+
+    hard = controller.limits.drive_max_v
+    if settings.sweep_drive_v > hard:
+        raise SafetyError(f"calibration sweep drive {quantity(settings.sweep_drive_v, 'V')} exceeds the "
+                          f"controller's drive limit {quantity(hard, 'V')}: lower the sweep drive")
+    try:
+        limits.check_drive(settings.sweep_drive_v)
+    except SafetyError:
+        raise SafetyError(f"calibration sweep drive {quantity(settings.sweep_drive_v, 'V')} exceeds the software "
+                          f"drive limit {quantity(limits.drive_amplitude_max_v, 'V')} (drive_amplitude_max_v): "
+                          f"lower the sweep drive") from None
+
+
 def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits | None = None,
               sink: Sink = null_sink, cancel: CancelToken | None = None) -> CalibrationResult:
     """Run the whole calibration on a withdrawn stage. Runs inside the safety guard."""
@@ -179,6 +196,7 @@ def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits
     settings.validate()
     limits = limits or SafetyLimits()
     cancel = cancel or CancelToken()
+    _check_drives(controller, settings, limits)
     notes: list[str] = []
 
     def note(level: str, text: str) -> None:
