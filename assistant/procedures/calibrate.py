@@ -255,8 +255,10 @@ def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits
             invols, invols_std, invols_source = user_invols, user_invols_std, source_inv
             if sader is not None:
                 k, k_std, k_source = sader.k_n_per_m, sader.k_std_n_per_m, "Sader method"
-                diff = thermal_k.k_n_per_m - sader.k_n_per_m
-                sigma = math.hypot(thermal_k.k_std_n_per_m, sader.k_std_n_per_m)
+                # ln(kT / kS): both use the fit's f0, Q (and kT its peak area), so they are propagated together
+                diff = math.log(thermal_k.k_n_per_m / sader.k_n_per_m)
+                sigma = math.sqrt(cal.sader_and_area_log_variance(fit, sader, settings.temperature_k)
+                                  + (2 * user_invols_std / user_invols) ** 2)
                 agree = abs(diff) <= 2 * sigma
                 check = {"k_n_per_m": thermal_k.k_n_per_m, "k_std_n_per_m": thermal_k.k_std_n_per_m,
                          "difference_sigma": diff / sigma, "agree": agree}
@@ -272,7 +274,7 @@ def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits
         elif sader is not None:
             k, k_std, k_source = sader.k_n_per_m, sader.k_std_n_per_m, "Sader method"
             thermal_result = cal.calibrate_thermal(fit, temperature_k=settings.temperature_k, k_n_per_m=k,
-                                                   k_std_n_per_m=k_std)
+                                                   sader=sader)
             invols, invols_std = thermal_result.invols_m_per_v, thermal_result.invols_std_m_per_v
             invols_source = "non-contact: thermal peak area with the Sader k (Higgins et al. 2006)"
             note("info", "non-contact path: k from Sader, InvOLS from the thermal spectrum — one k, no "
