@@ -132,7 +132,8 @@ def thermal(args) -> int:
     else:
         volts, rate = _load_record(p, args.rate)
         t_k, t_source = (args.temperature_k, "given") if args.temperature_k else (ASSUMED_TEMPERATURE_K, "assumed")
-        fit = analyse_thermal_record(volts, rate, temperature_k=t_k, detection=args.detection).fit
+        fit = analyse_thermal_record(volts, rate, temperature_k=t_k, detection=args.detection,
+                                     f0_guess_hz=args.f0_hz_guess).fit
         result = calibrate_thermal(fit, temperature_k=t_k, detection=args.detection, **known)
     if args.plot:
         from assistant.report.calibration_figures import write_thermal_figure
@@ -195,7 +196,8 @@ def _thermal_from_session(p: Path, args, known: dict):
         t_k, source = float(stored), "session"
     else:
         t_k, source = ASSUMED_TEMPERATURE_K, "assumed"
-    return calibrate_thermal(stored_thermal_fit(rec), temperature_k=t_k, detection=args.detection, **known), source
+    fit = stored_thermal_fit(rec, f0_guess_hz=args.f0_hz_guess)
+    return calibrate_thermal(fit, temperature_k=t_k, detection=args.detection, **known), source
 
 
 # ---- sader ---------------------------------------------------------------------------------------------------

@@ -128,6 +128,24 @@ def test_thermal_reanalysis_of_a_session_uses_its_recorded_temperature(tmp_path,
     assert "295.1 K assumed: give the lever's temperature with --temperature-k" in capsys.readouterr().out
 
 
+def test_thermal_fit_starts_at_the_given_resonance(tmp_path, capsys):
+    # two oscillator peaks (formula in assistant.analysis.calibration.thermal_fit): the search takes the one of the
+    # larger area (150 kHz); --f0-hz-guess 75000 starts the fit at the other
+    from assistant.analysis.calibration import oscillator_psd
+    from assistant.storage import SessionFile
+
+    fs = np.linspace(0, 1e6, 2**15 + 1)
+    psd = (oscillator_psd(fs, f0_hz=75e3, q=100.0, a0_v2_per_hz=2e-14, white_v2_per_hz=1e-16)
+           + oscillator_psd(fs, f0_hz=150e3, q=100.0, a0_v2_per_hz=3e-14))
+    session = tmp_path / "two.h5"
+    with SessionFile.create(session, controller_url="sim://", software_version="0") as s:
+        s.write_calibration({"spectrum_segments": 20}, {"spectrum_frequency_hz": fs, "spectrum_psd_v2_per_hz": psd})
+    assert main(["analyze", "thermal", str(session), "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)["f0_hz"] == pytest.approx(150e3, rel=1e-3)
+    assert main(["analyze", "thermal", str(session), "--f0-hz-guess", "75000", "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)["f0_hz"] == pytest.approx(75e3, rel=1e-3)
+
+
 def test_messages_in_the_users_terms(tmp_path, capsys):
     fake = tmp_path / "fake.h5"
     fake.write_text("hello")
