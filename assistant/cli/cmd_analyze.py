@@ -111,6 +111,11 @@ def _load_record(p: Path, rate_hz: float | None):
                      f"a .csv (volts, or time_s,volts) or a session file (.h5)")
 
 
+ASSUMED_TEMPERATURE_K = 295.15  # a typical lab (22 C), as the calibration procedure assumes when nothing is known
+TEMPERATURE_SOURCES = {"given": "", "session": " as the session recorded it",
+                       "assumed": " assumed: give the lever's temperature with --temperature-k"}
+
+
 def thermal(args) -> int:
     from assistant.analysis.calibration import analyse_thermal_record, calibrate_thermal
 
@@ -123,25 +128,28 @@ def thermal(args) -> int:
     known = {"invols_m_per_v": invols, "k_n_per_m": args.k, "k_std_n_per_m": args.k_std or 0.0,
              "invols_std_m_per_v": (args.invols_std or 0.0) * 1e-9}
     if _is_hdf5(p):
-        result = _thermal_from_session(p, args, known)
+        result, t_source = _thermal_from_session(p, args, known)
     else:
         volts, rate = _load_record(p, args.rate)
-        fit = analyse_thermal_record(volts, rate, temperature_k=args.temperature_k, detection=args.detection).fit
-        result = calibrate_thermal(fit, temperature_k=args.temperature_k, detection=args.detection, **known)
+        t_k, t_source = (args.temperature_k, "given") if args.temperature_k else (ASSUMED_TEMPERATURE_K, "assumed")
+        fit = analyse_thermal_record(volts, rate, temperature_k=t_k, detection=args.detection,
+                                     f0_guess_hz=args.f0_hz_guess).fit
+        result = calibrate_thermal(fit, temperature_k=t_k, detection=args.detection, **known)
     if args.plot:
         from assistant.report.calibration_figures import write_thermal_figure
 
         write_thermal_figure(result, _png_path(args.plot))
     d = result.to_dict()
     if args.json:
-        emit_json(d)
+        emit_json({**d, "warnings": list(result.warnings)})
         return 0
     from assistant.formatting import number, quantity
 
     lines = [f"resonance f0: {quantity(d['f0_hz'], 'Hz', d['f0_std_hz'])}",
              f"quality factor Q: {number(d['q'], d['q_std'])}",
              f"thermal peak area: {quantity(d['peak_area_v2'], 'V^2')} (Butt-Jaschke factor "
-             f"{number(d['correction_factor'])}, {args.detection} detection, {quantity(args.temperature_k, 'K')})"]
+             f"{number(d['correction_factor'])}, {args.detection} detection, {quantity(d['temperature_k'], 'K')}"
+             f"{TEMPERATURE_SOURCES[t_source]})"]
     if args.invols:
         source = "" if args.invols_std else "; give --invols-std for the sensitivity's own uncertainty"
         lines.append(f"spring constant k: {quantity(d['k_n_per_m'], 'N/m', d['k_std_n_per_m'])} "
@@ -181,8 +189,15 @@ def _thermal_from_session(p: Path, args, known: dict):
     rec = cals[-1]
     if "spectrum_psd_v2_per_hz" not in rec.arrays:
         raise UsageError(f"{p}: the last calibration kept no thermal spectrum")
-    return calibrate_thermal(stored_thermal_fit(rec), temperature_k=args.temperature_k, detection=args.detection,
-                             **known)
+    stored = rec.scalars.get("temperature_k")
+    if args.temperature_k:
+        t_k, source = args.temperature_k, "given"
+    elif stored:
+        t_k, source = float(stored), "session"
+    else:
+        t_k, source = ASSUMED_TEMPERATURE_K, "assumed"
+    fit = stored_thermal_fit(rec, f0_guess_hz=args.f0_hz_guess)
+    return calibrate_thermal(fit, temperature_k=t_k, detection=args.detection, **known), source
 
 
 # ---- sader ---------------------------------------------------------------------------------------------------
@@ -193,7 +208,7 @@ def sader(args) -> int:
                               temperature_k=args.temperature_k, pressure_pa=args.pressure_pa)
     d = r.to_dict()
     if args.json:
-        emit_json(d)
+        emit_json({**d, "warnings": list(r.warnings)})
         return 0
     from assistant.formatting import number, quantity
 

@@ -130,8 +130,10 @@ def build_parser() -> argparse.ArgumentParser:
                    help="uncertainty of --k in N/m, carried into the sensitivity's uncertainty (default 0)")
     p.add_argument("--invols-std", type=positive(), metavar="NM_PER_V",
                    help="uncertainty of --invols in nm/V, carried into k's uncertainty (default 0)")
-    p.add_argument("--temperature-k", type=positive(), default=295.15, metavar="K",
-                   help="temperature of the lever in K (default 295.15)")
+    p.add_argument("--temperature-k", type=positive(), metavar="K",
+                   help="temperature of the lever in K (default: the one a session file recorded, else 295.15)")
+    p.add_argument("--f0-hz-guess", type=positive(), metavar="HZ",
+                   help="start the peak fit near this resonance frequency in Hz instead of searching the spectrum")
     p.add_argument("--detection", choices=("optical-lever", "displacement"), default="optical-lever",
                    help="how the deflection was detected (sets the Butt-Jaschke factor 0.817 or 0.971)")
     p.add_argument("--plot", metavar="FILE.png", help="also write the spectrum with the fit as a PNG")

@@ -102,10 +102,10 @@ def stored_series_analysis(session, name: str) -> SeriesAnalysis | ImagingAnalys
     return analyse_session_series(session, name, write=False)
 
 
-def stored_thermal_fit(record):
+def stored_thermal_fit(record, *, f0_guess_hz: float | None = None):
     """Refit the thermal spectrum kept with a stored calibration record (its averaged spectrum and how it was
     averaged), so that a figure or another conversion starts from the fit the calibration came from; a
-    :class:`~assistant.analysis.calibration.ThermalFit`."""
+    :class:`~assistant.analysis.calibration.ThermalFit`. ``f0_guess_hz``: start there instead of searching."""
     # here: the series analyses need neither the thermal fit nor its spectra module
     from assistant.analysis.calibration import WelchSpectrum, fit_thermal_spectrum
 
@@ -118,7 +118,8 @@ def stored_thermal_fit(record):
                              n_segments=int(s["spectrum_segments"]),
                              variance_inflation=float(s.get("spectrum_variance_inflation", 1.0)))
     return fit_thermal_spectrum(spectrum.frequencies_hz, spectrum.psd_v2_per_hz, averages=spectrum.n_segments,
-                                variance_inflation=spectrum.variance_inflation, spectrum=spectrum)
+                                variance_inflation=spectrum.variance_inflation, spectrum=spectrum,
+                                f0_guess_hz=f0_guess_hz)
 
 
 def storage_form(d: dict) -> tuple[dict, dict]:

@@ -23,7 +23,7 @@ from assistant.analysis import calibration as cal
 from assistant.errors import AssistantError
 from assistant.procedures.acquire import drive_sweep, thermal_chunks
 from assistant.procedures.events import CancelToken, Notice, Progress, Sink, null_sink
-from assistant.procedures.guard import SafetyLimits, safety_guard
+from assistant.procedures.guard import SafetyError, SafetyLimits, safety_guard
 
 #: Ratio of true first-mode end displacement to the static-InvOLS reading (Butt & Jaschke 1995):
 #: chi = sqrt(0.970688 / 0.817434) = 1.0897.
@@ -172,6 +172,23 @@ def _dimensions(controller, settings: CalibrationSettings) -> tuple[float | None
     return length, width, "nominal (from the controller's probe data)" if length and width else "missing"
 
 
+def _check_drives(controller, settings: CalibrationSettings, limits: SafetyLimits) -> None:
+    """Refuse, before anything moves, a drive the calibration would apply outside the software or the controller's
+    limit: the sweep's drive (also the contact approach's); the working drive is capped by the same limits."""
+    from assistant.formatting import quantity
+
+    hard = controller.limits.drive_max_v
+    if settings.sweep_drive_v > hard:
+        raise SafetyError(f"calibration sweep drive {quantity(settings.sweep_drive_v, 'V')} exceeds the "
+                          f"controller's drive limit {quantity(hard, 'V')}: lower the sweep drive")
+    try:
+        limits.check_drive(settings.sweep_drive_v)
+    except SafetyError:
+        raise SafetyError(f"calibration sweep drive {quantity(settings.sweep_drive_v, 'V')} exceeds the software "
+                          f"drive limit {quantity(limits.drive_amplitude_max_v, 'V')} (drive_amplitude_max_v): "
+                          f"lower the sweep drive") from None
+
+
 def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits | None = None,
               sink: Sink = null_sink, cancel: CancelToken | None = None) -> CalibrationResult:
     """Run the whole calibration on a withdrawn stage. Runs inside the safety guard."""
@@ -179,6 +196,7 @@ def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits
     settings.validate()
     limits = limits or SafetyLimits()
     cancel = cancel or CancelToken()
+    _check_drives(controller, settings, limits)
     notes: list[str] = []
 
     def note(level: str, text: str) -> None:
@@ -237,8 +255,10 @@ def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits
             invols, invols_std, invols_source = user_invols, user_invols_std, source_inv
             if sader is not None:
                 k, k_std, k_source = sader.k_n_per_m, sader.k_std_n_per_m, "Sader method"
-                diff = thermal_k.k_n_per_m - sader.k_n_per_m
-                sigma = math.hypot(thermal_k.k_std_n_per_m, sader.k_std_n_per_m)
+                # ln(kT / kS): both use the fit's f0, Q (and kT its peak area), so they are propagated together
+                diff = math.log(thermal_k.k_n_per_m / sader.k_n_per_m)
+                sigma = math.sqrt(cal.sader_and_area_log_variance(fit, sader, settings.temperature_k)
+                                  + (2 * user_invols_std / user_invols) ** 2)
                 agree = abs(diff) <= 2 * sigma
                 check = {"k_n_per_m": thermal_k.k_n_per_m, "k_std_n_per_m": thermal_k.k_std_n_per_m,
                          "difference_sigma": diff / sigma, "agree": agree}
@@ -254,7 +274,7 @@ def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits
         elif sader is not None:
             k, k_std, k_source = sader.k_n_per_m, sader.k_std_n_per_m, "Sader method"
             thermal_result = cal.calibrate_thermal(fit, temperature_k=settings.temperature_k, k_n_per_m=k,
-                                                   k_std_n_per_m=k_std)
+                                                   sader=sader)
             invols, invols_std = thermal_result.invols_m_per_v, thermal_result.invols_std_m_per_v
             invols_source = "non-contact: thermal peak area with the Sader k (Higgins et al. 2006)"
             note("info", "non-contact path: k from Sader, InvOLS from the thermal spectrum — one k, no "

@@ -140,3 +140,26 @@ def test_probe_history_in_units_with_f0_to_six_digits(tmp_path, monkeypatch, cap
     monkeypatch.setenv("MFMA_DATA_DIR", str(tmp_path / "none"))
     assert main(["probes"]) == 0
     assert capsys.readouterr().out.splitlines()[1:] == ["  (empty)"]
+
+
+def test_analyze_json_keeps_the_validity_warnings(tmp_path, capsys):
+    # Sader, Chon & Mulvaney 1999 (Rev. Sci. Instrum. 70, 3967) assume Q >> 1: Q = 5 is warned of, in JSON too
+    assert main(["analyze", "sader", "--length-um", "225", "--width-um", "28", "--f0-hz", "75000", "--q", "5",
+                 "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert any("Q >> 1" in w for w in d["warnings"])
+    assert main(["analyze", "sader", "--length-um", "225", "--width-um", "28", "--f0-hz", "75000", "--q", "200",
+                 "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)["warnings"] == []
+    # A thermal peak of Q = 2000 at 75 kHz (FWHM 37.5 Hz) on 7.6 Hz bins: under 10 bins per FWHM, the resolution
+    # condition of Sader et al. 2011 (Rev. Sci. Instrum. 82, 095104); the oscillator spectrum is the one of
+    # tests/analysis/calibration/test_thermal.py (Hutter & Bechhoefer 1993)
+    from tests.analysis.calibration.test_thermal import shaped_series, true_psd
+
+    peak = 1e-8
+    x = shaped_series(2**20, 1e6, lambda f: true_psd(f, 75e3, 2000.0, peak / 2000.0**2, 1e-3 * peak, 0.0),
+                      np.random.default_rng(3))
+    np.save(tmp_path / "lever.npy", x.astype(np.float32))
+    assert main(["analyze", "thermal", str(tmp_path / "lever.npy"), "--rate", "1e6", "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert any("bins per FWHM" in w for w in d["warnings"])

@@ -100,6 +100,52 @@ def test_thermal_and_sweep_plots_are_written(tmp_path, capsys):
     assert d["invols_std_nm_per_v"] > 0 and d["invols_nm_per_v"] > 0  # the non-contact route has its uncertainty
 
 
+def test_thermal_reanalysis_of_a_session_uses_its_recorded_temperature(tmp_path, capsys):
+    # A0 = 2.04015e-14 V^2/Hz at f0 = 75 kHz, Q = 200 is k = 2.8 N/m with InvOLS 50 nm/V at 298.15 K (Higgins et
+    # al. 2006, Rev. Sci. Instrum. 77, 013701, with the Butt & Jaschke 1995 factor 0.817434; check value of
+    # tests/analysis/calibration/test_thermal.py). Read at 295.15 K instead, InvOLS is 0.5 % low.
+    from assistant.analysis.calibration import oscillator_psd
+    from assistant.storage import SessionFile
+
+    fs = np.linspace(0, 1e6, 2**15 + 1)
+    psd = oscillator_psd(fs, f0_hz=75e3, q=200.0, a0_v2_per_hz=2.04015e-14, white_v2_per_hz=1e-17)
+    spectrum = {"spectrum_frequency_hz": fs, "spectrum_psd_v2_per_hz": psd}
+    with SessionFile.create(tmp_path / "warm.h5", controller_url="sim://", software_version="0") as s:
+        s.write_calibration({"spectrum_segments": 20, "temperature_k": 298.15}, spectrum)
+    with SessionFile.create(tmp_path / "bare.h5", controller_url="sim://", software_version="0") as s:
+        s.write_calibration({"spectrum_segments": 20}, spectrum)
+    assert main(["analyze", "thermal", str(tmp_path / "warm.h5"), "--k", "2.8", "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert d["temperature_k"] == 298.15
+    assert d["invols_nm_per_v"] == pytest.approx(50.0, rel=5e-4)
+    assert main(["analyze", "thermal", str(tmp_path / "warm.h5"), "--k", "2.8"]) == 0
+    assert "298.1 K as the session recorded it" in capsys.readouterr().out
+    assert main(["analyze", "thermal", str(tmp_path / "warm.h5"), "--k", "2.8", "--temperature-k", "295.15",
+                 "--json"]) == 0  # a given temperature wins
+    assert json.loads(capsys.readouterr().out)["invols_nm_per_v"] == pytest.approx(50.0 * (295.15 / 298.15) ** 0.5,
+                                                                                   rel=5e-4)
+    assert main(["analyze", "thermal", str(tmp_path / "bare.h5"), "--k", "2.8"]) == 0
+    assert "295.1 K assumed: give the lever's temperature with --temperature-k" in capsys.readouterr().out
+
+
+def test_thermal_fit_starts_at_the_given_resonance(tmp_path, capsys):
+    # two oscillator peaks (formula in assistant.analysis.calibration.thermal_fit): the search takes the one of the
+    # larger area (150 kHz); --f0-hz-guess 75000 starts the fit at the other
+    from assistant.analysis.calibration import oscillator_psd
+    from assistant.storage import SessionFile
+
+    fs = np.linspace(0, 1e6, 2**15 + 1)
+    psd = (oscillator_psd(fs, f0_hz=75e3, q=100.0, a0_v2_per_hz=2e-14, white_v2_per_hz=1e-16)
+           + oscillator_psd(fs, f0_hz=150e3, q=100.0, a0_v2_per_hz=3e-14))
+    session = tmp_path / "two.h5"
+    with SessionFile.create(session, controller_url="sim://", software_version="0") as s:
+        s.write_calibration({"spectrum_segments": 20}, {"spectrum_frequency_hz": fs, "spectrum_psd_v2_per_hz": psd})
+    assert main(["analyze", "thermal", str(session), "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)["f0_hz"] == pytest.approx(150e3, rel=1e-3)
+    assert main(["analyze", "thermal", str(session), "--f0-hz-guess", "75000", "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)["f0_hz"] == pytest.approx(75e3, rel=1e-3)
+
+
 def test_messages_in_the_users_terms(tmp_path, capsys):
     fake = tmp_path / "fake.h5"
     fake.write_text("hello")

@@ -98,3 +98,37 @@ def test_no_route_to_k_is_a_clear_error():
         with pytest.raises(CalibrationError, match="--length-um"):
             calibrate(ctl, CalibrationSettings(temperature_k=ROOM_K, thermal_seconds=0.5))
         assert ctl.status().safe
+
+
+class _Recording:
+    """The controller, with a list of the calls that would move the stage or drive the lever."""
+
+    def __init__(self, ctl):
+        self._ctl, self.calls = ctl, []
+
+    def __getattr__(self, name):
+        attr = getattr(self._ctl, name)
+        if name in ("set_drive", "sweep", "record_deflection", "read", "coarse_step", "make_safe", "withdraw"):
+            def recorded(*a, **kw):
+                self.calls.append(name)
+                return attr(*a, **kw)
+            return recorded
+        return attr
+
+
+def test_a_sweep_drive_above_the_software_limit_is_refused_before_anything_runs():
+    # the software drive limit (common practice, no source): a 10 mV sweep with a 5 mV limit ran in full before
+    from assistant.procedures.guard import SafetyError, SafetyLimits
+
+    with open_controller("sim://", seed=14) as ctl:
+        rec = _Recording(ctl)
+        with pytest.raises(SafetyError, match="sweep drive 10 mV exceeds the software drive limit 5 mV"):
+            calibrate(rec, CalibrationSettings(temperature_k=ROOM_K, thermal_seconds=0.5, sweep_drive_v=0.01),
+                      limits=SafetyLimits(drive_amplitude_max_v=0.005))
+        assert rec.calls == []
+        assert ctl.status().safe
+        with pytest.raises(SafetyError, match="controller's drive limit"):
+            calibrate(rec, CalibrationSettings(temperature_k=ROOM_K, thermal_seconds=0.5,
+                                               sweep_drive_v=2 * ctl.limits.drive_max_v),
+                      limits=SafetyLimits(drive_amplitude_max_v=10 * ctl.limits.drive_max_v))
+        assert rec.calls == []

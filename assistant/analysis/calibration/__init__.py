@@ -14,6 +14,7 @@ __getattr__, __dir__ = attach(__name__, {
               "drive_amplitude_for_free_amplitude", "drive_frequency", "fit_drive_sweep", "oscillator_response",
               "setpoint_from_ratio", "sweep_response_v_per_v"),
     "thermal": ("DETECTION_FACTORS", "ThermalResult", "analyse_thermal_record", "calibrate_thermal",
-              "default_segment_length", "invols_from_thermal", "spring_constant_from_thermal"),
+              "default_segment_length", "invols_from_thermal", "sader_and_area_log_variance",
+              "spring_constant_from_thermal"),
     "thermal_fit": ("ThermalFit", "ThermalFitError", "fit_thermal_spectrum", "oscillator_psd"),
 })

@@ -2,9 +2,9 @@
 
 In contact with a hard sample the tip follows the piezo, so the deflection change equals the Z travel and
 InvOLS = 1/slope of detector volts against Z (Butt, Cappella & Kappl 2005, Surf. Sci. Rep. 59, 1). The
-line is fitted to the linear part of the contact region: the points whose deflection lies between 20 % and
-80 % of the contact deflection range above the free level (excludes snap-in, the first nanometres and
-detector non-linearity at large deflection; common practice, no source for the exact fractions).
+line is fitted to the linear part of the contact region: the points whose piezo position lies where the contact
+line is between 20 % and 80 % of the contact deflection range above the free level (excludes snap-in, the first
+nanometres and detector non-linearity at large deflection; common practice, no source for the exact fractions).
 Approach and retract are fitted separately and their slopes compared (they should agree within 1-2 %).
 """
 
@@ -73,6 +73,18 @@ def _contact_line(z: np.ndarray, v: np.ndarray, *, free_first: bool, fractions: 
     zs, vs = z[sl], v[sl]
     if zs.size < 5:
         raise ForceCurveError(f"{name}: {zs.size} points in the linear contact region, need >= 5")
+    # Points chosen by their own noisy deflection leave out those that noise pushed across the limits, which
+    # flattens the line (InvOLS 1.2 % high at 0.03 V of noise on a 1 V contact range). So the limits are taken
+    # in z, where a preliminary line crosses them, and every point in that z interval is fitted.
+    for _ in range(2):
+        coef = np.polyfit(zs, vs, 1)
+        if not coef[0] > 0:
+            break
+        z_lo, z_hi = sorted(((lo - coef[1]) / coef[0], (hi - coef[1]) / coef[0]))
+        inside = (z >= z_lo) & (z <= z_hi)
+        if np.count_nonzero(inside) < 5:
+            break
+        zs, vs = z[inside], v[inside]
     coef, cov = np.polyfit(zs, vs, 1, cov="unscaled")
     resid = vs - np.polyval(coef, zs)
     s2 = float(np.sum(resid**2)) / max(zs.size - 2, 1)

@@ -89,6 +89,10 @@ class SaderResult:
     density_kg_m3: float
     viscosity_pa_s: float
     relative_contributions: dict[str, float]  # each input's share of the relative standard deviation
+    # signed d ln k / d ln x of each input (length, width, f0, q, temperature): what a caller needs to combine k with
+    # another quantity from the same f0 and Q (the thermal peak area), whose errors correlate with these
+    log_sensitivities: dict[str, float]
+    temperature_std_k: float  # the one taken for the air's properties (0 with a given density and viscosity)
     warnings: tuple[str, ...]
 
     def to_dict(self) -> dict[str, float]:
@@ -163,16 +167,17 @@ def sader_spring_constant(length_m: float, width_m: float, f0_hz: float, q: floa
     }
     values = {"length": length_m, "width": width_m, "f0": f0_hz, "q": q, "temperature": temperature_k}
     eps = 1e-5
-    contributions = {}
+    contributions, sensitivities = {}, {}
     for name, value in values.items():
-        if stds[name] == 0:
-            contributions[name] = 0.0
+        if name == "temperature" and fixed_fluid:
+            contributions[name] = sensitivities[name] = 0.0
             continue
         args_hi, args_lo = dict(values), dict(values)
         args_hi[name], args_lo[name] = value * (1 + eps), value * (1 - eps)
         k_hi = _k(args_hi["length"], args_hi["width"], args_hi["f0"], args_hi["q"], *fluid(args_hi["temperature"]))[0]
         k_lo = _k(args_lo["length"], args_lo["width"], args_lo["f0"], args_lo["q"], *fluid(args_lo["temperature"]))[0]
         dlnk_dlnx = (np.log(k_hi) - np.log(k_lo)) / (2 * eps)
+        sensitivities[name] = float(dlnk_dlnx)
         contributions[name] = float(abs(dlnk_dlnx) * stds[name] / value)
     rel = float(np.sqrt(sum(c * c for c in contributions.values())))
     notes = []
@@ -190,4 +195,5 @@ def sader_spring_constant(length_m: float, width_m: float, f0_hz: float, q: floa
     return SaderResult(
         k_n_per_m=float(k), k_std_n_per_m=float(k * rel), reynolds=float(re), gamma_real=float(gamma.real),
         gamma_imag=float(gamma.imag), density_kg_m3=float(rho), viscosity_pa_s=float(eta),
-        relative_contributions=contributions, warnings=tuple(notes))
+        relative_contributions=contributions, log_sensitivities=sensitivities,
+        temperature_std_k=float(stds["temperature"]), warnings=tuple(notes))

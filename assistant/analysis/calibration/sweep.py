@@ -9,8 +9,13 @@ Model (steady state of m z'' + (m w0/Q) z' + m w0^2 z = F cos(w t), textbook), u
 **Phase convention:** the fitted phase is the lock-in phase as the instruments here report it,
 ``-(lag - 90 deg) + offset``: it falls through ``offset`` at resonance, is ``offset + 90 deg`` far below
 and ``offset - 90 deg`` far above. Residuals are wrapped to (-180, 180] deg, so any offset is accepted.
-Amplitude and phase are fitted jointly by least squares, each channel weighted by its own residual
-scatter (estimated in a first pass); uncertainties from the Jacobian at the optimum.
+Amplitude and phase are fitted jointly by weighted least squares; uncertainties from the Jacobian at the
+optimum. The lock-in's noise is complex: the detector's white part (the same at every frequency) and the thermal
+force noise, which passes through the lever's response and so grows with |H(f)|. The amplitude's variance is
+therefore a + b A(f)^2 and the phase's a' + b' (A_res/A(f))^2 (the white part is a phase noise of sigma/A); each
+channel's two terms are estimated from the squared residuals of the previous pass (non-negative least squares)
+and the fit is repeated with those weights. One constant weight per channel made the uncertainties of f0 and Q
+about half the scatter when the thermal part dominates.
 """
 
 from __future__ import annotations
@@ -57,7 +62,7 @@ class SweepResult:
     phase_offset_std_deg: float
     amplitude_at_resonance_v: float
     amplitude_at_resonance_std_v: float
-    amplitude_noise_v: float
+    amplitude_noise_v: float  # rms over the sweep of each point's fitted noise (module docstring)
     phase_noise_deg: float
     frequencies_hz: np.ndarray
     amplitude_v: np.ndarray
@@ -121,6 +126,16 @@ def fit_drive_sweep(frequencies_hz: np.ndarray, amplitude_v: np.ndarray, phase_d
     x0 = np.array([f[i], max(f[i] / fwhm, 0.6), a[i], ph[i]])
     scale = np.array([f[i], x0[1], a[i], 1.0])
 
+    def variance_model(r, g):
+        # r^2 ~ a + b g with a, b >= 0 (E r^2 is the variance, its scatter ~ the variance itself, so the
+        # least squares is reweighted by the variance found); corrected for the 4 fitted parameters
+        design, var = np.stack((np.ones_like(g), g), axis=1), np.ones_like(g)
+        for _ in range(4):
+            w = 1.0 / var
+            coef = scipy.optimize.nnls(design * w[:, None], r * r * w)[0]
+            var = np.maximum(coef[0] + coef[1] * g, 1e-30 * np.max(r * r) + 1e-300)
+        return np.sqrt(var * f.size / max(f.size - 2, 1))
+
     def residuals(x, sa, sp):
         p = x * scale
         ma, mp = oscillator_response(f, f0_hz=p[0], q=p[1], amplitude_at_resonance_v=p[2], phase_offset_deg=p[3])
@@ -128,21 +143,23 @@ def fit_drive_sweep(frequencies_hz: np.ndarray, amplitude_v: np.ndarray, phase_d
 
     import scipy.optimize  # here: it takes 0.2-0.3 s to load, and reading a stored sweep does not fit
 
-    sa, sp = 0.01 * a[i], 1.0
+    sa, sp = np.full(f.size, 0.01 * a[i]), np.ones(f.size)
     x = x0 / scale
-    for _ in range(3):  # reweight each channel by its residual scatter, then refit
+    for _ in range(5):  # reweight each channel by its residuals' variance model (module docstring), then refit
         sol = scipy.optimize.least_squares(residuals, x, args=(sa, sp), method="lm", x_scale="jac")
         if not sol.success:
             raise SweepFitError(f"sweep fit did not converge: {sol.message}")
         x = sol.x
         r = residuals(x, 1.0, 1.0)
-        dof = max(f.size - 2, 1)
-        sa_new = max(float(np.sqrt(np.sum(r[: f.size] ** 2) / dof)), 1e-12 * a[i])
-        sp_new = max(float(np.sqrt(np.sum(r[f.size:] ** 2) / dof)), 1e-9)
-        if abs(sa_new / sa - 1) < 0.01 and abs(sp_new / sp - 1) < 0.01:
-            sa, sp = sa_new, sp_new
-            break
+        model_a = oscillator_response(f, f0_hz=x[0] * scale[0], q=x[1] * scale[1],
+                                      amplitude_at_resonance_v=x[2] * scale[2], phase_offset_deg=0.0)[0]
+        g = (model_a / np.max(np.abs(model_a))) ** 2
+        sa_new = np.maximum(variance_model(r[: f.size], g), 1e-12 * a[i])
+        sp_new = np.maximum(variance_model(r[f.size:], 1.0 / g), 1e-9)
+        done = np.max(np.abs(sa_new / sa - 1)) < 0.01 and np.max(np.abs(sp_new / sp - 1)) < 0.01
         sa, sp = sa_new, sp_new
+        if done:
+            break
     sol = scipy.optimize.least_squares(residuals, x, args=(sa, sp), method="lm", x_scale="jac")
     p = sol.x * scale
     jac = sol.jac
@@ -159,7 +176,8 @@ def fit_drive_sweep(frequencies_hz: np.ndarray, amplitude_v: np.ndarray, phase_d
         f0_hz=float(p[0]), f0_std_hz=float(std[0]), q=float(p[1]), q_std=float(std[1]),
         phase_offset_deg=float(_wrap_deg(p[3])), phase_offset_std_deg=float(std[3]),
         amplitude_at_resonance_v=float(abs(p[2])), amplitude_at_resonance_std_v=float(std[2]),
-        amplitude_noise_v=sa, phase_noise_deg=sp, frequencies_hz=f, amplitude_v=a, phase_deg=ph)
+        amplitude_noise_v=float(np.sqrt(np.mean(sa**2))), phase_noise_deg=float(np.sqrt(np.mean(sp**2))),
+        frequencies_hz=f, amplitude_v=a, phase_deg=ph)
 
 
 def drive_frequency(sweep: SweepResult, *, side: str = "resonance") -> float:

@@ -9,6 +9,7 @@ k instead, the sensitivity follows (non-contact InvOLS, Higgins et al. 2006, Rev
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -18,9 +19,12 @@ from ..constants import BOLTZMANN_J_PER_K
 from .spectra import WelchAccumulator
 from .thermal_fit import ThermalFit, ThermalFitError, fit_thermal_spectrum
 
+if TYPE_CHECKING:  # the Sader module loads scipy.special; a thermal analysis alone does not need it
+    from .sader import SaderResult
+
 __all__ = [
     "DETECTION_FACTORS", "ThermalResult", "analyse_thermal_record", "calibrate_thermal", "default_segment_length",
-    "invols_from_thermal", "spring_constant_from_thermal",
+    "invols_from_thermal", "sader_and_area_log_variance", "spring_constant_from_thermal",
 ]
 
 # Butt & Jaschke 1995: first-mode factors (optical lever with static InvOLS; displacement detection).
@@ -76,14 +80,35 @@ class ThermalResult:
         }
 
 
+def sader_and_area_log_variance(fit: ThermalFit, sader: SaderResult, temperature_k: float) -> float:
+    """Variance of ln(k_Sader * <V1^2> / T) when the Sader k took f0 and Q from this thermal fit.
+
+    The peak area A0 pi Q f0 / 2 and the Sader k share f0 and Q, so their errors correlate (first-order
+    propagation through the fit's covariance, g^T C g, with g = d ln(k area) / d(f0, Q, A0)); the plan view
+    (independent of the fit) and the temperature (in T and in the air's properties) are added apart. Both the
+    non-contact InvOLS (= sqrt(beta kB T / (k area)), Higgins et al. 2006) and the ratio of a thermal k to the
+    Sader k (Hutter & Bechhoefer 1993; Sader et al. 1999) have this variance, the first times 1/4.
+    """
+    s = sader.log_sensitivities
+    g = np.zeros(len(fit.parameter_names))
+    for name, value, exponent in (("f0_hz", fit.f0_hz, 1.0 + s["f0"]), ("q", fit.q, 1.0 + s["q"]),
+                                  ("a0_v2_per_hz", fit.a0_v2_per_hz, 1.0)):
+        g[fit.parameter_names.index(name)] = exponent / value
+    plan = sader.relative_contributions["length"] ** 2 + sader.relative_contributions["width"] ** 2
+    rel_t = (1.0 - s["temperature"]) * sader.temperature_std_k / temperature_k
+    return float(g @ fit.covariance @ g + plan + rel_t**2)
+
+
 def calibrate_thermal(fit: ThermalFit, *, temperature_k: float = 298.15, invols_m_per_v: float | None = None,
                       k_n_per_m: float | None = None, detection: str = "optical-lever",
                       invols_std_m_per_v: float = 0.0, k_std_n_per_m: float = 0.0,
-                      temperature_std_k: float = 0.0) -> ThermalResult:
+                      temperature_std_k: float = 0.0, sader: SaderResult | None = None) -> ThermalResult:
     """Turn a peak fit into k (given InvOLS) or InvOLS (given k); neither: k and InvOLS are None.
 
     Uncertainties combine the fit's peak-area error with the given errors of InvOLS, k and T in quadrature
-    (first-order propagation).
+    (first-order propagation). ``sader``: the given k is this Sader k, from this fit's f0 and Q; the
+    InvOLS's uncertainty then follows :func:`sader_and_area_log_variance` (``k_std_n_per_m`` and
+    ``temperature_std_k`` are not used).
 
     Raises
     ------
@@ -111,7 +136,10 @@ def calibrate_thermal(fit: ThermalFit, *, temperature_k: float = 298.15, invols_
         k = k_n_per_m
         k_std = k_std_n_per_m
         inv = invols_from_thermal(area, k_n_per_m=k, temperature_k=temperature_k, correction_factor=beta)
-        inv_std = 0.5 * inv * float(np.sqrt(rel_area**2 + (k_std_n_per_m / k) ** 2 + rel_t**2))
+        if sader is not None:
+            inv_std = 0.5 * inv * float(np.sqrt(sader_and_area_log_variance(fit, sader, temperature_k)))
+        else:
+            inv_std = 0.5 * inv * float(np.sqrt(rel_area**2 + (k_std_n_per_m / k) ** 2 + rel_t**2))
     return ThermalResult(
         f0_hz=fit.f0_hz, f0_std_hz=fit.f0_std_hz, q=fit.q, q_std=fit.q_std, peak_area_v2=area,
         peak_area_std_v2=fit.peak_area_std_v2, k_n_per_m=k, k_std_n_per_m=k_std, invols_m_per_v=inv,

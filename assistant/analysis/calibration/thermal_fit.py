@@ -17,95 +17,16 @@ from __future__ import annotations
 from dataclasses import dataclass, replace
 
 import numpy as np
-import scipy.ndimage
-
-from assistant.errors import AssistantError
 
 from .spectra import WelchSpectrum
+from .thermal_peak import ThermalFitError
+from .thermal_peak import find_peak as _find_peak
 
 __all__ = ["ThermalFit", "ThermalFitError", "fit_thermal_spectrum", "oscillator_psd"]
 
 _MAX_F0_OVER_NYQUIST = 0.8  # common practice, no source: keep the peak clear of aliasing and filters
 _MIN_BINS_PER_FWHM = 10.0  # resolution condition (Sader et al. 2011, Rev. Sci. Instrum. 82, 095104)
 _MIN_SIGNIFICANCE = 5.0  # peak area / its standard error
-
-
-class ThermalFitError(AssistantError, ValueError):
-    """The thermal record or spectrum cannot be fitted (the message names the quantity and the limit)."""
-
-
-@dataclass(frozen=True)
-class _Peak:
-    f0_hz: float
-    fwhm_hz: float
-    height_v2_per_hz: float
-    background_v2_per_hz: float
-
-
-_PER_DECADE = 400  # log-spaced bins per decade for the peak search
-_MIN_Z = 10.0  # significance of a log bin above the running-median background
-_MIN_RATIO = 1.3  # and its ratio to it (common practice, no source)
-
-
-def _find_peak(f: np.ndarray, p: np.ndarray, *, averages: float, f0_guess_hz: float | None) -> _Peak:
-    """Locate the resonance as the log-frequency bin standing most above a running-median background."""
-    df = float(f[1] - f[0])
-    valid = f >= 5 * df
-    fv, pv = f[valid], p[valid]
-    if fv.size < 16:
-        raise ThermalFitError(f"spectrum has {fv.size} usable bins, need >= 16")
-    n_bins = max(int(np.ceil(np.log10(fv[-1] / fv[0]) * _PER_DECADE)), 1)
-    edges = np.geomspace(fv[0], fv[-1] * (1 + 1e-12), n_bins + 1)
-    idx = np.clip(np.searchsorted(edges, fv, side="right") - 1, 0, n_bins - 1)
-    counts = np.bincount(idx, minlength=n_bins)
-    sums = np.bincount(idx, pv, minlength=n_bins)
-    keep = counts > 0
-    mean, cnt = sums[keep] / counts[keep], counts[keep]
-    centres = np.sqrt(edges[:-1] * edges[1:])[keep]
-    bg = scipy.ndimage.median_filter(mean, size=_PER_DECADE // 2 + 1, mode="nearest")
-    bg = np.maximum(bg, np.finfo(float).tiny)
-    ratio = mean / bg
-    if f0_guess_hz is None:
-        # Hann bins are correlated (about half the information per bin): hence the factor 2.
-        z = (ratio - 1.0) * np.sqrt(averages * cnt / 2.0)
-        # Skip the lowest 0.3 decade of a wide spectrum: there the running median of a steep 1/f rise is
-        # one-sided and would fake an excess.
-        low = fv[0] * 10**0.3 if fv[-1] / fv[0] > 10**1.5 else fv[0]
-        cand = (centres >= low) & (z >= _MIN_Z) & (ratio >= _MIN_RATIO)
-        if not np.any(cand):
-            raise ThermalFitError(
-                f"no resonance peak stands out of the background: largest excess {np.max(z):.3g} standard "
-                f"errors (need >= {_MIN_Z}) at ratio >= {_MIN_RATIO}")
-        i = int(np.argmax(np.where(cand, ratio, -np.inf)))
-        centre, reach = centres[i], 3 * np.log(10) / _PER_DECADE
-    else:
-        if not fv[0] < f0_guess_hz < fv[-1]:
-            raise ThermalFitError(
-                f"f0_guess_hz = {f0_guess_hz!r} outside the spectrum {fv[0]:.6g}..{fv[-1]:.6g} Hz")
-        centre, reach = float(f0_guess_hz), 0.05
-        i = int(np.argmin(np.abs(centres - centre)))
-    background = float(bg[i])
-    near = np.flatnonzero((f >= centre * (1 - reach)) & (f <= centre * (1 + reach)) & (f >= 5 * df))
-    if near.size == 0:
-        near = np.array([int(np.argmin(np.abs(f - centre)))])
-    width = 5
-    for _ in range(4):  # smooth over about a quarter of the width found so far: robust height and FWHM
-        smooth = np.convolve(p, np.ones(width) / width, mode="same")
-        k = int(near[np.argmax(smooth[near])])
-        height = float(smooth[k])
-        half = background + 0.5 * (height - background)
-        left = k
-        while left > 0 and smooth[left] > half:
-            left -= 1
-        right = k
-        while right < f.size - 1 and smooth[right] > half:
-            right += 1
-        fwhm = max(float(f[right] - f[left]) - df, df)
-        new_width = int(min(max(5, fwhm / df / 4), max(5, f.size // 20))) | 1
-        if new_width <= width:
-            break
-        width = new_width
-    return _Peak(float(f[k]), fwhm, height, background)
 
 
 def oscillator_psd(frequencies_hz: np.ndarray, *, f0_hz: float, q: float, a0_v2_per_hz: float,

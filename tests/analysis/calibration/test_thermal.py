@@ -269,3 +269,19 @@ def test_explicit_window_and_start_value():
     assert fit_guess.f0_hz == pytest.approx(fit_auto.f0_hz, rel=1e-9)
     with pytest.raises(ThermalFitError, match="fit_range_hz"):
         _fit_gamma(6, fit_range_hz=(78e3, 72e3))
+
+
+def test_a_narrow_interference_line_is_not_taken_for_the_resonance():
+    # A 1 mV sine at 20 kHz (5e-7 V^2, as much power as the thermal peak's 4.8e-7 V^2) stands far higher above
+    # the background than the peak; the search took it and the fit failed (no convergence). A line fills the
+    # Hann window's main lobe (half-power width 1.44 bins, Harris 1978, Proc. IEEE 66, 51); the resonance is wide.
+    fs, n = 1e6, 2**21
+    x = shaped_series(n, fs, lambda f: true_psd(f, F0, Q, A0, 0.01 * PEAK, 0.0), np.random.default_rng(23))
+    x += 1e-3 * np.sin(2 * np.pi * 20e3 * np.arange(n) / fs)
+    res = analyse_thermal_record(x, fs, invols_m_per_v=INVOLS, temperature_k=T_TRUE)
+    assert abs(res.f0_hz - F0) < 4 * res.f0_std_hz and abs(res.q - Q) < 4 * res.q_std
+    assert abs(res.k_n_per_m - K_TRUE) < 4 * res.k_std_n_per_m
+    line_only = shaped_series(n, fs, lambda f: true_psd(f, F0, Q, 0.0, 0.01 * PEAK, 0.0), np.random.default_rng(24))
+    line_only += 1e-3 * np.sin(2 * np.pi * 20e3 * np.arange(n) / fs)
+    with pytest.raises(ThermalFitError, match=r"only narrow lines stand out of the background \(at 2000\d"):
+        analyse_thermal_record(line_only, fs, invols_m_per_v=INVOLS)
