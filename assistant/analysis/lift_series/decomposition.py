@@ -53,7 +53,8 @@ from .estimator_note import ERROR_METHOD, auto_estimator, small_scan_note
 from .frequencies import pixel_pair_m
 from .image_noise import shrunk_noise_variance
 from .image_means import fit_mean_bias_grid
-from .interaction_regime import _aligned, bias_pair_noise_deg, classify_interaction, recommendation_with_regime
+from .interaction_regime import (bias_pair_noise_deg, classify_interaction, finer_repeat_verdict,
+                                 recommendation_with_regime)
 from .lateral_cpd import add_lateral_cpd, bias_contrast_sentence, contrast_by_bias, lateral_contrast
 from .magnetic_fit import fit_magnetic
 from .mean_parts import MeanParts, magnetic_window_mean_cov, split_bias_grid, split_heights_only
@@ -280,9 +281,8 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
         # an unchanged repeat gives the more direct estimate, the difference of two passes; a changed one leaves two
         # top passes that differ in bias alone (the top image's band holds magnetic content on coarse lines)
         # judged again at the finer noise of the bias pair, as the interaction regime judges it
-        pair, changed = bias_pair_noise_deg(stack), tip.irreversible
-        if not changed and pair is not None and pair < tip.noise_deg:
-            changed = detect_tip_change(first, _aligned(first, rep), noise_deg=pair).irreversible
+        pair = bias_pair_noise_deg(stack)
+        changed = finer_repeat_verdict(first, rep, tip, pair).irreversible
         pair = pair if changed else detect_tip_change(first, rep).noise_deg
         ref_noise = pair / lin if pair is not None else ref_noise
     ref_noise_deg = ref_noise * lin

@@ -59,7 +59,7 @@ from .noise_floor import white_noise_std
 from .phase import phase_deg_from_gradient
 from .probe import ProbeModel
 from .recommend import Recommendation
-from .tip_change import TipChange, detect_tip_change
+from .tip_change import TipChange, finer_repeat_verdict
 
 __all__ = ["REGIMES", "InteractionRegime", "bias_pair_noise_deg", "classify_interaction", "recommendation_with_regime"]
 
@@ -189,35 +189,10 @@ def _repeat_verdict(a, phase_deg, repeat_phase_deg) -> TipChange | None:
         return tip
     stack = np.asarray(phase_deg, float)
     pair = bias_pair_noise_deg(stack)
-    if pair is None or not pair < tip.noise_deg:
-        return tip
     rep = np.asarray(repeat_phase_deg, float)
     rep = rep[0] if rep.ndim == 3 else rep
     first = stack[0, 0] if stack.ndim == 4 else stack[0]
-    return detect_tip_change(first, _aligned(first, rep), noise_deg=pair)
-
-
-def _aligned(first: np.ndarray, repeat: np.ndarray) -> np.ndarray:
-    """The repeat with each line's small position error against the first pass taken out.
-
-    At the finer noise of the bias pair, the position of a line can differ by a fraction of a pixel between its
-    first pass and its repeat (drift and scanner noise over the passes in between), and at sharp contrast that
-    reads as a change: 14 deg per pixel on the default film at 10 nm made 0.02 px look like a change. Per line the
-    difference is fitted with a shift along the line, d = -s dI/dx (least squares, |s| <= 0.5 px), and that part
-    removed; a domain that switched does not look like its line moved, and stays.
-    """
-    ok = np.isfinite(first) & np.isfinite(repeat)
-    if ok.mean() < 0.5:
-        return repeat
-    f = np.where(ok, first, 0.0)
-    grad = np.gradient(f, axis=1)
-    d = np.where(ok, repeat - first, 0.0)
-    d = d - np.median(d[ok])
-    g = np.where(ok, grad, 0.0)
-    num = np.sum(-g * d, axis=1)
-    den = np.sum(g * g, axis=1)
-    shift = np.clip(np.where(den > 0, num / np.where(den > 0, den, 1.0), 0.0), -0.5, 0.5)
-    return repeat + shift[:, None] * grad
+    return finer_repeat_verdict(first, rep, tip, pair)
 
 
 def _ratio(x: float) -> str:

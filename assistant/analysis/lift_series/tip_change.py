@@ -16,7 +16,7 @@ import numpy as np
 
 from assistant.errors import InputError
 
-__all__ = ["TipChange", "detect_tip_change"]
+__all__ = ["TipChange", "detect_tip_change", "finer_repeat_verdict", "line_aligned"]
 
 _MAD_TO_STD = 1.482602218505602  # 1/Phi^-1(3/4), Gaussian consistency factor of the median absolute deviation
 
@@ -117,3 +117,35 @@ def detect_tip_change(first_deg: np.ndarray, repeat_deg: np.ndarray, *, noise_de
     else:
         sentence = "No change beyond noise between the first pass and its repeat: the tip left the sample as it was."
     return TipChange(np.where(ok, d, np.nan), changed, frac, noise, offset, irreversible, sentence)
+
+
+def finer_repeat_verdict(first: np.ndarray, repeat: np.ndarray, tip: TipChange, pair_noise_deg: float | None
+                         ) -> TipChange:
+    """``tip`` (the repeat judged at the top image's noise) judged again at the finer noise of the bias pair, when
+    that is finer and the first judgement found no change."""
+    if tip.irreversible or pair_noise_deg is None or not pair_noise_deg < tip.noise_deg:
+        return tip
+    return detect_tip_change(first, line_aligned(first, repeat), noise_deg=pair_noise_deg)
+
+
+def line_aligned(first: np.ndarray, repeat: np.ndarray) -> np.ndarray:
+    """The repeat with each line's small position error against the first pass taken out.
+
+    At the finer noise of the bias pair, the position of a line can differ by a fraction of a pixel between its
+    first pass and its repeat (drift and scanner noise over the passes in between), and at sharp contrast that
+    reads as a change: 14 deg per pixel on the default film at 10 nm made 0.02 px look like a change. Per line the
+    difference is fitted with a shift along the line, d = -s dI/dx (least squares, |s| <= 0.5 px), and that part
+    removed; a domain that switched does not look like its line moved, and stays.
+    """
+    ok = np.isfinite(first) & np.isfinite(repeat)
+    if ok.mean() < 0.5:
+        return repeat
+    f = np.where(ok, first, 0.0)
+    grad = np.gradient(f, axis=1)
+    d = np.where(ok, repeat - first, 0.0)
+    d = d - np.median(d[ok])
+    g = np.where(ok, grad, 0.0)
+    num = np.sum(-g * d, axis=1)
+    den = np.sum(g * g, axis=1)
+    shift = np.clip(np.where(den > 0, num / np.where(den > 0, den, 1.0), 0.0), -0.5, 0.5)
+    return repeat + shift[:, None] * grad
