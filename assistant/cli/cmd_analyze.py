@@ -156,8 +156,8 @@ def thermal(args) -> int:
                      f"(thermal, from the given sensitivity{source})")
     elif args.k:
         source = "" if args.k_std else "; give --k-std to include the uncertainty of k"
-        lines.append(f"optical-lever sensitivity (InvOLS): {quantity(d['invols_nm_per_v'], 'nm/V', d['invols_std_nm_per_v'])}"
-                     f" (non-contact, from the given k{source})")
+        invols = quantity(d['invols_nm_per_v'], 'nm/V', d['invols_std_nm_per_v'])
+        lines.append(f"optical-lever sensitivity (InvOLS): {invols} (non-contact, from the given k{source})")
     else:
         lines.append("k or sensitivity: give --invols NM_PER_V (for k) or --k N_PER_M (for the non-contact "
                      "optical-lever sensitivity)")

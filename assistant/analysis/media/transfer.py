@@ -80,7 +80,8 @@ def track_transition_response(kx: np.ndarray, *, orientation: str, width_m: floa
     sin(ky c) / (ky c), and the profile is the integral over ky / 2 pi (midpoint rule on a grid fine against
     1 / W). For W -> infinity it is :func:`transition_response`. Out-of-plane, a narrow track shows more than its
     transitions: the two long edges where the data meet the erased band carry charge wherever a bit differs from
-    the band, so the field over a bit depends on its polarity. With ``derivatives`` also returns d/dw, d/dt and d/da of the profile.
+    the band, so the field over a bit depends on its polarity. With ``derivatives`` also returns d/dw, d/dt and
+    d/da of the profile.
     """
     kx = np.asarray(kx, float)
     w, wd, a = float(width_m), float(track_width_m), float(along_m)

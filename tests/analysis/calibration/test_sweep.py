@@ -98,7 +98,8 @@ def test_operating_point_helpers():
     # 10 nm free amplitude, 50 nm/V, 2 V/V response -> 0.1 V of drive.
     assert drive_amplitude_for_free_amplitude(10e-9, invols_m_per_v=50e-9, response_v_per_v=2.0) == \
         pytest.approx(0.1)
-    with pytest.raises(ValueError, match="free amplitude of 10 nm needs a drive of 0.1 V, above the drive limit of 0.05 V"):
+    with pytest.raises(ValueError,
+                       match="free amplitude of 10 nm needs a drive of 0.1 V, above the drive limit of 0.05 V"):
         drive_amplitude_for_free_amplitude(10e-9, invols_m_per_v=50e-9, response_v_per_v=2.0, max_drive_v=0.05)
     assert sweep_response_v_per_v(r, r.f0_hz, drive_amplitude_v=0.5) == pytest.approx(a_res / 0.5, rel=1e-8)
     assert setpoint_from_ratio(0.4, 0.7) == pytest.approx(0.28)
