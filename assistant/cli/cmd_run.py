@@ -167,6 +167,9 @@ def _run(args, limits, progress, latch, tip=None) -> int:
     cal_settings = calibration_settings(args)
     cal_settings.validate()
     out = _writable_dir(args.out)
+    from assistant.procedures.preflight import check_disk_space, series_bytes
+
+    check_disk_space(series_bytes(series_settings), out)  # a full disk halfway would cut the series short
     session_path = new_session_path(out)
     extra = {"pace": args.pace, "line_rate": args.line_rate} if scheme_of(args.controller) == "sim" else {}
     # Ctrl-C at any moment with the controller open, even between two steps, stops the stage through abort()

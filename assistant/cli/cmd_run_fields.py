@@ -54,6 +54,9 @@ def run_fields(args, limits, progress, latch=None) -> int:
     settings.validate(limits)
     cal_settings = calibration_settings(args)
     cal_settings.validate()
+    from assistant.procedures.preflight import check_disk_space, field_series_bytes
+
+    check_disk_space(field_series_bytes(settings), out)  # a full disk halfway would cut the series short
     session_path = new_session_path(out)
     extra = {"pace": args.pace, "line_rate": args.line_rate} if scheme_of(args.controller) == "sim" else {}
     # Ctrl-C at any moment with the controller open, even between two steps, stops the stage through abort()

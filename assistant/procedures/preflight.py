@@ -109,3 +109,28 @@ def free_series_name(existing: Iterable[str], base: str = "series") -> str:
     while f"{base}{n}" in taken:
         n += 1
     return f"{base}{n}"
+
+
+def series_bytes(settings: SeriesSettings) -> int:
+    """At most how many bytes a lift series takes in the session file: three images (phase, amplitude, frequency
+    shift) for every second pass, the repeat counted as one, and the topography, float64 per pixel."""
+    return 8 * settings.lines * settings.pixels * (3 * len(settings.passes) + 1)
+
+
+def field_series_bytes(settings) -> int:
+    """The same for a field series: topography, phase, amplitude and repeat at every field step."""
+    return 8 * settings.lines * settings.pixels * 4 * len(settings.fields_a_per_m)
+
+
+def check_disk_space(need_bytes: float, folder, *, free_bytes: int | None = None) -> None:
+    """Refuse a series the disk under ``folder`` cannot hold (with a 10 % margin), before anything moves: a full
+    disk halfway through stops the run with the series cut short."""
+    import shutil
+
+    from assistant.formatting import number
+
+    need = 1.1 * need_bytes
+    free = shutil.disk_usage(folder).free if free_bytes is None else free_bytes
+    if need > free:
+        raise PlanError(f"the series needs about {number(need / 1e9, digits=3)} GB of disk, and {folder} has "
+                        f"{number(free / 1e9, digits=3)} GB free: fewer lines or pixels, or another --out folder")

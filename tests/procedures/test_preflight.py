@@ -80,3 +80,18 @@ def test_two_biases_image_one_height_but_not_a_decomposition():
     assert plan.analysis == "imaging" and "images at 2 biases (V_cpd needs three)" in plan.sentence
     with pytest.raises(PlanError, match="needs at least three biases, got 2"):
         check_series_plan(replace(two, heights_m=BASE.heights_m), limits=SafetyLimits())
+
+
+def test_a_series_the_disk_cannot_hold_is_refused_before_anything_moves(tmp_path, capsys):
+    # 3 heights and the repeat x (phase, amplitude, frequency shift) + topography, 8 bytes a pixel: 13 images
+    from assistant.procedures.preflight import check_disk_space, series_bytes
+
+    assert series_bytes(BASE) == 13 * 8 * 16 * 8
+    check_disk_space(series_bytes(BASE), tmp_path, free_bytes=2 * series_bytes(BASE))
+    with pytest.raises(PlanError, match="needs about .* GB of disk"):
+        check_disk_space(series_bytes(BASE), tmp_path, free_bytes=series_bytes(BASE))
+    # 10^5 x 10^5 pixels at the default seven heights: terabytes, refused before the controller is opened
+    code = main(["run", "--lines", "100000", "--pixels", "100000", "--out", str(tmp_path / "out")])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert code == 2 and len(err) == 1 and "GB of disk" in err[0]
+    assert not list((tmp_path / "out").glob("session-*.h5"))
