@@ -111,9 +111,20 @@ def _load_record(p: Path, rate_hz: float | None):
                      f"a .csv (volts, or time_s,volts) or a session file (.h5)")
 
 
-ASSUMED_TEMPERATURE_K = 295.15  # a typical lab (22 C), as the calibration procedure assumes when nothing is known
 TEMPERATURE_SOURCES = {"given": "", "session": " as the session recorded it",
                        "assumed": " assumed: give the lever's temperature with --temperature-k"}
+
+
+def _temperature(args, recorded=None) -> tuple[float, str]:
+    """The lever's temperature [K] and where it comes from: --temperature-k, else the session's record, else the
+    calibration's assumed value (a key of ``TEMPERATURE_SOURCES``)."""
+    if args.temperature_k:
+        return args.temperature_k, "given"
+    if recorded:
+        return float(recorded), "session"
+    from assistant.procedures.calibrate import DEFAULT_TEMPERATURE_K
+
+    return DEFAULT_TEMPERATURE_K, "assumed"
 
 
 def thermal(args) -> int:
@@ -131,7 +142,7 @@ def thermal(args) -> int:
         result, t_source = _thermal_from_session(p, args, known)
     else:
         volts, rate = _load_record(p, args.rate)
-        t_k, t_source = (args.temperature_k, "given") if args.temperature_k else (ASSUMED_TEMPERATURE_K, "assumed")
+        t_k, t_source = _temperature(args)
         fit = analyse_thermal_record(volts, rate, temperature_k=t_k, detection=args.detection,
                                      f0_guess_hz=args.f0_hz_guess).fit
         result = calibrate_thermal(fit, temperature_k=t_k, detection=args.detection, **known)
@@ -189,13 +200,7 @@ def _thermal_from_session(p: Path, args, known: dict):
     rec = cals[-1]
     if "spectrum_psd_v2_per_hz" not in rec.arrays:
         raise UsageError(f"{p}: the last calibration kept no thermal spectrum")
-    stored = rec.scalars.get("temperature_k")
-    if args.temperature_k:
-        t_k, source = args.temperature_k, "given"
-    elif stored:
-        t_k, source = float(stored), "session"
-    else:
-        t_k, source = ASSUMED_TEMPERATURE_K, "assumed"
+    t_k, source = _temperature(args, rec.scalars.get("temperature_k"))
     fit = stored_thermal_fit(rec, f0_guess_hz=args.f0_hz_guess)
     return calibrate_thermal(fit, temperature_k=t_k, detection=args.detection, **known), source
 
