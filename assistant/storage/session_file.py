@@ -348,10 +348,8 @@ def _publish(partial: Path, path: Path) -> None:
     file system without hard links (FAT), a rename after a check, which leaves a moment for such a race."""
     try:
         os.link(partial, path)
-    except FileExistsError:
-        raise UnwritablePathError(f"session file {str(path)!r} already exists; choose a new name") from None
-    except OSError:
-        if path.exists():
+    except OSError as exc:
+        if isinstance(exc, FileExistsError) or path.exists():
             raise UnwritablePathError(f"session file {str(path)!r} already exists; choose a new name") from None
         os.replace(partial, path)
         return

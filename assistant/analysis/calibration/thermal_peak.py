@@ -76,7 +76,8 @@ def find_peak(f: np.ndarray, p: np.ndarray, *, averages: float, f0_guess_hz: flo
             raise ThermalFitError(
                 f"no resonance peak stands out of the background: largest excess {np.max(z):.3g} standard "
                 f"errors (need >= {_MIN_Z}) at ratio >= {_MIN_RATIO}")
-        runs = np.split(np.flatnonzero(cand), np.flatnonzero(np.diff(np.flatnonzero(cand)) > 1) + 1)
+        where = np.flatnonzero(cand)
+        runs = np.split(where, np.flatnonzero(np.diff(where) > 1) + 1)
         tops = [int(r[np.argmax(ratio[r])]) for r in runs]  # each run of candidate log bins: its tallest bin
         chosen, lines = pick_resonance(f, p, [(centres[r[0]] * (1 - _HALF_LOG_BIN), centres[r[-1]] *
                                                (1 + _HALF_LOG_BIN), float(bg[t])) for r, t in zip(runs, tops)])
