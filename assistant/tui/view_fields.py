@@ -5,7 +5,7 @@ far, in a thread, after every completed step)."""
 from __future__ import annotations
 
 import numpy as np
-from textual.containers import Horizontal, Vertical
+from textual.containers import Horizontal, Vertical, VerticalScroll
 from textual.widgets import Button, Checkbox, ProgressBar, Static
 from textual_plotext import PlotextPlot
 
@@ -47,7 +47,7 @@ class FieldSeriesView(View):
 
     def compose(self):
         with Horizontal(id="fields-top"):
-            with Vertical(id="fields-form"):
+            with VerticalScroll(id="fields-form"):  # a long check message scrolls in a short terminal
                 yield Field("fields kA/m", "450:-450:50", id="f-fields", placeholder="list or START:STOP:STEP")
                 yield Field("lift nm", "50", id="f-lift")
                 yield Field("scan size µm", "3", id="f-size")

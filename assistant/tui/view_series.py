@@ -49,7 +49,7 @@ class SeriesView(View):
     SeriesView #series-previews { height: 2fr; min-height: 5; }
     SeriesView #s-heights-echo { height: auto; color: $text-muted; }
     SeriesView #series-bar { height: 1; }
-    SeriesView #series-message { height: auto; max-height: 3; }
+    SeriesView #series-message { height: auto; max-height: 8; }
     SeriesView Checkbox { height: 1; border: none; padding: 0; }
     """
 

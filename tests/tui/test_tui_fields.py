@@ -10,6 +10,7 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).parent))
 from test_tui_app import SIZE, run_async, screen_text  # noqa: E402
+from test_tui_series_plan import shown_whole  # noqa: E402
 
 from assistant.procedures.approach import ApproachSettings, approach  # noqa: E402
 from assistant.tui.app import MfmApp  # noqa: E402
@@ -59,6 +60,7 @@ async def test_field_series_in_the_view_grows_its_loop_and_opens_stored(tmp_path
         view.query_one("#fields-check").press()
         await pilot.pause(0.2)
         assert "fields -450 kA/m … 450 kA/m … -450 kA/m (37 steps)" in str(view.query_one("#fields-message").render())
+        assert shown_whole(view.query_one("#fields-message"))  # all of it; the form scrolls where it is longer
         _form(view, fields="450:-450:225", lines="12", pixels="16", size="1.5")
         await pilot.pause()
         seen: list[int] = []

@@ -27,3 +27,24 @@ async def test_one_height_is_accepted_and_says_what_it_gives():
         await pilot.pause()
         await pilot.pause()
         assert "software limit" in str(sv.query_one("#series-message").render())
+
+
+def shown_whole(message) -> bool:
+    """Whether a message widget shows every line its text needs (a max-height clips the rest unseen)."""
+    region = message.content_region
+    return region.height >= message.get_content_height(region.size, message.app.size, region.width)
+
+
+@tui.run_async
+async def test_the_check_message_is_shown_whole_in_a_small_terminal():
+    # 80 x 24: the default plan's sentence needs six lines of the form's width; three were shown and the rest,
+    # what the series gives, was cut without a sign
+    app = MfmApp(None)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await pilot.press("4")
+        sv = app.view("series")
+        sv.query_one("#series-check").press()
+        await pilot.pause()
+        await pilot.pause()
+        message = sv.query_one("#series-message")
+        assert str(message.render()).startswith("ok:") and shown_whole(message)
