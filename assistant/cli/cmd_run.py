@@ -24,13 +24,15 @@ def _writable_dir(text: str) -> Path:
 def calibration_settings(args):
     from assistant.procedures.calibrate import CalibrationSettings
 
+    if args.invols_std and not args.invols:
+        raise UsageError("--invols-std is the uncertainty of --invols: give --invols too")
     return CalibrationSettings(
         probe_name=args.probe, length_m=args.length_um * 1e-6 if args.length_um else None,
         width_m=args.width_um * 1e-6 if args.width_um else None,
         temperature_k=args.temperature_k, pressure_pa=args.pressure_pa,
         thermal_seconds=args.thermal_seconds, free_amplitude_m=args.free_amplitude_nm * 1e-9,
         setpoint_ratio=args.setpoint_ratio, invols_m_per_v=args.invols * 1e-9 if args.invols else None,
-        contact_invols=args.contact_invols)
+        invols_std_m_per_v=args.invols_std * 1e-9 if args.invols_std else None, contact_invols=args.contact_invols)
 
 
 def _series_settings(args):

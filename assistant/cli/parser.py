@@ -368,6 +368,9 @@ def _calibration_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--invols", type=positive(), metavar="NM_PER_V",
                    help="an optical-lever sensitivity (InvOLS) you measured, in nm/V: makes the thermal k an "
                         "independent check of Sader")
+    p.add_argument("--invols-std", type=positive(), metavar="NM_PER_V",
+                   help="standard uncertainty of --invols in nm/V (default: 2 %% of it, common practice for a "
+                        "force-curve sensitivity)")
     p.add_argument("--contact-invols", action="store_true",
                    help="measure the optical-lever sensitivity from a force curve on the surface (wears the "
                         "magnetic coating!)")

@@ -67,7 +67,8 @@ class CalibrationSettings:
             v = getattr(self, name)
             if not (isinstance(v, (int, float)) and math.isfinite(v) and v > 0):
                 raise CalibrationError(f"{name} = {v!r} must be positive")
-        for name in ("temperature_k", "length_m", "width_m", "invols_m_per_v", "thermal_rate_hz"):
+        for name in ("temperature_k", "length_m", "width_m", "invols_m_per_v", "invols_std_m_per_v",
+                     "thermal_rate_hz"):
             v = getattr(self, name)
             if v is not None and not (math.isfinite(v) and v > 0):
                 raise CalibrationError(f"{name} = {v!r} must be positive")

@@ -208,3 +208,19 @@ def test_plain_progress_writes_a_finished_step_before_what_follows():
     out.write("summary\n")
     p.close()
     assert out.getvalue().splitlines() == ["report 0 of 5 figure groups", "report 5 of 5 figure groups", "summary"]
+
+
+def test_a_sensitivity_error_needs_the_sensitivity(capsys):
+    for command in ("calibrate", "run"):
+        assert main([command, "--invols-std", "1.5"]) == 2
+        err = capsys.readouterr().err.strip()
+        assert "give --invols too" in err and len(err.splitlines()) == 1
+
+
+def test_calibration_options_carry_the_sensitivity_error():
+    from assistant.cli.cmd_run import calibration_settings
+    from assistant.cli.parser import build_parser
+
+    args = build_parser().parse_args(["calibrate", "--invols", "50", "--invols-std", "1.5"])
+    s = calibration_settings(args)
+    assert (s.invols_m_per_v, s.invols_std_m_per_v) == (pytest.approx(50e-9), pytest.approx(1.5e-9))

@@ -132,3 +132,25 @@ def test_a_sweep_drive_above_the_software_limit_is_refused_before_anything_runs(
                                                sweep_drive_v=2 * ctl.limits.drive_max_v),
                       limits=SafetyLimits(drive_amplitude_max_v=10 * ctl.limits.drive_max_v))
         assert rec.calls == []
+
+
+def test_a_given_sensitivity_carries_its_own_uncertainty_into_k():
+    # k = kB T / (chi^2 InvOLS^2 A): to first order (k_std / k)^2 gains (2 InvOLS_std / InvOLS)^2 (standard
+    # propagation of a power law). The same seed gives the same thermal fit, so between two stated sensitivity
+    # errors only that term changes.
+    def k_check(std_nm_per_v):
+        with open_controller("sim://", seed=14) as ctl:
+            r = calibrate(ctl, CalibrationSettings(temperature_k=ROOM_K, thermal_seconds=0.5, invols_m_per_v=50e-9,
+                                                   invols_std_m_per_v=std_nm_per_v * 1e-9))
+            assert ctl.status().safe
+        assert r.invols_std_m_per_v == pytest.approx(std_nm_per_v * 1e-9)
+        return r.thermal_k_check["k_n_per_m"], r.thermal_k_check["k_std_n_per_m"]
+
+    (k1, s1), (k2, s2) = k_check(1.0), k_check(2.5)
+    assert k1 == k2
+    assert (s2 / k2) ** 2 - (s1 / k1) ** 2 == pytest.approx(4 * (2.5**2 - 1.0**2) / 50.0**2, rel=1e-9)
+
+
+def test_a_sensitivity_error_must_be_finite_and_positive():
+    with pytest.raises(CalibrationError, match="invols_std_m_per_v"):
+        CalibrationSettings(invols_m_per_v=50e-9, invols_std_m_per_v=float("inf")).validate()
