@@ -112,7 +112,7 @@ def _load_record(p: Path, rate_hz: float | None):
 
 
 TEMPERATURE_SOURCES = {"given": "", "session": " as the session recorded it",
-                       "assumed": " assumed: give the lever's temperature with --temperature-k"}
+                       "assumed": " assumed, ± 3 K in the errors: give the lever's temperature with --temperature-k"}
 
 
 def _temperature(args, recorded=None) -> tuple[float, str]:
@@ -125,6 +125,14 @@ def _temperature(args, recorded=None) -> tuple[float, str]:
     from assistant.procedures.calibrate import DEFAULT_TEMPERATURE_K
 
     return DEFAULT_TEMPERATURE_K, "assumed"
+
+
+def _temperature_std(source: str) -> float:
+    """The temperature's standard uncertainty [K] for ``source``: the calibration's, assumed or read."""
+    from assistant.analysis.calibration import DEFAULT_TEMPERATURE_STD_K
+    from assistant.procedures.calibrate import ASSUMED_TEMPERATURE_STD_K
+
+    return ASSUMED_TEMPERATURE_STD_K if source == "assumed" else DEFAULT_TEMPERATURE_STD_K
 
 
 def thermal(args) -> int:
@@ -145,7 +153,8 @@ def thermal(args) -> int:
         t_k, t_source = _temperature(args)
         fit = analyse_thermal_record(volts, rate, temperature_k=t_k, detection=args.detection,
                                      f0_guess_hz=args.f0_hz_guess).fit
-        result = calibrate_thermal(fit, temperature_k=t_k, detection=args.detection, **known)
+        result = calibrate_thermal(fit, temperature_k=t_k, detection=args.detection,
+                                   temperature_std_k=_temperature_std(t_source), **known)
     if args.plot:
         from assistant.report.calibration_figures import write_thermal_figure
 
@@ -202,7 +211,8 @@ def _thermal_from_session(p: Path, args, known: dict):
         raise UsageError(f"{p}: the last calibration kept no thermal spectrum")
     t_k, source = _temperature(args, rec.scalars.get("temperature_k"))
     fit = stored_thermal_fit(rec, f0_guess_hz=args.f0_hz_guess)
-    return calibrate_thermal(fit, temperature_k=t_k, detection=args.detection, **known), source
+    return calibrate_thermal(fit, temperature_k=t_k, detection=args.detection,
+                             temperature_std_k=_temperature_std(source), **known), source
 
 
 # ---- sader ---------------------------------------------------------------------------------------------------

@@ -30,6 +30,9 @@ from assistant.procedures.guard import SafetyError, SafetyLimits, safety_guard
 CHI_OPTICAL_LEVER = math.sqrt(cal.DETECTION_FACTORS["displacement"] / cal.DETECTION_FACTORS["optical-lever"])
 
 DEFAULT_TEMPERATURE_K = 295.15  # a typical lab (22 C) when nothing better is known
+# its standard uncertainty when assumed: 19-25 C spans the rooms microscopes stand in (common practice, no source);
+# a read thermometer keeps the Sader module's 1 K
+ASSUMED_TEMPERATURE_STD_K = 3.0
 
 #: Lock-in readings averaged for the free amplitude and the phase reference. The reference's error is an offset
 #: of every image: with 200 readings (0.023 deg on the simulated stage) one seed's default run read 0.059 deg of
@@ -204,12 +207,16 @@ def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits
         notes.append(text)
         sink(Notice(level, text))
 
+    temperature_std_k = cal.DEFAULT_TEMPERATURE_STD_K
     if settings.temperature_k is None:
         sensed = (controller.probe_hint() or {}).get("temperature_k")
         settings = dataclasses.replace(settings, temperature_k=float(sensed) if sensed else DEFAULT_TEMPERATURE_K)
+        temperature_std_k = cal.DEFAULT_TEMPERATURE_STD_K if sensed else ASSUMED_TEMPERATURE_STD_K
         note("info" if sensed else "warning",
              f"air temperature {settings.temperature_k:.2f} K "
-             + ("from the instrument's sensor" if sensed else "assumed; give the measured value (--temperature-k)"))
+             + ("from the instrument's sensor" if sensed else
+                f"assumed (± {ASSUMED_TEMPERATURE_STD_K:g} K in the errors); give the measured value "
+                f"(--temperature-k)"))
 
     with safety_guard(controller, sink=sink):
         controller.make_safe()
@@ -231,7 +238,8 @@ def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits
         if length and width:
             sader = cal.sader_spring_constant(length_m=length, width_m=width, f0_hz=fit.f0_hz, q=fit.q,
                                               f0_std_hz=fit.f0_std_hz, q_std=fit.q_std,
-                                              temperature_k=settings.temperature_k, pressure_pa=settings.pressure_pa)
+                                              temperature_k=settings.temperature_k, pressure_pa=settings.pressure_pa,
+                                              temperature_std_k=temperature_std_k)
             for w in sader.warnings:
                 note("warning", f"Sader: {w}")
             note("info", f"Sader k = {sader.k_n_per_m:.4g} ± {sader.k_std_n_per_m:.2g} N/m "
@@ -252,7 +260,8 @@ def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits
             source_inv = "force curve (contact)" if contact is not None else "entered by the user"
             thermal_k = thermal_result = cal.calibrate_thermal(fit, temperature_k=settings.temperature_k,
                                                                invols_m_per_v=user_invols,
-                                                               invols_std_m_per_v=user_invols_std)
+                                                               invols_std_m_per_v=user_invols_std,
+                                                               temperature_std_k=temperature_std_k)
             invols, invols_std, invols_source = user_invols, user_invols_std, source_inv
             if sader is not None:
                 k, k_std, k_source = sader.k_n_per_m, sader.k_std_n_per_m, "Sader method"

@@ -125,7 +125,16 @@ def test_thermal_reanalysis_of_a_session_uses_its_recorded_temperature(tmp_path,
     assert json.loads(capsys.readouterr().out)["invols_nm_per_v"] == pytest.approx(50.0 * (295.15 / 298.15) ** 0.5,
                                                                                    rel=5e-4)
     assert main(["analyze", "thermal", str(tmp_path / "bare.h5"), "--k", "2.8"]) == 0
-    assert "295.1 K assumed: give the lever's temperature with --temperature-k" in capsys.readouterr().out
+    assert "295.1 K assumed, ± 3 K in the errors: give the lever's temperature with --temperature-k" in \
+        capsys.readouterr().out
+    # InvOLS ~ T^(1/2): to first order (2 sigma_InvOLS / InvOLS)^2 holds (sigma_T / T)^2 (standard propagation);
+    # assumed, T is uncertain by 3 K, read or given by 1 K, and nothing else differs
+    rel2 = {}
+    for extra in ([], ["--temperature-k", "295.15"]):
+        assert main(["analyze", "thermal", str(tmp_path / "bare.h5"), "--k", "2.8", "--json", *extra]) == 0
+        d = json.loads(capsys.readouterr().out)
+        rel2[bool(extra)] = (2 * d["invols_std_nm_per_v"] / d["invols_nm_per_v"]) ** 2
+    assert rel2[False] - rel2[True] == pytest.approx((3.0**2 - 1.0**2) / 295.15**2, rel=1e-6)
 
 
 def test_thermal_fit_starts_at_the_given_resonance(tmp_path, capsys):

@@ -154,3 +154,18 @@ def test_a_given_sensitivity_carries_its_own_uncertainty_into_k():
 def test_a_sensitivity_error_must_be_finite_and_positive():
     with pytest.raises(CalibrationError, match="invols_std_m_per_v"):
         CalibrationSettings(invols_m_per_v=50e-9, invols_std_m_per_v=float("inf")).validate()
+
+
+def test_an_assumed_temperature_widens_the_errors():
+    # with no thermometer the air is taken at 295.15 K +- 3 K (common practice, no source) and both k routes carry
+    # it: the Sader k through the air's properties, the thermal k as (sigma_T / T)^2 (standard propagation)
+    with open_controller("sim://", seed=15) as ctl:
+        hint = ctl.probe_hint()
+        ctl.probe_hint = lambda: {k: v for k, v in hint.items() if k != "temperature_k"}
+        r = calibrate(ctl, CalibrationSettings(thermal_seconds=0.5, invols_m_per_v=50e-9))
+        assert ctl.status().safe
+    assert r.sader.temperature_std_k == 3.0 and r.thermal.temperature_k == 295.15
+    assert any("assumed (± 3 K in the errors)" in n for n in r.notices)
+    rel = r.thermal.k_std_n_per_m / r.thermal.k_n_per_m
+    area = r.thermal.peak_area_std_v2 / r.thermal.peak_area_v2
+    assert rel**2 == pytest.approx(area**2 + (2 * 0.02) ** 2 + (3.0 / 295.15) ** 2, rel=1e-9)
