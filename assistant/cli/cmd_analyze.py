@@ -211,8 +211,9 @@ def _thermal_from_session(p: Path, args, known: dict):
         raise UsageError(f"{p}: the last calibration kept no thermal spectrum")
     t_k, source = _temperature(args, rec.scalars.get("temperature_k"))
     fit = stored_thermal_fit(rec, f0_guess_hz=args.f0_hz_guess)
+    t_std = rec.scalars.get("temperature_std_k") if source == "session" else None  # an assumed one was kept wider
     return calibrate_thermal(fit, temperature_k=t_k, detection=args.detection,
-                             temperature_std_k=_temperature_std(source), **known), source
+                             temperature_std_k=float(t_std or _temperature_std(source)), **known), source
 
 
 # ---- sader ---------------------------------------------------------------------------------------------------

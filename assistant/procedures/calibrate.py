@@ -111,6 +111,7 @@ class CalibrationResult:
     contact: object | None = None
     notices: list[str] = field(default_factory=list)
     sweep_data: object | None = None
+    temperature_std_k: float | None = None  # of the air temperature the calibration took (assumed: wider)
 
     def summary(self) -> dict:
         """Every headline number with its unit in the key and where it came from."""
@@ -125,7 +126,7 @@ class CalibrationResult:
             "free_amplitude_nm": self.drive.free_amplitude_m * 1e9, "free_amplitude_v": self.drive.free_amplitude_v,
             "setpoint_v": self.drive.setpoint_v, "phase_reference_deg": self.drive.phase_reference_deg,
             "phase_reference_std_deg": self.drive.phase_reference_std_deg,
-            "temperature_k": self.thermal.temperature_k,
+            "temperature_k": self.thermal.temperature_k, "temperature_std_k": self.temperature_std_k,
         }
         if self.thermal_k_check is not None:
             d.update({f"thermal_check_{k}": v for k, v in self.thermal_k_check.items()})
@@ -303,7 +304,7 @@ def calibrate(controller, settings: CalibrationSettings, *, limits: SafetyLimits
     return CalibrationResult(thermal=thermal_result, sweep=sweep_fit, sader=sader, k_n_per_m=k, k_std_n_per_m=k_std,
                              k_source=k_source, invols_m_per_v=invols, invols_std_m_per_v=invols_std,
                              invols_source=invols_source, drive=drive, thermal_k_check=check, contact=contact,
-                             notices=notes, sweep_data=sweep_data)
+                             notices=notes, sweep_data=sweep_data, temperature_std_k=temperature_std_k)
 
 
 def _drive_setup(controller, settings: CalibrationSettings, sweep_fit, invols_m_per_v: float, *,

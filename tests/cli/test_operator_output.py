@@ -135,6 +135,12 @@ def test_thermal_reanalysis_of_a_session_uses_its_recorded_temperature(tmp_path,
         d = json.loads(capsys.readouterr().out)
         rel2[bool(extra)] = (2 * d["invols_std_nm_per_v"] / d["invols_nm_per_v"]) ** 2
     assert rel2[False] - rel2[True] == pytest.approx((3.0**2 - 1.0**2) / 295.15**2, rel=1e-6)
+    # a session whose calibration assumed the temperature recorded its wider error, and the reanalysis keeps it
+    with SessionFile.create(tmp_path / "kept.h5", controller_url="sim://", software_version="0") as s:
+        s.write_calibration({"spectrum_segments": 20, "temperature_k": 295.15, "temperature_std_k": 3.0}, spectrum)
+    assert main(["analyze", "thermal", str(tmp_path / "kept.h5"), "--k", "2.8", "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert (2 * d["invols_std_nm_per_v"] / d["invols_nm_per_v"]) ** 2 == pytest.approx(rel2[False], rel=1e-9)
 
 
 def test_thermal_fit_starts_at_the_given_resonance(tmp_path, capsys):

@@ -165,6 +165,7 @@ def test_an_assumed_temperature_widens_the_errors():
         r = calibrate(ctl, CalibrationSettings(thermal_seconds=0.5, invols_m_per_v=50e-9))
         assert ctl.status().safe
     assert r.sader.temperature_std_k == 3.0 and r.thermal.temperature_k == 295.15
+    assert r.summary()["temperature_std_k"] == 3.0  # what the session keeps for a later reanalysis
     assert any("assumed (± 3 K in the errors)" in n for n in r.notices)
     rel = r.thermal.k_std_n_per_m / r.thermal.k_n_per_m
     area = r.thermal.peak_area_std_v2 / r.thermal.peak_area_v2
