@@ -9,8 +9,8 @@ from pathlib import Path
 import numpy as np
 
 from assistant.analysis.imaging import DECOMPOSITION_MIN_HEIGHTS, ImagingAnalysis, analyse_imaging
-from assistant.analysis.lift_series import (ProbeModel, SeriesAnalysis, SeriesInputError, analyse_series,
-                                            first_pass_gap_offset_m)
+from assistant.analysis.lift_series import (FIRST_PASS_GAP_OFFSET_STD_M, ProbeModel, SeriesAnalysis,
+                                            SeriesInputError, analyse_series, first_pass_gap_offset_m)
 from assistant.procedures.events import Notice, Sink, null_sink
 
 DEFAULT_TIP_RADIUS_M = 30e-9  # nominal apex radius of a magnetic-coated tip; a setting, not a measurement
@@ -42,6 +42,7 @@ def stored_probe(settings: dict, *, line_rate_hz: float | None = None, pixels: i
         fields["amplitude_m"] = float(amp)
         if ratio:
             fields["gap_offset_m"] = first_pass_gap_offset_m(amp, ratio)
+            fields["gap_offset_std_m"] = FIRST_PASS_GAP_OFFSET_STD_M  # the rule's, into the split's uncertainty
     return ProbeModel(**{k: v for k, v in fields.items() if v is not None})
 
 

@@ -18,7 +18,8 @@ __getattr__, __dir__ = attach(__name__, {
     "decomposition": ("EDGES", "analyse_series"),
     "errors": ("HeightsMismatchError", "HeightsNotIncreasingError", "ImageShapeError", "SeriesInputError",
               "TooFewBiasesError", "TooFewHeightsError", "TooManyInvalidPixelsError"),
-    "image_mean_models": ("centre_gap_m", "first_pass_gap_offset_m", "image_mean_shapes"),
+    "image_mean_models": ("FIRST_PASS_GAP_OFFSET_STD_M", "centre_gap_m", "first_pass_gap_offset_m",
+              "image_mean_shapes"),
     "image_means": ("MeanFit", "cpd_sentence", "fit_mean_bias_grid", "fit_mean_heights", "plus_minus"),
     "image_noise": ("band_noise_variance", "shrunk_noise_variance"),
     "interaction_regime": ("REGIMES", "InteractionRegime", "classify_interaction",
@@ -41,7 +42,8 @@ __getattr__, __dir__ = attach(__name__, {
 })
 
 __all__ = [
-    "EDGES", "REGIMES", "ContinuationFit", "HeightsMismatchError", "HeightsNotIncreasingError", "ImageShapeError",
+    "EDGES", "FIRST_PASS_GAP_OFFSET_STD_M", "REGIMES",
+    "ContinuationFit", "HeightsMismatchError", "HeightsNotIncreasingError", "ImageShapeError",
     "InteractionRegime", "MeanFit", "MeanParts", "NoiseVerdict", "ProbeModel", "Recommendation", "SeriesAnalysis",
     "SeriesInputError", "SignalSpace", "TipCandidate", "TipChange", "TooFewBiasesError", "TooFewHeightsError",
     "TooManyInvalidPixelsError", "align_stack", "analyse_series", "band_noise_variance", "centre_gap_m",

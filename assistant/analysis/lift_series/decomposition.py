@@ -386,6 +386,7 @@ def _mean_parts(means, mean_sd, weight_sd, fit, h, volts, probe: ProbeModel, spa
                                   tip_radius_rel_std=probe.tip_radius_rel_std,
                                   cone_half_angle_deg=probe.cone_half_angle_deg, cone_height_m=probe.cone_height_m,
                                   amplitude_m=probe.amplitude_m, gap_offset_m=probe.gap_offset_m,
+                                  gap_offset_std_m=probe.gap_offset_std_m,
                                   attractive_sign=1.0 if space.exact else -1.0, to_deg=space.to_phase,
                                   weight_std=weight_sd[:, 0])
     except ValueError as exc:

@@ -19,6 +19,12 @@ from assistant.errors import InputError
 from .probe import ProbeModel
 
 EPSILON_0_F_PER_M = 8.8541878188e-12  # CODATA 2022
+# Standard uncertainty of the setpoint rule's gap offset (first_pass_gap_offset_m). The rule is the hard-contact
+# limit: the tip touches the surface at the bottom of each tapping cycle. A real cycle's lowest point lies below
+# contact by the indentation of a hard film (a few tenths of a nm) or above it where the attractive forces alone
+# hold the amplitude at the setpoint (the attractive regime, about a nanometre; Garcia & San Paulo 1999,
+# Phys. Rev. B 60, 4961, from memory): 0.5 nm either way as one standard uncertainty (common practice, no source)
+FIRST_PASS_GAP_OFFSET_STD_M = 0.5e-9
 
 __all__ = [
     "EPSILON_0_F_PER_M",
@@ -35,6 +41,7 @@ __all__ = [
     "amplitude_weighted",
     "centre_gap_m",
     "first_pass_gap_offset_m",
+    "FIRST_PASS_GAP_OFFSET_STD_M",
     "image_mean_shapes",
 ]
 
@@ -278,7 +285,7 @@ def first_pass_gap_offset_m(amplitude_m: float, setpoint_ratio: float) -> float:
     """Oscillation centre above the surface at zero lift [m], for a series whose first pass ran under amplitude
     feedback: a tapping tip's amplitude is limited by the gap, and the feedback holds it at the setpoint, so
     the centre sits about one setpoint amplitude, ``amplitude_m * setpoint_ratio``, above the surface (a
-    model, common practice, no source)."""
+    model, common practice, no source), to within :data:`FIRST_PASS_GAP_OFFSET_STD_M`."""
     return float(amplitude_m) * float(setpoint_ratio)
 
 

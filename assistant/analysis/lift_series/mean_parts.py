@@ -10,9 +10,9 @@ Only the split of that total into the electrostatic part (``1/2 C''(z) (V - V_cp
 Smythe 1968, plus the Hudlet et al. 1998 cone, Eur. Phys. J. B 2, 5) and the short-range part (Hamaker sphere,
 Hamaker 1937, Physica 4, 1058), both averaged over the oscillation (Giessibl 2001, Appl. Phys. Lett. 78, 123),
 depends on the tip. From heights alone the split rests on the shapes of those curves, so it is fitted with
-every plausible tip (cone or none, radius within its uncertainty, and where the file does not state them the
-amplitude and the gap offset over a range: :mod:`.tip_candidates`), each fit holding both parts attractive,
-the fits are averaged with weights ``exp(-chi2 / (2 B^2))`` (equal
+every plausible tip (cone or none, radius within its uncertainty, a stated gap offset within its uncertainty,
+and where the file does not state them the amplitude and the gap offset over a range: :mod:`.tip_candidates`),
+each fit holding both parts attractive, the fits are averaged with weights ``exp(-chi2 / (2 B^2))`` (equal
 priors; the chi-square of each tip model against the measured means, tempered by the Birge ratio ``B`` of the
 best one, so that where no model fits within noise the weights do not single one out), and the split's
 uncertainty has three parts: the noise (propagated to first order through the whole procedure, so it is the
@@ -149,8 +149,8 @@ def _average(y, cinv, e, s, sign=1.0):
 def split_heights_only(total, total_std, magnetic_mean_cov, *, heights_m, tip_radius_m: float,
                        tip_radius_rel_std: float = TIP_RADIUS_REL_STD, cone_half_angle_deg: float | None,
                        cone_height_m: float, amplitude_m: float | None, gap_offset_m: float | None,
-                       attractive_sign: float = 1.0, separation_tolerance: float = 0.2, to_deg=None,
-                       weight_std=None) -> MeanParts:
+                       gap_offset_std_m: float | None = None, attractive_sign: float = 1.0,
+                       separation_tolerance: float = 0.2, to_deg=None, weight_std=None) -> MeanParts:
     """Split the measured non-magnetic total per height into electrostatic and short-range parts.
 
     Parameters
@@ -171,6 +171,10 @@ def split_heights_only(total, total_std, magnetic_mean_cov, *, heights_m, tip_ra
     amplitude_m, gap_offset_m : float or None
         Peak amplitude and gap offset [m] when known. None: :data:`ASSUMED_AMPLITUDE_M` and a factor
         :data:`AMPLITUDE_RANGE_FACTOR` either way; an offset between half the amplitude and the amplitude.
+    gap_offset_std_m : float, optional
+        Standard uncertainty of a stated ``gap_offset_m`` [m] (the setpoint rule's:
+        :data:`.image_mean_models.FIRST_PASS_GAP_OFFSET_STD_M`); the models take the offset and offsets either
+        side, so it enters the model uncertainty. None or 0: the offset is exact.
     attractive_sign : float
         Sign an attractive part has in the signal units (+1 force gradient, -1 phase).
     separation_tolerance : float
@@ -191,7 +195,8 @@ def split_heights_only(total, total_std, magnetic_mean_cov, *, heights_m, tip_ra
     h = np.asarray(heights_m, float)
     deg = (lambda x: np.asarray(x, float)) if to_deg is None else to_deg
     every = candidates(radius_m=tip_radius_m, radius_rel_std=tip_radius_rel_std,
-                       cone_half_angle_deg=cone_half_angle_deg, amplitude_m=amplitude_m, gap_offset_m=gap_offset_m)
+                       cone_half_angle_deg=cone_half_angle_deg, amplitude_m=amplitude_m, gap_offset_m=gap_offset_m,
+                       gap_offset_std_m=gap_offset_std_m)
     cands, e, s, too_close = shapes(every, h, cone_height_m)
     if not cands:
         raise ValueError("no tip model keeps the tip off the surface at the lowest height")
@@ -255,6 +260,8 @@ def split_heights_only(total, total_std, magnetic_mean_cov, *, heights_m, tip_ra
             {(c.amplitude_m, c.gap_offset_m) for c in cands})
         assumed["gap_offset"], words_gap = _offset_words(fitted, h[0], tried=len(gaps), left_out=left_out)
         extra.append(words_gap)
+    elif gap_offset_std_m:
+        geometry += f", gap offset {gap_offset_m * 1e9:.3g} ± {gap_offset_std_m * 1e9:.2g} nm"
     # in degrees for the sentence
     es0, sr0, t0 = float(deg(es[0])), float(deg(sr[0])), float(deg(y[0]))
     fit_words = (f"The image-mean model fits the measured means within their uncertainty (noise and magnetic "

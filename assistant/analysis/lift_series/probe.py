@@ -37,6 +37,11 @@ class ProbeModel:
         Oscillation centre above the surface at zero lift [m]; None: not known; the amplitude (closest
         approach = lift height) is assumed and offsets down to half the amplitude enter the split's
         uncertainty. :func:`~.image_mean_models.first_pass_gap_offset_m` gives it from the setpoint.
+    gap_offset_std_m : float, optional
+        Standard uncertainty [m] of a given ``gap_offset_m``: the split of the image means is then averaged over
+        that offset and offsets either side (:mod:`.tip_candidates`), so it enters the split's model uncertainty.
+        None or 0: the offset is taken as exact. The setpoint rule's is
+        :data:`~.image_mean_models.FIRST_PASS_GAP_OFFSET_STD_M`.
     phase_reference_std_deg : float, optional
         Standard error [deg] of the free lever's phase that was subtracted from every pass: its error is an
         offset of every image, which the short-range part (and the non-magnetic total) carries, so it joins their
@@ -53,6 +58,7 @@ class ProbeModel:
     cone_height_m: float = 10e-6
     amplitude_m: float | None = None
     gap_offset_m: float | None = None
+    gap_offset_std_m: float | None = None
     tip_radius_rel_std: float = TIP_RADIUS_REL_STD
     phase_reference_std_deg: float | None = None
 

@@ -2,8 +2,11 @@
 
 Each candidate is a tip (exact sphere series, Smythe 1968, or the Hudlet et al. 1998 apex, Eur. Phys. J. B 2,
 5; with their cone or none; apex and van der Waals radii each within their uncertainty) at an amplitude and a
-gap offset. A candidate whose oscillating tip comes closer to the surface than :data:`MIN_CLOSEST_APPROACH_M`
-at the lowest height is left out while others remain: there the continuum models (the Hamaker sphere, Hamaker
+gap offset: a stated offset with its standard uncertainty sigma is taken at itself and sqrt(3/2) sigma either
+side, three offsets of equal prior weight whose variance is sigma^2, so that the spread of the split over them
+is the offset's uncertainty propagated (the tip models are averaged with equal priors, :mod:`.mean_parts`).
+A candidate whose oscillating tip comes closer to the surface than :data:`MIN_CLOSEST_APPROACH_M` at the
+lowest height is left out while others remain: there the continuum models (the Hamaker sphere, Hamaker
 1937, Physica 4, 1058; the image-charge series) no longer describe a tip, and such a candidate fitted stage
 means best with a repulsive short-range part (10 nm lift, 19.7 nm amplitude, offset half of it: 0.18 nm).
 """
@@ -18,11 +21,12 @@ from . import image_mean_models as lm
 from .probe import ASSUMED_AMPLITUDE_M
 
 __all__ = ["TipCandidate", "candidates", "shapes", "AMPLITUDE_RANGE_FACTOR", "GAP_OFFSET_LOW_FRACTION",
-           "GAP_OFFSET_STEPS", "MIN_CLOSEST_APPROACH_M"]
+           "GAP_OFFSET_STEPS", "GAP_OFFSET_SPREAD", "MIN_CLOSEST_APPROACH_M"]
 
 AMPLITUDE_RANGE_FACTOR = 2.0  # small and large amplitude: a factor of two either way (no source)
 GAP_OFFSET_LOW_FRACTION = 0.5   # lowest first-pass setpoint ratio considered when the offset is not given
 GAP_OFFSET_STEPS = 11            # offsets tried from that fraction of the amplitude to all of it, evenly spaced
+GAP_OFFSET_SPREAD = float(np.sqrt(1.5))  # a stated offset's neighbours, in its standard uncertainties
 # closest approach below which a tip model is not plausible: a few atomic spacings, where contact forces and
 # the atomic structure take over from the continuum forces (common practice, no source)
 MIN_CLOSEST_APPROACH_M = 1e-9
@@ -52,8 +56,10 @@ class TipCandidate:
                 "gap_offset_nm": self.gap_offset_m * 1e9, "reduced_chi2": self.reduced_chi2, "weight": self.weight}
 
 
-def candidates(*, radius_m, radius_rel_std, cone_half_angle_deg, amplitude_m, gap_offset_m):
-    """Every combination of cone, apex model, both radii, amplitude and gap offset."""
+def candidates(*, radius_m, radius_rel_std, cone_half_angle_deg, amplitude_m, gap_offset_m,
+               gap_offset_std_m: float | None = None):
+    """Every combination of cone, apex model, both radii, amplitude and gap offset (a stated offset with a
+    standard uncertainty: it and :data:`GAP_OFFSET_SPREAD` uncertainties either side)."""
     # the electrostatic and the short-range radius vary independently: the apex that the field lines see
     # (coating, cone, contamination) need not be the sphere that the van der Waals force sees, and with one
     # radius for both an apex model that the set lacks (Hudlet's, on 256 x 256 synthetic crops) was matched
@@ -65,8 +71,12 @@ def candidates(*, radius_m, radius_rel_std, cone_half_angle_deg, amplitude_m, ga
                   ASSUMED_AMPLITUDE_M * AMPLITUDE_RANGE_FACTOR])
     out = []
     for amp in amps:
-        gaps = ([gap_offset_m] if gap_offset_m is not None
-                else list(np.linspace(GAP_OFFSET_LOW_FRACTION, 1.0, GAP_OFFSET_STEPS) * amp))
+        if gap_offset_m is None:
+            gaps = list(np.linspace(GAP_OFFSET_LOW_FRACTION, 1.0, GAP_OFFSET_STEPS) * amp)
+        elif gap_offset_std_m:
+            gaps = [gap_offset_m + j * GAP_OFFSET_SPREAD * gap_offset_std_m for j in (-1, 0, 1)]
+        else:
+            gaps = [gap_offset_m]
         for gap in gaps:
             for cone in cones:
                 for r in radii:
