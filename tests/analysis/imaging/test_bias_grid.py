@@ -12,6 +12,8 @@ from memory).
 
 from __future__ import annotations
 
+import re
+
 import numpy as np
 import pytest
 
@@ -123,3 +125,17 @@ def test_a_flat_noiseless_grid_gives_no_cpd():
     a = analyse_imaging(np.zeros((1, 4, 8, 8)), heights_m=[20e-9], bias_v=GRID, spring_constant_n_per_m=2.8,
                         quality_factor=200.0)
     assert a.cpd_v is None and "not determined" in a.parabola.sentence
+
+
+def test_a_vertex_beyond_the_reach_of_the_biases_is_not_reported():
+    # V_cpd = -2 V, biases 0, 0.5, 1 V at 60 nm: the common-vertex fit searches one bias range either side and
+    # stopped at its edge, reported as "V_cpd = -1000.0 +- 4.3 mV"; now not determined, with the reason
+    biases = np.array([0.0, 0.5, 1.0])
+    s = synthetic.build_series(rows=32, cols=32, pixel_m=20e-9, heights_m=(60e-9,), bias_v=biases, cpd_v=-2.0,
+                               noise_deg=0.03, margin_px=8, seed=5)
+    a = analyse_imaging(s.phase_deg, heights_m=s.heights_m, bias_v=biases, **_kq(s))
+    assert a.cpd_v is None and a.to_dict()["cpd_v"] is None
+    assert "not determined" in a.parabola.sentence and "below" in a.parabola.sentence
+    # the vertex the sentence names (the profile's minimum on a 0.01 V grid) is near the truth
+    named = float(re.search(r"vertex at ([-+0-9.]+) V", a.parabola.sentence).group(1))
+    assert abs(named + 2.0) < 0.1
