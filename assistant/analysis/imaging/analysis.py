@@ -39,10 +39,10 @@ def _reference_noise(s4: np.ndarray, repeat: np.ndarray | None, tip: TipChange |
 def _upper_bound(v: NoiseVerdict) -> NoiseVerdict:
     """The verdict when the only noise estimate is the image's own high spatial frequencies: an upper bound
     (fine magnetic contrast counts as noise there), so neither excess noise nor a suspect calibration follows."""
-    limit = "" if v.thermal_phase_noise_deg is None else f" (thermal limit {v.thermal_phase_noise_deg:.3g} deg)"
+    limit = "" if v.thermal_phase_noise_deg is None else f" (thermal limit {v.thermal_phase_noise_deg:.3g}°)"
     return NoiseVerdict(v.measured_phase_noise_deg, v.thermal_phase_noise_deg, v.thermal_gradient_n_per_m, v.ratio,
                         "upper_bound",
-                        f"Phase noise at most {v.measured_phase_noise_deg:.3g} deg rms{limit}: without a repeat pass "
+                        f"Phase noise at most {v.measured_phase_noise_deg:.3g}° rms{limit}: without a repeat pass "
                         "or a bias grid the noise cannot be told from fine contrast, so this is the image's own "
                         "high-frequency content, an upper bound.")
 
