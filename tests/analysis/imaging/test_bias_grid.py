@@ -139,3 +139,16 @@ def test_a_vertex_beyond_the_reach_of_the_biases_is_not_reported():
     # the vertex the sentence names (the profile's minimum on a 0.01 V grid) is near the truth
     named = float(re.search(r"vertex at ([-+0-9.]+) V", a.parabola.sentence).group(1))
     assert abs(named + 2.0) < 0.1
+
+
+def test_noise_from_two_bias_images_far_apart_in_phase():
+    # at 20 nm the -1 V and +1 V images sit at -8.7 and -2.4 deg under an 8.6 deg rms magnetic pattern: in the phase
+    # the pattern does not cancel between them (the phase is -arctan(Q F'/k)), and the noise read 0.044 deg for the
+    # 0.030 put in; in -tan(phase) = Q F'/k it cancels
+    biases = np.array([-1.0, 1.0])
+    s = synthetic.build_series(rows=48, cols=48, pixel_m=20e-9, heights_m=(20e-9,), bias_v=biases, cpd_v=CPD_V,
+                               noise_deg=0.03, margin_px=12, seed=4)
+    a = analyse_imaging(s.phase_deg, heights_m=s.heights_m, bias_v=biases)
+    assert a.noise_source.startswith("the difference of two bias images")
+    assert a.image_rms_deg.max() > 8.0 and a.image_mean_deg[0, 0] < -8.0
+    assert a.reference_noise_deg == pytest.approx(0.03, rel=0.06)
