@@ -12,7 +12,9 @@ least three heights. One or two heights still give:
 * with a bias grid (at least three biases) the contact potential difference V_cpd: the electrostatic gradient
   is ``1/2 C''(z) (V - V_cpd)^2`` (Hudlet, Saint Jean, Guthmann & Berger 1998, Eur. Phys. J. B 2, 5; the
   capacitance of a sphere over a plane after Smythe, Static and Dynamic Electricity), so the image mean is a
-  parabola in V whose vertex is V_cpd at every height. No height series is needed.
+  parabola in V whose vertex is V_cpd at every height. No height series is needed. The phase is turned into the
+  gradient (with k and Q) or into ``-tan(phase) = Q F'/k`` (without), after the drive's phase offset from
+  quadrature is read from the same means (:mod:`..lift_series.drive_offset`).
 
 The error model of V_cpd is in :mod:`.parabola`; the result is :class:`.result.ImagingAnalysis`.
 """

@@ -54,15 +54,17 @@ class BiasParabola:
 
 
 def _line_means(stack: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Mean of every line of every image, (H, B, L), and the lines valid in every image of their height."""
-    with np.errstate(invalid="ignore"):
-        counts = np.isfinite(stack).sum(axis=-1)
-        means = np.nansum(stack, axis=-1) / np.where(counts > 0, counts, 1)
-    ok = (counts > 0).all(axis=1)  # (H, L)
-    return means, ok
+    """Mean of every line of every image, (H, B, L), over the pixels valid at every bias of its height, and the
+    lines that keep at least one such pixel (H, L). A pixel missing at one bias alone (beyond the phase limit far
+    from V_cpd) would leave its magnetic contrast in that bias's line mean only, where it no longer cancels."""
+    valid = np.broadcast_to(np.isfinite(stack).all(axis=1, keepdims=True), stack.shape)
+    counts = valid.sum(axis=-1)
+    means = np.where(valid, stack, 0.0).sum(axis=-1) / np.where(counts > 0, counts, 1)
+    return means, (counts > 0).all(axis=1)
 
 
-def fit_bias_parabola(stack, *, bias_v, attractive_sign: float = 1.0, min_significance: float = 3.0) -> BiasParabola:
+def fit_bias_parabola(stack, *, bias_v, attractive_sign: float = 1.0, min_significance: float = 3.0,
+                      extra_vertex_std_v: float = 0.0, extra_source: str = "") -> BiasParabola:
     """Fit ``a_h (V - V_cpd)^2 + c_h`` to the image means of a (heights, biases, lines, pixels) stack.
 
     Parameters
@@ -75,6 +77,9 @@ def fit_bias_parabola(stack, *, bias_v, attractive_sign: float = 1.0, min_signif
         +1 when the signal is a force gradient (an electrostatic attraction is positive), -1 for phase.
     min_significance : float
         Curvature below this many of its standard errors gives no V_cpd (rule of thumb, no source).
+    extra_vertex_std_v, extra_source : float, str
+        A further standard error of the vertex [V] not in the line scatter (the drive's phase offset, which the
+        signal was inverted with), added in quadrature, and what it comes from, for the sentence.
 
     Returns
     -------
@@ -85,6 +90,8 @@ def fit_bias_parabola(stack, *, bias_v, attractive_sign: float = 1.0, min_signif
     volts = np.asarray(bias_v, float)
     if s.ndim != 4 or s.shape[1] != volts.size:
         raise ImagingInputError(f"stack must be (heights, biases={volts.size}, lines, pixels), got {s.shape}")
+    if not np.all(np.isfinite(volts)):
+        raise ImagingInputError(f"the tip biases must be finite numbers, got {volts.tolist()} V")
     if np.unique(volts).size < 3:
         raise ImagingInputError(f"V_cpd from the bias parabola needs at least 3 distinct biases, got "
                                 f"{np.unique(volts).size}")
@@ -92,15 +99,18 @@ def fit_bias_parabola(stack, *, bias_v, attractive_sign: float = 1.0, min_signif
     y, ok = _line_means(s)
     n_lines = ok.sum(axis=1)  # per height
     if np.any(n_lines < 2):
-        raise ImagingInputError("V_cpd needs at least two complete lines at every height")
+        raise ImagingInputError(f"V_cpd needs at least two lines with data at every bias of a height; "
+                                f"{', '.join(map(str, n_lines.tolist()))} line(s) have it (missing pixels and "
+                                "pixels beyond the phase limit are left out)")
     y = np.where(ok[:, None, :], y, np.nan)
     mean = np.nanmean(y, axis=-1)  # (H, B)
     # interaction residual of lines x biases, per height
     r = y - np.nanmean(y, axis=1, keepdims=True) - (mean - mean.mean(axis=1, keepdims=True))[..., None]
     dof = int(((n_lines - 1) * (nb - 1)).sum())
     sigma = float(np.sqrt(np.nansum(r**2) / max(dof, 1)))
+    if not sigma > 0.0:  # noiseless means: weights at the resolution of the numbers themselves
+        sigma = float(np.finfo(float).eps * np.nanmax(np.abs(y))) or 1.0
     sd = np.repeat((sigma / np.sqrt(n_lines))[:, None], nb, axis=1)
-    sd = np.maximum(sd, 1e-300)
     fit = fit_mean_bias_grid(mean, sd, bias_v=volts)  # the common vertex and the parabolas
     vertex = float(fit.cpd_v)
     a = fit.parameters[1:1 + nh]
@@ -116,15 +126,22 @@ def fit_bias_parabola(stack, *, bias_v, attractive_sign: float = 1.0, min_signif
     if misfit:
         cov = cov * reduced
     a_sd = np.sqrt(np.diag(cov)[1:1 + nh])
-    vertex_sd = float(np.sqrt(cov[0, 0]))
+    vertex_sd = float(np.hypot(np.sqrt(cov[0, 0]), extra_vertex_std_v))
     signed = attractive_sign * a
     significant = bool(np.all(np.isfinite(a_sd))) and bool(np.any(signed > min_significance * a_sd))
-    if significant:
+    beyond = _vertex_beyond(mean, sd, volts, vertex) if significant else None
+    if beyond is not None:
+        cpd = cpd_sd = None
+        side = "below" if beyond < volts.min() else "above"
+        sentence = (f"The image mean's parabolas put their vertex at {beyond:+.3g} V or further {side}, more than "
+                    f"the bias range ({volts.min():+.3g} to {volts.max():+.3g} V) outside it, where their fit is "
+                    "not trusted: V_cpd is not determined; measure at biases on both sides of it.")
+    elif significant:
         cpd, cpd_sd = vertex, vertex_sd
         sentence = (f"V_cpd = {plus_minus(1e3 * cpd, 1e3 * cpd_sd)} mV from the parabola of the image mean over "
                     f"{nb} biases"
                     + (f" (common vertex at {nh} heights)" if nh > 1 else "") + "; error from the scatter of "
-                    f"{int(n_lines.sum())} line means"
+                    f"{int(n_lines.sum())} line means" + (f" and {extra_source}" if extra_source else "")
                     + (f", widened by the parabola's misfit (reduced chi-square {reduced:.3g})." if misfit
                        else "."))
     else:
@@ -134,6 +151,33 @@ def fit_bias_parabola(stack, *, bias_v, attractive_sign: float = 1.0, min_signif
                     f"{min_significance:g}, or of the wrong sign): V_cpd is not determined.")
     return BiasParabola(volts, mean, sd, a, a_sd, c, vertex, vertex_sd, cpd, cpd_sd, sigma, dof, float(reduced),
                         sentence)
+
+
+def _profile_chi2(trial_v: np.ndarray, volts: np.ndarray, y: np.ndarray, w: np.ndarray) -> np.ndarray:
+    """chi-square of ``a_h (V - v)^2 + c_h`` at every trial vertex v (G,), each a_h and c_h by weighted linear
+    least squares (closed form), for means y and weights w (H, B)."""
+    d = ((volts[None, :] - trial_v[:, None]) ** 2)[:, None, :]  # (G, 1, B)
+    s00, s01, s11 = (w * d * d).sum(-1), (w * d).sum(-1), w.sum(-1)
+    t0, t1 = (w * d * y).sum(-1), (w * y).sum(-1)
+    det = s00 * s11 - s01**2
+    a = (s11 * t0 - s01 * t1) / det
+    c = (s00 * t1 - s01 * t0) / det
+    return (w * (y - a[..., None] * d - c[..., None]) ** 2).sum(axis=(-2, -1))
+
+
+def _vertex_beyond(mean, sd, volts, vertex: float) -> float | None:
+    """The vertex the means prefer when it lies outside the window the common-vertex fit searches (one bias range
+    either side of the biases, where the fitted vertex then stops), else None: the profile of the chi-square over
+    twenty bias ranges either side has a lower minimum than the fitted vertex."""
+    span = float(volts.max() - volts.min())
+    w = 1.0 / np.asarray(sd, float) ** 2
+    grid = np.linspace(volts.min() - 20.0 * span, volts.max() + 20.0 * span, 4001)
+    chis = _profile_chi2(grid, volts, mean, w)
+    at_fit = float(_profile_chi2(np.array([vertex]), volts, mean, w)[0])
+    best = int(np.nanargmin(chis))
+    if chis[best] < at_fit - 1e-9 * max(at_fit, 1.0) and not volts.min() - span < grid[best] < volts.max() + span:
+        return float(grid[best])
+    return None
 
 
 def _covariance(mean, sd, volts, vertex, a, c) -> tuple[np.ndarray, float]:

@@ -44,8 +44,10 @@ class ImagingAnalysis:
     parabola_deg: np.ndarray | None     # the fitted parabola in degrees on ``parabola_bias_v``: (H, n)
     parabola_bias_v: np.ndarray | None
     nan_pixels: int
-    signal_space: str                   # "gradient" (k and Q given) or "phase"
+    signal_space: str                   # "gradient" (k and Q given) or "tan_phase" (-tan(phase) = Q F'/k)
     decomposition_sentence: str
+    drive_phase_offset_deg: float | None = None      # with a bias grid: the free lever's phase from quadrature at
+    drive_phase_offset_std_deg: float | None = None  # the drive, read from the means, which the inversion used
 
     kind = "imaging"
 
@@ -108,8 +110,10 @@ class ImagingAnalysis:
             if self.parabola is None:
                 out["cpd_sentence"] = self.cpd_needs_sentence
         if self.parabola is not None:
-            out.update(cpd_v=self.parabola.cpd_v, cpd_std_v=self.parabola.cpd_std_v, cpd_sentence=self.parabola.sentence,
-                       bias_parabola_reduced_chi2=self.parabola.reduced_chi2)
+            out.update(cpd_v=self.parabola.cpd_v, cpd_std_v=self.parabola.cpd_std_v,
+                       cpd_sentence=self.parabola.sentence, bias_parabola_reduced_chi2=self.parabola.reduced_chi2,
+                       drive_phase_offset_deg=self.drive_phase_offset_deg,
+                       drive_phase_offset_std_deg=self.drive_phase_offset_std_deg)
         if self.tip_change is not None:
             out.update(tip_changed_sample=self.tip_change.irreversible,
                        tip_changed_fraction=self.tip_change.changed_fraction, tip_change=self.tip_change.sentence)

@@ -122,6 +122,8 @@ def test_without_repeat_or_grid_the_noise_is_only_an_upper_bound():
                         resonance_hz=75e3, amplitude_m=10e-9, bandwidth_hz=100.0)
     assert a.reference_noise_deg > 0.02
     assert a.noise.verdict == "upper_bound" and "upper bound" in a.noise.sentence
+    # in degrees written as every other noise sentence writes them
+    assert "° rms" in a.noise.sentence and " deg" not in a.noise.sentence
     assert "line-to-line offsets not included" in a.mean_std_source
 
 
