@@ -14,9 +14,9 @@ import time
 import numpy as np
 
 from drivers.base import Capability, LineData, LineSpec, SecondPass
-from drivers.conformance.kit import Fail, Kit, NotApplicable, Timer
-from drivers.conformance.trials import (abort_during, capability_missing, engage, refused, status_of,
-                                        z_move_refused)
+from drivers.conformance.kit import Fail, Kit, NotApplicable, Timer, field_left_on
+from drivers.conformance.trials import (abort_during, capability_missing, engage, refused, refused_at_once,
+                                        status_of, z_move_refused)
 
 LIFT_M = 100e-9
 TRAVEL_MAX_M = 300e-6
@@ -143,10 +143,44 @@ def coarse(kit: Kit) -> str:
     return f"5 coarse steps moved {(p1 - p0) * 1e9:.0f} nm towards the sample (nominal {nominal * 1e9:.0f} nm) and back"
 
 
+def coarse_travel(kit: Kit) -> str:
+    """A coarse move past the end of the travel (``limits.coarse_travel_max_m``) is refused with LimitExceeded
+    and leaves the coarse position where it was and the stage safe.
+
+    On a real instrument the kit must not drive the motor into its end stop, nor the tip into the sample, to see
+    this. So it asks for twice the whole travel, in steps of the nominal size, from wherever the motor is: beyond
+    the remaining travel from any position within it, and so far beyond that no scatter of the step size can
+    bring the request back inside (a driver may check the travel it plans rather than the step count). A
+    conforming driver refuses that before the motor moves. A driver that accepts it would move towards the
+    sample, so the request runs in a thread and ``abort()`` stops it after 200 ms, which a driver that passed
+    ``motion.coarse`` and ``motion.withdraw_wins`` can do; the plan asks for a Z range plus 1 µm of clearance.
+    Stepping beyond the start away from the sample is not asked: the interface does not say it is refused.
+    """
+    ctl, lim = kit.controller, kit.controller.limits
+    if not ctl.has(Capability.COARSE_MOTOR):
+        raise NotApplicable
+    before = status_of(ctl).coarse_position_m
+    steps = math.ceil(2 * lim.coarse_travel_max_m / lim.coarse_step_m)
+    what = (f"step_coarse({steps}), {steps * lim.coarse_step_m * 1e3:.3g} mm towards the sample from "
+            f"{before * 1e6:.2f} µm (travel {lim.coarse_travel_max_m * 1e3:.3g} mm)")
+    refused_at_once(ctl, lambda: ctl.step_coarse(steps), what)
+    s = status_of(ctl)
+    moved = s.coarse_position_m - before
+    if not abs(moved) <= 0.5 * lim.coarse_step_m:
+        raise Fail(f"{what} was refused, yet the coarse position moved {moved * 1e9:.0f} nm")
+    if not s.safe:
+        raise Fail(f"after the refused {what} status is not safe (engaged={s.engaged}, z_m={s.z_m:g}, "
+                   f"drive_on={s.drive_on}, bias_v={s.bias_v:g})")
+    left = field_left_on(ctl)
+    if left is not None:
+        raise Fail(f"after the refused {what} the field reads {left:g} A/m")
+    return f"{what} refused with LimitExceeded; the coarse position changed by {abs(moved) * 1e9:.0f} nm; stage safe"
+
+
 MOTION = [("motion.z_limit_high", z_limit_high), ("motion.xy_limits", xy_limits),
           ("motion.nonfinite", nonfinite_motion), ("motion.capabilities_undeclared", undeclared_moving),
           ("motion.z_move", z_move), ("motion.xy_move", xy_move), ("motion.withdraw_wins", withdraw_wins),
-          ("motion.coarse", coarse)]
+          ("motion.coarse", coarse), ("motion.coarse_travel", coarse_travel)]
 
 
 # ---- engaged -------------------------------------------------------------------------------------------------

@@ -58,6 +58,45 @@ def z_move_refused(ctl: Controller, z: float, what: str) -> None:
         raise Fail(f"move_z({z:g} m) was refused, yet status reports Z at {got:g} m (clipped?)")
 
 
+def refused_at_once(ctl: Controller, call: Callable[[], object], what: str, *,
+                    stop_after_s: float = ABORT_LIMIT_S) -> str:
+    """``call`` (one that would move the stage) must raise LimitExceeded. It runs in a thread; if it has not
+    ended ``stop_after_s`` after it began, ``abort()`` stops it, so that a driver that accepted it moves for no
+    longer than that. The verdict rests on the outcome, not the time: a refusal that arrives late still counts.
+    Returns the refusal's message."""
+    quiet_heap()
+    box: dict = {}
+
+    def target() -> None:
+        try:
+            box["outcome"] = call()
+        except BaseException as exc:  # judged below, in the calling thread
+            box["error"] = exc
+
+    th = threading.Thread(target=target, name="conformance-refusal", daemon=True)
+    t0 = time.monotonic()
+    th.start()
+    th.join(stop_after_s)
+    stopped = th.is_alive()
+    if stopped:
+        ctl.abort()
+        th.join(2.0)
+    took = time.monotonic() - t0
+    exc = box.get("error")
+    if isinstance(exc, LimitExceeded):
+        return str(exc)
+    if th.is_alive():
+        raise Fail(f"{what} was still running {took:.1f} s after it began, abort() notwithstanding: stop the "
+                   f"instrument by hand")
+    if stopped:
+        raise Fail(f"{what} was accepted and ran until abort() stopped it after {stop_after_s * 1e3:.0f} ms "
+                   f"({type(exc).__name__ if exc is not None else 'it returned normally'}), instead of being "
+                   f"refused with LimitExceeded before moving")
+    if exc is not None:
+        raise Fail(f"{what} raised {type(exc).__name__} ({exc}) instead of LimitExceeded")
+    raise Fail(f"{what} was accepted instead of refused with LimitExceeded (it returned after {took * 1e3:.0f} ms)")
+
+
 def close(a: float, b: float, *, rel: float = 1e-6, abs_: float = 0.0) -> bool:
     return math.isfinite(a) and abs(a - b) <= max(abs_, rel * max(abs(a), abs(b)))
 

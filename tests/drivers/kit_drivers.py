@@ -178,8 +178,20 @@ class KeepsFieldOnSafe(SimulatedController):
         pass
 
 
+class CoarsePastTravel(SimulatedController):
+    """Runs the coarse motor up to its end stop instead of refusing a move past the travel: the steps beyond the
+    end are dropped without a word (it stops 1 % of the remaining travel short of the end, so that the simulated
+    motor's step scatter never refuses the move in its place)."""
+
+    def step_coarse(self, steps):
+        lim = self.limits
+        room = int(0.99 * (lim.coarse_travel_max_m - self.status().coarse_position_m) / lim.coarse_step_m)
+        super().step_coarse(min(int(steps), room))
+
+
 #: broken driver -> the level that shows it, the stage it runs on (``signals``: near the surface, fast magnet;
-#: ``motion``: room to move, no magnet; ``motion_magnet``: room to move, the kit magnet) and the checks that must
+#: ``motion``: room to move, no magnet; ``motion_magnet``: room to move, the kit magnet; ``coarse``: as ``motion``,
+#: for the coarse motor alone) and the checks that must
 #: fail: the check of the promise broken first, then those that fail because of it (a clipped bias also takes an
 #: infinite one; a sweep that is not there cannot be aborted either; a Z move that does not take time is over before
 #: it can be aborted; an abort is a make-safe)
@@ -198,4 +210,5 @@ BROKEN = {
     ClipsZ: ("motion", "motion", {"motion.z_limit_high", "safety.z_limit_low", "motion.nonfinite"}),
     IgnoresZSpeed: ("motion", "motion", {"motion.z_move", "motion.withdraw_wins"}),
     KeepsFieldOnSafe: ("motion", "motion_magnet", {"field.make_safe", "field.abort"}),
+    CoarsePastTravel: ("motion", "coarse", {"motion.coarse_travel"}),
 }
