@@ -17,6 +17,7 @@ from drivers.base import Capability, LineData, LineSpec, SecondPass
 from drivers.conformance.kit import Fail, Kit, NotApplicable, Timer, field_left_on
 from drivers.conformance.trials import (abort_during, capability_missing, engage, refused, refused_at_once,
                                         status_of, z_move_refused)
+from drivers.errors import CapabilityMissing
 
 LIFT_M = 100e-9
 TRAVEL_MAX_M = 300e-6
@@ -42,6 +43,53 @@ def xy_limits(kit: Kit) -> str:
         refused(lambda: ctl.scan_line(spec), f"scan_line of length {over:g} m beyond the scan size {size:g} m")
         said += f"; a line {over:g} m long refused"
     return said
+
+
+def _refused_left_safe(ctl, call, what: str, *, also: tuple[type, ...] = ()) -> None:
+    """``call`` must be refused (abort() stops it after 200 ms if it runs) and leave the stage safe with Z at 0."""
+    refused_at_once(ctl, call, what, also=also)
+    s = status_of(ctl)
+    if not s.safe:
+        raise Fail(f"{what} was refused, yet status reports engaged={s.engaged}, feedback_on={s.feedback_on}, "
+                   f"z_m={s.z_m:g}, drive_on={s.drive_on}, bias_v={s.bias_v:g} (clipped?)")
+
+
+def force_curve_limits(kit: Kit) -> str:
+    """A force curve whose end lies beyond the Z range, below 0 or is not finite is refused with LimitExceeded
+    before Z moves. Were it accepted, Z would extend at most its range (the tip stays clear: the plan asks for a
+    Z range plus 1 µm), and abort() stops it after 200 ms."""
+    ctl, z_range = kit.controller, kit.controller.limits.z_range_m
+    if not ctl.has(Capability.FORCE_CURVE):
+        raise NotApplicable
+    ends = (z_range * (1 + 1e-3), -1e-3 * z_range, math.nan, math.inf)
+    for z in ends:
+        _refused_left_safe(ctl, lambda z=z: ctl.force_curve(z, 64), f"force_curve to {z:g} m (Z range {z_range:g} m)")
+    return (f"force curves to just beyond the Z range ({ends[0]:g} m), below 0, NaN and inf refused with "
+            f"LimitExceeded; Z stayed at 0")
+
+
+def line_limits(kit: Kit) -> str:
+    """A line whose second pass asks for a bias beyond ±``bias_max_v`` or a lift height outside the Z range (or
+    not finite) is refused with LimitExceeded before it starts (without the bias capability, CapabilityMissing
+    for the bias too). The kit is not engaged here, so a driver that accepted would first have to find the
+    surface, which lies beyond the Z range; abort() stops it after 200 ms."""
+    ctl, lim = kit.controller, kit.controller.limits
+    if not ctl.has(Capability.TWO_PASS_LINE):
+        raise NotApplicable
+    bias = lim.bias_max_v * (1 + 1e-3) + 1e-12 if lim.bias_max_v > 0 else 1.0
+    also = () if ctl.has(Capability.BIAS) else (CapabilityMissing,)
+    passes = [(SecondPass(LIFT_M, bias), also, f"a bias of {bias:g} V"),
+              (SecondPass(LIFT_M, -bias), also, f"a bias of {-bias:g} V"),
+              (SecondPass(lim.z_range_m * (1 + 1e-3)), (), f"a lift of {lim.z_range_m * (1 + 1e-3):g} m"),
+              (SecondPass(-LIFT_M), (), f"a lift of {-LIFT_M:g} m"),
+              (SecondPass(math.nan), (), "a lift of nan m"), (SecondPass(LIFT_M, math.nan), also, "a bias of nan V")]
+    for second, ok, what in passes:
+        spec = LineSpec(0.0, -0.5e-6, 1e-6, 8, 8.0, (SecondPass(LIFT_M), second))
+        _refused_left_safe(ctl, lambda spec=spec: ctl.scan_line(spec),
+                           f"scan_line with {what} in its second pass (bias limit ±{lim.bias_max_v:g} V, Z range "
+                           f"{lim.z_range_m:g} m)", also=ok)
+    return (f"lines whose second pass asks for ±{bias:g} V (limit ±{lim.bias_max_v:g} V), a lift beyond the Z "
+            f"range or below 0, or NaN refused; the bias stayed at 0 V and Z at 0")
 
 
 def nonfinite_motion(kit: Kit) -> str:
@@ -178,6 +226,7 @@ def coarse_travel(kit: Kit) -> str:
 
 
 MOTION = [("motion.z_limit_high", z_limit_high), ("motion.xy_limits", xy_limits),
+          ("motion.force_curve_limits", force_curve_limits), ("motion.line_limits", line_limits),
           ("motion.nonfinite", nonfinite_motion), ("motion.capabilities_undeclared", undeclared_moving),
           ("motion.z_move", z_move), ("motion.xy_move", xy_move), ("motion.withdraw_wins", withdraw_wins),
           ("motion.coarse", coarse), ("motion.coarse_travel", coarse_travel)]

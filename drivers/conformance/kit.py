@@ -23,9 +23,11 @@ LEVELS = ("identity", "signals", "motion", "engaged")
 PLANS = {
     "motion": ("move the Z piezo between 0 and at most a fifth of its range at the speed limit (and withdraw "
                "during a move), move the scanner by at most 1 µm from the centre, and step the coarse motor a few "
-               "steps towards the sample and back, then ask it for twice its whole travel, which the driver must "
-               "refuse before moving (abort() stops it after 0.2 s if it does not). The tip must be well clear of "
-               "the surface: at least one Z range plus 1 µm. Nothing approaches the surface. With a magnet "
+               "steps towards the sample and back. Then ask for a force curve beyond the Z range, a line with a "
+               "second pass beyond the bias limit and a coarse move of twice the whole travel: the driver must "
+               "refuse each before anything moves (a driver that does not is stopped with abort() after 0.2 s; "
+               "a force curve may have extended Z by up to its whole range by then). The tip must be well clear "
+               "of the surface: at least one Z range plus 1 µm. Nothing approaches the surface. With a magnet "
                "(applied_field): apply a field of 5 % of its range, at most 40 kA/m (50 mT), bring it back to 0 "
                "with make_safe(), then apply it with the opposite sign and abort() the ramp back through 0; keep "
                "magnetic media and delicate samples away."),

@@ -59,11 +59,11 @@ def z_move_refused(ctl: Controller, z: float, what: str) -> None:
 
 
 def refused_at_once(ctl: Controller, call: Callable[[], object], what: str, *,
-                    stop_after_s: float = ABORT_LIMIT_S) -> str:
+                    stop_after_s: float = ABORT_LIMIT_S, also: tuple[type, ...] = ()) -> str:
     """``call`` (one that would move the stage) must raise LimitExceeded. It runs in a thread; if it has not
     ended ``stop_after_s`` after it began, ``abort()`` stops it, so that a driver that accepted it moves for no
     longer than that. The verdict rests on the outcome, not the time: a refusal that arrives late still counts.
-    Returns the refusal's message."""
+    ``also``: further exceptions that count as a refusal. Returns the refusal's message."""
     quiet_heap()
     box: dict = {}
 
@@ -85,6 +85,8 @@ def refused_at_once(ctl: Controller, call: Callable[[], object], what: str, *,
     exc = box.get("error")
     if isinstance(exc, LimitExceeded):
         return str(exc)
+    if also and isinstance(exc, also):
+        return f"{type(exc).__name__}: {exc}"
     if th.is_alive():
         raise Fail(f"{what} was still running {took:.1f} s after it began, abort() notwithstanding: stop the "
                    f"instrument by hand")

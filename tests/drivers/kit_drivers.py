@@ -10,11 +10,12 @@ kit's timing checks mean something. Its magnet (invented values) takes 0.15 s, r
 
 from __future__ import annotations
 
+import dataclasses
 import math
 
 import numpy as np
 
-from drivers.base import Capability, Controller, Limits
+from drivers.base import Capability, Controller, Limits, SecondPass
 from drivers.errors import ControllerFault, LimitExceeded
 from drivers.simulated import SimulatedController
 from simulated_stage.scenario import Scenario
@@ -178,6 +179,22 @@ class KeepsFieldOnSafe(SimulatedController):
         pass
 
 
+class ForceCurveClipsZ(SimulatedController):
+    """Clips the end of a force curve to the Z range instead of refusing it."""
+
+    def force_curve(self, z_stop_m, points):
+        return super().force_curve(min(max(z_stop_m, 0.0), self.limits.z_range_m), points)
+
+
+class ClipsPassBias(SimulatedController):
+    """Clips the bias of each second pass to the limit instead of refusing the line."""
+
+    def scan_line(self, spec):
+        lim = self.limits.bias_max_v
+        passes = tuple(SecondPass(p.lift_height_m, min(max(p.bias_v, -lim), lim)) for p in spec.passes)
+        return super().scan_line(dataclasses.replace(spec, passes=passes))
+
+
 class CoarsePastTravel(SimulatedController):
     """Runs the coarse motor up to its end stop instead of refusing a move past the travel: the steps beyond the
     end are dropped without a word (it stops 1 % of the remaining travel short of the end, so that the simulated
@@ -211,4 +228,6 @@ BROKEN = {
     IgnoresZSpeed: ("motion", "motion", {"motion.z_move", "motion.withdraw_wins"}),
     KeepsFieldOnSafe: ("motion", "motion_magnet", {"field.make_safe", "field.abort"}),
     CoarsePastTravel: ("motion", "coarse", {"motion.coarse_travel"}),
+    ForceCurveClipsZ: ("motion", "motion", {"motion.force_curve_limits"}),
+    ClipsPassBias: ("motion", "motion", {"motion.line_limits"}),
 }
