@@ -178,7 +178,9 @@ def coarse(kit: Kit) -> str:
     if not ctl.has(Capability.COARSE_MOTOR):
         raise NotApplicable
     p0 = status_of(ctl).coarse_position_m
+    t = Timer()
     ctl.step_coarse(5)
+    kit.notes["coarse_step_s"] = t() / 5  # for motion.abort_coarse: the call's own time included
     p1 = status_of(ctl).coarse_position_m
     ctl.step_coarse(-5)
     p2 = status_of(ctl).coarse_position_m
@@ -189,6 +191,39 @@ def coarse(kit: Kit) -> str:
     if not abs(p2 - p0) <= 0.5 * nominal:
         raise Fail(f"5 steps forward and 5 back left the coarse position {p2 - p0:g} m from the start")
     return f"5 coarse steps moved {(p1 - p0) * 1e9:.0f} nm towards the sample (nominal {nominal * 1e9:.0f} nm) and back"
+
+
+def abort_coarse(kit: Kit) -> str:
+    """``abort()`` during a coarse move towards the sample stops the motor (the call raises Aborted) and leaves
+    the stage safe; the approach moves the coarse motor in long moves, and a stop must not wait for one to end.
+
+    The move is half a Z range long, within the clearance the plan asks for even if the abort does nothing, and
+    the abort comes after a quarter of its time (at most 50 ms), timed by the five steps of ``motion.coarse``. A
+    motor that covers half a Z range in less than 50 ms cannot be stopped part of the way with any certainty, so
+    the check does not apply. The motor then steps back to within a step of where it began."""
+    ctl, lim = kit.controller, kit.controller.limits
+    if not ctl.has(Capability.COARSE_MOTOR):
+        raise NotApplicable
+    step_s = kit.notes.get("coarse_step_s")
+    if step_s is None:
+        raise Fail("not checked: motion.coarse did not time five steps")
+    steps = max(1, int(0.5 * lim.z_range_m / lim.coarse_step_m))
+    nominal = steps * step_s
+    if nominal < 0.05:
+        raise NotApplicable
+    p0 = status_of(ctl).coarse_position_m
+    what = f"coarse move of {steps} steps ({steps * lim.coarse_step_m * 1e6:.2f} µm)"
+    try:
+        said = abort_during(ctl, lambda: ctl.step_coarse(steps), what, nominal, after_s=min(0.05, nominal / 4),
+                            join_s=max(2.0, 2 * nominal)).judge(ctl)
+    finally:
+        moved = status_of(ctl).coarse_position_m - p0
+        back = round(moved / lim.coarse_step_m) - 1  # one step short: the steps scatter, and a motor may refuse
+        if back > 0:                                 # to pass its start
+            ctl.step_coarse(-back)
+    if moved > 0.9 * steps * lim.coarse_step_m:
+        raise Fail(f"after abort() the {what} went on to the end: the coarse position moved {moved * 1e6:.2f} µm")
+    return said + f"; the motor had moved {moved * 1e9:.0f} nm of {steps * lim.coarse_step_m * 1e9:.0f} nm"
 
 
 def coarse_travel(kit: Kit) -> str:
@@ -229,7 +264,7 @@ MOTION = [("motion.z_limit_high", z_limit_high), ("motion.xy_limits", xy_limits)
           ("motion.force_curve_limits", force_curve_limits), ("motion.line_limits", line_limits),
           ("motion.nonfinite", nonfinite_motion), ("motion.capabilities_undeclared", undeclared_moving),
           ("motion.z_move", z_move), ("motion.xy_move", xy_move), ("motion.withdraw_wins", withdraw_wins),
-          ("motion.coarse", coarse), ("motion.coarse_travel", coarse_travel)]
+          ("motion.coarse", coarse), ("motion.abort_coarse", abort_coarse), ("motion.coarse_travel", coarse_travel)]
 
 
 # ---- engaged -------------------------------------------------------------------------------------------------

@@ -145,7 +145,7 @@ class AbortTrial:
         if self.outcome == "running":
             raise Fail(f"the {self.what} was still running {self.after_abort_s:.1f} s after abort() returned")
         if self.outcome == "finished":
-            raise Fail(f"the {self.what} returned normally {self.after_abort_s * 1e3:.0f} ms after abort() "
+            raise Fail(f"the {self.what} returned normally {max(self.after_abort_s, 0.0) * 1e3:.0f} ms after abort() "
                        f"instead of raising Aborted")
         if self.outcome != "aborted":
             raise Fail(f"the {self.what} {self.outcome} after abort() instead of raising Aborted")

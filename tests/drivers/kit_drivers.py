@@ -17,7 +17,7 @@ import numpy as np
 
 from drivers.base import Capability, Controller, Limits, SecondPass
 from drivers.errors import ControllerFault, LimitExceeded
-from drivers.simulated import SimulatedController
+from drivers.simulated import SimulatedController, _mapped
 from simulated_stage.scenario import Scenario
 
 KIT_SCENARIO = """
@@ -179,6 +179,18 @@ class KeepsFieldOnSafe(SimulatedController):
         pass
 
 
+class CoarseIgnoresAbort(SimulatedController):
+    """Counts out a coarse move without looking for abort(): the motor runs to the end of the move, and abort()
+    returns only then."""
+
+    @_mapped
+    def step_coarse(self, steps):
+        stage = self.stage
+        new = stage.coarse.plan(int(steps), stage.rng)
+        stage.clock.advance(abs(int(steps)) * stage.coarse.step_time_s, interruptible=False)
+        stage.coarse.position_m = new
+
+
 class ForceCurveClipsZ(SimulatedController):
     """Clips the end of a force curve to the Z range instead of refusing it."""
 
@@ -228,6 +240,7 @@ BROKEN = {
     IgnoresZSpeed: ("motion", "motion", {"motion.z_move", "motion.withdraw_wins"}),
     KeepsFieldOnSafe: ("motion", "motion_magnet", {"field.make_safe", "field.abort"}),
     CoarsePastTravel: ("motion", "coarse", {"motion.coarse_travel"}),
+    CoarseIgnoresAbort: ("motion", "coarse", {"motion.abort_coarse"}),
     ForceCurveClipsZ: ("motion", "motion", {"motion.force_curve_limits"}),
     ClipsPassBias: ("motion", "motion", {"motion.line_limits"}),
 }
