@@ -179,6 +179,17 @@ class KeepsFieldOnSafe(SimulatedController):
         pass
 
 
+class FieldJumps(SimulatedController):
+    """Sets the magnet's field at once (limits checked) instead of ramping it at the magnet's rate and settling."""
+
+    def set_field(self, field_a_per_m):
+        lim = self.limits.field_max_a_per_m
+        if not (math.isfinite(field_a_per_m) and abs(field_a_per_m) <= lim):
+            raise LimitExceeded("applied field", field_a_per_m, -lim, lim, "A/m")
+        with self._lock:
+            self.stage.magnet.field_a_per_m = float(field_a_per_m)
+
+
 class CoarseIgnoresAbort(SimulatedController):
     """Counts out a coarse move without looking for abort(): the motor runs to the end of the move, and abort()
     returns only then."""
@@ -223,7 +234,7 @@ class CoarsePastTravel(SimulatedController):
 #: for the coarse motor alone) and the checks that must
 #: fail: the check of the promise broken first, then those that fail because of it (a clipped bias also takes an
 #: infinite one; a sweep that is not there cannot be aborted either; a Z move that does not take time is over before
-#: it can be aborted; an abort is a make-safe)
+#: it can be aborted, nor a field that jumps; an abort is a make-safe)
 BROKEN = {
     ClipsBias: ("signals", "signals", {"safety.bias_limit", "safety.nonfinite"}),
     DriveLimitAsValueError: ("signals", "signals", {"safety.drive_limits", "safety.nonfinite"}),
@@ -240,6 +251,7 @@ BROKEN = {
     IgnoresZSpeed: ("motion", "motion", {"motion.z_move", "motion.withdraw_wins"}),
     KeepsFieldOnSafe: ("motion", "motion_magnet", {"field.make_safe", "field.abort"}),
     CoarsePastTravel: ("motion", "coarse", {"motion.coarse_travel"}),
+    FieldJumps: ("motion", "motion_magnet", {"field.ramp_rate", "field.abort"}),
     CoarseIgnoresAbort: ("motion", "coarse", {"motion.abort_coarse"}),
     ForceCurveClipsZ: ("motion", "motion", {"motion.force_curve_limits"}),
     ClipsPassBias: ("motion", "motion", {"motion.line_limits"}),

@@ -25,7 +25,8 @@ EXPECTED = {"identity.info", "identity.limits", "identity.url", "signals.read", 
             "safety.withdraw_twice", "safety.abort_sweep", "safety.abort_record", "motion.z_move",
             "motion.withdraw_wins", "motion.coarse", "motion.coarse_travel", "motion.abort_coarse",
             "motion.force_curve_limits", "motion.line_limits", "engaged.approach", "engaged.line",
-            "engaged.abort_mid_line", "field.limits", "field.make_safe", "field.abort", "end.safe"}
+            "engaged.abort_mid_line", "field.limits", "field.ramp_rate", "field.make_safe", "field.abort",
+            "end.safe"}
 
 
 def _yes(level: str, plan: str) -> bool:
