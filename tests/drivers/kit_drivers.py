@@ -179,6 +179,22 @@ class KeepsFieldOnSafe(SimulatedController):
         pass
 
 
+class MakeSafeLeavesZ(SimulatedController):
+    """make_safe() switches the drive off and sets the bias and the field to 0 but forgets the withdraw; its
+    abort() withdraws as it should."""
+
+    def make_safe(self):
+        self.drive_off()
+        self.set_bias(0.0)
+        self.zero_applied_field()
+
+    def abort(self):
+        self.stage.clock.interrupt()
+        with self._lock:
+            self.stage.clock.resume()
+            Controller.make_safe(self)
+
+
 class FieldJumps(SimulatedController):
     """Sets the magnet's field at once (limits checked) instead of ramping it at the magnet's rate and settling."""
 
@@ -252,6 +268,7 @@ BROKEN = {
     KeepsFieldOnSafe: ("motion", "motion_magnet", {"field.make_safe", "field.abort"}),
     CoarsePastTravel: ("motion", "coarse", {"motion.coarse_travel"}),
     FieldJumps: ("motion", "motion_magnet", {"field.ramp_rate", "field.abort"}),
+    MakeSafeLeavesZ: ("motion", "motion", {"motion.safe_from_extended"}),
     CoarseIgnoresAbort: ("motion", "coarse", {"motion.abort_coarse"}),
     ForceCurveClipsZ: ("motion", "motion", {"motion.force_curve_limits"}),
     ClipsPassBias: ("motion", "motion", {"motion.line_limits"}),
