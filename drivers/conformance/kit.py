@@ -164,11 +164,11 @@ def run(controller: Controller, *, level: str = "signals", url: str | None = Non
     ``confirm(level, plan)`` is asked before each level that moves anything (``motion``, ``engaged``); without
     it those levels do not run. ``progress`` sees each check as it finishes.
     """
-    from drivers.conformance import checks_engaged, checks_field, checks_motion, checks_signals
+    from drivers.conformance import checks_engaged, checks_field, checks_identity, checks_motion, checks_signals
 
     if level not in LEVELS:
         raise ValueError(f"level {level!r} is not one of {', '.join(LEVELS)}")
-    groups = {"identity": checks_signals.IDENTITY, "signals": checks_signals.SIGNALS + checks_field.SIGNALS,
+    groups = {"identity": checks_identity.IDENTITY, "signals": checks_signals.SIGNALS + checks_field.SIGNALS,
               "motion": checks_motion.MOTION + checks_field.MOTION, "engaged": checks_engaged.ENGAGED}
     result = KitResult(url, level)
     kit = Kit(controller, url)

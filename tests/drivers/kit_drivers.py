@@ -179,6 +179,14 @@ class KeepsFieldOnSafe(SimulatedController):
         pass
 
 
+class SweepClipsAmplitude(SimulatedController):
+    """Clips a sweep's amplitude to the drive limit instead of refusing it (set_drive refuses as it should)."""
+
+    def sweep(self, frequencies_hz, amplitude_v, *, settle_s=None):
+        lim = self.limits.drive_max_v
+        return super().sweep(frequencies_hz, min(max(amplitude_v, 0.0), lim), settle_s=settle_s)
+
+
 class MakeSafeLeavesZ(SimulatedController):
     """make_safe() switches the drive off and sets the bias and the field to 0 but forgets the withdraw; its
     abort() withdraws as it should."""
@@ -246,17 +254,17 @@ class CoarsePastTravel(SimulatedController):
 
 
 #: broken driver -> the level that shows it, the stage it runs on (``signals``: near the surface, fast magnet;
-#: ``motion``: room to move, no magnet; ``motion_magnet``: room to move, the kit magnet; ``coarse``: as ``motion``,
-#: for the coarse motor alone) and the checks that must
-#: fail: the check of the promise broken first, then those that fail because of it (a clipped bias also takes an
-#: infinite one; a sweep that is not there cannot be aborted either; a Z move that does not take time is over before
-#: it can be aborted, nor a field that jumps; an abort is a make-safe)
+#: ``motion``: room to move, no magnet; ``motion_magnet``: room to move, the kit magnet; ``coarse``: as ``motion``, for
+#: the coarse motor alone) and the checks that must fail: the check of the promise broken first, then those that fail
+#: because of it (a clipped bias also takes an infinite one; a sweep that is not there can neither refuse its limits nor
+#: be aborted; a Z move that does not take time is over before it can be aborted, and so is a field that jumps; an abort
+#: is a make-safe)
 BROKEN = {
     ClipsBias: ("signals", "signals", {"safety.bias_limit", "safety.nonfinite"}),
     DriveLimitAsValueError: ("signals", "signals", {"safety.drive_limits", "safety.nonfinite"}),
     SecondWithdrawRaises: ("signals", "signals", {"safety.withdraw_twice"}),
     DeclaresSweepItLacks: ("signals", "signals", {"signals.capabilities_declared", "signals.sweep",
-                                                  "safety.abort_sweep"}),
+                                                  "safety.sweep_limits", "safety.abort_sweep"}),
     LimitsInNanometres: ("signals", "signals", {"identity.limits"}),
     IgnoresAbort: ("signals", "signals", {"safety.abort_sweep", "safety.abort_record"}),
     AcceptsNaNBias: ("signals", "signals", {"safety.nonfinite"}),
@@ -269,6 +277,7 @@ BROKEN = {
     CoarsePastTravel: ("motion", "coarse", {"motion.coarse_travel"}),
     FieldJumps: ("motion", "motion_magnet", {"field.ramp_rate", "field.abort"}),
     MakeSafeLeavesZ: ("motion", "motion", {"motion.safe_from_extended"}),
+    SweepClipsAmplitude: ("signals", "signals", {"safety.sweep_limits"}),
     CoarseIgnoresAbort: ("motion", "coarse", {"motion.abort_coarse"}),
     ForceCurveClipsZ: ("motion", "motion", {"motion.force_curve_limits"}),
     ClipsPassBias: ("motion", "motion", {"motion.line_limits"}),

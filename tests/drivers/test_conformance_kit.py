@@ -21,8 +21,8 @@ pytestmark = pytest.mark.timeout(120)
 
 #: one check of each level and kind that a full run of a complete driver must contain
 EXPECTED = {"identity.info", "identity.limits", "identity.url", "signals.read", "signals.thermal_record",
-            "signals.sweep", "signals.capabilities_declared", "safety.bias_limit", "safety.nonfinite",
-            "safety.withdraw_twice", "safety.abort_sweep", "safety.abort_record", "motion.z_move",
+            "signals.sweep", "signals.capabilities_declared", "safety.bias_limit", "safety.sweep_limits",
+            "safety.nonfinite", "safety.withdraw_twice", "safety.abort_sweep", "safety.abort_record", "motion.z_move",
             "motion.withdraw_wins", "motion.safe_from_extended", "motion.coarse", "motion.coarse_travel",
             "motion.abort_coarse", "motion.force_curve_limits", "motion.line_limits", "engaged.approach",
             "engaged.line", "engaged.abort_mid_line", "field.limits", "field.ramp_rate", "field.make_safe",
