@@ -11,7 +11,9 @@ from __future__ import annotations
 import math
 import time
 
-from drivers.base import Capability, LineSpec, SecondPass
+import numpy as np
+
+from drivers.base import Capability, ForceCurve, LineSpec, SecondPass
 from drivers.conformance.kit import Fail, Kit, NotApplicable, Timer, field_left_on
 from drivers.conformance.trials import (abort_during, capability_missing, drive_point, refused, refused_at_once,
                                         status_of, z_move_refused)
@@ -174,6 +176,33 @@ def safe_from_extended(kit: Kit) -> str:
             f"{dz * 1e6:.2f} µm withdraw() retracted Z to 0 with the feedback off")
 
 
+def force_curve(kit: Kit) -> str:
+    """A force curve in free air to the Z of ``motion.z_move`` (a fifth of the range at most): the four arrays
+    have the points asked for and are finite, Z runs in metres from where it was to the end asked for and back
+    (the retract is the approach reversed, within 2 % or 5 nm), and Z is back where it began afterwards."""
+    ctl, lim = kit.controller, kit.controller.limits
+    if not ctl.has(Capability.FORCE_CURVE):
+        raise NotApplicable
+    dz, points = min(0.2 * lim.z_range_m, 4e-6, lim.z_speed_max_m_per_s * 0.5), 64
+    curve = ctl.force_curve(dz, points)
+    if not isinstance(curve, ForceCurve):
+        raise Fail(f"force_curve returned {type(curve).__name__}, not ForceCurve")
+    arrays = {k: np.asarray(getattr(curve, k), dtype=float) for k in ("z_m", "deflection_v", "retract_z_m",
+                                                                        "retract_deflection_v")}
+    bad = [f"{k} of shape {v.shape}" for k, v in arrays.items() if v.shape != (points,) or not np.isfinite(v).all()]
+    if bad:
+        raise Fail(f"a force curve of {points} points returned {', '.join(bad)} (or values not finite)")
+    z, back, tol = arrays["z_m"], arrays["retract_z_m"], max(0.02 * dz, 5e-9)
+    if not (abs(z[0]) <= tol and abs(z[-1] - dz) <= tol and np.allclose(back, z[::-1], rtol=0, atol=tol)):
+        raise Fail(f"a force curve from Z at 0 to {dz:g} m ran z_m from {z[0]:g} to {z[-1]:g} and retract_z_m from "
+                   f"{back[0]:g} to {back[-1]:g} (m?; expected 0 to {dz:g} m and back)")
+    after = status_of(ctl).z_m
+    if not abs(after) <= tol:
+        raise Fail(f"after a force curve from Z at 0 status reports Z at {after:g} m, not back where it began")
+    return (f"a force curve of {points} points to {dz * 1e6:.2f} µm: arrays as asked, Z in metres out and back, "
+            f"deflection {np.ptp(arrays['deflection_v']) * 1e3:.3g} mV peak to peak, Z back at 0")
+
+
 def xy_move(kit: Kit) -> str:
     ctl = kit.controller
     for x, y in ((0.5e-6, -0.5e-6), (-0.5e-6, 0.5e-6), (0.0, 0.0)):
@@ -195,7 +224,17 @@ def withdraw_wins(kit: Kit) -> str:
     return said + "; Z stayed at 0 afterwards"
 
 
+def _steps_back(lim, start_m: float, out_steps: int) -> int:
+    """How many steps bring the coarse motor back after ``out_steps`` out from ``start_m``: all of them, unless
+    it began less than a step from the start of its travel, then one fewer. Steps scatter (on the simulated
+    stage by 10 % each), so coming all the way back from there can ask to pass the start, which a motor may
+    refuse; the one step left is taken back by the next run, which begins a step or more from the start."""
+    return out_steps if start_m >= lim.coarse_step_m else out_steps - 1
+
+
 def coarse(kit: Kit) -> str:
+    """Five coarse steps move the motor about five nominal steps towards the sample (positive = towards it), and
+    coming back returns it to where it was (within a step when it began at the start: :func:`_steps_back`)."""
     ctl, lim = kit.controller, kit.controller.limits
     if not ctl.has(Capability.COARSE_MOTOR):
         raise NotApplicable
@@ -204,15 +243,17 @@ def coarse(kit: Kit) -> str:
     ctl.step_coarse(5)
     kit.notes["coarse_step_s"] = t() / 5  # for motion.abort_coarse: the call's own time included
     p1 = status_of(ctl).coarse_position_m
-    ctl.step_coarse(-5)
+    back = _steps_back(lim, p0, 5)
+    ctl.step_coarse(-back)
     p2 = status_of(ctl).coarse_position_m
     nominal = 5 * lim.coarse_step_m
     if not 0.5 * nominal <= p1 - p0 <= 1.5 * nominal:
         raise Fail(f"5 coarse steps towards the sample changed coarse_position_m by {p1 - p0:g}, expected about "
                    f"{nominal:g} m (positive = towards the sample)")
-    if not abs(p2 - p0) <= 0.5 * nominal:
-        raise Fail(f"5 steps forward and 5 back left the coarse position {p2 - p0:g} m from the start")
-    return f"5 coarse steps moved {(p1 - p0) * 1e9:.0f} nm towards the sample (nominal {nominal * 1e9:.0f} nm) and back"
+    if not abs(p2 - p0 - (5 - back) * lim.coarse_step_m) <= 0.5 * nominal:
+        raise Fail(f"5 steps forward and {back} back left the coarse position {p2 - p0:g} m from the start")
+    return (f"5 coarse steps moved {(p1 - p0) * 1e9:.0f} nm towards the sample (nominal {nominal * 1e9:.0f} nm), "
+            f"{back} back left it {(p2 - p0) * 1e9:.0f} nm from where it began")
 
 
 def abort_coarse(kit: Kit) -> str:
@@ -222,7 +263,7 @@ def abort_coarse(kit: Kit) -> str:
     The move is half a Z range long, within the clearance the plan asks for even if the abort does nothing, and
     the abort comes after a quarter of its time (at most 50 ms), timed by the five steps of ``motion.coarse``. A
     motor that covers half a Z range in less than 50 ms cannot be stopped part of the way with any certainty, so
-    the check does not apply. The motor then steps back to within a step of where it began."""
+    the check does not apply. The motor then steps back to where it began (:func:`_steps_back`)."""
     ctl, lim = kit.controller, kit.controller.limits
     if not ctl.has(Capability.COARSE_MOTOR):
         raise NotApplicable
@@ -240,8 +281,8 @@ def abort_coarse(kit: Kit) -> str:
                             join_s=max(2.0, 2 * nominal)).judge(ctl)
     finally:
         moved = status_of(ctl).coarse_position_m - p0
-        back = round(moved / lim.coarse_step_m) - 1  # one step short: the steps scatter, and a motor may refuse
-        if back > 0:                                 # to pass its start
+        back = _steps_back(lim, p0, round(moved / lim.coarse_step_m))
+        if back > 0:
             ctl.step_coarse(-back)
     if moved > 0.9 * steps * lim.coarse_step_m:
         raise Fail(f"after abort() the {what} went on to the end: the coarse position moved {moved * 1e6:.2f} µm")
@@ -285,6 +326,6 @@ def coarse_travel(kit: Kit) -> str:
 MOTION = [("motion.z_limit_high", z_limit_high), ("motion.xy_limits", xy_limits),
           ("motion.force_curve_limits", force_curve_limits), ("motion.line_limits", line_limits),
           ("motion.nonfinite", nonfinite_motion), ("motion.capabilities_undeclared", undeclared_moving),
-          ("motion.z_move", z_move), ("motion.safe_from_extended", safe_from_extended), ("motion.xy_move", xy_move),
-          ("motion.withdraw_wins", withdraw_wins),
+          ("motion.z_move", z_move), ("motion.safe_from_extended", safe_from_extended),
+          ("motion.force_curve", force_curve), ("motion.xy_move", xy_move), ("motion.withdraw_wins", withdraw_wins),
           ("motion.coarse", coarse), ("motion.abort_coarse", abort_coarse), ("motion.coarse_travel", coarse_travel)]

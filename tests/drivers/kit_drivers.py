@@ -15,7 +15,7 @@ import math
 
 import numpy as np
 
-from drivers.base import Capability, Controller, Limits, SecondPass
+from drivers.base import Capability, Controller, ForceCurve, Limits, SecondPass
 from drivers.errors import ControllerFault, LimitExceeded
 from drivers.simulated import SimulatedController, _mapped
 from simulated_stage.scenario import Scenario
@@ -233,6 +233,14 @@ class ForceCurveClipsZ(SimulatedController):
         return super().force_curve(min(max(z_stop_m, 0.0), self.limits.z_range_m), points)
 
 
+class ForceCurveInNanometres(SimulatedController):
+    """Returns the Z of a force curve in nm."""
+
+    def force_curve(self, z_stop_m, points):
+        c = super().force_curve(z_stop_m, points)
+        return ForceCurve(c.z_m * 1e9, c.deflection_v, c.retract_z_m * 1e9, c.retract_deflection_v)
+
+
 class ClipsPassBias(SimulatedController):
     """Clips the bias of each second pass to the limit instead of refusing the line."""
 
@@ -254,11 +262,10 @@ class CoarsePastTravel(SimulatedController):
 
 
 #: broken driver -> the level that shows it, the stage it runs on (``signals``: near the surface, fast magnet;
-#: ``motion``: room to move, no magnet; ``motion_magnet``: room to move, the kit magnet; ``coarse``: as ``motion``, for
-#: the coarse motor alone) and the checks that must fail: the check of the promise broken first, then those that fail
-#: because of it (a clipped bias also takes an infinite one; a sweep that is not there can neither refuse its limits nor
-#: be aborted; a Z move that does not take time is over before it can be aborted, and so is a field that jumps; an abort
-#: is a make-safe)
+#: ``motion``: room to move, no magnet; ``motion_magnet``: room to move, the kit magnet) and the checks that must fail:
+#: the check of the promise broken first, then those that fail because of it (a clipped bias also takes an infinite one;
+#: a sweep that is not there can neither refuse its limits nor be aborted; a Z move that does not take time is over
+#: before it can be aborted, and so is a field that jumps; an abort is a make-safe)
 BROKEN = {
     ClipsBias: ("signals", "signals", {"safety.bias_limit", "safety.nonfinite"}),
     DriveLimitAsValueError: ("signals", "signals", {"safety.drive_limits", "safety.nonfinite"}),
@@ -274,11 +281,12 @@ BROKEN = {
     ClipsZ: ("motion", "motion", {"motion.z_limit_high", "safety.z_limit_low", "motion.nonfinite"}),
     IgnoresZSpeed: ("motion", "motion", {"motion.z_move", "motion.withdraw_wins"}),
     KeepsFieldOnSafe: ("motion", "motion_magnet", {"field.make_safe", "field.abort"}),
-    CoarsePastTravel: ("motion", "coarse", {"motion.coarse_travel"}),
+    CoarsePastTravel: ("motion", "motion", {"motion.coarse_travel"}),
     FieldJumps: ("motion", "motion_magnet", {"field.ramp_rate", "field.abort"}),
     MakeSafeLeavesZ: ("motion", "motion", {"motion.safe_from_extended"}),
     SweepClipsAmplitude: ("signals", "signals", {"safety.sweep_limits"}),
-    CoarseIgnoresAbort: ("motion", "coarse", {"motion.abort_coarse"}),
+    CoarseIgnoresAbort: ("motion", "motion", {"motion.abort_coarse"}),
     ForceCurveClipsZ: ("motion", "motion", {"motion.force_curve_limits"}),
+    ForceCurveInNanometres: ("motion", "motion", {"motion.force_curve"}),
     ClipsPassBias: ("motion", "motion", {"motion.line_limits"}),
 }

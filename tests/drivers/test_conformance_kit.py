@@ -24,9 +24,9 @@ EXPECTED = {"identity.info", "identity.limits", "identity.url", "signals.read", 
             "signals.sweep", "signals.capabilities_declared", "safety.bias_limit", "safety.sweep_limits",
             "safety.nonfinite", "safety.withdraw_twice", "safety.abort_sweep", "safety.abort_record", "motion.z_move",
             "motion.withdraw_wins", "motion.safe_from_extended", "motion.coarse", "motion.coarse_travel",
-            "motion.abort_coarse", "motion.force_curve_limits", "motion.line_limits", "engaged.approach",
-            "engaged.line", "engaged.abort_mid_line", "field.limits", "field.ramp_rate", "field.make_safe",
-            "field.abort", "end.safe"}
+            "motion.abort_coarse", "motion.force_curve_limits", "motion.force_curve", "motion.line_limits",
+            "engaged.approach", "engaged.line", "engaged.abort_mid_line", "field.limits", "field.ramp_rate",
+            "field.make_safe", "field.abort", "end.safe"}
 
 
 def _yes(level: str, plan: str) -> bool:
@@ -77,13 +77,10 @@ def test_links_pass_every_level_and_their_watchdog_acts(transport):
 
 @pytest.fixture(scope="module")
 def stages():
-    """The stages of the broken drivers: near the surface, and with room to move (with and without a magnet;
-    one more for the coarse motor, whose steps scatter: on a stage shared with others, the kit's five steps back
-    can end more than half a step behind the start, which the simulated motor refuses)."""
+    """The stages of the broken drivers: near the surface, and with room to move (with and without a magnet)."""
     return {"signals": kit_controller(magnet="fast").stage,
             "motion": kit_controller(start_gap_um=12.0, magnet="none").stage,
-            "motion_magnet": kit_controller(start_gap_um=12.0).stage,
-            "coarse": kit_controller(start_gap_um=12.0, magnet="none").stage}
+            "motion_magnet": kit_controller(start_gap_um=12.0).stage}
 
 
 @pytest.mark.parametrize("cls", list(BROKEN), ids=lambda c: c.__name__)
