@@ -1,8 +1,9 @@
 """The runner of the conformance kit: levels, checks, confirmation before motion, and the stage left safe.
 
 A check is a function ``check(kit) -> str`` that returns one sentence of evidence when the promise holds and
-raises :class:`Fail` (with the sentence that shows it broken) when it does not; :class:`NotApplicable` leaves
-it out of the result (a watchdog check on a controller that is not behind a link). Any other exception fails
+raises :class:`Fail` (with the sentence that shows it broken) when it does not, or :class:`Halt` when the
+stage may still be moving afterwards (a call that abort() did not stop), which ends the run; :class:`NotApplicable`
+leaves it out of the result (a watchdog check on a controller that is not behind a link). Any other exception fails
 the check with the exception named, and the stage is made safe before the next check runs.
 """
 
@@ -44,6 +45,10 @@ FIELD_ZERO_FRACTION = 0.01
 
 class Fail(Exception):
     """A broken promise; the message is the evidence."""
+
+
+class Halt(Fail):
+    """A broken promise after which nothing more may run: the stage may still be moving."""
 
 
 class NotApplicable(Exception):
@@ -138,6 +143,14 @@ def run_level_checks(kit: Kit, level: str, checks: list[tuple[str, Callable[[Kit
             check = Check(name, level, True, _sentence(fn(kit)))
         except NotApplicable:
             continue
+        except Halt as exc:
+            check = Check(name, level, False, _sentence(str(exc)))
+            result.checks.append(check)
+            progress(check)
+            make_safe(kit.controller)
+            result.stopped = (f"after {name} the stage may still be moving; the kit stopped: check the instrument "
+                              f"by hand")
+            return False
         except Fail as exc:
             check = Check(name, level, False, _sentence(str(exc)))
         except Exception as exc:  # an exception the interface does not allow there

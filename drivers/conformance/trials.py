@@ -10,7 +10,7 @@ from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 
 from drivers.base import Capability, Controller, Status
-from drivers.conformance.kit import ABORT_LIMIT_S, Fail, quiet_heap
+from drivers.conformance.kit import ABORT_LIMIT_S, Fail, Halt, quiet_heap
 from drivers.errors import Aborted, CapabilityMissing, LimitExceeded
 
 
@@ -88,8 +88,7 @@ def refused_at_once(ctl: Controller, call: Callable[[], object], what: str, *,
     if also and isinstance(exc, also):
         return f"{type(exc).__name__}: {exc}"
     if th.is_alive():
-        raise Fail(f"{what} was still running {took:.1f} s after it began, abort() notwithstanding: stop the "
-                   f"instrument by hand")
+        raise Halt(f"{what} was still running {took:.1f} s after it began, abort() notwithstanding")
     if stopped:
         raise Fail(f"{what} was accepted and ran until abort() stopped it after {stop_after_s * 1e3:.0f} ms "
                    f"({type(exc).__name__ if exc is not None else 'it returned normally'}), instead of being "
@@ -143,7 +142,7 @@ class AbortTrial:
             raise Fail(f"abort() took {self.abort_s * 1e3:.0f} ms during the {self.what} (limit "
                        f"{self.limit_s * 1e3:.0f} ms)")
         if self.outcome == "running":
-            raise Fail(f"the {self.what} was still running {self.after_abort_s:.1f} s after abort() returned")
+            raise Halt(f"the {self.what} was still running {self.after_abort_s:.1f} s after abort() returned")
         if self.outcome == "finished":
             raise Fail(f"the {self.what} returned normally {max(self.after_abort_s, 0.0) * 1e3:.0f} ms after abort() "
                        f"instead of raising Aborted")

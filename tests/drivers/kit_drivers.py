@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import dataclasses
 import math
+import time
 
 import numpy as np
 
@@ -224,6 +225,18 @@ class CoarseIgnoresAbort(SimulatedController):
         new = stage.coarse.plan(int(steps), stage.rng)
         stage.clock.advance(abs(int(steps)) * stage.coarse.step_time_s, interruptible=False)
         stage.coarse.position_m = new
+
+
+class CoarseRunsOn(SimulatedController):
+    """Takes a move past the travel without a word, and abort() does not reach the motor: it runs on for 3 s (as
+    far as the tests let it: the position does not change)."""
+
+    def step_coarse(self, steps):
+        lim = self.limits
+        if self.status().coarse_position_m + int(steps) * lim.coarse_step_m <= lim.coarse_travel_max_m:
+            super().step_coarse(steps)
+            return
+        time.sleep(3.0)
 
 
 class ForceCurveClipsZ(SimulatedController):

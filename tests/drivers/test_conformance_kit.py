@@ -92,6 +92,17 @@ def test_each_broken_driver_is_caught_by_the_check_of_its_promise(cls, stages):
     assert not result.passed and result.stopped is None
 
 
+def test_a_move_that_abort_does_not_stop_ends_the_run():
+    from kit_drivers import CoarseRunsOn
+
+    result = run_checks(kit_controller(CoarseRunsOn, start_gap_um=12.0, magnet="none"), level="engaged",
+                        confirm=_yes)
+    assert "motion.coarse_travel" in result.failed(), _explain(result)
+    assert "may still be moving" in result.stopped and "by hand" in result.stopped
+    assert not any(c.level == "engaged" for c in result.checks)  # nothing approaches after it
+    assert result.checks[-1].name == "end.safe"
+
+
 # ---- command line ----------------------------------------------------------------------------------------------
 
 @pytest.fixture
