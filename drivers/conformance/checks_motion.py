@@ -1,9 +1,9 @@
 """Checks that move the stage clear of the surface: ``motion`` (the ``engaged`` ones are in :mod:`.checks_engaged`).
 
-Sizes: Z moves of at most a fifth of the range, XY moves of 0.5 µm about the centre, five coarse steps and a
-coarse move of half a Z range (stopped by abort()); the refusals of a force curve, a line's second pass and a
-coarse move beyond the limits run in a thread, stopped by abort() after 200 ms if a driver accepts them. Second passes are at a lift of 100 nm (well above
-the tapping amplitude of an MFM lever: common practice, no source).
+Sizes: Z moves of at most a fifth of the range, XY moves of 0.5 µm about the centre, six coarse steps and back, a
+coarse move of half a Z range (stopped by abort()); the refusals of a force curve, a line's second pass and a coarse
+move beyond the limits run in a thread, stopped by abort() within 200 ms if a driver accepts them. Second passes are
+at a lift of 100 nm (well above the tapping amplitude of an MFM lever: common practice, no source).
 """
 
 from __future__ import annotations
@@ -14,13 +14,14 @@ import time
 import numpy as np
 
 from drivers.base import Capability, ForceCurve, LineSpec, SecondPass
-from drivers.conformance.kit import Fail, Kit, NotApplicable, Timer, field_left_on
+from drivers.conformance.kit import ABORT_LIMIT_S, Fail, Kit, NotApplicable, Timer, field_left_on
 from drivers.conformance.trials import (abort_during, capability_missing, drive_point, refused, refused_at_once,
                                         status_of, z_move_refused)
 from drivers.errors import CapabilityMissing
 
 LIFT_M = 100e-9
 SPEED_TOLERANCE = 0.1  # a move may look up to 10 % faster than the limit (clock granularity)
+GUARD_MIN_S = 0.02  # the shortest wait before a move past the coarse travel that was not refused is aborted
 
 
 # ---- motion --------------------------------------------------------------------------------------------------
@@ -233,27 +234,37 @@ def _steps_back(lim, start_m: float, out_steps: int) -> int:
 
 
 def coarse(kit: Kit) -> str:
-    """Five coarse steps move the motor about five nominal steps towards the sample (positive = towards it), and
-    coming back returns it to where it was (within a step when it began at the start: :func:`_steps_back`)."""
+    """One coarse step and then five move the motor about five nominal steps towards the sample with the five
+    (positive = towards it), and coming back returns it to where it was (within a step when it began at the
+    start: :func:`_steps_back`). The checks after it time a step from these: the five's time over five (the
+    call's own overhead included: the longest a step can take, to time an abort) and the five's time less the
+    one's over four (the overhead left out: the shortest, for the guard of a move that should be refused)."""
     ctl, lim = kit.controller, kit.controller.limits
     if not ctl.has(Capability.COARSE_MOTOR):
         raise NotApplicable
     p0 = status_of(ctl).coarse_position_m
     t = Timer()
+    ctl.step_coarse(1)
+    one_s = t()
+    pm = status_of(ctl).coarse_position_m
+    t = Timer()
     ctl.step_coarse(5)
-    kit.notes["coarse_step_s"] = t() / 5  # for motion.abort_coarse: the call's own time included
+    five_s = t()
+    kit.notes["coarse_step_s"] = five_s / 5
+    kit.notes["coarse_step_fast_s"] = max(five_s - one_s, 0.0) / 4
     p1 = status_of(ctl).coarse_position_m
-    back = _steps_back(lim, p0, 5)
+    back = _steps_back(lim, p0, 6)
     ctl.step_coarse(-back)
     p2 = status_of(ctl).coarse_position_m
     nominal = 5 * lim.coarse_step_m
-    if not 0.5 * nominal <= p1 - p0 <= 1.5 * nominal:
-        raise Fail(f"5 coarse steps towards the sample changed coarse_position_m by {p1 - p0:g}, expected about "
+    if not 0.5 * nominal <= p1 - pm <= 1.5 * nominal:
+        raise Fail(f"5 coarse steps towards the sample changed coarse_position_m by {p1 - pm:g}, expected about "
                    f"{nominal:g} m (positive = towards the sample)")
-    if not abs(p2 - p0 - (5 - back) * lim.coarse_step_m) <= 0.5 * nominal:
-        raise Fail(f"5 steps forward and {back} back left the coarse position {p2 - p0:g} m from the start")
-    return (f"5 coarse steps moved {(p1 - p0) * 1e9:.0f} nm towards the sample (nominal {nominal * 1e9:.0f} nm), "
-            f"{back} back left it {(p2 - p0) * 1e9:.0f} nm from where it began")
+    if not abs(p2 - p0 - (6 - back) * lim.coarse_step_m) <= 0.5 * nominal:
+        raise Fail(f"6 steps forward and {back} back left the coarse position {p2 - p0:g} m from the start")
+    return (f"5 coarse steps moved {(p1 - pm) * 1e9:.0f} nm towards the sample (nominal {nominal * 1e9:.0f} nm) "
+            f"in {five_s * 1e3:.0f} ms, one step in {one_s * 1e3:.0f} ms; {back} back left it "
+            f"{(p2 - p0) * 1e9:.0f} nm from where it began")
 
 
 def abort_coarse(kit: Kit) -> str:
@@ -261,19 +272,20 @@ def abort_coarse(kit: Kit) -> str:
     the stage safe; the approach moves the coarse motor in long moves, and a stop must not wait for one to end.
 
     The move is half a Z range long, within the clearance the plan asks for even if the abort does nothing, and
-    the abort comes after a quarter of its time (at most 50 ms), timed by the five steps of ``motion.coarse``. A
-    motor that covers half a Z range in less than 50 ms cannot be stopped part of the way with any certainty, so
-    the check does not apply. The motor then steps back to where it began (:func:`_steps_back`)."""
+    the abort comes after a quarter of its time (at most 50 ms), timed by ``motion.coarse``. A motor that covers
+    half a Z range in less than 50 ms cannot be stopped part of the way with any certainty, so the check does not
+    apply. The motor then steps back to where it began (:func:`_steps_back`)."""
     ctl, lim = kit.controller, kit.controller.limits
     if not ctl.has(Capability.COARSE_MOTOR):
         raise NotApplicable
     step_s = kit.notes.get("coarse_step_s")
     if step_s is None:
-        raise Fail("not checked: motion.coarse did not time five steps")
+        raise Fail("not checked: motion.coarse did not time the coarse steps")
     steps = max(1, int(0.5 * lim.z_range_m / lim.coarse_step_m))
     nominal = steps * step_s
     if nominal < 0.05:
         raise NotApplicable
+    kit.notes["abort_coarse"] = "failed"
     p0 = status_of(ctl).coarse_position_m
     what = f"coarse move of {steps} steps ({steps * lim.coarse_step_m * 1e6:.2f} µm)"
     try:
@@ -286,6 +298,7 @@ def abort_coarse(kit: Kit) -> str:
             ctl.step_coarse(-back)
     if moved > 0.9 * steps * lim.coarse_step_m:
         raise Fail(f"after abort() the {what} went on to the end: the coarse position moved {moved * 1e6:.2f} µm")
+    kit.notes["abort_coarse"] = "works"
     return said + f"; the motor had moved {moved * 1e9:.0f} nm of {steps * lim.coarse_step_m * 1e9:.0f} nm"
 
 
@@ -298,18 +311,27 @@ def coarse_travel(kit: Kit) -> str:
     the remaining travel from any position within it, and so far beyond that no scatter of the step size can
     bring the request back inside (a driver may check the travel it plans rather than the step count). A
     conforming driver refuses that before the motor moves. A driver that accepts it would move towards the
-    sample, so the request runs in a thread and ``abort()`` stops it after 200 ms, which a driver that passed
-    ``motion.coarse`` and ``motion.withdraw_wins`` can do; the plan asks for a Z range plus 1 µm of clearance.
-    Stepping beyond the start away from the sample is not asked: the interface does not say it is refused.
+    sample, so the request runs in a thread and ``abort()`` stops it once the motor could have covered half a Z
+    range at the speed ``motion.coarse`` measured (0.02 to 0.2 s); the plan asks for a Z range plus 1 µm of
+    clearance. Where ``motion.abort_coarse`` showed that abort() does not stop a coarse move, nothing could stop
+    a driver that accepted, so the move is not asked for and the check fails. A driver that ignores where the
+    motor is and checks only against the whole travel is not caught: the kit would have to move it most of the
+    way first. Stepping beyond the start away from the sample is not asked: the interface does not say it is
+    refused.
     """
     ctl, lim = kit.controller, kit.controller.limits
     if not ctl.has(Capability.COARSE_MOTOR):
         raise NotApplicable
+    if kit.notes.get("abort_coarse") == "failed":
+        raise Fail("not asked: abort() did not stop a coarse move (motion.abort_coarse), so nothing could stop a "
+                   "driver that accepted a move past the travel")
+    step_s = kit.notes.get("coarse_step_fast_s") or 0.0
+    guard_s = min(ABORT_LIMIT_S, max(GUARD_MIN_S, 0.5 * lim.z_range_m / lim.coarse_step_m * step_s))
     before = status_of(ctl).coarse_position_m
     steps = math.ceil(2 * lim.coarse_travel_max_m / lim.coarse_step_m)
     what = (f"step_coarse({steps}), {steps * lim.coarse_step_m * 1e3:.3g} mm towards the sample from "
             f"{before * 1e6:.2f} µm (travel {lim.coarse_travel_max_m * 1e3:.3g} mm)")
-    refused_at_once(ctl, lambda: ctl.step_coarse(steps), what)
+    refused_at_once(ctl, lambda: ctl.step_coarse(steps), what, stop_after_s=guard_s)
     s = status_of(ctl)
     moved = s.coarse_position_m - before
     if not abs(moved) <= 0.5 * lim.coarse_step_m:

@@ -27,11 +27,12 @@ PLANS = {
                "the sample and back, and start a move of half a Z range towards it that abort() stops. Then ask for a"
                " force curve beyond the Z range, a line with a second pass beyond the bias limit and a coarse move of"
                " twice the whole travel: the driver must refuse each before anything moves (a driver that does not is"
-               " stopped with abort() after 0.2 s; a force curve may have extended Z by up to its whole range by "
-               "then). The tip must be well clear of the surface: at least one Z range plus 1 µm. Nothing approaches "
-               "the surface. With a magnet (applied_field): apply a field of 5 % of its range, at most 40 kA/m (50 "
-               "mT), bring it back to 0 with make_safe(), then apply it with the opposite sign and abort() the ramp "
-               "back through 0; keep magnetic media and delicate samples away."),
+               " stopped with abort() within 0.2 s, the coarse motor before it could have gone half a Z range; a "
+               "force curve may have extended Z by up to its whole range by then). The tip must be well clear of the "
+               "surface: at least one Z range plus 1 µm. Nothing approaches the surface. With a magnet "
+               "(applied_field): apply a field of 5 % of its range, at most 40 kA/m (50 mT), bring it back to 0 with "
+               "make_safe(), then apply it with the opposite sign and abort() the ramp back through 0; keep magnetic "
+               "media and delicate samples away."),
     "engaged": ("approach the surface under amplitude feedback (coarse steps no longer than the Z range just "
                 "searched), scan one short line with two second passes at a safe lift height, stop a second line "
                 "in the middle with abort(), and over a link stay silent until the server's watchdog acts. "

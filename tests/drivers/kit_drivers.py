@@ -278,7 +278,8 @@ class CoarsePastTravel(SimulatedController):
 #: ``motion``: room to move, no magnet; ``motion_magnet``: room to move, the kit magnet) and the checks that must fail:
 #: the check of the promise broken first, then those that fail because of it (a clipped bias also takes an infinite one;
 #: a sweep that is not there can neither refuse its limits nor be aborted; a Z move that does not take time is over
-#: before it can be aborted, and so is a field that jumps; an abort is a make-safe)
+#: before it can be aborted, and so is a field that jumps; a move past the coarse travel is not asked for where an abort
+#: cannot stop the coarse motor; an abort is a make-safe)
 BROKEN = {
     ClipsBias: ("signals", "signals", {"safety.bias_limit", "safety.nonfinite"}),
     DriveLimitAsValueError: ("signals", "signals", {"safety.drive_limits", "safety.nonfinite"}),
@@ -298,7 +299,7 @@ BROKEN = {
     FieldJumps: ("motion", "motion_magnet", {"field.ramp_rate", "field.abort"}),
     MakeSafeLeavesZ: ("motion", "motion", {"motion.safe_from_extended"}),
     SweepClipsAmplitude: ("signals", "signals", {"safety.sweep_limits"}),
-    CoarseIgnoresAbort: ("motion", "motion", {"motion.abort_coarse"}),
+    CoarseIgnoresAbort: ("motion", "motion", {"motion.abort_coarse", "motion.coarse_travel"}),
     ForceCurveClipsZ: ("motion", "motion", {"motion.force_curve_limits"}),
     ForceCurveInNanometres: ("motion", "motion", {"motion.force_curve"}),
     ClipsPassBias: ("motion", "motion", {"motion.line_limits"}),
