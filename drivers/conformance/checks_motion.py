@@ -225,6 +225,19 @@ def withdraw_wins(kit: Kit) -> str:
     return said + "; Z stayed at 0 afterwards"
 
 
+def abort_force_curve(kit: Kit) -> str:
+    """``abort()`` during a force curve in free air (out to a fifth of the Z range at most and back, which takes at
+    least twice that over the speed limit) stops it (Aborted) and leaves the stage safe with Z at 0."""
+    ctl, lim = kit.controller, kit.controller.limits
+    if not ctl.has(Capability.FORCE_CURVE):
+        raise NotApplicable
+    dz = min(0.2 * lim.z_range_m, lim.z_speed_max_m_per_s * 1.0)
+    nominal = 2 * dz / lim.z_speed_max_m_per_s
+    trial = abort_during(ctl, lambda: ctl.force_curve(dz, 64), f"force curve to {dz * 1e6:.2f} µm", nominal,
+                         after_s=min(0.05, nominal / 4))
+    return trial.judge(ctl)
+
+
 def _steps_back(lim, start_m: float, out_steps: int) -> int:
     """How many steps bring the coarse motor back after ``out_steps`` out from ``start_m``: all of them, unless
     it began less than a step from the start of its travel, then one fewer. Steps scatter (on the simulated
@@ -350,4 +363,5 @@ MOTION = [("motion.z_limit_high", z_limit_high), ("motion.xy_limits", xy_limits)
           ("motion.nonfinite", nonfinite_motion), ("motion.capabilities_undeclared", undeclared_moving),
           ("motion.z_move", z_move), ("motion.safe_from_extended", safe_from_extended),
           ("motion.force_curve", force_curve), ("motion.xy_move", xy_move), ("motion.withdraw_wins", withdraw_wins),
-          ("motion.coarse", coarse), ("motion.abort_coarse", abort_coarse), ("motion.coarse_travel", coarse_travel)]
+          ("motion.abort_force_curve", abort_force_curve), ("motion.coarse", coarse),
+          ("motion.abort_coarse", abort_coarse), ("motion.coarse_travel", coarse_travel)]

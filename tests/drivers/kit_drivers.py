@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import dataclasses
 import math
+import threading
 import time
 
 import numpy as np
@@ -254,6 +255,24 @@ class ForceCurveInNanometres(SimulatedController):
         return ForceCurve(c.z_m * 1e9, c.deflection_v, c.retract_z_m * 1e9, c.retract_deflection_v)
 
 
+class AbortWaitsForForceCurve(SimulatedController):
+    """abort() waits for a force curve in flight to finish before it makes the stage safe (it stops other calls)."""
+
+    _curve_done: threading.Event | None = None
+
+    def force_curve(self, z_stop_m, points):
+        self._curve_done = threading.Event()
+        try:
+            return super().force_curve(z_stop_m, points)
+        finally:
+            self._curve_done.set()
+
+    def abort(self):
+        if self._curve_done is not None:
+            self._curve_done.wait()
+        super().abort()
+
+
 class ClipsPassBias(SimulatedController):
     """Clips the bias of each second pass to the limit instead of refusing the line."""
 
@@ -302,5 +321,6 @@ BROKEN = {
     CoarseIgnoresAbort: ("motion", "motion", {"motion.abort_coarse", "motion.coarse_travel"}),
     ForceCurveClipsZ: ("motion", "motion", {"motion.force_curve_limits"}),
     ForceCurveInNanometres: ("motion", "motion", {"motion.force_curve"}),
+    AbortWaitsForForceCurve: ("motion", "motion", {"motion.abort_force_curve"}),
     ClipsPassBias: ("motion", "motion", {"motion.line_limits"}),
 }

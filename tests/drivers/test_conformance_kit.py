@@ -23,10 +23,10 @@ pytestmark = pytest.mark.timeout(120)
 EXPECTED = {"identity.info", "identity.limits", "identity.url", "signals.read", "signals.thermal_record",
             "signals.sweep", "signals.capabilities_declared", "safety.bias_limit", "safety.sweep_limits",
             "safety.nonfinite", "safety.withdraw_twice", "safety.abort_sweep", "safety.abort_record", "motion.z_move",
-            "motion.withdraw_wins", "motion.safe_from_extended", "motion.coarse", "motion.coarse_travel",
-            "motion.abort_coarse", "motion.force_curve_limits", "motion.force_curve", "motion.line_limits",
-            "engaged.approach", "engaged.line", "engaged.abort_mid_line", "field.limits", "field.ramp_rate",
-            "field.make_safe", "field.abort", "end.safe"}
+            "motion.withdraw_wins", "motion.abort_force_curve", "motion.safe_from_extended", "motion.coarse",
+            "motion.coarse_travel", "motion.abort_coarse", "motion.force_curve_limits", "motion.force_curve",
+            "motion.line_limits", "engaged.approach", "engaged.line", "engaged.abort_mid_line", "field.limits",
+            "field.ramp_rate", "field.make_safe", "field.abort", "end.safe"}
 
 
 def _yes(level: str, plan: str) -> bool:
