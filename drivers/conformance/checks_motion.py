@@ -275,9 +275,9 @@ def coarse(kit: Kit) -> str:
                    f"{nominal:g} m (positive = towards the sample)")
     if not abs(p2 - p0 - (6 - back) * lim.coarse_step_m) <= 0.5 * nominal:
         raise Fail(f"6 steps forward and {back} back left the coarse position {p2 - p0:g} m from the start")
-    return (f"5 coarse steps moved {(p1 - pm) * 1e9:.0f} nm towards the sample (nominal {nominal * 1e9:.0f} nm) "
-            f"in {five_s * 1e3:.0f} ms, one step in {one_s * 1e3:.0f} ms; {back} back left it "
-            f"{(p2 - p0) * 1e9:.0f} nm from where it began")
+    return (f"one coarse step took {one_s * 1e3:.0f} ms, then 5 moved {(p1 - pm) * 1e9:.0f} nm towards the sample "
+            f"(nominal {nominal * 1e9:.0f} nm) in {five_s * 1e3:.0f} ms; {back} back left it {(p2 - p0) * 1e9:.0f} nm "
+            f"from where it began")
 
 
 def abort_coarse(kit: Kit) -> str:
