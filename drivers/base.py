@@ -203,7 +203,9 @@ class Controller(abc.ABC):
         """Set the lock-in output filter time constant."""
 
     def sweep(self, frequencies_hz: np.ndarray, amplitude_v: float, *, settle_s: float | None = None) -> SweepData:
-        """Drive at each frequency in turn and record amplitude and phase. Needs :attr:`Capability.DRIVE_SWEEP`."""
+        """Drive at each frequency in turn and record amplitude and phase. Needs :attr:`Capability.DRIVE_SWEEP`.
+
+        The amplitude and every frequency meet the limits of :meth:`set_drive`."""
         raise self._missing(Capability.DRIVE_SWEEP)
 
     # ---- motion ---------------------------------------------------------------------------------------
@@ -212,7 +214,10 @@ class Controller(abc.ABC):
         """Move the Z piezo to extension ``z_m`` (absolute), at no more than the speed limit."""
 
     def step_coarse(self, steps: int) -> None:
-        """Coarse motor: positive steps approach the sample. Needs :attr:`Capability.COARSE_MOTOR`."""
+        """Coarse motor: positive steps approach the sample. Needs :attr:`Capability.COARSE_MOTOR`.
+
+        A move that would take the coarse position past ``limits.coarse_travel_max_m`` raises
+        :class:`drivers.errors.LimitExceeded` before the motor moves."""
         raise self._missing(Capability.COARSE_MOTOR)
 
     @abc.abstractmethod
@@ -231,11 +236,15 @@ class Controller(abc.ABC):
 
     # ---- imaging --------------------------------------------------------------------------------------
     def scan_line(self, spec: LineSpec) -> LineData:
-        """Scan one line natively: topography then the second passes. Needs :attr:`Capability.TWO_PASS_LINE`."""
+        """Scan one line natively: topography then the second passes. Needs :attr:`Capability.TWO_PASS_LINE`.
+
+        A line beyond the scan size, or a pass's bias beyond ``limits.bias_max_v`` or lift height outside the Z
+        range, is refused before the line starts."""
         raise self._missing(Capability.TWO_PASS_LINE)
 
     def force_curve(self, z_stop_m: float, points: int) -> ForceCurve:
-        """Extend Z from its present value to ``z_stop_m`` and back. Needs :attr:`Capability.FORCE_CURVE`."""
+        """Extend Z from its present value to ``z_stop_m`` (within ``[0, limits.z_range_m]``) and back, ``points``
+        values in each array. Needs :attr:`Capability.FORCE_CURVE`."""
         raise self._missing(Capability.FORCE_CURVE)
 
     # ---- bias, state ----------------------------------------------------------------------------------

@@ -3,7 +3,8 @@
 ``signals`` (no field is set): without ``applied_field`` a field other than 0 and a field reading are refused
 with CapabilityMissing while a field of 0 is allowed; with it, both methods are implemented and fields just
 beyond the magnet's limit or not finite are refused with LimitExceeded before anything is set (the field reads
-what it read before). ``motion`` (asks first): a small field reads back and ``make_safe()`` brings it to 0; with
+what it read before). ``motion`` (asks first): setting a small field from 0 and back to 0 takes at least the
+magnet's ramp and settling time each way; the field reads back and ``make_safe()`` brings it to 0; with
 the opposite field on, an ``abort()`` during the ramp through 0 stops it (Aborted) and leaves the field at 0,
 returning within its limit plus the magnet's ramp to 0.
 
@@ -17,11 +18,13 @@ from __future__ import annotations
 import math
 
 from drivers.base import Capability, Controller
-from drivers.conformance.kit import ABORT_LIMIT_S, Fail, Kit, NotApplicable, field_left_on, field_tolerance_a_per_m
+from drivers.conformance.kit import (ABORT_LIMIT_S, Fail, Kit, NotApplicable, Timer, field_left_on,
+                                     field_tolerance_a_per_m)
 from drivers.conformance.trials import abort_during, capability_missing, refused, status_of
 from drivers.wire.commands import ramp_s
 
 TEST_FIELD_FRACTION = 0.05
+RAMP_TOLERANCE = 0.1  # a ramp may look up to 10 % faster than the limit (clock granularity)
 TEST_FIELD_MAX_A_PER_M = 40e3
 
 
@@ -103,6 +106,29 @@ SIGNALS = [("field.capability_undeclared", undeclared), ("field.limits", limits)
 
 # ---- motion: a small field is set ------------------------------------------------------------------------------
 
+def ramp_rate(kit: Kit) -> str:
+    """``set_field`` ramps at no more than ``limits.field_ramp_a_per_m_per_s`` and waits ``field_settle_s``
+    before it returns (a magnet stepped at once induces currents in the sample stage and jolts the field its
+    elements see): from 0 to the test field and back, each call takes at least that time, less 10 % for the
+    clock's granularity."""
+    ctl = kit.controller
+    _magnet(ctl)
+    lim = ctl.limits
+    said = []
+    for start, target in ((0.0, _test_field(ctl)), (_test_field(ctl), 0.0)):
+        least = (1 - RAMP_TOLERANCE) * ramp_s(lim, start, target)
+        t = Timer()
+        ctl.set_field(target)
+        took = t()
+        if took < least:
+            raise Fail(f"set_field from {_kam(start)} to {_kam(target)} returned after {took * 1e3:.0f} ms; a ramp at "
+                       f"{_kam(lim.field_ramp_a_per_m_per_s)}/s and {lim.field_settle_s * 1e3:g} ms settling take at "
+                       f"least {least * 1e3:.0f} ms")
+        said.append(f"{_kam(start)} to {_kam(target)} in {took * 1e3:.0f} ms")
+    return (f"the field went {' and '.join(said)} (ramp limit {_kam(lim.field_ramp_a_per_m_per_s)}/s, settling "
+            f"{lim.field_settle_s * 1e3:g} ms: at least {least * 1e3:.0f} ms each way)")
+
+
 def make_safe(kit: Kit) -> str:
     ctl = kit.controller
     _magnet(ctl)
@@ -124,4 +150,4 @@ def abort_ramp(kit: Kit) -> str:
     return f"{_kam(start)} read back; " + trial.judge(ctl) + "; " + _expect_zero(ctl, "the abort")
 
 
-MOTION = [("field.make_safe", make_safe), ("field.abort", abort_ramp)]
+MOTION = [("field.ramp_rate", ramp_rate), ("field.make_safe", make_safe), ("field.abort", abort_ramp)]

@@ -1,104 +1,17 @@
-"""Checks that move nothing: identity, signals, capabilities, and safety without motion.
-
-The plausibility ranges of the limits are rules of thumb for scanning probe instruments (common practice, no
-source): wide enough for any real instrument, narrow enough that a value in nm or µm passed off as metres, or in
-mV as volts, falls outside.
+"""Checks that move nothing: signals, capabilities, and safety without motion (the identity checks are in
+:mod:`.checks_identity`).
 """
 
 from __future__ import annotations
 
-import dataclasses
 import math
-import re
 
 import numpy as np
 
-from drivers.base import CHANNELS, Capability, Controller, ControllerInfo, Limits
+from drivers.base import CHANNELS, Capability, Controller
 from drivers.conformance.kit import ABORT_LIMIT_S, Fail, Kit, NotApplicable, Timer
 from drivers.conformance.trials import (abort_during, capability_missing, close, drive_point, refused,
                                         status_of, z_move_refused)
-
-#: field -> (lowest, highest) plausible value in SI units
-PLAUSIBLE = {
-    "z_range_m": (1e-7, 1e-3), "z_speed_max_m_per_s": (1e-8, 1e-1), "bias_max_v": (1e-3, 1e3),
-    "drive_max_v": (1e-3, 1e2), "coarse_travel_max_m": (1e-6, 1.0), "coarse_step_m": (1e-10, 1e-4),
-    "scan_size_max_m": (1e-7, 1e-2), "sample_rate_max_hz": (1.0, 1e9), "frequency_max_hz": (1e3, 1e9),
-    # a magnet's (common practice, no source: lab electromagnets reach about 1 mT to 10 T)
-    "field_max_a_per_m": (1e3, 1e7), "field_ramp_a_per_m_per_s": (1.0, 1e8), "field_settle_s": (1e-3, 1e3),
-}
-_SCHEME = re.compile(r"^[a-z][a-z0-9+.-]*$")
-
-
-# ---- identity ------------------------------------------------------------------------------------------------
-
-def info(kit: Kit) -> str:
-    i = kit.controller.info
-    if not isinstance(i, ControllerInfo):
-        raise Fail(f"info is a {type(i).__name__}, not drivers.base.ControllerInfo")
-    values = [i.maker, i.model, i.serial, i.firmware]
-    bad = [n for n, v in zip(("maker", "model", "serial", "firmware"), values)
-           if not isinstance(v, str) or not v.strip() or not v.isprintable()]
-    if bad:
-        raise Fail(f"info field(s) {', '.join(bad)} empty or not printable text")
-    return f"info: maker {i.maker!r}, model {i.model!r}, serial {i.serial!r}, firmware {i.firmware!r}"
-
-
-def capabilities(kit: Kit) -> str:
-    caps = kit.controller.capabilities
-    if not isinstance(caps, (set, frozenset)):
-        raise Fail(f"capabilities is a {type(caps).__name__}, not a set of drivers.base.Capability")
-    unknown = [repr(c) for c in caps if not isinstance(c, Capability)]
-    if unknown:
-        raise Fail(f"capabilities holds unknown flags {', '.join(sorted(unknown))}")
-    return f"declares {len(caps)} known capabilities: {', '.join(sorted(c.value for c in caps)) or 'none'}"
-
-
-def limits(kit: Kit) -> str:
-    ctl, lim = kit.controller, kit.controller.limits
-    if not isinstance(lim, Limits):
-        raise Fail(f"limits is a {type(lim).__name__}, not drivers.base.Limits")
-    problems, checked = [], 0
-    for f in dataclasses.fields(Limits):
-        v = getattr(lim, f.name)
-        low, high = PLAUSIBLE[f.name]
-        if f.name == "bias_max_v" and not ctl.has(Capability.BIAS) and v == 0:
-            continue  # no bias source: a zero limit says so
-        if f.name.startswith("field_") and not ctl.has(Capability.APPLIED_FIELD):
-            continue  # no magnet: its limits do not apply
-        checked += 1
-        if not (isinstance(v, (int, float)) and math.isfinite(v) and v > 0):
-            problems.append(f"{f.name} = {v!r} is not a positive finite number")
-        elif not low <= v <= high:
-            problems.append(f"{f.name} = {v:g} is outside the plausible SI range [{low:g}, {high:g}] "
-                            f"(wrong unit?)")
-    if problems:
-        raise Fail("; ".join(problems))
-    return (f"all {checked} limits positive, finite and plausible in SI, e.g. Z range "
-            f"{lim.z_range_m * 1e6:g} µm, bias ±{lim.bias_max_v:g} V")
-
-
-def url(kit: Kit) -> str:
-    from drivers.registry import available, scheme_of
-
-    cls = type(kit.controller)
-    schemes = getattr(cls, "schemes", ())
-    if not schemes or not all(isinstance(s, str) and _SCHEME.match(s) for s in schemes):
-        raise Fail(f"{cls.__name__}.schemes = {schemes!r} does not name URL schemes")
-    if kit.url is None:
-        return f"{cls.__name__} handles {', '.join(s + '://' for s in schemes)} (no URL given to round-trip)"
-    scheme = scheme_of(kit.url)
-    entry = available().get(scheme)
-    if entry is None:
-        raise Fail(f"no installed driver handles {scheme}:// (is the entry point registered?)")
-    loaded = entry.load()
-    if loaded is not cls or scheme not in schemes:
-        raise Fail(f"the registry opens {scheme}:// with {entry.target}, not with {cls.__module__}."
-                   f"{cls.__name__}")
-    return f"{scheme}:// opens {entry.target} ({entry.origin}), the class under test"
-
-
-IDENTITY = [("identity.info", info), ("identity.capabilities", capabilities), ("identity.limits", limits),
-            ("identity.url", url)]
 
 
 # ---- signals -------------------------------------------------------------------------------------------------
@@ -116,7 +29,8 @@ def read(kit: Kit) -> str:
     ctl = kit.controller
     together = ctl.read(list(CHANNELS))
     if not isinstance(together, dict) or set(together) != set(CHANNELS):
-        raise Fail(f"read({list(CHANNELS)}) returned keys {sorted(together) if isinstance(together, dict) else together!r}")
+        keys = sorted(together) if isinstance(together, dict) else together
+        raise Fail(f"read({list(CHANNELS)}) returned keys {keys!r}")
     for name in CHANNELS:
         alone = ctl.read([name])
         for got in (together[name], alone.get(name)):
@@ -280,6 +194,28 @@ def drive_limits(kit: Kit) -> str:
             f"{lim.frequency_max_hz:g}] Hz refused; the drive stayed off")
 
 
+def sweep_limits(kit: Kit) -> str:
+    """A sweep drives the lever as set_drive does, so its amplitude and frequencies meet the same limits: an
+    amplitude just beyond ``drive_max_v`` or below 0, a frequency just beyond ``frequency_max_hz``, at or below 0
+    or NaN, anywhere in the list, is refused with LimitExceeded before the drive comes on."""
+    ctl, lim = kit.controller, kit.controller.limits
+    if not ctl.has(Capability.DRIVE_SWEEP):
+        raise NotApplicable
+    f, a = drive_point(ctl, kit.notes)
+    asks = [(np.array([f, f]), _over(lim.drive_max_v)), (np.array([f, f]), -0.01 * lim.drive_max_v),
+            (np.array([f, _over(lim.frequency_max_hz)]), a), (np.array([f, 0.0]), a), (np.array([-f, f]), a),
+            (np.array([f, math.nan]), a), (np.array([f, f]), math.nan)]
+    for freqs, amp in asks:
+        what = f"sweep over {', '.join(f'{v:g}' for v in freqs)} Hz at {amp:g} V"
+        refused(lambda freqs=freqs, amp=amp: ctl.sweep(freqs, amp), what)
+        s = status_of(ctl)
+        if s.drive_on:
+            raise Fail(f"{what} was refused, yet status reports the drive on at {s.drive_frequency_hz:g} Hz, "
+                       f"{s.drive_amplitude_v:g} V (clipped?)")
+    return (f"sweeps with the amplitude outside [0, {lim.drive_max_v:g}] V, a frequency outside (0, "
+            f"{lim.frequency_max_hz:g}] Hz or NaN refused in {len(asks)} calls; the drive stayed off")
+
+
 def sample_rate_limit(kit: Kit) -> str:
     ctl, lim = kit.controller, kit.controller.limits.sample_rate_max_hz
     if not ctl.has(Capability.THERMAL_RECORD):
@@ -385,8 +321,8 @@ SIGNALS = [("signals.start_safe", start_safe), ("signals.read", read), ("signals
            ("signals.lockin", lockin), ("signals.thermal_record", thermal_record), ("signals.sweep", sweep),
            ("signals.capabilities_declared", declared), ("signals.capabilities_undeclared", undeclared),
            ("safety.bias_limit", bias_limit), ("safety.drive_limits", drive_limits),
-           ("safety.sample_rate_limit", sample_rate_limit), ("safety.z_limit_low", z_limit_low),
-           ("safety.nonfinite", nonfinite), ("safety.withdraw_twice", withdraw_twice),
-           ("safety.drive_off_twice", drive_off_twice), ("safety.make_safe", make_safe),
-           ("safety.abort_idle", abort_idle), ("safety.abort_sweep", abort_sweep),
+           ("safety.sweep_limits", sweep_limits), ("safety.sample_rate_limit", sample_rate_limit),
+           ("safety.z_limit_low", z_limit_low), ("safety.nonfinite", nonfinite),
+           ("safety.withdraw_twice", withdraw_twice), ("safety.drive_off_twice", drive_off_twice),
+           ("safety.make_safe", make_safe), ("safety.abort_idle", abort_idle), ("safety.abort_sweep", abort_sweep),
            ("safety.abort_record", abort_record)]

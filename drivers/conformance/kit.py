@@ -1,8 +1,9 @@
 """The runner of the conformance kit: levels, checks, confirmation before motion, and the stage left safe.
 
 A check is a function ``check(kit) -> str`` that returns one sentence of evidence when the promise holds and
-raises :class:`Fail` (with the sentence that shows it broken) when it does not; :class:`NotApplicable` leaves
-it out of the result (a watchdog check on a controller that is not behind a link). Any other exception fails
+raises :class:`Fail` (with the sentence that shows it broken) when it does not, or :class:`Halt` when the
+stage may still be moving afterwards (a call that abort() did not stop), which ends the run; :class:`NotApplicable`
+leaves it out of the result (a watchdog check on a controller that is not behind a link). Any other exception fails
 the check with the exception named, and the stage is made safe before the next check runs.
 """
 
@@ -21,13 +22,17 @@ LEVELS = ("identity", "signals", "motion", "engaged")
 
 #: What the kit will do at each level that moves anything; shown (and confirmed) before the level runs.
 PLANS = {
-    "motion": ("move the Z piezo between 0 and at most a fifth of its range at the speed limit (and withdraw "
-               "during a move), move the scanner by at most 1 µm from the centre, and step the coarse motor a few "
-               "steps towards the sample and back. The tip must be well clear of the surface: at least one Z "
-               "range plus 1 µm. Nothing approaches the surface. With a magnet (applied_field): apply a field of "
-               "5 % of its range, at most 40 kA/m (50 mT), bring it back to 0 with make_safe(), then apply it "
-               "with the opposite sign and abort() the ramp back through 0; keep magnetic media and delicate "
-               "samples away."),
+    "motion": ("move the Z piezo between 0 and at most a fifth of its range at the speed limit (and withdraw during a"
+               " move), move the scanner by at most 1 µm from the centre, step the coarse motor a few steps towards "
+               "the sample and back, and start a move of half a Z range towards it that abort() stops. Then ask for a"
+               " force curve beyond the Z range, a line with a second pass beyond the bias limit and a coarse move of"
+               " twice the whole travel: the driver must refuse each before anything moves (a driver that does not is"
+               " stopped with abort() within 0.2 s, the coarse motor before it could have gone half a Z range; a "
+               "force curve may have extended Z by up to its whole range by then). The tip must be well clear of the "
+               "surface: at least one Z range plus 1 µm. Nothing approaches the surface. With a magnet "
+               "(applied_field): apply a field of 5 % of its range, at most 40 kA/m (50 mT), bring it back to 0 with "
+               "make_safe(), then apply it with the opposite sign and abort() the ramp back through 0; keep magnetic "
+               "media and delicate samples away."),
     "engaged": ("approach the surface under amplitude feedback (coarse steps no longer than the Z range just "
                 "searched), scan one short line with two second passes at a safe lift height, stop a second line "
                 "in the middle with abort(), and over a link stay silent until the server's watchdog acts. "
@@ -41,6 +46,10 @@ FIELD_ZERO_FRACTION = 0.01
 
 class Fail(Exception):
     """A broken promise; the message is the evidence."""
+
+
+class Halt(Fail):
+    """A broken promise after which nothing more may run: the stage may still be moving."""
 
 
 class NotApplicable(Exception):
@@ -135,6 +144,14 @@ def run_level_checks(kit: Kit, level: str, checks: list[tuple[str, Callable[[Kit
             check = Check(name, level, True, _sentence(fn(kit)))
         except NotApplicable:
             continue
+        except Halt as exc:
+            check = Check(name, level, False, _sentence(str(exc)))
+            result.checks.append(check)
+            progress(check)
+            make_safe(kit.controller)
+            result.stopped = (f"after {name} the stage may still be moving; the kit stopped: check the instrument "
+                              f"by hand")
+            return False
         except Fail as exc:
             check = Check(name, level, False, _sentence(str(exc)))
         except Exception as exc:  # an exception the interface does not allow there
@@ -161,12 +178,12 @@ def run(controller: Controller, *, level: str = "signals", url: str | None = Non
     ``confirm(level, plan)`` is asked before each level that moves anything (``motion``, ``engaged``); without
     it those levels do not run. ``progress`` sees each check as it finishes.
     """
-    from drivers.conformance import checks_field, checks_motion, checks_signals
+    from drivers.conformance import checks_engaged, checks_field, checks_identity, checks_motion, checks_signals
 
     if level not in LEVELS:
         raise ValueError(f"level {level!r} is not one of {', '.join(LEVELS)}")
-    groups = {"identity": checks_signals.IDENTITY, "signals": checks_signals.SIGNALS + checks_field.SIGNALS,
-              "motion": checks_motion.MOTION + checks_field.MOTION, "engaged": checks_motion.ENGAGED}
+    groups = {"identity": checks_identity.IDENTITY, "signals": checks_signals.SIGNALS + checks_field.SIGNALS,
+              "motion": checks_motion.MOTION + checks_field.MOTION, "engaged": checks_engaged.ENGAGED}
     result = KitResult(url, level)
     kit = Kit(controller, url)
     progress = progress or (lambda check: None)

@@ -201,14 +201,20 @@ class $cls(Controller):
 
     # ---- optional: declare the capability when you implement one ------------------------------------------
     # record_deflection(samples, rate_hz, *, chunk)   THERMAL_RECORD: yield float arrays of raw deflection [V]
-    # sweep(frequencies_hz, amplitude_v, *, settle_s) DRIVE_SWEEP: SweepData with the frequencies asked for
-    # scan_line(spec)                                 TWO_PASS_LINE: LineData, topography_m and passes
+    # sweep(frequencies_hz, amplitude_v, *, settle_s) DRIVE_SWEEP: SweepData with the frequencies asked for;
+    #                                                 amplitude and frequencies within set_drive's limits
+    # scan_line(spec)                                 TWO_PASS_LINE: LineData, topography_m and passes; refuse a
+    #                                                 pass's bias beyond bias_max_v or lift outside [0, Z range]
     # set_bias(bias_v)                                BIAS: |bias| <= limits.bias_max_v, 0 V always allowed
-    # step_coarse(steps)                              COARSE_MOTOR: positive steps approach the sample
-    # force_curve(z_stop_m, points)                   FORCE_CURVE
+    # step_coarse(steps)                              COARSE_MOTOR: positive steps approach the sample; refuse a
+    #                                                 move past limits.coarse_travel_max_m before the motor moves
+    # force_curve(z_stop_m, points)                   FORCE_CURVE: `points` values an array, Z [m] out and back;
+    #                                                 refuse z_stop_m outside [0, Z range]
     # abort()                                         override when a call can take long (it must stop it)
-    # set_field(field_a_per_m), read_field()          APPLIED_FIELD: ramp, settle, then return; 0 always allowed
-    #                                                 (make_safe() and abort() then set the field to 0)
+    # set_field(field_a_per_m), read_field()          APPLIED_FIELD: ramp at no more than the limit, settle, then
+    #                                                 return; 0 always allowed (make_safe() and abort() then set
+    #                                                 the field to 0)
+    # Every refusal is LimitExceeded (NaN and infinities included), raised before anything moves or is set.
 '''
 
 TEST = '''"""The mfm-assistant conformance kit at the ``signals`` level against $cls (nothing moves at this level).

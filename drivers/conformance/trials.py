@@ -10,7 +10,7 @@ from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 
 from drivers.base import Capability, Controller, Status
-from drivers.conformance.kit import ABORT_LIMIT_S, Fail, quiet_heap
+from drivers.conformance.kit import ABORT_LIMIT_S, Fail, Halt, quiet_heap
 from drivers.errors import Aborted, CapabilityMissing, LimitExceeded
 
 
@@ -58,6 +58,46 @@ def z_move_refused(ctl: Controller, z: float, what: str) -> None:
         raise Fail(f"move_z({z:g} m) was refused, yet status reports Z at {got:g} m (clipped?)")
 
 
+def refused_at_once(ctl: Controller, call: Callable[[], object], what: str, *,
+                    stop_after_s: float = ABORT_LIMIT_S, also: tuple[type, ...] = ()) -> str:
+    """``call`` (one that would move the stage) must raise LimitExceeded. It runs in a thread; if it has not
+    ended ``stop_after_s`` after it began, ``abort()`` stops it, so that a driver that accepted it moves for no
+    longer than that. The verdict rests on the outcome, not the time: a refusal that arrives late still counts.
+    ``also``: further exceptions that count as a refusal. Returns the refusal's message."""
+    quiet_heap()
+    box: dict = {}
+
+    def target() -> None:
+        try:
+            box["outcome"] = call()
+        except BaseException as exc:  # judged below, in the calling thread
+            box["error"] = exc
+
+    th = threading.Thread(target=target, name="conformance-refusal", daemon=True)
+    t0 = time.monotonic()
+    th.start()
+    th.join(stop_after_s)
+    stopped = th.is_alive()
+    if stopped:
+        ctl.abort()
+        th.join(2.0)
+    took = time.monotonic() - t0
+    exc = box.get("error")
+    if isinstance(exc, LimitExceeded):
+        return str(exc)
+    if also and isinstance(exc, also):
+        return f"{type(exc).__name__}: {exc}"
+    if th.is_alive():
+        raise Halt(f"{what} was still running {took:.1f} s after it began, abort() notwithstanding")
+    if stopped:
+        raise Fail(f"{what} was accepted and ran until abort() stopped it after {stop_after_s * 1e3:.0f} ms "
+                   f"({type(exc).__name__ if exc is not None else 'it returned normally'}), instead of being "
+                   f"refused with LimitExceeded before moving")
+    if exc is not None:
+        raise Fail(f"{what} raised {type(exc).__name__} ({exc}) instead of LimitExceeded")
+    raise Fail(f"{what} was accepted instead of refused with LimitExceeded (it returned after {took * 1e3:.0f} ms)")
+
+
 def close(a: float, b: float, *, rel: float = 1e-6, abs_: float = 0.0) -> bool:
     return math.isfinite(a) and abs(a - b) <= max(abs_, rel * max(abs(a), abs(b)))
 
@@ -102,9 +142,9 @@ class AbortTrial:
             raise Fail(f"abort() took {self.abort_s * 1e3:.0f} ms during the {self.what} (limit "
                        f"{self.limit_s * 1e3:.0f} ms)")
         if self.outcome == "running":
-            raise Fail(f"the {self.what} was still running {self.after_abort_s:.1f} s after abort() returned")
+            raise Halt(f"the {self.what} was still running {self.after_abort_s:.1f} s after abort() returned")
         if self.outcome == "finished":
-            raise Fail(f"the {self.what} returned normally {self.after_abort_s * 1e3:.0f} ms after abort() "
+            raise Fail(f"the {self.what} returned normally {max(self.after_abort_s, 0.0) * 1e3:.0f} ms after abort() "
                        f"instead of raising Aborted")
         if self.outcome != "aborted":
             raise Fail(f"the {self.what} {self.outcome} after abort() instead of raising Aborted")

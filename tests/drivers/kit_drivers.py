@@ -10,13 +10,16 @@ kit's timing checks mean something. Its magnet (invented values) takes 0.15 s, r
 
 from __future__ import annotations
 
+import dataclasses
 import math
+import threading
+import time
 
 import numpy as np
 
-from drivers.base import Capability, Controller, Limits
+from drivers.base import Capability, Controller, ForceCurve, Limits, SecondPass
 from drivers.errors import ControllerFault, LimitExceeded
-from drivers.simulated import SimulatedController
+from drivers.simulated import SimulatedController, _mapped
 from simulated_stage.scenario import Scenario
 
 KIT_SCENARIO = """
@@ -178,17 +181,130 @@ class KeepsFieldOnSafe(SimulatedController):
         pass
 
 
+class SweepClipsAmplitude(SimulatedController):
+    """Clips a sweep's amplitude to the drive limit instead of refusing it (set_drive refuses as it should)."""
+
+    def sweep(self, frequencies_hz, amplitude_v, *, settle_s=None):
+        lim = self.limits.drive_max_v
+        return super().sweep(frequencies_hz, min(max(amplitude_v, 0.0), lim), settle_s=settle_s)
+
+
+class MakeSafeLeavesZ(SimulatedController):
+    """make_safe() switches the drive off and sets the bias and the field to 0 but forgets the withdraw; its
+    abort() withdraws as it should."""
+
+    def make_safe(self):
+        self.drive_off()
+        self.set_bias(0.0)
+        self.zero_applied_field()
+
+    def abort(self):
+        self.stage.clock.interrupt()
+        with self._lock:
+            self.stage.clock.resume()
+            Controller.make_safe(self)
+
+
+class FieldJumps(SimulatedController):
+    """Sets the magnet's field at once (limits checked) instead of ramping it at the magnet's rate and settling."""
+
+    def set_field(self, field_a_per_m):
+        lim = self.limits.field_max_a_per_m
+        if not (math.isfinite(field_a_per_m) and abs(field_a_per_m) <= lim):
+            raise LimitExceeded("applied field", field_a_per_m, -lim, lim, "A/m")
+        with self._lock:
+            self.stage.magnet.field_a_per_m = float(field_a_per_m)
+
+
+class CoarseIgnoresAbort(SimulatedController):
+    """Counts out a coarse move without looking for abort(): the motor runs to the end of the move, and abort()
+    returns only then."""
+
+    @_mapped
+    def step_coarse(self, steps):
+        stage = self.stage
+        new = stage.coarse.plan(int(steps), stage.rng)
+        stage.clock.advance(abs(int(steps)) * stage.coarse.step_time_s, interruptible=False)
+        stage.coarse.position_m = new
+
+
+class CoarseRunsOn(SimulatedController):
+    """Takes a move past the travel without a word, and abort() does not reach the motor: it runs on for 3 s (as
+    far as the tests let it: the position does not change)."""
+
+    def step_coarse(self, steps):
+        lim = self.limits
+        if self.status().coarse_position_m + int(steps) * lim.coarse_step_m <= lim.coarse_travel_max_m:
+            super().step_coarse(steps)
+            return
+        time.sleep(3.0)
+
+
+class ForceCurveClipsZ(SimulatedController):
+    """Clips the end of a force curve to the Z range instead of refusing it."""
+
+    def force_curve(self, z_stop_m, points):
+        return super().force_curve(min(max(z_stop_m, 0.0), self.limits.z_range_m), points)
+
+
+class ForceCurveInNanometres(SimulatedController):
+    """Returns the Z of a force curve in nm."""
+
+    def force_curve(self, z_stop_m, points):
+        c = super().force_curve(z_stop_m, points)
+        return ForceCurve(c.z_m * 1e9, c.deflection_v, c.retract_z_m * 1e9, c.retract_deflection_v)
+
+
+class AbortWaitsForForceCurve(SimulatedController):
+    """abort() waits for a force curve in flight to finish before it makes the stage safe (it stops other calls)."""
+
+    _curve_done: threading.Event | None = None
+
+    def force_curve(self, z_stop_m, points):
+        self._curve_done = threading.Event()
+        try:
+            return super().force_curve(z_stop_m, points)
+        finally:
+            self._curve_done.set()
+
+    def abort(self):
+        if self._curve_done is not None:
+            self._curve_done.wait()
+        super().abort()
+
+
+class ClipsPassBias(SimulatedController):
+    """Clips the bias of each second pass to the limit instead of refusing the line."""
+
+    def scan_line(self, spec):
+        lim = self.limits.bias_max_v
+        passes = tuple(SecondPass(p.lift_height_m, min(max(p.bias_v, -lim), lim)) for p in spec.passes)
+        return super().scan_line(dataclasses.replace(spec, passes=passes))
+
+
+class CoarsePastTravel(SimulatedController):
+    """Runs the coarse motor up to its end stop instead of refusing a move past the travel: the steps beyond the
+    end are dropped without a word (it stops 1 % of the remaining travel short of the end, so that the simulated
+    motor's step scatter never refuses the move in its place)."""
+
+    def step_coarse(self, steps):
+        lim = self.limits
+        room = int(0.99 * (lim.coarse_travel_max_m - self.status().coarse_position_m) / lim.coarse_step_m)
+        super().step_coarse(min(int(steps), room))
+
+
 #: broken driver -> the level that shows it, the stage it runs on (``signals``: near the surface, fast magnet;
-#: ``motion``: room to move, no magnet; ``motion_magnet``: room to move, the kit magnet) and the checks that must
-#: fail: the check of the promise broken first, then those that fail because of it (a clipped bias also takes an
-#: infinite one; a sweep that is not there cannot be aborted either; a Z move that does not take time is over before
-#: it can be aborted; an abort is a make-safe)
+#: ``motion``: room to move, no magnet; ``motion_magnet``: room to move, the kit magnet) and the checks that must fail:
+#: the check of the promise broken first, then those that fail because of it (a clipped bias also takes an infinite one;
+#: a sweep that is not there can neither refuse its limits nor be aborted; a Z move that does not take time is over
+#: before it can be aborted, and so is a field that jumps; a move past the coarse travel is not asked for where an abort
+#: cannot stop the coarse motor; an abort is a make-safe)
 BROKEN = {
     ClipsBias: ("signals", "signals", {"safety.bias_limit", "safety.nonfinite"}),
     DriveLimitAsValueError: ("signals", "signals", {"safety.drive_limits", "safety.nonfinite"}),
     SecondWithdrawRaises: ("signals", "signals", {"safety.withdraw_twice"}),
     DeclaresSweepItLacks: ("signals", "signals", {"signals.capabilities_declared", "signals.sweep",
-                                                  "safety.abort_sweep"}),
+                                                  "safety.sweep_limits", "safety.abort_sweep"}),
     LimitsInNanometres: ("signals", "signals", {"identity.limits"}),
     IgnoresAbort: ("signals", "signals", {"safety.abort_sweep", "safety.abort_record"}),
     AcceptsNaNBias: ("signals", "signals", {"safety.nonfinite"}),
@@ -198,4 +314,13 @@ BROKEN = {
     ClipsZ: ("motion", "motion", {"motion.z_limit_high", "safety.z_limit_low", "motion.nonfinite"}),
     IgnoresZSpeed: ("motion", "motion", {"motion.z_move", "motion.withdraw_wins"}),
     KeepsFieldOnSafe: ("motion", "motion_magnet", {"field.make_safe", "field.abort"}),
+    CoarsePastTravel: ("motion", "motion", {"motion.coarse_travel"}),
+    FieldJumps: ("motion", "motion_magnet", {"field.ramp_rate", "field.abort"}),
+    MakeSafeLeavesZ: ("motion", "motion", {"motion.safe_from_extended"}),
+    SweepClipsAmplitude: ("signals", "signals", {"safety.sweep_limits"}),
+    CoarseIgnoresAbort: ("motion", "motion", {"motion.abort_coarse", "motion.coarse_travel"}),
+    ForceCurveClipsZ: ("motion", "motion", {"motion.force_curve_limits"}),
+    ForceCurveInNanometres: ("motion", "motion", {"motion.force_curve"}),
+    AbortWaitsForForceCurve: ("motion", "motion", {"motion.abort_force_curve"}),
+    ClipsPassBias: ("motion", "motion", {"motion.line_limits"}),
 }

@@ -21,10 +21,12 @@ pytestmark = pytest.mark.timeout(120)
 
 #: one check of each level and kind that a full run of a complete driver must contain
 EXPECTED = {"identity.info", "identity.limits", "identity.url", "signals.read", "signals.thermal_record",
-            "signals.sweep", "signals.capabilities_declared", "safety.bias_limit", "safety.nonfinite",
-            "safety.withdraw_twice", "safety.abort_sweep", "safety.abort_record", "motion.z_move",
-            "motion.withdraw_wins", "motion.coarse", "engaged.approach", "engaged.line", "engaged.abort_mid_line",
-            "field.limits", "field.make_safe", "field.abort", "end.safe"}
+            "signals.sweep", "signals.capabilities_declared", "safety.bias_limit", "safety.sweep_limits",
+            "safety.nonfinite", "safety.withdraw_twice", "safety.abort_sweep", "safety.abort_record", "motion.z_move",
+            "motion.withdraw_wins", "motion.abort_force_curve", "motion.safe_from_extended", "motion.coarse",
+            "motion.coarse_travel", "motion.abort_coarse", "motion.force_curve_limits", "motion.force_curve",
+            "motion.line_limits", "engaged.approach", "engaged.line", "engaged.abort_mid_line", "field.limits",
+            "field.ramp_rate", "field.make_safe", "field.abort", "end.safe"}
 
 
 def _yes(level: str, plan: str) -> bool:
@@ -88,6 +90,17 @@ def test_each_broken_driver_is_caught_by_the_check_of_its_promise(cls, stages):
     assert set(result.failed()) == expected, _explain(result)
     assert result.checks[-1].name == "end.safe" and result.checks[-1].passed
     assert not result.passed and result.stopped is None
+
+
+def test_a_move_that_abort_does_not_stop_ends_the_run():
+    from kit_drivers import CoarseRunsOn
+
+    result = run_checks(kit_controller(CoarseRunsOn, start_gap_um=12.0, magnet="none"), level="engaged",
+                        confirm=_yes)
+    assert "motion.coarse_travel" in result.failed(), _explain(result)
+    assert "may still be moving" in result.stopped and "by hand" in result.stopped
+    assert not any(c.level == "engaged" for c in result.checks)  # nothing approaches after it
+    assert result.checks[-1].name == "end.safe"
 
 
 # ---- command line ----------------------------------------------------------------------------------------------
