@@ -30,7 +30,9 @@ MIN_CORRELATION = 0.1  # well above the ~1/sqrt(pixels) of unrelated images (rul
 def _filled(images: np.ndarray) -> np.ndarray:
     """Each image minus the mean of its finite pixels; its missing pixels at that mean (zero after)."""
     images = np.asarray(images, dtype=float)
-    return np.where(np.isfinite(images), images - image_means(images), 0.0)
+    centred = images - image_means(images)
+    ok = np.isfinite(images)
+    return centred if ok.all() else np.where(ok, centred, 0.0)
 
 
 @lru_cache(maxsize=None)
@@ -67,7 +69,7 @@ def local_shift(corr: np.ndarray, *, guess: np.ndarray, radius_px: float, norm: 
                                    (corr[r0 % rows, (c0 - 1) % cols], corr[r0 % rows, (c0 + 1) % cols]))):
         den = a - 2.0 * b + c
         if den < 0:
-            shift[axis] += float(np.clip(0.5 * (a - c) / den, -0.5, 0.5))
+            shift[axis] += min(max(float(0.5 * (a - c) / den), -0.5), 0.5)
     return shift, True
 
 
@@ -95,6 +97,9 @@ def image_means(images: np.ndarray) -> np.ndarray:
     """Mean of the finite pixels of each image (0 for an image without any), shape (images, 1, 1)."""
     images = np.asarray(images, dtype=float)
     ok = np.isfinite(images)
+    pixels = images.shape[-2] * images.shape[-1]
+    if pixels and ok.all():  # the same sums without a copy that has zeros for the missing pixels
+        return images.sum(axis=(-2, -1), keepdims=True) / pixels
     n = ok.sum(axis=(-2, -1), keepdims=True)
     return np.where(ok, images, 0.0).sum(axis=(-2, -1), keepdims=True) / np.maximum(n, 1)
 
@@ -139,9 +144,10 @@ def pixel_noise(images: np.ndarray) -> np.ndarray:
     diff = np.diff(np.asarray(images, dtype=float), axis=-1)
     out = np.full(diff.shape[0], np.nan)
     for k, d in enumerate(diff.reshape(diff.shape[0], -1)):
-        d = d[np.isfinite(d)]
+        d = d[np.isfinite(d)]  # a copy of its own: the medians may reorder it
         if d.size:
-            out[k] = 1.4826 * np.median(np.abs(d - np.median(d))) / np.sqrt(2.0)
+            deviation = np.abs(d - np.median(d, overwrite_input=True))
+            out[k] = 1.4826 * np.median(deviation, overwrite_input=True) / np.sqrt(2.0)
     return out
 
 
