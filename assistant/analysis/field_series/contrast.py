@@ -81,14 +81,14 @@ def register_steps(reference_images: np.ndarray, *, step_drift_px: float = 3.0) 
     """
     stack = _filled(reference_images)
     shape = stack.shape[-2:]
-    spectra = np.fft.rfft2(stack, axes=(-2, -1))
-    conj = np.conj(spectra)
     energy = np.sum(stack**2, axis=(-2, -1))
+    spectra = np.fft.rfft2(stack, axes=(-2, -1))
+    first = np.conj(spectra[0])
     drift = np.zeros((stack.shape[0], 2))
     for k in range(1, stack.shape[0]):
-        step, _ = local_shift(np.fft.irfft2(spectra[k] * conj[k - 1], s=shape), guess=np.zeros(2),
+        step, _ = local_shift(np.fft.irfft2(spectra[k] * np.conj(spectra[k - 1]), s=shape), guess=np.zeros(2),
                               radius_px=step_drift_px, norm=float(np.sqrt(energy[k - 1] * energy[k])))
-        drift[k], _ = local_shift(np.fft.irfft2(spectra[k] * conj[0], s=shape), guess=drift[k - 1] + step,
+        drift[k], _ = local_shift(np.fft.irfft2(spectra[k] * first, s=shape), guess=drift[k - 1] + step,
                                   radius_px=1.5, norm=float(np.sqrt(energy[0] * energy[k])))
     return drift
 
@@ -107,7 +107,8 @@ def image_means(images: np.ndarray) -> np.ndarray:
 def magnitude_images(phase_deg: np.ndarray, *, keep_nan: bool = False) -> np.ndarray:
     """|phase - image mean| of every step (NaN pixels set to zero unless ``keep_nan``)."""
     phase = np.asarray(phase_deg, dtype=float)
-    out = np.abs(phase - image_means(phase))
+    out = phase - image_means(phase)
+    np.abs(out, out=out)
     return out if keep_nan else np.nan_to_num(out, copy=False, nan=0.0)
 
 
