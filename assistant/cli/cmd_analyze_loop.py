@@ -19,11 +19,13 @@ def run(args) -> int:
 
         with SessionFile.open(p, "r") as sf:
             result = analyse_stored(sf, args.field_series, write=False, tip_moment=args.tip_moment)
-            phase = sf.read_field_series(args.field_series or sf.field_series_names()[-1]).phase_deg
+            if args.plots:  # the stack again, for the figures only
+                phase = sf.read_field_series(args.field_series or sf.field_series_names()[-1]).phase_deg
     elif p.suffix.lower() == ".npz":
         result = analyse_npz(p, tip_moment=args.tip_moment)
-        with np.load(p, allow_pickle=False) as z:
-            phase = z["phase_deg"]
+        if args.plots:
+            with np.load(p, allow_pickle=False) as z:
+                phase = z["phase_deg"]
     else:
         raise UsageError(f"{p}: expected a .npz stack or a session .h5 file")
     if args.plots:

@@ -18,6 +18,7 @@ deviation, both textbook).
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 
@@ -26,44 +27,49 @@ from assistant.analysis.lift_series.registration import align_stack
 MIN_CORRELATION = 0.1  # well above the ~1/sqrt(pixels) of unrelated images (rule of thumb, no source)
 
 
-def _filled(image: np.ndarray) -> np.ndarray:
-    img = np.asarray(image, dtype=float)
-    ok = np.isfinite(img)
-    mean = float(img[ok].mean()) if ok.any() else 0.0
-    return np.where(ok, img, mean) - mean
+def _filled(images: np.ndarray) -> np.ndarray:
+    """Each image minus the mean of its finite pixels; its missing pixels at that mean (zero after)."""
+    images = np.asarray(images, dtype=float)
+    centred = images - image_means(images)
+    ok = np.isfinite(images)
+    return centred if ok.all() else np.where(ok, centred, 0.0)
 
 
-def local_shift(reference_f: np.ndarray, moving_f: np.ndarray, shape: tuple[int, int], *,
-                guess: np.ndarray, radius_px: float, norm: float) -> tuple[np.ndarray, bool]:
-    """``[drow, dcol]`` of the moving image: the cross-correlation peak nearest ``guess`` (within
-    ``radius_px``), refined by a parabola through its neighbours along each axis; and whether that peak is a
-    match: its correlation coefficient (the peak over ``norm``, the square root of the two images' energies)
-    at least ``MIN_CORRELATION`` (else the guess comes back).
+@lru_cache(maxsize=None)
+def _disc(radius_px: float) -> tuple[np.ndarray, np.ndarray]:
+    """Row and column offsets of the whole pixels within ``radius_px`` of a point."""
+    reach = int(np.ceil(radius_px))
+    dr, dc = np.meshgrid(np.arange(-reach, reach + 1), np.arange(-reach, reach + 1), indexing="ij")
+    inside = dr**2 + dc**2 <= radius_px**2 + 1e-9
+    return dr[inside], dc[inside]
+
+
+def local_shift(corr: np.ndarray, *, guess: np.ndarray, radius_px: float, norm: float) -> tuple[np.ndarray, bool]:
+    """``[drow, dcol]`` of the moving image from its periodic cross-correlation ``corr`` with the reference: the
+    peak nearest ``guess`` (within ``radius_px``), refined by a parabola through its neighbours along each axis;
+    and whether that peak is a match: its correlation coefficient (the peak over ``norm``, the square root of the
+    two images' energies) at least ``MIN_CORRELATION`` (else the guess comes back).
 
     A lattice of elements correlates almost as well with itself shifted by a lattice vector, so the global peak
     is not to be trusted; the drift between neighbouring steps is small, and the peak near the expected shift
     is the right one.
     """
-    rows, cols = shape
-    corr = np.fft.irfft2(moving_f * np.conj(reference_f), s=shape)
+    rows, cols = corr.shape
     g = np.round(np.asarray(guess, dtype=float)).astype(int)
-    reach = int(np.ceil(radius_px))
-    dr, dc = np.meshgrid(np.arange(-reach, reach + 1), np.arange(-reach, reach + 1), indexing="ij")
-    inside = dr**2 + dc**2 <= radius_px**2 + 1e-9
-    cand_r, cand_c = (g[0] + dr[inside]), (g[1] + dc[inside])
+    dr, dc = _disc(radius_px)
+    cand_r, cand_c = g[0] + dr, g[1] + dc
     values = corr[cand_r % rows, cand_c % cols]
     i = int(np.argmax(values))
     if not values[i] >= MIN_CORRELATION * norm:  # noise, or nothing in common: no evidence of any shift
         return np.asarray(guess, dtype=float), False
     r0, c0 = int(cand_r[i]), int(cand_c[i])
     shift = np.array([r0, c0], dtype=float)
-    for axis, (a, b, c) in enumerate(((corr[(r0 - 1) % rows, c0 % cols], corr[r0 % rows, c0 % cols],
-                                       corr[(r0 + 1) % rows, c0 % cols]),
-                                      (corr[r0 % rows, (c0 - 1) % cols], corr[r0 % rows, c0 % cols],
-                                       corr[r0 % rows, (c0 + 1) % cols]))):
+    b = corr[r0 % rows, c0 % cols]
+    for axis, (a, c) in enumerate(((corr[(r0 - 1) % rows, c0 % cols], corr[(r0 + 1) % rows, c0 % cols]),
+                                   (corr[r0 % rows, (c0 - 1) % cols], corr[r0 % rows, (c0 + 1) % cols]))):
         den = a - 2.0 * b + c
         if den < 0:
-            shift[axis] += float(np.clip(0.5 * (a - c) / den, -0.5, 0.5))
+            shift[axis] += min(max(float(0.5 * (a - c) / den), -0.5), 0.5)
     return shift, True
 
 
@@ -73,16 +79,17 @@ def register_steps(reference_images: np.ndarray, *, step_drift_px: float = 3.0) 
     Convention of ``analysis.registration``: the content of step k sits ``drift[k]`` pixels from where it sits
     in the first step. ``step_drift_px`` bounds the drift between neighbouring steps.
     """
-    stack = np.array([_filled(img) for img in np.asarray(reference_images, dtype=float)])
+    stack = _filled(reference_images)
     shape = stack.shape[-2:]
-    spectra = np.fft.rfft2(stack, axes=(-2, -1))
     energy = np.sum(stack**2, axis=(-2, -1))
+    spectra = np.fft.rfft2(stack, axes=(-2, -1))
+    first = np.conj(spectra[0])
     drift = np.zeros((stack.shape[0], 2))
     for k in range(1, stack.shape[0]):
-        step, _ = local_shift(spectra[k - 1], spectra[k], shape, guess=np.zeros(2), radius_px=step_drift_px,
-                              norm=float(np.sqrt(energy[k - 1] * energy[k])))
-        drift[k], _ = local_shift(spectra[0], spectra[k], shape, guess=drift[k - 1] + step, radius_px=1.5,
-                                  norm=float(np.sqrt(energy[0] * energy[k])))
+        step, _ = local_shift(np.fft.irfft2(spectra[k] * np.conj(spectra[k - 1]), s=shape), guess=np.zeros(2),
+                              radius_px=step_drift_px, norm=float(np.sqrt(energy[k - 1] * energy[k])))
+        drift[k], _ = local_shift(np.fft.irfft2(spectra[k] * first, s=shape), guess=drift[k - 1] + step,
+                                  radius_px=1.5, norm=float(np.sqrt(energy[0] * energy[k])))
     return drift
 
 
@@ -90,6 +97,9 @@ def image_means(images: np.ndarray) -> np.ndarray:
     """Mean of the finite pixels of each image (0 for an image without any), shape (images, 1, 1)."""
     images = np.asarray(images, dtype=float)
     ok = np.isfinite(images)
+    pixels = images.shape[-2] * images.shape[-1]
+    if pixels and ok.all():  # the same sums without a copy that has zeros for the missing pixels
+        return images.sum(axis=(-2, -1), keepdims=True) / pixels
     n = ok.sum(axis=(-2, -1), keepdims=True)
     return np.where(ok, images, 0.0).sum(axis=(-2, -1), keepdims=True) / np.maximum(n, 1)
 
@@ -97,8 +107,9 @@ def image_means(images: np.ndarray) -> np.ndarray:
 def magnitude_images(phase_deg: np.ndarray, *, keep_nan: bool = False) -> np.ndarray:
     """|phase - image mean| of every step (NaN pixels set to zero unless ``keep_nan``)."""
     phase = np.asarray(phase_deg, dtype=float)
-    out = np.abs(phase - image_means(phase))
-    return out if keep_nan else np.nan_to_num(out, nan=0.0)
+    out = phase - image_means(phase)
+    np.abs(out, out=out)
+    return out if keep_nan else np.nan_to_num(out, copy=False, nan=0.0)
 
 
 def mean_magnitude(phase_deg: np.ndarray) -> np.ndarray:
@@ -114,16 +125,18 @@ def aligned(stack: np.ndarray, drift_px: np.ndarray) -> np.ndarray:
     image, come back NaN."""
     stack = np.asarray(stack, dtype=float)
     bad = ~np.isfinite(stack)
-    out = align_stack(np.where(bad, image_means(stack), stack), drift_px)
-    if bad.any():
-        moved = align_stack(bad.astype(float), drift_px) > 0.25
-        out[moved] = np.nan
+    if not bad.any():
+        out = align_stack(stack, drift_px)
+    else:
+        out = align_stack(np.where(bad, image_means(stack), stack), drift_px)
+        out[align_stack(bad.astype(float), drift_px) > 0.25] = np.nan
     # the shift is periodic: what came in over an edge is the far side of the image, not data
     rows, cols = stack.shape[-2:]
-    r, c = np.arange(rows)[:, None], np.arange(cols)[None, :]
-    for k, (dr, dc) in enumerate(np.asarray(drift_px, dtype=float)):
-        outside = (r + dr < -0.5) | (r + dr > rows - 0.5) | (c + dc < -0.5) | (c + dc > cols - 0.5)
-        out[k][outside] = np.nan
+    drift = np.asarray(drift_px, dtype=float)
+    r = np.arange(rows)[None, :] + drift[:, :1]  # (steps, rows): where each line of the first frame was
+    c = np.arange(cols)[None, :] + drift[:, 1:]
+    outside_r, outside_c = (r < -0.5) | (r > rows - 0.5), (c < -0.5) | (c > cols - 0.5)
+    out[outside_r[:, :, None] | outside_c[:, None, :]] = np.nan
     return out
 
 
@@ -132,9 +145,10 @@ def pixel_noise(images: np.ndarray) -> np.ndarray:
     diff = np.diff(np.asarray(images, dtype=float), axis=-1)
     out = np.full(diff.shape[0], np.nan)
     for k, d in enumerate(diff.reshape(diff.shape[0], -1)):
-        d = d[np.isfinite(d)]
+        d = d[np.isfinite(d)]  # a copy of its own: the medians may reorder it
         if d.size:
-            out[k] = 1.4826 * np.median(np.abs(d - np.median(d))) / np.sqrt(2.0)
+            deviation = np.abs(d - np.median(d, overwrite_input=True))
+            out[k] = 1.4826 * np.median(deviation, overwrite_input=True) / np.sqrt(2.0)
     return out
 
 

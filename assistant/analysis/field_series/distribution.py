@@ -4,12 +4,13 @@ loop it implies, and the interaction-corrected spread from a recoil branch.
 * Counting: every element is known to have switched inside one field step (or not by the branch's end). The
   normal law is fitted by maximum likelihood to those intervals (interval censoring: each element contributes
   Phi((b - mu)/sigma) - Phi((a - mu)/sigma)), so the step width is accounted for exactly, whatever the steps.
-  Standard errors from the inverse of the numerical Hessian of the log-likelihood (textbook).
+  The maximum is found by a simplex search (``solvers.nelder_mead``); standard errors from the inverse of the
+  numerical Hessian of the log-likelihood (textbook).
 * Loop: non-interacting elements with normally distributed switching fields N(Hc, sigma^2), each reversing
   when the field along its reversal direction reaches its own switching field (Stoner-Wohlfarth switching of
   each element, textbook; from memory), give on the descending branch from positive saturation
   M/Ms = 1 - 2 Phi(-(H + Hc)/sigma), and on the ascending branch from negative saturation
-  M/Ms = 2 Phi((H - Hc)/sigma) - 1.
+  M/Ms = 2 Phi((H - Hc)/sigma) - 1; fitted by least squares (``solvers.levenberg_marquardt``).
 * Sheppard's correction for grouping (Sheppard 1898, Proc. London Math. Soc. 29, 353; from memory): the
   variance of values rounded to a grid of width w exceeds the true variance by w^2/12. A cross-check.
 * Interaction-corrected spread: the Delta-H(M, Delta-M) method of Tagawa et al. 1991 (IEEE Trans. Magn. 27,
@@ -29,6 +30,8 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy.special import ndtr, ndtri
+
+from assistant.analysis.field_series.solvers import levenberg_marquardt, nelder_mead
 
 MIN_INTERVALS = 3  # occupied field steps needed to resolve a spread
 _MIN_SIGMA_FRACTION = 1e-3  # of the median step: the likelihood of a spread far below the step width is flat
@@ -70,8 +73,6 @@ def fit_intervals(low: np.ndarray, high: np.ndarray) -> NormalFit | None:
 
     Returns None without any switched element.
     """
-    from scipy.optimize import minimize
-
     low, high = np.asarray(low, dtype=float), np.asarray(high, dtype=float)
     ok = np.isfinite(low)
     low, high = low[ok], high[ok]
@@ -82,13 +83,6 @@ def fit_intervals(low: np.ndarray, high: np.ndarray) -> NormalFit | None:
     step = float(np.median(widths)) if widths.size else 1.0
     mid = 0.5 * (low[done] + high[done])
     distinct = int(np.unique(np.round(np.c_[low[done], high[done]], 6), axis=0).shape[0])
-    sigma0 = max(float(np.std(mid)), 0.3 * step)
-    floor = math.log(_MIN_SIGMA_FRACTION * step)
-    res = minimize(lambda p: _nll(np.array([p[0], max(p[1], floor)]), low, high),
-                   x0=np.array([float(np.mean(mid)), math.log(sigma0)]), method="Nelder-Mead",
-                   options={"xatol": 1e-6 * step, "fatol": 1e-9, "maxiter": 2000})
-    mu, log_sigma = float(res.x[0]), max(float(res.x[1]), floor)
-    sigma = math.exp(log_sigma)
     if distinct < MIN_INTERVALS:
         # Switching in one or two steps: the likelihood keeps rising as sigma shrinks below the step (two
         # neighbouring intervals are matched exactly by a step-function law on their common edge), so the
@@ -96,6 +90,12 @@ def fit_intervals(low: np.ndarray, high: np.ndarray) -> NormalFit | None:
         spread = float(np.var(mid)) + step**2 / 12.0
         return NormalFit(float(np.mean(mid)), math.sqrt(spread / max(done.sum(), 1)), math.nan, math.nan,
                          int(ok.sum()), int(done.sum()), distinct)
+    sigma0 = max(float(np.std(mid)), 0.3 * step)
+    floor = math.log(_MIN_SIGMA_FRACTION * step)
+    best = nelder_mead(lambda p: _nll(np.array([p[0], max(p[1], floor)]), low, high),
+                       np.array([float(np.mean(mid)), math.log(sigma0)]), xatol=1e-6 * step, fatol=1e-9, maxiter=2000)
+    mu, log_sigma = float(best[0]), max(float(best[1]), floor)
+    sigma = math.exp(log_sigma)
     hess = _hessian(lambda p: _nll(p, low, high), np.array([mu, log_sigma]), np.array([0.05 * sigma, 0.05]))
     try:
         cov = np.linalg.inv(hess)
@@ -126,10 +126,16 @@ class LoopFit:
     sigma_std: float
 
 
+def _normal_loop_jacobian(h: np.ndarray, coercive: float, sigma: float, direction: int) -> np.ndarray:
+    """Derivatives of :func:`normal_loop` by Hc and by sigma, (fields, 2): with z the argument of Phi,
+    d/dHc = -direction 2 phi(z) / sigma and d/dsigma = -direction 2 phi(z) z / sigma."""
+    z = -(h + coercive) / sigma if direction < 0 else (h - coercive) / sigma
+    slope = -direction * 2.0 * np.exp(-0.5 * z * z) / (math.sqrt(2.0 * math.pi) * sigma)
+    return np.column_stack([slope, slope * z])
+
+
 def fit_loop(field_a_per_m: np.ndarray, m_over_ms: np.ndarray, *, direction: int) -> LoopFit | None:
     """Fit :func:`normal_loop` to a branch (least squares; None when the branch never crosses zero)."""
-    from scipy.optimize import least_squares
-
     h, m = np.asarray(field_a_per_m, dtype=float), np.asarray(m_over_ms, dtype=float)
     ok = np.isfinite(h) & np.isfinite(m)
     h, m = h[ok], m[ok]
@@ -138,12 +144,15 @@ def fit_loop(field_a_per_m: np.ndarray, m_over_ms: np.ndarray, *, direction: int
     order = np.argsort(h)  # both branches rise with the field
     hc0 = abs(float(np.interp(0.0, np.maximum.accumulate(m[order]), h[order])))
     span = float(np.ptp(h)) or 1.0
-    fit = least_squares(lambda p: normal_loop(h, p[0], abs(p[1]) + 1e-9 * span, direction=direction) - m,
-                        x0=[hc0, 0.1 * span], x_scale=[span, span])
-    hc, sigma = float(fit.x[0]), abs(float(fit.x[1]))
+    spread = lambda p: abs(p[1]) + 1e-9 * span  # noqa: E731  (any sign of the parameter is a spread)
+    x, resid, jac = levenberg_marquardt(
+        lambda p: normal_loop(h, p[0], spread(p), direction=direction) - m,
+        lambda p: _normal_loop_jacobian(h, p[0], spread(p), direction) * np.array([1.0, np.sign(p[1])]),
+        np.array([hc0, 0.1 * span]))
+    hc, sigma = float(x[0]), abs(float(x[1]))
     dof = max(h.size - 2, 1)
     try:
-        cov = np.linalg.inv(fit.jac.T @ fit.jac) * float(np.sum(fit.fun**2)) / dof
+        cov = np.linalg.inv(jac.T @ jac) * float(np.sum(resid**2)) / dof
         stds = np.sqrt(np.maximum(np.diag(cov), 0.0))
     except np.linalg.LinAlgError:
         stds = np.array([math.nan, math.nan])

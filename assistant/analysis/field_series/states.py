@@ -21,7 +21,6 @@ the tip along +z an element's state is minus the sign of its contrast, and the t
 from __future__ import annotations
 
 import itertools
-import warnings
 from dataclasses import dataclass
 
 import numpy as np
@@ -68,6 +67,19 @@ def _carry(values: np.ndarray) -> np.ndarray:
     return np.where(determined.any(axis=0)[None, :], np.take_along_axis(out, source, axis=0), 0).astype(np.int8)
 
 
+def column_nanmedian(a: np.ndarray) -> np.ndarray:
+    """``numpy.nanmedian(a, axis=0)`` of a 2-D array, the same numbers (NaN for a column without any value, and
+    no warning): the middle of each sorted column, or the half-sum of its two middle values. numpy takes a
+    masked-array path for short columns, ten times slower on the few hundred steps of a field series."""
+    ordered = np.sort(a, axis=0)  # NaN last
+    n = np.count_nonzero(~np.isnan(a), axis=0)
+    high = n // 2
+    low = np.maximum(high - 1 + n % 2, 0)  # the same as high for an odd count
+    cols = np.arange(a.shape[1])
+    with np.errstate(invalid="ignore"):
+        return np.where(n > 0, (ordered[low, cols] + ordered[high, cols]) / 2.0, np.nan)
+
+
 def split_lines(line_deg: np.ndarray, line_sigma: np.ndarray, sign: np.ndarray, element: np.ndarray,
                 ) -> list[tuple[int, int, int]]:
     """(element, step, contrast sign after the change) of elements whose lines change sign during an image.
@@ -79,10 +91,9 @@ def split_lines(line_deg: np.ndarray, line_sigma: np.ndarray, sign: np.ndarray, 
     for e in np.unique(element):
         cols = np.flatnonzero(element == e)
         c, sd = line_deg[:, cols], line_sigma[:, cols]
-        with warnings.catch_warnings():  # a line without any finite pixel has no median: it is left out
-            warnings.simplefilter("ignore", RuntimeWarning)
-            template = np.nanmedian(c * sign[:, e:e + 1], axis=0)
-            good = np.isfinite(template) & (np.abs(template) >= MIN_Z * np.nanmedian(sd, axis=0))
+        template = column_nanmedian(c * sign[:, e:e + 1])  # NaN for a line without any pixel: left out
+        with np.errstate(invalid="ignore"):
+            good = np.isfinite(template) & (np.abs(template) >= MIN_Z * column_nanmedian(sd))
         if good.sum() < 2:
             continue
         z = np.nan_to_num(c[:, good] * np.sign(template[good]) / sd[:, good])

@@ -140,8 +140,9 @@ def align_stack(stack: np.ndarray, drift_px: np.ndarray) -> np.ndarray:
     """Undo ``drift_px`` (n, 2) for every image of ``stack`` (n, rows, cols), bringing all to the first frame."""
     stack = np.asarray(stack, dtype=float)
     rows, cols = stack.shape[-2:]
-    ph = _shift_phase((rows, cols), -np.asarray(drift_px, dtype=float))
-    return np.fft.irfft2(np.fft.rfft2(stack, axes=(-2, -1)) * ph, s=(rows, cols), axes=(-2, -1))
+    spectra = np.fft.rfft2(stack, axes=(-2, -1))
+    spectra *= _shift_phase((rows, cols), -np.asarray(drift_px, dtype=float))  # in place: one stack less in memory
+    return np.fft.irfft2(spectra, s=(rows, cols), axes=(-2, -1))
 
 
 def average_biases(aligned: np.ndarray, valid: np.ndarray, nh: int, nb: int):
