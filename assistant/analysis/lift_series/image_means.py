@@ -12,7 +12,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["MeanFit", "fit_mean_heights", "fit_mean_bias_grid", "cpd_sentence", "plus_minus"]
+__all__ = ["MeanFit", "fit_mean_heights", "fit_mean_bias_grid", "cpd_sentence", "plus_minus",
+           "vertex_beyond", "vertex_beyond_sentence"]
 
 
 @dataclass(frozen=True)
@@ -125,6 +126,47 @@ def _vertex_chi2(v0, volts, y, w):
     c = (s00 * t1 - s01 * t0) / det
     r = y - a[:, None] * d[None] - c[:, None]
     return float((w * r * r).sum()), a, c
+
+
+def _profile_chi2(trial_v: np.ndarray, volts: np.ndarray, y: np.ndarray, w: np.ndarray) -> np.ndarray:
+    """chi-square of ``a_h (V - v)^2 + c_h`` at every trial vertex v (G,), each a_h and c_h by weighted linear
+    least squares (closed form), for means y and weights w (H, B)."""
+    d = ((volts[None, :] - trial_v[:, None]) ** 2)[:, None, :]  # (G, 1, B)
+    s00, s01, s11 = (w * d * d).sum(-1), (w * d).sum(-1), w.sum(-1)
+    t0, t1 = (w * d * y).sum(-1), (w * y).sum(-1)
+    det = s00 * s11 - s01**2
+    a = (s11 * t0 - s01 * t1) / det
+    c = (s00 * t1 - s01 * t0) / det
+    return (w * (y - a[..., None] * d - c[..., None]) ** 2).sum(axis=(-2, -1))
+
+
+BEYOND_SPANS = 20.0  # how far the profile looks for a vertex outside the window [bias ranges either side]
+_BEYOND_POINTS = 4001
+
+
+def vertex_beyond(mean, sd, volts, vertex: float) -> float | None:
+    """The vertex the means prefer when it lies outside the window the common-vertex fit searches (one bias range
+    either side of the biases, where the fitted vertex then stops), else None: the profile of the chi-square over
+    twenty bias ranges either side has a lower minimum than the fitted vertex (on its grid of 4001 points)."""
+    volts = np.asarray(volts, float)
+    span = float(volts.max() - volts.min())
+    w = 1.0 / np.asarray(sd, float) ** 2
+    grid = np.linspace(volts.min() - BEYOND_SPANS * span, volts.max() + BEYOND_SPANS * span, _BEYOND_POINTS)
+    chis = _profile_chi2(grid, volts, mean, w)
+    at_fit = float(_profile_chi2(np.array([vertex]), volts, mean, w)[0])
+    best = int(np.nanargmin(chis))
+    if chis[best] < at_fit - 1e-9 * max(at_fit, 1.0) and not volts.min() - span < grid[best] < volts.max() + span:
+        return float(grid[best])
+    return None
+
+
+def vertex_beyond_sentence(beyond_v: float, bias_v) -> str:
+    """What a vertex beyond the reach of the biases (:func:`vertex_beyond`) means for V_cpd."""
+    volts = np.asarray(bias_v, float)
+    side = "below" if beyond_v < volts.min() else "above"
+    return (f"The image mean's parabolas put their vertex at {beyond_v:+.3g} V or further {side}, more than "
+            f"the bias range ({volts.min():+.3g} to {volts.max():+.3g} V) outside it, where their fit is "
+            "not trusted: V_cpd is not determined; measure at biases on both sides of it.")
 
 
 def fit_mean_bias_grid(mean, mean_std, *, bias_v) -> MeanFit:
