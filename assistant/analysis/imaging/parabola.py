@@ -111,7 +111,9 @@ def fit_bias_parabola(stack, *, bias_v, attractive_sign: float = 1.0, min_signif
     if not sigma > 0.0:  # noiseless means: weights at the resolution of the numbers themselves
         sigma = float(np.finfo(float).eps * np.nanmax(np.abs(y))) or 1.0
     sd = np.repeat((sigma / np.sqrt(n_lines))[:, None], nb, axis=1)
-    fit = fit_mean_bias_grid(mean, sd, bias_v=volts)  # the common vertex and the parabolas
+    # the common vertex and the parabolas within the window; a vertex beyond it is looked for below, once the
+    # curvature is known to be significant and attractive
+    fit = fit_mean_bias_grid(mean, sd, bias_v=volts, look_beyond=False)
     vertex = float(fit.cpd_v)
     a = fit.parameters[1:1 + nh]
     c = fit.parameters[1 + nh:]
