@@ -131,7 +131,7 @@ def settings_appendix(data) -> list[str]:
 _IN_TABLES = {"heights_nm", "magnetic_rms_deg", "magnetic_rms_std_deg", "short_range_mean_deg",
               "short_range_mean_std_deg", "electrostatic_mean_deg", "electrostatic_mean_std_deg", "residual_rms_deg",
               "noise_deg", "residual_at_noise"}
-_IN_RESULTS = {"recommended_lift_nm", "recommended_bias_v", "cpd_v", "cpd_std_v", "noise_sentence",
+_IN_RESULTS = {"recommended_lift_nm", "recommended_bias_v", "cpd_v", "cpd_std_v", "cpd_sentence", "noise_sentence",
                "tip_changed_sample", "interaction_evidence"}
 
 

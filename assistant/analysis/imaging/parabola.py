@@ -18,7 +18,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..lift_series import fit_mean_bias_grid, plus_minus
+from ..lift_series import fit_mean_bias_grid, plus_minus, vertex_beyond, vertex_beyond_sentence
 from .errors import ImagingInputError
 
 __all__ = ["BiasParabola", "fit_bias_parabola"]
@@ -111,7 +111,9 @@ def fit_bias_parabola(stack, *, bias_v, attractive_sign: float = 1.0, min_signif
     if not sigma > 0.0:  # noiseless means: weights at the resolution of the numbers themselves
         sigma = float(np.finfo(float).eps * np.nanmax(np.abs(y))) or 1.0
     sd = np.repeat((sigma / np.sqrt(n_lines))[:, None], nb, axis=1)
-    fit = fit_mean_bias_grid(mean, sd, bias_v=volts)  # the common vertex and the parabolas
+    # the common vertex and the parabolas within the window; a vertex beyond it is looked for below, once the
+    # curvature is known to be significant and attractive
+    fit = fit_mean_bias_grid(mean, sd, bias_v=volts, look_beyond=False)
     vertex = float(fit.cpd_v)
     a = fit.parameters[1:1 + nh]
     c = fit.parameters[1 + nh:]
@@ -129,13 +131,10 @@ def fit_bias_parabola(stack, *, bias_v, attractive_sign: float = 1.0, min_signif
     vertex_sd = float(np.hypot(np.sqrt(cov[0, 0]), extra_vertex_std_v))
     signed = attractive_sign * a
     significant = bool(np.all(np.isfinite(a_sd))) and bool(np.any(signed > min_significance * a_sd))
-    beyond = _vertex_beyond(mean, sd, volts, vertex) if significant else None
+    beyond = vertex_beyond(mean, sd, volts, vertex) if significant else None
     if beyond is not None:
         cpd = cpd_sd = None
-        side = "below" if beyond < volts.min() else "above"
-        sentence = (f"The image mean's parabolas put their vertex at {beyond:+.3g} V or further {side}, more than "
-                    f"the bias range ({volts.min():+.3g} to {volts.max():+.3g} V) outside it, where their fit is "
-                    "not trusted: V_cpd is not determined; measure at biases on both sides of it.")
+        sentence = vertex_beyond_sentence(beyond, volts)
     elif significant:
         cpd, cpd_sd = vertex, vertex_sd
         sentence = (f"V_cpd = {plus_minus(1e3 * cpd, 1e3 * cpd_sd)} mV from the parabola of the image mean over "
@@ -151,33 +150,6 @@ def fit_bias_parabola(stack, *, bias_v, attractive_sign: float = 1.0, min_signif
                     f"{min_significance:g}, or of the wrong sign): V_cpd is not determined.")
     return BiasParabola(volts, mean, sd, a, a_sd, c, vertex, vertex_sd, cpd, cpd_sd, sigma, dof, float(reduced),
                         sentence)
-
-
-def _profile_chi2(trial_v: np.ndarray, volts: np.ndarray, y: np.ndarray, w: np.ndarray) -> np.ndarray:
-    """chi-square of ``a_h (V - v)^2 + c_h`` at every trial vertex v (G,), each a_h and c_h by weighted linear
-    least squares (closed form), for means y and weights w (H, B)."""
-    d = ((volts[None, :] - trial_v[:, None]) ** 2)[:, None, :]  # (G, 1, B)
-    s00, s01, s11 = (w * d * d).sum(-1), (w * d).sum(-1), w.sum(-1)
-    t0, t1 = (w * d * y).sum(-1), (w * y).sum(-1)
-    det = s00 * s11 - s01**2
-    a = (s11 * t0 - s01 * t1) / det
-    c = (s00 * t1 - s01 * t0) / det
-    return (w * (y - a[..., None] * d - c[..., None]) ** 2).sum(axis=(-2, -1))
-
-
-def _vertex_beyond(mean, sd, volts, vertex: float) -> float | None:
-    """The vertex the means prefer when it lies outside the window the common-vertex fit searches (one bias range
-    either side of the biases, where the fitted vertex then stops), else None: the profile of the chi-square over
-    twenty bias ranges either side has a lower minimum than the fitted vertex."""
-    span = float(volts.max() - volts.min())
-    w = 1.0 / np.asarray(sd, float) ** 2
-    grid = np.linspace(volts.min() - 20.0 * span, volts.max() + 20.0 * span, 4001)
-    chis = _profile_chi2(grid, volts, mean, w)
-    at_fit = float(_profile_chi2(np.array([vertex]), volts, mean, w)[0])
-    best = int(np.nanargmin(chis))
-    if chis[best] < at_fit - 1e-9 * max(at_fit, 1.0) and not volts.min() - span < grid[best] < volts.max() + span:
-        return float(grid[best])
-    return None
 
 
 def _covariance(mean, sd, volts, vertex, a, c) -> tuple[np.ndarray, float]:

@@ -20,7 +20,8 @@ __getattr__, __dir__ = attach(__name__, {
               "TooFewBiasesError", "TooFewHeightsError", "TooManyInvalidPixelsError"),
     "image_mean_models": ("FIRST_PASS_GAP_OFFSET_STD_M", "centre_gap_m", "first_pass_gap_offset_m",
               "image_mean_shapes"),
-    "image_means": ("MeanFit", "cpd_sentence", "fit_mean_bias_grid", "fit_mean_heights", "plus_minus"),
+    "image_means": ("MeanFit", "cpd_sentence", "fit_mean_bias_grid", "fit_mean_heights", "plus_minus",
+              "vertex_beyond", "vertex_beyond_sentence"),
     "image_noise": ("band_noise_variance", "shrunk_noise_variance"),
     "interaction_regime": ("REGIMES", "InteractionRegime", "classify_interaction",
               "recommendation_with_regime"),
@@ -54,5 +55,6 @@ __all__ = [
     "interior_power_variance", "leave_one_out_prediction", "linear_phase_slope_deg", "magnetic_window_mean_cov",
     "noise_verdict", "phase_deg_from_gradient", "plus_minus", "recommend_lift", "recommendation_with_regime",
     "reflect_align", "resolution_period_m", "shrunk_noise_variance", "split_bias_grid", "split_heights_only",
-    "thermal_min_gradient_n_per_m", "thermal_min_phase_deg", "white_noise_std",
+    "thermal_min_gradient_n_per_m", "thermal_min_phase_deg", "vertex_beyond", "vertex_beyond_sentence",
+    "white_noise_std",
 ]

@@ -238,7 +238,7 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
         first = signals_in(space)
         start = fit_mean_bias_grid(first.means, first.mean_sd, bias_v=volts)
         offset = fit_drive_offset(s4, mean_pixels(ok), first.mean_sd, bias_v=volts, space=space,
-                                  cpd_start_v=float(start.cpd_v))
+                                  cpd_start_v=float(start.parameters[0]))
     if offset is not None:  # every phase inverted with it
         space = dataclasses.replace(space, offset_deg=offset.offset_deg)
     signals = signals_in(space)
@@ -367,7 +367,7 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
         cpd_map_v=None if lateral is None else lateral.cpd_map_v,
         cpd_map_std_v=None if lateral is None else lateral.cpd_map_std_v,
         drive_phase_offset_deg=None if offset is None else offset.offset_deg,
-        drive_phase_offset_std_deg=None if offset is None else offset.offset_std_deg)
+        drive_phase_offset_std_deg=None if offset is None else offset.offset_std_deg, cpd_sentence=mf.cpd_sentence)
 
 
 def _mean_parts(means, mean_sd, weight_sd, fit, h, volts, probe: ProbeModel, space: SignalSpace,

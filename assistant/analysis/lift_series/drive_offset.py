@@ -176,12 +176,14 @@ def with_offset_error(a, lo, hi, found: DriveOffset, space: SignalSpace):
             var = var - 2.0 * (change / sd) * sensitivity * np.asarray(getattr(a, std_name)) ** 2 / slope
         return np.sqrt(np.clip(var, 0.0, None))
 
-    cpd_std_v = float(wider("cpd_v", "cpd_std_v"))
-    # the sentence's V_cpd rebuilt with the whole error the results now hold (noise, offset and model), as every
-    # output states it; it was written before the offset's share was known
-    whole = float(np.hypot(cpd_std_v, a.cpd_model_std_v or 0.0))
-    sentence = re.sub(r"V_cpd = [^;]* mV;", lambda _: f"V_cpd = {plus_minus(1e3 * a.cpd_v, 1e3 * whole)} mV;",
-                      a.separability_sentence, count=1)
+    sentence, cpd_std_v = a.separability_sentence, a.cpd_std_v  # no V_cpd (beyond the biases' reach): none to widen
+    if a.cpd_v is not None and lo.cpd_v is not None and hi.cpd_v is not None:
+        cpd_std_v = float(wider("cpd_v", "cpd_std_v"))
+        # the sentence's V_cpd rebuilt with the whole error the results now hold (noise, offset and model), as every
+        # output states it; it was written before the offset's share was known
+        whole = float(np.hypot(cpd_std_v, a.cpd_model_std_v or 0.0))
+        sentence = re.sub(r"V_cpd = [^;]* mV;", lambda _: f"V_cpd = {plus_minus(1e3 * a.cpd_v, 1e3 * whole)} mV;",
+                          sentence, count=1)
     return dataclasses.replace(
         a, separability_sentence=sentence,
         magnetic_rms_std_deg=wider("magnetic_rms_deg", "magnetic_rms_std_deg"),

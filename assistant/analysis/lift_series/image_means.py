@@ -12,7 +12,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["MeanFit", "fit_mean_heights", "fit_mean_bias_grid", "cpd_sentence", "plus_minus"]
+__all__ = ["MeanFit", "fit_mean_heights", "fit_mean_bias_grid", "cpd_sentence", "plus_minus",
+           "vertex_beyond", "vertex_beyond_sentence"]
 
 
 @dataclass(frozen=True)
@@ -32,8 +33,14 @@ class MeanFit:
         Whether the data separate the two parts (see the fitting functions).
     sentence : str
     cpd_v, cpd_std_v : float or None
-        Bias grid only.
+        Bias grid only; None where the vertex lies beyond the reach of the biases.
     reduced_chi2 : float
+    vertex_beyond_v : float or None
+        Bias grid: the vertex the means prefer where it lies beyond the reach of the biases (then ``cpd_v`` is
+        None), else None.
+    extrapolation : tuple of ndarray or None
+        With ``vertex_beyond_v``: how far the electrostatic (H, B) and short-range (H,) parts move between a
+        vertex at the edge of the search and that vertex [s].
     """
 
     electrostatic: np.ndarray
@@ -48,6 +55,8 @@ class MeanFit:
     cpd_v: float | None
     cpd_std_v: float | None
     reduced_chi2: float
+    vertex_beyond_v: float | None = None
+    extrapolation: tuple | None = None
 
 
 def fit_mean_heights(mean, mean_std, *, electrostatic_shape, short_range_shape, heights_m,
@@ -127,14 +136,104 @@ def _vertex_chi2(v0, volts, y, w):
     return float((w * r * r).sum()), a, c
 
 
-def fit_mean_bias_grid(mean, mean_std, *, bias_v) -> MeanFit:
+def _profile_chi2(trial_v: np.ndarray, volts: np.ndarray, y: np.ndarray, w: np.ndarray) -> np.ndarray:
+    """chi-square of ``a_h (V - v)^2 + c_h`` at every trial vertex v (G,), each a_h and c_h by weighted linear
+    least squares (closed form), for means y and weights w (H, B)."""
+    d = ((volts[None, :] - trial_v[:, None]) ** 2)[:, None, :]  # (G, 1, B)
+    s00, s01, s11 = (w * d * d).sum(-1), (w * d).sum(-1), w.sum(-1)
+    t0, t1 = (w * d * y).sum(-1), (w * y).sum(-1)
+    det = s00 * s11 - s01**2
+    a = (s11 * t0 - s01 * t1) / det
+    c = (s00 * t1 - s01 * t0) / det
+    return (w * (y - a[..., None] * d - c[..., None]) ** 2).sum(axis=(-2, -1))
+
+
+BEYOND_SPANS = 20.0  # how far the profile looks for a vertex outside the window [bias ranges either side]
+_BEYOND_POINTS = 4001
+
+
+def vertex_beyond(mean, sd, volts, vertex: float) -> float | None:
+    """The vertex the means prefer when it lies outside the window the common-vertex fit searches (one bias range
+    either side of the biases, where the fitted vertex then stops), else None: the profile of the chi-square over
+    twenty bias ranges either side has a lower minimum than the fitted vertex (on its grid of 4001 points)."""
+    volts = np.asarray(volts, float)
+    span = float(volts.max() - volts.min())
+    w = 1.0 / np.asarray(sd, float) ** 2
+    grid = np.linspace(volts.min() - BEYOND_SPANS * span, volts.max() + BEYOND_SPANS * span, _BEYOND_POINTS)
+    chis = _profile_chi2(grid, volts, mean, w)
+    at_fit = float(_profile_chi2(np.array([vertex]), volts, mean, w)[0])
+    best = int(np.nanargmin(chis))
+    if chis[best] < at_fit - 1e-9 * max(at_fit, 1.0) and not volts.min() - span < grid[best] < volts.max() + span:
+        return float(grid[best])
+    return None
+
+
+def vertex_beyond_sentence(beyond_v: float, bias_v) -> str:
+    """What a vertex beyond the reach of the biases (:func:`vertex_beyond`) means for V_cpd."""
+    volts = np.asarray(bias_v, float)
+    side = "below" if beyond_v < volts.min() else "above"
+    return (f"The image mean's parabolas put their vertex at {beyond_v:+.3g} V or further {side}, more than "
+            f"the bias range ({volts.min():+.3g} to {volts.max():+.3g} V) outside it, where their fit is "
+            "not trusted: V_cpd is not determined; measure at biases on both sides of it.")
+
+
+def _window_vertex(volts, y, w) -> float:
+    """The common vertex within one bias range either side of the biases (the chi-square scanned on a grid, then
+    refined by a bounded search about its lowest point)."""
+    span = volts.max() - volts.min()
+    grid = np.linspace(volts.min() - span, volts.max() + span, 401)
+    chis = np.array([_vertex_chi2(g, volts, y, w)[0] for g in grid])  # 1-D scan of the single nonlinear parameter
+    k = int(np.argmin(chis))
+    return _refined(volts, y, w, grid[max(k - 1, 0)], grid[min(k + 1, len(grid) - 1)])
+
+
+def _refined(volts, y, w, lo: float, hi: float) -> float:
+    from scipy.optimize import minimize_scalar  # here, as nnls above
+
+    span = volts.max() - volts.min()
+    res = minimize_scalar(lambda v: _vertex_chi2(v, volts, y, w)[0], bounds=(lo, hi), method="bounded",
+                          options={"xatol": 1e-10 * max(span, 1e-12)})
+    return float(res.x)
+
+
+def _curvature_significant(volts, y, w, v0: float, min_significance: float) -> bool:
+    """Whether some height's curvature exceeds ``min_significance`` of its standard error from the noise (the
+    Jacobian's covariance, unscaled): a vertex is only looked for beyond the window where the means bend."""
+    nh = y.shape[0]
+    _, a, _ = _vertex_chi2(v0, volts, y, w)
+    jw = _weighted_jacobian(volts, w, v0, a)
+    cov = np.linalg.pinv(jw.T @ jw)
+    a_sd = np.sqrt(np.clip(np.diag(cov)[1:1 + nh], 0.0, None))
+    return bool(np.any(np.abs(a) > min_significance * a_sd))
+
+
+def _weighted_jacobian(volts, w, v0: float, a) -> np.ndarray:
+    """d model / d (V_cpd, a_1..a_H, c_1..c_H) of ``a_h (V - V_cpd)^2 + c_h``, times sqrt(w), as (H B, 2H + 1)."""
+    nh, nb = w.shape
+    jac = np.zeros((nh, nb, 2 * nh + 1))
+    jac[:, :, 0] = -2.0 * a[:, None] * (volts - v0)[None]
+    idx = np.arange(nh)
+    jac[idx, :, 1 + idx] = ((volts - v0) ** 2)[None]
+    jac[idx, :, 1 + nh + idx] = 1.0
+    return (jac * np.sqrt(w)[..., None]).reshape(nh * nb, -1)
+
+
+def fit_mean_bias_grid(mean, mean_std, *, bias_v, look_beyond: bool = True,
+                       min_significance: float = 3.0) -> MeanFit:
     """Fit the image mean at each height as ``a_h (V - V_cpd)^2 + c_h`` with one common vertex V_cpd.
 
     The electrostatic force gradient is ``1/2 C''(z) (V - V_cpd)^2`` (quadratic in bias, minimal at the
     contact potential; Hudlet et al. 1998, Eur. Phys. J. B 2, 5): the parabola separates it exactly, and the
     remainder ``c_h`` at V_cpd is the short-range (bias-independent) part. V_cpd is found by profiling the
-    chi-square; the covariance of all parameters comes from the Jacobian, scaled by the reduced chi-square
-    when above 1.
+    chi-square within one bias range either side of the biases; the covariance of all parameters comes from the
+    Jacobian, scaled by the reduced chi-square when above 1.
+
+    With ``look_beyond``, where some curvature is ``min_significance`` standard errors from zero (rule of thumb,
+    no source) and the chi-square profile has a lower minimum beyond that window (:func:`vertex_beyond`), V_cpd
+    is out of reach of the biases: the parabolas are fitted at the vertex the means prefer, but no V_cpd is
+    reported (``cpd_v`` None, ``vertex_beyond_v`` that vertex), the parts count as not separable (they rest on
+    extrapolating the parabolas) and ``extrapolation`` holds how far they move between the window's edge and that
+    vertex, as model uncertainty.
 
     Parameters
     ----------
@@ -148,24 +247,18 @@ def fit_mean_bias_grid(mean, mean_std, *, bias_v) -> MeanFit:
     volts = np.asarray(bias_v, float)
     w = 1.0 / sd**2
     nh, nb = y.shape
-    span = volts.max() - volts.min()
-    grid = np.linspace(volts.min() - span, volts.max() + span, 401)
-    chis = np.array([_vertex_chi2(g, volts, y, w)[0] for g in grid])  # 1-D scan of the single nonlinear parameter
-    k = int(np.argmin(chis))
-    lo, hi = grid[max(k - 1, 0)], grid[min(k + 1, len(grid) - 1)]
-    from scipy.optimize import minimize_scalar  # here, as nnls above
-
-    res = minimize_scalar(lambda v: _vertex_chi2(v, volts, y, w)[0], bounds=(lo, hi), method="bounded",
-                          options={"xatol": 1e-10 * max(span, 1e-12)})
-    v0 = float(res.x)
+    v0 = _window_vertex(volts, y, w)
+    beyond = None
+    if look_beyond and _curvature_significant(volts, y, w, v0, min_significance):
+        beyond = vertex_beyond(y, sd, volts, v0)
+    edge = v0
+    if beyond is not None:  # the least-squares vertex, refined within a step of the profile's grid
+        step = (2.0 * BEYOND_SPANS + 1.0) * float(volts.max() - volts.min()) / (_BEYOND_POINTS - 1)
+        v0 = _refined(volts, y, w, beyond - step, beyond + step)
     chi2, a, c = _vertex_chi2(v0, volts, y, w)
     d = (volts - v0) ** 2
-    jac = np.zeros((nh, nb, 2 * nh + 1))
-    jac[:, :, 0] = -2.0 * a[:, None] * (volts - v0)[None]
     idx = np.arange(nh)
-    jac[idx, :, 1 + idx] = d[None]
-    jac[idx, :, 1 + nh + idx] = 1.0
-    jw = (jac * np.sqrt(w)[..., None]).reshape(nh * nb, -1)
+    jw = _weighted_jacobian(volts, w, v0, a)
     dof = max(nh * nb - (2 * nh + 1), 1)
     red = chi2 / dof
     cov = np.linalg.pinv(jw.T @ jw) * max(red, 1.0)
@@ -179,7 +272,16 @@ def fit_mean_bias_grid(mean, mean_std, *, bias_v) -> MeanFit:
     corr = cov_ec / np.where(es_sd[:, 0] * sr_sd > 0, es_sd[:, 0] * sr_sd, 1.0)
     params = np.concatenate([[v0], a, c])
     cpd_sd = float(np.sqrt(cov[0, 0]))
-    return MeanFit(es, es_sd, c, sr_sd, corr, params, cov, True, cpd_sentence(nb, v0, cpd_sd), v0, cpd_sd, red)
+    if beyond is None:
+        return MeanFit(es, es_sd, c, sr_sd, corr, params, cov, True, cpd_sentence(nb, v0, cpd_sd), v0, cpd_sd, red)
+    _, a_e, c_e = _vertex_chi2(edge, volts, y, w)
+    moved = (es - a_e[:, None] * ((volts - edge) ** 2)[None], c - c_e)
+    sentence = vertex_beyond_sentence(beyond, volts) + (
+        f" The electrostatic and short-range parts then rest on extrapolating the parabolas to a vertex the biases "
+        f"do not reach (not separable): only their sum, the measured non-magnetic mean, is reliable; how far the "
+        f"split moves between a vertex one bias range beyond the biases ({edge:+.3g} V) and at {v0:+.3g} V counts "
+        "as model uncertainty.")
+    return MeanFit(es, es_sd, c, sr_sd, corr, params, cov, False, sentence, None, None, red, v0, moved)
 
 
 def cpd_sentence(biases: int, cpd_v: float, cpd_std_v: float) -> str:

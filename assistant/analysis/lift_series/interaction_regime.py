@@ -259,6 +259,9 @@ def classify_interaction(analysis, phase_deg=None, *, repeat_phase_deg=None, pro
     exact = probe.spring_constant_n_per_m is not None and probe.quality_factor is not None
     if a.bias_v is None:
         notes.append("no bias grid: a uniform tip-induced attraction cannot be told from the electrostatic part")
+    elif a.cpd_v is None:  # the parabolas' vertex beyond the biases: their split is an extrapolation (image_means)
+        notes.append("V_cpd beyond the reach of the biases: a uniform tip-induced attraction cannot be told from the "
+                     "electrostatic part")
     elif not exact:
         notes.append("no k and Q: the van der Waals bound on the image mean cannot be put in degrees")
     else:

@@ -167,7 +167,7 @@ def add_lateral_cpd(parts, lateral: LateralContrast, valid, *, bias_v, noise_dof
     the split's electrostatic part (noise and model) at the bias farthest from V_cpd, over ``(V_b - V_cpd)^2``.
     ``valid`` (H * B, rows, cols): where the images hold data."""
     volts = np.asarray(bias_v, float)
-    d = (volts - parts.cpd_v) ** 2
+    d = (volts - lateral.cpd_v) ** 2  # the parabolas' vertex (also where V_cpd is not determined)
     a = lateral.curvature
     far = int(np.argmax(d))
     a_sd = np.hypot(parts.electrostatic_std[:, far], parts.electrostatic_model_std[:, far]) / d[far]

@@ -30,7 +30,7 @@ import numpy as np
 from assistant.analysis.cosine import dctn
 
 from . import image_mean_models as lm
-from .image_means import fit_mean_bias_grid
+from .image_means import fit_mean_bias_grid, vertex_beyond_sentence
 from .probe import ASSUMED_AMPLITUDE_M, TIP_RADIUS_REL_STD
 from .tip_candidates import AMPLITUDE_RANGE_FACTOR, MIN_CLOSEST_APPROACH_M, TipCandidate, candidates, shapes
 
@@ -67,6 +67,7 @@ class MeanParts:
     cpd_v: float | None = None
     cpd_std_v: float | None = None
     cpd_model_std_v: float | None = None
+    cpd_sentence: str | None = None  # bias grid, V_cpd beyond the reach of the biases: why it is not determined
 
 
 def _leakage(size: int) -> np.ndarray:
@@ -335,7 +336,9 @@ def split_bias_grid(total, total_std, magnetic_mean_cov, *, bias_v, fit=None) ->
     The parabola separates the electrostatic part exactly; the remainder at V_cpd is the short-range part,
     and the magnetic window mean (the same at every bias) stays in it. Standard errors from the noise alone
     (the unscaled covariance); the Birge excess and the magnetic window mean are model uncertainty. ``fit``: the
-    parabolas' fit of these means (:func:`.image_means.fit_mean_bias_grid`) if already made.
+    parabolas' fit of these means (:func:`.image_means.fit_mean_bias_grid`) if already made. Where V_cpd lies
+    beyond the reach of the biases the fit reports none and calls the parts not separable; how far they move with
+    the vertex (``fit.extrapolation``) joins their model uncertainty.
     """
     y = np.asarray(total, float)
     sd = np.asarray(total_std, float)
@@ -345,10 +348,15 @@ def split_bias_grid(total, total_std, magnetic_mean_cov, *, bias_v, fit=None) ->
     # fit_mean_bias_grid scales its covariance by the Birge ratio where it exceeds one: undone for the noise
     es_sd = mf.electrostatic_std / scale
     sr_sd = mf.short_range_std / scale
-    cpd_sd = mf.cpd_std_v / scale
+    cpd_sd = None if mf.cpd_std_v is None else mf.cpd_std_v / scale
     birge_excess = np.sqrt(max(scale**2 - 1.0, 0.0))
     es_model = es_sd * birge_excess
     sr_model = np.sqrt((sr_sd * birge_excess) ** 2 + mm**2)
+    note = None
+    if mf.extrapolation is not None:  # the vertex beyond the biases: the split is an extrapolation
+        es_model = np.hypot(es_model, mf.extrapolation[0])
+        sr_model = np.hypot(sr_model, mf.extrapolation[1])
+        note = vertex_beyond_sentence(mf.vertex_beyond_v, bias_v)
     sentence = mf.sentence
     if mf.reduced_chi2 > 2.0:
         sentence += (f" The parabolas do not fit the means within noise (reduced chi-square {mf.reduced_chi2:.3g}): "
@@ -356,5 +364,6 @@ def split_bias_grid(total, total_std, magnetic_mean_cov, *, bias_v, fit=None) ->
     return MeanParts(total=y, total_std=sd, total_model_std=np.broadcast_to(mm[:, None], y.shape).copy(),
                      electrostatic=mf.electrostatic, electrostatic_std=es_sd, electrostatic_model_std=es_model,
                      short_range=mf.short_range, short_range_std=sr_sd, short_range_model_std=sr_model,
-                     correlation=mf.correlation, reduced_chi2=mf.reduced_chi2, birge_ratio=scale, separable=True,
-                     sentence=sentence, cpd_v=mf.cpd_v, cpd_std_v=cpd_sd, cpd_model_std_v=cpd_sd * birge_excess)
+                     correlation=mf.correlation, reduced_chi2=mf.reduced_chi2, birge_ratio=scale,
+                     separable=mf.separable, sentence=sentence, cpd_v=mf.cpd_v, cpd_std_v=cpd_sd,
+                     cpd_model_std_v=None if cpd_sd is None else cpd_sd * birge_excess, cpd_sentence=note)

@@ -102,6 +102,7 @@ class SeriesAnalysis:
     cpd_map_std_v: float | None = None   # its noise per pixel [V]
     drive_phase_offset_deg: float | None = None  # with a bias grid, k and Q: the free lever's phase from quadrature
     drive_phase_offset_std_deg: float | None = None  # at the drive (drive_offset), which the inversion used
+    cpd_sentence: str | None = None     # bias grid whose V_cpd is beyond the reach of the biases: why none is given
 
     @property
     def heights_nm(self) -> np.ndarray:
@@ -179,6 +180,8 @@ class SeriesAnalysis:
             "tip_changed_sample": None if self.tip_change is None else self.tip_change.irreversible,
             "tip_changed_fraction": None if self.tip_change is None else self.tip_change.changed_fraction,
         }
+        if self.cpd_sentence is not None:
+            out["cpd_sentence"] = self.cpd_sentence
         if self.drift_px.ndim == 3:
             out["drift_px_per_bias"] = lst(self.drift_px)
             if self.drift_std_px is not None:
