@@ -59,7 +59,7 @@ def analyse_along(u: np.ndarray, layout: TrackLayout, axis: int, *, pix, noise, 
         for start in (w0, 1.5 * w0, 0.7 * w0):
             for name in candidates:
                 fit = _fit_with_width(cand[1], name, cand[2], start, t_px, tip, cand[3])
-                if fit is not None and (best is None or fit[1].residual_rms < best[1].residual_rms):
+                if fit is not None and (best is None or _better(fit[1], best[1], cand is first)):
                     best, first = (name, fit[1], fit[0]), cand
             if best is not None and best[1].residual_rms < GOOD_RELATIVE_RESIDUAL * scale:
                 break
@@ -93,7 +93,7 @@ def analyse_along(u: np.ndarray, layout: TrackLayout, axis: int, *, pix, noise, 
                     g = fit_track_transitions(prof, orientation=model_orientation, noise=nz, width_px=start,
                                               thickness_px=shaped.thickness_px, fit_thickness=t_px is None,
                                               tip_transfer=tip, **_geometry(geom))
-                    if g is not None and (f is None or g.residual_rms < f.residual_rms):
+                    if g is not None and (f is None or g.information < f.information):
                         f = g
         if f is not None:
             fits.append((b, f))
@@ -162,6 +162,12 @@ def _core_rows(band, rows: int) -> np.ndarray:
     return idx
 
 
+def _better(new: TrackTransitions, old: TrackTransitions, same_profile: bool) -> bool:
+    """Whether ``new`` fits better than ``old``: of one profile, by the information criterion (a fit with more
+    transitions must lower the residual by more than they cost); of two tracks' profiles, by the residual."""
+    return new.information < old.information if same_profile else new.residual_rms < old.residual_rms
+
+
 def _geometry(geom) -> dict:
     return {} if geom is None else {"track_width_px": geom[0], "core_half_px": geom[1]}
 
@@ -174,7 +180,7 @@ def _fit_with_width(profile, orientation, noise, w0, t_px, tip, geom):
         g = fit_track_transitions(profile, orientation=orientation, noise=noise, width_px=f.width_px,
                                   thickness_px=t_px, fit_thickness=t_px is None, tip_transfer=tip,
                                   **_geometry(geom))
-        if g is not None and g.residual_rms <= f.residual_rms:
+        if g is not None and g.information <= f.information:
             return f.width_px, g
     return (w0, f) if f is not None else None
 
