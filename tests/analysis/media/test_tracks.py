@@ -123,6 +123,27 @@ def test_skewed_tracks_report_positions_where_the_image_has_them():
         np.testing.assert_allclose(off[ok], t.deviations_m[ok], atol=1e-12)
 
 
+def test_skewed_scan_straightened_about_each_track():
+    # a wider scan whose rows move by 8 px over the image height, cropped, so every pixel holds written data: the
+    # image was straightened about its middle row, which moved a track's rows far from it by up to 4 px and brought
+    # the shift's mirror image in at the row's ends; the first and last transitions of the bottom track were
+    # placed 43 nm and 21 nm off (seed 25). Each track is now straightened about its own core's centre row
+    rows, cols, margin = 256, 256, 32
+    im = track_image(orientation="out-of-plane", rows=rows, cols=cols + 2 * margin, seed=25)
+    shifts = np.linspace(-0.5, 0.5, rows) * 8.0
+    f = np.fft.rfftfreq(cols + 2 * margin)
+    wide = np.fft.irfft(np.fft.rfft(im.phase_deg, axis=1) * np.exp(-2j * np.pi * np.outer(shifts, f)),
+                        n=cols + 2 * margin, axis=1)
+    r = analyse_tracks(wide[:, margin:margin + cols], pixel_m=im.pixel_m, lift_m=im.lift_m)
+    assert r.skew_px_per_row * (rows - 1) == pytest.approx(8.0, rel=0.1)
+    for t in r.tracks:
+        row = t.core_m[0] / im.pixel_m - 0.5
+        truth = im.transitions[int(np.argmin(np.abs(im.track_centres_m - t.centre_m)))]
+        truth = truth + (np.interp(row, np.arange(rows), shifts) - margin) * im.pixel_m
+        err = np.array([x - truth[np.argmin(np.abs(truth - x))] for x in t.positions_m])
+        assert np.max(np.abs(err)) < 3e-9, err
+
+
 def test_erase_bands_beside_old_data():
     im = track_image(orientation="in-plane", erase_m=30e-9, old_data_bit_m=100e-9, seed=24)
     r = analyse_tracks(im.phase_deg, pixel_m=im.pixel_m, lift_m=im.lift_m)
