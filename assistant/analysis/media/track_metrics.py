@@ -91,8 +91,8 @@ def _clock(positions: list[np.ndarray], found: list[BitGrid], min_cell: float = 
     best = max(scored, key=lambda c: c[0])
     # a half or a third of the clock's cell holds every transition the cell holds, and a spurious one between
     # them besides, so it can win the support: as in fit_bit_grid, the clock is the longest cell, a whole multiple
-    # of the winner's, that keeps 80 % of its support (one misplaced transition on one track made a 40 nm half
-    # cell win over the 80 nm cell the other track held exactly)
+    # of the winner's, that keeps 80 % of its support (the 80 % a rule of thumb, no source; one misplaced
+    # transition on one track made a 40 nm half cell win over the 80 nm cell the other track held exactly)
     for support, cell, near in sorted(scored, key=lambda c: c[1], reverse=True):
         ratio = cell / best[1]
         if ratio > 1.5 and abs(ratio - np.rint(ratio)) <= 0.05 * ratio and support >= 0.8 * best[0]:

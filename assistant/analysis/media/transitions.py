@@ -342,7 +342,8 @@ def fit_track_transitions(profile: np.ndarray, *, orientation: str, noise: float
 
 def _unresolved_pairs(x: np.ndarray, signs: np.ndarray) -> np.ndarray:
     """Which transitions to keep: two of opposite sign less than a pixel apart (a bit shorter than a pixel, which
-    no image that passes the pixels-per-bit check can resolve) are a pair the fit made up, closest first. Where
+    no image that passes the pixels-per-bit check can resolve; the detector merges its components within a pixel
+    as well: a rule of thumb, no source) are a pair the fit made up, closest first. Where
     the model misses part of a profile (unmodelled old data beside a track), the fit split one transition into
     three within a pixel, or put two on top of each other: 10-24 of them on a track of 13 written, and a wrong
     bit cell."""
