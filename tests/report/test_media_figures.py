@@ -13,8 +13,9 @@ from tests.analysis.media.synthetic_media import track_image
 
 def test_the_jitter_histogram_holds_the_transitions_of_the_reported_jitter():
     # at five times the default noise, transitions placed where there are none lie within 30 % of a cell of the
-    # grid but beyond four robust standard deviations: the jitter leaves them out, and so must the histogram
-    im = track_image(orientation="out-of-plane", seed=0, noise_deg=0.1)
+    # grid but beyond four robust standard deviations: the jitter leaves them out, and so must the histogram (seed 0
+    # had two until the pairs the fit made up within a pixel were taken out, and then none; seed 4 has one)
+    im = track_image(orientation="out-of-plane", seed=4, noise_deg=0.1)
     r = analyse_tracks(im.phase_deg, pixel_m=im.pixel_m, lift_m=im.lift_m)
     on_grid = sum(int(np.sum(~t.off_grid)) for t in r.tracks if t.off_grid is not None and np.isfinite(
         t.deviations_m).all())

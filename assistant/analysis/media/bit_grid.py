@@ -75,6 +75,16 @@ def _refine(x, bit, min_transitions, off_grid_fraction):
     return bit, phase, use
 
 
+def _multiples(x: np.ndarray, f0: float, d: int) -> bool:
+    """Whether the transitions' cells at the frequency ``f0`` lie d apart (80 % of them in one residue class mod
+    d, the 80 % of the coherence rule): a cell d times longer holds them only then. Coherence alone does not
+    say it when a track has few transitions: its coherence is broad, and four transitions 3, 5 and 3 cells of
+    80 nm apart held a 215 nm cell at 93 % of the peak."""
+    phase = np.angle(np.exp(2j * np.pi * f0 * x).mean()) / (2 * np.pi)
+    residue = np.mod(np.rint(f0 * x - phase).astype(int), d)
+    return bool(np.bincount(residue, minlength=d).max() >= 0.8 * x.size)
+
+
 def _peak(x: np.ndarray, f_lo: float, f_hi: float, span: float) -> tuple[float, float]:
     """Frequency of the highest coherence in [f_lo, f_hi] (grid fine against the peak width 1/span)."""
     n_f = int(min(max(8 * (f_hi - f_lo) * span, 64), 20000))
@@ -121,7 +131,7 @@ def fit_bit_grid(positions, *, bit_length_hint: float | None = None, min_transit
             moved = False
             for d in (2.0, 3.0):
                 f, c = _peak(x, max(f0 / d - 2 * df, 1e-300), f0 / d + 2 * df, span)
-                if c >= 0.8 * c0 and (min_bit <= 0 or 1.0 / f <= 1.0 / f_lo * 3):
+                if c >= 0.8 * c0 and (min_bit <= 0 or 1.0 / f <= 1.0 / f_lo * 3) and _multiples(x, f0, int(d)):
                     f0, c0, moved = f, c, True
                     break
             if not moved:
