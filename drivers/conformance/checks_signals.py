@@ -180,16 +180,22 @@ def bias_limit(kit: Kit) -> str:
     return f"biases just beyond ±{lim:g} V refused, the bias stayed at 0 V"
 
 
+def _refused_drive_stays_off(ctl, call, what: str, why: str = "") -> None:
+    """``call`` must raise LimitExceeded and leave the drive off (not clipped into range and switched on)."""
+    refused(call, what + why)
+    s = status_of(ctl)
+    if s.drive_on:
+        raise Fail(f"{what} was refused, yet status reports the drive on at {s.drive_frequency_hz:g} Hz, "
+                   f"{s.drive_amplitude_v:g} V (clipped?)")
+
+
 def drive_limits(kit: Kit) -> str:
     ctl, lim = kit.controller, kit.controller.limits
     f, a = drive_point(ctl, kit.notes)
     for ff, aa, what in ((f, _over(lim.drive_max_v), "amplitude"), (f, -0.01 * lim.drive_max_v, "amplitude"),
                          (_over(lim.frequency_max_hz), a, "frequency"), (-f, a, "frequency"), (0.0, a, "frequency")):
-        refused(lambda: ctl.set_drive(ff, aa), f"set_drive({ff:g} Hz, {aa:g} V) with the {what} out of range")
-        s = status_of(ctl)
-        if s.drive_on:
-            raise Fail(f"set_drive({ff:g} Hz, {aa:g} V) was refused, yet status reports the drive on at "
-                       f"{s.drive_frequency_hz:g} Hz, {s.drive_amplitude_v:g} V (clipped?)")
+        _refused_drive_stays_off(ctl, lambda: ctl.set_drive(ff, aa), f"set_drive({ff:g} Hz, {aa:g} V)",
+                                 f" with the {what} out of range")
     return (f"drive amplitudes beyond [0, {lim.drive_max_v:g}] V and frequencies outside (0, "
             f"{lim.frequency_max_hz:g}] Hz refused; the drive stayed off")
 
@@ -206,12 +212,8 @@ def sweep_limits(kit: Kit) -> str:
             (np.array([f, _over(lim.frequency_max_hz)]), a), (np.array([f, 0.0]), a), (np.array([-f, f]), a),
             (np.array([f, math.nan]), a), (np.array([f, f]), math.nan)]
     for freqs, amp in asks:
-        what = f"sweep over {', '.join(f'{v:g}' for v in freqs)} Hz at {amp:g} V"
-        refused(lambda freqs=freqs, amp=amp: ctl.sweep(freqs, amp), what)
-        s = status_of(ctl)
-        if s.drive_on:
-            raise Fail(f"{what} was refused, yet status reports the drive on at {s.drive_frequency_hz:g} Hz, "
-                       f"{s.drive_amplitude_v:g} V (clipped?)")
+        _refused_drive_stays_off(ctl, lambda freqs=freqs, amp=amp: ctl.sweep(freqs, amp),
+                                 f"sweep over {', '.join(f'{v:g}' for v in freqs)} Hz at {amp:g} V")
     return (f"sweeps with the amplitude outside [0, {lim.drive_max_v:g}] V, a frequency outside (0, "
             f"{lim.frequency_max_hz:g}] Hz or NaN refused in {len(asks)} calls; the drive stayed off")
 
