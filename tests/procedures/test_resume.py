@@ -84,11 +84,35 @@ def test_resume_on_the_recorded_stage_finishes(interrupted, tmp_path, capsys):
 def test_resume_on_another_lever_is_refused_before_anything_moves(interrupted, tmp_path, capsys):
     path = tmp_path / "copy.h5"
     path.write_bytes(interrupted.read_bytes())
-    assert main(["run", "--resume", str(path), "--scenario", "default"]) == 2
+    default_lever = tmp_path / "default-lever.toml"  # the recorded sample under the default lever
+    default_lever.write_text(SMALL_SAMPLE)
+    assert main(["run", "--resume", str(path), "--scenario", str(default_lever)]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert err[-1].startswith("mfma: error:") and "free amplitude" in err[-1] and "recorded" in err[-1]
     with h5py.File(path, "r") as f:
         assert int(f["series/series1"].attrs["completed_lines"]) == 3 and not bool(f.attrs["complete"])
+
+
+@pytest.mark.parametrize("sample", ["pattern = \"dots\"", "seed = 2"])
+def test_resume_on_another_sample_is_refused_before_anything_moves(interrupted, tmp_path, capsys, monkeypatch,
+                                                                   sample):
+    # the same lever drives as stored, so only the scenario itself tells that the lines would be of another sample
+    path = tmp_path / "copy.h5"
+    path.write_bytes(interrupted.read_bytes())
+    other = tmp_path / "other-sample.toml"
+    other.write_text(PROBE_ONLY + SMALL_SAMPLE + sample + "\n")
+    assert main(["run", "--resume", str(path), "--scenario", str(other)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert err[-1].startswith("mfma: error: --scenario") and "sample differs" in err[-1], err[-3:]
+    assert "Traceback" not in "\n".join(err)
+    with h5py.File(path, "r") as f:
+        assert int(f["series/series1"].attrs["completed_lines"]) == 3 and not bool(f.attrs["complete"])
+    from matplotlib.figure import Figure
+
+    monkeypatch.setattr(Figure, "savefig", lambda self, *a, **k: None)  # the resume is under test, not the figures
+    same = tmp_path / "same.toml"  # the recorded scenario's text from a file of its own is accepted
+    same.write_text(PROBE_ONLY + SMALL_SAMPLE)
+    assert main(["run", "--resume", str(path), "--scenario", str(same), "--json"]) == 0, capsys.readouterr().err
 
 
 def test_reestablish_measures_the_drive_and_leaves_the_coarse_motor_alone(interrupted):
