@@ -229,6 +229,10 @@ def _resume(args, limits, progress, latch, tip=None) -> int:
     from assistant.procedures.workflow import Workflow
 
     plan = read_resume_plan(args.resume)  # what is left: start, scan or analyse (see procedures/resume.py)
+    from assistant.cli.parser import command_line
+    from assistant.cli.resume_options import check_unchanged
+
+    check_unchanged(args, plan, command_line())  # an option that would change the stored plan is refused
     if plan.is_field_series:
         from assistant.cli.cmd_run_fields import resume_fields
 

@@ -115,6 +115,28 @@ def test_resume_on_another_sample_is_refused_before_anything_moves(interrupted, 
     assert main(["run", "--resume", str(path), "--scenario", str(same), "--json"]) == 0, capsys.readouterr().err
 
 
+def test_resume_refuses_options_that_would_change_the_stored_series(interrupted, tmp_path, capsys):
+    # they used to be dropped without a word: --lines 64 --heights 10,20 gave the stored 8 lines at four heights
+    path = tmp_path / "copy.h5"
+    path.write_bytes(interrupted.read_bytes())
+    assert main(["run", "--resume", str(path), "--lines", "64", "--heights", "10,20", "--size-um", "1"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith("mfma: error: --heights, --lines:") and "copy.h5" in err[0], err
+    with h5py.File(path, "r") as f:
+        assert int(f["series/series1"].attrs["completed_lines"]) == 3 and not bool(f.attrs["complete"])
+    from assistant.cli.parser import build_parser
+    from assistant.cli.resume_options import changed_options
+
+    plan = read_resume_plan(path)
+    for argv, changed in ((["--lines", "8", "--pixels=16", "--heights", "10,20,30,50", "--size-um", "1"], []),
+                          (["--biases", "0", "--line-rate", "1", "--no-repeat"], ["--no-repeat"]),
+                          (["--pix", "32", "--biases=-1,0,1"], ["--biases", "--pixels"]),
+                          (["--fields-ka-per-m", "100,0"], ["--fields-ka-per-m"]),
+                          (["--thermal-seconds", "2"], ["--thermal-seconds"])):  # no run plan stored to compare
+        args = build_parser().parse_args(["run", "--resume", str(path), *argv])
+        assert changed_options(args, plan, argv) == changed, argv
+
+
 def test_reestablish_measures_the_drive_and_leaves_the_coarse_motor_alone(interrupted):
     p = read_resume_plan(interrupted)
     from simulated_stage.scenario import Scenario
