@@ -75,10 +75,13 @@ def test_resume_on_the_recorded_stage_finishes(interrupted, tmp_path, capsys):
     with h5py.File(path, "r") as f:
         before = f["series/series1/phase_deg"][..., :3, :].tobytes()
     assert main(["run", "--resume", str(path), "--json"]) == 0, capsys.readouterr().err
-    d = json.loads(capsys.readouterr().out)
+    out, err = capsys.readouterr()
+    d = json.loads(out)
     assert d["series"]["completed_lines"] == 8
+    assert "series 'series1' was resumed at line 4 of 8 lines per image" in err  # the seam is said
     with h5py.File(path, "r") as f:
         assert bool(f.attrs["complete"]) and f["series/series1/phase_deg"][..., :3, :].tobytes() == before
+        assert list(f["series/series1"].attrs["resumed_at_lines"]) == [3]
 
 
 def test_resume_on_another_lever_is_refused_before_anything_moves(interrupted, tmp_path, capsys):
