@@ -55,7 +55,8 @@ def report_processes() -> int:
 Writer = Callable[..., "Path | list[Path]"]
 # imported once by the fork server, so that a worker starts with matplotlib and every figure writer loaded
 _PRELOAD = ["assistant.report.fork_server_exit", "assistant.report.series_images",
-            "assistant.report.calibration_figures", "assistant.report.series_figures", "assistant.report.imaging_figures"]
+            "assistant.report.calibration_figures", "assistant.report.series_figures",
+            "assistant.report.imaging_figures"]
 
 
 def _preload_finds_this_package() -> bool:
