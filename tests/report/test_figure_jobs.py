@@ -158,16 +158,21 @@ def test_a_killed_report_leaves_no_temporary_folder(tmp_path):
         "    import time\n"
         "    FigureJobs(2)._executor().submit(time.sleep, 0.1).result()  # the server and a worker are up\n"
         "    os.kill(os.getpid(), signal.SIGKILL)\n")
-    temporary = tmp_path / "tmp"
-    temporary.mkdir()
-    owner = subprocess.run([sys.executable, str(script)], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
-                           timeout=60, cwd=Path(__file__).resolve().parents[2], env={**os.environ,
-                                                                                     "TMPDIR": str(temporary)})
-    assert owner.returncode == -9
-    deadline = time.monotonic() + 10.0
-    while any(temporary.iterdir()) and time.monotonic() < deadline:
-        time.sleep(0.1)
-    assert not list(temporary.rglob("*"))
+    import shutil
+    import tempfile
+
+    temporary = Path(tempfile.mkdtemp(prefix="mfma-"))  # short: the socket's path must fit in 108 bytes
+    try:
+        owner = subprocess.run([sys.executable, str(script)], stdout=subprocess.DEVNULL, stderr=subprocess.PIPE,
+                               text=True, timeout=60, cwd=Path(__file__).resolve().parents[2],
+                               env={**os.environ, "TMPDIR": str(temporary)})
+        assert owner.returncode == -9, owner.stderr[-800:]
+        deadline = time.monotonic() + 10.0
+        while any(temporary.iterdir()) and time.monotonic() < deadline:
+            time.sleep(0.1)
+        assert not list(temporary.rglob("*"))
+    finally:
+        shutil.rmtree(temporary, ignore_errors=True)
 
 
 def test_a_fork_server_started_by_another_process_leaves_the_folder_alone(tmp_path, monkeypatch):
