@@ -79,11 +79,33 @@ def resume_controller_options(args, plan) -> dict:
     if scheme_of(args.controller) != "sim":
         return {}
     extra = {"pace": args.pace, "line_rate": plan.series.line_rate_hz}
-    if not args.scenario and plan.scenario_text:
+    if plan.scenario_text:
         from simulated_stage.scenario import Scenario
 
-        extra["scenario"] = Scenario.from_text(plan.scenario_text, name="stored")
+        stored = Scenario.from_text(plan.scenario_text, name="stored")
+        if args.scenario:
+            _check_same_sample(args.scenario, stored, plan.path)
+        else:
+            extra["scenario"] = stored
     return extra
+
+
+def _check_same_sample(given: str, stored, path: Path) -> None:
+    """A ``--scenario`` given to a resume must have the sample and tip the session was recorded with: the drive
+    check (``reestablish_drive``) sees another lever, but lines of another sample would be stitched in unseen."""
+    from assistant.procedures.resume import ResumeError
+    from simulated_stage.errors import ScenarioError
+    from simulated_stage.scenario import load_scenario
+
+    try:
+        scenario = load_scenario(given)
+    except ScenarioError:
+        return  # opening the controller reports it, as for a run
+    differ = [what for what in ("sample", "tip") if getattr(scenario, what) != getattr(stored, what)]
+    if differ:
+        what = " and ".join(differ) + (" differ from those" if len(differ) > 1 else " differs from the one")
+        raise ResumeError(f"--scenario {given}: its {what} {path.name} was recorded on; resume without --scenario "
+                          "(the stored scenario is used) or start a new run")
 
 
 _FIELD_MAP_NEEDS_LIFT_SERIES = "--field-map maps the stray field of a lift series; a field series has none to map"
@@ -207,6 +229,10 @@ def _resume(args, limits, progress, latch, tip=None) -> int:
     from assistant.procedures.workflow import Workflow
 
     plan = read_resume_plan(args.resume)  # what is left: start, scan or analyse (see procedures/resume.py)
+    from assistant.cli.parser import command_line
+    from assistant.cli.resume_options import check_unchanged
+
+    check_unchanged(args, plan, command_line())  # an option that would change the stored plan is refused
     if plan.is_field_series:
         from assistant.cli.cmd_run_fields import resume_fields
 

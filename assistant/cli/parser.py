@@ -41,6 +41,11 @@ class _Parser(argparse.ArgumentParser):
         raise SystemExit(2)
 
 
+def command_line() -> list[str]:
+    """The arguments the top-level parser parsed last (what the operator typed after ``mfma``)."""
+    return list(_Parser.argv)
+
+
 def _negative_hint(message: str, argv: list[str]) -> str:
     import re
 

@@ -76,6 +76,11 @@ def analyse_session_series(session, name: str | None, *, sink: Sink = null_sink,
         session.write_analysis(name, scalars, arrays, result=whole)
     for text in getattr(result, "messages", ()):
         sink(Notice("info", text))
+    from assistant.storage.resume import resumed_sentence
+
+    seams = resumed_sentence(tuple(k for k in data.resumed_at_lines if k < data.completed_lines), data.lines)
+    if seams:
+        sink(Notice("warning", f"series {name!r} was {seams}"))
     return result
 
 

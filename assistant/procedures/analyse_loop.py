@@ -62,6 +62,11 @@ def analyse_stored(session, name: str | None = None, *, sink: Sink = null_sink, 
         session.write_analysis(name, scalars, arrays, result=result.to_record())
     for text in result.notes:
         sink(Notice("info", text))
+    from assistant.storage.resume import resumed_sentence
+
+    seams = resumed_sentence(data.resumed_at_lines, data.lines, field_steps=True)
+    if seams:
+        sink(Notice("warning", f"field series {name!r} was {seams}"))
     return result
 
 

@@ -232,8 +232,8 @@ def run_field_series(controller, settings: FieldSeriesSettings, writer, *, limit
     with safety_guard(controller, sink=sink):
         if first_step or first_line:
             history = turning_points(fields, first_step)
-            sink(Notice("info", f"resuming at field step {first_step + 1} line {first_line + 1}: retracing the "
-                                f"fields {number_list(history, 'A/m')} first"))
+            retrace = f": retracing the fields {number_list(history, 'A/m')} first" if history else ""
+            sink(Notice("info", f"resuming at field step {first_step + 1} line {first_line + 1}{retrace}"))
             for h in history:
                 cancel.raise_if_set()
                 settle_field(controller, h)

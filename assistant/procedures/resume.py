@@ -86,13 +86,14 @@ def read_resume_plan(path: str | Path) -> ResumePlan:
         if info.complete:
             raise _complete_error(path, names, field_names)
         plan = json.loads(info.run_plan_json) if info.run_plan_json else None
-        common = dict(path=path, scenario_text=info.scenario_text, probe_record=bool(plan and plan.get("probe_record")))
+        calibration = CalibrationSettings(**plan["calibration"]) if plan and "calibration" in plan else None
+        common = dict(path=path, scenario_text=info.scenario_text, probe_record=bool(plan and plan.get("probe_record")),
+                      calibration=calibration)
         if not names and not field_names:
             if plan is None:
                 raise SessionFileError(f"{path} has no series to resume and no run plan to start one from")
             kind = "field_series" if "field_series" in plan else "series"
-            return ResumePlan(stage="start", series=_settings(plan[kind], kind),
-                              calibration=CalibrationSettings(**plan["calibration"]), completed_lines=0, drive=None,
+            return ResumePlan(stage="start", series=_settings(plan[kind], kind), completed_lines=0, drive=None,
                               spring_constant_n_per_m=None, quality_factor=None, temperature_k=295.15, **common)
         try:
             point = resume_point(sf)

@@ -42,7 +42,8 @@ class ResumePlan:
     series, with the drive, k, Q and temperature stored with it) or ``"analyse"`` (every line written, the
     analysis and the report not). The series is a lift series or a field series (:attr:`is_field_series`);
     ``completed_lines`` counts the lines of every field step of a field series. ``scenario_text`` is the
-    simulated stage's scenario the file was recorded on.
+    simulated stage's scenario the file was recorded on. ``calibration`` is the run plan's at every stage where the
+    file has one (a later stage uses the stored drive, k and Q instead; ``mfma run --resume`` compares options).
     """
 
     path: Path

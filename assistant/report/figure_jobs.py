@@ -20,7 +20,8 @@ session's report as a process 2.5-2.7 s against 3.0-3.3 s). As with any
 ``forkserver`` or ``spawn`` pool, a script that builds a report must guard its entry point with
 ``if __name__ == "__main__"``. The workers ignore Ctrl-C: the process that asked for the figures handles it and
 shuts the pool down. Should that process be killed outright, the workers leave within about a second, and the fork
-server with them (it ends once no process it served is left).
+server with them (it ends once no process it served is left), removing the folder of its socket as it goes
+(:mod:`assistant.report.fork_server_exit`).
 """
 
 from __future__ import annotations
@@ -53,8 +54,9 @@ def report_processes() -> int:
 
 Writer = Callable[..., "Path | list[Path]"]
 # imported once by the fork server, so that a worker starts with matplotlib and every figure writer loaded
-_PRELOAD = ["assistant.report.series_images", "assistant.report.calibration_figures",
-            "assistant.report.series_figures", "assistant.report.imaging_figures"]
+_PRELOAD = ["assistant.report.fork_server_exit", "assistant.report.series_images",
+            "assistant.report.calibration_figures", "assistant.report.series_figures",
+            "assistant.report.imaging_figures"]
 
 
 def _preload_finds_this_package() -> bool:
@@ -68,8 +70,13 @@ def _preload_finds_this_package() -> bool:
 
 def _forkserver_context():
     import multiprocessing
+    from multiprocessing import util
+
+    from assistant.report.fork_server_exit import FOLDER_ENV
 
     context = multiprocessing.get_context("forkserver")
+    # the server removes the folder of its socket when it ends, also after this process was killed outright
+    os.environ[FOLDER_ENV] = f"{os.getpid()}:{util.get_temp_dir()}"
     # the server imports matplotlib and the figure modules once; each worker is a fork of it
     context.set_forkserver_preload(_PRELOAD if _preload_finds_this_package() else [])
     return context

@@ -34,6 +34,10 @@ def _measured_lines(data) -> list[str]:
            f"- lift height {quantity(data.lift_height_m, 'm')}; frame {quantity(data.scan_size_m, 'm')} square, "
            f"{data.pixels} pixels × {data.lines} lines, line rate {quantity(data.line_rate_hz, 'Hz')}; field axis "
            f"{data.field_axis}"]
+    from assistant.storage.resume import resumed_sentence
+
+    seams = resumed_sentence(getattr(data, "resumed_at_lines", ()), data.lines, field_steps=True)
+    out += [f"- {seams}"] if seams else []
     measured = data.measured_field_a_per_m[:steps]
     ok = np.isfinite(measured)
     if ok.any():

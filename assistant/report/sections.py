@@ -84,6 +84,8 @@ def record_section(title: str, scalars: Mapping[str, object], arrays: Mapping[st
 
 # ---- series ---------------------------------------------------------------------------------------------------
 def series_section(data, topography_nm: np.ndarray | None) -> list[str]:
+    from assistant.storage.resume import resumed_sentence
+
     heights = number_list([round(h * 1e9, 6) for h in data.heights_m], "nm")
     biases = "none (every second pass at one bias)" if data.biases_v is None else number_list(data.biases_v, "V")
     status = "finished" if data.finished else "partial"
@@ -92,7 +94,9 @@ def series_section(data, topography_nm: np.ndarray | None) -> list[str]:
            f"- completed lines: {data.completed_lines} of {data.lines} ({status})",
            f"- frame: {quantity(data.scan_size_m, 'm')} square, {data.pixels} pixels × {data.lines} lines, "
            f"line rate {quantity(data.line_rate_hz, 'Hz')}, order {data.order}",
-           f"- first height repeated after its passes in each line: {yes_no(data.repeat_first)}", ""]
+           f"- first height repeated after its passes in each line: {yes_no(data.repeat_first)}"]
+    seams = resumed_sentence(getattr(data, "resumed_at_lines", ()), data.lines)
+    out += ([f"- {seams}"] if seams else []) + [""]
     if data.completed_lines == 0:
         return out + ["No completed lines.", ""]
     if topography_nm is not None:

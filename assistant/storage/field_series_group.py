@@ -54,6 +54,7 @@ class FieldSeriesData:
     lift_height_m: float
     field_axis: str
     settings_json: str
+    resumed_at_lines: tuple[int, ...] = ()  # lines over all steps at which it was resumed (storage.resume.RESUMED_AT)
 
     @property
     def fields(self) -> int:
@@ -217,6 +218,8 @@ def _new_group(h5: h5py.File, name: str, fields: np.ndarray, *, lines: int, pixe
 
 
 def _read(g: h5py.Group, name: str) -> FieldSeriesData:
+    from assistant.storage.resume import resumed_at
+
     lines = int(g.attrs["lines"])
     done = int(g.attrs["completed_lines"])
     steps = done // lines
@@ -227,4 +230,4 @@ def _read(g: h5py.Group, name: str) -> FieldSeriesData:
         repeat_phase_deg=rep, completed_lines=done, lines=lines, pixels=int(g.attrs["pixels"]),
         scan_size_m=float(g.attrs["scan_size_m"]), line_rate_hz=float(g.attrs["line_rate_hz"]),
         lift_height_m=float(g.attrs["lift_height_m"]), field_axis=str(g.attrs["field_axis"]),
-        settings_json=str(g.attrs["settings_json"]))
+        settings_json=str(g.attrs["settings_json"]), resumed_at_lines=resumed_at(g))

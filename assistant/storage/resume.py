@@ -11,11 +11,17 @@ from __future__ import annotations
 import json
 from dataclasses import dataclass
 
+import numpy as np
+
 from assistant.storage.field_series_group import FieldSeriesWriter
 from assistant.storage.records import FinishedSeriesError, SessionFileError
 from assistant.storage.series_group import BeforeWrite, SeriesWriter
 
 __all__ = ["ResumePoint", "resume_field_writer", "resume_point", "resume_writer"]
+
+#: The attribute of a series group that lists the lines at which it was resumed (after a new approach; a lateral
+#: offset between the parts is not measured), so that the analysis and the report can say where the seams are.
+RESUMED_AT = "resumed_at_lines"
 
 #: ``ResumePoint.kind`` of a lift series (``series/``) and of a field series (``field_series/``).
 LIFT_SERIES, FIELD_SERIES = "series", "field_series"
@@ -67,6 +73,7 @@ def resume_writer(session, name: str, *, before_write: BeforeWrite | None = None
     if done >= lines:
         raise FinishedSeriesError(f"series {name!r} is finished ({done} of {lines} lines); nothing to resume")
     session.mark_complete(False)
+    _mark_resumed(session, writer, done)
     return writer
 
 
@@ -78,4 +85,31 @@ def resume_field_writer(session, name: str, *, before_write: BeforeWrite | None 
     if done >= total:
         raise FinishedSeriesError(f"field series {name!r} is finished ({done} of {total} lines); nothing to resume")
     session.mark_complete(False)
+    _mark_resumed(session, writer, done)
     return writer
+
+
+def _mark_resumed(session, writer, done: int) -> None:
+    """Add ``done`` to the series' :data:`RESUMED_AT` (nothing when no line was written before the resume)."""
+    if done == 0:
+        return
+    group = writer._group
+    with session._writing(f"the resume point of {writer.name!r}"):
+        old = np.asarray(group.attrs.get(RESUMED_AT, np.zeros(0)), dtype=np.int64).ravel()
+        group.attrs[RESUMED_AT] = np.append(old, np.int64(done))
+
+
+def resumed_at(group) -> tuple[int, ...]:
+    """The lines (counted over every field step for a field series) at which a stored series was resumed."""
+    return tuple(int(v) for v in np.asarray(group.attrs.get(RESUMED_AT, np.zeros(0)), dtype=np.int64).ravel())
+
+
+def resumed_sentence(resumed_at_lines: tuple[int, ...], lines: int, *, field_steps: bool = False) -> str | None:
+    """Where a stored series was resumed, for people (None if it never was); ``lines`` is lines per image."""
+    if not resumed_at_lines:
+        return None
+    where = [f"field step {k // lines + 1}, line {k % lines + 1}" if field_steps else f"line {k + 1}"
+             for k in resumed_at_lines]
+    return (f"resumed at {', '.join(where)} of {lines} lines per image: what follows was taken after a new approach, "
+            "and an offset between the parts (drift, the coarse motor) is neither measured nor corrected; the "
+            "standard errors do not include it")

@@ -39,6 +39,7 @@ class SeriesData:
     order: str
     repeat_first: bool
     settings_json: str
+    resumed_at_lines: tuple[int, ...] = ()  # lines at which the series was resumed (storage.resume.RESUMED_AT)
 
     @property
     def finished(self) -> bool:
@@ -214,6 +215,8 @@ def new_series_group(root: h5py.Group, name: str, heights: np.ndarray, biases: n
 
 def read_series(g: h5py.Group, name: str) -> SeriesData:
     """Arrays and attributes of the series group ``g`` (named ``name``), cut to its completed lines."""
+    from assistant.storage.resume import resumed_at
+
     n = int(g.attrs["completed_lines"])
     biases = np.asarray(g.attrs["bias_v"], dtype=np.float64)
     optional = {k: (g[k][..., :n, :] if k in g else None) for k in ("frequency_shift_hz", "repeat_phase_deg")}
@@ -225,4 +228,4 @@ def read_series(g: h5py.Group, name: str) -> SeriesData:
         completed_lines=n, lines=int(g.attrs["lines"]), pixels=int(g.attrs["pixels"]),
         scan_size_m=float(g.attrs["scan_size_m"]), line_rate_hz=float(g.attrs["line_rate_hz"]),
         order=str(g.attrs["order"]), repeat_first=bool(g.attrs["repeat_first"]),
-        settings_json=str(g.attrs["settings_json"]))
+        settings_json=str(g.attrs["settings_json"]), resumed_at_lines=resumed_at(g))

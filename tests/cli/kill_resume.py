@@ -4,17 +4,21 @@ A trial starts the run in its own process (on ``sim://`` or through ``mfma serve
 pseudo-terminal), stops it with SIGKILL or SIGINT (Ctrl-C) after a delay measured from the process start or from
 the first scan line, checks the session file it left, and resumes it in this process (``main(["run",
 "--resume", ...])``). The properties: the file always opens with a plain ``h5py.File(path, "r")``, every line
-counted in ``completed_lines`` is finite and stays byte-identical through the resume, and the resumed run
-finishes (exit 0, the session marked complete, every line written).
+counted in ``completed_lines`` is finite and stays byte-identical through the resume, the resumed run finishes
+(exit 0, the session marked complete, every line written) and records where it went on, and nothing is left in
+the run's temporary directory.
 """
 
 from __future__ import annotations
 
 import json
+import os
 import select
+import shutil
 import signal
 import subprocess
 import sys
+import tempfile
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -85,11 +89,22 @@ def stop(proc: subprocess.Popen) -> None:
             proc.wait()
 
 
-def start_run(cwd: Path, *, pace: str, url: str = "sim://", extra: tuple[str, ...] = ()) -> subprocess.Popen:
+def start_run(cwd: Path, *, pace: str, url: str = "sim://", extra: tuple[str, ...] = (),
+              temporary: Path | None = None) -> subprocess.Popen:
     argv = [sys.executable, "-m", "assistant", "run", *RUN, "--controller", url, *extra]
     if url.startswith("sim"):
         argv += ["--pace", pace, "--seed", "3", "--scenario", str(quick_scenario(cwd))]
-    return subprocess.Popen(argv, cwd=cwd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    env = None if temporary is None else {**os.environ, "TMPDIR": str(temporary)}
+    return subprocess.Popen(argv, cwd=cwd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env)
+
+
+def left_in(temporary: Path, wait_s: float = 10.0) -> list[Path]:
+    """What the run left in its temporary directory once its fork server had time to end (it outlives a run
+    killed outright by a moment)."""
+    deadline = time.monotonic() + wait_s
+    while any(temporary.iterdir()) and time.monotonic() < deadline:
+        time.sleep(0.1)
+    return list(temporary.rglob("*"))
 
 
 def wait_for_engaged(proc: subprocess.Popen, timeout_s: float = 180) -> bool:
@@ -157,7 +172,8 @@ def trial(cwd: Path, capsys, *, kind: str, pace: str, link: str, delay_s: float,
     the delay counts from the tip engaging (the series starts next), else from the process start."""
     sig = signal.SIGKILL if kind == "sigkill" else signal.SIGINT
     o = Outcome(kind, pace, link, delay_s, after_first_line)
-    proc = start_run(cwd, pace=pace, url=url)
+    temporary = Path(tempfile.mkdtemp(prefix="mfma-"))  # short: the fork server's socket path fits in 108 bytes
+    proc = start_run(cwd, pace=pace, url=url, temporary=temporary)
     signalled_at = None
     try:
         if after_first_line and not wait_for_engaged(proc):
@@ -174,6 +190,10 @@ def trial(cwd: Path, capsys, *, kind: str, pace: str, link: str, delay_s: float,
             proc.kill()
             proc.wait()
     o.exit_code = proc.returncode
+    try:
+        assert not left_in(temporary), f"the run left {left_in(temporary, 0)} in its temporary directory"
+    finally:
+        shutil.rmtree(temporary, ignore_errors=True)
     path = session_of(cwd)
     if path is None:  # stopped before the session file was created (a Ctrl-C may even hit the interpreter's
         assert o.exit_code != 0  # own start-up): nothing reached the disk, nothing to resume
@@ -196,4 +216,7 @@ def trial(cwd: Path, capsys, *, kind: str, pace: str, link: str, delay_s: float,
     resume(path, url, capsys)
     o.resumed = True
     check_resumed(path, before, done or 0)
+    with h5py.File(path, "r") as f:  # where the resumed lines begin is kept (none when no line came before)
+        seams = list(f["series/series1"].attrs.get("resumed_at_lines", []))
+    assert seams == ([done] if done and done < LINES else []), seams
     return o

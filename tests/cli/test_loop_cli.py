@@ -211,6 +211,8 @@ def test_run_resume_finishes_an_interrupted_field_series(tmp_path, capsys, monke
     with h5py.File(path, "r+") as f:
         g = f["field_series/fields1"]
         assert int(g.attrs["completed_lines"]) == 72 and bool(f.attrs["complete"])
+        assert list(g.attrs["resumed_at_lines"]) == [29]  # the seam, said at the analysis as well
+        assert "'fields1' was resumed at field step 4, line 6 of 8 lines per image" in err
         assert g["phase_deg"][:3].tobytes() == before.tobytes()
         f.attrs["complete"] = False  # as if stopped while the report was written: only the analysis is left
     from matplotlib.figure import Figure

@@ -175,6 +175,23 @@ def test_interrupted_series_resumes_where_it_stopped(tmp_path):
     assert "resuming at field step 5 line 4" in text and "450, -450 kA/m" in text
 
 
+def test_a_resume_within_the_first_step_has_nothing_to_retrace(tmp_path):
+    # the notice used to read "retracing the fields  A/m first": an empty list (the first step sets its own field)
+    import h5py
+
+    scenario, path, _ = _interrupted(tmp_path, SMALL, 3)
+    with h5py.File(path, "r") as f:
+        kept = f[f"field_series/{SMALL.name}/phase_deg"][0, :3].tobytes()
+    notices = []
+    with engaged(scenario=scenario, seed=5) as ctl:
+        with SessionFile.open(path, "a") as sf:
+            run_field_series(ctl, SMALL, resume_field_writer(sf, SMALL.name), sink=notices.append)
+            after = sf.read_field_series(SMALL.name)
+    assert after.finished and after.phase_deg[0, :3].tobytes() == kept
+    texts = [n.text for n in notices if isinstance(n, Notice) and n.text.startswith("resuming")]
+    assert texts == ["resuming at field step 1 line 4"], texts
+
+
 def test_resume_retraces_an_extreme_held_for_two_steps(tmp_path):
     # return-point memory: before the interrupted step the magnet must visit -450 kA/m again, the extreme the
     # series held for two steps, or the elements it reversed there are left as they were at the restart

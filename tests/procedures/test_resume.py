@@ -75,20 +75,69 @@ def test_resume_on_the_recorded_stage_finishes(interrupted, tmp_path, capsys):
     with h5py.File(path, "r") as f:
         before = f["series/series1/phase_deg"][..., :3, :].tobytes()
     assert main(["run", "--resume", str(path), "--json"]) == 0, capsys.readouterr().err
-    d = json.loads(capsys.readouterr().out)
+    out, err = capsys.readouterr()
+    d = json.loads(out)
     assert d["series"]["completed_lines"] == 8
+    assert "series 'series1' was resumed at line 4 of 8 lines per image" in err  # the seam is said
     with h5py.File(path, "r") as f:
         assert bool(f.attrs["complete"]) and f["series/series1/phase_deg"][..., :3, :].tobytes() == before
+        assert list(f["series/series1"].attrs["resumed_at_lines"]) == [3]
 
 
 def test_resume_on_another_lever_is_refused_before_anything_moves(interrupted, tmp_path, capsys):
     path = tmp_path / "copy.h5"
     path.write_bytes(interrupted.read_bytes())
-    assert main(["run", "--resume", str(path), "--scenario", "default"]) == 2
+    default_lever = tmp_path / "default-lever.toml"  # the recorded sample under the default lever
+    default_lever.write_text(SMALL_SAMPLE)
+    assert main(["run", "--resume", str(path), "--scenario", str(default_lever)]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert err[-1].startswith("mfma: error:") and "free amplitude" in err[-1] and "recorded" in err[-1]
     with h5py.File(path, "r") as f:
         assert int(f["series/series1"].attrs["completed_lines"]) == 3 and not bool(f.attrs["complete"])
+
+
+@pytest.mark.parametrize("sample", ["pattern = \"dots\"", "seed = 2"])
+def test_resume_on_another_sample_is_refused_before_anything_moves(interrupted, tmp_path, capsys, monkeypatch,
+                                                                   sample):
+    # the same lever drives as stored, so only the scenario itself tells that the lines would be of another sample
+    path = tmp_path / "copy.h5"
+    path.write_bytes(interrupted.read_bytes())
+    other = tmp_path / "other-sample.toml"
+    other.write_text(PROBE_ONLY + SMALL_SAMPLE + sample + "\n")
+    assert main(["run", "--resume", str(path), "--scenario", str(other)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert err[-1].startswith("mfma: error: --scenario") and "sample differs" in err[-1], err[-3:]
+    assert "Traceback" not in "\n".join(err)
+    with h5py.File(path, "r") as f:
+        assert int(f["series/series1"].attrs["completed_lines"]) == 3 and not bool(f.attrs["complete"])
+    from matplotlib.figure import Figure
+
+    monkeypatch.setattr(Figure, "savefig", lambda self, *a, **k: None)  # the resume is under test, not the figures
+    same = tmp_path / "same.toml"  # the recorded scenario's text from a file of its own is accepted
+    same.write_text(PROBE_ONLY + SMALL_SAMPLE)
+    assert main(["run", "--resume", str(path), "--scenario", str(same), "--json"]) == 0, capsys.readouterr().err
+
+
+def test_resume_refuses_options_that_would_change_the_stored_series(interrupted, tmp_path, capsys):
+    # they used to be dropped without a word: --lines 64 --heights 10,20 gave the stored 8 lines at four heights
+    path = tmp_path / "copy.h5"
+    path.write_bytes(interrupted.read_bytes())
+    assert main(["run", "--resume", str(path), "--lines", "64", "--heights", "10,20", "--size-um", "1"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith("mfma: error: --heights, --lines:") and "copy.h5" in err[0], err
+    with h5py.File(path, "r") as f:
+        assert int(f["series/series1"].attrs["completed_lines"]) == 3 and not bool(f.attrs["complete"])
+    from assistant.cli.parser import build_parser
+    from assistant.cli.resume_options import changed_options
+
+    plan = read_resume_plan(path)
+    for argv, changed in ((["--lines", "8", "--pixels=16", "--heights", "10,20,30,50", "--size-um", "1"], []),
+                          (["--biases", "0", "--line-rate", "1", "--no-repeat"], ["--no-repeat"]),
+                          (["--pix", "32", "--biases=-1,0,1"], ["--biases", "--pixels"]),
+                          (["--fields-ka-per-m", "100,0"], ["--fields-ka-per-m"]),
+                          (["--thermal-seconds", "2"], ["--thermal-seconds"])):  # no run plan stored to compare
+        args = build_parser().parse_args(["run", "--resume", str(path), *argv])
+        assert changed_options(args, plan, argv) == changed, argv
 
 
 def test_reestablish_measures_the_drive_and_leaves_the_coarse_motor_alone(interrupted):

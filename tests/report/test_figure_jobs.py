@@ -142,6 +142,52 @@ def test_workers_of_a_killed_report_leave(tmp_path):
     assert not [p for p in pids if _running(p)]
 
 
+def test_a_killed_report_leaves_no_temporary_folder(tmp_path):
+    # multiprocessing keeps the fork server's socket in a pymp-* folder that only a normal exit removed: every
+    # `mfma run` killed outright left one in the temporary directory; the server now removes it as it ends
+    import os
+    import subprocess
+    import sys
+    import time
+
+    script = tmp_path / "owner.py"
+    script.write_text(
+        "import os, signal\n"
+        "from assistant.report.figure_jobs import FigureJobs\n"
+        "if __name__ == '__main__':\n"
+        "    import time\n"
+        "    FigureJobs(2)._executor().submit(time.sleep, 0.1).result()  # the server and a worker are up\n"
+        "    os.kill(os.getpid(), signal.SIGKILL)\n")
+    import shutil
+    import tempfile
+
+    temporary = Path(tempfile.mkdtemp(prefix="mfma-"))  # short: the socket's path must fit in 108 bytes
+    try:
+        owner = subprocess.run([sys.executable, str(script)], stdout=subprocess.DEVNULL, stderr=subprocess.PIPE,
+                               text=True, timeout=60, cwd=Path(__file__).resolve().parents[2],
+                               env={**os.environ, "TMPDIR": str(temporary)})
+        assert owner.returncode == -9, owner.stderr[-800:]
+        deadline = time.monotonic() + 10.0
+        while any(temporary.iterdir()) and time.monotonic() < deadline:
+            time.sleep(0.1)
+        assert not list(temporary.rglob("*"))
+    finally:
+        shutil.rmtree(temporary, ignore_errors=True)
+
+
+def test_a_fork_server_started_by_another_process_leaves_the_folder_alone(tmp_path, monkeypatch):
+    # a process started by `mfma run` inherits the variable: only the run's own server may remove the folder
+    import os
+
+    from assistant.report import fork_server_exit
+
+    folder = tmp_path / "pymp-abc"
+    monkeypatch.setattr(os, "getppid", lambda: 4242)
+    assert fork_server_exit._ours(f"4242:{folder}") == str(folder)
+    assert fork_server_exit._ours(f"4243:{folder}") is None and fork_server_exit._ours("") is None
+    assert fork_server_exit._ours(f"4242:{tmp_path / 'other'}") is None  # never a folder multiprocessing did not make
+
+
 def test_without_a_process_pool_the_figures_are_drawn_here(tmp_path, monkeypatch):
     # a system without working semaphores (or without fork servers) cannot start the pool: nothing is lost
     from assistant.report import figure_jobs

@@ -138,6 +138,28 @@ def test_records_read_back_with_units(session):
     assert session.read_resonance() is None and session.analysis_names() == ["s1"]
 
 
+def test_a_resume_is_recorded_where_the_series_went_on(tmp_path):
+    # the lines after a resume come from a new approach (drift, the coarse motor): without a record of where, a
+    # stitched image read as one (a 32-line run resumed at line 8 moved the magnetic rms by 25 standard errors)
+    from assistant.report.sections import series_section
+
+    path = tmp_path / "r.h5"
+    with SessionFile.create(path, controller_url="sim://", software_version="0.1.0") as s:
+        _series(s)
+    for start, stop in ((0, 2), (2, 3), (3, 5)):
+        with SessionFile.open(path, "a") as s:
+            w = resume_writer(s, "s1")  # at 0 nothing came before: no seam
+            for i in range(start, stop):
+                w.write_line(i, **_line(i))
+    with SessionFile.open(path) as s:
+        data = s.read_series("s1")
+        assert data.resumed_at_lines == (2, 3) and data.completed_lines == 5
+        text = "\n".join(series_section(data, None))
+    assert "resumed at line 3, line 4 of 6 lines per image" in text and "neither measured nor corrected" in text
+    with h5py.File(path, "r") as f:
+        assert list(f["series/s1"].attrs["resumed_at_lines"]) == [2, 3]
+
+
 def test_resume_continues_and_refuses_finished_series(tmp_path):
     path = tmp_path / "r.h5"
     with SessionFile.create(path, controller_url="sim://", software_version="0.1.0") as s:
