@@ -203,3 +203,44 @@ def test_without_a_process_pool_the_figures_are_drawn_here(tmp_path, monkeypatch
         assert jobs.processes == 1 and all(job.future is None for job in handles)
         found = [p for job in handles for p in jobs.paths(job, notes)]
     assert [p.name for p in found] == ["t0.png", "t1.png"] and notes == []
+
+
+def test_ctrl_c_waits_until_the_pool_is_out_of_its_locks(monkeypatch):
+    # A KeyboardInterrupt raised while the pool holds its own lock (starting, accepting a job, shutting down) can
+    # leave the lock taken and hang the process at exit; a Ctrl-C there is delivered once the call has returned.
+    import os
+    import signal
+
+    from assistant.report import figure_jobs
+
+    calls: list[str] = []
+
+    class Pool:
+        def __init__(self, *args, **kwargs):
+            os.kill(os.getpid(), signal.SIGINT)  # Ctrl-C in the middle of the pool's start
+            calls.append("started")
+
+        def submit(self, *args):
+            os.kill(os.getpid(), signal.SIGINT)
+            calls.append("accepted")
+
+        def shutdown(self, **kwargs):
+            os.kill(os.getpid(), signal.SIGINT)
+            calls.append("shut down")
+
+    monkeypatch.setattr(figure_jobs, "ProcessPoolExecutor", Pool)
+    jobs = FigureJobs(2)
+    try:
+        jobs._executor()
+    except KeyboardInterrupt:
+        calls.append("interrupted")
+    try:
+        jobs.submit("a figure", lambda: (None, (), {}))
+    except KeyboardInterrupt:
+        calls.append("interrupted")
+    try:
+        jobs.close()
+    except KeyboardInterrupt:
+        calls.append("interrupted")
+    assert calls == ["started", "interrupted", "accepted", "interrupted", "shut down", "interrupted"]
+    assert signal.getsignal(signal.SIGINT) is signal.default_int_handler
