@@ -5,9 +5,10 @@ yardstick in ``plain/`` (numpy and only the scipy, h5py or matplotlib modules th
 project), A B A B ..., after one warm-up run of each; the figure is the median of the pairwise ratios (target:
 1.5 or less). ``mfma drivers`` loads every plug-in, so its yardstick loads what the built-in drivers need
 (numpy, pyzmq). ``mfma --help`` and ``mfma probes`` have an absolute target (0.15 s). Peak memory is each
-process's own maximum resident set (kernel accounting). Inputs come from ``command_inputs.py`` (the published
-formulas of the tests) and a session of ``mfma run`` on the default scenario for the report; they are made once
-and kept in the temporary folder.
+process's own maximum resident set (kernel accounting; it counts the size of the process that started it too,
+which is why the inputs are made in another process and the runner gives every benchmark a process of its own).
+Inputs come from ``command_inputs.py`` (the published formulas of the tests) and a session of ``mfma run`` on the
+default scenario for the report; they are made once and kept in the temporary folder.
 
 Both run with ``PYTHONDONTWRITEBYTECODE`` removed from their environment, as in a user's shell: Python then keeps
 the compiled project modules after the warm-up run instead of compiling some forty of them again in every timed
@@ -91,6 +92,9 @@ def _imports_only(argv: list[str], plain: list[str], work: Path, *, runs: int, e
 def run(names: list[str] | None = None) -> dict:
     runs = int(os.environ.get("MFMA_BENCH_RUNS", "5"))
     folder = Path(tempfile.gettempdir()) / "mfma-bench-inputs"
+    # made in a process of its own: this one stays small, and its size counts in every timed child's peak memory
+    subprocess.run([sys.executable, str(HERE / "command_inputs.py"), str(folder)], check=True,
+                   stdout=subprocess.DEVNULL)
     inputs = build(folder)
     session = _session(folder / "session")
     mfma = mfma_command()

@@ -3,6 +3,11 @@
 Each ``bench_*.py`` here defines ``run() -> dict``. Benchmarks are not collected by the test run. A result may
 list its targets under ``"targets"`` (``timing.target``: what, value, target, unit, met); the runner prints them
 all as one table on stderr at the end, each value against its target, and gathers them under ``"targets"``.
+
+Every benchmark runs in a process of its own (``run.py --one FILE``), so none inherits another's imports, warm
+caches or memory. The last matters for whole-process figures: Linux counts in a child's peak resident memory the
+memory of the process that started it (exec keeps the larger of the two), and in one runner process every
+command had read 202 MiB, ``mfma --help`` included, after the benchmarks before it had grown the runner.
 """
 
 from __future__ import annotations
@@ -11,6 +16,7 @@ import importlib.util
 import json
 import os
 import platform
+import subprocess
 import sys
 import time
 from pathlib import Path
@@ -26,12 +32,12 @@ def main(names: list[str]) -> int:
     if names:
         files = [f for f in files if f.stem.removeprefix("bench_") in names or f.stem in names]
     for f in files:
-        spec = importlib.util.spec_from_file_location(f.stem, f)
-        module = importlib.util.module_from_spec(spec)
         t0 = time.perf_counter()
         try:
-            spec.loader.exec_module(module)
-            result = module.run()
+            done = subprocess.run([sys.executable, __file__, "--one", str(f)], stdout=subprocess.PIPE, text=True)
+            if done.returncode != 0:
+                raise RuntimeError(f"exit {done.returncode}")
+            result = json.loads(done.stdout)
             results[f.stem.removeprefix("bench_")] = result
             table += [{"bench": f.stem.removeprefix("bench_"), **t} for t in result.get("targets", [])]
         except Exception as exc:  # report and go on: one broken benchmark must not hide the rest
@@ -64,6 +70,18 @@ def targets_table(table: list[dict], results: dict) -> str:
     return "\n".join(lines) + "\n"
 
 
+def one(path: str) -> int:
+    """Run one benchmark file's ``run()`` in this process and print its result as JSON on stdout."""
+    f = Path(path)
+    spec = importlib.util.spec_from_file_location(f.stem, f)
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    print(json.dumps(module.run(), default=float))
+    return 0
+
+
 if __name__ == "__main__":
     sys.path.insert(0, str(HERE.parents[1]))
+    if sys.argv[1:2] == ["--one"]:
+        raise SystemExit(one(sys.argv[2]))
     raise SystemExit(main(sys.argv[1:]))
