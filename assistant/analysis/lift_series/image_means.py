@@ -276,7 +276,7 @@ def fit_mean_bias_grid(mean, mean_std, *, bias_v, look_beyond: bool = True,
         return MeanFit(es, es_sd, c, sr_sd, corr, params, cov, True, cpd_sentence(nb, v0, cpd_sd), v0, cpd_sd, red)
     _, a_e, c_e = _vertex_chi2(edge, volts, y, w)
     moved = (es - a_e[:, None] * ((volts - edge) ** 2)[None], c - c_e)
-    sentence = vertex_beyond_sentence(beyond, volts) + (
+    sentence = vertex_beyond_sentence(v0, volts) + (
         f" The electrostatic and short-range parts then rest on extrapolating the parabolas to a vertex the biases "
         f"do not reach (not separable): only their sum, the measured non-magnetic mean, is reliable; how far the "
         f"split moves between a vertex one bias range beyond the biases ({edge:+.3g} V) and at {v0:+.3g} V counts "
