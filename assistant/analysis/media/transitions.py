@@ -63,6 +63,9 @@ class TrackTransitions:
         Residual rms of the fit and the profile's noise (same units as the profile).
     n_fitted, n_parameters : int
         Profile points the fit weighed, and the parameters it fitted (for :attr:`information`).
+    seed_width_px : float or None
+        The width the detector assumed for ``detected_px`` (a retry seeded at another width detects shifted
+        positions, which say nothing of the neighbours' pull).
     """
 
     positions_px: np.ndarray
@@ -78,6 +81,7 @@ class TrackTransitions:
     noise: float
     n_fitted: int = 0
     n_parameters: int = 0
+    seed_width_px: float | None = None
 
     @property
     def information(self) -> float:
@@ -342,7 +346,8 @@ def fit_track_transitions(profile: np.ndarray, *, orientation: str, noise: float
     return TrackTransitions(x[order], sd[:j][order], signs[order] * np.sign(amp), pos[order], interior[order],
                             float(sp["w"]), float(sd_of.get("w", 0.0)),
                             None if sp["t"] is None else float(sp["t"]), float(abs(amp)),
-                            float(np.sqrt(np.mean(r**2))), float(noise), int(mask.sum()), int(x_fit.size))
+                            float(np.sqrt(np.mean(r**2))), float(noise), int(mask.sum()), int(x_fit.size),
+                            float(width_px))
 
 
 def _unresolved_pairs(x: np.ndarray, signs: np.ndarray) -> np.ndarray:
