@@ -135,20 +135,26 @@ def _leave_with(owner_pid: int, period_s: float = 0.5) -> None:
 
 @contextlib.contextmanager
 def sigint_held() -> Iterator[None]:
-    """Ctrl-C waits until the block ends (the signal is blocked, then delivered on leaving it).
+    """A Ctrl-C during the block is handled when the block ends, by the handler that was there before.
 
     The pool takes a lock of its own to start, to accept a job and to shut down; a KeyboardInterrupt raised while
     it was held left the lock taken, and the process hung at its exit in the pool's clean-up (seen once in some
-    forty Ctrl-C timed against the start of a report: alive 14 minutes later). POSIX only; elsewhere, and off the
-    main thread, nothing is held."""
-    if not hasattr(signal, "pthread_sigmask") or threading.current_thread() is not threading.main_thread():
+    forty Ctrl-C timed against the start of a report: alive 14 minutes later). The Python-level handler is swapped
+    rather than the signal blocked: a blocked signal is delivered to another thread of the process, and Python
+    still raises in this one. Only in the main thread, and only over a handler written in Python (Ctrl-C ignored,
+    or handled outside Python, is left alone); ``guard.stop_now`` holds Ctrl-C the same way but drops it."""
+    if threading.current_thread() is not threading.main_thread() or not callable(signal.getsignal(signal.SIGINT)):
         yield
         return
-    old = signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT})
+    previous = signal.getsignal(signal.SIGINT)
+    pending: list[object] = []
+    signal.signal(signal.SIGINT, lambda signum, frame: pending.append(frame))
     try:
         yield
     finally:
-        signal.pthread_sigmask(signal.SIG_SETMASK, old)
+        signal.signal(signal.SIGINT, previous)
+        if pending:
+            previous(signal.SIGINT, pending[-1])
 
 
 class Job:

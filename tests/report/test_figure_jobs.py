@@ -208,7 +208,6 @@ def test_without_a_process_pool_the_figures_are_drawn_here(tmp_path, monkeypatch
 def test_ctrl_c_waits_until_the_pool_is_out_of_its_locks(monkeypatch):
     # A KeyboardInterrupt raised while the pool holds its own lock (starting, accepting a job, shutting down) can
     # leave the lock taken and hang the process at exit; a Ctrl-C there is delivered once the call has returned.
-    import os
     import signal
 
     from assistant.report import figure_jobs
@@ -217,30 +216,27 @@ def test_ctrl_c_waits_until_the_pool_is_out_of_its_locks(monkeypatch):
 
     class Pool:
         def __init__(self, *args, **kwargs):
-            os.kill(os.getpid(), signal.SIGINT)  # Ctrl-C in the middle of the pool's start
+            signal.raise_signal(signal.SIGINT)  # Ctrl-C in the middle of the pool's start (to this thread)
             calls.append("started")
 
         def submit(self, *args):
-            os.kill(os.getpid(), signal.SIGINT)
+            signal.raise_signal(signal.SIGINT)
             calls.append("accepted")
 
         def shutdown(self, **kwargs):
-            os.kill(os.getpid(), signal.SIGINT)
+            signal.raise_signal(signal.SIGINT)
             calls.append("shut down")
 
     monkeypatch.setattr(figure_jobs, "ProcessPoolExecutor", Pool)
-    jobs = FigureJobs(2)
+    before = signal.signal(signal.SIGINT, signal.default_int_handler)  # as in a shell, whatever ran the tests
     try:
-        jobs._executor()
-    except KeyboardInterrupt:
-        calls.append("interrupted")
-    try:
-        jobs.submit("a figure", lambda: (None, (), {}))
-    except KeyboardInterrupt:
-        calls.append("interrupted")
-    try:
-        jobs.close()
-    except KeyboardInterrupt:
-        calls.append("interrupted")
+        jobs = FigureJobs(2)
+        for step in (jobs._executor, lambda: jobs.submit("a figure", lambda: (None, (), {})), jobs.close):
+            try:
+                step()
+            except KeyboardInterrupt:
+                calls.append("interrupted")
+        assert signal.getsignal(signal.SIGINT) is signal.default_int_handler  # put back after each
+    finally:
+        signal.signal(signal.SIGINT, before)
     assert calls == ["started", "interrupted", "accepted", "interrupted", "shut down", "interrupted"]
-    assert signal.getsignal(signal.SIGINT) is signal.default_int_handler
