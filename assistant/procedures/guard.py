@@ -16,6 +16,7 @@ from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
 
+from assistant.ctrl_c import held
 from assistant.errors import AssistantError
 from assistant.procedures.events import Notice, Sink, null_sink
 
@@ -142,27 +143,8 @@ def stop_now(controller) -> None:
     A further Ctrl-C while this runs does not cut it short (it would leave, say, the drive on after the withdraw):
     in the main thread SIGINT is held for the duration; the stop is already what it asks for."""
     abort = getattr(controller, "abort", None)
-    with _sigint_held():
+    with held(deliver_after=False):
         (abort if callable(abort) else controller.make_safe)()
-
-
-@contextlib.contextmanager
-def _sigint_held() -> Iterator[None]:
-    import signal
-    import threading
-
-    if threading.current_thread() is not threading.main_thread():
-        yield  # signals are delivered to the main thread only
-        return
-    previous = signal.getsignal(signal.SIGINT)
-    if previous is None:  # installed outside Python: cannot be put back
-        yield
-        return
-    signal.signal(signal.SIGINT, lambda signum, frame: None)
-    try:
-        yield
-    finally:
-        signal.signal(signal.SIGINT, previous)
 
 
 def _has_magnet(controller) -> bool:

@@ -26,14 +26,15 @@ server with them (it ends once no process it served is left), removing the folde
 
 from __future__ import annotations
 
-import contextlib
 import os
 import signal
 import threading
 import time
-from collections.abc import Callable, Iterator
+from collections.abc import Callable
 from concurrent.futures import BrokenExecutor, Future, ProcessPoolExecutor
 from pathlib import Path
+
+from assistant.ctrl_c import held
 
 PROCESSES_ENV = "MFMA_REPORT_PROCESSES"
 
@@ -133,30 +134,6 @@ def _leave_with(owner_pid: int, period_s: float = 0.5) -> None:
     os._exit(1)
 
 
-@contextlib.contextmanager
-def sigint_held() -> Iterator[None]:
-    """A Ctrl-C during the block is handled when the block ends, by the handler that was there before.
-
-    The pool takes a lock of its own to start, to accept a job and to shut down; a KeyboardInterrupt raised while
-    it was held left the lock taken, and the process hung at its exit in the pool's clean-up (seen once in some
-    forty Ctrl-C timed against the start of a report: alive 14 minutes later). The Python-level handler is swapped
-    rather than the signal blocked: a blocked signal is delivered to another thread of the process, and Python
-    still raises in this one. Only in the main thread, and only over a handler written in Python (Ctrl-C ignored,
-    or handled outside Python, is left alone); ``guard.stop_now`` holds Ctrl-C the same way but drops it."""
-    if threading.current_thread() is not threading.main_thread() or not callable(signal.getsignal(signal.SIGINT)):
-        yield
-        return
-    previous = signal.getsignal(signal.SIGINT)
-    pending: list[object] = []
-    signal.signal(signal.SIGINT, lambda signum, frame: pending.append(frame))
-    try:
-        yield
-    finally:
-        signal.signal(signal.SIGINT, previous)
-        if pending:
-            previous(signal.SIGINT, pending[-1])
-
-
 class Job:
     """One figure writer: what it draws (for the note), and its outcome once known."""
 
@@ -191,13 +168,16 @@ class FigureJobs:
 
     def close(self) -> None:
         if self._pool is not None:
-            with sigint_held():
+            with held(deliver_after=True):
                 self._pool.shutdown(wait=True, cancel_futures=True)
             self._pool = None
 
     def _executor(self) -> ProcessPoolExecutor:
         if self._pool is None:
-            with sigint_held():
+            # Ctrl-C waits while the pool takes its own lock (to start, take a job, shut down): a KeyboardInterrupt
+            # inside it left the lock taken, and the process hung at exit in the pool's clean-up (seen once in
+            # some forty Ctrl-C timed against a report's start: alive 14 minutes later)
+            with held(deliver_after=True):
                 self._pool = ProcessPoolExecutor(self.processes, mp_context=_forkserver_context(),
                                                  initializer=_worker_start, initargs=(os.getpid(),))
         return self._pool
@@ -212,7 +192,7 @@ class FigureJobs:
                 return job
             try:
                 writer, args, kwargs = prepare()
-                with sigint_held():
+                with held(deliver_after=True):
                     job.future = pool.submit(_run, writer, args, kwargs)
             except BrokenExecutor:  # a worker died: this figure is drawn here when asked for
                 job.future = None
