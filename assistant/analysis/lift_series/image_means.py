@@ -121,31 +121,27 @@ def fit_mean_heights(mean, mean_std, *, electrostatic_shape, short_range_shape, 
     return MeanFit(es, es_sd, sr, sr_sd, corr, params, pcov, separable, sentence, None, None, red)
 
 
-def _vertex_chi2(v0, volts, y, w):
-    d = (volts - v0) ** 2  # (B,)
-    # per height closed-form 2x2 weighted least squares for (a_h, c_h)
-    s00 = (w * d * d).sum(axis=1)
-    s01 = (w * d).sum(axis=1)
-    s11 = w.sum(axis=1)
-    t0 = (w * d * y).sum(axis=1)
-    t1 = (w * y).sum(axis=1)
-    det = s00 * s11 - s01**2
-    a = (s11 * t0 - s01 * t1) / det
-    c = (s00 * t1 - s01 * t0) / det
-    r = y - a[:, None] * d[None] - c[:, None]
-    return float((w * r * r).sum()), a, c
-
-
-def _profile_chi2(trial_v: np.ndarray, volts: np.ndarray, y: np.ndarray, w: np.ndarray) -> np.ndarray:
-    """chi-square of ``a_h (V - v)^2 + c_h`` at every trial vertex v (G,), each a_h and c_h by weighted linear
-    least squares (closed form), for means y and weights w (H, B)."""
-    d = ((volts[None, :] - trial_v[:, None]) ** 2)[:, None, :]  # (G, 1, B)
+def _parabolas_at(trial_v: np.ndarray, volts: np.ndarray, y: np.ndarray, w: np.ndarray):
+    """``a_h (V - v)^2 + c_h`` at every trial vertex v (G,), each height's a_h and c_h by weighted linear least
+    squares (closed form, 2 x 2), for means y and weights w (H, B): the chi-square (G,), a and c (G, H)."""
+    d = ((volts[None, :] - np.asarray(trial_v, float)[:, None]) ** 2)[:, None, :]  # (G, 1, B)
     s00, s01, s11 = (w * d * d).sum(-1), (w * d).sum(-1), w.sum(-1)
     t0, t1 = (w * d * y).sum(-1), (w * y).sum(-1)
     det = s00 * s11 - s01**2
     a = (s11 * t0 - s01 * t1) / det
     c = (s00 * t1 - s01 * t0) / det
-    return (w * (y - a[..., None] * d - c[..., None]) ** 2).sum(axis=(-2, -1))
+    return (w * (y - a[..., None] * d - c[..., None]) ** 2).sum(axis=(-2, -1)), a, c
+
+
+def _vertex_chi2(v0, volts, y, w):
+    """:func:`_parabolas_at` one vertex: the chi-square, a (H,) and c (H,)."""
+    chi2, a, c = _parabolas_at(np.array([v0], float), volts, y, w)
+    return float(chi2[0]), a[0], c[0]
+
+
+def _profile_chi2(trial_v: np.ndarray, volts: np.ndarray, y: np.ndarray, w: np.ndarray) -> np.ndarray:
+    """The chi-square of :func:`_parabolas_at` at every trial vertex (G,)."""
+    return _parabolas_at(trial_v, volts, y, w)[0]
 
 
 BEYOND_SPANS = 20.0  # how far the profile looks for a vertex outside the window [bias ranges either side]
@@ -182,7 +178,7 @@ def _window_vertex(volts, y, w) -> float:
     refined by a bounded search about its lowest point)."""
     span = volts.max() - volts.min()
     grid = np.linspace(volts.min() - span, volts.max() + span, 401)
-    chis = np.array([_vertex_chi2(g, volts, y, w)[0] for g in grid])  # 1-D scan of the single nonlinear parameter
+    chis = _profile_chi2(grid, volts, y, w)  # 1-D scan of the single nonlinear parameter
     k = int(np.argmin(chis))
     return _refined(volts, y, w, grid[max(k - 1, 0)], grid[min(k + 1, len(grid) - 1)])
 
