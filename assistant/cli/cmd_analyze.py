@@ -112,7 +112,8 @@ def _load_record(p: Path, rate_hz: float | None):
 
 
 TEMPERATURE_SOURCES = {"given": "", "session": " as the session recorded it",
-                       "assumed": " assumed, ± 3 K in the errors: give the lever's temperature with --temperature-k"}
+                       "assumed": " assumed, ± {std:g} K in the errors: give the lever's temperature with "
+                                  "--temperature-k"}
 
 
 def _temperature(args, recorded=None) -> tuple[float, str]:
@@ -169,7 +170,7 @@ def thermal(args) -> int:
              f"quality factor Q: {number(d['q'], d['q_std'])}",
              f"thermal peak area: {quantity(d['peak_area_v2'], 'V^2')} (Butt-Jaschke factor "
              f"{number(d['correction_factor'])}, {args.detection} detection, {quantity(d['temperature_k'], 'K')}"
-             f"{TEMPERATURE_SOURCES[t_source]})"]
+             f"{TEMPERATURE_SOURCES[t_source].format(std=_temperature_std(t_source))})"]
     if args.invols:
         source = "" if args.invols_std else "; give --invols-std for the sensitivity's own uncertainty"
         lines.append(f"spring constant k: {quantity(d['k_n_per_m'], 'N/m', d['k_std_n_per_m'])} "

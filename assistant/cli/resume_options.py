@@ -13,16 +13,20 @@ import math
 
 from assistant.cli._common import UsageError
 
+
+def _heights_m(a):
+    """The lift heights a new run would take [m] (None: the default)."""
+    return None if a.heights is None else tuple(h * 1e-9 for h in a.heights)
+
+
 # option -> how a new run would read it from the arguments, and how the stored plan holds it
 _LIFT = {
-    "--heights": (lambda a: None if a.heights is None else tuple(h * 1e-9 for h in a.heights),
-                  lambda s: tuple(s.heights_m)),
+    "--heights": (_heights_m, lambda s: tuple(s.heights_m)),
     "--biases": (lambda a: (tuple(a.biases), None) if len(a.biases) >= 2 else (None, a.biases[0]),
                  lambda s: (None if s.biases_v is None else tuple(s.biases_v), None if s.biases_v else s.bias_v)),
 }
 _FIELD = {
-    "--heights": (lambda a: None if a.heights is None else tuple(h * 1e-9 for h in a.heights),
-                  lambda s: (s.lift_height_m,)),
+    "--heights": (_heights_m, lambda s: (s.lift_height_m,)),
     "--biases": (lambda a: tuple(a.biases), lambda s: (s.bias_v,)),
 }
 _SCAN = {
