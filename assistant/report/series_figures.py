@@ -174,7 +174,7 @@ def maps_figure(a: SeriesAnalysis, *, per_height_scale: bool = False) -> Figure:
         noise = f", noise {a.cpd_map_std_v * 1e3:.2g} mV per px" if a.cpd_map_std_v else ""
         # without V_cpd (beyond the reach of the biases) the map is drawn about its own mean
         ref = a.cpd_v if a.cpd_v is not None else float(np.nanmean(a.cpd_map_v))
-        about = f"− {a.cpd_v:.4g} V" if a.cpd_v is not None else "about its mean (V_cpd not determined)"
+        about = f"− {a.cpd_v:.4g} V" if a.cpd_v is not None else "− its mean"  # as long: the title fits its panel
         panels.append(((a.cpd_map_v - ref) * 1e3, f"contact potential {about}{noise}",
                        "contact potential (mV)", "RdBu_r"))  # not a phase: a plain diverging scale
     cols = 3
