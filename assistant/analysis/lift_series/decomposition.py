@@ -303,7 +303,7 @@ def _decompose(phase_deg, heights_m, pixel_m, bias_v, repeat_phase_deg, probe: P
     weight_sd = np.sqrt(shrunk_noise_variance(image_var, dof).reshape(nh, nb)) / np.sqrt(n_ok)
     mf = _mean_parts(means, mean_sd, weight_sd, fit, h, volts, probe, space, edge, mean_fit)
     if lateral is not None:  # and the bias-independent mean it leaves (lateral_cpd)
-        mf = add_lateral_cpd(mf, lateral, okf, bias_v=volts, noise_dof=dof)
+        mf = add_lateral_cpd(mf, lateral, okf, bias_v=volts, heights_m=h, noise_dof=dof)
         by_bias = contrast_by_bias(src, lateral.image_var_after, bias_v=volts)  # a contrast the bias changes
         mf = dataclasses.replace(mf, sentence=mf.sentence + bias_contrast_sentence(*by_bias, h))
     if offset is not None:

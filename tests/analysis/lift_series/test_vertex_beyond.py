@@ -60,7 +60,7 @@ def test_the_outputs_say_why_there_is_no_cpd(beyond):
     assert again.cpd_v is None and again.cpd_sentence == a.cpd_sentence
     mean_figure(a)  # the figures draw without a V_cpd
     titles = [ax.get_title() for ax in maps_figure(a).axes]
-    assert "contact potential − its mean, noise 4.7 mV per px" in titles  # about its own mean, in one panel's width
+    assert "contact potential − its mean, noise 4.8 mV per px" in titles  # about its own mean, in one panel's width
 
 
 def test_the_split_carries_its_extrapolation_as_model_uncertainty(beyond):
