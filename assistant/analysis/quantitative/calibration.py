@@ -69,8 +69,9 @@ class TipCalibration:
     def warnings(self) -> tuple[str, ...]:
         """What makes this calibration doubtful (a film model that leaves more than noise)."""
         r = self.transfer.residual_rms
-        if r and r[-1] > FILM_MISFIT:
-            return (f"the reference film's model leaves a residual of {r[-1]:.1f} × the noise: the image holds "
+        kept = min(r) if r else None  # the pattern kept is the round with the smallest residual, not the last one
+        if kept is not None and kept > FILM_MISFIT:
+            return (f"the reference film's model leaves a residual of {kept:.1f} × the noise: the image holds "
                     "more than the film's domains (a background beyond a plane, another Ms or thickness, a film "
                     "that is not perpendicular, a tip that changed); the TTF and the point-probe fit are doubtful",)
         return ()
