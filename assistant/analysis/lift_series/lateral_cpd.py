@@ -96,6 +96,7 @@ def consistent_heights(beta, curvature, weight, *, limit: float = MAP_AGREEMENT_
     a = np.asarray(curvature, float)
     w = np.asarray(weight, float)
     used = (a != 0) & np.isfinite(w) & (w > 0)
+    w = np.where(used, w, 1.0)  # (heights that cannot take part: no weight to divide by)
     y = -np.asarray(beta, float) / np.where(a != 0, 2.0 * a, np.inf)[:, None, None]
     y = y - y.mean(axis=(1, 2), keepdims=True)
     while used.sum() >= 3:
