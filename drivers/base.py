@@ -239,7 +239,8 @@ class Controller(abc.ABC):
         """Scan one line natively: topography then the second passes. Needs :attr:`Capability.TWO_PASS_LINE`.
 
         A line beyond the scan size, or a pass's bias beyond ``limits.bias_max_v`` or lift height outside the Z
-        range, is refused before the line starts."""
+        range, is refused before the line starts. A pass's bias holds during that pass only: when the line returns,
+        the bias is back at the value :meth:`set_bias` last set."""
         raise self._missing(Capability.TWO_PASS_LINE)
 
     def force_curve(self, z_stop_m: float, points: int) -> ForceCurve:

@@ -33,7 +33,9 @@ def approach(kit: Kit) -> str:
 
 def _engaged(kit: Kit) -> None:
     if not kit.notes.get("engaged"):
-        raise Fail("not engaged: the approach did not succeed")
+        after = kit.notes.get("withdrawn_after")
+        raise Fail(f"not run: the stage was made safe after {after} failed" if after else
+                   "not engaged: the approach did not succeed")
     if not kit.controller.has(Capability.TWO_PASS_LINE):
         raise NotApplicable
 
@@ -70,6 +72,29 @@ def line(kit: Kit) -> str:
             f"{abs(gap):.3f}° of the first pass")
 
 
+def biased_line(kit: Kit) -> str:
+    """A second pass's bias holds during that pass only: after the line the bias is back where ``set_bias`` left
+    it, so the next line's first pass, on the surface, does not run biased."""
+    _engaged(kit)
+    ctl = kit.controller
+    if not ctl.has(Capability.BIAS):
+        raise NotApplicable
+    bias = min(0.5, 0.5 * ctl.limits.bias_max_v)
+    ctl.set_bias(0.0)
+    spec = LineSpec(0.0, -0.5e-6, 1e-6, 32, 8.0, (SecondPass(LIFT_M, bias), SecondPass(LIFT_M, -bias)))
+    data = ctl.scan_line(spec)
+    said = [float(p.bias_v) for p in data.passes]
+    after = status_of(ctl).bias_v
+    if after != 0.0:
+        ctl.set_bias(0.0)
+        raise Fail(f"after a line with second passes at +{bias:g} and -{bias:g} V the bias reads {after:g} V, not the "
+                   "0 V set before it: the next line's first pass would run biased on the surface")
+    if said != [bias, -bias]:
+        raise Fail(f"second passes asked at +{bias:g} and -{bias:g} V report {said} V")
+    return (f"a line with second passes at +{bias:g} and -{bias:g} V: each pass reports its bias, and the bias is "
+            "back at the 0 V set before the line")
+
+
 def abort_mid_line(kit: Kit) -> str:
     _engaged(kit)
     ctl = kit.controller
@@ -102,5 +127,5 @@ def watchdog(kit: Kit) -> str:
             f"switched the drive off and set the bias to 0 V")
 
 
-ENGAGED = [("engaged.approach", approach), ("engaged.line", line), ("engaged.abort_mid_line", abort_mid_line),
-           ("engaged.watchdog", watchdog)]
+ENGAGED = [("engaged.approach", approach), ("engaged.line", line), ("engaged.biased_line", biased_line),
+           ("engaged.abort_mid_line", abort_mid_line), ("engaged.watchdog", watchdog)]

@@ -163,6 +163,8 @@ def run_level_checks(kit: Kit, level: str, checks: list[tuple[str, Callable[[Kit
         progress(check)
         if not check.passed and not passive:
             problems = make_safe(kit.controller)
+            if kit.notes.get("engaged"):  # the checks after it that need the tip on the surface say why they cannot
+                kit.notes.update(engaged=False, withdrawn_after=name)
             if problems:
                 result.stopped = (f"after {name} the stage could not be made safe ({'; '.join(problems)}); "
                                   f"the kit stopped: check the instrument by hand")

@@ -204,7 +204,8 @@ class $cls(Controller):
     # sweep(frequencies_hz, amplitude_v, *, settle_s) DRIVE_SWEEP: SweepData with the frequencies asked for;
     #                                                 amplitude and frequencies within set_drive's limits
     # scan_line(spec)                                 TWO_PASS_LINE: LineData, topography_m and passes; refuse a
-    #                                                 pass's bias beyond bias_max_v or lift outside [0, Z range]
+    #                                                 pass's bias beyond bias_max_v or lift outside [0, Z range];
+    #                                                 a pass's bias for that pass only, set_bias's value after
     # set_bias(bias_v)                                BIAS: |bias| <= limits.bias_max_v, 0 V always allowed
     # step_coarse(steps)                              COARSE_MOTOR: positive steps approach the sample; refuse a
     #                                                 move past limits.coarse_travel_max_m before the motor moves

@@ -282,6 +282,17 @@ class ClipsPassBias(SimulatedController):
         return super().scan_line(dataclasses.replace(spec, passes=passes))
 
 
+class LeavesPassBias(SimulatedController):
+    """Leaves the last second pass's bias on the tip when the line returns, so the next line's first pass, on the
+    surface, runs biased."""
+
+    def scan_line(self, spec):
+        data = super().scan_line(spec)
+        if spec.passes:
+            self.set_bias(spec.passes[-1].bias_v)
+        return data
+
+
 class CoarsePastTravel(SimulatedController):
     """Runs the coarse motor up to its end stop instead of refusing a move past the travel: the steps beyond the
     end are dropped without a word (it stops 1 % of the remaining travel short of the end, so that the simulated
@@ -298,7 +309,8 @@ class CoarsePastTravel(SimulatedController):
 #: the check of the promise broken first, then those that fail because of it (a clipped bias also takes an infinite one;
 #: a sweep that is not there can neither refuse its limits nor be aborted; a Z move that does not take time is over
 #: before it can be aborted, and so is a field that jumps; a move past the coarse travel is not asked for where an abort
-#: cannot stop the coarse motor; an abort is a make-safe)
+#: cannot stop the coarse motor; an abort is a make-safe; a failed check on the surface leaves the tip withdrawn, so the
+#: checks after it that need it there are not run; ``None``: a stage of its own, at realtime pace)
 BROKEN = {
     ClipsBias: ("signals", "signals", {"safety.bias_limit", "safety.nonfinite"}),
     DriveLimitAsValueError: ("signals", "signals", {"safety.drive_limits", "safety.nonfinite"}),
@@ -323,4 +335,5 @@ BROKEN = {
     ForceCurveInNanometres: ("motion", "motion", {"motion.force_curve"}),
     AbortWaitsForForceCurve: ("motion", "motion", {"motion.abort_force_curve"}),
     ClipsPassBias: ("motion", "motion", {"motion.line_limits"}),
+    LeavesPassBias: ("engaged", None, {"engaged.biased_line", "engaged.abort_mid_line"}),  # a stage of its own
 }
