@@ -73,7 +73,8 @@ class TipCalibration:
         if kept is not None and kept > FILM_MISFIT:
             return (f"the reference film's model leaves a residual of {kept:.1f} × the noise: the image holds "
                     "more than the film's domains (a background beyond a plane, another Ms or thickness, a film "
-                    "that is not perpendicular, a tip that changed); the TTF and the point-probe fit are doubtful",)
+                    "that is not perpendicular, a tip that changed, or pixels too coarse for its smallest domains: "
+                    "image it with smaller ones); the TTF and the point-probe fit are doubtful",)
         return ()
 
     def to_dict(self) -> dict:
