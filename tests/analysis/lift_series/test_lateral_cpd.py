@@ -174,7 +174,7 @@ def test_cross_talk_at_one_height_is_not_taken_for_a_contact_potential():
 
 def test_a_patch_seen_far_from_v_cpd_is_taken_out_whole():
     # biases 1.15-1.9 V from V_cpd multiply the patch's slope term: a share of it left in the images, as a Wiener
-    # shrink of the slopes leaves (1 - g), is contrast no stray field has. Before: the magnetic rms 4-6 standard
+    # shrink of the slopes leaves (1 - g), is contrast no stray field has. Before: the magnetic rms 2.3-5.8 standard
     # errors low at every height and the residual at 20 nm 2.75 x the noise (over seeds 0-9 at 64 px: z sd 3.8,
     # largest 11.6); taken out whole once the slopes show it: within 1.7 and 1.15 x (z sd 1.0, largest 2.3)
     far = np.array([1.5, 1.75, 2.0, 2.25])
@@ -189,7 +189,7 @@ def test_a_patch_seen_far_from_v_cpd_is_taken_out_whole():
 
 def test_heights_that_agree_stay_in_the_map_and_two_cannot_be_told_apart():
     # maps of white noise about one pattern: every height agrees, and the Birge ratio is about 1; a pattern added to
-    # one height of three is found; of two heights neither is blamed, and the ratio carries the disagreement
+    # one height of four is found; of two heights neither is blamed, and the ratio carries the disagreement
     rng = np.random.default_rng(4)
     a = np.array([4.0, 2.0, 1.0, 0.5])
     sigma_beta = 0.01
