@@ -34,8 +34,9 @@ PLANS = {
                "make_safe(), then apply it with the opposite sign and abort() the ramp back through 0; keep magnetic "
                "media and delicate samples away."),
     "engaged": ("approach the surface under amplitude feedback (coarse steps no longer than the Z range just "
-                "searched), scan one short line with two second passes at a safe lift height, stop a second line "
-                "in the middle with abort(), and over a link stay silent until the server's watchdog acts. "
+                "searched), scan one short line with two second passes at a safe lift height, a second with its "
+                "passes biased at +0.5 and -0.5 V (at most half the bias limit; the first pass stays at 0 V), stop a "
+                "third in the middle with abort(), and over a link stay silent until the server's watchdog acts. "
                 "The tip touches the surface in tapping contact; use a sample and a tip you can spare."),
 }
 
