@@ -7,8 +7,8 @@ from assistant.analysis._lazy import attach
 __getattr__, __dir__ = attach(__name__, {
     "air": ("air_density_kg_m3", "air_viscosity_pa_s"),
     "force_curve": ("ContactInvolsResult", "ForceCurveError", "contact_invols", "stiff_sample_invols"),
-    "sader": ("DEFAULT_TEMPERATURE_STD_K", "SaderResult", "hydrodynamic_circular", "hydrodynamic_rectangular", "omega_correction",
-              "sader_spring_constant"),
+    "sader": ("DEFAULT_TEMPERATURE_STD_K", "SaderResult", "hydrodynamic_circular", "hydrodynamic_rectangular",
+              "omega_correction", "sader_spring_constant"),
     "spectra": ("SpectrumError", "WelchAccumulator", "WelchSpectrum", "welch_variance_inflation"),
     "sweep": ("QComparison", "SweepFitError", "SweepResult", "compare_q",
               "drive_amplitude_for_free_amplitude", "drive_frequency", "fit_drive_sweep", "oscillator_response",

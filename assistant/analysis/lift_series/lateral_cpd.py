@@ -57,7 +57,6 @@ class LateralContrast:
     cpd_map_v: np.ndarray       # (rows, cols) the contact potential under the tip [V], in the images' frame
     cpd_map_std_v: float        # its noise per pixel [V]
     map_heights: np.ndarray     # (H,) bool: the heights the map comes from (see consistent_heights)
-    map_birge: float            # the scatter of those heights about the map over their noise (1 when it is noise)
 
 
 def _slopes(images, bias_v):
@@ -141,8 +140,9 @@ def lateral_contrast(images, image_var, mean_fit, *, bias_v) -> LateralContrast:
     # over the heights that agree on it (a height whose slopes hold more than a contact potential is left out)
     w = 4.0 * a**2 / sb2
     used, birge = consistent_heights(beta, a, w)
-    d_var = birge / max(float(w[used].sum()), 1e-300)  # the map's noise variance per pixel [V^2]
-    d = -np.einsum("h,hrc->rc", np.where(used, w, 0.0) / np.where(a != 0, 2.0 * a, np.inf), beta) * (d_var / birge)
+    w_sum = max(float(w[used].sum()), 1e-300)
+    d_var = birge / w_sum  # the map's noise variance per pixel [V^2]
+    d = -np.einsum("h,hrc->rc", np.where(used, w, 0.0) / np.where(a != 0, 2.0 * a, np.inf), beta) / w_sum
     # a height left out keeps the map's contrast in place of its own slopes: its own are mostly something else
     # (first-pass cross-talk at a low lift far from V_cpd), which then stays in its images and is measured there
     # (contrast_by_bias); the map's noise is independent of that height's own
@@ -170,7 +170,7 @@ def lateral_contrast(images, image_var, mean_fit, *, bias_v) -> LateralContrast:
              + quad[:, None])
     mean_dv0 = float(volts.mean() - v0)
     added = g**2 * mean_dv0**2 * sb2 - 2.0 * own * g * mean_dv0 * (iv @ u) / nb + quad
-    return LateralContrast(beta, sb2, contrast, added, after.ravel(), a, v0, v0 + d, float(np.sqrt(d_var)), used, birge)
+    return LateralContrast(beta, sb2, contrast, added, after.ravel(), a, v0, v0 + d, float(np.sqrt(d_var)), used)
 
 
 def lateral_cpd_term(beta, valid, beta_noise_var, *, curvature, curvature_std,
