@@ -20,7 +20,12 @@ def _pace_realtime(url: str) -> str:
 
 def _asker(yes: bool):
     def confirm(level: str, plan: str) -> bool:
-        sys.stderr.write(f"\n{level}: the kit will {plan}\n")
+        import shutil
+        import textwrap
+
+        # wrapped at the terminal's width: at 80 columns the plan's words were cut in two at every line's end
+        width = max(40, shutil.get_terminal_size().columns - 1)
+        sys.stderr.write("\n" + textwrap.fill(f"{level}: the kit will {plan}", width=width) + "\n")
         if yes:
             sys.stderr.write("(--yes: going ahead)\n")
             return True
